@@ -1,0 +1,126 @@
+"""The ``charflow`` command: parse, call the library, write, exit with a meaningful code.
+
+Exit codes: 0 done; 1 the run finished but some points failed (no Liberty written);
+2 bad input (config, netlist, function); 3 simulator or output trouble.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from . import __version__, config, flow
+from .errors import (
+    CharflowError,
+    ConfigError,
+    FunctionalMismatchError,
+    NetlistError,
+)
+
+EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
+PROJECT = Path(__file__).resolve().parent.parent
+DEMO_CONFIG = PROJECT / "demo" / "vellum90.toml"
+RUNS = PROJECT / "runs"
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="charflow", description=__doc__.splitlines()[0])
+    parser.add_argument("--version", action="version", version=f"charflow {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    run = sub.add_parser("run", help="characterize the library a config describes")
+    run.add_argument("config", type=Path)
+    _common(run)
+    run.add_argument("--cell", action="append", help="only this cell (repeatable)")
+
+    demo = sub.add_parser("demo", help="characterize the bundled demo library")
+    _common(demo)
+    return parser
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", type=Path, help="output folder (default: runs/<library name>)")
+    p.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+class _Progress:
+    """A tqdm bar on a terminal; nothing when output is redirected or --quiet."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.enabled = not quiet and sys.stderr.isatty()
+        self.bar = None
+        self.failed = 0
+
+    def start(self, total: int) -> None:
+        if self.enabled:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, unit="pt", desc="points", dynamic_ncols=True)
+
+    def result(self, outcome: object) -> None:
+        if isinstance(outcome, flow.Failure):
+            self.failed += 1
+        if self.bar is not None:
+            self.bar.update(1)
+            if self.failed:
+                self.bar.set_postfix(failed=self.failed)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+def _run(cfg_path: Path, args: argparse.Namespace) -> int:
+    cfg = config.load(cfg_path)
+    if args.jobs is not None and args.jobs < 1:
+        raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    out = args.out or RUNS / cfg.name
+    progress = _Progress(args.quiet)
+    try:
+        result = flow.characterize(
+            cfg,
+            cells=getattr(args, "cell", None),
+            jobs=args.jobs,
+            on_start=progress.start,
+            on_result=progress.result,
+        )
+    finally:
+        progress.close()
+    written = flow.write(cfg, result, out)
+    per_sim = result.sim_seconds / max(result.simulations, 1)
+    print(
+        f"{cfg.name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
+        f"{result.simulations} simulations in {result.wall_seconds:.1f} s wall "
+        f"({per_sim * 1e3:.1f} ms simulator time each)"
+    )
+    for path in written:
+        print(f"wrote {path}")
+    if result.failures:
+        print(f"{len(result.failures)} point(s) failed; no Liberty file written:", file=sys.stderr)
+        for f in result.failures[:20]:
+            print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+        return EXIT_FAILED_POINTS
+    return EXIT_OK
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "run":
+            return _run(args.config, args)
+        return _run(DEMO_CONFIG, args)
+    except (ConfigError, NetlistError, FunctionalMismatchError) as exc:
+        print(f"charflow: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except CharflowError as exc:
+        print(f"charflow: {exc}", file=sys.stderr)
+        return EXIT_TROUBLE
+    except KeyboardInterrupt:
+        print("charflow: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

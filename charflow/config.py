@@ -1,0 +1,490 @@
+"""Reading and validating charflow's TOML configuration into typed, frozen records.
+
+Every value the rest of charflow sees is in SI units; the config's library units
+(``time_unit``, ``cap_unit``) are applied here and in the writers only. Problems are
+collected, not stopped at: one ConfigError lists every one found, each naming the file,
+the key and the cell.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from . import logic
+from .errors import ConfigError, FunctionSyntaxError
+from .units import CAP_UNITS, TIME_UNITS, cap_scale, time_scale
+
+
+@dataclass(frozen=True, slots=True)
+class Thresholds:
+    """Measurement thresholds as fractions of the supply (the config gives percent)."""
+
+    input_rise: float = 0.5
+    input_fall: float = 0.5
+    output_rise: float = 0.5
+    output_fall: float = 0.5
+    slew_lower_rise: float = 0.2
+    slew_upper_rise: float = 0.8
+    slew_lower_fall: float = 0.2
+    slew_upper_fall: float = 0.8
+    slew_derate: float = 1.0
+
+    def delay_input(self, edge: str) -> float:
+        return self.input_rise if edge == "rise" else self.input_fall
+
+    def delay_output(self, edge: str) -> float:
+        return self.output_rise if edge == "rise" else self.output_fall
+
+    def slew_band(self, edge: str) -> tuple[float, float]:
+        """(lower, upper) slew thresholds for an edge, as fractions of the supply."""
+        if edge == "rise":
+            return self.slew_lower_rise, self.slew_upper_rise
+        return self.slew_lower_fall, self.slew_upper_fall
+
+
+@dataclass(frozen=True, slots=True)
+class ModelFile:
+    path: Path
+    section: str | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Process:
+    models: tuple[ModelFile, ...]
+    vdd: float  # V
+    temperature: float  # degrees C
+    options: tuple[tuple[str, str], ...] = ()
+    compat: str | None = None  # ngspice's ngbehavior, e.g. "hs" for foundry decks
+    scale: float | None = None  # .option scale
+
+
+@dataclass(frozen=True, slots=True)
+class Grid:
+    slew: tuple[float, ...]  # s
+    load: tuple[float, ...]  # F
+
+
+@dataclass(frozen=True, slots=True)
+class OutputSpec:
+    pin: str
+    function: logic.Expr
+
+
+@dataclass(frozen=True, slots=True)
+class CellSpec:
+    name: str
+    inputs: tuple[str, ...]
+    outputs: tuple[OutputSpec, ...]
+    grid: Grid
+    template: Path | None = None
+    netlist: Path | None = None
+    params: tuple[tuple[str, Any], ...] = ()
+    power: str = "VDD"
+    ground: str = "VSS"
+    area: float = 0.0
+
+    @property
+    def source(self) -> Path:
+        """The file the cell's ``.subckt`` comes from."""
+        return self.template if self.template is not None else self.netlist  # type: ignore[return-value]
+
+
+@dataclass(frozen=True, slots=True)
+class Simulation:
+    """How charflow drives the simulator; charflow's own settings, not the library's."""
+
+    backend: str = "shared"  # "shared" (in-process libngspice) or "subprocess"
+    timeout: float = 60.0  # s of wall time per simulation
+    window: float | None = None  # s after the input ramp before the first settle check
+    samples_per_edge: int = 20  # minimum samples across the output transition
+    settle: float = 0.01  # fraction of vdd the output must be within at the end
+    extensions: int = 4  # times the window may double before a point is declared unsettled
+
+
+@dataclass(frozen=True, slots=True)
+class LibraryConfig:
+    path: Path
+    name: str
+    time_unit: str
+    cap_unit: str
+    process: Process
+    thresholds: Thresholds
+    grid: Grid
+    cells: tuple[CellSpec, ...]
+    simulation: Simulation = field(default_factory=Simulation)
+
+    @property
+    def time_scale(self) -> float:
+        return time_scale(self.time_unit)
+
+    @property
+    def cap_scale(self) -> float:
+        return cap_scale(self.cap_unit)
+
+    def cell(self, name: str) -> CellSpec:
+        for cell in self.cells:
+            if cell.name == name:
+                return cell
+        raise ConfigError(
+            f"no cell named {name!r}; the config has {', '.join(c.name for c in self.cells)}",
+            file=self.path,
+            cell=name,
+        )
+
+
+_MISSING = object()
+
+
+class _Reader:
+    """Walks the TOML document, collecting every problem with its file, key and cell."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self.problems: list[str] = []
+
+    def problem(self, key: str, message: str, cell: str | None = None) -> None:
+        self.problems.append(str(ConfigError(message, file=self.path, key=key, cell=cell)))
+
+    def section(
+        self, table: dict, key: str, allowed: set[str], *, required: bool, cell: str | None = None
+    ) -> dict:
+        value = table.get(key, _MISSING)
+        if value is _MISSING:
+            if required:
+                self.problem(key, "missing section", cell)
+            return {}
+        if not isinstance(value, dict):
+            self.problem(key, f"must be a table, got {type(value).__name__}", cell)
+            return {}
+        self.unknown(value, allowed, key, cell)
+        return value
+
+    def unknown(self, table: dict, allowed: set[str], prefix: str, cell: str | None) -> None:
+        for k in sorted(set(table) - allowed):
+            self.problem(f"{prefix}.{k}" if prefix else k, f"unknown key; allowed: {', '.join(sorted(allowed))}", cell)
+
+    def get(
+        self,
+        table: dict,
+        key: str,
+        kind: type | tuple[type, ...],
+        prefix: str,
+        default: Any = _MISSING,
+        cell: str | None = None,
+    ) -> Any:
+        full = f"{prefix}.{key}" if prefix else key
+        value = table.get(key, _MISSING)
+        if value is _MISSING:
+            if default is _MISSING:
+                self.problem(full, "missing key", cell)
+                return None
+            return default
+        kinds = kind if isinstance(kind, tuple) else (kind,)
+        # TOML integers are fine where a float is wanted; booleans are not numbers here.
+        if float in kinds and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if isinstance(value, bool) and bool not in kinds:
+            ok = False
+        else:
+            ok = isinstance(value, kinds)
+        if not ok:
+            names = " or ".join(k.__name__ for k in kinds)
+            self.problem(full, f"must be {names}, got {type(value).__name__} {value!r}", cell)
+            return None
+        return value
+
+    def number(
+        self,
+        table: dict,
+        key: str,
+        prefix: str,
+        default: Any = _MISSING,
+        cell: str | None = None,
+        low: float | None = None,
+        high: float | None = None,
+    ) -> float | None:
+        value = self.get(table, key, float, prefix, default, cell)
+        if value is None:
+            return None
+        full = f"{prefix}.{key}"
+        if not math.isfinite(value):
+            self.problem(full, f"must be finite, got {value}", cell)
+            return None
+        if low is not None and value <= low:
+            self.problem(full, f"must be greater than {low:g}, got {value:g}", cell)
+            return None
+        if high is not None and value > high:
+            self.problem(full, f"must be at most {high:g}, got {value:g}", cell)
+            return None
+        return value
+
+    def axis(self, table: dict, key: str, prefix: str, scale: float, cell: str | None) -> tuple[float, ...] | None:
+        full = f"{prefix}.{key}"
+        values = table.get(key)
+        if not isinstance(values, list) or not values:
+            self.problem(full, "must be a non-empty list of numbers", cell)
+            return None
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
+            self.problem(full, f"must hold numbers only, got {values!r}", cell)
+            return None
+        for i, v in enumerate(values):
+            if not math.isfinite(v) or v < 0:
+                self.problem(full, f"entry {i} must be finite and not negative, got {v!r}", cell)
+                return None
+        for i in range(1, len(values)):
+            if values[i] <= values[i - 1]:
+                self.problem(
+                    full,
+                    f"must be strictly increasing: entry {i} ({values[i]!r}) follows {values[i - 1]!r}",
+                    cell,
+                )
+                return None
+        return tuple(float(v) * scale for v in values)
+
+
+_LIBRARY_KEYS = {"name", "time_unit", "cap_unit"}
+_PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
+_THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
+_GRID_KEYS = {"slew", "load"}
+_SIM_KEYS = set(Simulation.__dataclass_fields__)
+_CELL_KEYS = {"name", "template", "netlist", "params", "inputs", "outputs", "power", "ground", "area", "grid"}
+_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation"}
+_PIN = r"[A-Za-z_][A-Za-z0-9_]*"
+
+
+def load(path: str | Path) -> LibraryConfig:
+    """Read and validate a config file; raise one ConfigError that lists every problem."""
+    path = Path(path).resolve()
+    try:
+        doc = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError as exc:
+        raise ConfigError("config file not found", file=path) from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"cannot read config: {exc}", file=path) from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML: {exc}", file=path) from exc
+    return parse(doc, path)
+
+
+def parse(doc: dict, path: Path) -> LibraryConfig:
+    """Validate a parsed TOML document; ``path`` locates messages and relative paths."""
+    r = _Reader(path)
+    r.unknown(doc, _TOP_KEYS, "", None)
+    base = path.parent
+
+    lib = r.section(doc, "library", _LIBRARY_KEYS, required=True)
+    name = r.get(lib, "name", str, "library")
+    if name is not None and not _is_identifier(name):
+        r.problem("library.name", f"must be a name of letters, digits and _, got {name!r}")
+    time_unit = r.get(lib, "time_unit", str, "library", "ns")
+    if time_unit is not None and time_unit not in TIME_UNITS:
+        r.problem("library.time_unit", f"must be one of {', '.join(TIME_UNITS)}, got {time_unit!r}")
+        time_unit = None
+    cap_unit = r.get(lib, "cap_unit", str, "library", "pf")
+    if cap_unit is not None and cap_unit not in CAP_UNITS:
+        r.problem("library.cap_unit", f"must be one of {', '.join(CAP_UNITS)}, got {cap_unit!r}")
+        cap_unit = None
+    tscale = time_scale(time_unit) if time_unit else 1.0
+    cscale = cap_scale(cap_unit) if cap_unit else 1.0
+
+    process = _process(r, r.section(doc, "process", _PROCESS_KEYS, required=True), base)
+    thresholds = _thresholds(r, r.section(doc, "thresholds", _THRESHOLD_KEYS, required=False))
+    grid_doc = r.section(doc, "grid", _GRID_KEYS, required=True)
+    slew = r.axis(grid_doc, "slew", "grid", tscale, None)
+    load_ = r.axis(grid_doc, "load", "grid", cscale, None)
+    grid = Grid(slew or (), load_ or ())
+    simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
+
+    cells_doc = doc.get("cell", [])
+    if not isinstance(cells_doc, list) or not cells_doc:
+        r.problem("cell", "the config must declare at least one [[cell]]")
+        cells_doc = []
+    cells = []
+    seen: set[str] = set()
+    for i, cell_doc in enumerate(cells_doc):
+        cell = _cell(r, cell_doc, i, base, grid, tscale, cscale)
+        if cell is None:
+            continue
+        if cell.name in seen:
+            r.problem(f"cell[{i}].name", "a cell of this name is declared twice", cell.name)
+        seen.add(cell.name)
+        cells.append(cell)
+
+    if r.problems:
+        raise ConfigError(
+            f"{len(r.problems)} problem(s) in the config:\n  " + "\n  ".join(r.problems), file=path
+        )
+    return LibraryConfig(
+        path=path,
+        name=name,
+        time_unit=time_unit,
+        cap_unit=cap_unit,
+        process=process,
+        thresholds=thresholds,
+        grid=grid,
+        cells=tuple(cells),
+        simulation=simulation,
+    )
+
+
+def _is_identifier(text: str) -> bool:
+    import re
+
+    return re.fullmatch(_PIN, text) is not None
+
+
+def _process(r: _Reader, doc: dict, base: Path) -> Process:
+    models: list[ModelFile] = []
+    entries = doc.get("models")
+    if not isinstance(entries, list) or not entries:
+        r.problem("process.models", "must be a non-empty list of files or {file, section} tables")
+        entries = []
+    for i, entry in enumerate(entries):
+        key = f"process.models[{i}]"
+        if isinstance(entry, str):
+            file, section = entry, None
+        elif isinstance(entry, dict):
+            r.unknown(entry, {"file", "section"}, key, None)
+            file = r.get(entry, "file", str, key)
+            section = r.get(entry, "section", str, key, None)
+            if file is None:
+                continue
+        else:
+            r.problem(key, f"must be a file name or a {{file, section}} table, got {entry!r}")
+            continue
+        model_path = (base / file).resolve()
+        if not model_path.is_file():
+            r.problem(key, f"model file not found: {model_path}")
+            continue
+        models.append(ModelFile(model_path, section))
+    vdd = r.number(doc, "vdd", "process", low=0.0)
+    temperature = r.number(doc, "temperature", "process", 25.0, low=-273.15)
+    options_doc = r.get(doc, "options", dict, "process", {})
+    options = []
+    for k, v in sorted((options_doc or {}).items()):
+        if isinstance(v, bool) or not isinstance(v, (int, float, str)):
+            r.problem(f"process.options.{k}", f"must be a number or a string, got {v!r}")
+            continue
+        options.append((k, str(v)))
+    compat = r.get(doc, "compat", str, "process", None)
+    scale = r.number(doc, "scale", "process", None, low=0.0)
+    return Process(tuple(models), vdd or 0.0, temperature or 0.0, tuple(options), compat, scale)
+
+
+def _thresholds(r: _Reader, doc: dict) -> Thresholds:
+    values = {}
+    for key, default in Thresholds.__dataclass_fields__.items():
+        if key == "slew_derate":
+            v = r.number(doc, key, "thresholds", default.default, low=0.0, high=1.0)
+            values[key] = default.default if v is None else v
+        else:
+            v = r.number(doc, key, "thresholds", default.default * 100, low=0.0, high=100.0)
+            values[key] = default.default if v is None else v / 100.0
+    t = Thresholds(**values)
+    for edge in ("rise", "fall"):
+        lo, hi = t.slew_band(edge)
+        if lo >= hi:
+            r.problem(
+                f"thresholds.slew_lower_{edge}",
+                f"must be below slew_upper_{edge} ({lo * 100:g} % >= {hi * 100:g} %)",
+            )
+    return t
+
+
+def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
+    d = Simulation()
+    backend = r.get(doc, "backend", str, "simulation", d.backend)
+    if backend not in ("shared", "subprocess"):
+        r.problem("simulation.backend", f"must be 'shared' or 'subprocess', got {backend!r}")
+        backend = d.backend
+    timeout = r.number(doc, "timeout", "simulation", d.timeout, low=0.0)
+    window = r.number(doc, "window", "simulation", None, low=0.0)
+    samples = r.get(doc, "samples_per_edge", int, "simulation", d.samples_per_edge)
+    if samples is not None and samples < 4:
+        r.problem("simulation.samples_per_edge", f"must be at least 4, got {samples}")
+        samples = None
+    settle = r.number(doc, "settle", "simulation", d.settle, low=0.0, high=0.5)
+    extensions = r.get(doc, "extensions", int, "simulation", d.extensions)
+    return Simulation(
+        backend=backend,
+        timeout=timeout or d.timeout,
+        window=None if window is None else window * tscale,
+        samples_per_edge=samples or d.samples_per_edge,
+        settle=settle or d.settle,
+        extensions=d.extensions if extensions is None else extensions,
+    )
+
+
+def _cell(
+    r: _Reader, doc: Any, i: int, base: Path, grid: Grid, tscale: float, cscale: float
+) -> CellSpec | None:
+    key = f"cell[{i}]"
+    if not isinstance(doc, dict):
+        r.problem(key, "must be a table")
+        return None
+    name = r.get(doc, "name", str, key)
+    if name is None:
+        return None
+    r.unknown(doc, _CELL_KEYS, key, name)
+    template = r.get(doc, "template", str, key, None, name)
+    netlist = r.get(doc, "netlist", str, key, None, name)
+    source: Path | None = None
+    if (template is None) == (netlist is None):
+        r.problem(key, "give exactly one of 'template' (Jinja2) or 'netlist' (plain SPICE)", name)
+    else:
+        which = "template" if template is not None else "netlist"
+        source = (base / (template or netlist)).resolve()
+        if not source.is_file():
+            r.problem(f"{key}.{which}", f"file not found: {source}", name)
+    params = r.get(doc, "params", dict, key, {}, name) or {}
+    inputs = r.get(doc, "inputs", list, key, None, name) or []
+    for j, pin in enumerate(inputs):
+        if not isinstance(pin, str) or not _is_identifier(pin):
+            r.problem(f"{key}.inputs[{j}]", f"must be a pin name, got {pin!r}", name)
+    inputs = [p for p in inputs if isinstance(p, str)]
+    if len(set(inputs)) != len(inputs):
+        r.problem(f"{key}.inputs", f"names a pin twice: {inputs}", name)
+    outputs_doc = r.get(doc, "outputs", dict, key, None, name) or {}
+    if not outputs_doc:
+        r.problem(f"{key}.outputs", "must map at least one output pin to its function", name)
+    outputs = []
+    for pin, text in outputs_doc.items():
+        okey = f"{key}.outputs.{pin}"
+        if not isinstance(text, str):
+            r.problem(okey, f"must be a Boolean function in Liberty syntax, got {text!r}", name)
+            continue
+        if pin in inputs:
+            r.problem(okey, "an output cannot also be an input", name)
+        try:
+            expr = logic.parse(text, cell=name, pin=pin)
+        except FunctionSyntaxError as exc:
+            r.problem(okey, exc.reason, name)
+            continue
+        extra = sorted(expr.variables() - set(inputs))
+        if extra:
+            r.problem(okey, f"function uses {', '.join(extra)}, not among the inputs {inputs}", name)
+            continue
+        outputs.append(OutputSpec(pin, expr))
+    power = r.get(doc, "power", str, key, "VDD", name)
+    ground = r.get(doc, "ground", str, key, "VSS", name)
+    area = r.number(doc, "area", key, 0.0, name)
+    grid_doc = r.get(doc, "grid", dict, key, {}, name) or {}
+    r.unknown(grid_doc, _GRID_KEYS, f"{key}.grid", name)
+    slew = r.axis(grid_doc, "slew", f"{key}.grid", tscale, name) if "slew" in grid_doc else grid.slew
+    load_ = r.axis(grid_doc, "load", f"{key}.grid", cscale, name) if "load" in grid_doc else grid.load
+    return CellSpec(
+        name=name,
+        inputs=tuple(inputs),
+        outputs=tuple(outputs),
+        grid=Grid(slew or (), load_ or ()),
+        template=source if template is not None else None,
+        netlist=source if netlist is not None else None,
+        params=tuple(sorted(params.items())),
+        power=power or "VDD",
+        ground=ground or "VSS",
+        area=area or 0.0,
+    )

@@ -1,0 +1,171 @@
+"""The characterization flow as public stages a user can call one by one.
+
+    config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
+
+``characterize`` chains them; each stage takes and returns plain records, so any one can
+be tested or re-run alone.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import __version__, liberty, sweep
+from .config import LibraryConfig
+from .errors import OutputError
+from .netlist import build_deck
+from .tabulate import CellTables, tabulate
+from .timing import Failure, Measurement, check_function
+
+
+@dataclass(frozen=True, slots=True)
+class RunResult:
+    plan: sweep.Plan
+    measurements: tuple[Measurement, ...]
+    failures: tuple[Failure, ...]
+    cells: tuple[CellTables, ...]  # empty when any point failed
+    wall_seconds: float
+
+    @property
+    def simulations(self) -> int:
+        return sum(m.runs for m in self.measurements)
+
+    @property
+    def sim_seconds(self) -> float:
+        return sum(m.sim_seconds for m in self.measurements)
+
+
+def verify(config: LibraryConfig, cells: list[str] | None = None) -> None:
+    """Simulate every input vector of every chosen cell against its declared function."""
+    for cell in config.cells:
+        if cells is None or cell.name in cells:
+            check_function(config, build_deck(config, cell))
+
+
+def characterize(
+    config: LibraryConfig,
+    *,
+    cells: list[str] | None = None,
+    jobs: int | None = None,
+    on_start: Callable[[int], None] | None = None,
+    on_result: Callable[[object], None] | None = None,
+) -> RunResult:
+    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers."""
+    start = time.perf_counter()
+    the_plan = sweep.plan(config, cells)
+    verify(config, cells)
+    if on_start is not None:
+        on_start(len(the_plan.points))
+    measurements: list[Measurement] = []
+    failures: list[Failure] = []
+    for outcome in sweep.run(config, the_plan.points, jobs=jobs, on_result=on_result):
+        (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
+    order = {p: i for i, p in enumerate(the_plan.points)}
+    measurements.sort(key=lambda m: order[m.point])
+    failures.sort(key=lambda f: order[f.point])
+    tables = () if failures else tabulate(config, the_plan, measurements)
+    return RunResult(the_plan, tuple(measurements), tuple(failures), tables, time.perf_counter() - start)
+
+
+def to_json(config: LibraryConfig, result: RunResult) -> dict:
+    """Tables in SI units with the measurement details behind every point."""
+
+    def point_record(m: Measurement) -> dict:
+        p = m.point
+        return {
+            "related_pin": p.related,
+            "output": p.output,
+            "when": sweep.State(p.side, "").when,
+            "input_edge": p.input_edge,
+            "output_edge": p.output_edge,
+            "slew_s": p.slew,
+            "load_F": p.load,
+            "delay_s": m.delay,
+            "transition_s": m.transition,
+            "input_charge_C": m.input_charge,
+            "simulations": m.runs,
+            "sim_seconds": round(m.sim_seconds, 6),
+            "stop_s": m.stop,
+        }
+
+    cells = []
+    for cell in result.cells:
+        arcs = []
+        for arc in cell.arcs:
+            arcs.append(
+                {
+                    "related_pin": arc.arc.related,
+                    "output": arc.arc.output,
+                    "timing_sense": arc.arc.sense,
+                    "tables": [t.to_dict() for t in arc.default],
+                    "states": [
+                        {
+                            "when": st.state.when,
+                            "timing_sense": st.state.sense,
+                            "tables": [t.to_dict() for t in st.tables],
+                        }
+                        for st in arc.states
+                    ],
+                }
+            )
+        cells.append(
+            {
+                "name": cell.cell.name,
+                "area": cell.cell.area,
+                "inputs": [
+                    {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+                    for p in cell.pins
+                ],
+                "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
+                "arcs": arcs,
+            }
+        )
+    return {
+        "library": config.name,
+        "generator": f"charflow {__version__}",
+        "units": {"time": "s", "capacitance": "F", "charge": "C", "voltage": "V"},
+        "library_units": {"time": config.time_unit, "capacitance": config.cap_unit},
+        "vdd_V": config.process.vdd,
+        "temperature_C": config.process.temperature,
+        "cells": cells,
+        "points": {
+            name: [point_record(m) for m in result.measurements if m.point.cell == name]
+            for name in dict.fromkeys(p.cell for p in result.plan.points)
+        },
+        "failures": [
+            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason} for f in result.failures
+        ],
+    }
+
+
+def write_atomic(path: Path, text: str) -> None:
+    """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise OutputError(f"cannot write output: {exc}", file=path) from exc
+
+
+def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]:
+    """Write the JSON (always) and the Liberty file (only when every point was measured)."""
+    out_dir = Path(out_dir)
+    written = []
+    json_path = out_dir / f"{config.name}.json"
+    write_atomic(json_path, json.dumps(to_json(config, result), indent=1) + "\n")
+    written.append(json_path)
+    if not result.failures:
+        lib_path = out_dir / f"{config.name}.lib"
+        write_atomic(lib_path, liberty.render(config, result.cells))
+        written.append(lib_path)
+    return written
+

@@ -1,0 +1,172 @@
+"""Writing the Liberty open format.
+
+Values are converted from SI to the library's units here and nowhere else. Table
+templates are shared: one ``lu_table_template`` per distinct pair of index vectors.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import numpy as np
+
+from .config import LibraryConfig
+from .tabulate import ArcTables, CellTables
+from .tables import Table
+
+VALUE_FORMAT = "{:.7g}"
+# Liberty's order of the four NLDM tables inside a timing group (common practice).
+TIMING_QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
+
+
+def _fmt(x: float) -> str:
+    return VALUE_FORMAT.format(x)
+
+
+def _index(values: Iterable[float], scale: float) -> str:
+    return '("' + ", ".join(_fmt(v / scale) for v in values) + '")'
+
+
+class _Writer:
+    def __init__(self) -> None:
+        self.lines: list[str] = []
+        self.depth = 0
+
+    def attr(self, name: str, value: str) -> None:
+        self.lines.append("  " * self.depth + f"{name} : {value} ;")
+
+    def complex(self, name: str, args: str) -> None:
+        self.lines.append("  " * self.depth + f"{name} {args} ;")
+
+    def open(self, group: str, name: str = "") -> None:
+        self.lines.append("  " * self.depth + f"{group} ({name}) {{")
+        self.depth += 1
+
+    def close(self) -> None:
+        self.depth -= 1
+        self.lines.append("  " * self.depth + "}")
+
+
+def _scales(config: LibraryConfig, table: Table) -> list[float]:
+    per_axis = {
+        "input_net_transition": config.time_scale,
+        "total_output_net_capacitance": config.cap_scale,
+        "related_out_total_output_net_capacitance": config.cap_scale,
+    }
+    return [per_axis[a.name] for a in table.axes]
+
+
+def _value_scale(config: LibraryConfig, table: Table) -> float:
+    return {"s": config.time_scale, "F": config.cap_scale}[table.unit]
+
+
+def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple, str]:
+    """Template name per distinct (axis names, index values)."""
+    names: dict[tuple, str] = {}
+    for cell in cells:
+        for arc in cell.arcs:
+            for table in arc.default:
+                key = tuple((a.name, a.values) for a in table.axes)
+                if key not in names:
+                    shape = "x".join(str(len(a.values)) for a in table.axes)
+                    names[key] = f"grid_{shape}_{len(names) + 1}"
+    return names
+
+
+def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) -> None:
+    w.open(table.quantity, template)
+    for k, (axis, scale) in enumerate(zip(table.axes, _scales(config, table), strict=True), 1):
+        w.complex(f"index_{k}", _index(axis.values, scale))
+    scaled = np.asarray(table.values) / _value_scale(config, table)
+    rows = scaled.reshape(-1, scaled.shape[-1]) if scaled.ndim > 1 else scaled.reshape(1, -1)
+    text = ", \\\n".join("  " * (w.depth + 1) + '"' + ", ".join(_fmt(x) for x in row) + '"' for row in rows)
+    w.lines.append("  " * w.depth + "values ( \\")
+    w.lines.append(text + " ) ;")
+    w.close()
+
+
+def _timing_group(
+    w: _Writer,
+    config: LibraryConfig,
+    names: dict[tuple, str],
+    arc: ArcTables,
+    tables: tuple[Table, ...],
+    sense: str,
+    when: str = "",
+) -> None:
+    w.open("timing")
+    w.attr("related_pin", f'"{arc.arc.related}"')
+    w.attr("timing_sense", sense)
+    w.attr("timing_type", "combinational")
+    if when:
+        w.attr("when", f'"{when}"')
+    by_quantity = {t.quantity: t for t in tables}
+    for quantity in TIMING_QUANTITIES:
+        table = by_quantity.get(quantity)
+        if table is not None:
+            write_table(w, config, table, names[tuple((a.name, a.values) for a in table.axes)])
+    w.close()
+
+
+def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
+    """The whole library as Liberty text."""
+    p = config.process
+    t = config.thresholds
+    w = _Writer()
+    w.lines.append(f"/* {config.name}: written by charflow from {config.path.name} */")
+    w.open("library", config.name)
+    w.attr("delay_model", "table_lookup")
+    w.attr("time_unit", f'"1{config.time_unit}"')
+    w.attr("voltage_unit", '"1V"')
+    w.attr("current_unit", '"1mA"')
+    w.attr("pulling_resistance_unit", '"1kohm"')
+    w.complex("capacitive_load_unit", f"(1, {config.cap_unit})")
+    w.attr("nom_process", "1")
+    w.attr("nom_voltage", _fmt(p.vdd))
+    w.attr("nom_temperature", _fmt(p.temperature))
+    w.open("operating_conditions", "nominal")
+    w.attr("process", "1")
+    w.attr("voltage", _fmt(p.vdd))
+    w.attr("temperature", _fmt(p.temperature))
+    w.close()
+    w.attr("default_operating_conditions", "nominal")
+    for edge in ("rise", "fall"):
+        w.attr(f"input_threshold_pct_{edge}", _fmt(100 * t.delay_input(edge)))
+        w.attr(f"output_threshold_pct_{edge}", _fmt(100 * t.delay_output(edge)))
+    for edge in ("rise", "fall"):
+        lower, upper = t.slew_band(edge)
+        w.attr(f"slew_lower_threshold_pct_{edge}", _fmt(100 * lower))
+        w.attr(f"slew_upper_threshold_pct_{edge}", _fmt(100 * upper))
+    w.attr("slew_derate_from_library", _fmt(t.slew_derate))
+    names = templates(config, cells)
+    for key, name in names.items():
+        w.open("lu_table_template", name)
+        for k, (axis_name, _) in enumerate(key, 1):
+            w.attr(f"variable_{k}", axis_name)
+        for k, (axis_name, values) in enumerate(key, 1):
+            scale = config.time_scale if axis_name == "input_net_transition" else config.cap_scale
+            w.complex(f"index_{k}", _index(values, scale))
+        w.close()
+    for cell in cells:
+        w.open("cell", cell.cell.name)
+        w.attr("area", _fmt(cell.cell.area))
+        for pin in cell.pins:
+            w.open("pin", pin.pin)
+            w.attr("direction", "input")
+            w.attr("capacitance", _fmt(pin.capacitance / config.cap_scale))
+            w.attr("rise_capacitance", _fmt(pin.rise / config.cap_scale))
+            w.attr("fall_capacitance", _fmt(pin.fall / config.cap_scale))
+            w.close()
+        for out in cell.cell.outputs:
+            w.open("pin", out.pin)
+            w.attr("direction", "output")
+            w.attr("function", f'"{out.function.to_liberty()}"')
+            for arc in (a for a in cell.arcs if a.arc.output == out.pin):
+                _timing_group(w, config, names, arc, arc.default, arc.arc.sense)
+                if len(arc.states) > 1:
+                    for st in arc.states:
+                        _timing_group(w, config, names, arc, st.tables, st.state.sense, st.state.when)
+            w.close()
+        w.close()
+    w.close()
+    return "\n".join(w.lines) + "\n"

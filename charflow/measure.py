@@ -1,0 +1,96 @@
+"""Waveform measurements: threshold crossings, delay, transition, charge.
+
+Crossings are located on the simulator's own samples with linear interpolation between
+the two samples that straddle the level. A waveform that does not cross, crosses more
+than once, or has not settled by the end is a MeasurementError, never a number.
+``crossings_loop`` is a plain twin of the vectorised ``crossings`` for the tests.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .errors import MeasurementError
+
+
+def crossings(t: np.ndarray, v: np.ndarray, level: float, direction: int = 0) -> np.ndarray:
+    """Times where ``v`` crosses ``level``; direction +1 rising only, -1 falling only, 0 both.
+
+    A sample exactly on the level counts as above it, so touching the level from below and
+    turning back is not a crossing, and a crossing that lands on a sample is counted once.
+    """
+    above = v >= level
+    idx = np.flatnonzero(above[1:] != above[:-1])
+    if direction:
+        rising = above[idx + 1]
+        idx = idx[rising] if direction > 0 else idx[~rising]
+    v0, v1 = v[idx], v[idx + 1]
+    t0, t1 = t[idx], t[idx + 1]
+    return t0 + (level - v0) * (t1 - t0) / (v1 - v0)
+
+
+def crossings_loop(t, v, level: float, direction: int = 0) -> list[float]:
+    """The obvious per-sample loop, kept only to check ``crossings``."""
+    out = []
+    for i in range(len(v) - 1):
+        a, b = v[i] >= level, v[i + 1] >= level
+        if a == b:
+            continue
+        if direction > 0 and not b or direction < 0 and b:
+            continue
+        out.append(t[i] + (level - v[i]) * (t[i + 1] - t[i]) / (v[i + 1] - v[i]))
+    return out
+
+
+def single_crossing(t: np.ndarray, v: np.ndarray, level: float, edge: str, what: str) -> float:
+    """The one crossing of ``level`` on ``edge``; anything else is a MeasurementError."""
+    found = crossings(t, v, level, 0)
+    if len(found) == 0:
+        raise MeasurementError(
+            f"{what} never crosses {level:.4g} V (from {v[0]:.4g} V to {v[-1]:.4g} V)"
+        )
+    if len(found) > 1:
+        raise MeasurementError(
+            f"{what} crosses {level:.4g} V {len(found)} times (glitch) at "
+            + ", ".join(f"{x:.4g}" for x in found[:5])
+            + " s"
+        )
+    want = 1 if edge == "rise" else -1
+    direction = 1 if v[-1] > v[0] else -1
+    if direction != want:
+        raise MeasurementError(f"{what} moves the wrong way: expected {edge}")
+    return float(found[0])
+
+
+def transition(
+    t: np.ndarray, v: np.ndarray, vdd: float, band: tuple[float, float], edge: str, what: str
+) -> float:
+    """Time between the slew thresholds (fractions of vdd), in the edge's direction."""
+    lower = single_crossing(t, v, band[0] * vdd, edge, what)
+    upper = single_crossing(t, v, band[1] * vdd, edge, what)
+    return upper - lower if edge == "rise" else lower - upper
+
+
+def check_settled(v: np.ndarray, target: float, tolerance: float, what: str) -> None:
+    """The waveform ended within ``tolerance`` (V) of ``target``."""
+    if abs(v[-1] - target) > tolerance:
+        raise MeasurementError(
+            f"{what} has not settled: ends at {v[-1]:.4g} V, {target:.4g} V expected "
+            f"(tolerance {tolerance:.3g} V)"
+        )
+
+
+def integral(t: np.ndarray, y: np.ndarray, start: float | None = None, stop: float | None = None) -> float:
+    """Trapezoidal integral of ``y`` over [start, stop], the ends interpolated."""
+    lo = t[0] if start is None else start
+    hi = t[-1] if stop is None else stop
+    inside = (t > lo) & (t < hi)
+    ts = np.concatenate(([lo], t[inside], [hi]))
+    ys = np.concatenate(([np.interp(lo, t, y)], y[inside], [np.interp(hi, t, y)]))
+    return float(np.trapezoid(ys, ts))
+
+
+def step_at(t: np.ndarray, when: float) -> float:
+    """The simulator's sample spacing around time ``when``."""
+    i = int(np.clip(np.searchsorted(t, when), 1, len(t) - 1))
+    return float(t[i] - t[i - 1])

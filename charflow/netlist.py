@@ -1,0 +1,169 @@
+"""Cell netlists and testbenches: rendering templates, reading ``.subckt`` ports, building decks.
+
+A testbench deck holds the models, the cell, one PULSE source per input, a supply and a
+load capacitor per output. Every sweep point of a cell runs on the same deck: the point's
+slew, load and side-input values are applied with ``alter`` commands, so the simulator
+reads the models and the cell once (see ``simulate``).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import jinja2
+
+from .config import CellSpec, LibraryConfig
+from .errors import NetlistError
+
+TEMPLATE_DIR = Path(__file__).resolve().parent.parent / "templates"
+TESTBENCH = "testbench.sp.j2"
+
+# Placeholder values in the deck; every point overrides them with ``alter``.
+PARKED_LOAD = 1e-18
+
+
+@dataclass(frozen=True, slots=True)
+class Subckt:
+    name: str
+    ports: tuple[str, ...]
+    line: int  # 1-based line of the .subckt card in its source
+
+
+@dataclass(frozen=True, slots=True)
+class Deck:
+    """A testbench ready for the simulator; ``key`` identifies its text."""
+
+    cell: str
+    text: str
+    key: str
+    supply: str  # name of the supply source, whose branch current is the supply current
+
+    @staticmethod
+    def input_source(pin: str) -> str:
+        return f"vin_{pin}".lower()
+
+    @staticmethod
+    def load_cap(pin: str) -> str:
+        return f"cload_{pin}".lower()
+
+    @staticmethod
+    def input_node(pin: str) -> str:
+        return f"cf_in_{pin}".lower()
+
+    @staticmethod
+    def output_node(pin: str) -> str:
+        return f"cf_out_{pin}".lower()
+
+
+def render_cell(cell: CellSpec) -> str:
+    """The cell's SPICE text: a rendered template or the plain netlist file."""
+    source = cell.source
+    try:
+        text = source.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise NetlistError(f"cannot read netlist: {exc}", file=source, cell=cell.name) from exc
+    if cell.template is None:
+        return text
+    env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+    try:
+        return env.from_string(text).render(name=cell.name, **dict(cell.params))
+    except jinja2.TemplateSyntaxError as exc:
+        raise NetlistError(
+            f"template syntax error: {exc.message}", file=source, line=exc.lineno, cell=cell.name
+        ) from exc
+    except jinja2.UndefinedError as exc:
+        raise NetlistError(
+            f"template needs a value the cell's params do not give: {exc.message}",
+            file=source,
+            key="params",
+            cell=cell.name,
+        ) from exc
+
+
+def find_subckt(text: str, name: str, *, source: Path | None = None) -> Subckt:
+    """The ``.subckt`` card named ``name`` (case-insensitive, as SPICE is), continuation lines joined."""
+    lines = text.splitlines()
+    i = 0
+    found = []
+    while i < len(lines):
+        if lines[i].strip().lower().startswith(".subckt"):
+            start = i
+            card = lines[i].split("$")[0]
+            while i + 1 < len(lines) and lines[i + 1].lstrip().startswith("+"):
+                i += 1
+                card += " " + lines[i].lstrip()[1:].split("$")[0]
+            tokens = card.split()
+            if len(tokens) >= 2:
+                found.append(tokens[1])
+                if tokens[1].lower() == name.lower():
+                    ports = []
+                    for tok in tokens[2:]:
+                        if tok.lower().startswith("params:") or "=" in tok:
+                            break
+                        ports.append(tok)
+                    return Subckt(tokens[1], tuple(ports), start + 1)
+        i += 1
+    have = f"; it defines {', '.join(found)}" if found else "; it defines no .subckt"
+    raise NetlistError(f"no .subckt named {name}{have}", file=source, cell=name)
+
+
+def check_ports(cell: CellSpec, sub: Subckt) -> None:
+    """Every declared pin is a port and every port is a declared pin, whatever the order."""
+    ports = {p.upper(): p for p in sub.ports}
+    declared = [*cell.inputs, *(o.pin for o in cell.outputs), cell.power, cell.ground]
+    for pin in declared:
+        if pin.upper() not in ports:
+            raise NetlistError(
+                f"pin {pin} is declared in the config but is not a port of .subckt {sub.name} "
+                f"(ports: {' '.join(sub.ports)})",
+                file=cell.source,
+                line=sub.line,
+                cell=cell.name,
+                pin=pin,
+            )
+    declared_upper = {p.upper() for p in declared}
+    for port in sub.ports:
+        if port.upper() not in declared_upper:
+            raise NetlistError(
+                f"port {port} of .subckt {sub.name} is neither an input, an output, power nor ground "
+                "in the config",
+                file=cell.source,
+                line=sub.line,
+                cell=cell.name,
+                pin=port,
+            )
+
+
+def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
+    """Render the testbench for one cell."""
+    cell_text = render_cell(cell)
+    sub = find_subckt(cell_text, cell.name, source=cell.source)
+    check_ports(cell, sub)
+    nodes = {cell.power.upper(): "cf_vdd", cell.ground.upper(): "0"}
+    nodes.update({p.upper(): Deck.input_node(p) for p in cell.inputs})
+    nodes.update({o.pin.upper(): Deck.output_node(o.pin) for o in cell.outputs})
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(TEMPLATE_DIR),
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+    )
+    process = config.process
+    text = env.get_template(TESTBENCH).render(
+        cell=cell.name,
+        models=process.models,
+        cell_text=cell_text.rstrip("\n"),
+        subckt=sub.name,
+        port_nodes=[nodes[p.upper()] for p in sub.ports],
+        inputs=[(Deck.input_source(p), Deck.input_node(p)) for p in cell.inputs],
+        loads=[(Deck.load_cap(o.pin), Deck.output_node(o.pin)) for o in cell.outputs],
+        parked_load=PARKED_LOAD,
+        vdd=process.vdd,
+        temperature=process.temperature,
+        options=process.options,
+        scale=process.scale,
+    )
+    key = hashlib.sha256(text.encode()).hexdigest()
+    return Deck(cell=cell.name, text=text, key=key, supply="vsupply")
+

@@ -1,0 +1,236 @@
+"""ngspice backends: in-process (libngspice through PySpice) and one batch process per run.
+
+Both take the same request: a deck, the ``alter`` commands that set one point's values, an
+analysis line and the vectors wanted back, and both return those vectors as numpy arrays.
+The in-process backend keeps one simulator per worker process with the last deck loaded,
+so the models and the cell are parsed once per worker and cell, not once per point.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import re
+import shutil
+import subprocess
+import tempfile
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import SimulatorError
+from .netlist import Deck
+
+# Fallback ladder for runs that do not converge: each rung adds options to the previous one.
+RETRY_LADDER: tuple[tuple[str, ...], ...] = (
+    (),
+    ("method=gear",),
+    ("method=gear", "gmin=1e-10", "itl4=100"),
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Request:
+    deck: Deck
+    alters: tuple[str, ...]
+    analysis: str  # "op" or "tran STEP STOP 0 MAXSTEP"
+    vectors: tuple[str, ...]  # node names and "<source>#branch"
+    options: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, slots=True)
+class Result:
+    vectors: dict[str, np.ndarray] = field(hash=False)
+    seconds: float  # wall time of the analysis
+
+
+class SharedBackend:
+    """libngspice in this process; one instance per worker (PySpice allows one per process)."""
+
+    name = "shared"
+
+    def __init__(self) -> None:
+        # PySpice logs every simulator message at error level; charflow reports them itself.
+        logging.getLogger("PySpice").setLevel(logging.CRITICAL)
+        try:
+            from PySpice.Spice.NgSpice.Shared import NgSpiceShared
+        except ImportError as exc:  # pragma: no cover - PySpice is a dependency
+            raise SimulatorError("PySpice is not installed") from exc
+        try:
+            self._ng = NgSpiceShared.new_instance()
+        except OSError as exc:
+            raise SimulatorError(
+                f"cannot load the ngspice shared library ({exc}); install libngspice0 "
+                "(Debian: apt-get install libngspice0-dev) or use backend 'subprocess'"
+            ) from exc
+        self._loaded: str | None = None
+
+    def _command(self, command: str, cell: str) -> None:
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+
+        try:
+            self._ng.exec_command(command)
+        except NgSpiceCommandError as exc:
+            raise SimulatorError(
+                f"ngspice command '{command}' failed: {_messages(self._ng.stderr)}", cell=cell
+            ) from exc
+
+    def _load(self, deck: Deck) -> None:
+        if self._loaded == deck.key:
+            return
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCircuitError
+
+        if self._loaded is not None:
+            self._ng.exec_command("remcirc")
+            self._loaded = None
+        try:
+            self._ng.load_circuit(deck.text)
+        except NgSpiceCircuitError as exc:
+            raise SimulatorError(
+                f"ngspice cannot read the testbench: {_messages(self._ng.stdout + self._ng.stderr)}",
+                cell=deck.cell,
+            ) from exc
+        self._loaded = deck.key
+
+    def run(self, request: Request) -> Result:
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+
+        cell = request.deck.cell
+        self._load(request.deck)
+        for command in request.alters:
+            self._command(command, cell)
+        for option in request.options:
+            self._command(f"option {option}", cell)
+        before = self._ng.last_plot
+        start = time.perf_counter()
+        try:
+            self._ng.exec_command(request.analysis)
+            failed = None
+        except NgSpiceCommandError:
+            # ngspice flags notes (e.g. gmin stepping) as errors too: judge by the plot made.
+            failed = _messages(self._ng.stderr)
+        seconds = time.perf_counter() - start
+        plot = self._ng.last_plot
+        try:
+            if plot == before or plot == "const":
+                raise SimulatorError(
+                    f"'{request.analysis}' did not run: {failed or 'no output'}", cell=cell
+                )
+            vectors = self._vectors(plot, request.vectors, cell)
+        finally:
+            if request.options:
+                self._reset_options(request.options, cell)
+            self._ng.exec_command("destroy all")
+        if failed and request.analysis.startswith("tran"):
+            stop = float(request.analysis.split()[2])
+            if vectors["time"][-1] < stop * (1 - 1e-9):
+                raise SimulatorError(
+                    f"transient stopped at {vectors['time'][-1]:.4g} s of {stop:.4g} s: {failed}",
+                    cell=cell,
+                )
+        return Result(vectors, seconds)
+
+    def _vectors(self, plot: str, names: tuple[str, ...], cell: str) -> dict[str, np.ndarray]:
+        data = self._ng.plot(None, plot)
+        out = {}
+        lowered = {k.lower(): k for k in data}
+        for name in ("time", *names) if plot.startswith("tran") else names:
+            key = lowered.get(name.lower())
+            if key is None:
+                raise SimulatorError(f"ngspice returned no vector {name} in plot {plot}", cell=cell)
+            out[name] = np.real(np.asarray(data[key]._data, dtype=np.complex128)).astype(np.float64)
+        return out
+
+    def _reset_options(self, options: tuple[str, ...], cell: str) -> None:
+        defaults = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3"}
+        for option in options:
+            key = option.split("=")[0].strip().lower()
+            if key in defaults:
+                self._command(f"option {key}={defaults[key]}", cell)
+
+
+class SubprocessBackend:
+    """One ``ngspice -b`` process per run: slower, but a crash or hang costs only that run."""
+
+    name = "subprocess"
+
+    def __init__(self, timeout: float = 60.0, executable: str | None = None) -> None:
+        self._exe = executable or shutil.which("ngspice")
+        if self._exe is None:
+            raise SimulatorError(
+                "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
+            )
+        self._timeout = timeout
+
+    def run(self, request: Request) -> Result:
+        cell = request.deck.cell
+        with tempfile.TemporaryDirectory(prefix="charflow-") as tmp:
+            out = Path(tmp) / "vectors.txt"
+            names = ("time", *request.vectors) if request.analysis.startswith("tran") else request.vectors
+            control = [
+                ".control",
+                "set wr_singlescale",
+                "set wr_vecnames",
+                *request.alters,
+                *(f"option {o}" for o in request.options),
+                request.analysis,
+                f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
+                ".endc",
+            ]
+            text = re.sub(r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M)
+            deck_path = Path(tmp) / "deck.sp"
+            deck_path.write_text(text, encoding="utf-8")
+            start = time.perf_counter()
+            try:
+                proc = subprocess.run(
+                    [self._exe, "-b", str(deck_path)],
+                    capture_output=True,
+                    text=True,
+                    timeout=self._timeout,
+                    cwd=tmp,
+                    env={**os.environ, "LC_ALL": "C"},
+                )
+            except subprocess.TimeoutExpired as exc:
+                raise SimulatorError(
+                    f"ngspice did not finish within {self._timeout:g} s and was killed", cell=cell
+                ) from exc
+            seconds = time.perf_counter() - start
+            if not out.is_file():
+                raise SimulatorError(
+                    f"ngspice wrote no results (exit {proc.returncode}): "
+                    f"{_messages((proc.stdout + proc.stderr).splitlines())}",
+                    cell=cell,
+                )
+            table = np.loadtxt(out, skiprows=1, ndmin=2)
+        # With wr_singlescale a tran file starts with one time column; an op file has none.
+        offset = 0 if request.analysis.startswith("tran") else table.shape[1] - len(names)
+        vectors = {n: table[:, offset + i].copy() for i, n in enumerate(names)}
+        if not request.analysis.startswith("tran"):
+            vectors = {n: v[-1:] for n, v in vectors.items()}
+        return Result(vectors, seconds)
+
+
+def _wrdata_name(name: str) -> str:
+    if name == "time":
+        return "time"
+    if name.endswith("#branch"):
+        return f"i({name[: -len('#branch')]})"
+    return f"v({name})"
+
+
+def _messages(lines: list[str] | str) -> str:
+    if isinstance(lines, str):
+        lines = lines.splitlines()
+    keep = [ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")]
+    interesting = [ln for ln in keep if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)]
+    return "; ".join((interesting or keep)[-6:]) or "no message"
+
+
+def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:
+    if name == "shared":
+        return SharedBackend()
+    if name == "subprocess":
+        return SubprocessBackend(timeout=timeout)
+    raise SimulatorError(f"unknown backend {name!r}; use 'shared' or 'subprocess'")

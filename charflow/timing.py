@@ -1,0 +1,196 @@
+"""Simulating and measuring one sweep point, and checking a cell's function by simulation.
+
+The transient of a point is sized from its ramp: it runs to the end of the ramp plus a
+window, doubling the window while the output has not settled, and refines the maximum
+step when too few samples fall on the output edge. Every run of a point is deterministic
+in the point alone, so re-running one arc reproduces its stored values.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import stimulus
+from .config import CellSpec, LibraryConfig
+from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
+from .measure import check_settled, integral, single_crossing, step_at, transition
+from .netlist import Deck
+from .simulate import RETRY_LADDER, Request, Result, make_backend
+from .sweep import TimingPoint
+
+# Samples across the input ramp and across the window, before the edge refinement.
+RAMP_SAMPLES = 20
+WINDOW_SAMPLES = 200
+REFINEMENTS = 3
+LOGIC_MARGIN = 0.1  # a DC output within 10 % of a rail is a clean logic level
+
+
+@dataclass(frozen=True, slots=True)
+class Measurement:
+    point: TimingPoint
+    delay: float  # s; may be negative, never clipped
+    transition: float  # s, already divided by the slew derate
+    input_charge: float  # C drawn from the input source over the run
+    runs: int  # simulations this point took (extensions, refinements, retries)
+    sim_seconds: float  # wall time inside the simulator
+    stop: float  # s, the transient's final stop time
+
+
+@dataclass(frozen=True, slots=True)
+class Failure:
+    point: TimingPoint
+    reason: str
+
+
+_BACKENDS: dict[str, object] = {}
+
+
+def backend_for(config: LibraryConfig):
+    """This worker's simulator; created once per process and kept."""
+    sim = config.simulation
+    key = f"{sim.backend}:{sim.timeout}"
+    if key not in _BACKENDS:
+        _BACKENDS[key] = make_backend(sim.backend, sim.timeout)
+    return _BACKENDS[key]
+
+
+def _alters(deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float) -> tuple[str, ...]:
+    commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
+    commands += [f"alter {deck.load_cap(o.pin)} = {load:.12g}" for o in cell.outputs]
+    return tuple(commands)
+
+
+def _simulate(backend, request: Request) -> tuple[Result, int]:
+    """Run with the fallback ladder; return the result and the number of attempts."""
+    errors = []
+    for attempt, options in enumerate(RETRY_LADDER, 1):
+        try:
+            return backend.run(Request(request.deck, request.alters, request.analysis, request.vectors, options)), attempt
+        except SimulatorError as exc:
+            errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
+    raise SimulatorError("failed with every fallback: " + " | ".join(errors), cell=request.deck.cell)
+
+
+def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
+    cell = config.cell(point.cell)
+    vdd = config.process.vdd
+    thr = config.thresholds
+    sim = config.simulation
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
+    values[point.related] = ramp.pulse()
+    alters = _alters(deck, cell, vdd, values, point.load)
+    out_node = deck.output_node(point.output)
+    in_node = deck.input_node(point.related)
+    in_branch = f"{deck.input_source(point.related)}#branch"
+    vectors = (out_node, in_node, in_branch)
+    target = vdd if point.output_edge == "rise" else 0.0
+    start_level = vdd - target
+
+    window = sim.window or 2.0 * max(ramp.duration, max(cell.grid.slew))
+    max_step = min(ramp.duration / RAMP_SAMPLES, window / WINDOW_SAMPLES)
+    runs = 0
+    seconds = 0.0
+    extensions = refinements = 0
+    backend = backend_for(config)
+    while True:
+        stop = ramp.end + window
+        request = Request(deck, alters, f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}", vectors)
+        result, attempts = _simulate(backend, request)
+        runs += attempts
+        seconds += result.seconds
+        t = result.vectors["time"]
+        v = result.vectors[out_node]
+        what = f"output {point.output}"
+        if abs(v[0] - start_level) > LOGIC_MARGIN * vdd:
+            raise MeasurementError(
+                f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs do "
+                f"not hold it where the function says"
+            )
+        try:
+            check_settled(v, target, sim.settle * vdd, what)
+        except MeasurementError:
+            if extensions >= sim.extensions:
+                raise
+            extensions += 1
+            window *= 2.0
+            continue
+        t_out = single_crossing(t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what)
+        band = thr.slew_band(point.output_edge)
+        raw_transition = transition(t, v, vdd, band, point.output_edge, what)
+        # Too few samples on the edge make the interpolated crossings coarse: refine the step.
+        if step_at(t, t_out) > raw_transition / sim.samples_per_edge and refinements < REFINEMENTS:
+            refinements += 1
+            max_step = raw_transition / sim.samples_per_edge
+            continue
+        break
+    vin = result.vectors[in_node]
+    t_in = single_crossing(t, vin, thr.delay_input(point.input_edge) * vdd, point.input_edge, f"input {point.related}")
+    # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
+    charge = -integral(t, result.vectors[in_branch], ramp.start)
+    return Measurement(
+        point=point,
+        delay=t_out - t_in,
+        transition=raw_transition / thr.slew_derate,
+        input_charge=charge,
+        runs=runs,
+        sim_seconds=seconds,
+        stop=stop,
+    )
+
+
+def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list[Measurement | Failure]:
+    """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
+    out: list[Measurement | Failure] = []
+    for point in points:
+        try:
+            out.append(measure_point(config, deck, point))
+        except (MeasurementError, SimulatorError) as exc:
+            out.append(Failure(point, exc.reason))
+    return out
+
+
+def check_function(config: LibraryConfig, deck: Deck) -> None:
+    """Every input vector gives the declared output levels at DC; raise naming the vector."""
+    cell = config.cell(deck.cell)
+    vdd = config.process.vdd
+    outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
+    backend = backend_for(config)
+    for bits in itertools.product((False, True), repeat=len(cell.inputs)):
+        assign = dict(zip(cell.inputs, bits, strict=True))
+        values = {p: stimulus.constant(vdd if b else 0.0) for p, b in assign.items()}
+        request = Request(deck, _alters(deck, cell, vdd, values, 0.0), "op", outputs)
+        result, _ = _simulate(backend, request)
+        vector = " ".join(f"{p}={int(b)}" for p, b in assign.items())
+        for spec, node in zip(cell.outputs, outputs, strict=True):
+            level = float(result.vectors[node][-1])
+            expected = spec.function.evaluate(assign)
+            want = vdd if expected else 0.0
+            if abs(level - want) > LOGIC_MARGIN * vdd:
+                raise FunctionalMismatchError(
+                    f"output {spec.pin} is {level:.4g} V, but {spec.function.to_liberty()} = "
+                    f"{int(expected)} expects {want:.4g} V",
+                    cell=cell.name,
+                    pin=spec.pin,
+                    vector=vector,
+                )
+
+
+def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
+
+    At each pin and edge the points at the smallest load are averaged over slews and states:
+    the effective (Miller-inclusive) capacitance a driver sees (common practice).
+    """
+    groups: dict[tuple[str, str], list[Measurement]] = {}
+    for m in measurements:
+        groups.setdefault((m.point.related, m.point.input_edge), []).append(m)
+    caps = {}
+    for key, group in groups.items():
+        smallest = min(m.point.load for m in group)
+        charges = [abs(m.input_charge) for m in group if m.point.load == smallest]
+        caps[key] = float(np.mean(charges)) / vdd
+    return caps
