@@ -99,10 +99,9 @@ class Simulation:
 
     backend: str = "shared"  # "shared" (in-process libngspice) or "subprocess"
     timeout: float = 60.0  # s of wall time per simulation
-    window: float | None = None  # s after the input ramp before the first settle check
+    window: float | None = None  # s the transient may run past the input ramp (a cap)
     samples_per_edge: int = 20  # minimum samples across the output transition
-    settle: float = 0.01  # fraction of vdd the output must be within at the end
-    extensions: int = 4  # times the window may double before a point is declared unsettled
+    settle: float = 0.01  # fraction of vdd the output must come within of its final rail
 
 
 @dataclass(frozen=True, slots=True)
@@ -408,14 +407,12 @@ def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
         r.problem("simulation.samples_per_edge", f"must be at least 4, got {samples}")
         samples = None
     settle = r.number(doc, "settle", "simulation", d.settle, low=0.0, high=0.5)
-    extensions = r.get(doc, "extensions", int, "simulation", d.extensions)
     return Simulation(
         backend=backend,
         timeout=timeout or d.timeout,
         window=None if window is None else window * tscale,
         samples_per_edge=samples or d.samples_per_edge,
         settle=settle or d.settle,
-        extensions=d.extensions if extensions is None else extensions,
     )
 
 

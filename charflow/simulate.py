@@ -38,6 +38,7 @@ class Request:
     analysis: str  # "op" or "tran STEP STOP 0 MAXSTEP"
     vectors: tuple[str, ...]  # node names and "<source>#branch"
     options: tuple[str, ...] = ()
+    stop_when: str | None = None  # ngspice condition that ends a transient early, e.g. "v(y) > 1.19"
 
 
 @dataclass(frozen=True, slots=True)
@@ -103,6 +104,8 @@ class SharedBackend:
             self._command(command, cell)
         for option in request.options:
             self._command(f"option {option}", cell)
+        if request.stop_when:
+            self._command(f"stop when {request.stop_when}", cell)
         before = self._ng.last_plot
         start = time.perf_counter()
         try:
@@ -122,8 +125,11 @@ class SharedBackend:
         finally:
             if request.options:
                 self._reset_options(request.options, cell)
+            if request.stop_when:
+                self._ng.exec_command("delete all")
             self._ng.exec_command("destroy all")
-        if failed and request.analysis.startswith("tran"):
+        # A stop condition that was met interrupts the run on purpose.
+        if failed and "condition met" not in failed and request.analysis.startswith("tran"):
             stop = float(request.analysis.split()[2])
             if vectors["time"][-1] < stop * (1 - 1e-9):
                 raise SimulatorError(
@@ -175,6 +181,7 @@ class SubprocessBackend:
                 "set wr_vecnames",
                 *request.alters,
                 *(f"option {o}" for o in request.options),
+                *([f"stop when {request.stop_when}"] if request.stop_when else []),
                 request.analysis,
                 f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
                 ".endc",
