@@ -16,6 +16,7 @@ from .errors import (
     ConfigError,
     FunctionalMismatchError,
     NetlistError,
+    OutputError,
 )
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
@@ -77,6 +78,11 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
     out = args.out or RUNS / cfg.name
+    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
     progress = _Progress(args.quiet)
     try:
         result = flow.characterize(

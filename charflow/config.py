@@ -143,10 +143,10 @@ class _Reader:
 
     def __init__(self, path: Path) -> None:
         self.path = path
-        self.problems: list[str] = []
+        self.problems: list[ConfigError] = []
 
     def problem(self, key: str, message: str, cell: str | None = None) -> None:
-        self.problems.append(str(ConfigError(message, file=self.path, key=key, cell=cell)))
+        self.problems.append(ConfigError(message, file=self.path, key=key, cell=cell))
 
     def section(
         self, table: dict, key: str, allowed: set[str], *, required: bool, cell: str | None = None
@@ -164,7 +164,11 @@ class _Reader:
 
     def unknown(self, table: dict, allowed: set[str], prefix: str, cell: str | None) -> None:
         for k in sorted(set(table) - allowed):
-            self.problem(f"{prefix}.{k}" if prefix else k, f"unknown key; allowed: {', '.join(sorted(allowed))}", cell)
+            self.problem(
+                f"{prefix}.{k}" if prefix else k,
+                f"unknown key; allowed: {', '.join(sorted(allowed))}",
+                cell,
+            )
 
     def get(
         self,
@@ -186,11 +190,7 @@ class _Reader:
         # TOML integers are fine where a float is wanted; booleans are not numbers here.
         if float in kinds and isinstance(value, int) and not isinstance(value, bool):
             value = float(value)
-        if isinstance(value, bool) and bool not in kinds:
-            ok = False
-        else:
-            ok = isinstance(value, kinds)
-        if not ok:
+        if not isinstance(value, kinds) or (isinstance(value, bool) and bool not in kinds):
             names = " or ".join(k.__name__ for k in kinds)
             self.problem(full, f"must be {names}, got {type(value).__name__} {value!r}", cell)
             return None
@@ -221,7 +221,16 @@ class _Reader:
             return None
         return value
 
-    def axis(self, table: dict, key: str, prefix: str, scale: float, cell: str | None) -> tuple[float, ...] | None:
+    def axis(
+        self,
+        table: dict,
+        key: str,
+        prefix: str,
+        scale: float,
+        cell: str | None,
+        *,
+        zero_ok: bool = False,
+    ) -> tuple[float, ...] | None:
         full = f"{prefix}.{key}"
         values = table.get(key)
         if not isinstance(values, list) or not values:
@@ -230,15 +239,18 @@ class _Reader:
         if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
             self.problem(full, f"must hold numbers only, got {values!r}", cell)
             return None
+        # A zero-duration ramp is no input slew; a zero load (an open output) is a real point.
+        least = "not negative" if zero_ok else "greater than 0"
         for i, v in enumerate(values):
-            if not math.isfinite(v) or v < 0:
-                self.problem(full, f"entry {i} must be finite and not negative, got {v!r}", cell)
+            if not math.isfinite(v) or v < 0 or (v == 0 and not zero_ok):
+                self.problem(full, f"entry {i} must be finite and {least}, got {v!r}", cell)
                 return None
         for i in range(1, len(values)):
             if values[i] <= values[i - 1]:
                 self.problem(
                     full,
-                    f"must be strictly increasing: entry {i} ({values[i]!r}) follows {values[i - 1]!r}",
+                    f"must be strictly increasing: entry {i} ({values[i]!r}) "
+                    f"follows {values[i - 1]!r}",
                     cell,
                 )
                 return None
@@ -250,7 +262,18 @@ _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
 _GRID_KEYS = {"slew", "load"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
-_CELL_KEYS = {"name", "template", "netlist", "params", "inputs", "outputs", "power", "ground", "area", "grid"}
+_CELL_KEYS = {
+    "name",
+    "template",
+    "netlist",
+    "params",
+    "inputs",
+    "outputs",
+    "power",
+    "ground",
+    "area",
+    "grid",
+}
 _TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
@@ -294,7 +317,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     thresholds = _thresholds(r, r.section(doc, "thresholds", _THRESHOLD_KEYS, required=False))
     grid_doc = r.section(doc, "grid", _GRID_KEYS, required=True)
     slew = r.axis(grid_doc, "slew", "grid", tscale, None)
-    load_ = r.axis(grid_doc, "load", "grid", cscale, None)
+    load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
     grid = Grid(slew or (), load_ or ())
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
 
@@ -313,9 +336,13 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         seen.add(cell.name)
         cells.append(cell)
 
+    # One problem keeps its own key and cell (and its one-line message); several are listed.
+    if len(r.problems) == 1:
+        raise r.problems[0]
     if r.problems:
         raise ConfigError(
-            f"{len(r.problems)} problem(s) in the config:\n  " + "\n  ".join(r.problems), file=path
+            f"{len(r.problems)} problems in the config:\n  " + "\n  ".join(map(str, r.problems)),
+            file=path,
         )
     return LibraryConfig(
         path=path,
@@ -463,7 +490,9 @@ def _cell(
             continue
         extra = sorted(expr.variables() - set(inputs))
         if extra:
-            r.problem(okey, f"function uses {', '.join(extra)}, not among the inputs {inputs}", name)
+            r.problem(
+                okey, f"function uses {', '.join(extra)}, not among the inputs {inputs}", name
+            )
             continue
         outputs.append(OutputSpec(pin, expr))
     power = r.get(doc, "power", str, key, "VDD", name)
@@ -471,8 +500,14 @@ def _cell(
     area = r.number(doc, "area", key, 0.0, name)
     grid_doc = r.get(doc, "grid", dict, key, {}, name) or {}
     r.unknown(grid_doc, _GRID_KEYS, f"{key}.grid", name)
-    slew = r.axis(grid_doc, "slew", f"{key}.grid", tscale, name) if "slew" in grid_doc else grid.slew
-    load_ = r.axis(grid_doc, "load", f"{key}.grid", cscale, name) if "load" in grid_doc else grid.load
+    slew = (
+        r.axis(grid_doc, "slew", f"{key}.grid", tscale, name) if "slew" in grid_doc else grid.slew
+    )
+    load_ = (
+        r.axis(grid_doc, "load", f"{key}.grid", cscale, name, zero_ok=True)
+        if "load" in grid_doc
+        else grid.load
+    )
     return CellSpec(
         name=name,
         inputs=tuple(inputs),

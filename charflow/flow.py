@@ -70,7 +70,9 @@ def characterize(
     measurements.sort(key=lambda m: order[m.point])
     failures.sort(key=lambda f: order[f.point])
     tables = () if failures else tabulate(config, the_plan, measurements)
-    return RunResult(the_plan, tuple(measurements), tuple(failures), tables, time.perf_counter() - start)
+    return RunResult(
+        the_plan, tuple(measurements), tuple(failures), tables, time.perf_counter() - start
+    )
 
 
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
@@ -139,7 +141,8 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             for name in dict.fromkeys(p.cell for p in result.plan.points)
         },
         "failures": [
-            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason} for f in result.failures
+            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
+            for f in result.failures
         ],
     }
 
@@ -168,4 +171,3 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
         write_atomic(lib_path, liberty.render(config, result.cells))
         written.append(lib_path)
     return written
-

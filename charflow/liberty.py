@@ -11,8 +11,8 @@ from collections.abc import Iterable
 import numpy as np
 
 from .config import LibraryConfig
-from .tabulate import ArcTables, CellTables
 from .tables import Table
+from .tabulate import ArcTables, CellTables
 
 VALUE_FORMAT = "{:.7g}"
 # Liberty's order of the four NLDM tables inside a timing group (common practice).
@@ -79,7 +79,9 @@ def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) 
         w.complex(f"index_{k}", _index(axis.values, scale))
     scaled = np.asarray(table.values) / _value_scale(config, table)
     rows = scaled.reshape(-1, scaled.shape[-1]) if scaled.ndim > 1 else scaled.reshape(1, -1)
-    text = ", \\\n".join("  " * (w.depth + 1) + '"' + ", ".join(_fmt(x) for x in row) + '"' for row in rows)
+    text = ", \\\n".join(
+        "  " * (w.depth + 1) + '"' + ", ".join(_fmt(x) for x in row) + '"' for row in rows
+    )
     w.lines.append("  " * w.depth + "values ( \\")
     w.lines.append(text + " ) ;")
     w.close()
@@ -165,7 +167,9 @@ def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
                 _timing_group(w, config, names, arc, arc.default, arc.arc.sense)
                 if len(arc.states) > 1:
                     for st in arc.states:
-                        _timing_group(w, config, names, arc, st.tables, st.state.sense, st.state.when)
+                        _timing_group(
+                            w, config, names, arc, st.tables, st.state.sense, st.state.when
+                        )
             w.close()
         w.close()
     w.close()

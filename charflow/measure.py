@@ -16,7 +16,7 @@ from .errors import MeasurementError
 def crossings(t: np.ndarray, v: np.ndarray, level: float, direction: int = 0) -> np.ndarray:
     """Times where ``v`` crosses ``level``; direction +1 rising only, -1 falling only, 0 both.
 
-    A sample exactly on the level counts as above it, so touching the level from below and
+    A sample exactly on the level counts as above it, so touching the level from above and
     turning back is not a crossing, and a crossing that lands on a sample is counted once.
     """
     above = v >= level
@@ -71,16 +71,20 @@ def transition(
     return upper - lower if edge == "rise" else lower - upper
 
 
-def check_settled(v: np.ndarray, target: float, tolerance: float, what: str) -> None:
-    """The waveform ended within ``tolerance`` (V) of ``target``."""
-    if abs(v[-1] - target) > tolerance:
+def check_settled(v: np.ndarray, target: float, tolerance: float, edge: str, what: str) -> None:
+    """The waveform ended within ``tolerance`` (V) of ``target``, or beyond it in the edge's
+    direction (an output may overshoot its rail a little as it arrives)."""
+    short = target - v[-1] if edge == "rise" else v[-1] - target
+    if short > tolerance:
         raise MeasurementError(
             f"{what} has not settled: ends at {v[-1]:.4g} V, {target:.4g} V expected "
             f"(tolerance {tolerance:.3g} V)"
         )
 
 
-def integral(t: np.ndarray, y: np.ndarray, start: float | None = None, stop: float | None = None) -> float:
+def integral(
+    t: np.ndarray, y: np.ndarray, start: float | None = None, stop: float | None = None
+) -> float:
     """Trapezoidal integral of ``y`` over [start, stop], the ends interpolated."""
     lo = t[0] if start is None else start
     hi = t[-1] if stop is None else stop

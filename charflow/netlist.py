@@ -83,7 +83,7 @@ def render_cell(cell: CellSpec) -> str:
 
 
 def find_subckt(text: str, name: str, *, source: Path | None = None) -> Subckt:
-    """The ``.subckt`` card named ``name`` (case-insensitive, as SPICE is), continuation lines joined."""
+    """The ``.subckt`` named ``name`` (case-insensitive, as in SPICE), continuation lines joined."""
     lines = text.splitlines()
     i = 0
     found = []
@@ -127,8 +127,8 @@ def check_ports(cell: CellSpec, sub: Subckt) -> None:
     for port in sub.ports:
         if port.upper() not in declared_upper:
             raise NetlistError(
-                f"port {port} of .subckt {sub.name} is neither an input, an output, power nor ground "
-                "in the config",
+                f"port {port} of .subckt {sub.name} is neither an input, an output, power "
+                "nor ground in the config",
                 file=cell.source,
                 line=sub.line,
                 cell=cell.name,
@@ -166,4 +166,3 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     )
     key = hashlib.sha256(text.encode()).hexdigest()
     return Deck(cell=cell.name, text=text, key=key, supply="vsupply")
-

@@ -31,6 +31,13 @@ RETRY_LADDER: tuple[tuple[str, ...], ...] = (
 )
 
 
+# ngspice evaluates BSIM devices with OpenMP threads (two unless told otherwise). For a cell's
+# few devices that costs more than it saves, and with one worker per core the spinning
+# threads of two workers starve each other (measured: 15x slower); parallelism is across points.
+SINGLE_THREAD = "set num_threads=1"
+RELEASE_EVERY = 200  # runs between clearing ngspice's command history (it grows per command)
+
+
 @dataclass(frozen=True, slots=True)
 class Request:
     deck: Deck
@@ -38,7 +45,9 @@ class Request:
     analysis: str  # "op" or "tran STEP STOP 0 MAXSTEP"
     vectors: tuple[str, ...]  # node names and "<source>#branch"
     options: tuple[str, ...] = ()
-    stop_when: str | None = None  # ngspice condition that ends a transient early, e.g. "v(y) > 1.19"
+    stop_when: str | None = (
+        None  # ngspice condition that ends a transient early, e.g. "v(y) > 1.19"
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -66,6 +75,11 @@ class SharedBackend:
                 f"cannot load the ngspice shared library ({exc}); install libngspice0 "
                 "(Debian: apt-get install libngspice0-dev) or use backend 'subprocess'"
             ) from exc
+        # PySpice clears ngspice's command history every so many commands, which also drops a
+        # pending `stop when`; charflow clears it itself between runs instead.
+        self._ng.NUMBER_OF_EXEC_CALLS_TO_RELEASE_MEMORY = float("inf")
+        self._ng.exec_command(SINGLE_THREAD)
+        self._runs = 0
         self._loaded: str | None = None
 
     def _command(self, command: str, cell: str) -> None:
@@ -89,9 +103,9 @@ class SharedBackend:
         try:
             self._ng.load_circuit(deck.text)
         except NgSpiceCircuitError as exc:
+            messages = _messages(self._ng.stdout + self._ng.stderr)
             raise SimulatorError(
-                f"ngspice cannot read the testbench: {_messages(self._ng.stdout + self._ng.stderr)}",
-                cell=deck.cell,
+                f"ngspice cannot read the testbench: {messages}", cell=deck.cell
             ) from exc
         self._loaded = deck.key
 
@@ -128,6 +142,9 @@ class SharedBackend:
             if request.stop_when:
                 self._ng.exec_command("delete all")
             self._ng.exec_command("destroy all")
+            self._runs += 1
+            if self._runs % RELEASE_EVERY == 0:
+                self._release()
         # A stop condition that was met interrupts the run on purpose.
         if failed and "condition met" not in failed and request.analysis.startswith("tran"):
             stop = float(request.analysis.split()[2])
@@ -137,6 +154,11 @@ class SharedBackend:
                     cell=cell,
                 )
         return Result(vectors, seconds)
+
+    def _release(self) -> None:
+        from PySpice.Spice.NgSpice.Shared import FFI
+
+        self._ng._ngspice_shared.ngSpice_Command(FFI.NULL)
 
     def _vectors(self, plot: str, names: tuple[str, ...], cell: str) -> dict[str, np.ndarray]:
         data = self._ng.plot(None, plot)
@@ -174,11 +196,16 @@ class SubprocessBackend:
         cell = request.deck.cell
         with tempfile.TemporaryDirectory(prefix="charflow-") as tmp:
             out = Path(tmp) / "vectors.txt"
-            names = ("time", *request.vectors) if request.analysis.startswith("tran") else request.vectors
+            names = (
+                ("time", *request.vectors)
+                if request.analysis.startswith("tran")
+                else request.vectors
+            )
             control = [
                 ".control",
                 "set wr_singlescale",
                 "set wr_vecnames",
+                SINGLE_THREAD,
                 *request.alters,
                 *(f"option {o}" for o in request.options),
                 *([f"stop when {request.stop_when}"] if request.stop_when else []),
@@ -186,7 +213,9 @@ class SubprocessBackend:
                 f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
                 ".endc",
             ]
-            text = re.sub(r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M)
+            text = re.sub(
+                r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M
+            )
             deck_path = Path(tmp) / "deck.sp"
             deck_path.write_text(text, encoding="utf-8")
             start = time.perf_counter()
@@ -211,8 +240,9 @@ class SubprocessBackend:
                     cell=cell,
                 )
             table = np.loadtxt(out, skiprows=1, ndmin=2)
-        # With wr_singlescale a tran file starts with one time column; an op file has none.
-        offset = 0 if request.analysis.startswith("tran") else table.shape[1] - len(names)
+        # wrdata writes the plot's scale column first (for tran too, where "time" is also
+        # asked for): the vectors asked for are the last columns.
+        offset = table.shape[1] - len(names)
         vectors = {n: table[:, offset + i].copy() for i, n in enumerate(names)}
         if not request.analysis.startswith("tran"):
             vectors = {n: v[-1:] for n, v in vectors.items()}
@@ -231,7 +261,11 @@ def _messages(lines: list[str] | str) -> str:
     if isinstance(lines, str):
         lines = lines.splitlines()
     keep = [ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")]
-    interesting = [ln for ln in keep if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)]
+    interesting = [
+        ln
+        for ln in keep
+        if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)
+    ]
     return "; ".join((interesting or keep)[-6:]) or "no message"
 
 

@@ -39,7 +39,8 @@ class Ramp:
         """The PULSE vector for ``alter``; the pulse holds its second level for ever."""
         v1, v2 = self.levels
         hold = 1.0  # s: far beyond any transient charflow runs
-        return f"[ {v1:.12g} {v2:.12g} {self.start:.12g} {self.duration:.12g} {self.duration:.12g} {hold:g} {2 * hold:g} ]"
+        fields = (v1, v2, self.start, self.duration, self.duration, hold, 2 * hold)
+        return "[ " + " ".join(f"{x:.12g}" for x in fields) + " ]"
 
 
 def ramp(slew: float, edge: str, thresholds: Thresholds, vdd: float) -> Ramp:

@@ -88,7 +88,9 @@ def arcs_of(cell: CellSpec) -> tuple[Arc, ...]:
                 continue
             states = tuple(
                 State(s.side, s.sense)
-                for s in logic.sensitizations(out.function, cell.inputs, pin, cell=cell.name, pin=out.pin)
+                for s in logic.sensitizations(
+                    out.function, cell.inputs, pin, cell=cell.name, pin=out.pin
+                )
             )
             arcs.append(Arc(cell.name, pin, out.pin, sense, states))
     return tuple(arcs)
@@ -155,7 +157,9 @@ def run(
     from .timing import measure_chunk
 
     points = list(points)
-    decks: dict[str, Deck] = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}}
+    decks: dict[str, Deck] = {
+        c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}
+    }
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if jobs == 1 or len(tasks) == 1:

@@ -78,7 +78,9 @@ def _grid_table(cell: CellSpec, quantity: str, values: dict[tuple[float, float],
     return Table((Axis(SLEW_AXIS, slews), Axis(LOAD_AXIS, loads)), grid, quantity, "s")
 
 
-def tabulate(config: LibraryConfig, plan: Plan, measurements: list[Measurement]) -> tuple[CellTables, ...]:
+def tabulate(
+    config: LibraryConfig, plan: Plan, measurements: list[Measurement]
+) -> tuple[CellTables, ...]:
     """Tables for every cell of the plan; every point of the plan must have a measurement."""
     by_key: dict[TimingPoint, Measurement] = {m.point: m for m in measurements}
     cells = []
@@ -94,7 +96,9 @@ def tabulate(config: LibraryConfig, plan: Plan, measurements: list[Measurement])
                     delays, transitions = {}, {}
                     for s in cell.grid.slew:
                         for c in cell.grid.load:
-                            point = TimingPoint(cell.name, arc.related, arc.output, state.side, edge, out_edge, s, c)
+                            point = TimingPoint(
+                                cell.name, arc.related, arc.output, state.side, edge, out_edge, s, c
+                            )
                             m = by_key.get(point)
                             if m is not None:
                                 delays[(s, c)] = m.delay

@@ -22,7 +22,7 @@ from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
 
 RAMP_SAMPLES = 20  # samples across the input ramp, before any refinement
-WINDOW_CAP = 1000.0  # stop-time cap, in ramp durations (or the grid's largest slew)
+WINDOW_CAP = 100.0  # stop-time cap, in ramp durations (or the grid's largest slew)
 REFINEMENTS = 2
 REFINE_SLACK = 1.5  # the simulator's step may exceed the wanted one a little
 LOGIC_MARGIN = 0.1  # a DC output within 10 % of a rail is a clean logic level
@@ -57,7 +57,9 @@ def backend_for(config: LibraryConfig):
     return _BACKENDS[key]
 
 
-def _alters(deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float) -> tuple[str, ...]:
+def _alters(
+    deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float
+) -> tuple[str, ...]:
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
     commands += [f"alter {deck.load_cap(o.pin)} = {load:.12g}" for o in cell.outputs]
     return tuple(commands)
@@ -71,7 +73,9 @@ def _simulate(backend, request: Request) -> tuple[Result, int]:
             return backend.run(replace(request, options=options)), attempt
         except SimulatorError as exc:
             errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
-    raise SimulatorError("failed with every fallback: " + " | ".join(errors), cell=request.deck.cell)
+    raise SimulatorError(
+        "failed with every fallback: " + " | ".join(errors), cell=request.deck.cell
+    )
 
 
 def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
@@ -93,7 +97,11 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     # The run ends once the output is within the settle tolerance of its final rail; the
     # stop time is only a cap for outputs that never get there.
     tol = sim.settle * vdd
-    stop_when = f"v({out_node}) > {vdd - tol:.6g}" if point.output_edge == "rise" else f"v({out_node}) < {tol:.6g}"
+    stop_when = (
+        f"v({out_node}) > {vdd - tol:.6g}"
+        if point.output_edge == "rise"
+        else f"v({out_node}) < {tol:.6g}"
+    )
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
     max_step = ramp.duration / RAMP_SAMPLES
     runs = 0
@@ -102,7 +110,11 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     what = f"output {point.output}"
     for refinement in range(REFINEMENTS + 1):
         request = Request(
-            deck, alters, f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}", vectors, stop_when=stop_when
+            deck,
+            alters,
+            f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
+            vectors,
+            stop_when=stop_when,
         )
         result, attempts = _simulate(backend, request)
         runs += attempts
@@ -114,8 +126,10 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
                 f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs do "
                 f"not hold it where the function says"
             )
-        check_settled(v, target, tol * (1 + 1e-6), what)
-        t_out = single_crossing(t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what)
+        check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what)
+        t_out = single_crossing(
+            t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
+        )
         band = thr.slew_band(point.output_edge)
         raw_transition = transition(t, v, vdd, band, point.output_edge, what)
         # Too few samples on the edge make the interpolated crossings coarse: refine the step.
@@ -124,7 +138,9 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
             break
         max_step = wanted
     vin = result.vectors[in_node]
-    t_in = single_crossing(t, vin, thr.delay_input(point.input_edge) * vdd, point.input_edge, f"input {point.related}")
+    t_in = single_crossing(
+        t, vin, thr.delay_input(point.input_edge) * vdd, point.input_edge, f"input {point.related}"
+    )
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     return Measurement(

@@ -14,4 +14,3 @@ def time_scale(unit: str) -> float:
 def cap_scale(unit: str) -> float:
     """Farads per library capacitance unit."""
     return CAP_UNITS[unit]
-

@@ -1,0 +1,155 @@
+"""The installed ``charflow`` command, run as a user runs it: its exit codes and its messages.
+
+A bad input must end in a non-zero exit (2 for bad input, 3 for output trouble, as the cli
+module documents) and one ``charflow: ...`` line on stderr that locates the problem, never a
+Python traceback.
+"""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+from liberty.parser import parse_liberty
+
+from charflow import __version__
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL = ROOT / "tests" / "data" / "small_l1.toml"
+MODEL = (ROOT / "models" / "vellum90_l1.lib").as_posix()
+INV = (ROOT / "templates" / "cells" / "inv.sp.j2").as_posix()
+EXIT_BAD_INPUT, EXIT_TROUBLE = 2, 3
+
+
+def _config(function: str = "!A", grid: str = "slew = [0.01, 0.1]\nload = [0.001, 0.01]") -> str:
+    return f"""\
+[library]
+name = "cfg_cli"
+
+[process]
+models = [{{ file = "{MODEL}", section = "tt" }}]
+vdd = 1.2
+
+[grid]
+{grid}
+
+[[cell]]
+name = "INV_X1"
+template = "{INV}"
+params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
+inputs = ["A"]
+outputs = {{ Y = "{function}" }}
+"""
+
+
+def _charflow(*args: str | Path, cwd: Path) -> subprocess.CompletedProcess[str]:
+    exe = shutil.which("charflow")
+    if exe is None:
+        pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not on PATH; these tests need it")
+    return subprocess.run(
+        [exe, *map(str, args)],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        timeout=120,
+        check=False,
+        stdin=subprocess.DEVNULL,
+    )
+
+
+def _bad(done: subprocess.CompletedProcess[str], code: int, *names: str | Path) -> str:
+    """Assert a clean failure with exit ``code``; return its one message line."""
+    assert "Traceback" not in done.stderr, done.stderr
+    assert done.returncode == code, done.stderr
+    lines = done.stderr.splitlines()
+    assert len(lines) == 1, done.stderr
+    (line,) = lines
+    assert line.startswith("charflow: "), line
+    for name in names:
+        assert str(name) in line, (name, line)
+    return line
+
+
+def test_run_writes_the_library(tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    done = _charflow("run", SMALL, "--out", out, "--jobs", "2", "--quiet", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert "Traceback" not in done.stderr
+    lib, js = out / "small_l1.lib", out / "small_l1.json"
+    assert lib.is_file() and js.is_file()
+    assert f"wrote {lib}" in done.stdout and f"wrote {js}" in done.stdout
+    assert "90 points measured, 0 failed" in done.stdout
+    # Read with the independent liberty-parser (Thomas Kramer, liberty-parser 0.0.29).
+    parsed = parse_liberty(lib.read_text(encoding="utf-8"))
+    assert [c.args[0] for c in parsed.get_groups("cell")] == ["INV_X1", "NAND2_X1", "NOR2_X1"]
+
+
+def test_missing_config_file(tmp_path: Path) -> None:
+    path = tmp_path / "cfg_absent.toml"
+    done = _charflow("run", path, "--out", tmp_path / "out", cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, path, "not found")
+
+
+def test_invalid_toml(tmp_path: Path) -> None:
+    path = tmp_path / "cfg_bad.toml"
+    path.write_text(_config().replace("[grid]", "[grid"), encoding="utf-8")
+    done = _charflow("run", path, "--out", tmp_path / "out", cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, path, "not valid TOML", "line 8")
+
+
+def test_unknown_key(tmp_path: Path) -> None:
+    path = tmp_path / "cfg_key.toml"
+    text = _config().replace('inputs = ["A"]', 'inputs = ["A"]\ncolour = 1')
+    path.write_text(text, encoding="utf-8")
+    done = _charflow("run", path, "--out", tmp_path / "out", cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, f"file {path}, key cell[0].colour, cell INV_X1:", "unknown key")
+
+
+def test_bad_grid(tmp_path: Path) -> None:
+    path = tmp_path / "cfg_grid.toml"
+    path.write_text(_config(grid="slew = [0.1, 0.01]\nload = [0.001, 0.01]"), encoding="utf-8")
+    done = _charflow("run", path, "--out", tmp_path / "out", cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, f"file {path}, key grid.slew:", "strictly increasing")
+
+
+def test_functional_mismatch(tmp_path: Path) -> None:
+    # The inverter's netlist against a buffer's function: its DC levels give it away.
+    path = tmp_path / "cfg_func.toml"
+    path.write_text(_config(function="A"), encoding="utf-8")
+    out = tmp_path / "out"
+    done = _charflow("run", path, "--out", out, cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, "cell INV_X1", "pin Y", "vector A=0")
+    assert not any(out.glob("*.lib"))
+
+
+def test_unwritable_out(tmp_path: Path) -> None:
+    # A folder below a plain file cannot be made, even by root, whom permissions do not stop.
+    blocker = tmp_path / "cfg_file"
+    blocker.write_text("not a folder\n", encoding="utf-8")
+    out = blocker / "out"
+    done = _charflow("run", SMALL, "--out", out, "--quiet", cwd=tmp_path)
+    _bad(done, EXIT_TROUBLE, out, "output folder")
+
+
+def test_zero_jobs(tmp_path: Path) -> None:
+    done = _charflow("run", SMALL, "--out", tmp_path / "out", "--jobs", "0", cwd=tmp_path)
+    _bad(done, EXIT_BAD_INPUT, "--jobs", "got 0")
+    assert not (tmp_path / "out").exists()
+
+
+def test_version(tmp_path: Path) -> None:
+    done = _charflow("--version", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == f"charflow {__version__}"
+
+
+def test_demo_help(tmp_path: Path) -> None:
+    done = _charflow("demo", "--help", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.startswith("usage: charflow demo")
+    for option in ("--out", "--jobs", "--quiet"):
+        assert option in done.stdout

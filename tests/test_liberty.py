@@ -1,0 +1,353 @@
+"""The Liberty and JSON outputs of a real characterization, read back independently.
+
+tests/data/small_l1.toml (INV, NAND2, NOR2 on the level-1 models) and a 3-input AOI21 are
+characterized with ngspice once per module; the Liberty file is parsed with the independent
+parser ``liberty-parser`` from PyPI (Thomas Kramer, liberty-parser 0.0.29, 2019-2023), and
+everything it reads back is held against the in-memory tables in library units.
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pytest
+from liberty.boolean_functions import parse_boolean_function
+from liberty.parser import parse_liberty
+from liberty.types import Group
+
+from charflow import config, flow
+from charflow.config import LibraryConfig
+from charflow.tables import Table
+from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
+
+ROOT = Path(__file__).resolve().parents[1]
+DATA = ROOT / "tests" / "data"
+# Values are written with 7 significant digits ("{:.7g}"): a relative rounding of at most 5e-7.
+RTOL = 1e-6
+QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
+
+AOI21_TOML = """\
+[library]
+name = "cfg_aoi21"
+time_unit = "ps"
+cap_unit = "ff"
+
+[process]
+models = [{{ file = "{model}", section = "tt" }}]
+vdd = 1.2
+temperature = 25
+
+[grid]
+slew = [20, 100]
+load = [2, 10]
+
+[[cell]]
+name = "AOI21_X1"
+template = "{template}"
+params = {{ wna = 0.8e-6, wnb = 0.4e-6, wpa = 1.6e-6, wpb = 1.6e-6, l = 0.1e-6 }}
+inputs = ["A1", "A2", "B"]
+outputs = {{ Y = "!((A1&A2)|B)" }}
+area = 1.6
+"""
+
+
+@dataclass(frozen=True, slots=True)
+class Characterized:
+    config: LibraryConfig
+    result: flow.RunResult
+    lib: Group  # the Liberty file as liberty-parser reads it
+    json: dict
+
+
+def _characterize(cfg: LibraryConfig, out: Path) -> Characterized:
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not on PATH; these tests need it")
+    result = flow.characterize(cfg, jobs=1)
+    assert not result.failures, [f"{f.point.label}: {f.reason}" for f in result.failures]
+    written = flow.write(cfg, result, out)
+    lib_path, json_path = out / f"{cfg.name}.lib", out / f"{cfg.name}.json"
+    assert sorted(written) == sorted([lib_path, json_path])
+    lib = parse_liberty(lib_path.read_text(encoding="utf-8"))
+    return Characterized(cfg, result, lib, json.loads(json_path.read_text(encoding="utf-8")))
+
+
+@pytest.fixture(scope="module")
+def small(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
+    cfg = config.load(DATA / "small_l1.toml")
+    return _characterize(cfg, tmp_path_factory.mktemp("small_l1"))
+
+
+@pytest.fixture(scope="module")
+def aoi21(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
+    out = tmp_path_factory.mktemp("aoi21")
+    path = out / "cfg_aoi21.toml"
+    path.write_text(
+        AOI21_TOML.format(
+            model=(ROOT / "models" / "vellum90_l1.lib").as_posix(),
+            template=(ROOT / "templates" / "cells" / "aoi21.sp.j2").as_posix(),
+        ),
+        encoding="utf-8",
+    )
+    return _characterize(config.load(path), out)
+
+
+@pytest.fixture(params=["small", "aoi21"])
+def run(request: pytest.FixtureRequest) -> Characterized:
+    return request.getfixturevalue(request.param)
+
+
+def _text(value: object) -> str:
+    """An attribute as plain text: quoted strings come back from the parser wrapped."""
+    return str(getattr(value, "value", value))
+
+
+def _timing_groups(lib: Group, cell: str, output: str, related: str) -> dict[str, Group]:
+    """The timing groups of one arc, keyed by their ``when`` ("" for the default group)."""
+    pin = lib.get_group("cell", cell).get_group("pin", output)
+    groups: dict[str, Group] = {}
+    for g in pin.get_groups("timing"):
+        if _text(g["related_pin"]) == related:
+            when = _text(g.get("when", ""))
+            assert when not in groups, f"{cell} {related}->{output}: two timing groups when {when}"
+            groups[when] = g
+    return groups
+
+
+def _library_units(cfg: LibraryConfig, table: Table) -> tuple[list[np.ndarray], np.ndarray]:
+    """A table's indices and values as the Liberty file should hold them."""
+    per_axis = {SLEW_AXIS: cfg.time_scale, LOAD_AXIS: cfg.cap_scale}
+    indices = [np.asarray(a.values) / per_axis[a.name] for a in table.axes]
+    assert table.unit == "s"
+    return indices, np.asarray(table.values) / cfg.time_scale
+
+
+def _assert_table(cfg: LibraryConfig, group: Group, table: Table, templates: dict) -> None:
+    got = group.get_group(table.quantity)
+    indices, values = _library_units(cfg, table)
+    np.testing.assert_allclose(got.get_array("values"), values, rtol=RTOL, atol=0)
+    for k, index in enumerate(indices, 1):
+        np.testing.assert_allclose(got.get_array(f"index_{k}")[0], index, rtol=RTOL, atol=0)
+    # The table names a template whose variables are the table's axes.
+    template = templates[got.args[0]]
+    assert [template[f"variable_{k}"] for k in (1, 2)] == [a.name for a in table.axes]
+
+
+def test_every_table_reads_back(run: Characterized) -> None:
+    cfg, lib = run.config, run.lib
+    templates = {g.args[0]: g for g in lib.get_groups("lu_table_template")}
+    checked = 0
+    for cell in run.result.cells:
+        for arc in cell.arcs:
+            groups = _timing_groups(lib, cell.cell.name, arc.arc.output, arc.arc.related)
+            expected = {"": arc.default}
+            if len(arc.states) > 1:
+                expected |= {st.state.when: st.tables for st in arc.states}
+            assert sorted(groups) == sorted(expected)
+            for when, tables in expected.items():
+                assert sorted(t.quantity for t in tables) == sorted(QUANTITIES)
+                for table in tables:
+                    _assert_table(cfg, groups[when], table, templates)
+                    checked += 1
+    assert checked == {"small_l1": 5 * 4, "cfg_aoi21": (3 + 3) * 4}[cfg.name]
+
+
+def test_pin_capacitances_read_back(run: Characterized) -> None:
+    cfg, lib = run.config, run.lib
+    for cell in run.result.cells:
+        group = lib.get_group("cell", cell.cell.name)
+        assert group["area"] == pytest.approx(cell.cell.area, rel=RTOL)
+        assert [p.pin for p in cell.pins] == list(cell.cell.inputs)
+        for cap in cell.pins:
+            pin = group.get_group("pin", cap.pin)
+            assert pin["direction"] == "input"
+            for attr, farads in (
+                ("capacitance", cap.capacitance),
+                ("rise_capacitance", cap.rise),
+                ("fall_capacitance", cap.fall),
+            ):
+                assert farads > 0
+                assert pin[attr] == pytest.approx(farads / cfg.cap_scale, rel=RTOL, abs=0)
+
+
+def test_header(small: Characterized) -> None:
+    lib, cfg = small.lib, small.config
+    assert lib.group_name == "library" and lib.args == ["small_l1"]
+    assert lib["delay_model"] == "table_lookup"
+    assert _text(lib["time_unit"]) == "1ns"
+    assert _text(lib["voltage_unit"]) == "1V"
+    assert lib["capacitive_load_unit"] == [1, "pf"]
+    assert lib["nom_voltage"] == pytest.approx(1.2)
+    assert lib["nom_temperature"] == pytest.approx(25)
+    conditions = lib.get_group("operating_conditions")
+    assert lib["default_operating_conditions"] == conditions.args[0]
+    assert conditions["voltage"] == pytest.approx(1.2)
+    assert conditions["temperature"] == pytest.approx(25)
+    t = cfg.thresholds
+    for edge in ("rise", "fall"):
+        lower, upper = t.slew_band(edge)
+        assert lib[f"input_threshold_pct_{edge}"] == pytest.approx(100 * t.delay_input(edge))
+        assert lib[f"output_threshold_pct_{edge}"] == pytest.approx(100 * t.delay_output(edge))
+        assert lib[f"slew_lower_threshold_pct_{edge}"] == pytest.approx(100 * lower)
+        assert lib[f"slew_upper_threshold_pct_{edge}"] == pytest.approx(100 * upper)
+    assert lib["slew_derate_from_library"] == pytest.approx(t.slew_derate)
+    # Every cell of small_l1 shares one 3 x 3 grid, so one template serves every table.
+    (template,) = lib.get_groups("lu_table_template")
+    assert template["variable_1"] == "input_net_transition"
+    assert template["variable_2"] == "total_output_net_capacitance"
+    np.testing.assert_allclose(template.get_array("index_1")[0], [0.01, 0.05, 0.2], rtol=RTOL)
+    np.testing.assert_allclose(template.get_array("index_2")[0], [0.001, 0.005, 0.02], rtol=RTOL)
+
+
+def test_library_units_of_the_aoi21(aoi21: Characterized) -> None:
+    assert _text(aoi21.lib["time_unit"]) == "1ps"
+    assert aoi21.lib["capacitive_load_unit"] == [1, "ff"]
+    (template,) = aoi21.lib.get_groups("lu_table_template")
+    np.testing.assert_allclose(template.get_array("index_1")[0], [20, 100], rtol=RTOL)
+    np.testing.assert_allclose(template.get_array("index_2")[0], [2, 10], rtol=RTOL)
+
+
+def test_functions_read_back(run: Characterized) -> None:
+    for cell in run.result.cells:
+        for out in cell.cell.outputs:
+            pin = run.lib.get_group("cell", cell.cell.name).get_group("pin", out.pin)
+            assert pin["direction"] == "output"
+            expr = pin.get_boolean_function("function")
+            symbols = {s.name: s for s in expr.free_symbols}
+            assert set(symbols) == set(cell.cell.inputs)
+            for bits in itertools.product((False, True), repeat=len(cell.cell.inputs)):
+                assign = dict(zip(cell.cell.inputs, bits, strict=True))
+                parsed = bool(expr.subs({symbols[p]: v for p, v in assign.items()}))
+                assert parsed == out.function.evaluate(assign), (cell.cell.name, assign)
+
+
+# Each input of an inverting static CMOS gate (INV, NAND, NOR, AOI) pulls the output the other
+# way: every arc is negative unate (Weste & Harris, CMOS VLSI Design, 4th ed., 2010, ch. 1).
+SENSES = {
+    ("INV_X1", "A"): "negative_unate",
+    ("NAND2_X1", "A1"): "negative_unate",
+    ("NAND2_X1", "A2"): "negative_unate",
+    ("NOR2_X1", "A1"): "negative_unate",
+    ("NOR2_X1", "A2"): "negative_unate",
+    ("AOI21_X1", "A1"): "negative_unate",
+    ("AOI21_X1", "A2"): "negative_unate",
+    ("AOI21_X1", "B"): "negative_unate",
+}
+
+
+def test_timing_sense_per_arc(run: Characterized) -> None:
+    seen = set()
+    for cell in run.lib.get_groups("cell"):
+        for pin in cell.get_groups("pin"):
+            for g in pin.get_groups("timing"):
+                key = (cell.args[0], _text(g["related_pin"]))
+                assert g["timing_sense"] == SENSES[key], key
+                assert g["timing_type"] == "combinational"
+                seen.add(key)
+    assert seen == {k for k in SENSES if k[0] in {c.cell.name for c in run.result.cells}}
+
+
+def test_no_when_for_single_state_arcs(small: Characterized) -> None:
+    # A NAND2 or NOR2 arc is sensitized only by the other input at its non-controlling value
+    # (1 for NAND, 0 for NOR): one state, so only the default group (common practice).
+    for cell in small.result.cells:
+        for arc in cell.arcs:
+            assert len(arc.states) == 1
+            groups = _timing_groups(small.lib, cell.cell.name, arc.arc.output, arc.arc.related)
+            assert list(groups) == [""]
+
+
+def test_aoi21_b_arc_has_a_when_per_state(aoi21: Characterized) -> None:
+    lib = aoi21.lib
+    # Y = !((A1&A2)|B) follows B whenever A1&A2 = 0: three side states; A1 follows only with
+    # A2 = 1 and B = 0, one state (and the same for A2).
+    b = _timing_groups(lib, "AOI21_X1", "Y", "B")
+    assert sorted(b) == sorted(["", "!A1&!A2", "!A1&A2", "A1&!A2"])
+    assert list(_timing_groups(lib, "AOI21_X1", "Y", "A1")) == [""]
+    assert list(_timing_groups(lib, "AOI21_X1", "Y", "A2")) == [""]
+    # Each when, parsed by liberty-parser, holds at its own side state and at no other.
+    (cell,) = aoi21.result.cells
+    (arc,) = [a for a in cell.arcs if a.arc.related == "B"]
+    for st in arc.states:
+        group = b[st.state.when]
+        assert group["timing_sense"] == st.state.sense == "negative_unate"
+        expr = parse_boolean_function(_text(group["when"]))
+        symbols = {s.name: s for s in expr.free_symbols}
+        assert set(symbols) == {"A1", "A2"}
+        holds = [
+            side
+            for side in itertools.product((False, True), repeat=2)
+            if bool(expr.subs(dict(zip((symbols["A1"], symbols["A2"]), side, strict=True))))
+        ]
+        assert holds == [tuple(v for _, v in st.state.side)]
+
+
+def test_default_table_is_the_worst_state(aoi21: Characterized) -> None:
+    (cell,) = aoi21.result.cells
+    (arc,) = [a for a in cell.arcs if a.arc.related == "B"]
+    assert len(arc.states) == 3
+    for table in arc.default:
+        states = [t for st in arc.states for t in st.tables if t.quantity == table.quantity]
+        assert len(states) == 3
+        np.testing.assert_array_equal(table.values, np.max([t.values for t in states], axis=0))
+        # Not all equal, or the check would be empty.
+        assert any(not np.array_equal(states[0].values, t.values) for t in states[1:])
+    # In the file as well: rounding to 7 digits is monotone, so the max survives it exactly.
+    groups = _timing_groups(aoi21.lib, "AOI21_X1", "Y", "B")
+    for quantity in QUANTITIES:
+        written = {w: g.get_group(quantity).get_array("values") for w, g in groups.items()}
+        worst = np.max([v for w, v in written.items() if w], axis=0)
+        np.testing.assert_array_equal(written[""], worst)
+
+
+def test_json_has_the_same_tables_and_points(run: Characterized) -> None:
+    doc, cfg, result = run.json, run.config, run.result
+    assert doc["library"] == cfg.name
+    assert doc["units"]["time"] == "s" and doc["units"]["capacitance"] == "F"
+    assert doc["library_units"] == {"time": cfg.time_unit, "capacitance": cfg.cap_unit}
+    assert doc["failures"] == []
+    assert [c["name"] for c in doc["cells"]] == [c.cell.name for c in result.cells]
+    for cell, jcell in zip(result.cells, doc["cells"], strict=True):
+        assert jcell["outputs"] == {o.pin: o.function.to_liberty() for o in cell.cell.outputs}
+        assert jcell["inputs"] == [
+            {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+            for p in cell.pins
+        ]
+        for arc, jarc in zip(cell.arcs, jcell["arcs"], strict=True):
+            assert (jarc["related_pin"], jarc["output"]) == (arc.arc.related, arc.arc.output)
+            assert jarc["timing_sense"] == arc.arc.sense
+            # JSON floats round-trip exactly, so the tables compare equal, not just close.
+            assert [Table.from_dict(t) for t in jarc["tables"]] == list(arc.default)
+            assert [s["when"] for s in jarc["states"]] == [st.state.when for st in arc.states]
+            for st, jst in zip(arc.states, jarc["states"], strict=True):
+                assert [Table.from_dict(t) for t in jst["tables"]] == list(st.tables)
+    assert list(doc["points"]) == [c.cell.name for c in result.cells]
+    for name, records in doc["points"].items():
+        measured = [m for m in result.measurements if m.point.cell == name]
+        assert len(records) == len(measured) == len(result.plan.for_cell(name))
+        for m, rec in zip(measured, records, strict=True):
+            p = m.point
+            assert (rec["related_pin"], rec["output"]) == (p.related, p.output)
+            assert (rec["input_edge"], rec["output_edge"]) == (p.input_edge, p.output_edge)
+            assert (rec["slew_s"], rec["load_F"]) == (p.slew, p.load)
+            assert (rec["delay_s"], rec["transition_s"]) == (m.delay, m.transition)
+            assert rec["input_charge_C"] == m.input_charge
+            assert rec["simulations"] == m.runs >= 1
+
+
+def test_delay_and_transition_grow_with_load(small: Characterized) -> None:
+    # More load takes longer to charge through the same driver (common practice).
+    checked = 0
+    for cell in small.result.cells:
+        for arc in cell.arcs:
+            tables = [*arc.default, *(t for st in arc.states for t in st.tables)]
+            for table in tables:
+                assert table.axis_names[1] == LOAD_AXIS
+                steps = np.diff(table.values, axis=1)
+                assert np.all(steps > 0), (cell.cell.name, arc.arc.related, table.quantity)
+                checked += 1
+    assert checked == 5 * 4 * 2

@@ -1,0 +1,243 @@
+"""Simulated sweep points against closed-form circuit results; needs ngspice (fails without it)."""
+
+from __future__ import annotations
+
+import math
+import shutil
+import tomllib
+from pathlib import Path
+
+import pytest
+from scipy.optimize import brentq
+
+from charflow import config, flow, netlist, sweep, timing
+from charflow.errors import FunctionalMismatchError, MeasurementError
+from charflow.sweep import TimingPoint
+
+ROOT = Path(__file__).resolve().parents[1]
+DATA = ROOT / "tests" / "data"
+RC_CONFIG = DATA / "rc_cell.toml"
+SMALL_L1 = DATA / "small_l1.toml"
+R_OHMS = 1e3  # R1 in tests/data/rc_cell.sp
+
+RC_RTOL = 5e-3  # simulated RC edges against the closed forms
+BACKEND_RTOL = 1e-3  # shared against subprocess ngspice on the same point
+EFFORT_RTOL = 0.15  # pin capacitance ratios against logical effort
+GATE_CAP_RTOL = 0.25  # INV pin capacitance against the level-1 card's gate capacitance
+BRENTQ_XTOL = 1e-18  # s
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _needs_ngspice():
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not on PATH; these tests need it")
+
+
+@pytest.fixture(scope="module")
+def rc():
+    cfg = config.load(RC_CONFIG)
+    cell = cfg.cell("RCCELL")
+    return cfg, netlist.build_deck(cfg, cell), sweep.plan(cfg).points
+
+
+@pytest.fixture(scope="module")
+def small():
+    return config.load(SMALL_L1)
+
+
+def _ramp_response(t: float, duration: float, tau: float, vdd: float) -> float:
+    """A first-order RC driven by a 0 -> vdd ramp of ``duration`` starting at t = 0.
+
+    Convolving the ramp with the step response (Rabaey, Chandrakasan & Nikolic, Digital
+    Integrated Circuits, 2nd ed., 2003): v = V/T (t - tau (1 - e^(-t/tau))) while the ramp
+    lasts, and v = V (1 - (tau/T)(e^(T/tau) - 1) e^(-t/tau)) after it.
+    """
+    if t <= duration:
+        return vdd / duration * (t + tau * math.expm1(-t / tau))
+    return vdd * (1.0 - tau / duration * math.expm1(duration / tau) * math.exp(-t / tau))
+
+
+def _closed_form(cfg: config.LibraryConfig, point: TimingPoint) -> tuple[float, float]:
+    """(delay, transition) of the RC cell at ``point`` from the ramp response."""
+    vdd = cfg.process.vdd
+    thr = cfg.thresholds
+    tau = R_OHMS * point.load
+    # Full-swing ramp for a table slew (design convention, /work/shared/design.md).
+    in_lower, in_upper = thr.slew_band(point.input_edge)
+    duration = point.slew * thr.slew_derate / (in_upper - in_lower)
+    rising = point.output_edge == "rise"
+
+    def when(fraction: float) -> float:
+        # A falling edge is vdd minus the rising one.
+        level = fraction if rising else 1.0 - fraction
+        return brentq(
+            lambda t: _ramp_response(t, duration, tau, vdd) - level * vdd,
+            0.0,
+            duration + 50.0 * tau,
+            xtol=BRENTQ_XTOL,
+        )
+
+    along = thr.delay_input(point.input_edge)
+    t_in = (along if point.input_edge == "rise" else 1.0 - along) * duration
+    lower, upper = thr.slew_band(point.output_edge)
+    slew = when(upper) - when(lower) if rising else when(lower) - when(upper)
+    return when(thr.delay_output(point.output_edge)) - t_in, slew / thr.slew_derate
+
+
+def _rc_points(rc, fast: bool):
+    cfg, _, points = rc
+    chosen = [p for p in points if (p.slew == min(cfg.grid.slew)) == fast]
+    assert {p.output_edge for p in chosen} == {"rise", "fall"}
+    return chosen
+
+
+def test_rc_fast_ramp_is_a_step(rc):
+    # Step into an RC: 50 % delay ln2 RC, 20-80 % transition ln4 RC (Rabaey, Chandrakasan &
+    # Nikolic, Digital Integrated Circuits, 2nd ed., 2003).
+    cfg, deck, _ = rc
+    for point in _rc_points(rc, fast=True):
+        tau = R_OHMS * point.load
+        assert point.slew <= tau / 100.0
+        m = timing.measure_point(cfg, deck, point)
+        assert m.delay == pytest.approx(math.log(2.0) * tau, rel=RC_RTOL), point.label
+        assert m.transition == pytest.approx(math.log(4.0) * tau, rel=RC_RTOL), point.label
+
+
+def test_rc_slow_ramp_follows_the_ramp_response(rc):
+    cfg, deck, _ = rc
+    for point in _rc_points(rc, fast=False):
+        assert point.slew >= 2.0 * R_OHMS * point.load
+        delay, slew = _closed_form(cfg, point)
+        m = timing.measure_point(cfg, deck, point)
+        assert m.delay == pytest.approx(delay, rel=RC_RTOL), point.label
+        assert m.transition == pytest.approx(slew, rel=RC_RTOL), point.label
+
+
+def test_shared_and_subprocess_backends_agree(small):
+    doc = tomllib.loads(SMALL_L1.read_text(encoding="utf-8"))
+    doc["simulation"] = {"backend": "subprocess"}
+    batch = config.parse(doc, SMALL_L1)
+    assert (small.simulation.backend, batch.simulation.backend) == ("shared", "subprocess")
+    cell = small.cell("INV_X1")
+    deck = netlist.build_deck(small, cell)
+    middle = (cell.grid.slew[1], cell.grid.load[1])
+    points = [p for p in sweep.plan(small, ["INV_X1"]).points if (p.slew, p.load) == middle]
+    assert len(points) == 2
+    for point in points:
+        a = timing.measure_point(small, deck, point)
+        b = timing.measure_point(batch, deck, point)
+        assert a.delay == pytest.approx(b.delay, rel=BACKEND_RTOL), point.label
+        assert a.transition == pytest.approx(b.transition, rel=BACKEND_RTOL), point.label
+
+
+def test_check_function_names_cell_and_vector(tmp_path):
+    nand2 = ROOT / "templates" / "cells" / "nand2.sp.j2"
+    models = ROOT / "models" / "vellum90_l1.lib"
+    path = tmp_path / "wrong.toml"
+    path.write_text(
+        f"""[library]
+name = "wrong"
+
+[process]
+models = [{{ file = "{models.as_posix()}", section = "tt" }}]
+vdd = 1.2
+
+[grid]
+slew = [0.05]
+load = [0.005]
+
+[[cell]]
+name = "NAND2_X1"
+template = "{nand2.as_posix()}"
+params = {{ wn = 0.8e-6, wp = 0.8e-6, l = 0.1e-6 }}
+inputs = ["A1", "A2"]
+outputs = {{ Y = "!(A1|A2)" }}
+""",
+        encoding="utf-8",
+    )
+    cfg = config.load(path)
+    deck = netlist.build_deck(cfg, cfg.cell("NAND2_X1"))
+    with pytest.raises(FunctionalMismatchError) as caught:
+        timing.check_function(cfg, deck)
+    # The first vector where NAND and NOR differ, in charflow's counting order.
+    assert caught.value.context["cell"] == "NAND2_X1"
+    assert caught.value.context["vector"] == "A1=0 A2=1"
+    assert "NAND2_X1" in str(caught.value) and "A1=0 A2=1" in str(caught.value)
+
+
+@pytest.mark.parametrize(
+    ("input_edge", "output_edge", "reason"),
+    [("rise", "fall", "has not settled"), ("fall", "rise", "starts at")],
+)
+def test_side_input_that_never_sensitizes(small, input_edge, output_edge, reason):
+    # A2 = 0 holds NAND2's output high whatever A1 does: the output never switches.
+    cell = small.cell("NAND2_X1")
+    point = TimingPoint(
+        cell.name,
+        "A1",
+        "Y",
+        (("A2", False),),
+        input_edge,
+        output_edge,
+        cell.grid.slew[0],
+        cell.grid.load[0],
+    )
+    with pytest.raises(MeasurementError, match=reason):
+        timing.measure_point(small, netlist.build_deck(small, cell), point)
+
+
+@pytest.fixture(scope="module")
+def pin_caps(small):
+    result = flow.characterize(small, jobs=1)
+    assert not result.failures
+    return {(c.cell.name, p.pin): p.capacitance for c in result.cells for p in c.pins}
+
+
+@pytest.mark.parametrize(("cell", "effort"), [("NAND2_X1", 4.0 / 3.0), ("NOR2_X1", 5.0 / 3.0)])
+def test_pin_capacitance_follows_logical_effort(pin_caps, cell, effort):
+    # Gates sized to the inverter's drive have input capacitance NAND2 : INV = 4/3 and
+    # NOR2 : INV = 5/3 with a p/n mobility ratio of 2 (Sutherland, Sproull & Harris, Logical
+    # Effort, 1999); the demo cells are sized that way (templates/cells/SIZES.md).
+    inv = pin_caps[("INV_X1", "A")]
+    for pin in ("A1", "A2"):
+        assert pin_caps[(cell, pin)] / inv == pytest.approx(effort, rel=EFFORT_RTOL), pin
+
+
+def _model_params(path: Path, section: str) -> dict[str, dict[str, float]]:
+    """The numbers of each .model card in one .lib section of a SPICE model file."""
+    cards: dict[str, dict[str, float]] = {}
+    inside = False
+    name = ""
+    for raw in path.read_text(encoding="utf-8").splitlines():
+        line = raw.split("*")[0].strip().lower() if not raw.startswith("*") else ""
+        if line.startswith(".lib"):
+            inside = line.split()[1:] == [section]
+        elif line.startswith(".endl"):
+            inside = False
+        elif inside and line.startswith(".model"):
+            name = line.split()[1]
+            cards[name] = {}
+        elif inside and line.startswith("+"):
+            for pair in line[1:].split():
+                key, value = pair.split("=")
+                cards[name][key] = float(value)
+    return cards
+
+
+def test_inverter_pin_capacitance_is_its_gate_capacitance(small, pin_caps):
+    # Gate capacitance Cg = Cox W Leff + (CGSO + CGDO) W per device, Cox = eps_ox / TOX with
+    # eps_ox = 3.9 eps_0 (Weste & Harris, CMOS VLSI Design, 4th ed., 2010); Leff = L - 2 LD as
+    # ngspice's level-1 model takes it (the ngspice manual, from memory). The measured value is
+    # an effective one: the Miller effect doubles the gate-drain overlap (the output swings
+    # against the input), which makes it larger, while the level-1 Meyer charge over a full swing
+    # stays below Cox W Leff V (depletion and saturation); hence the wide tolerance.
+    cell = small.cell("INV_X1")
+    params = dict(cell.params)
+    cards = _model_params(small.process.models[0].path, small.process.models[0].section)
+    eps_ox = 3.9 * 8.8541878128e-12  # F/m
+    gate = 0.0
+    for model, width in (("nch", params["wn"]), ("pch", params["wp"])):
+        card = cards[model]
+        leff = params["l"] - 2.0 * card["ld"]
+        gate += eps_ox / card["tox"] * width * leff + (card["cgso"] + card["cgdo"]) * width
+    assert pin_caps[("INV_X1", "A")] == pytest.approx(gate, rel=GATE_CAP_RTOL)
