@@ -17,7 +17,7 @@ from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, transition
-from .netlist import Deck
+from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
 
@@ -57,15 +57,27 @@ def backend_for(config: LibraryConfig):
     return _BACKENDS[key]
 
 
-def _alters(
-    deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float
+def alters(
+    deck: Deck, cell: CellSpec, values: dict[str, str], loads: dict[str, float]
 ) -> tuple[str, ...]:
+    """``alter`` commands setting every input's PULSE and every output's load (unlisted
+    outputs stay parked at a negligible load)."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
-    commands += [f"alter {deck.load_cap(o.pin)} = {load:.12g}" for o in cell.outputs]
+    commands += [
+        f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
+    ]
     return tuple(commands)
 
 
-def _simulate(backend, request: Request) -> tuple[Result, int]:
+def point_loads(cell: CellSpec, point: TimingPoint) -> dict[str, float]:
+    loads = {point.output: point.load}
+    if point.other_load is not None:
+        other = next(o.pin for o in cell.outputs if o.pin != point.output)
+        loads[other] = point.other_load
+    return loads
+
+
+def simulate(backend, request: Request) -> tuple[Result, int]:
     """Run with the fallback ladder; return the result and the number of attempts."""
     errors = []
     for attempt, options in enumerate(RETRY_LADDER, 1):
@@ -86,7 +98,7 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    alters = _alters(deck, cell, vdd, values, point.load)
+    commands = alters(deck, cell, values, point_loads(cell, point))
     out_node = deck.output_node(point.output)
     in_node = deck.input_node(point.related)
     in_branch = f"{deck.input_source(point.related)}#branch"
@@ -111,12 +123,12 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     for refinement in range(REFINEMENTS + 1):
         request = Request(
             deck,
-            alters,
+            commands,
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
             vectors,
             stop_when=stop_when,
         )
-        result, attempts = _simulate(backend, request)
+        result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
@@ -154,12 +166,22 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     )
 
 
-def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list[Measurement | Failure]:
+def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
-    out: list[Measurement | Failure] = []
+    from . import sequential
+    from .sweep import ConstraintPoint, PulsePoint
+
+    out: list = []
     for point in points:
         try:
-            out.append(measure_point(config, deck, point))
+            if isinstance(point, ConstraintPoint):
+                out.append(sequential.measure_constraint(config, deck, point))
+            elif isinstance(point, PulsePoint):
+                out.append(sequential.measure_pulse(config, deck, point))
+            elif point.kind != "combinational":
+                out.append(sequential.measure_clocked(config, deck, point))
+            else:
+                out.append(measure_point(config, deck, point))
         except (MeasurementError, SimulatorError) as exc:
             out.append(Failure(point, exc.reason))
     return out
@@ -174,8 +196,8 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
     for bits in itertools.product((False, True), repeat=len(cell.inputs)):
         assign = dict(zip(cell.inputs, bits, strict=True))
         values = {p: stimulus.constant(vdd if b else 0.0) for p, b in assign.items()}
-        request = Request(deck, _alters(deck, cell, vdd, values, 0.0), "op", outputs)
-        result, _ = _simulate(backend, request)
+        request = Request(deck, alters(deck, cell, values, {}), "op", outputs)
+        result, _ = simulate(backend, request)
         vector = " ".join(f"{p}={int(b)}" for p, b in assign.items())
         for spec, node in zip(cell.outputs, outputs, strict=True):
             level = float(result.vectors[node][-1])
