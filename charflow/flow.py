@@ -20,6 +20,7 @@ from . import __version__, liberty, sweep
 from .config import LibraryConfig
 from .errors import OutputError
 from .netlist import build_deck
+from .sequential import SearchResult
 from .tabulate import CellTables, tabulate
 from .timing import Failure, Measurement, check_function
 
@@ -27,7 +28,7 @@ from .timing import Failure, Measurement, check_function
 @dataclass(frozen=True, slots=True)
 class RunResult:
     plan: sweep.Plan
-    measurements: tuple[Measurement, ...]
+    measurements: tuple[Measurement | SearchResult, ...]
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
@@ -62,10 +63,10 @@ def characterize(
     verify(config, cells)
     if on_start is not None:
         on_start(len(the_plan.points))
-    measurements: list[Measurement] = []
+    measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
     for outcome in sweep.run(config, the_plan.points, jobs=jobs, on_result=on_result):
-        (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
+        (failures if isinstance(outcome, Failure) else measurements).append(outcome)
     order = {p: i for i, p in enumerate(the_plan.points)}
     measurements.sort(key=lambda m: order[m.point])
     failures.sort(key=lambda f: order[f.point])
@@ -78,16 +79,26 @@ def characterize(
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     """Tables in SI units with the measurement details behind every point."""
 
-    def point_record(m: Measurement) -> dict:
+    def point_record(m: Measurement | SearchResult) -> dict:
         p = m.point
+        if isinstance(m, SearchResult):
+            return {
+                "search": p.label,
+                "value_s": m.value,
+                "upper_bound": m.bound,
+                "simulations": m.runs,
+                "sim_seconds": round(m.sim_seconds, 6),
+            }
         return {
             "related_pin": p.related,
             "output": p.output,
-            "when": sweep.State(p.side, "").when,
+            "when": sweep.State(p.state_side, "").when,
             "input_edge": p.input_edge,
             "output_edge": p.output_edge,
+            "kind": p.kind,
             "slew_s": p.slew,
             "load_F": p.load,
+            "other_load_F": p.other_load,
             "delay_s": m.delay,
             "transition_s": m.transition,
             "input_charge_C": m.input_charge,
@@ -104,6 +115,8 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                 {
                     "related_pin": arc.arc.related,
                     "output": arc.arc.output,
+                    "kind": arc.arc.kind,
+                    "related_output": arc.arc.other,
                     "timing_sense": arc.arc.sense,
                     "tables": [t.to_dict() for t in arc.default],
                     "states": [
@@ -126,6 +139,19 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                 ],
                 "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
                 "arcs": arcs,
+                "constraints": [
+                    {
+                        "pin": c.pin,
+                        "related_pin": c.related,
+                        "timing_type": c.timing_type,
+                        "tables": [t.to_dict() for t in c.tables],
+                    }
+                    for c in cell.constraints
+                ],
+                "min_pulse_widths": [
+                    {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+                    for p in cell.pulses
+                ],
             }
         )
     return {

@@ -16,7 +16,7 @@ import numpy as np
 
 from . import stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import MeasurementError
+from .errors import FunctionalMismatchError, MeasurementError
 from .measure import single_crossing, step_at
 from .netlist import Deck
 from .simulate import Request
@@ -450,3 +450,42 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
         floor_ok=True,
     )
     return SearchResult(point, value, trials.runs, trials.seconds, bound)
+
+
+def check_flop(config: LibraryConfig, deck: Deck) -> None:
+    """Every data vector is captured from either stored value, and every asynchronous control
+    forces its value: simulated with relaxed timing; raise naming the vector."""
+    cell = config.cell(deck.cell)
+    bench, flop = _Bench(config, cell), cell.flop
+    slew = cell.grid.slew[len(cell.grid.slew) // 2]
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    fixed = inactive_controls(cell)
+    for bits in itertools.product((False, True), repeat=len(cell.data_inputs)):
+        new = {**fixed, **dict(zip(cell.data_inputs, bits, strict=True))}
+        stored = flop.next_state.evaluate(new)
+        for previous in (False, True):
+            old = capture_values(cell, previous)
+            clock, event = bench.clock(slew, edges=2)
+            waves = _capture_waves(bench, old, new, slew, event.start - bench.half / 2)
+            waves[flop.clock] = clock
+            vector = " ".join(f"{p}={int(v)}" for p, v in new.items())
+            for out in cell.outputs:
+                try:
+                    run_event(
+                        config,
+                        deck,
+                        waves,
+                        loads,
+                        event=event,
+                        output=out.pin,
+                        before=stored_output(cell, out.pin, previous),
+                        after=stored_output(cell, out.pin, stored),
+                    )
+                except MeasurementError as exc:
+                    raise FunctionalMismatchError(
+                        f"storing {int(previous)} then clocking in {vector} should give "
+                        f"{out.pin}={int(stored_output(cell, out.pin, stored))}: {exc.reason}",
+                        cell=cell.name,
+                        pin=out.pin,
+                        vector=vector,
+                    ) from exc

@@ -48,17 +48,11 @@ class Arc:
     states: tuple[State, ...]
     kind: str = "combinational"  # combinational | clock | clear | preset
     other: str | None = None  # the other output, when tables carry its load as index_3
+    output_edges: tuple[str, ...] = EDGES  # a clear or preset moves its output one way only
 
     @property
     def label(self) -> str:
         return f"{self.cell} {self.related}->{self.output}"
-
-    @property
-    def output_edges(self) -> tuple[str, ...]:
-        """Output edges an arc of this kind produces (a clear only ever lowers its output)."""
-        if self.kind in ("combinational", "clock"):
-            return EDGES
-        return (self.states[0].output_edge("rise"),)
 
 
 @dataclass(frozen=True, slots=True)
@@ -216,7 +210,10 @@ def _flop_arcs(cell: CellSpec) -> tuple[Arc, ...]:
             active_high = expr.evaluate({pin: True})
             out_value = stored_output(cell, out.pin, stored)
             sense = "positive_unate" if active_high == out_value else "negative_unate"
-            arcs.append(Arc(cell.name, pin, out.pin, sense, (State((), sense),), kind, other))
+            edge = "rise" if out_value else "fall"
+            arcs.append(
+                Arc(cell.name, pin, out.pin, sense, (State((), sense),), kind, other, (edge,))
+            )
     return tuple(arcs)
 
 

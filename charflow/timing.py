@@ -188,8 +188,13 @@ def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
 
 
 def check_function(config: LibraryConfig, deck: Deck) -> None:
-    """Every input vector gives the declared output levels at DC; raise naming the vector."""
+    """Every input vector gives the declared output levels at DC; raise naming the vector.
+    A flip-flop is checked by clocking every data vector in from either stored value."""
     cell = config.cell(deck.cell)
+    if cell.flop is not None:
+        from .sequential import check_flop
+
+        return check_flop(config, deck)
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)
