@@ -105,6 +105,15 @@ class Simulation:
 
 
 @dataclass(frozen=True, slots=True)
+class Fidelity:
+    """How the tables are checked against re-simulation off their grid (``[fidelity]``)."""
+
+    random_points: int = 16  # Latin-hypercube points per table, besides every cell centre
+    seed: int = 1
+    rel_floor: float = 1e-12  # s; relative errors divide by max(|simulated|, rel_floor)
+
+
+@dataclass(frozen=True, slots=True)
 class LibraryConfig:
     path: Path
     name: str
@@ -115,6 +124,7 @@ class LibraryConfig:
     grid: Grid
     cells: tuple[CellSpec, ...]
     simulation: Simulation = field(default_factory=Simulation)
+    fidelity: Fidelity = field(default_factory=Fidelity)
 
     @property
     def time_scale(self) -> float:
@@ -262,6 +272,7 @@ _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
 _GRID_KEYS = {"slew", "load"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
+_FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
 _CELL_KEYS = {
     "name",
     "template",
@@ -274,7 +285,7 @@ _CELL_KEYS = {
     "area",
     "grid",
 }
-_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation"}
+_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation", "fidelity"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -320,6 +331,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
     grid = Grid(slew or (), load_ or ())
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
+    fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
 
     cells_doc = doc.get("cell", [])
     if not isinstance(cells_doc, list) or not cells_doc:
@@ -354,6 +366,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         grid=grid,
         cells=tuple(cells),
         simulation=simulation,
+        fidelity=fidelity,
     )
 
 
@@ -440,6 +453,24 @@ def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
         window=None if window is None else window * tscale,
         samples_per_edge=samples or d.samples_per_edge,
         settle=settle or d.settle,
+    )
+
+
+def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
+    d = Fidelity()
+    count = r.get(doc, "random_points", int, "fidelity", d.random_points)
+    if count is not None and count < 0:
+        r.problem("fidelity.random_points", f"must not be negative, got {count}")
+        count = None
+    seed = r.get(doc, "seed", int, "fidelity", d.seed)
+    if seed is not None and seed < 0:
+        r.problem("fidelity.seed", f"must not be negative, got {seed}")
+        seed = None
+    floor = r.number(doc, "rel_floor", "fidelity", None, low=0.0)
+    return Fidelity(
+        random_points=d.random_points if count is None else count,
+        seed=d.seed if seed is None else seed,
+        rel_floor=d.rel_floor if floor is None else floor * tscale,
     )
 
 
