@@ -23,7 +23,7 @@ import itertools
 import json
 import math
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -374,10 +374,11 @@ def _judge(
     )
 
 
-def recommend(candidates: Iterable[Candidate], target: float) -> Recommendation:
+def recommend(candidates: Sequence[Candidate], target: float) -> Recommendation:
     passing = [c for c in candidates if c.max_rel is not None and c.max_rel <= target]
     needed = []
-    for placement in PLACEMENTS:
+    tried = {c.placement for c in candidates}
+    for placement in (p for p in PLACEMENTS if p in tried):
         mine = [c for c in passing if c.placement == placement]
         needed.append((placement, min(mine, key=lambda c: c.points) if mine else None))
     best = min(passing, key=lambda c: (c.points, c.max_rel)) if passing else None
@@ -427,6 +428,12 @@ def study(
     floor = config.fidelity.rel_floor
     scales = {SLEW_AXIS: config.time_scale, LOAD_AXIS: config.cap_scale}
     span = _range(cell.grid)
+    for name, lo, hi in span:
+        if not lo < hi:
+            raise ConfigError(
+                f"the grid study needs a range on every axis; {name} has the one value {lo:g}",
+                cell=cell_name,
+            )
     reference = tuple(Axis(name, reference_axis(lo, hi, reference_points)) for name, lo, hi in span)
     grids: dict[tuple[str, int], tuple[Axis, ...]] = {}
     for n in sizes:
@@ -439,16 +446,19 @@ def study(
                 )
     wanted = {("reference", 0): reference} | grids
     point_maps = {k: _grid_points(cell_name, the_arc, axes) for k, axes in wanted.items()}
-    total = [0]
+    outcomes: dict = {}
 
-    def simulate(maps: dict) -> dict:
-        unique = list(dict.fromkeys(p for m in maps.values() for p in m.values()))
-        total[0] += len(unique)
+    def simulate(maps: dict) -> None:
+        """Add the outcomes of the points of ``maps`` not yet simulated in this study."""
+        requested = dict.fromkeys(p for m in maps.values() for p in m.values())
+        unique = [p for p in requested if p not in outcomes]
         if on_start is not None:
             on_start(len(unique))
-        return {o.point: o for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)}
+        outcomes.update(
+            (o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)
+        )
 
-    outcomes = simulate(point_maps)
+    simulate(point_maps)
     ref = _surface(reference, point_maps[("reference", 0)], outcomes)
     if ref.failures:
         first = ref.failures[0]
@@ -471,7 +481,7 @@ def study(
         grids[("optimized", n)] = axes
         predicted[n] = error
         optimized_maps[("optimized", n)] = _grid_points(cell_name, the_arc, axes)
-    outcomes |= simulate(optimized_maps)
+    simulate(optimized_maps)
     point_maps |= optimized_maps
     candidates = tuple(
         _judge(
@@ -494,7 +504,7 @@ def study(
         reference=reference,
         candidates=candidates,
         recommendations=tuple(recommend(candidates, t) for t in targets),
-        points=total[0],
+        points=len(outcomes),
         wall_seconds=time.perf_counter() - start,
     )
 
@@ -535,13 +545,23 @@ def _candidate_record(config: LibraryConfig, c: Candidate) -> dict:
     }
 
 
-def _saving(rec: Recommendation) -> dict:
-    points = {p: (c.points if c else None) for p, c in rec.needed}
-    mine = points["optimized"]
-    return {
-        other: (None if mine is None or points[other] is None else points[other] - mine)
-        for other in ("uniform", "geometric")
-    }
+def savings(s: Study, rec: Recommendation) -> dict[str, tuple[int, bool]]:
+    """Table points the optimized grid saves at ``rec``'s target against each fixed spacing the
+    study tried, with whether the number is exact. A spacing that met the target with no size
+    tried saves at least the difference to the next size beyond the largest."""
+    chosen = dict(rec.needed)
+    mine = chosen["optimized"]
+    if mine is None:
+        return {}
+    beyond = (max(c.size for c in s.candidates) + 1) ** 2
+    out = {}
+    for other in ("uniform", "geometric"):
+        if s.curve(other):
+            c = chosen[other]
+            out[other] = (
+                (beyond - mine.points, False) if c is None else (c.points - mine.points, True)
+            )
+    return out
 
 
 def to_json(config: LibraryConfig, s: Study) -> dict:
@@ -563,7 +583,10 @@ def to_json(config: LibraryConfig, s: Study) -> dict:
                 "target_rel_error": r.target,
                 "points_per_axis": {p: (c.size if c else None) for p, c in r.needed},
                 "table_points": {p: (c.points if c else None) for p, c in r.needed},
-                "optimized_saves_points": _saving(r),
+                "optimized_saves_points": {
+                    other: {"points": n, "exact": exact}
+                    for other, (n, exact) in savings(s, r).items()
+                },
                 "best": None if r.best is None else _candidate_record(config, r.best),
                 "paste": None if r.best is None else paste_line(config, r.best.axes),
             }
@@ -613,15 +636,18 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
             f"for the [[cell]] table of {s.cell}:"
         )
         lines.append(f"  {paste_line(config, b.axes)}")
-        saves = _saving(r)
-        if r.needed[PLACEMENTS.index("optimized")][1] is not None:
-            parts = [
-                f"{n} points against {other}"
-                if n is not None
-                else f"more than against {other} (not reached)"
-                for other, n in saves.items()
-            ]
-            lines.append("  optimized placement saves " + ", ".join(parts))
+        largest = sizes[-1]
+        parts = []
+        for other, (n, exact) in savings(s, r).items():
+            c = dict(r.needed)[other]
+            if exact:
+                parts.append(f"{n} points against {other} ({c.size}x{c.size})")
+            else:
+                parts.append(
+                    f"at least {n} points against {other} (not met by {largest}x{largest})"
+                )
+        if parts:
+            lines.append("  the optimized placement saves " + ", ".join(parts))
     return lines
 
 
@@ -645,6 +671,7 @@ def write(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
         f"{'x'.join(str(len(a)) for a in s.reference)} reference",
         curves,
         [r.target for r in s.recommendations],
+        [(r.best.size, r.best.max_rel) for r in s.recommendations if r.best is not None],
     )
     png_path = out_dir / f"{stem}.png"
     write_atomic(png_path, png)

@@ -17,7 +17,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
-from matplotlib.ticker import NullLocator
+from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
 
 from . import __version__
 from .config import LibraryConfig
@@ -27,6 +27,8 @@ CMAP = "YlOrRd"
 LOG_RATIO = 20.0  # an axis spanning more than this ratio is drawn on a log scale
 ANNOTATE_CELLS = 10  # per axis; beyond it the numbers would crowd the map
 DPI = 100
+TICK_GAP = 0.13  # decades of table points between labelled sizes
+PERCENT_TICKS = (0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
 
 
 def _figure(width: float, height: float) -> Figure:
@@ -248,6 +250,7 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
         else "No probe simulated."
     )
     name = html.escape(config.name)
+    floor = html.escape(f"{s.rel_floor / config.time_scale:.4g} {config.time_unit}")
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <title>{name}: table fidelity</title>
@@ -258,8 +261,7 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
 ({report.simulations} simulator runs, {report.failures} failed) in {report.wall_seconds:.1f} s.
 Each table is checked at every cell centre of its grid and at {s.random_points} Latin-hypercube
 points (seed {s.seed}) spread evenly over its cells. Relative error =
-|interpolated &minus; simulated| / max(|simulated|, {s.rel_floor / config.time_scale:.4g}
-{html.escape(config.time_unit)}). {spread}</p>
+|interpolated &minus; simulated| / max(|simulated|, {floor}). {spread}</p>
 <h2>Summary (click a column to sort)</h2>
 <table class="summary"><thead>{head}</thead><tbody>
 {rows}
@@ -276,23 +278,42 @@ Colour: relative error in %, one scale for every map (0 to {vmax * 100:.3g} %).<
 """
 
 
+def _spread_ticks(sizes: Sequence[int]) -> list[int]:
+    """Sizes far enough apart on the log axis of table points for their labels not to touch."""
+    ticks: list[int] = []
+    for n in sorted(sizes):
+        if not ticks or math.log10(n * n) - math.log10(ticks[-1] ** 2) >= TICK_GAP:
+            ticks.append(n)
+    return ticks
+
+
 def study_png(
     title: str,
     curves: Sequence[tuple[str, Sequence[int], Sequence[float], Sequence[float]]],
     targets: Sequence[float],
+    chosen: Sequence[tuple[int, float]] = (),
 ) -> bytes:
     """Max (solid) and RMS (dashed) relative error against table points, one colour per
-    placement; ``curves`` holds (placement, points per axis, max errors, rms errors)."""
+    placement; ``curves`` holds (placement, points per axis, max errors, rms errors) and
+    ``chosen`` the (points per axis, max error) of each target's recommended grid."""
     fig = _figure(6.4, 4.2)
     ax = fig.subplots()
     sizes: set[int] = set()
     for k, (placement, n, max_err, rms_err) in enumerate(curves):
-        colour = f"C{k}"
         points = [m**2 for m in n]
         sizes.update(n)
-        ax.plot(points, np.asarray(max_err) * 100, "o-", color=colour, label=f"{placement}, max")
-        ax.plot(points, np.asarray(rms_err) * 100, "s--", color=colour, ms=3.5, alpha=0.8)
-        ax.plot([], [], "s--", color=colour, ms=3.5, alpha=0.8, label=f"{placement}, rms")
+        ax.plot(points, np.asarray(max_err) * 100, "o-", color=f"C{k}", label=f"{placement}, max")
+        ax.plot(
+            points,
+            np.asarray(rms_err) * 100,
+            "s--",
+            color=f"C{k}",
+            ms=3.5,
+            alpha=0.8,
+            label=f"{placement}, rms",
+        )
+    for n, err in chosen:
+        ax.plot(n * n, err * 100, "*", color="black", ms=13, mfc="none", zorder=5)
     for target in targets:
         ax.axhline(target * 100, color="0.4", linewidth=0.8, linestyle=":")
         ax.annotate(
@@ -306,12 +327,16 @@ def study_png(
         )
     ax.set_yscale("log")
     ax.set_xscale("log")
-    ticks = sorted(sizes)
+    ticks = _spread_ticks(sorted(sizes))
     ax.set_xticks([m**2 for m in ticks], [f"{m}×{m}" for m in ticks], fontsize=7)
     ax.xaxis.set_minor_locator(NullLocator())
-    ax.set_xlabel("table points")
+    ax.yaxis.set_major_locator(FixedLocator(PERCENT_TICKS))
+    ax.yaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.yaxis.set_minor_locator(NullLocator())
+    ax.tick_params(axis="y", labelsize=7)
+    ax.set_xlabel("table points (points per axis squared)")
     ax.set_ylabel("relative error against the reference, %")
-    ax.set_title(title, fontsize=9)
+    ax.set_title(title + ("\n☆ recommended grid" if chosen else ""), fontsize=9)
     ax.grid(True, which="major", alpha=0.3)
-    ax.legend(fontsize=7, ncol=2)
+    ax.legend(fontsize=7, ncol=3, loc="lower left")
     return _png(fig)
