@@ -118,11 +118,16 @@ class FidelityReport:
         return sum(len(c.failures) for c in self.checks)
 
     def ranked(self) -> list[TableCheck]:
-        """Worst first; a table with no simulated probe at all ranks above every number."""
-        return sorted(self.checks, key=lambda c: -math.inf if c.stats is None else -c.stats.max_rel)
+        """Worst first."""
+        return sorted(self.checks, key=severity, reverse=True)
 
     def max_rel_errors(self) -> np.ndarray:
         return np.array([c.stats.max_rel for c in self.checks if c.stats is not None])
+
+
+def severity(check: TableCheck) -> float:
+    """For ranking: the largest relative error; a table with no simulated probe ranks first."""
+    return math.inf if check.stats is None else check.stats.max_rel
 
 
 def _along(grid: np.ndarray, u: float) -> float:

@@ -3,9 +3,10 @@
 One arc (every sensitizing state, both input edges, delay and transition) is simulated on a dense
 reference grid over the cell's index range. Candidate grids of 3 to 12 points per axis (by
 default) are simulated too — their values come from the simulator, never from the reference — and
-judged by the relative error of their interpolation at every reference point. Three placements
-of the index values are compared: uniform, geometric, and an optimized one that equalises the
-interpolation error between neighbouring intervals.
+judged by the relative error of their interpolation at every reference point and at their own
+cell centres, simulated as well: a fine candidate has few reference points in each cell. Three
+placements of the index values are compared: uniform, geometric, and an optimized one that
+equalises the interpolation error between neighbouring intervals.
 
 The optimizer rests on the error of linear interpolation, (x − x0)(x1 − x)/2 · f''(ξ), largest at
 the midpoint: h²/8 · |f''| (Burden & Faires, *Numerical Analysis*, 9th ed., 2010, sec. 3.1). An
@@ -23,7 +24,7 @@ import itertools
 import json
 import math
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -333,40 +334,50 @@ def _surface(axes: Sequence[Axis], points: dict, outcomes: dict) -> Surface:
     return Surface(tuple(axes), values, tuple(dict.fromkeys(failures)))
 
 
+def centres(axes: Sequence[Axis]) -> tuple[Axis, ...]:
+    """The grid of a grid's cell centres."""
+    return tuple(
+        Axis(a.name, tuple((np.asarray(a.values)[:-1] + np.asarray(a.values)[1:]) / 2))
+        for a in axes
+    )
+
+
 def _judge(
     placement: str,
     size: int,
     surface: Surface,
+    middle: Surface,
     reference: Surface,
     floor: float,
     predicted: float | None = None,
 ) -> Candidate:
-    if surface.failures:
+    """Errors at every reference point and, where they peak for a smooth response, at the
+    candidate's own cell centres (``middle``), both simulated; RMS over the reference only, a
+    sample the same for every candidate."""
+    failed = len(surface.failures) + len(middle.failures)
+    if failed:
         return Candidate(
-            placement,
-            size,
-            surface.axes,
-            None,
-            None,
-            None,
-            None,
-            None,
-            predicted,
-            len(surface.failures),
+            placement, size, surface.axes, None, None, None, None, None, predicted, failed
         )
     keys = list(reference.values)
-    at = _mesh([np.asarray(a.values) for a in reference.axes])
-    truth = np.array([reference.values[k].ravel() for k in keys])
-    dev = deviations(surface.axes, [surface.values[k] for k in keys], at, truth)
-    rel = dev / np.maximum(np.abs(truth), floor)
+    values = [surface.values[k] for k in keys]
+    rel_parts, dev_parts, where = [], [], []
+    for truth_surface in (reference, middle):
+        at = _mesh([np.asarray(a.values) for a in truth_surface.axes])
+        truth = np.array([truth_surface.values[k].ravel() for k in keys])
+        dev = deviations(surface.axes, values, at, truth)
+        rel_parts.append(dev / np.maximum(np.abs(truth), floor))
+        dev_parts.append(dev)
+        where.append(at)
+    rel, at = np.concatenate(rel_parts, axis=1), np.concatenate(where)
     table, point = np.unravel_index(int(np.argmax(rel)), rel.shape)
     return Candidate(
         placement=placement,
         size=size,
         axes=surface.axes,
         max_rel=float(rel.max()),
-        rms_rel=float(np.sqrt(np.mean(rel**2))),
-        max_abs=float(dev.max()),
+        rms_rel=float(np.sqrt(np.mean(rel_parts[0] ** 2))),
+        max_abs=float(max(d.max() for d in dev_parts)),
         worst_table=table_label(keys[table]),
         worst_at=tuple(float(x) for x in at[point]),
         predicted_max_rel=predicted,
@@ -444,13 +455,19 @@ def study(
                     Axis(name, rounded(v, scales[name]))
                     for (name, _, _), v in zip(span, per_axis, strict=True)
                 )
-    wanted = {("reference", 0): reference} | grids
-    point_maps = {k: _grid_points(cell_name, the_arc, axes) for k, axes in wanted.items()}
+
+    def maps_of(axes: Sequence[Axis]) -> tuple[dict, dict]:
+        """The points of a grid and of its cell centres."""
+        return (
+            _grid_points(cell_name, the_arc, axes),
+            _grid_points(cell_name, the_arc, centres(axes)),
+        )
+
     outcomes: dict = {}
 
-    def simulate(maps: dict) -> None:
+    def simulate(maps: Iterable[dict]) -> None:
         """Add the outcomes of the points of ``maps`` not yet simulated in this study."""
-        requested = dict.fromkeys(p for m in maps.values() for p in m.values())
+        requested = dict.fromkeys(p for m in maps for p in m.values())
         unique = [p for p in requested if p not in outcomes]
         if on_start is not None:
             on_start(len(unique))
@@ -458,8 +475,10 @@ def study(
             (o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)
         )
 
-    simulate(point_maps)
-    ref = _surface(reference, point_maps[("reference", 0)], outcomes)
+    ref_points = _grid_points(cell_name, the_arc, reference)
+    point_maps = {key: maps_of(axes) for key, axes in grids.items()}
+    simulate([ref_points, *(m for pair in point_maps.values() for m in pair)])
+    ref = _surface(reference, ref_points, outcomes)
     if ref.failures:
         first = ref.failures[0]
         raise MeasurementError(
@@ -471,30 +490,27 @@ def study(
         )
     keys = list(ref.values)
     predicted = {}
-    optimized_maps = {}
     for n in sizes:
         nodes, error = optimized_axes(reference, [ref.values[k] for k in keys], n, floor)
-        axes = tuple(
+        grids[("optimized", n)] = tuple(
             Axis(name, rounded(g, scales[name]))
             for (name, _, _), g in zip(span, nodes, strict=True)
         )
-        grids[("optimized", n)] = axes
         predicted[n] = error
-        optimized_maps[("optimized", n)] = _grid_points(cell_name, the_arc, axes)
-    simulate(optimized_maps)
-    point_maps |= optimized_maps
+        point_maps[("optimized", n)] = maps_of(grids[("optimized", n)])
+    simulate([m for n in sizes for m in point_maps[("optimized", n)]])
+    order = sorted(grids, key=lambda key: (PLACEMENTS.index(key[0]), key[1]))
     candidates = tuple(
         _judge(
             placement,
             n,
-            _surface(axes, point_maps[(placement, n)], outcomes),
+            _surface(grids[(placement, n)], point_maps[(placement, n)][0], outcomes),
+            _surface(centres(grids[(placement, n)]), point_maps[(placement, n)][1], outcomes),
             ref,
             floor,
             predicted.get(n) if placement == "optimized" else None,
         )
-        for (placement, n), axes in sorted(
-            grids.items(), key=lambda kv: (PLACEMENTS.index(kv[0][0]), kv[0][1])
-        )
+        for placement, n in order
     )
     return Study(
         cell=cell_name,

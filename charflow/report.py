@@ -21,12 +21,13 @@ from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
 
 from . import __version__
 from .config import LibraryConfig
-from .fidelity import CENTRE, FidelityReport, TableCheck, axis_unit, where
+from .fidelity import CENTRE, FidelityReport, TableCheck, axis_unit, severity, where
 
 CMAP = "YlOrRd"
 LOG_RATIO = 20.0  # an axis spanning more than this ratio is drawn on a log scale
 ANNOTATE_CELLS = 10  # per axis; beyond it the numbers would crowd the map
 DPI = 100
+PARALLEL_MAPS = 16  # fewer maps are drawn faster than workers can import matplotlib
 TICK_GAP = 0.13  # decades of table points between labelled sizes
 PERCENT_TICKS = (0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
 
@@ -173,8 +174,9 @@ document.querySelectorAll("table.summary th").forEach((th, col) => {
 
 
 def _num(value: float | None, text: str) -> str:
-    if value is None or math.isnan(value):
-        return '<td class="n" data-v="-1">-</td>'
+    """A number cell; an error that could not be measured sorts with the worst."""
+    if value is None:
+        return '<td class="n" data-v="Infinity">-</td>'
     return f'<td class="n" data-v="{value:.6g}">{text}</td>'
 
 
@@ -186,8 +188,8 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
         f"<td>{html.escape(c.arc)}</td>",
         f"<td>{html.escape(c.state)}</td>",
         f"<td>{html.escape(c.table.quantity)}</td>",
-        _num(None if st is None else st.count, "" if st is None else str(st.count)),
-        _num(float(len(c.failures)), str(len(c.failures))),
+        _num(len(c.points), str(len(c.points))),
+        _num(len(c.failures), str(len(c.failures))),
     ]
     if st is None:
         cells += [_num(None, "")] * 4 + ["<td>-</td>"]
@@ -205,13 +207,13 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
 def heat_maps(
     config: LibraryConfig, checks: Sequence[TableCheck], vmax: float, jobs: int | None = None
 ) -> list[bytes]:
-    """One map per 2D table, drawn in parallel: a report holds dozens and each takes ~0.1 s."""
+    """One map per 2D table; each takes ~0.1 s, so a report of dozens is drawn in parallel."""
     from joblib import Parallel, delayed
 
     from .sweep import default_jobs
 
     jobs = jobs or default_jobs()
-    if jobs == 1 or len(checks) < 2:
+    if jobs == 1 or len(checks) < PARALLEL_MAPS:
         return [heat_map_png(config, c, vmax) for c in checks]
     return Parallel(n_jobs=min(jobs, len(checks)))(
         delayed(heat_map_png)(config, c, vmax) for c in checks
@@ -223,20 +225,21 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
     s = report.settings
     errors = report.max_rel_errors()
     vmax = float(errors.max()) if errors.size else 0.0
-    ranked = report.ranked()
-    number = {id(c): n for n, c in enumerate(report.checks)}
     head = (
         "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
         "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
         "<th>worst at</th></tr>"
     )
-    rows = "\n".join(_summary_row(config, number[id(c)], c) for c in ranked)
-    planar = [c for c in report.checks if c.table.ndim == 2]
-    maps = dict(zip(map(id, planar), heat_maps(config, planar, vmax, jobs), strict=True))
+    checks = report.checks
+    ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
+    rows = "\n".join(_summary_row(config, n, checks[n]) for n in ranked)
+    planar = [n for n, c in enumerate(checks) if c.table.ndim == 2]
+    drawn = heat_maps(config, [checks[n] for n in planar], vmax, jobs)
+    maps = dict(zip(planar, drawn, strict=True))
     figures = []
-    for n, c in enumerate(report.checks):
-        if id(c) in maps:
-            body = _img(maps[id(c)], c.label)
+    for n, c in enumerate(checks):
+        if n in maps:
+            body = _img(maps[n], c.label)
         else:
             body = f"<p>no map: the table has {c.table.ndim} axes</p>"
         caption = f"{len(c.points)} probes, {len(c.failures)} failed"

@@ -81,7 +81,7 @@ def _ok(done: subprocess.CompletedProcess[str]) -> None:
 
 def test_fidelity_command(tmp_path: Path) -> None:
     out = tmp_path / "out"
-    done = _charflow("fidelity", SMALL, "--out", out, "--jobs", "2", "--quiet", cwd=tmp_path)
+    done = _charflow("fidelity", SMALL, "--out", out, "--jobs", "1", "--quiet", cwd=tmp_path)
     _ok(done)
     for name in ("small_l1.fidelity.json", "small_l1.fidelity.html"):
         assert (out / name).is_file()
@@ -94,7 +94,17 @@ def test_fidelity_command(tmp_path: Path) -> None:
 def test_run_with_fidelity(tmp_path: Path) -> None:
     out = tmp_path / "out"
     done = _charflow(
-        "run", SMALL, "--cell", "INV_X1", "--fidelity", "--out", out, "--quiet", cwd=tmp_path
+        "run",
+        SMALL,
+        "--cell",
+        "INV_X1",
+        "--fidelity",
+        "--out",
+        out,
+        "--jobs",
+        "1",
+        "--quiet",
+        cwd=tmp_path,
     )
     _ok(done)
     for name in ("small_l1.lib", "small_l1.json", "small_l1.fidelity.json"):
@@ -121,6 +131,8 @@ def test_grid_study_command(tmp_path: Path) -> None:
         "0.1",
         "--out",
         out,
+        "--jobs",
+        "1",
         "--quiet",
         cwd=tmp_path,
     )

@@ -233,7 +233,9 @@ def test_every_candidate_grid_is_simulated(small_study) -> None:
     }
     for c in study.candidates:
         assert c.failures == 0 and c.max_rel is not None
-        for edge, slew, load in itertools.product(sweep.EDGES, *(a.values for a in c.axes)):
+        nodes = itertools.product(sweep.EDGES, *(a.values for a in c.axes))
+        middles = itertools.product(sweep.EDGES, *(a.values for a in gridstudy.centres(c.axes)))
+        for edge, slew, load in itertools.chain(nodes, middles):
             point = sweep.TimingPoint(
                 "NAND2_X1", "A2", "Y", state.side, edge, state.output_edge(edge), slew, load
             )
