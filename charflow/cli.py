@@ -104,8 +104,8 @@ def _reference(text: str) -> int:
     except ValueError as exc:
         raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from exc
     # The optimizer's surrogate is a cubic spline: it needs at least 4 points per axis.
-    if value < 5:
-        raise argparse.ArgumentTypeError(f"must be at least 5, got {value}")
+    if value < 4:
+        raise argparse.ArgumentTypeError(f"must be at least 4, got {value}")
     return value
 
 

@@ -683,8 +683,8 @@ def write(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
                 (p, [c.size for c in ok], [c.max_rel for c in ok], [c.rms_rel for c in ok])
             )
     png = report.study_png(
-        f"{config.name} {s.cell} {s.arc}: interpolation error against a "
-        f"{'x'.join(str(len(a)) for a in s.reference)} reference",
+        f"{config.name} {s.cell} {s.arc}: interpolation error "
+        f"(reference grid {'x'.join(str(len(a)) for a in s.reference)})",
         curves,
         [r.target for r in s.recommendations],
         [(r.best.size, r.best.max_rel) for r in s.recommendations if r.best is not None],
