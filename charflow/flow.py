@@ -173,12 +173,13 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     }
 
 
-def write_atomic(path: Path, text: str) -> None:
+def write_atomic(path: Path, text: str | bytes) -> None:
     """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
     path.parent.mkdir(parents=True, exist_ok=True)
+    binary = isinstance(text, bytes)
     try:
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
             fh.write(text)
         os.replace(tmp, path)
     except OSError as exc:
