@@ -143,15 +143,7 @@ class _Progress:
 
 
 def _run(cfg_path: Path, args: argparse.Namespace) -> int:
-    cfg = config.load(cfg_path)
-    if args.jobs is not None and args.jobs < 1:
-        raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
-    out = args.out or RUNS / cfg.name
-    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
+    cfg, out = _setup(cfg_path, args)
     progress = _Progress(args.quiet)
     try:
         result = flow.characterize(
@@ -182,11 +174,12 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _setup(args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = config.load(args.config)
+def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = config.load(cfg_path)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
     out = args.out or RUNS / cfg.name
+    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -211,7 +204,7 @@ def _check_fidelity(cfg: config.LibraryConfig, cells, out: Path, args: argparse.
 
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     progress = _Progress(args.quiet)
     try:
         result = flow.characterize(
@@ -228,7 +221,7 @@ def _fidelity(args: argparse.Namespace) -> int:
 
 
 def _grid_study(args: argparse.Namespace) -> int:
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     progress = _Progress(args.quiet)
 
     def phase(total: int) -> None:  # two sweeps: a bar for each
