@@ -1,0 +1,98 @@
+"""The first maximum step of a point's transient, from an estimate of its output transition.
+
+A step sized by the input ramp alone is wrong at both ends of a grid: a fast ramp into a
+heavy load puts hundreds of samples on a slow output edge, and a slow ramp into a light load
+puts too few on a fast one, which costs a second, refined run. So each series of points (one
+arc, state and input edge of a cell, across the grid) is calibrated once per worker with
+three probe measurements at the grid's corners — the smallest slew at the smallest and the
+largest load, the largest slew at the smallest load — and the output transition of any point
+of the series is estimated as
+
+    T(r, C) = sqrt((T0 + k (C - C0))^2 + (b r)^2)
+
+with r the input ramp's duration: a linear growth with the load for a fast input, a share of
+the ramp for a slow one. The first step is T / samples_per_edge. ``timing.measure_point``
+still refines the step when the samples on the edge fall short, so the estimate decides the
+cost of a point, not its accuracy; and since the probes depend on the series alone, every
+point's value still depends on the point alone, whatever the chunking or the worker count.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+from . import stimulus
+from .config import LibraryConfig
+from .errors import MeasurementError, SimulatorError
+from .netlist import Deck
+from .sweep import TimingPoint
+
+PROBE_SAMPLES = 2.0  # first step of the later probes: the first probe's transition / this
+
+
+@dataclass(frozen=True, slots=True)
+class EdgeModel:
+    """The output transition of one series, as the probes measured it (SI units)."""
+
+    base: float  # s, transition at the smallest slew and load
+    base_load: float  # F, the smallest load
+    per_farad: float  # s/F, growth with load at the smallest slew
+    per_ramp: float  # s of transition per s of input ramp, for slow inputs
+
+    def transition(self, ramp: float, load: float) -> float:
+        fast = self.base + self.per_farad * (load - self.base_load)
+        return math.hypot(fast, self.per_ramp * ramp)
+
+
+_MODELS: dict[tuple, EdgeModel | None] = {}
+
+
+def plain_step(config: LibraryConfig, point: TimingPoint) -> float:
+    """The step the input ramp alone suggests; the reference rule, and the fallback."""
+    from .timing import RAMP_SAMPLES
+
+    ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, config.process.vdd)
+    return ramp.duration / RAMP_SAMPLES
+
+
+def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
+    """The first maximum step for ``point``: its estimated transition / samples_per_edge."""
+    key = (deck.key, replace(point, slew=0.0, load=0.0))
+    if key not in _MODELS:
+        _MODELS[key] = _calibrate(config, deck, point)
+    model = _MODELS[key]
+    if model is None:
+        return plain_step(config, point)
+    thr = config.thresholds
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, config.process.vdd).duration
+    # The estimate is in raw (underated) seconds, as the simulator sees the edge.
+    return model.transition(ramp, point.load) / config.simulation.samples_per_edge
+
+
+def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeModel | None:
+    from .timing import measure_point
+
+    grid = config.cell(point.cell).grid
+    thr = config.thresholds
+    vdd = config.process.vdd
+    s0, s1 = grid.slew[0], grid.slew[-1]
+    c0, c1 = grid.load[0], grid.load[-1]
+
+    def probe(slew: float, load: float, step: float) -> float:
+        corner = replace(point, slew=slew, load=load)
+        return measure_point(config, deck, corner, step=step).transition * thr.slew_derate
+
+    try:
+        t0 = probe(s0, c0, plain_step(config, replace(point, slew=s0)))
+        # The other corners' edges are slower; measure_point refines the step if they are not.
+        coarse = t0 / PROBE_SAMPLES
+        t_load = probe(s0, c1, coarse) if c1 > c0 else t0
+        t_slew = probe(s1, c0, coarse) if s1 > s0 else t0
+    except (MeasurementError, SimulatorError):
+        # The points themselves will report what is wrong; their first step stays plain.
+        return None
+    ramp = stimulus.ramp(s1, point.input_edge, thr, vdd).duration
+    per_farad = max(t_load - t0, 0.0) / (c1 - c0) if c1 > c0 else 0.0
+    per_ramp = math.sqrt(max(t_slew**2 - t0**2, 0.0)) / ramp
+    return EdgeModel(t0, c0, per_farad, per_ramp)
