@@ -10,7 +10,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, config, flow
+from . import __version__, bench, config, estimate, flow, sweep
 from .errors import (
     CharflowError,
     ConfigError,
@@ -34,9 +34,38 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("config", type=Path)
     _common(run)
     run.add_argument("--cell", action="append", help="only this cell (repeatable)")
+    run.add_argument(
+        "--plan",
+        action="store_true",
+        help="print the simulations per cell and arc and an estimated time; run no sweep",
+    )
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
+
+    bench_cmd = sub.add_parser("bench", help="time charflow against the naive way and the simulator")
+    bench_cmd.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
+    bench_cmd.add_argument(
+        "--library",
+        action="append",
+        choices=bench.LIBRARIES,
+        help="only this library (repeatable; default: all)",
+    )
+    bench_cmd.add_argument(
+        "--naive-points",
+        type=int,
+        default=bench.NAIVE_POINTS,
+        help="points the naive way runs per library",
+    )
+    bench_cmd.add_argument(
+        "--params",
+        type=int,
+        default=bench.KIT_PARAMS,
+        help=".param lines in the foundry-style model file",
+    )
+    bench_cmd.add_argument(
+        "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
+    )
     return parser
 
 
@@ -77,6 +106,10 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     cfg = config.load(cfg_path)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    if getattr(args, "plan", False):
+        jobs = args.jobs or sweep.default_jobs()
+        print(estimate.render(estimate.estimate(cfg, getattr(args, "cell", None), jobs)))
+        return EXIT_OK
     out = args.out or RUNS / cfg.name
     # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
@@ -111,11 +144,33 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _bench(args: argparse.Namespace) -> int:
+    for option, value, least in (
+        ("--jobs", args.jobs, 1),
+        ("--naive-points", args.naive_points, 1),
+        ("--params", args.params, 2),
+        ("--repeat", args.repeat, 1),
+    ):
+        if value is not None and value < least:
+            raise ConfigError(f"{option} must be at least {least}, got {value}")
+    results = bench.run(
+        jobs=args.jobs,
+        naive_points=args.naive_points,
+        params=args.params,
+        repeat=args.repeat,
+        libraries=tuple(args.library or bench.LIBRARIES),
+    )
+    print(bench.render(results))
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         if args.command == "run":
             return _run(args.config, args)
+        if args.command == "bench":
+            return _bench(args)
         return _run(DEMO_CONFIG, args)
     except (ConfigError, NetlistError, FunctionalMismatchError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)

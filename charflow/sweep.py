@@ -152,8 +152,7 @@ def run(
 
     Outcomes come in completion order; ``on_result`` is a hook for progress display.
     """
-    from joblib import Parallel, delayed
-
+    from .pool import map_chunks
     from .timing import measure_chunk
 
     points = list(points)
@@ -165,9 +164,7 @@ def run(
     if jobs == 1 or len(tasks) == 1:
         results: Iterable[list] = (measure_chunk(config, decks[t[0].cell], t) for t in tasks)
     else:
-        results = Parallel(n_jobs=min(jobs, len(tasks)), return_as="generator_unordered")(
-            delayed(measure_chunk)(config, decks[t[0].cell], t) for t in tasks
-        )
+        results = map_chunks(config, decks, tasks, jobs)
     for batch in results:
         for outcome in batch:
             if on_result is not None:
