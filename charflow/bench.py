@@ -117,14 +117,16 @@ def level1_demo(folder: Path) -> Path:
     return path
 
 
-def foundry_kit(folder: Path, params: int = KIT_PARAMS, bins: int = KIT_BINS) -> Path:
+def foundry_kit(
+    folder: Path, params: int = KIT_PARAMS, bins: int = KIT_BINS, grid: str | None = None
+) -> Path:
     """A model file of the kind foundries ship (invented values), two cells on it and their
     config, in ``folder``; returns the config's path.
 
     ``params`` ``.param`` lines, each an expression of two earlier ones (reading them is what
     makes such files slow); ``bins`` length bins per device type (``nch.1`` ..., selected by
     ngspice from ``lmin``/``lmax``/``wmin``/``wmax``); devices wrapped in subcircuits that the
-    cells instantiate with X.
+    cells instantiate with X. ``grid`` is the config's ``[grid]`` body (default: the demo's).
     """
     lines = [
         "* Foundry-style model file for the charflow benchmark. EVERY VALUE IS INVENTED.",
@@ -173,7 +175,8 @@ xn2 n1 A2 VSS VSS nch_mac w=0.8e-6 l=0.1e-6
 """,
         encoding="utf-8",
     )
-    grid = DEMO.read_text(encoding="utf-8").split("[grid]")[1].split("[[cell]]")[0].strip()
+    if grid is None:
+        grid = DEMO.read_text(encoding="utf-8").split("[grid]")[1].split("[[cell]]")[0].strip()
     path = folder / "kit.toml"
     path.write_text(
         f"""[library]

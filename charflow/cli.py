@@ -43,7 +43,9 @@ def _parser() -> argparse.ArgumentParser:
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
 
-    bench_cmd = sub.add_parser("bench", help="time charflow against the naive way and the simulator")
+    bench_cmd = sub.add_parser(
+        "bench", help="time charflow against the naive way and the simulator"
+    )
     bench_cmd.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
     bench_cmd.add_argument(
         "--library",

@@ -56,12 +56,26 @@ def plain_step(config: LibraryConfig, point: TimingPoint) -> float:
     return ramp.duration / RAMP_SAMPLES
 
 
-def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
-    """The first maximum step for ``point``: its estimated transition / samples_per_edge."""
-    key = (deck.key, replace(point, slew=0.0, load=0.0))
+def model_for(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeModel | None:
+    """The transition model of ``point``'s series, calibrated on first use in this process;
+    None when a probe fails."""
+    # Everything the probes depend on: the testbench, the grid's corners, how points are run.
+    grid = config.cell(point.cell).grid
+    key = (
+        deck.key,
+        replace(point, slew=0.0, load=0.0),
+        grid,
+        config.thresholds,
+        config.simulation,
+    )
     if key not in _MODELS:
         _MODELS[key] = _calibrate(config, deck, point)
-    model = _MODELS[key]
+    return _MODELS[key]
+
+
+def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
+    """The first maximum step for ``point``: its estimated transition / samples_per_edge."""
+    model = model_for(config, deck, point)
     if model is None:
         return plain_step(config, point)
     thr = config.thresholds
