@@ -15,18 +15,23 @@ the ramp for a slow one. The first step is T / samples_per_edge. ``timing.measur
 still refines the step when the samples on the edge fall short, so the estimate decides the
 cost of a point, not its accuracy; and since the probes depend on the series alone, every
 point's value still depends on the point alone, whatever the chunking or the worker count.
+The probes are measurements of the corner points themselves and stand as their results.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 from . import stimulus
 from .config import LibraryConfig
 from .errors import MeasurementError, SimulatorError
 from .netlist import Deck
 from .sweep import TimingPoint
+
+if TYPE_CHECKING:
+    from .timing import Measurement
 
 PROBE_SAMPLES = 2.0  # first step of the later probes: the first probe's transition / this
 
@@ -45,7 +50,8 @@ class EdgeModel:
         return math.hypot(fast, self.per_ramp * ramp)
 
 
-_MODELS: dict[tuple, EdgeModel | None] = {}
+# Per series: its model (None when a probe failed) and its probes' measurements by (slew, load).
+_SERIES: dict[tuple, tuple[EdgeModel | None, dict[tuple[float, float], Measurement]]] = {}
 
 
 def plain_step(config: LibraryConfig, point: TimingPoint) -> float:
@@ -56,21 +62,30 @@ def plain_step(config: LibraryConfig, point: TimingPoint) -> float:
     return ramp.duration / RAMP_SAMPLES
 
 
-def model_for(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeModel | None:
-    """The transition model of ``point``'s series, calibrated on first use in this process;
-    None when a probe fails."""
+def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:
     # Everything the probes depend on: the testbench, the grid's corners, how points are run.
-    grid = config.cell(point.cell).grid
     key = (
         deck.key,
         replace(point, slew=0.0, load=0.0),
-        grid,
+        config.cell(point.cell).grid,
         config.thresholds,
         config.simulation,
     )
-    if key not in _MODELS:
-        _MODELS[key] = _calibrate(config, deck, point)
-    return _MODELS[key]
+    if key not in _SERIES:
+        _SERIES[key] = _calibrate(config, deck, point)
+    return _SERIES[key]
+
+
+def model_for(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeModel | None:
+    """The transition model of ``point``'s series, calibrated on first use in this process;
+    None when a probe fails."""
+    return _series(config, deck, point)[0]
+
+
+def probed(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement | None:
+    """``point``'s measurement if it is one of its series' probes (a grid corner): a probe is
+    a measurement of that point like any other, so it is not simulated twice."""
+    return _series(config, deck, point)[1].get((point.slew, point.load))
 
 
 def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
@@ -84,7 +99,9 @@ def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
     return model.transition(ramp, point.load) / config.simulation.samples_per_edge
 
 
-def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeModel | None:
+def _calibrate(
+    config: LibraryConfig, deck: Deck, point: TimingPoint
+) -> tuple[EdgeModel | None, dict[tuple[float, float], Measurement]]:
     from .timing import measure_point
 
     grid = config.cell(point.cell).grid
@@ -92,10 +109,12 @@ def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeMod
     vdd = config.process.vdd
     s0, s1 = grid.slew[0], grid.slew[-1]
     c0, c1 = grid.load[0], grid.load[-1]
+    probes: dict[tuple[float, float], Measurement] = {}
 
     def probe(slew: float, load: float, step: float) -> float:
         corner = replace(point, slew=slew, load=load)
-        return measure_point(config, deck, corner, step=step).transition * thr.slew_derate
+        probes[(slew, load)] = measure_point(config, deck, corner, step=step)
+        return probes[(slew, load)].transition * thr.slew_derate
 
     try:
         t0 = probe(s0, c0, plain_step(config, replace(point, slew=s0)))
@@ -105,8 +124,8 @@ def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> EdgeMod
         t_slew = probe(s1, c0, coarse) if s1 > s0 else t0
     except (MeasurementError, SimulatorError):
         # The points themselves will report what is wrong; their first step stays plain.
-        return None
+        return None, {}
     ramp = stimulus.ramp(s1, point.input_edge, thr, vdd).duration
     per_farad = max(t_load - t0, 0.0) / (c1 - c0) if c1 > c0 else 0.0
     per_ramp = math.sqrt(max(t_slew**2 - t0**2, 0.0)) / ramp
-    return EdgeModel(t0, c0, per_farad, per_ramp)
+    return EdgeModel(t0, c0, per_farad, per_ramp), probes

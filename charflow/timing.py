@@ -84,6 +84,11 @@ def measure_point(
 ) -> Measurement:
     """Simulate and measure one point; ``step`` overrides the first maximum step, which is
     otherwise estimated from the point's series (``stepsize``)."""
+    if step is None:
+        known = stepsize.probed(config, deck, point)
+        if known is not None:
+            return known
+        step = stepsize.first_step(config, deck, point)
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
@@ -108,7 +113,7 @@ def measure_point(
         else f"v({out_node}) < {tol:.6g}"
     )
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
-    max_step = step or stepsize.first_step(config, deck, point)
+    max_step = step
     runs = 0
     seconds = 0.0
     backend = backend_for(config)
