@@ -15,9 +15,11 @@ from charflow import bench, config, estimate, flow
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
 TINY_GRID = "slew = [0.02, 0.2]\nload = [0.002, 0.02]"
-# The naive way runs charflow's own transient (same step, same stop condition) and ngspice's
-# `meas` interpolates linearly between samples as charflow does: only rounding differs.
-AGREE_RTOL = 1e-4
+# The naive way runs one transient per point with charflow's estimated first step, and
+# ngspice's `meas` interpolates linearly between samples as charflow does; charflow may have
+# refined a point's step, or measured a grid corner with its probe's step. Both put at least
+# samples_per_edge / REFINE_SLACK (about 13) samples on the edge: they agree within 1 %.
+AGREE_RTOL = 1e-2
 
 
 @pytest.fixture(scope="module", autouse=True)
