@@ -4,12 +4,13 @@ The simulator's analysis time is the floor; all charflow adds around it (process
 netlist reading, vector transfer, measurement, scheduling, writing) is overhead. The naive
 way is what a user would script without charflow: one ``ngspice -b`` process per point, a
 complete netlist written for it with a ``.control`` block, the results read from what
-ngspice prints (``meas``). It is given charflow's own transient for each point (the same
-first step and stop condition) and runs on as many processes as charflow, so it does no more
-simulator work and the speed-up it shows is charflow's overhead against its overhead alone.
+ngspice prints (``meas``). It is given charflow's estimated first step and stop time for
+each point, runs each once and on as many processes as charflow has workers, so it does no
+more simulator work and the speed-up it shows is charflow's overhead against its own.
 
-Every charflow run is the ``charflow run`` command in a fresh process, as a user starts it:
-its wall time includes Python's start, the functional check, worker start-up and writing.
+Every charflow run is a fresh process doing what ``charflow run`` does (``_child``), as a
+user starts it: its wall time includes Python's start, the functional check, worker start-up
+and writing, each stage timed.
 The libraries: the demo on its level-1 and its BSIM models (7 × 7 grid), and a model file of
 the kind foundries ship, generated here with invented values: thousands of ``.param``
 expressions, binned BSIM models and every device wrapped in a subcircuit. Ratios are measured
@@ -65,6 +66,12 @@ class RunStats:
     wall: float  # s
     analysis: float  # s inside the simulator, summed over the points
     peak_rss: float | None = None  # bytes, the largest process of the run
+    stages: tuple[tuple[str, float], ...] = ()  # (stage, s of wall time), in order
+
+    @property
+    def sweep(self) -> float:
+        """Wall time of the sweep alone (first point to last), the whole run without stages."""
+        return dict(self.stages).get("sweep", self.wall)
 
     @property
     def points_per_second(self) -> float:
@@ -78,6 +85,11 @@ class RunStats:
     def floor_ratio(self) -> float:
         """Wall time over the simulator's time per worker: 1 would be no overhead at all."""
         return self.wall / (self.analysis / self.workers)
+
+    @property
+    def sweep_floor_ratio(self) -> float:
+        """The same for the sweep alone, without start-up, checks and writing."""
+        return self.sweep / (self.analysis / self.workers)
 
 
 @dataclass(frozen=True, slots=True)
@@ -207,14 +219,16 @@ outputs = {{ Y = "!(A1&A2)" }}
 
 
 def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dict]:
-    """``charflow run`` in a fresh process; its statistics and the JSON it wrote."""
-    cmd = [sys.executable, "-m", "charflow.cli", "run", str(config_path)]
-    cmd += ["--jobs", str(jobs), "--out", str(out), "--quiet"]
+    """charflow on ``config_path`` in a fresh process, as ``charflow run`` does it (this
+    module's ``_child``: load, characterize, write), timed stage by stage; its statistics and
+    the JSON it wrote."""
     out.mkdir(parents=True, exist_ok=True)
+    cmd = [sys.executable, "-m", "charflow.bench", str(config_path), str(jobs), str(out)]
     with open(out / "stderr.txt", "w+", encoding="utf-8") as err:
+        begun = time.time()
         start = time.perf_counter()
         proc = subprocess.Popen(
-            cmd, stdout=subprocess.DEVNULL, stderr=err, stdin=subprocess.DEVNULL
+            [*cmd, repr(begun)], stdout=subprocess.DEVNULL, stderr=err, stdin=subprocess.DEVNULL
         )
         # wait4 reports the child's peak memory, its reaped worker processes included.
         _, status, usage = os.wait4(proc.pid, 0)
@@ -223,9 +237,10 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
         err.seek(0)
         message = err.read().strip()
     if proc.returncode != 0:
-        raise SimulatorError(f"charflow run {config_path.name} failed: {message}")
+        raise SimulatorError(f"charflow on {config_path.name} failed: {message}")
     name = config_mod.load(config_path).name
     doc = json.loads((out / f"{name}.json").read_text(encoding="utf-8"))
+    stages = json.loads((out / STAGES).read_text(encoding="utf-8"))
     records = [r for cell in doc["points"].values() for r in cell]
     stats = RunStats(
         label=f"charflow, {jobs} worker{'s' * (jobs > 1)}",
@@ -235,8 +250,44 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
         wall=wall,
         analysis=sum(r["sim_seconds"] for r in records),
         peak_rss=usage.ru_maxrss * 1024.0,  # Linux reports kilobytes
+        stages=tuple(stages.items()),
     )
     return stats, doc
+
+
+STAGES = "bench_stages.json"
+
+
+def _child(argv: list[str]) -> int:
+    """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time
+    written to DIR/bench_stages.json (seconds; "start" runs from the parent's launch)."""
+    from . import flow
+
+    path, jobs, out, begun = Path(argv[0]), int(argv[1]), Path(argv[2]), float(argv[3])
+    stages = {"start and imports": time.time() - begun}
+    mark = time.perf_counter()
+    sweep_start = last = 0.0
+
+    def on_start(_: int) -> None:
+        nonlocal sweep_start
+        sweep_start = time.perf_counter()
+
+    def on_result(_: object) -> None:
+        nonlocal last
+        last = time.perf_counter()
+
+    cfg = config_mod.load(path)
+    stages["config"] = time.perf_counter() - mark
+    mark = time.perf_counter()
+    result = flow.characterize(cfg, jobs=jobs, on_start=on_start, on_result=on_result)
+    done = time.perf_counter()
+    stages["plan and functional check"] = sweep_start - mark
+    stages["sweep"] = last - sweep_start
+    stages["tables"] = done - last
+    flow.write(cfg, result, out)
+    stages["write"] = time.perf_counter() - done
+    (out / STAGES).write_text(json.dumps(stages), encoding="utf-8")
+    return 1 if result.failures else 0
 
 
 def naive_netlist(
@@ -332,7 +383,7 @@ def naive_run(
     points = plan.points[::every][:count]
     decks = {c.name: netlist.build_deck(config, c) for c in config.cells}
     measured = _records(doc)
-    # charflow's own transient for each point: its first step and its stop time.
+    # charflow's estimated first step and its stop time for each point.
     runs = [
         (p, stepsize.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_s"])
         for p in points
@@ -450,29 +501,35 @@ def run(
 def render(results: list[LibraryBench]) -> str:
     """The benchmark's report: a table per library, then the ratios against their targets."""
     head = (
-        f"  {'':<36}{'points':>7}{'sims':>7}{'wall s':>9}{'sims/s':>9}{'simulator s':>13}"
-        f"{'wall/(sim/workers)':>20}{'peak MB':>9}"
+        f"  {'':<34}{'points':>7}{'sims':>6}{'wall s':>8}{'sims/s':>8}{'simulator s':>12}"
+        f"{'wall/floor':>11}{'sweep/floor':>12}{'peak MB':>8}"
     )
-    lines = []
+    lines = [
+        "floor = simulator time / workers; sweep = first point to last, without start-up, "
+        "checks and writing",
+        "",
+    ]
     for r in results:
-        lines += [f"{r.name}", head]
+        lines += [r.name, head]
         for s in (r.one, r.full, r.naive):
-            measured = not math.isnan(s.analysis)
-            lines.append(
-                f"  {s.label:<36}{s.points:>7}{s.simulations:>7}{s.wall:>9.2f}"
-                f"{s.simulations_per_second:>9.1f}"
-                + (
-                    f"{s.analysis:>13.2f}{s.floor_ratio:>20.2f}"
-                    if measured
-                    else f"{'-':>13}{'-':>20}"
-                )
-                + (f"{s.peak_rss / 1e6:>9.0f}" if s.peak_rss is not None else f"{'-':>9}")
+            ratios = (
+                f"{s.analysis:>12.2f}{s.floor_ratio:>11.2f}{s.sweep_floor_ratio:>12.2f}"
+                if not math.isnan(s.analysis)
+                else f"{'-':>12}{'-':>11}{'-':>12}"
             )
+            peak = f"{s.peak_rss / 1e6:>8.0f}" if s.peak_rss is not None else f"{'-':>8}"
+            lines.append(
+                f"  {s.label:<34}{s.points:>7}{s.simulations:>6}{s.wall:>8.2f}"
+                f"{s.simulations_per_second:>8.0f}{ratios}{peak}"
+            )
+        for s in (r.one, r.full):
+            parts = ", ".join(f"{name} {t:.2f}" for name, t in s.stages)
+            lines.append(f"  {s.label} stages (s): {parts}")
         naive_all = r.full.points / r.naive.points_per_second
         lines += [
-            f"  naive way on all {r.full.points} points: about {naive_all:.0f} s "
-            f"(scaled from its {r.naive.points})",
-            f"  speed-up against the naive way {r.speedup:.1f}x, scaling 1 -> {r.full.workers} "
+            f"  the naive way on all {r.full.points} points: about {naive_all:.0f} s "
+            f"(its {r.naive.points} points, scaled)",
+            f"  speed-up against the naive way {r.speedup:.1f}x; scaling 1 -> {r.full.workers} "
             f"workers {r.scaling:.2f}x; naive and charflow values agree within {r.agreement:.2%}",
             *(f"  {n}" for n in r.notes),
             "",
@@ -483,13 +540,11 @@ def render(results: list[LibraryBench]) -> str:
             lines.append(_target(f"speed-up, {r.name}", r.speedup, TARGET_SPEEDUP[r.name], ">="))
         if r.name == "BSIM demo":
             lines.append(
-                _target(
-                    f"wall/(sim/workers), {r.name}", r.full.floor_ratio, TARGET_FLOOR_RATIO, "<="
-                )
+                _target(f"wall/floor, {r.name}", r.full.floor_ratio, TARGET_FLOOR_RATIO, "<=")
             )
         if r.full.workers == 2:
             lines.append(_target(f"scaling 1 -> 2, {r.name}", r.scaling, TARGET_SCALING, ">="))
-        peak = max(s.peak_rss for s in (r.one, r.full) if s.peak_rss is not None)
+        peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
         lines.append(
             _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
         )
@@ -499,3 +554,7 @@ def render(results: list[LibraryBench]) -> str:
 def _target(what: str, value: float, target: float, sense: str) -> str:
     met = value >= target if sense == ">=" else value <= target
     return f"  {what:<46} {value:8.2f}  target {sense} {target:g}  {'met' if met else 'NOT MET'}"
+
+
+if __name__ == "__main__":
+    sys.exit(_child(sys.argv[1:]))
