@@ -1,18 +1,21 @@
 """Measuring chunks of points on worker processes and on this process at once.
 
-A worker process needs a good part of a second to start: Python, numpy, PySpice and its own
-simulator, before its first point. This process has all of that already (the functional
-check used its simulator), so it measures chunks itself from the first moment, while
-``jobs - 1`` worker processes start, and then shares the queue with them, costliest chunks
-first. Which process measures a chunk does not change its values (they depend on the point
-alone), only when it is done.
+The worker processes are forked from this one when the sweep starts, so they begin with
+everything it has: Python's modules, the simulator and every testbench the functional check
+loaded into it. A worker therefore starts in milliseconds and reads no model file at all for
+the cells it inherited (with a foundry's model file that read takes seconds per cell). Where
+``fork`` does not exist they are spawned instead and start from nothing. This process
+measures chunks too, from the first moment, and shares the queue with ``jobs - 1`` workers,
+costliest chunks first. Which process measures a chunk does not change its values (they depend
+on the point alone), only when it is done.
 """
 
 from __future__ import annotations
 
+import multiprocessing
 from collections import deque
 from collections.abc import Iterator, Sequence
-from concurrent.futures import FIRST_COMPLETED, Future, wait
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
 
 from .config import LibraryConfig
 from .netlist import Deck
@@ -25,28 +28,31 @@ def map_chunks(
 ) -> Iterator[list]:
     """Each chunk's outcomes (``timing.measure_chunk``), in completion order, measured by
     this process and ``jobs - 1`` worker processes."""
-    from joblib.externals.loky import get_reusable_executor
-
     from .timing import measure_chunk
 
     queue = deque(tasks)
     workers = min(jobs, len(queue)) - 1
-    executor = get_reusable_executor(max_workers=workers) if workers > 0 else None
+    if workers < 1:
+        for task in queue:
+            yield measure_chunk(config, decks[task[0].cell], task)
+        return
+    method = "fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn"
     running: set[Future] = set()
-    try:
-        while queue or running:
-            while executor is not None and queue and len(running) < AHEAD * workers:
-                task = queue.popleft()
-                running.add(executor.submit(measure_chunk, config, decks[task[0].cell], task))
-            finished = {f for f in running if f.done()}
-            if not queue and not finished:
-                finished, _ = wait(running, return_when=FIRST_COMPLETED)
-            for future in finished:
-                running.discard(future)
-                yield future.result()
-            if queue:
-                task = queue.popleft()
-                yield measure_chunk(config, decks[task[0].cell], task)
-    finally:
-        for future in running:
-            future.cancel()
+    with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context(method)) as pool:
+        try:
+            while queue or running:
+                while queue and len(running) < AHEAD * workers:
+                    task = queue.popleft()
+                    running.add(pool.submit(measure_chunk, config, decks[task[0].cell], task))
+                finished = {f for f in running if f.done()}
+                if not queue and not finished:
+                    finished, _ = wait(running, return_when=FIRST_COMPLETED)
+                for future in finished:
+                    running.discard(future)
+                    yield future.result()
+                if queue:
+                    task = queue.popleft()
+                    yield measure_chunk(config, decks[task[0].cell], task)
+        finally:
+            for future in running:
+                future.cancel()
