@@ -94,6 +94,11 @@ class RunStats:
         """The same for the sweep alone, without start-up, checks and writing."""
         return self.sweep / (self.analysis / self.workers)
 
+    @property
+    def busy(self) -> float:
+        """Share of the sweep's wall time each worker spends inside the simulator."""
+        return 1.0 / self.sweep_floor_ratio
+
 
 @dataclass(frozen=True, slots=True)
 class NaivePoint:
@@ -119,6 +124,11 @@ class LibraryBench:
     @property
     def scaling(self) -> float:
         return self.one.wall / self.full.wall
+
+    @property
+    def sweep_scaling(self) -> float:
+        """The same for the sweep alone: start-up, checks and writing do not parallelise."""
+        return self.one.sweep / self.full.sweep
 
     @property
     def cpu_speedup(self) -> float:
@@ -546,8 +556,10 @@ def render(results: list[LibraryBench]) -> str:
             f"  the naive way on all {r.full.points} points: about {naive_all:.0f} s "
             f"(its {r.naive.points} points, scaled)",
             f"  speed-up against the naive way {r.speedup:.1f}x ({r.cpu_speedup:.1f}x in processor "
-            f"time per point); scaling 1 -> {r.full.workers} "
-            f"workers {r.scaling:.2f}x; naive and charflow values agree within {r.agreement:.2%}",
+            f"time per point); naive and charflow values agree within {r.agreement:.2%}",
+            f"  scaling 1 -> {r.full.workers} workers {r.scaling:.2f}x (sweep alone "
+            f"{r.sweep_scaling:.2f}x); in the sweep each worker is inside the simulator "
+            f"{r.one.busy:.0%} of the time on 1 worker, {r.full.busy:.0%} on {r.full.workers}",
             *(f"  {n}" for n in r.notes),
             "",
         ]
@@ -556,11 +568,13 @@ def render(results: list[LibraryBench]) -> str:
         if r.name in TARGET_SPEEDUP:
             lines.append(_target(f"speed-up, {r.name}", r.speedup, TARGET_SPEEDUP[r.name], ">="))
         if r.name == "BSIM demo":
-            lines.append(
-                _target(f"wall/floor, {r.name}", r.full.floor_ratio, TARGET_FLOOR_RATIO, "<=")
-            )
+            for what, value in (("wall", r.full.floor_ratio), ("sweep", r.full.sweep_floor_ratio)):
+                lines.append(_target(f"{what}/floor, {r.name}", value, TARGET_FLOOR_RATIO, "<="))
         if r.full.workers == 2:
-            lines.append(_target(f"scaling 1 -> 2, {r.name}", r.scaling, TARGET_SCALING, ">="))
+            for what, value in (("", r.scaling), (" (sweep)", r.sweep_scaling)):
+                lines.append(
+                    _target(f"scaling 1 -> 2{what}, {r.name}", value, TARGET_SCALING, ">=")
+                )
         peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
         lines.append(
             _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
