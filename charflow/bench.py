@@ -11,6 +11,7 @@ more simulator work and the speed-up it shows is charflow's overhead against its
 Every charflow run is a fresh process doing what ``charflow run`` does (``_child``), as a
 user starts it: its wall time includes Python's start, the functional check, worker start-up
 and writing, each stage timed.
+
 The libraries: the demo on its level-1 and its BSIM models (7 × 7 grid), and a model file of
 the kind foundries ship, generated here with invented values: thousands of ``.param``
 expressions, binned BSIM models and every device wrapped in a subcircuit. Ratios are measured
@@ -31,7 +32,7 @@ import sys
 import tempfile
 import time
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from . import config as config_mod
@@ -46,7 +47,7 @@ LEVEL1_MODELS = PROJECT / "models" / "vellum90_l1.lib"
 
 KIT_PARAMS = 3000  # .param lines in the generated foundry-style model file
 KIT_BINS = 4  # length bins per device type
-NAIVE_POINTS = 24  # points the naive way runs per library; its rate is scaled to the rest
+NAIVE_POINTS = 48  # points the naive way runs per library; its rate is scaled to the rest
 NAIVE_TIMEOUT = 600.0  # s per naive ngspice process
 
 # Targets (issue 7): throughput against the naive way per library, overhead over the floor,
@@ -73,7 +74,7 @@ class RunStats:
 
     @property
     def sweep(self) -> float:
-        """Wall time of the sweep alone (first point to last), the whole run without stages."""
+        """Wall time of the sweep alone (first point to last); the whole run's if not timed."""
         return dict(self.stages).get("sweep", self.wall)
 
     @property
@@ -114,7 +115,7 @@ class LibraryBench:
     full: RunStats  # charflow, all workers
     naive: RunStats  # the naive way on a subset of the points
     agreement: float  # largest |naive − charflow| delay or transition, relative
-    notes: tuple[str, ...] = field(default=())
+    notes: tuple[str, ...] = ()
 
     @property
     def speedup(self) -> float:
@@ -132,8 +133,8 @@ class LibraryBench:
 
     @property
     def cpu_speedup(self) -> float:
-        """Processor time per point, the naive way's over charflow's: what the speed-up would
-        be on a machine with nothing else running."""
+        """Processor time per point, the naive way's over charflow's: the speed-up as far as
+        it does not depend on what else the machine runs."""
         return (self.naive.cpu / self.naive.points) / (self.full.cpu / self.full.points)
 
 
@@ -332,11 +333,8 @@ def naive_netlist(
     out_node = deck.output_node(point.output)
     in_node = deck.input_node(point.related)
     tol = config.simulation.settle * vdd
-    settled = (
-        f"v({out_node}) > {vdd - tol:.6g}"
-        if point.output_edge == "rise"
-        else (f"v({out_node}) < {tol:.6g}")
-    )
+    rising = point.output_edge == "rise"
+    settled = f"v({out_node}) > {vdd - tol:.6g}" if rising else f"v({out_node}) < {tol:.6g}"
     lower, upper = thr.slew_band(point.output_edge)
     o_dir = point.output_edge
     i_dir = point.input_edge
@@ -388,15 +386,14 @@ def naive_point(
         raise SimulatorError(
             f"the naive run printed no {exc} (exit {proc.returncode})", cell=point.cell
         ) from exc
-    return NaivePoint(
-        point, t["t_out"] - t["t_in"], abs(t["t_hi"] - t["t_lo"]) / (config.thresholds.slew_derate)
-    )
+    transition = abs(t["t_hi"] - t["t_lo"]) / config.thresholds.slew_derate
+    return NaivePoint(point, t["t_out"] - t["t_in"], transition)
 
 
 def naive_run(
     config: LibraryConfig, doc: dict, count: int, jobs: int, folder: Path
 ) -> tuple[RunStats, float]:
-    """The naive way on ``count`` points spread over the plan, on ``jobs`` processes at once;
+    """The naive way on ``count`` points drawn from the plan, on ``jobs`` processes at once;
     its statistics and its largest relative difference from charflow's values in ``doc``."""
     plan = sweep.plan(config)
     # A fixed sample, not a stride: a stride of the series' length picks one grid corner only.
