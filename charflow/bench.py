@@ -483,6 +483,35 @@ def kit_load_seconds(config_path: Path) -> float:
 LIBRARIES = ("level-1 demo", "BSIM demo", "foundry-style kit")
 
 
+SPIN = 3_000_000  # iterations of the busy loop that gauges the cores free for the benchmark
+
+
+def _spin() -> None:
+    total = 0
+    for i in range(SPIN):
+        total += i
+
+
+def free_cores(jobs: int) -> float:
+    """How many cores ``jobs`` busy processes get at once, against one alone: ``jobs`` on an
+    idle machine, less when other work shares it (then no scaling above it can be measured)."""
+    import multiprocessing
+
+    method = "fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn"
+    context = multiprocessing.get_context(method)
+
+    def timed(count: int) -> float:
+        procs = [context.Process(target=_spin) for _ in range(count)]
+        start = time.perf_counter()
+        for proc in procs:
+            proc.start()
+        for proc in procs:
+            proc.join()
+        return time.perf_counter() - start
+
+    return jobs * timed(1) / timed(jobs)
+
+
 def run(
     *,
     jobs: int | None = None,
@@ -502,7 +531,7 @@ def run(
         for name in libraries:
             work = base / name.replace(" ", "_")
             work.mkdir()
-            notes: tuple[str, ...] = ()
+            notes = [f"{jobs} busy processes got {free_cores(jobs):.2f} cores' worth just before"]
             if name == "level-1 demo":
                 path = level1_demo(work)
             elif name == "BSIM demo":
@@ -510,12 +539,13 @@ def run(
             else:
                 path = foundry_kit(work, params)
                 load = kit_load_seconds(path)
-                notes = (
+                notes.append(
                     f"ngspice reads one testbench on the kit ({params} .param lines) in "
-                    f"{load:.2f} s; the naive way does so for every point",
+                    f"{load:.2f} s; the naive way does so for every point"
                 )
             result = bench_library(name, path, jobs, naive_points, work, repeat)
-            out.append(replace(result, notes=notes))
+            notes.append(f"... and {free_cores(jobs):.2f} just after")
+            out.append(replace(result, notes=tuple(notes)))
     return out
 
 
