@@ -12,6 +12,7 @@ few simulations per cell, never the sweep.
 from __future__ import annotations
 
 import time
+from collections import Counter
 from dataclasses import dataclass, replace
 
 from . import stepsize, sweep
@@ -36,6 +37,7 @@ class CellCost:
     cell: str
     points: int
     series: int  # arcs × states × input edges: each calibrates its steps once
+    probed: int  # points per series that its probes measure (grid corners)
     per_point: float  # s, mean over the samples
     per_series: float  # s, the step probes of one series
     load: float  # s, the simulator reading the cell's testbench (once per worker)
@@ -55,7 +57,10 @@ class Estimate:
     @property
     def seconds(self) -> float:
         """Estimated wall time of the sweep on ``jobs`` workers."""
-        work = sum(c.points * c.per_point + c.series * c.per_series for c in self.cells)
+        work = sum(
+            (c.points - c.series * c.probed) * c.per_point + c.series * c.per_series
+            for c in self.cells
+        )
         # Any worker may read any cell's testbench, once.
         return work / self.jobs + sum(c.load for c in self.cells)
 
@@ -63,18 +68,9 @@ class Estimate:
 def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
     """Count the points of the chosen cells and time a few of each."""
     plan = sweep.plan(config, cells)
+    per_arc = Counter((p.cell, p.related, p.output) for p in plan.points)
     arcs = tuple(
-        ArcCount(
-            a.cell,
-            a.related,
-            a.output,
-            len(a.states),
-            sum(
-                1
-                for p in plan.points
-                if (p.cell, p.related, p.output) == (a.cell, a.related, a.output)
-            ),
-        )
+        ArcCount(a.cell, a.related, a.output, len(a.states), per_arc[(a.cell, a.related, a.output)])
         for a in plan.arcs
     )
     costs = []
@@ -104,10 +100,15 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         ]
         start = time.perf_counter()
         for p in picks:
-            measure_point(config, deck, p)
+            # With its step given, a grid corner is simulated too, not taken from its probe.
+            measure_point(config, deck, p, step=stepsize.first_step(config, deck, p))
         per_point = (time.perf_counter() - start) / len(picks)
         samples += len(picks)
-        costs.append(CellCost(name, len(points), len(series), per_point, per_series, load))
+        corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
+        corners.add((grid.slew[-1], grid.load[0]))
+        costs.append(
+            CellCost(name, len(points), len(series), len(corners), per_point, per_series, load)
+        )
     return Estimate(arcs, tuple(costs), jobs, samples)
 
 
@@ -128,8 +129,9 @@ def render(est: Estimate) -> str:
     lines.append("")
     lines.append(
         f"{est.points} simulations (one per point; a point whose output edge is sampled too "
-        f"coarsely takes more); estimated {_duration(est.seconds)} on {est.jobs} "
-        f"worker{'s' * (est.jobs > 1)}, from {est.samples} timed sample points"
+        f"coarsely takes more); the sweep takes about {_duration(est.seconds)} on {est.jobs} "
+        f"worker{'s' * (est.jobs > 1)} (start-up and the functional check come on top), "
+        f"estimated from {est.samples} timed sample points"
     )
     return "\n".join(lines)
 

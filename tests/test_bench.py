@@ -95,5 +95,5 @@ def test_plan_option_runs_no_sweep(tmp_path):
         check=False,
     )
     assert done.returncode == 0, done.stderr
-    assert "90 simulations" in done.stdout and "estimated" in done.stdout
+    assert "90 simulations" in done.stdout and "the sweep takes about" in done.stdout
     assert not out.exists()
