@@ -110,23 +110,39 @@ class SharedBackend:
             return
         from PySpice.Spice.NgSpice.Shared import NgSpiceCircuitError
 
-        if len(self._circuits) >= MAX_CIRCUITS:
-            self._ng.exec_command("remcirc")
-            self._circuits.remove(self._loaded)
         self._loaded = None
+        if len(self._circuits) >= MAX_CIRCUITS:
+            # The oldest goes: made current, then removed.
+            self._ng.exec_command(f"setcirc {len(self._circuits)}")
+            self._ng.exec_command("remcirc")
+            self._circuits.pop()
         # The compatibility mode applies to decks read after it is set.
         self._ng.exec_command(
             f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
         )
+        listed = len(self._circuits)
         try:
             self._ng.load_circuit(deck.text)
+            failed = None
         except NgSpiceCircuitError as exc:
-            messages = _messages(self._ng.stdout + self._ng.stderr)
-            raise SimulatorError(
-                f"ngspice cannot read the testbench: {messages}", cell=deck.cell
-            ) from exc
-        self._circuits.insert(0, deck.key)
-        self._loaded = deck.key
+            failed = exc
+        messages = _messages(self._ng.stdout + self._ng.stderr)
+        # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
+        # either would shift the numbering of the others under them.
+        if self._listed() > listed:
+            if failed is None:
+                self._circuits.insert(0, deck.key)
+                self._loaded = deck.key
+                return
+            self._ng.exec_command("remcirc")
+        raise SimulatorError(
+            f"ngspice cannot read the testbench: {messages}", cell=deck.cell
+        ) from failed
+
+    def _listed(self) -> int:
+        """How many circuits ngspice holds (``setcirc`` without a number lists them)."""
+        listing = self._ng.exec_command("setcirc")
+        return len(re.findall(r"^(?:current\s+)?\d+\s", listing, flags=re.M | re.I))
 
     def run(self, request: Request) -> Result:
         from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError

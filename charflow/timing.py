@@ -2,9 +2,9 @@
 
 The transient of a point ends when the output has settled (an ngspice stop condition),
 with a cap for outputs that never do; its first maximum step follows an estimate of the
-output edge (``stepsize``) and is
-refined when too few samples fall on the output edge. Every run of a point is deterministic
-in the point alone, so re-running one arc reproduces its stored values.
+output edge (``stepsize``) and is refined when too few samples fall on the output edge.
+Every run of a point is deterministic in the point alone, so re-running one arc reproduces
+its stored values.
 """
 
 from __future__ import annotations

@@ -11,6 +11,7 @@ from pathlib import Path
 import pytest
 
 from charflow import config, flow, netlist, simulate, stepsize, sweep, timing
+from charflow.errors import SimulatorError
 
 DATA = Path(__file__).parent / "data"
 SMALL_L1 = DATA / "small_l1.toml"
@@ -97,3 +98,17 @@ def test_probe_failure_falls_back_to_the_plain_step(small):
     point = dataclasses.replace(sweep.plan(small, ["NAND2_X1"]).points[0], side=(("A2", False),))
     assert stepsize.model_for(small, deck, point) is None
     assert stepsize.first_step(small, deck, point) == stepsize.plain_step(small, point)
+
+
+def test_a_testbench_that_cannot_be_read_leaves_the_others_in_place(small):
+    cell = small.cell("INV_X1")
+    deck = netlist.build_deck(small, cell)
+    point = sweep.plan(small, ["INV_X1"]).points[4]
+    want = timing.measure_point(small, deck, point)
+    text = deck.text.replace("xdut ", "xbroken cf_in_a cf_out_y no_such_subckt\nxdut ")
+    broken = dataclasses.replace(deck, text=text, key="broken")
+    backend = timing.backend_for(small)
+    with pytest.raises(SimulatorError, match="cannot read the testbench"):
+        backend.load(broken)
+    got = timing.measure_point(small, deck, point)
+    assert (got.delay, got.transition) == (want.delay, want.transition)
