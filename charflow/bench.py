@@ -531,7 +531,8 @@ def run(
         for name in libraries:
             work = base / name.replace(" ", "_")
             work.mkdir()
-            notes = [f"{jobs} busy processes got {free_cores(jobs):.2f} cores' worth just before"]
+            notes = []
+            before = free_cores(jobs)
             if name == "level-1 demo":
                 path = level1_demo(work)
             elif name == "BSIM demo":
@@ -544,7 +545,10 @@ def run(
                     f"{load:.2f} s; the naive way does so for every point"
                 )
             result = bench_library(name, path, jobs, naive_points, work, repeat)
-            notes.append(f"... and {free_cores(jobs):.2f} just after")
+            notes.append(
+                f"{jobs} busy processes got {before:.2f} cores' worth just before, "
+                f"{free_cores(jobs):.2f} just after (no more scaling than that can show)"
+            )
             out.append(replace(result, notes=tuple(notes)))
     return out
 
