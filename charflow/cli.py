@@ -104,12 +104,12 @@ class _Progress:
             self.failed += 1
         if self.bar is not None:
             simulated = max(0, self.seen - self.stored_count - self.failed)
-            self.bar.set_postfix(
-                stored=min(self.seen, self.stored_count),
-                simulated=simulated,
-                failed=self.failed,
-                refresh=False,
-            )
+            counts = {
+                "stored": min(self.seen, self.stored_count),
+                "simulated": simulated,
+                "failed": self.failed,
+            }
+            self.bar.set_postfix(counts, refresh=False)
             self.bar.update(1)
 
     def close(self) -> None:
@@ -136,6 +136,8 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
         raise ConfigError("--scheduler is for --backend dask")
     cells = getattr(args, "cell", None)
     arc = _arc(getattr(args, "arc", None))
+    if arc is not None and (cells is None or len(cells) != 1):
+        raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
     out = args.out or RUNS / cfg.name
     # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:

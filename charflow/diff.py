@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DiffError
+from .errors import DiffError, OutputError
 from .tables import Table
 
 TIMING_QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
@@ -128,7 +128,12 @@ def _text(value: object) -> str:
 
 
 def _read_liberty(text: str, path: Path) -> dict[str, Entry]:
-    from liberty.parser import LibertyParserError, parse_liberty
+    try:
+        from liberty.parser import LibertyParserError, parse_liberty
+    except ImportError as exc:
+        raise DiffError(
+            "reading Liberty needs liberty-parser: pip install 'charflow[diff]'", file=path
+        ) from exc
 
     try:
         lib = parse_liberty(text)
@@ -314,25 +319,44 @@ def write_html(
 
 def _plot(a: Entry, b: Entry) -> str:
     """Old and new values along the table's last axis, and the relative change, as PNG."""
-    from matplotlib.figure import Figure
+    try:
+        from matplotlib.figure import Figure
+    except ImportError as exc:
+        raise OutputError("the HTML report needs matplotlib: pip install 'charflow[diff]'") from exc
+
+    def scaled(name: str) -> tuple[float, str]:  # plots read best in ps and fF
+        return (1e15, "fF") if "capacitance" in name else (1e12, "ps")
 
     fig = Figure(figsize=(10, 3.8), layout="constrained")
     left, right = fig.subplots(1, 2)
     (last_name, last), first = a.axes[-1], a.axes[0] if len(a.axes) > 1 else None
+    xs, xunit = scaled(last_name)
+    ys, yunit = scaled("" if a.unit == "s" else "capacitance")
     old = np.asarray(a.values, float).reshape(-1, len(last))
     new = np.asarray(b.values, float).reshape(-1, len(last))
+    x = np.asarray(last) * xs
     for i in range(old.shape[0]):
         label = f"{first[0]} {eng(first[1][i], 's')}" if first else None
-        (line,) = left.plot(last, old[i], "--", marker="o", markersize=3)
-        left.plot(last, new[i], "-", marker="o", markersize=3, color=line.get_color(), label=label)
-    left.set_xlabel(f"{last_name} (F)" if "capacitance" in last_name else f"{last_name} (s)")
-    left.set_ylabel(f"{a.name.split()[-1]} ({a.unit}); old dashed, new solid")
+        (line,) = left.plot(x, old[i] * ys, "--", marker="o", markersize=3)
+        left.plot(
+            x, new[i] * ys, "-", marker="o", markersize=3, color=line.get_color(), label=label
+        )
+    left.set_xlabel(f"{last_name} ({xunit})")
+    left.set_ylabel(f"{a.name.split()[-1]} ({yunit}); old dashed, new solid")
     if first:
         left.legend(fontsize="small")
     rel = 100 * _relative(a, b).reshape(old.shape)
-    image = right.imshow(rel, aspect="auto", origin="lower", cmap="coolwarm")
-    right.set_xlabel(f"{last_name} index")
-    right.set_ylabel(f"{first[0]} index" if first else "")
+    # Symmetric colour limits keep the sign of a change readable: red up, blue down.
+    limit = float(np.max(np.abs(rel[np.isfinite(rel)]), initial=0.0)) or 1.0
+    image = right.imshow(
+        rel, aspect="auto", origin="lower", cmap="coolwarm", vmin=-limit, vmax=limit
+    )
+    right.set_xticks(range(len(last)), [f"{v:.4g}" for v in x])
+    right.set_xlabel(f"{last_name} ({xunit})")
+    if first:
+        fs, funit = scaled(first[0])
+        right.set_yticks(range(len(first[1])), [f"{v * fs:.4g}" for v in first[1]])
+        right.set_ylabel(f"{first[0]} ({funit})")
     fig.colorbar(image, ax=right, label="relative change (%)")
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=80)

@@ -118,6 +118,16 @@ class Store:
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             self._db = sqlite3.connect(self.path, timeout=30.0)
+        except (OSError, sqlite3.Error) as exc:
+            raise StoreError(f"cannot open the result store: {exc}", file=self.path) from exc
+        try:
+            self._prepare()
+        except BaseException:
+            self._db.close()
+            raise
+
+    def _prepare(self) -> None:
+        try:
             version = self._db.execute("PRAGMA user_version").fetchone()[0]
             if version not in (0, SCHEMA):
                 raise StoreError(
@@ -127,7 +137,9 @@ class Store:
                 )
             mode = self._db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
             if mode.lower() != "wal":
-                raise StoreError(f"cannot switch the store to WAL mode (got {mode})", file=path)
+                raise StoreError(
+                    f"cannot switch the store to WAL mode (got {mode})", file=self.path
+                )
             # In WAL mode a commit survives the process being killed without syncing each one.
             self._db.execute("PRAGMA synchronous=NORMAL")
             with self._db:
