@@ -184,14 +184,18 @@ def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
         f"{len(result.reused)} reused from the store; simulator time {result.sim_seconds:.2f} s "
         f"(all workers), wall time {result.wall_seconds:.2f} s"
     )
-    for reason, tables in result.stale_tables().items():
+    for models, tables in result.stale_tables().items():
         arcs: dict[str, int] = {}
         for table in tables:
             arc = " ".join(table.split()[:2])
             arcs[arc] = arcs.get(arc, 0) + 1
         listed = ", ".join(f"{arc} ({n})" for arc, n in arcs.items())
-        older = "older than the model" if "model file" in reason else "out of date"
-        print(f"{name}: {len(tables)} tables are {older} ({reason}): {listed}")
+        why = (
+            f"older than the model (model file {', '.join(models)} changed)"
+            if models
+            else "out of date (the testbench or the settings changed)"
+        )
+        print(f"{name}: {len(tables)} tables are {why}: {listed}")
     if result.stale and selective:
         print(f"{name}: run without --cell to bring every table up to date")
     if result.left_out:

@@ -53,22 +53,23 @@ class RunResult:
         """Simulator time of this run, summed over workers."""
         return sum(m.sim_seconds for m in self.measurements if m.point not in self.reused)
 
-    def stale_tables(self) -> dict[str, list[str]]:
-        """Per reason, the names (as ``charflow diff`` prints them) of the tables that hold
-        values from stored rows older than the current inputs."""
+    def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
+        """The names (as ``charflow diff`` prints them) of the tables holding values from stored
+        rows older than the current inputs, by the model files that changed since (``()``:
+        the testbench or the settings changed)."""
         from .diff import table_name
 
         arcs = {(a.cell, a.related, a.output): a for a in self.plan.arcs}
-        out: dict[str, dict[str, None]] = {}
+        out: dict[tuple[str, ...], dict[str, None]] = {}
         for s in self.stale:
             p = s.point
             arc = arcs[(p.cell, p.related, p.output)]
             whens = [""] + ([sweep.State(p.side, "").when] if len(arc.states) > 1 else [])
-            names = out.setdefault(s.reason, {})
+            names = out.setdefault(s.models, {})
             for when in whens:
                 for quantity in (delay_quantity(p.output_edge), transition_quantity(p.output_edge)):
                     names[table_name(p.cell, p.related, p.output, when, quantity)] = None
-        return {reason: sorted(names) for reason, names in sorted(out.items())}
+        return {models: sorted(names) for models, names in sorted(out.items())}
 
 
 def verify(
@@ -154,7 +155,7 @@ def characterize(
     ):
         (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
     whole, stale = chosen, {}
-    if store is not None and (cells is not None or arc is not None):
+    if store is not None and cells is not None:
         whole = sweep.plan(config)
         picked = set(chosen.points)
         rest = [p for p in whole.points if p not in picked]

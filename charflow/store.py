@@ -16,6 +16,7 @@ measurements.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import sqlite3
@@ -78,8 +79,13 @@ class Stale:
     """A point served from a row whose inputs are not the current ones."""
 
     point: TimingPoint
-    reason: str  # e.g. "model file vellum90_l1.lib changed"
-    models_changed: bool
+    models: tuple[str, ...]  # names of the model files changed since; () if something else did
+
+    @property
+    def reason(self) -> str:
+        if self.models:
+            return f"model file {', '.join(self.models)} changed"
+        return "the testbench or the settings changed"
 
 
 def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
@@ -237,9 +243,7 @@ def _why(point: TimingPoint, stored: list, current: tuple[tuple[str, str], ...])
     then = {path: digest for path, digest in stored}
     now = dict(current)
     changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
-    if changed:
-        return Stale(point, f"model file {', '.join(changed)} changed", True)
-    return Stale(point, "the testbench or the settings changed", False)
+    return Stale(point, tuple(changed))
 
 
 def _hash(value: object) -> str:
@@ -276,7 +280,7 @@ def _encode(m: Measurement) -> str:
 def _decode(point: TimingPoint, text: str) -> Measurement | None:
     """The measurement a row holds; None when the row does not fit the record as it is now."""
     try:
-        hints = typing.get_type_hints(Measurement)
+        hints = _hints(Measurement)
         data = json.loads(text)
         return Measurement(point=point, **{k: _typed(hints[k], v) for k, v in data.items()})
     except (KeyError, TypeError, ValueError):
@@ -296,6 +300,11 @@ def _typed(hint: object, value: object) -> object:
             return tuple(_typed(args[0], v) for v in value)
         return tuple(_typed(a, v) for a, v in zip(args, value, strict=True))
     if isinstance(hint, type) and dataclasses.is_dataclass(hint):
-        sub = typing.get_type_hints(hint)
+        sub = _hints(hint)
         return hint(**{k: _typed(sub[k], v) for k, v in value.items()})
     return value
+
+
+@functools.cache
+def _hints(cls: type) -> dict[str, object]:
+    return typing.get_type_hints(cls)
