@@ -38,13 +38,20 @@ def map_chunks(
     """Outcomes of every chunk, in completion order, computed on the cluster at ``address``."""
     try:
         from distributed import Client, as_completed
+        from distributed.comm import resolve_address
     except ImportError as exc:
         raise ClusterError(
             "the Dask backend needs dask.distributed: pip install 'charflow[cluster]'"
         ) from exc
+    # A malformed address is refused before a client exists: a client that failed half-way
+    # keeps its event loop and stalls the interpreter's exit.
+    try:
+        resolve_address(address)
+    except (OSError, ValueError) as exc:
+        raise ClusterError(f"not a Dask scheduler address: {address} ({exc})") from exc
     try:
         client = Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
+    except (OSError, TimeoutError) as exc:
         raise ClusterError(f"cannot reach the Dask scheduler at {address}: {exc}") from exc
     with client:
         # The chunks are sorted longest first; a higher priority runs earlier.

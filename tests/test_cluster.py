@@ -76,3 +76,9 @@ def test_an_unreachable_scheduler_is_a_cluster_error(monkeypatch) -> None:
     # Port 9 (discard) on the loopback address: nothing listens there.
     with pytest.raises(ClusterError, match="cannot reach the Dask scheduler"):
         flow.characterize(cfg, cells=["INV_X1"], scheduler="tcp://127.0.0.1:9")
+
+
+def test_a_malformed_scheduler_address_is_refused_at_once() -> None:
+    cfg = config.load(SMALL)
+    with pytest.raises(ClusterError, match="not a Dask scheduler address: foo bar"):
+        flow.characterize(cfg, cells=["INV_X1"], scheduler="foo bar")
