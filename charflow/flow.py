@@ -36,7 +36,7 @@ class RunResult:
     wall_seconds: float
     reused: frozenset[sweep.TimingPoint] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
-    left_out: tuple[str, ...] = ()  # cells with points never stored, so not tabulated
+    left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
 
     @property
     def simulated(self) -> int:
@@ -170,10 +170,8 @@ def characterize(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
-    order = {p: i for i, p in enumerate(the_plan.points)}
-    measurements = sorted(
-        (m for m in measurements if m.point in order), key=lambda m: order[m.point]
-    )
+    order = {p: i for i, p in enumerate(whole.points)}
+    measurements.sort(key=lambda m: order[m.point])
     failures.sort(key=lambda f: order[f.point])
     tables = () if failures else tabulate(config, the_plan, measurements)
     return RunResult(
@@ -182,8 +180,8 @@ def characterize(
         tuple(failures),
         tables,
         time.perf_counter() - start,
-        frozenset(p for p in reused if p in order),
-        tuple(s for p, s in stale.items() if p in order),
+        frozenset(reused),
+        tuple(s for p, s in stale.items() if p.cell not in left_out),
         left_out,
     )
 
