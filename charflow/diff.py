@@ -2,9 +2,10 @@
 
 Either file may be Liberty, read back with the independent ``liberty-parser`` package, or
 charflow's JSON; both are read into SI units, so a Liberty file compares with a JSON file too.
-Tables are matched by name: cell, arc (related pin -> output pin), ``when`` and quantity; pin
-capacitances are compared as one-value tables. The change of a table is its largest relative
-change over its points.
+Tables are matched by name: cell, arc (related pin -> pin), the arc's kind when it is not
+combinational (clock, clear, preset, setup_rising, ...), ``when`` and quantity; pin
+capacitances and minimum pulse widths are compared as one-value tables. The change of a table
+is its largest relative change over its points.
 """
 
 from __future__ import annotations
@@ -20,11 +21,13 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DiffError, OutputError
+from .errors import DiffError
 from .tables import Table
 
 TIMING_QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
+CONSTRAINT_QUANTITIES = ("rise_constraint", "fall_constraint")
 PIN_QUANTITIES = ("capacitance", "rise_capacitance", "fall_capacitance")
+PULSE_QUANTITIES = ("min_pulse_width_high", "min_pulse_width_low")
 # Liberty holds 7 significant digits: a Liberty file and its JSON twin differ by up to 5e-7.
 TOLERANCE = 1e-6
 # A point's change is taken relative to its old value, but never to less than this fraction of
@@ -71,9 +74,13 @@ class Comparison:
         return bool(self.changed or self.appeared or self.vanished or self.reshaped)
 
 
-def table_name(cell: str, related: str, output: str, when: str, quantity: str) -> str:
-    """How charflow names a timing table: ``NAND2_X1 A1->Y when A2 cell_rise``."""
-    return f"{cell} {related}->{output}" + (f" when {when}" if when else "") + f" {quantity}"
+def table_name(
+    cell: str, related: str, pin: str, when: str, quantity: str, kind: str = "combinational"
+) -> str:
+    """How charflow names a table: ``NAND2_X1 A1->Y when A2 cell_rise``, ``DFF_X1 CK->Q clock
+    cell_rise``, ``DFF_X1 CK->D setup_rising rise_constraint``."""
+    name = f"{cell} {related}->{pin}" + ("" if kind == "combinational" else f" {kind}")
+    return name + (f" when {when}" if when else "") + f" {quantity}"
 
 
 def pin_name(cell: str, pin: str, quantity: str) -> str:
@@ -105,18 +112,23 @@ def _read_json(text: str, path: Path) -> dict[str, Entry]:
                 for quantity, value in zip(PIN_QUANTITIES, caps, strict=True):
                     name = pin_name(cell["name"], pin["pin"], quantity)
                     entries[name] = Entry(name, (), np.array(float(value)), "F")
+            for pulse in cell.get("min_pulse_widths", []):
+                name = pin_name(cell["name"], pulse["pin"], f"min_pulse_width_{pulse['level']}")
+                entries[name] = Entry(name, (), np.array(float(pulse["width_s"])), "s")
+            groups = []
             for arc in cell["arcs"]:
-                groups = [("", arc["tables"])]
+                where = (arc["related_pin"], arc["output"], arc.get("kind", "combinational"))
+                groups.append((*where, "", arc["tables"]))
                 if len(arc["states"]) > 1:
-                    groups += [(st["when"], st["tables"]) for st in arc["states"]]
-                for when, tables in groups:
-                    for data in tables:
-                        t = Table.from_dict(data)
-                        name = table_name(
-                            cell["name"], arc["related_pin"], arc["output"], when, t.quantity
-                        )
-                        axes = tuple((a.name, a.values) for a in t.axes)
-                        entries[name] = Entry(name, axes, np.asarray(t.values), t.unit)
+                    groups += [(*where, st["when"], st["tables"]) for st in arc["states"]]
+            for c in cell.get("constraints", []):
+                groups.append((c["related_pin"], c["pin"], c["timing_type"], "", c["tables"]))
+            for related, pin, kind, when, tables in groups:
+                for data in tables:
+                    t = Table.from_dict(data)
+                    name = table_name(cell["name"], related, pin, when, t.quantity, kind)
+                    axes = tuple((a.name, a.values) for a in t.axes)
+                    entries[name] = Entry(name, axes, np.asarray(t.values), t.unit)
     except (ValueError, KeyError, TypeError) as exc:
         raise DiffError(f"not a charflow JSON library: {exc!r}", file=path) from exc
     return entries
@@ -152,19 +164,25 @@ def _read_liberty(text: str, path: Path) -> dict[str, Entry]:
             cname = cell.args[0]
             for pin in cell.get_groups("pin"):
                 pname = pin.args[0]
-                for quantity in PIN_QUANTITIES:
-                    if pin.get(quantity) is not None:
-                        name = pin_name(cname, pname, quantity)
-                        value = float(pin[quantity]) * cap_scale
-                        entries[name] = Entry(name, (), np.array(value), "F")
+                for quantities, scale, unit in (
+                    (PIN_QUANTITIES, cap_scale, "F"),
+                    (PULSE_QUANTITIES, time_scale, "s"),
+                ):
+                    for quantity in quantities:
+                        if pin.get(quantity) is not None:
+                            name = pin_name(cname, pname, quantity)
+                            value = float(pin[quantity]) * scale
+                            entries[name] = Entry(name, (), np.array(value), unit)
                 for timing in pin.get_groups("timing"):
                     related = _text(timing["related_pin"])
                     when = _text(timing.get("when", ""))
-                    for quantity in TIMING_QUANTITIES:
+                    kind = _text(timing.get("timing_type", "combinational"))
+                    kind = "clock" if kind in ("rising_edge", "falling_edge") else kind
+                    for quantity in TIMING_QUANTITIES + CONSTRAINT_QUANTITIES:
                         group = timing.get_groups(quantity)
                         if not group:
                             continue
-                        name = table_name(cname, related, pname, when, quantity)
+                        name = table_name(cname, related, pname, when, quantity, kind)
                         entries[name] = _liberty_table(
                             name, group[0], templates, time_scale, cap_scale
                         )
@@ -310,19 +328,27 @@ def write_html(
     if plotted:
         parts.append(f"<h2>The {len(plotted)} tables that shifted most</h2>")
     for ch in plotted:
-        png = _plot(old[ch.name], new[ch.name])
-        parts.append(f"<h3>{esc(ch.name)}: {100 * ch.relative:+.3f} %</h3>")
+        a, b = old[ch.name], new[ch.name]
+        title = f"{ch.name}: {100 * ch.relative:+.3f} %"
+        if len(a.axes) > 2:
+            third = ", ".join(f"{n} {eng(v[0], 'F')}" for n, v in a.axes[2:])
+            title += f" (shown at {third})"
+            a, b = _first_slice(a), _first_slice(b)
+        png = _plot(a, b)
+        parts.append(f"<h3>{esc(title)}</h3>")
         parts.append(f'<img alt="{esc(ch.name)}" src="data:image/png;base64,{png}">')
     parts.append("</body></html>")
     write_atomic(Path(path), "\n".join(parts) + "\n")
 
 
+def _first_slice(e: Entry) -> Entry:
+    """A table of 3 axes cut at the first value of its third axis (the related load)."""
+    return Entry(e.name, e.axes[:2], np.asarray(e.values)[..., 0], e.unit)
+
+
 def _plot(a: Entry, b: Entry) -> str:
     """Old and new values along the table's last axis, and the relative change, as PNG."""
-    try:
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise OutputError("the HTML report needs matplotlib: pip install 'charflow[diff]'") from exc
+    from matplotlib.figure import Figure
 
     def scaled(name: str) -> tuple[float, str]:  # plots read best in ps and fF
         return (1e15, "fF") if "capacitance" in name else (1e12, "ps")

@@ -22,6 +22,7 @@ from . import __version__, liberty, sweep
 from .config import LibraryConfig
 from .errors import ConfigError, OutputError
 from .netlist import build_deck
+from .sequential import SearchResult
 from .store import Stale, Store, keyring
 from .tabulate import CellTables, delay_quantity, tabulate, transition_quantity
 from .timing import Failure, Measurement, check_function
@@ -30,11 +31,11 @@ from .timing import Failure, Measurement, check_function
 @dataclass(frozen=True, slots=True)
 class RunResult:
     plan: sweep.Plan
-    measurements: tuple[Measurement, ...]
+    measurements: tuple[Measurement | SearchResult, ...]
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
-    reused: frozenset[sweep.TimingPoint] = frozenset()  # from the store, not simulated now
+    reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
 
@@ -57,19 +58,32 @@ class RunResult:
         """The names (as ``charflow diff`` prints them) of the tables holding values from stored
         rows older than the current inputs, by the model files that changed since (``()``:
         the testbench or the settings changed)."""
-        from .diff import table_name
-
-        arcs = {(a.cell, a.related, a.output): a for a in self.plan.arcs}
         out: dict[tuple[str, ...], dict[str, None]] = {}
         for s in self.stale:
-            p = s.point
-            arc = arcs[(p.cell, p.related, p.output)]
-            whens = [""] + ([sweep.State(p.side, "").when] if len(arc.states) > 1 else [])
             names = out.setdefault(s.models, {})
-            for when in whens:
-                for quantity in (delay_quantity(p.output_edge), transition_quantity(p.output_edge)):
-                    names[table_name(p.cell, p.related, p.output, when, quantity)] = None
+            names.update(dict.fromkeys(_tables_of(self.plan, s.point)))
         return {models: sorted(names) for models, names in sorted(out.items())}
+
+
+def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
+    """The tables (or pin values) of a library that a point's result goes into."""
+    from .diff import pin_name, table_name
+
+    if isinstance(p, sweep.PulsePoint):
+        return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
+    if isinstance(p, sweep.ConstraintPoint):
+        kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
+        quantity = f"{p.data_edge}_constraint"
+        return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
+    arc = next(
+        a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
+    )
+    whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
+    return [
+        table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
+        for when in whens
+        for quantity in (delay_quantity(p.output_edge), transition_quantity(p.output_edge))
+    ]
 
 
 def verify(
@@ -99,7 +113,7 @@ def select(
     if cells is None or len(cells) != 1:
         raise ConfigError("an arc is chosen within one cell: give exactly one cell with it")
     related, output = arc
-    arcs = tuple(a for a in plan.arcs if (a.related, a.output) == (related, output))
+    arcs = tuple(a for a in plan.arcs if (a.related, a.output) == arc)
     if not arcs:
         have = ", ".join(f"{a.related}:{a.output}" for a in plan.arcs)
         raise ConfigError(
@@ -107,7 +121,10 @@ def select(
             cell=cells[0],
             arc=f"{related}:{output}",
         )
-    points = tuple(p for p in plan.points if (p.related, p.output) == (related, output))
+    # Setup, hold and pulse-width searches belong to no arc: they come with the whole cell.
+    points = tuple(
+        p for p in plan.points if isinstance(p, sweep.TimingPoint) and (p.related, p.output) == arc
+    )
     return sweep.Plan(arcs, points)
 
 
@@ -135,9 +152,9 @@ def characterize(
     verify(config, cells, store=store)
     if on_start is not None:
         on_start(len(chosen.points))
-    measurements: list[Measurement] = []
+    measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
-    reused: set[sweep.TimingPoint] = set()
+    reused: set[sweep.Point] = set()
 
     def stored(found: tuple) -> None:
         reused.update(m.point for m in found)
@@ -153,7 +170,7 @@ def characterize(
         on_stored=stored,
         scheduler=scheduler,
     ):
-        (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
+        (failures if isinstance(outcome, Failure) else measurements).append(outcome)
     whole, stale = chosen, {}
     if store is not None and cells is not None:
         whole = sweep.plan(config)
@@ -189,16 +206,25 @@ def characterize(
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     """Tables in SI units with the measurement details behind every point."""
 
-    def point_record(m: Measurement) -> dict:
+    def point_record(m: Measurement | SearchResult) -> dict:
         p = m.point
+        if isinstance(m, SearchResult):
+            return {
+                "search": p.label,
+                "value_s": m.value,
+                "upper_bound": m.bound,
+                "simulations": m.runs,
+            }
         return {
             "related_pin": p.related,
             "output": p.output,
-            "when": sweep.State(p.side, "").when,
+            "when": sweep.State(p.state_side, "").when,
             "input_edge": p.input_edge,
             "output_edge": p.output_edge,
+            "kind": p.kind,
             "slew_s": p.slew,
             "load_F": p.load,
+            "other_load_F": p.other_load,
             "delay_s": m.delay,
             "transition_s": m.transition,
             "input_charge_C": m.input_charge,
@@ -214,6 +240,8 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                 {
                     "related_pin": arc.arc.related,
                     "output": arc.arc.output,
+                    "kind": arc.arc.kind,
+                    "related_output": arc.arc.other,
                     "timing_sense": arc.arc.sense,
                     "tables": [t.to_dict() for t in arc.default],
                     "states": [
@@ -236,6 +264,19 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                 ],
                 "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
                 "arcs": arcs,
+                "constraints": [
+                    {
+                        "pin": c.pin,
+                        "related_pin": c.related,
+                        "timing_type": c.timing_type,
+                        "tables": [t.to_dict() for t in c.tables],
+                    }
+                    for c in cell.constraints
+                ],
+                "min_pulse_widths": [
+                    {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+                    for p in cell.pulses
+                ],
             }
         )
     return {
@@ -257,13 +298,19 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     }
 
 
-def write_atomic(path: Path, text: str) -> None:
+OUTPUT_MODE = 0o644
+
+
+def write_atomic(path: Path, text: str | bytes) -> None:
     """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
-    path.parent.mkdir(parents=True, exist_ok=True)
+    binary = isinstance(text, bytes)
     try:
+        path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
             fh.write(text)
+        # mkstemp makes the file private; outputs are ordinary files.
+        os.chmod(tmp, OUTPUT_MODE)
         os.replace(tmp, path)
     except OSError as exc:
         raise OutputError(f"cannot write output: {exc}", file=path) from exc

@@ -30,10 +30,13 @@ from . import __version__
 from .config import LibraryConfig
 from .errors import StoreError
 from .netlist import Deck, model_files
-from .sweep import TimingPoint
+from .sequential import SearchResult
+from .sweep import Point
 from .timing import Measurement, backend_for
 
 FILE_NAME = "store.sqlite"
+# The result records a row may hold, by name; any point type and any of these records work.
+RECORDS: dict[str, type] = {cls.__name__: cls for cls in (Measurement, SearchResult)}
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
 
@@ -45,7 +48,8 @@ CREATE TABLE IF NOT EXISTS point (
     cell TEXT NOT NULL,
     label TEXT NOT NULL,        -- the point in words, for people reading the database
     models TEXT NOT NULL,       -- JSON [[path, sha256], ...] of the model files read
-    measurement TEXT NOT NULL   -- JSON of the Measurement's fields but its point
+    record TEXT NOT NULL,       -- the result's record type: Measurement, SearchResult
+    result TEXT NOT NULL        -- JSON of the record's fields but its point
 );
 CREATE INDEX IF NOT EXISTS point_slot ON point (slot);
 CREATE TABLE IF NOT EXISTS verified (key TEXT PRIMARY KEY);
@@ -67,10 +71,10 @@ class Keyring:
     library: str
     cells: dict[str, CellInputs]
 
-    def key(self, point: TimingPoint) -> str:
+    def key(self, point: Point) -> str:
         return _hash([self.cells[point.cell].digest, _point_fields(point)])
 
-    def slot(self, point: TimingPoint) -> str:
+    def slot(self, point: Point) -> str:
         return _hash([self.library, _point_fields(point)])
 
 
@@ -78,7 +82,7 @@ class Keyring:
 class Stale:
     """A point served from a row whose inputs are not the current ones."""
 
-    point: TimingPoint
+    point: Point
     models: tuple[str, ...]  # names of the model files changed since; () if something else did
 
     @property
@@ -98,8 +102,8 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         "thresholds": dataclasses.asdict(config.thresholds),
         "simulation": sim,
         "vdd": config.process.vdd,
-        # A schema change of the record (new fields) makes every stored row stale.
-        "measurement": [f.name for f in dataclasses.fields(Measurement)],
+        # A schema change of a record (new fields) makes every stored row stale.
+        "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
     digests: dict[Path, str] = {}
     cells = {}
@@ -109,11 +113,20 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
             if path not in digests:
                 digests[path] = _file_digest(path)
         models = tuple((str(p), digests[p]) for p in files)
-        # The transient's stop-time cap follows the cell grid's largest slew (timing.py).
-        window = max(config.cell(name).grid.slew)
-        digest = _hash([deck.key, models, simulator, settings, window])
+        digest = _hash([deck.key, models, simulator, settings, _cell_context(config, name)])
         cells[name] = CellInputs(digest, models)
     return Keyring(config.name, cells)
+
+
+def _cell_context(config: LibraryConfig, name: str) -> object:
+    """What a point reads from its cell's description besides the testbench and itself."""
+    cell = config.cell(name)
+    if cell.flop is None:
+        # A combinational transient is capped by the grid's largest slew (timing.py), and
+        # nothing else of the grid: growing the grid keeps the points already stored.
+        return max(cell.grid.slew)
+    # Flip-flop benches also use the grid's extremes and the flop's description (sequential.py).
+    return [_plain(cell.grid), repr(cell.flop)]
 
 
 class Store:
@@ -166,38 +179,37 @@ class Store:
     def count(self) -> int:
         return self._query("SELECT count(*) FROM point").fetchone()[0]
 
-    def lookup(
-        self, ring: Keyring, points: Iterable[TimingPoint]
-    ) -> dict[TimingPoint, Measurement]:
-        """The stored measurements of those ``points`` whose key is stored."""
+    def lookup(self, ring: Keyring, points: Iterable[Point]) -> dict[Point, object]:
+        """The stored results of those ``points`` whose key is stored."""
         by_key = {ring.key(p): p for p in points}
         found = {}
-        for key, text in self._rows("SELECT key, measurement FROM point WHERE key IN", by_key):
-            m = _decode(by_key[key], text)
+        query = "SELECT key, record, result FROM point WHERE key IN"
+        for key, record, text in self._rows(query, by_key):
+            m = _decode(record, by_key[key], text)
             if m is not None:
                 found[m.point] = m
         return found
 
     def latest(
-        self, ring: Keyring, points: Iterable[TimingPoint]
-    ) -> tuple[dict[TimingPoint, Measurement], dict[TimingPoint, Stale]]:
-        """Every point's measurement, from its current key or else from the newest row of its
-        slot; the second mapping says which came from older inputs and why."""
+        self, ring: Keyring, points: Iterable[Point]
+    ) -> tuple[dict[Point, object], dict[Point, Stale]]:
+        """Every point's result, from its current key or else from the newest row of its slot;
+        the second mapping says which came from older inputs and why."""
         points = list(points)
         found = self.lookup(ring, points)
         by_slot = {ring.slot(p): p for p in points if p not in found}
         stale = {}
-        query = "SELECT slot, models, measurement FROM point WHERE slot IN"
-        for slot, models, text in self._rows(query, by_slot, order="rowid"):
+        query = "SELECT slot, models, record, result FROM point WHERE slot IN"
+        for slot, models, record, text in self._rows(query, by_slot, order="rowid"):
             point = by_slot[slot]
-            m = _decode(point, text)
+            m = _decode(record, point, text)
             if m is not None:  # newer rows come later and replace older ones
                 found[point] = m
                 stale[point] = _why(point, json.loads(models), ring.cells[point.cell].models)
         return found, stale
 
-    def put(self, ring: Keyring, m: Measurement) -> None:
-        """Store one measurement, committed at once."""
+    def put(self, ring: Keyring, m: object) -> None:
+        """Store one result (a record of ``RECORDS``), committed at once."""
         p = m.point
         row = (
             ring.key(p),
@@ -206,9 +218,10 @@ class Store:
             p.cell,
             p.label,
             json.dumps(ring.cells[p.cell].models),
+            type(m).__name__,
             _encode(m),
         )
-        self._write("INSERT OR REPLACE INTO point VALUES (?, ?, ?, ?, ?, ?, ?)", row)
+        self._write("INSERT OR REPLACE INTO point VALUES (?, ?, ?, ?, ?, ?, ?, ?)", row)
 
     def verified(self, ring: Keyring, cell: str) -> bool:
         """Whether the cell's function check passed with the current inputs."""
@@ -239,7 +252,7 @@ class Store:
             raise StoreError(f"cannot write the result store: {exc}", file=self.path) from exc
 
 
-def _why(point: TimingPoint, stored: list, current: tuple[tuple[str, str], ...]) -> Stale:
+def _why(point: Point, stored: list, current: tuple[tuple[str, str], ...]) -> Stale:
     then = {path: digest for path, digest in stored}
     now = dict(current)
     changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
@@ -257,9 +270,9 @@ def _file_digest(path: Path) -> str:
         return "missing"
 
 
-def _point_fields(point: TimingPoint) -> list:
+def _point_fields(point: Point) -> list:
     # json writes floats with repr, which round-trips: the key holds the exact slew and load.
-    return [_plain(getattr(point, f.name)) for f in dataclasses.fields(point)]
+    return [type(point).__name__, _plain(point)]
 
 
 def _plain(value: object) -> object:
@@ -271,18 +284,19 @@ def _plain(value: object) -> object:
     return value
 
 
-def _encode(m: Measurement) -> str:
+def _encode(m: object) -> str:
     fields = {f.name: _plain(getattr(m, f.name)) for f in dataclasses.fields(m)}
     del fields["point"]  # the key already names it
     return json.dumps(fields)
 
 
-def _decode(point: TimingPoint, text: str) -> Measurement | None:
-    """The measurement a row holds; None when the row does not fit the record as it is now."""
+def _decode(record: str, point: Point, text: str) -> object | None:
+    """The result a row holds; None when the row does not fit its record as it is now."""
     try:
-        hints = _hints(Measurement)
+        cls = RECORDS[record]
+        hints = _hints(cls)
         data = json.loads(text)
-        return Measurement(point=point, **{k: _typed(hints[k], v) for k, v in data.items()})
+        return cls(point=point, **{k: _typed(hints[k], v) for k, v in data.items()})
     except (KeyError, TypeError, ValueError):
         return None
 

@@ -17,7 +17,7 @@ from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, transition
-from .netlist import Deck
+from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
 
@@ -57,20 +57,51 @@ def backend_for(config: LibraryConfig):
     return _BACKENDS[key]
 
 
-def _alters(
-    deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float
+# Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters).
+GRID_POINTS = 40
+
+
+def breakpoints(start: float, stop: float, spacing: float) -> str:
+    """A PWL vector for the breakpoint source: corners every ``spacing`` over [start, stop]."""
+    n = int(min(GRID_POINTS, max(2, (stop - start) / spacing)))
+    times = np.linspace(start, stop, n)
+    return "[ 0 0 " + " ".join(f"{x:.9g} 0" for x in times if x > 0) + " 1 0 ]"
+
+
+PARKED_GRID = "[ 0 0 1 0 ]"
+
+
+def alters(
+    deck: Deck,
+    cell: CellSpec,
+    values: dict[str, str],
+    loads: dict[str, float],
+    grid: str = PARKED_GRID,
 ) -> tuple[str, ...]:
+    """``alter`` commands setting every input's PULSE, every output's load (unlisted outputs
+    stay parked at a negligible load) and the breakpoint source."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
-    commands += [f"alter {deck.load_cap(o.pin)} = {load:.12g}" for o in cell.outputs]
+    commands.append(f"alter @vgrid[pwl] = {grid}")
+    commands += [
+        f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
+    ]
     return tuple(commands)
 
 
-def _simulate(backend, request: Request) -> tuple[Result, int]:
+def point_loads(cell: CellSpec, point: TimingPoint) -> dict[str, float]:
+    loads = {point.output: point.load}
+    if point.other_load is not None:
+        other = next(o.pin for o in cell.outputs if o.pin != point.output)
+        loads[other] = point.other_load
+    return loads
+
+
+def simulate(backend, request: Request) -> tuple[Result, int]:
     """Run with the fallback ladder; return the result and the number of attempts."""
     errors = []
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
-            return backend.run(replace(request, options=options)), attempt
+            return backend.run(replace(request, options=request.options + options)), attempt
         except SimulatorError as exc:
             errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
     raise SimulatorError(
@@ -86,7 +117,7 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    alters = _alters(deck, cell, vdd, values, point.load)
+    commands = alters(deck, cell, values, point_loads(cell, point))
     out_node = deck.output_node(point.output)
     in_node = deck.input_node(point.related)
     in_branch = f"{deck.input_source(point.related)}#branch"
@@ -111,12 +142,12 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     for refinement in range(REFINEMENTS + 1):
         request = Request(
             deck,
-            alters,
+            commands,
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
             vectors,
             stop_when=stop_when,
         )
-        result, attempts = _simulate(backend, request)
+        result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
@@ -154,28 +185,43 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     )
 
 
-def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list[Measurement | Failure]:
+def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
-    out: list[Measurement | Failure] = []
+    from . import sequential
+    from .sweep import ConstraintPoint, PulsePoint
+
+    out: list = []
     for point in points:
         try:
-            out.append(measure_point(config, deck, point))
+            if isinstance(point, ConstraintPoint):
+                out.append(sequential.measure_constraint(config, deck, point))
+            elif isinstance(point, PulsePoint):
+                out.append(sequential.measure_pulse(config, deck, point))
+            elif point.kind != "combinational":
+                out.append(sequential.measure_clocked(config, deck, point))
+            else:
+                out.append(measure_point(config, deck, point))
         except (MeasurementError, SimulatorError) as exc:
             out.append(Failure(point, exc.reason))
     return out
 
 
 def check_function(config: LibraryConfig, deck: Deck) -> None:
-    """Every input vector gives the declared output levels at DC; raise naming the vector."""
+    """Every input vector gives the declared output levels at DC; raise naming the vector.
+    A flip-flop is checked by clocking every data vector in from either stored value."""
     cell = config.cell(deck.cell)
+    if cell.flop is not None:
+        from .sequential import check_flop
+
+        return check_flop(config, deck)
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)
     for bits in itertools.product((False, True), repeat=len(cell.inputs)):
         assign = dict(zip(cell.inputs, bits, strict=True))
         values = {p: stimulus.constant(vdd if b else 0.0) for p, b in assign.items()}
-        request = Request(deck, _alters(deck, cell, vdd, values, 0.0), "op", outputs)
-        result, _ = _simulate(backend, request)
+        request = Request(deck, alters(deck, cell, values, {}), "op", outputs)
+        result, _ = simulate(backend, request)
         vector = " ".join(f"{p}={int(b)}" for p, b in assign.items())
         for spec, node in zip(cell.outputs, outputs, strict=True):
             level = float(result.vectors[node][-1])

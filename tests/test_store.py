@@ -133,7 +133,7 @@ def test_a_row_that_no_longer_fits_the_record_is_a_miss(tmp_path: Path) -> None:
         store.put(ring, Measurement(point, 1e-11, 2e-11, 1e-15, 1, 0.001, 1e-9))
     db = sqlite3.connect(tmp_path / FILE_NAME)
     with db:
-        db.execute("UPDATE point SET measurement = '{\"delay\": 1e-11}'")
+        db.execute("UPDATE point SET result = '{\"delay\": 1e-11}'")
     db.close()
     with Store(tmp_path / FILE_NAME) as store:
         assert store.lookup(ring, [point]) == {}
