@@ -11,7 +11,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, config, diff, fidelity, flow, gridstudy
+from . import __version__, bench, config, diff, estimate, fidelity, flow, gridstudy, sweep
 from .errors import (
     CharflowError,
     ConfigError,
@@ -47,6 +47,11 @@ def _parser() -> argparse.ArgumentParser:
         "--arc",
         metavar="FROM:TO",
         help="with one --cell: only the arc from input FROM to output TO",
+    )
+    run.add_argument(
+        "--plan",
+        action="store_true",
+        help="print the simulations per cell and arc and an estimated time; run no sweep",
     )
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
@@ -101,6 +106,32 @@ def _parser() -> argparse.ArgumentParser:
         help=f"relative change below which a table counts as unchanged ({diff.TOLERANCE:g})",
     )
     compare.add_argument("--html", type=Path, help="also write an HTML report with plots here")
+
+    bench_cmd = sub.add_parser(
+        "bench", help="time charflow against the naive way and the simulator"
+    )
+    bench_cmd.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
+    bench_cmd.add_argument(
+        "--library",
+        action="append",
+        choices=bench.LIBRARIES,
+        help="only this library (repeatable; default: all)",
+    )
+    bench_cmd.add_argument(
+        "--naive-points",
+        type=int,
+        default=bench.NAIVE_POINTS,
+        help="points the naive way runs per library",
+    )
+    bench_cmd.add_argument(
+        "--params",
+        type=int,
+        default=bench.KIT_PARAMS,
+        help=".param lines in the foundry-style model file",
+    )
+    bench_cmd.add_argument(
+        "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
+    )
     return parser
 
 
@@ -201,9 +232,12 @@ def _arc(text: str | None) -> tuple[str, str] | None:
 
 
 def _run(cfg_path: Path, args: argparse.Namespace) -> int:
-    cfg = config.load(cfg_path)
-    if args.jobs is not None and args.jobs < 1:
-        raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    if getattr(args, "plan", False):
+        cfg = _load(cfg_path, args)
+        jobs = args.jobs or sweep.default_jobs()
+        for lib in cfg.libraries():
+            print(estimate.render(estimate.estimate(lib, getattr(args, "cell", None), jobs)))
+        return EXIT_OK
     if args.backend == "dask" and not args.scheduler:
         raise ConfigError("--backend dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
     if args.scheduler and args.backend != "dask":
@@ -212,12 +246,7 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     arc = _arc(getattr(args, "arc", None))
     if arc is not None and (cells is None or len(cells) != 1):
         raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
-    out = args.out or RUNS / cfg.name
-    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
+    cfg, out = _setup(cfg_path, args)
     code = EXIT_OK
     with Store(out / FILE_NAME) as store:
         for lib in cfg.libraries():
@@ -293,11 +322,17 @@ def _diff(args: argparse.Namespace) -> int:
     return EXIT_DIFFERENT if comparison.differs else EXIT_OK
 
 
-def _setup(args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = config.load(args.config)
+def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
+    cfg = config.load(cfg_path)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    return cfg
+
+
+def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = _load(cfg_path, args)
     out = args.out or RUNS / cfg.name
+    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -330,7 +365,7 @@ def _check_fidelity(
 
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     with Store(out / FILE_NAME) as store:
         progress = _Progress(args.quiet)
         try:
@@ -359,7 +394,7 @@ def _fidelity(args: argparse.Namespace) -> int:
 
 
 def _grid_study(args: argparse.Namespace) -> int:
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     progress = _Progress(args.quiet)
 
     def phase(total: int) -> None:  # two sweeps: a bar for each
@@ -387,6 +422,26 @@ def _grid_study(args: argparse.Namespace) -> int:
     return EXIT_FAILED_POINTS if any(c.failures for c in study.candidates) else EXIT_OK
 
 
+def _bench(args: argparse.Namespace) -> int:
+    for option, value, least in (
+        ("--jobs", args.jobs, 1),
+        ("--naive-points", args.naive_points, 1),
+        ("--params", args.params, 2),
+        ("--repeat", args.repeat, 1),
+    ):
+        if value is not None and value < least:
+            raise ConfigError(f"{option} must be at least {least}, got {value}")
+    results = bench.run(
+        jobs=args.jobs,
+        naive_points=args.naive_points,
+        params=args.params,
+        repeat=args.repeat,
+        libraries=tuple(args.library or bench.LIBRARIES),
+    )
+    print(bench.render(results))
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
@@ -398,6 +453,8 @@ def main(argv: list[str] | None = None) -> int:
             return _fidelity(args)
         if args.command == "grid-study":
             return _grid_study(args)
+        if args.command == "bench":
+            return _bench(args)
         return _run(DEMO_CONFIG, args)
     except (ConfigError, NetlistError, FunctionalMismatchError, DiffError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)
