@@ -261,18 +261,17 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
     name = config_mod.load(config_path).name
     doc = json.loads((out / f"{name}.json").read_text(encoding="utf-8"))
     child = json.loads((out / STAGES).read_text(encoding="utf-8"))
-    stages = child["stages"]
     records = [r for cell in doc["points"].values() for r in cell]
     stats = RunStats(
         label=f"charflow, {jobs} worker{'s' * (jobs > 1)}",
         workers=jobs,
         points=len(records),
-        simulations=sum(r["simulations"] for r in records),
+        simulations=child["simulations"],
         wall=wall,
         analysis=child["analysis"],
         cpu=usage.ru_utime + usage.ru_stime,
         peak_rss=usage.ru_maxrss * 1024.0,  # Linux reports kilobytes
-        stages=tuple(stages.items()),
+        stages=tuple(child["stages"].items()),
     )
     return stats, doc
 
@@ -281,9 +280,8 @@ STAGES = "bench_stages.json"
 
 
 def _child(argv: list[str]) -> int:
-    """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time and
-    the simulator time written to DIR/bench_stages.json (seconds; "start" runs from the
-    parent's launch)."""
+    """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time
+    written to DIR/bench_stages.json (seconds; "start" runs from the parent's launch)."""
     from . import flow
 
     path, jobs, out, begun = Path(argv[0]), int(argv[1]), Path(argv[2]), float(argv[3])
@@ -309,9 +307,10 @@ def _child(argv: list[str]) -> int:
     stages["tables"] = done - last
     flow.write(cfg, result, out)
     stages["write"] = time.perf_counter() - done
-    # The simulator time comes from the run itself: the JSON holds nothing that varies by run.
-    child = {"stages": stages, "analysis": result.sim_seconds}
-    (out / STAGES).write_text(json.dumps(child), encoding="utf-8")
+    # The library's JSON carries no timings (a re-run from the store must reproduce it byte
+    # for byte): the simulator's time travels beside the stages.
+    totals = {"simulations": result.simulations, "analysis": result.sim_seconds}
+    (out / STAGES).write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
     return 1 if result.failures else 0
 
 

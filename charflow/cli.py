@@ -95,18 +95,6 @@ def _parser() -> argparse.ArgumentParser:
         help=f"points per axis of the reference grid (default {gridstudy.REFERENCE_POINTS})",
     )
 
-    compare = sub.add_parser("diff", help="compare two libraries (Liberty or JSON) table by table")
-    compare.add_argument("old", type=Path)
-    compare.add_argument("new", type=Path)
-    compare.add_argument("--top", type=int, default=10, help="largest changes to list (10)")
-    compare.add_argument(
-        "--tolerance",
-        type=float,
-        default=diff.TOLERANCE,
-        help=f"relative change below which a table counts as unchanged ({diff.TOLERANCE:g})",
-    )
-    compare.add_argument("--html", type=Path, help="also write an HTML report with plots here")
-
     bench_cmd = sub.add_parser(
         "bench", help="time charflow against the naive way and the simulator"
     )
@@ -132,6 +120,18 @@ def _parser() -> argparse.ArgumentParser:
     bench_cmd.add_argument(
         "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
     )
+
+    compare = sub.add_parser("diff", help="compare two libraries (Liberty or JSON) table by table")
+    compare.add_argument("old", type=Path)
+    compare.add_argument("new", type=Path)
+    compare.add_argument("--top", type=int, default=10, help="largest changes to list (10)")
+    compare.add_argument(
+        "--tolerance",
+        type=float,
+        default=diff.TOLERANCE,
+        help=f"relative change below which a table counts as unchanged ({diff.TOLERANCE:g})",
+    )
+    compare.add_argument("--html", type=Path, help="also write an HTML report with plots here")
     return parser
 
 
@@ -232,21 +232,20 @@ def _arc(text: str | None) -> tuple[str, str] | None:
 
 
 def _run(cfg_path: Path, args: argparse.Namespace) -> int:
-    if getattr(args, "plan", False):
-        cfg = _load(cfg_path, args)
-        jobs = args.jobs or sweep.default_jobs()
-        for lib in cfg.libraries():
-            print(estimate.render(estimate.estimate(lib, getattr(args, "cell", None), jobs)))
-        return EXIT_OK
+    cfg = _load(cfg_path, args)
     if args.backend == "dask" and not args.scheduler:
         raise ConfigError("--backend dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
     if args.scheduler and args.backend != "dask":
         raise ConfigError("--scheduler is for --backend dask")
     cells = getattr(args, "cell", None)
+    if getattr(args, "plan", False):
+        jobs = args.jobs or sweep.default_jobs()
+        print(estimate.render(estimate.estimate(cfg, cells, jobs)))
+        return EXIT_OK
     arc = _arc(getattr(args, "arc", None))
     if arc is not None and (cells is None or len(cells) != 1):
         raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
-    cfg, out = _setup(cfg_path, args)
+    out = _output_folder(cfg, args)
     code = EXIT_OK
     with Store(out / FILE_NAME) as store:
         for lib in cfg.libraries():
@@ -330,15 +329,19 @@ def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
     return cfg
 
 
-def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = _load(cfg_path, args)
+def _output_folder(cfg: config.LibraryConfig, args: argparse.Namespace) -> Path:
     out = args.out or RUNS / cfg.name
     # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
-    return cfg, out
+    return out
+
+
+def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = _load(cfg_path, args)
+    return cfg, _output_folder(cfg, args)
 
 
 def _check_fidelity(

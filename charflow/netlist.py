@@ -60,6 +60,13 @@ class Deck:
         return f"cf_out_{pin}".lower()
 
 
+@functools.lru_cache(maxsize=256)
+def _compiled(text: str) -> jinja2.Template:
+    # Compiling a template costs milliseconds, and every run renders each one more than once.
+    env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+    return env.from_string(text)
+
+
 # `.include FILE`, `.inc FILE` and `.lib FILE SECTION` read a file; `.lib NAME` alone opens a
 # section and reads nothing. Paths may be quoted with " or '.
 _READS = re.compile(
@@ -91,13 +98,6 @@ def model_files(text: str, base: Path) -> tuple[Path, ...]:
             except OSError:
                 continue  # a missing file is a simulator error, reported when the deck runs
     return tuple(found)
-
-
-@functools.lru_cache(maxsize=256)
-def _compiled(text: str) -> jinja2.Template:
-    # Compiling a template costs milliseconds, and every run renders each one more than once.
-    env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
-    return env.from_string(text)
 
 
 def render_cell(cell: CellSpec) -> str:
