@@ -291,7 +291,8 @@ def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
     for models, tables in result.stale_tables().items():
         arcs: dict[str, int] = {}
         for table in tables:
-            arc = " ".join(table.split()[:2])
+            words = table.split()
+            arc = " ".join(words[:3] if words[1] == "pin" else words[:2])  # an arc, or a pin
             arcs[arc] = arcs.get(arc, 0) + 1
         listed = ", ".join(f"{arc} ({n})" for arc, n in arcs.items())
         why = (

@@ -119,13 +119,10 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
 
 
 def _cell_context(config: LibraryConfig, name: str) -> object:
-    """What a point reads from its cell's description besides the testbench and itself."""
+    """What a point reads from its cell's description besides the testbench and itself: the
+    grid (the first step of a transient comes from probes at its corners, ``stepsize``, and
+    its stop time is capped by the largest slew) and, for a flip-flop, its description."""
     cell = config.cell(name)
-    if cell.flop is None:
-        # A combinational transient is capped by the grid's largest slew (timing.py), and
-        # nothing else of the grid: growing the grid keeps the points already stored.
-        return max(cell.grid.slew)
-    # Flip-flop benches also use the grid's extremes and the flop's description (sequential.py).
     return [_plain(cell.grid), repr(cell.flop)]
 
 

@@ -356,7 +356,7 @@ def run(
     """
     from joblib import Parallel, delayed
 
-    from .timing import Measurement, measure_chunk
+    from .timing import Failure, measure_chunk
 
     points = list(points)
     decks: dict[str, Deck] = {
@@ -391,7 +391,7 @@ def run(
         )
     for batch in results:
         for outcome in batch:
-            if ring is not None and isinstance(outcome, Measurement):
+            if ring is not None and not isinstance(outcome, Failure):
                 store.put(ring, outcome)
             if on_result is not None:
                 on_result(outcome)

@@ -266,3 +266,27 @@ def test_two_corners_give_two_libraries_ff_faster_than_ss(tmp_path: Path) -> Non
 
     again = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert again.stdout.count(f"0 simulated (0 simulations), {POINTS} reused") == 2
+
+
+def test_flip_flop_searches_are_stored_too(tmp_path: Path) -> None:
+    # Setup, hold and pulse-width searches are results like any other: a second run of a
+    # flip-flop library simulates nothing, and diff reads every table it has both ways.
+    cfg = ROOT / "tests" / "data" / "seq_l1.toml"
+    out = tmp_path / "out"
+    first = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert first.returncode == 0, first.stderr
+    points = int(re.search(r"(\d+) points measured", first.stdout).group(1))
+    before = _outputs(out, "seq_l1")
+    assert _rows(out / FILE_NAME) == points
+
+    second = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert second.returncode == 0, second.stderr
+    assert f"0 simulated (0 simulations), {points} reused from the store" in second.stdout
+    assert _outputs(out, "seq_l1") == before
+
+    lib, js = diff.read(out / "seq_l1.lib"), diff.read(out / "seq_l1.json")
+    assert sorted(lib) == sorted(js)
+    kinds = {" ".join(n.split()[2:-1]) for n in lib if "->" in n}
+    assert {"clock", "clear", "setup_rising", "hold_rising"} <= kinds
+    assert any(n.endswith("min_pulse_width_high") for n in lib)
+    assert not diff.compare(lib, js).differs
