@@ -2,6 +2,7 @@
 
     config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
 
+(power rides along: toggles through ``sweep.run``, leakage per deck, ``power.tabulate``).
 ``characterize`` chains them; each stage takes and returns plain records, so any one can
 be tested or re-run alone.
 """
@@ -16,12 +17,13 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__, liberty, sweep
+from . import __version__, liberty, power, sweep
 from .config import LibraryConfig
 from .errors import OutputError
 from .netlist import build_deck
 from .tabulate import CellTables, tabulate
 from .timing import Failure, Measurement, check_function
+from .units import energy_unit, power_unit
 
 
 @dataclass(frozen=True, slots=True)
@@ -31,14 +33,19 @@ class RunResult:
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
+    toggles: tuple[power.ToggleMeasurement, ...] = ()
+    # Toggles whose energy could not be measured: reported, left out of the tables; they do
+    # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
+    unmeasured: tuple[Failure, ...] = ()
+    power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
 
     @property
     def simulations(self) -> int:
-        return sum(m.runs for m in self.measurements)
+        return sum(m.runs for m in (*self.measurements, *self.toggles))
 
     @property
     def sim_seconds(self) -> float:
-        return sum(m.sim_seconds for m in self.measurements)
+        return sum(m.sim_seconds for m in (*self.measurements, *self.toggles))
 
 
 def verify(config: LibraryConfig, cells: list[str] | None = None) -> None:
@@ -59,19 +66,43 @@ def characterize(
     """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers."""
     start = time.perf_counter()
     the_plan = sweep.plan(config, cells)
+    toggle_points = power.plan_toggles(config, cells)
     verify(config, cells)
     if on_start is not None:
-        on_start(len(the_plan.points))
+        on_start(len(the_plan.points) + len(toggle_points))
     measurements: list[Measurement] = []
     failures: list[Failure] = []
     for outcome in sweep.run(config, the_plan.points, jobs=jobs, on_result=on_result):
         (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
-    order = {p: i for i, p in enumerate(the_plan.points)}
-    measurements.sort(key=lambda m: order[m.point])
-    failures.sort(key=lambda f: order[f.point])
-    tables = () if failures else tabulate(config, the_plan, measurements)
+    toggles: list[power.ToggleMeasurement] = []
+    unmeasured: list[Failure] = []
+    if toggle_points:
+        runs = sweep.run(
+            config, toggle_points, jobs=jobs, on_result=on_result, measure=power.measure_chunk
+        )
+        for outcome in runs:
+            is_toggle = isinstance(outcome, power.ToggleMeasurement)
+            (toggles if is_toggle else unmeasured).append(outcome)
+    order = {p: i for i, p in enumerate((*the_plan.points, *toggle_points))}
+    for outcomes in (measurements, failures, toggles, unmeasured):
+        outcomes.sort(key=lambda m: order[m.point])
+    tables, cell_power = (), ()
+    if not failures:
+        tables = tabulate(config, the_plan, measurements)
+        leakages = {
+            c: power.leakage(config, build_deck(config, config.cell(c)))
+            for c in dict.fromkeys(a.cell for a in the_plan.arcs)
+        }
+        cell_power = power.tabulate(config, the_plan, measurements, toggles, leakages)
     return RunResult(
-        the_plan, tuple(measurements), tuple(failures), tables, time.perf_counter() - start
+        the_plan,
+        tuple(measurements),
+        tuple(failures),
+        tables,
+        time.perf_counter() - start,
+        tuple(toggles),
+        tuple(unmeasured),
+        cell_power,
     )
 
 
@@ -91,48 +122,96 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "delay_s": m.delay,
             "transition_s": m.transition,
             "input_charge_C": m.input_charge,
+            "supply_energy_J": m.supply_energy,
+            "internal_energy_J": m.internal_energy,
             "simulations": m.runs,
             "sim_seconds": round(m.sim_seconds, 6),
             "stop_s": m.stop,
         }
 
+    def toggle_record(m: power.ToggleMeasurement) -> dict:
+        p = m.point
+        return {
+            "related_pin": p.related,
+            "when": sweep.State(p.side, "").when,
+            "input_edge": p.input_edge,
+            "slew_s": p.slew,
+            "load_F": p.load,
+            "energy_J": m.energy,
+            "input_charge_C": m.input_charge,
+            "simulations": m.runs,
+            "sim_seconds": round(m.sim_seconds, 6),
+            "window_end_s": m.settled,
+        }
+
+    powers = {c.cell: c for c in result.power}
     cells = []
     for cell in result.cells:
+        cell_power = powers.get(cell.cell.name)
         arcs = []
         for arc in cell.arcs:
-            arcs.append(
-                {
-                    "related_pin": arc.arc.related,
-                    "output": arc.arc.output,
-                    "timing_sense": arc.arc.sense,
-                    "tables": [t.to_dict() for t in arc.default],
+            entry = {
+                "related_pin": arc.arc.related,
+                "output": arc.arc.output,
+                "timing_sense": arc.arc.sense,
+                "tables": [t.to_dict() for t in arc.default],
+                "states": [
+                    {
+                        "when": st.state.when,
+                        "timing_sense": st.state.sense,
+                        "tables": [t.to_dict() for t in st.tables],
+                    }
+                    for st in arc.states
+                ],
+            }
+            energy = cell_power.arc(arc.arc.related, arc.arc.output) if cell_power else None
+            if energy is not None:
+                entry["internal_power"] = {
+                    "tables": [t.to_dict() for t in energy.default],
                     "states": [
-                        {
-                            "when": st.state.when,
-                            "timing_sense": st.state.sense,
-                            "tables": [t.to_dict() for t in st.tables],
-                        }
-                        for st in arc.states
+                        {"when": st.when, "tables": [t.to_dict() for t in tables]}
+                        for st, tables in energy.states
                     ],
                 }
-            )
-        cells.append(
-            {
-                "name": cell.cell.name,
-                "area": cell.cell.area,
-                "inputs": [
-                    {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
-                    for p in cell.pins
-                ],
-                "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
-                "arcs": arcs,
-            }
-        )
+            arcs.append(entry)
+        record = {
+            "name": cell.cell.name,
+            "area": cell.cell.area,
+            "inputs": [
+                {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+                for p in cell.pins
+            ],
+            "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
+            "arcs": arcs,
+        }
+        if cell_power is not None:
+            record["cell_leakage_power_W"] = cell_power.cell_leakage
+            record["leakage_power"] = [
+                {"when": s.when, "value_W": s.power} for s in cell_power.leakage
+            ]
+            record["hidden_power"] = [
+                {"pin": h.pin, "when": h.when, "tables": [t.to_dict() for t in h.tables]}
+                for h in cell_power.hidden
+            ]
+        cells.append(record)
+    lib_power, _ = power_unit(config.time_unit, config.cap_unit)
     return {
         "library": config.name,
         "generator": f"charflow {__version__}",
-        "units": {"time": "s", "capacitance": "F", "charge": "C", "voltage": "V"},
-        "library_units": {"time": config.time_unit, "capacitance": config.cap_unit},
+        "units": {
+            "time": "s",
+            "capacitance": "F",
+            "charge": "C",
+            "voltage": "V",
+            "energy": "J",
+            "power": "W",
+        },
+        "library_units": {
+            "time": config.time_unit,
+            "capacitance": config.cap_unit,
+            "energy": energy_unit(config.cap_unit),
+            "power": lib_power[1:],
+        },
         "vdd_V": config.process.vdd,
         "temperature_C": config.process.temperature,
         "cells": cells,
@@ -140,9 +219,17 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             name: [point_record(m) for m in result.measurements if m.point.cell == name]
             for name in dict.fromkeys(p.cell for p in result.plan.points)
         },
+        "toggles": {
+            name: [toggle_record(m) for m in result.toggles if m.point.cell == name]
+            for name in dict.fromkeys(m.point.cell for m in result.toggles)
+        },
         "failures": [
             {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
             for f in result.failures
+        ],
+        "unmeasured_toggles": [
+            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
+            for f in result.unmeasured
         ],
     }
 
@@ -168,6 +255,6 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     written.append(json_path)
     if not result.failures:
         lib_path = out_dir / f"{config.name}.lib"
-        write_atomic(lib_path, liberty.render(config, result.cells))
+        write_atomic(lib_path, liberty.render(config, result.cells, result.power))
         written.append(lib_path)
     return written

@@ -147,15 +147,19 @@ def run(
     *,
     jobs: int | None = None,
     on_result: Callable[[object], None] | None = None,
+    measure: Callable | None = None,
 ) -> Iterator[object]:
     """Simulate and measure ``points``; yield one outcome (Measurement or Failure) per point.
 
     Outcomes come in completion order; ``on_result`` is a hook for progress display.
+    ``measure`` measures one cell's chunk (default ``timing.measure_chunk``; points of
+    another kind, such as ``power.TogglePoint``, bring their own).
     """
     from joblib import Parallel, delayed
 
     from .timing import measure_chunk
 
+    chunk = measure or measure_chunk
     points = list(points)
     decks: dict[str, Deck] = {
         c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}
@@ -163,10 +167,10 @@ def run(
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if jobs == 1 or len(tasks) == 1:
-        results: Iterable[list] = (measure_chunk(config, decks[t[0].cell], t) for t in tasks)
+        results: Iterable[list] = (chunk(config, decks[t[0].cell], t) for t in tasks)
     else:
         results = Parallel(n_jobs=min(jobs, len(tasks)), return_as="generator_unordered")(
-            delayed(measure_chunk)(config, decks[t[0].cell], t) for t in tasks
+            delayed(chunk)(config, decks[t[0].cell], t) for t in tasks
         )
     for batch in results:
         for outcome in batch:

@@ -1,9 +1,11 @@
 """Simulating and measuring one sweep point, and checking a cell's function by simulation.
 
-The transient of a point ends when the output has settled (an ngspice stop condition),
-with a cap for outputs that never do; its maximum step follows the input ramp and is
-refined when too few samples fall on the output edge. Every run of a point is deterministic
-in the point alone, so re-running one arc reproduces its stored values.
+The transient of a point ends when the output has settled and the input ramp is over (an
+ngspice stop condition), with a cap for outputs that never settle; its maximum step follows
+the input ramp and is refined when too few samples fall on the output edge. Besides delay and
+transition a point yields the input pin's charge and the supply's switching energy. Every run
+of a point is deterministic in the point alone, so re-running one arc reproduces its stored
+values.
 """
 
 from __future__ import annotations
@@ -16,7 +18,7 @@ import numpy as np
 from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
-from .measure import check_settled, integral, single_crossing, step_at, transition
+from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
 from .netlist import Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
@@ -34,6 +36,8 @@ class Measurement:
     delay: float  # s; may be negative, never clipped
     transition: float  # s, already divided by the slew derate
     input_charge: float  # C drawn from the input source over the run
+    supply_energy: float  # J the supply delivered beyond its static draw over the run
+    internal_energy: float  # J: supply_energy less what the external loads took from the supply
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
     stop: float  # s, the transient's final stop time
@@ -78,6 +82,26 @@ def _simulate(backend, request: Request) -> tuple[Result, int]:
     )
 
 
+_STATIC: dict[tuple[str, tuple[tuple[str, bool], ...]], float] = {}
+
+
+def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -> float:
+    """Current (A) the supply delivers at DC with the inputs at ``assign``; computed once per
+    worker, deck and input vector."""
+    cell = config.cell(deck.cell)
+    key = (deck.key, tuple((p, assign[p]) for p in cell.inputs))
+    if key not in _STATIC:
+        vdd = config.process.vdd
+        values = {p: stimulus.constant(vdd if b else 0.0) for p, b in key[1]}
+        request = Request(
+            deck, _alters(deck, cell, vdd, values, 0.0), "op", (f"{deck.supply}#branch",)
+        )
+        result, _ = _simulate(backend_for(config), request)
+        # A source's branch current flows into its + node from outside: out of it is −i.
+        _STATIC[key] = -float(result.vectors[f"{deck.supply}#branch"][-1])
+    return _STATIC[key]
+
+
 def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
     cell = config.cell(point.cell)
     vdd = config.process.vdd
@@ -88,20 +112,24 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     values[point.related] = ramp.pulse()
     alters = _alters(deck, cell, vdd, values, point.load)
     out_node = deck.output_node(point.output)
+    out_nodes = tuple(deck.output_node(o.pin) for o in cell.outputs)
     in_node = deck.input_node(point.related)
     in_branch = f"{deck.input_source(point.related)}#branch"
-    vectors = (out_node, in_node, in_branch)
+    supply = f"{deck.supply}#branch"
+    vectors = (*out_nodes, in_node, in_branch, supply)
     target = vdd if point.output_edge == "rise" else 0.0
     start_level = vdd - target
 
-    # The run ends once the output is within the settle tolerance of its final rail; the
-    # stop time is only a cap for outputs that never get there.
+    # The run ends once the output is within the settle tolerance of its final rail and the
+    # input ramp is over, so the input charge and the supply energy are whole (a slow ramp can
+    # leave the output at its rail while the input still moves); the stop time is only a cap
+    # for outputs that never get there.
     tol = sim.settle * vdd
     stop_when = (
         f"v({out_node}) > {vdd - tol:.6g}"
         if point.output_edge == "rise"
         else f"v({out_node}) < {tol:.6g}"
-    )
+    ) + f" when time > {ramp.end:.12g}"
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
     max_step = ramp.duration / RAMP_SAMPLES
     runs = 0
@@ -143,11 +171,24 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     )
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
+    current = -result.vectors[supply]
+    final = {**dict(point.side), point.related: point.input_edge == "rise"}
+    static = (float(current[0]), static_current(config, deck, final))
+    energy = supply_energy(t, current, vdd, t_in, static)
+    # A load charging by dv took C·vdd·dv from the supply (C·V² once at the rail, half of it
+    # stored); one discharging takes nothing from it. Counting the dv reached rather than the
+    # full swing keeps the window's end from cutting off load energy as if it were the cell's.
+    loads = sum(
+        point.load * vdd * max(float(result.vectors[n][-1] - result.vectors[n][0]), 0.0)
+        for n in out_nodes
+    )
     return Measurement(
         point=point,
         delay=t_out - t_in,
         transition=raw_transition / thr.slew_derate,
         input_charge=charge,
+        supply_energy=energy,
+        internal_energy=energy - loads,
         runs=runs,
         sim_seconds=seconds,
         stop=stop,
@@ -195,7 +236,10 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
     """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
 
     At each pin and edge the points at the smallest load are averaged over slews and states:
-    the effective (Miller-inclusive) capacitance a driver sees (common practice).
+    the effective (Miller-inclusive) capacitance a driver sees (common practice). Any record
+    with ``point.related``, ``point.input_edge``, ``point.load`` and ``input_charge`` counts:
+    a flip-flop's clock pin gets its values by passing its clock toggles here (for example
+    ``power.ToggleMeasurement`` of clock edges that leave Q alone), with no second method.
     """
     groups: dict[tuple[str, str], list[Measurement]] = {}
     for m in measurements:
