@@ -98,11 +98,14 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     per_sim = result.sim_seconds / max(result.simulations, 1)
     print(
         f"{cfg.name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
+        f"{len(result.toggles)} input toggles measured, "
         f"{result.simulations} simulations in {result.wall_seconds:.1f} s wall "
         f"({per_sim * 1e3:.1f} ms simulator time each)"
     )
     for path in written:
         print(f"wrote {path}")
+    for f in result.unmeasured[:20]:
+        print(f"no hidden power: cell {f.point.cell}, {f.point.label}: {f.reason}")
     if result.failures:
         print(f"{len(result.failures)} point(s) failed; no Liberty file written:", file=sys.stderr)
         for f in result.failures[:20]:

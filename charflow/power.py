@@ -246,8 +246,9 @@ def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
 def _arc_tables(cell: CellSpec, arc: Arc, state: State, by_point: dict) -> tuple[Table, ...]:
     tables = []
     axes = (Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load))
-    for edge in EDGES:
-        out_edge = state.output_edge(edge)
+    for out_edge in EDGES:
+        # Within a state the edge map is its own inverse (identity or swap).
+        edge = state.output_edge(out_edge)
         grid = np.empty((len(cell.grid.slew), len(cell.grid.load)))
         for i, s in enumerate(cell.grid.slew):
             for j, c in enumerate(cell.grid.load):
