@@ -66,12 +66,30 @@ class Process:
 class Grid:
     slew: tuple[float, ...]  # s
     load: tuple[float, ...]  # F
+    related_load: tuple[float, ...] = ()  # F, the other output's load of a two-output cell
+    constraint_slew: tuple[float, ...] = ()  # s, setup/hold indexes (default: slew)
 
 
 @dataclass(frozen=True, slots=True)
 class OutputSpec:
     pin: str
     function: logic.Expr
+
+
+@dataclass(frozen=True, slots=True)
+class FlopSpec:
+    """An edge-triggered storage element; outputs are functions of ``state``."""
+
+    clock: str
+    edge: str  # "rise" or "fall": the active clock edge
+    next_state: logic.Expr
+    clear: logic.Expr | None = None  # asynchronous clear, active when true
+    preset: logic.Expr | None = None
+    state: tuple[str, str] = ("IQ", "IQN")  # the stored value and its complement
+
+    @property
+    def clocked_on(self) -> str:
+        return self.clock if self.edge == "rise" else f"!{self.clock}"
 
 
 @dataclass(frozen=True, slots=True)
@@ -86,6 +104,19 @@ class CellSpec:
     power: str = "VDD"
     ground: str = "VSS"
     area: float = 0.0
+    flop: FlopSpec | None = None
+    other_output_axis: bool = False  # tables get the other output's load as a third index
+
+    @property
+    def data_inputs(self) -> tuple[str, ...]:
+        """Inputs that are neither the clock nor an asynchronous control."""
+        if self.flop is None:
+            return self.inputs
+        controls = {self.flop.clock}
+        for expr in (self.flop.clear, self.flop.preset):
+            if expr is not None:
+                controls |= expr.variables()
+        return tuple(p for p in self.inputs if p not in controls)
 
     @property
     def source(self) -> Path:
@@ -102,6 +133,10 @@ class Simulation:
     window: float | None = None  # s the transient may run past the input ramp (a cap)
     samples_per_edge: int = 20  # minimum samples across the output transition
     settle: float = 0.01  # fraction of vdd the output must come within of its final rail
+    pushout: float = (
+        0.1  # setup/hold pass: clock-to-output at most this much over its relaxed value
+    )
+    bisect_tolerance: float = 1e-12  # s, width of the final bracket of a constraint search
 
 
 @dataclass(frozen=True, slots=True)
@@ -260,7 +295,7 @@ class _Reader:
 _LIBRARY_KEYS = {"name", "time_unit", "cap_unit"}
 _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
-_GRID_KEYS = {"slew", "load"}
+_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
 _CELL_KEYS = {
     "name",
@@ -273,7 +308,10 @@ _CELL_KEYS = {
     "ground",
     "area",
     "grid",
+    "flop",
+    "other_output_axis",
 }
+_FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
 _TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
@@ -318,7 +356,17 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     grid_doc = r.section(doc, "grid", _GRID_KEYS, required=True)
     slew = r.axis(grid_doc, "slew", "grid", tscale, None)
     load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
-    grid = Grid(slew or (), load_ or ())
+    related = (
+        r.axis(grid_doc, "related_load", "grid", cscale, None, zero_ok=True)
+        if "related_load" in grid_doc
+        else ()
+    )
+    constraint = (
+        r.axis(grid_doc, "constraint_slew", "grid", tscale, None)
+        if "constraint_slew" in grid_doc
+        else ()
+    )
+    grid = Grid(slew or (), load_ or (), related or (), constraint or ())
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
 
     cells_doc = doc.get("cell", [])
@@ -434,12 +482,16 @@ def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
         r.problem("simulation.samples_per_edge", f"must be at least 4, got {samples}")
         samples = None
     settle = r.number(doc, "settle", "simulation", d.settle, low=0.0, high=0.5)
+    pushout = r.number(doc, "pushout", "simulation", d.pushout, low=0.0, high=1.0)
+    tol = r.number(doc, "bisect_tolerance", "simulation", None, low=0.0)
     return Simulation(
         backend=backend,
         timeout=timeout or d.timeout,
         window=None if window is None else window * tscale,
         samples_per_edge=samples or d.samples_per_edge,
         settle=settle or d.settle,
+        pushout=pushout or d.pushout,
+        bisect_tolerance=d.bisect_tolerance if tol is None else tol * tscale,
     )
 
 
@@ -472,6 +524,8 @@ def _cell(
     inputs = [p for p in inputs if isinstance(p, str)]
     if len(set(inputs)) != len(inputs):
         r.problem(f"{key}.inputs", f"names a pin twice: {inputs}", name)
+    flop = _flop(r, doc, key, name, inputs)
+    known = set(inputs) | (set(flop.state) if flop else set())
     outputs_doc = r.get(doc, "outputs", dict, key, None, name) or {}
     if not outputs_doc:
         r.problem(f"{key}.outputs", "must map at least one output pin to its function", name)
@@ -488,7 +542,7 @@ def _cell(
         except FunctionSyntaxError as exc:
             r.problem(okey, exc.reason, name)
             continue
-        extra = sorted(expr.variables() - set(inputs))
+        extra = sorted(expr.variables() - known)
         if extra:
             r.problem(
                 okey, f"function uses {', '.join(extra)}, not among the inputs {inputs}", name
@@ -508,15 +562,84 @@ def _cell(
         if "load" in grid_doc
         else grid.load
     )
+    related = (
+        r.axis(grid_doc, "related_load", f"{key}.grid", cscale, name, zero_ok=True)
+        if "related_load" in grid_doc
+        else grid.related_load
+    )
+    constraint = (
+        r.axis(grid_doc, "constraint_slew", f"{key}.grid", tscale, name)
+        if "constraint_slew" in grid_doc
+        else grid.constraint_slew
+    )
+    axis3 = r.get(doc, "other_output_axis", bool, key, len(outputs) == 2, name)
+    if axis3 and len(outputs) != 2:
+        r.problem(f"{key}.other_output_axis", "needs a cell with exactly two outputs", name)
+    if axis3 and len(outputs) == 2 and not related:
+        r.problem(
+            f"{key}.grid.related_load",
+            "a two-output cell with other_output_axis needs [grid] related_load "
+            "(or set other_output_axis = false)",
+            name,
+        )
     return CellSpec(
         name=name,
         inputs=tuple(inputs),
         outputs=tuple(outputs),
-        grid=Grid(slew or (), load_ or ()),
+        grid=Grid(slew or (), load_ or (), related or (), constraint or ()),
         template=source if template is not None else None,
         netlist=source if netlist is not None else None,
         params=tuple(sorted(params.items())),
         power=power or "VDD",
         ground=ground or "VSS",
         area=area or 0.0,
+        flop=flop,
+        other_output_axis=bool(axis3) and len(outputs) == 2,
+    )
+
+
+def _flop(r: _Reader, doc: dict, key: str, name: str, inputs: list[str]) -> FlopSpec | None:
+    fdoc = r.get(doc, "flop", dict, key, None, name)
+    if fdoc is None:
+        return None
+    fkey = f"{key}.flop"
+    r.unknown(fdoc, _FLOP_KEYS, fkey, name)
+    clock = r.get(fdoc, "clock", str, fkey, None, name)
+    if clock is not None and clock not in inputs:
+        r.problem(f"{fkey}.clock", f"clock {clock} is not among the inputs {inputs}", name)
+    edge = r.get(fdoc, "edge", str, fkey, "rise", name)
+    if edge not in ("rise", "fall"):
+        r.problem(f"{fkey}.edge", f"must be 'rise' or 'fall', got {edge!r}", name)
+    state = r.get(fdoc, "state", list, fkey, ["IQ", "IQN"], name) or ["IQ", "IQN"]
+    if len(state) != 2 or not all(isinstance(s, str) and _is_identifier(s) for s in state):
+        r.problem(f"{fkey}.state", f"must name two state variables, got {state!r}", name)
+        state = ["IQ", "IQN"]
+    exprs = {}
+    for attr in ("next_state", "clear", "preset"):
+        text = r.get(fdoc, attr, str, fkey, None if attr == "next_state" else "", name)
+        if not text:
+            continue
+        try:
+            expr = logic.parse(text, cell=name, pin=attr)
+        except FunctionSyntaxError as exc:
+            r.problem(f"{fkey}.{attr}", exc.reason, name)
+            continue
+        bad = sorted(expr.variables() - set(inputs))
+        if bad or (clock in expr.variables()):
+            r.problem(
+                f"{fkey}.{attr}",
+                f"may use only non-clock inputs, uses {', '.join(bad or [clock])}",
+                name,
+            )
+            continue
+        exprs[attr] = expr
+    if clock is None or "next_state" not in exprs:
+        return None
+    return FlopSpec(
+        clock=clock,
+        edge=edge if edge in ("rise", "fall") else "rise",
+        next_state=exprs["next_state"],
+        clear=exprs.get("clear"),
+        preset=exprs.get("preset"),
+        state=(state[0], state[1]),
     )

@@ -21,6 +21,7 @@ from . import __version__, liberty, power, sweep
 from .config import LibraryConfig
 from .errors import OutputError
 from .netlist import build_deck
+from .sequential import SearchResult
 from .tabulate import CellTables, tabulate
 from .timing import Failure, Measurement, check_function
 from .units import energy_unit, power_unit
@@ -29,7 +30,7 @@ from .units import energy_unit, power_unit
 @dataclass(frozen=True, slots=True)
 class RunResult:
     plan: sweep.Plan
-    measurements: tuple[Measurement, ...]
+    measurements: tuple[Measurement | SearchResult, ...]
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
@@ -70,10 +71,10 @@ def characterize(
     verify(config, cells)
     if on_start is not None:
         on_start(len(the_plan.points) + len(toggle_points))
-    measurements: list[Measurement] = []
+    measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
     for outcome in sweep.run(config, the_plan.points, jobs=jobs, on_result=on_result):
-        (measurements if isinstance(outcome, Measurement) else failures).append(outcome)
+        (failures if isinstance(outcome, Failure) else measurements).append(outcome)
     toggles: list[power.ToggleMeasurement] = []
     unmeasured: list[Failure] = []
     if toggle_points:
@@ -81,18 +82,14 @@ def characterize(
             config, toggle_points, jobs=jobs, on_result=on_result, measure=power.measure_chunk
         )
         for outcome in runs:
-            is_toggle = isinstance(outcome, power.ToggleMeasurement)
-            (toggles if is_toggle else unmeasured).append(outcome)
+            (unmeasured if isinstance(outcome, Failure) else toggles).append(outcome)
     order = {p: i for i, p in enumerate((*the_plan.points, *toggle_points))}
     for outcomes in (measurements, failures, toggles, unmeasured):
         outcomes.sort(key=lambda m: order[m.point])
     tables, cell_power = (), ()
     if not failures:
         tables = tabulate(config, the_plan, measurements)
-        leakages = {
-            c: power.leakage(config, build_deck(config, config.cell(c)))
-            for c in dict.fromkeys(a.cell for a in the_plan.arcs)
-        }
+        leakages = power.leakages(config, the_plan)
         cell_power = power.tabulate(config, the_plan, measurements, toggles, leakages)
     return RunResult(
         the_plan,
@@ -109,16 +106,26 @@ def characterize(
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     """Tables in SI units with the measurement details behind every point."""
 
-    def point_record(m: Measurement) -> dict:
+    def point_record(m: Measurement | SearchResult) -> dict:
         p = m.point
+        if isinstance(m, SearchResult):
+            return {
+                "search": p.label,
+                "value_s": m.value,
+                "upper_bound": m.bound,
+                "simulations": m.runs,
+                "sim_seconds": round(m.sim_seconds, 6),
+            }
         return {
             "related_pin": p.related,
             "output": p.output,
-            "when": sweep.State(p.side, "").when,
+            "when": sweep.State(p.state_side, "").when,
             "input_edge": p.input_edge,
             "output_edge": p.output_edge,
+            "kind": p.kind,
             "slew_s": p.slew,
             "load_F": p.load,
+            "other_load_F": p.other_load,
             "delay_s": m.delay,
             "transition_s": m.transition,
             "input_charge_C": m.input_charge,
@@ -153,6 +160,8 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             entry = {
                 "related_pin": arc.arc.related,
                 "output": arc.arc.output,
+                "kind": arc.arc.kind,
+                "related_output": arc.arc.other,
                 "timing_sense": arc.arc.sense,
                 "tables": [t.to_dict() for t in arc.default],
                 "states": [
@@ -183,6 +192,19 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             ],
             "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
             "arcs": arcs,
+            "constraints": [
+                {
+                    "pin": c.pin,
+                    "related_pin": c.related,
+                    "timing_type": c.timing_type,
+                    "tables": [t.to_dict() for t in c.tables],
+                }
+                for c in cell.constraints
+            ],
+            "min_pulse_widths": [
+                {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+                for p in cell.pulses
+            ],
         }
         if cell_power is not None:
             record["cell_leakage_power_W"] = cell_power.cell_leakage

@@ -52,14 +52,13 @@ class _Writer:
         self.lines.append("  " * self.depth + "}")
 
 
+def _axis_scale(config: LibraryConfig, name: str) -> float:
+    """Library unit of an index variable: capacitances in cap_unit, transitions in time_unit."""
+    return config.cap_scale if name.endswith("capacitance") else config.time_scale
+
+
 def _scales(config: LibraryConfig, table: Table) -> list[float]:
-    per_axis = {
-        "input_net_transition": config.time_scale,
-        "input_transition_time": config.time_scale,
-        "total_output_net_capacitance": config.cap_scale,
-        "related_out_total_output_net_capacitance": config.cap_scale,
-    }
-    return [per_axis[a.name] for a in table.axes]
+    return [_axis_scale(config, a.name) for a in table.axes]
 
 
 def _value_scale(config: LibraryConfig, table: Table) -> float:
@@ -71,12 +70,13 @@ def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple,
     """Template name per distinct (axis names, index values)."""
     names: dict[tuple, str] = {}
     for cell in cells:
-        for arc in cell.arcs:
-            for table in arc.default:
-                key = tuple((a.name, a.values) for a in table.axes)
-                if key not in names:
-                    shape = "x".join(str(len(a.values)) for a in table.axes)
-                    names[key] = f"grid_{shape}_{len(names) + 1}"
+        tables = [t for arc in cell.arcs for t in arc.default]
+        tables += [t for c in cell.constraints for t in c.tables]
+        for table in tables:
+            key = tuple((a.name, a.values) for a in table.axes)
+            if key not in names:
+                shape = "x".join(str(len(a.values)) for a in table.axes)
+                names[key] = f"grid_{shape}_{len(names) + 1}"
     return names
 
 
@@ -113,6 +113,14 @@ def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) 
     w.close()
 
 
+def _timing_type(config: LibraryConfig, arc: ArcTables) -> str:
+    kind = arc.arc.kind
+    if kind == "clock":
+        edge = config.cell(arc.arc.cell).flop.edge
+        return "rising_edge" if edge == "rise" else "falling_edge"
+    return kind  # combinational, clear, preset
+
+
 def _timing_group(
     w: _Writer,
     config: LibraryConfig,
@@ -124,8 +132,10 @@ def _timing_group(
 ) -> None:
     w.open("timing")
     w.attr("related_pin", f'"{arc.arc.related}"')
+    if arc.arc.other:
+        w.attr("related_output_pin", f'"{arc.arc.other}"')
     w.attr("timing_sense", sense)
-    w.attr("timing_type", "combinational")
+    w.attr("timing_type", _timing_type(config, arc))
     if when:
         w.attr("when", f'"{when}"')
     by_quantity = {t.quantity: t for t in tables}
@@ -143,10 +153,14 @@ def _internal_power(
     tables: Iterable[Table],
     related: str = "",
     when: str = "",
+    other: str | None = None,
 ) -> None:
     w.open("internal_power")
     if related:
         w.attr("related_pin", f'"{related}"')
+    if other:
+        # The output whose load is the tables' third index (3D tables of a two-output cell).
+        w.attr("equal_or_opposite_output", f'"{other}"')
     if when:
         w.attr("when", f'"{when}"')
     for table in tables:
@@ -209,8 +223,7 @@ def render(
         for k, (axis_name, _) in enumerate(key, 1):
             w.attr(f"variable_{k}", axis_name)
         for k, (axis_name, values) in enumerate(key, 1):
-            scale = config.time_scale if axis_name == "input_net_transition" else config.cap_scale
-            w.complex(f"index_{k}", _index(values, scale))
+            w.complex(f"index_{k}", _index(values, _axis_scale(config, axis_name)))
         w.close()
     energy_names = power_templates(powers.values())
     for key, name in energy_names.items():
@@ -218,8 +231,7 @@ def render(
         for k, (axis_name, _) in enumerate(key, 1):
             w.attr(f"variable_{k}", axis_name)
         for k, (axis_name, values) in enumerate(key, 1):
-            scale = config.time_scale if axis_name == "input_transition_time" else config.cap_scale
-            w.complex(f"index_{k}", _index(values, scale))
+            w.complex(f"index_{k}", _index(values, _axis_scale(config, axis_name)))
         w.close()
     for cell in cells:
         cell_power = powers.get(cell.cell.name)
@@ -227,15 +239,38 @@ def render(
         w.attr("area", _fmt(cell.cell.area))
         if cell_power is not None:
             _leakage(w, cell_power, leakage_scale)
+        flop = cell.cell.flop
+        if flop is not None:
+            w.open("ff", ", ".join(flop.state))
+            w.attr("clocked_on", f'"{flop.clocked_on}"')
+            w.attr("next_state", f'"{flop.next_state.to_liberty()}"')
+            if flop.clear is not None:
+                w.attr("clear", f'"{flop.clear.to_liberty()}"')
+            if flop.preset is not None:
+                w.attr("preset", f'"{flop.preset.to_liberty()}"')
+            w.close()
         for pin in cell.pins:
             w.open("pin", pin.pin)
             w.attr("direction", "input")
+            if flop is not None and pin.pin == flop.clock:
+                w.attr("clock", "true")
             w.attr("capacitance", _fmt(pin.capacitance / config.cap_scale))
             w.attr("rise_capacitance", _fmt(pin.rise / config.cap_scale))
             w.attr("fall_capacitance", _fmt(pin.fall / config.cap_scale))
             hidden = cell_power.hidden if cell_power is not None else ()
             for h in (h for h in hidden if h.pin == pin.pin):
                 _internal_power(w, config, energy_names, h.tables, when=h.when)
+            for pulse in (p for p in cell.pulses if p.pin == pin.pin):
+                w.attr(f"min_pulse_width_{pulse.level}", _fmt(pulse.width / config.time_scale))
+            for c in (c for c in cell.constraints if c.pin == pin.pin):
+                w.open("timing")
+                w.attr("related_pin", f'"{c.related}"')
+                w.attr("timing_type", c.timing_type)
+                for table in c.tables:
+                    write_table(
+                        w, config, table, names[tuple((a.name, a.values) for a in table.axes)]
+                    )
+                w.close()
             w.close()
         for out in cell.cell.outputs:
             w.open("pin", out.pin)
@@ -250,12 +285,11 @@ def render(
                         )
             energies = cell_power.arcs if cell_power is not None else ()
             for arc in (a for a in energies if a.arc.output == out.pin):
-                _internal_power(w, config, energy_names, arc.default, arc.arc.related)
+                related, other = arc.arc.related, arc.arc.other
+                _internal_power(w, config, energy_names, arc.default, related, other=other)
                 if len(arc.states) > 1:
                     for state, tables in arc.states:
-                        _internal_power(
-                            w, config, energy_names, tables, arc.arc.related, state.when
-                        )
+                        _internal_power(w, config, energy_names, tables, related, state.when, other)
             w.close()
         w.close()
     w.close()

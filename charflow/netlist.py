@@ -39,6 +39,7 @@ class Deck:
     text: str
     key: str
     supply: str  # name of the supply source, whose branch current is the supply current
+    compat: str | None = None  # ngspice compatibility mode (ngbehavior) the deck is read in
 
     @staticmethod
     def input_source(pin: str) -> str:
@@ -164,5 +165,5 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
         options=process.options,
         scale=process.scale,
     )
-    key = hashlib.sha256(text.encode()).hexdigest()
-    return Deck(cell=cell.name, text=text, key=key, supply="vsupply")
+    key = hashlib.sha256(f"{process.compat}\n{text}".encode()).hexdigest()
+    return Deck(cell=cell.name, text=text, key=key, supply="vsupply", compat=process.compat)

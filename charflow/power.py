@@ -26,26 +26,29 @@ from . import logic, stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import MeasurementError, SimulatorError, TableError
 from .measure import integral, single_crossing, supply_energy
-from .netlist import Deck
+from .netlist import Deck, build_deck
 from .simulate import Request
-from .sweep import EDGES, Arc, Plan, State, TimingPoint
+from .sweep import EDGES, Arc, Plan, State
 from .tables import Axis, Table
 from .timing import (
     LOGIC_MARGIN,
     RAMP_SAMPLES,
     Failure,
     Measurement,
-    _alters,
-    _simulate,
+    alters,
     backend_for,
+    simulate,
     static_current,
 )
 
 TOGGLE_TAIL = 4.0  # ramp durations after the ramp, before any extension
 TOGGLE_EXTENSIONS = 3
 
-SLEW_AXIS = "input_transition_time"  # power_lut_template's name for the input slew
+# power_lut_template's variables: the input slew, the output's load and, on a two-output
+# cell, the other output's load.
+SLEW_AXIS = "input_transition_time"
 LOAD_AXIS = "total_output_net_capacitance"
+OTHER_LOAD_AXIS = "equal_or_opposite_output_net_capacitance"
 
 
 def power_quantity(edge: str) -> str:
@@ -138,11 +141,16 @@ def hidden_states(cell: CellSpec, pin: str) -> tuple[tuple[tuple[str, bool], ...
     return tuple(found)
 
 
+def combinational(config: LibraryConfig, cells: list[str] | None = None) -> list[CellSpec]:
+    """The chosen cells (all by default) that power covers: those without a flip-flop."""
+    chosen = [config.cell(n) for n in cells] if cells is not None else list(config.cells)
+    return [c for c in chosen if c.flop is None]
+
+
 def plan_toggles(config: LibraryConfig, cells: list[str] | None = None) -> tuple[TogglePoint, ...]:
     """Every hidden toggle of the chosen cells: pin × side state × input edge × slew."""
-    chosen = [config.cell(n) for n in cells] if cells is not None else list(config.cells)
     points = []
-    for cell in chosen:
+    for cell in combinational(config, cells):
         for pin in cell.inputs:
             for side in hidden_states(cell, pin):
                 for edge in EDGES:
@@ -160,7 +168,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    alters = _alters(deck, cell, vdd, values, point.load)
+    commands = alters(deck, cell, values, {o.pin: point.load for o in cell.outputs})
     outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}
     in_node = deck.input_node(point.related)
     in_branch = f"{deck.input_source(point.related)}#branch"
@@ -176,11 +184,11 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
         stop = ramp.end + tail
         request = Request(
             deck,
-            alters,
+            commands,
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
             (*outputs.values(), in_node, in_branch, supply),
         )
-        result, attempts = _simulate(backend, request)
+        result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
@@ -243,27 +251,41 @@ def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
     return tuple(states)
 
 
-def _arc_tables(cell: CellSpec, arc: Arc, state: State, by_point: dict) -> tuple[Table, ...]:
+def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
+    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
+    if arc.other:
+        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
+    return tuple(axes)
+
+
+def _arc_tables(
+    cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
+) -> tuple[Table, ...]:
+    axes = _axes(cell, arc)
+    mine = [
+        m
+        for m in measured
+        if (m.point.related, m.point.output, m.point.side) == (arc.related, arc.output, state.side)
+    ]
     tables = []
-    axes = (Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load))
     for out_edge in EDGES:
-        # Within a state the edge map is its own inverse (identity or swap).
-        edge = state.output_edge(out_edge)
-        grid = np.empty((len(cell.grid.slew), len(cell.grid.load)))
-        for i, s in enumerate(cell.grid.slew):
-            for j, c in enumerate(cell.grid.load):
-                point = TimingPoint(
-                    cell.name, arc.related, arc.output, state.side, edge, out_edge, s, c
-                )
-                try:
-                    grid[i, j] = by_point[point].internal_energy
-                except KeyError as exc:
-                    raise TableError(
-                        f"{power_quantity(out_edge)} has no measurement at slew {s:.4g} s, "
-                        f"load {c:.4g} F",
-                        cell=cell.name,
-                        arc=arc.label,
-                    ) from exc
+        energy = {}
+        for m in (m for m in mine if m.point.output_edge == out_edge):
+            p = m.point
+            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
+            energy[key] = m.internal_energy
+        grid = np.empty(tuple(len(a.values) for a in axes))
+        for index in np.ndindex(grid.shape):
+            key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
+            try:
+                grid[index] = energy[key]
+            except KeyError as exc:
+                where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
+                raise TableError(
+                    f"{power_quantity(out_edge)} has no measurement at {where}",
+                    cell=cell.name,
+                    arc=arc.label,
+                ) from exc
         tables.append(Table(axes, grid, power_quantity(out_edge), "J"))
     return tuple(tables)
 
@@ -298,23 +320,33 @@ def _hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pi
     return tuple(out)
 
 
+def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
+    """Leakage per input vector of every cell of the plan that power covers."""
+    names = set(dict.fromkeys(a.cell for a in plan.arcs))
+    return {
+        c.name: leakage(config, build_deck(config, c))
+        for c in combinational(config)
+        if c.name in names
+    }
+
+
 def tabulate(
     config: LibraryConfig,
     plan: Plan,
-    measurements: list[Measurement],
+    results: list,
     toggles: list[ToggleMeasurement],
-    leakages: dict[str, tuple[LeakageState, ...]],
+    leakage_states: dict[str, tuple[LeakageState, ...]],
 ) -> tuple[CellPower, ...]:
-    """Power of every cell of the plan; every timing point must have a measurement (a
-    toggle may be missing: its pin and state then get no table for that edge)."""
-    by_point = {m.point: m for m in measurements}
+    """Power of every cell of the plan that power covers; every timing point must have a
+    measurement (a toggle may be missing: its pin and state then get no table for that edge)."""
+    measured = [m for m in results if isinstance(m, Measurement)]
     cells = []
-    for name in dict.fromkeys(a.cell for a in plan.arcs):
-        cell = config.cell(name)
+    for cell in combinational(config, list(dict.fromkeys(a.cell for a in plan.arcs))):
+        mine = [m for m in measured if m.point.cell == cell.name]
         arcs = []
-        for arc in (a for a in plan.arcs if a.cell == name):
-            states = [(st, _arc_tables(cell, arc, st, by_point)) for st in arc.states]
+        for arc in (a for a in plan.arcs if a.cell == cell.name):
+            states = [(st, _arc_tables(cell, arc, st, mine)) for st in arc.states]
             arcs.append(ArcPower(arc, _worst(states), tuple(states)))
-        mine = [m for m in toggles if m.point.cell == name]
-        cells.append(CellPower(name, tuple(arcs), _hidden_tables(cell, mine), leakages[name]))
+        hidden = _hidden_tables(cell, [m for m in toggles if m.point.cell == cell.name])
+        cells.append(CellPower(cell.name, tuple(arcs), hidden, leakage_states[cell.name]))
     return tuple(cells)

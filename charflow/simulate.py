@@ -100,6 +100,10 @@ class SharedBackend:
         if self._loaded is not None:
             self._ng.exec_command("remcirc")
             self._loaded = None
+        # The compatibility mode applies to decks read after it is set.
+        self._ng.exec_command(
+            f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
+        )
         try:
             self._ng.load_circuit(deck.text)
         except NgSpiceCircuitError as exc:
@@ -218,6 +222,9 @@ class SubprocessBackend:
             )
             deck_path = Path(tmp) / "deck.sp"
             deck_path.write_text(text, encoding="utf-8")
+            if request.deck.compat:
+                # ngspice reads .spiceinit from its working folder before the deck.
+                (Path(tmp) / ".spiceinit").write_text(f"set ngbehavior={request.deck.compat}\n")
             start = time.perf_counter()
             try:
                 proc = subprocess.run(

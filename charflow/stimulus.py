@@ -39,8 +39,7 @@ class Ramp:
         """The PULSE vector for ``alter``; the pulse holds its second level for ever."""
         v1, v2 = self.levels
         hold = 1.0  # s: far beyond any transient charflow runs
-        fields = (v1, v2, self.start, self.duration, self.duration, hold, 2 * hold)
-        return "[ " + " ".join(f"{x:.12g}" for x in fields) + " ]"
+        return pulse_vector(v1, v2, self.start, self.duration, self.duration, hold, 2 * hold)
 
 
 def ramp(slew: float, edge: str, thresholds: Thresholds, vdd: float) -> Ramp:
@@ -52,4 +51,15 @@ def ramp(slew: float, edge: str, thresholds: Thresholds, vdd: float) -> Ramp:
 
 def constant(value: float) -> str:
     """A PULSE vector that holds ``value`` (a side input)."""
-    return f"[ {value:.12g} {value:.12g} 0 1e-12 1e-12 1 2 ]"
+    return pulse_vector(value, value, 0.0, 1e-12, 1e-12, 1.0, 2.0)
+
+
+# Pulse times are rounded to this grid: two sources' corners a hair apart (not equal) make
+# ngspice's breakpoint handling shrink the step to nothing ("timestep too small").
+TIME_QUANTUM = 1e-15  # s
+
+
+def pulse_vector(v1, v2, delay, rise, fall, width, period) -> str:
+    """The ``alter`` vector of a PULSE source, times rounded to TIME_QUANTUM."""
+    times = (round(x / TIME_QUANTUM) * TIME_QUANTUM for x in (delay, rise, fall, width, period))
+    return "[ " + " ".join(f"{x:.12g}" for x in (v1, v2, *times)) + " ]"

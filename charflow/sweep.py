@@ -8,12 +8,14 @@ so a worker's simulator reads each cell's testbench once per chunk at most.
 
 from __future__ import annotations
 
+import itertools
 import os
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 
 from . import logic
 from .config import CellSpec, LibraryConfig
+from .errors import ConfigError
 from .netlist import Deck, build_deck
 
 EDGES = ("rise", "fall")
@@ -44,6 +46,9 @@ class Arc:
     output: str
     sense: str  # positive_unate | negative_unate | non_unate
     states: tuple[State, ...]
+    kind: str = "combinational"  # combinational | clock | clear | preset
+    other: str | None = None  # the other output, when tables carry its load as index_3
+    output_edges: tuple[str, ...] = EDGES  # a clear or preset moves its output one way only
 
     @property
     def label(self) -> str:
@@ -52,6 +57,9 @@ class Arc:
 
 @dataclass(frozen=True, slots=True)
 class TimingPoint:
+    """One simulation of an arc: ``side`` holds every other input's value (for a clock arc,
+    the data that is captured); ``other_load`` is the other output's load on 3D tables."""
+
     cell: str
     related: str
     output: str
@@ -60,26 +68,115 @@ class TimingPoint:
     output_edge: str
     slew: float  # s, as the table records it
     load: float  # F
+    other_load: float | None = None  # F
+    kind: str = "combinational"
+
+    @property
+    def state_side(self) -> tuple[tuple[str, bool], ...]:
+        """The side inputs that name the point's state (``when``); none for sequential arcs."""
+        return self.side if self.kind == "combinational" else ()
 
     @property
     def label(self) -> str:
-        when = logic.when_condition(self.side) or "-"
+        when = logic.when_condition(self.state_side) or "-"
+        other = "" if self.other_load is None else f" other load {self.other_load:.4g} F"
         return (
             f"{self.related}->{self.output} {self.input_edge}/{self.output_edge} when {when} "
-            f"slew {self.slew:.4g} s load {self.load:.4g} F"
+            f"slew {self.slew:.4g} s load {self.load:.4g} F{other}"
         )
+
+
+@dataclass(frozen=True, slots=True)
+class ConstraintPoint:
+    """A setup or hold search of a data pin against the clock at one pair of slews."""
+
+    cell: str
+    constrained: str  # data pin
+    related: str  # clock pin
+    kind: str  # "setup" | "hold"
+    data_edge: str  # the constrained pin's transition the constraint is for
+    clock_edge: str
+    data_slew: float  # s
+    clock_slew: float  # s
+
+    @property
+    def label(self) -> str:
+        return (
+            f"{self.kind} {self.constrained} {self.data_edge} vs {self.related} "
+            f"{self.clock_edge}, data slew {self.data_slew:.4g} s, clock slew "
+            f"{self.clock_slew:.4g} s"
+        )
+
+
+@dataclass(frozen=True, slots=True)
+class PulsePoint:
+    """A minimum pulse width search on a clock or an asynchronous control pin."""
+
+    cell: str
+    pin: str
+    level: str  # "high" | "low": the pulse's level
+    slew: float  # s
+
+    @property
+    def label(self) -> str:
+        return f"minimum {self.level} pulse on {self.pin}, slew {self.slew:.4g} s"
+
+
+Point = TimingPoint | ConstraintPoint | PulsePoint
 
 
 @dataclass(frozen=True, slots=True)
 class Plan:
     arcs: tuple[Arc, ...]
-    points: tuple[TimingPoint, ...]
+    points: tuple[Point, ...]
 
-    def for_cell(self, cell: str) -> tuple[TimingPoint, ...]:
+    def for_cell(self, cell: str) -> tuple[Point, ...]:
         return tuple(p for p in self.points if p.cell == cell)
 
 
+def _assignment(expr: logic.Expr, pins, value: bool, fixed: dict[str, bool]) -> dict[str, bool]:
+    """The first assignment of ``pins`` (in truth-table order) that gives ``expr`` = value."""
+    for bits in itertools.product((False, True), repeat=len(pins)):
+        assign = {**fixed, **dict(zip(pins, bits, strict=True))}
+        if expr.evaluate(assign) == value:
+            return assign
+    raise ConfigError(f"no input values make {expr.to_liberty()} {int(value)}")
+
+
+def inactive_controls(cell: CellSpec) -> dict[str, bool]:
+    """Values of the asynchronous controls that leave the flop alone."""
+    flop = cell.flop
+    pins = [p for p in cell.inputs if p not in cell.data_inputs and p != flop.clock]
+    controls = [e for e in (flop.clear, flop.preset) if e is not None]
+    if not controls:
+        return {}
+    either = controls[0] if len(controls) == 1 else logic.Or(controls[0], controls[1])
+    return _assignment(either, pins, False, {})
+
+
+def capture_values(cell: CellSpec, state: bool) -> dict[str, bool]:
+    """Data and control values under which the active clock edge stores ``state``."""
+    fixed = inactive_controls(cell)
+    assign = _assignment(cell.flop.next_state, cell.data_inputs, state, fixed)
+    return {p: assign[p] for p in cell.inputs if p != cell.flop.clock}
+
+
+def stored_output(cell: CellSpec, pin: str, state: bool) -> bool:
+    """The value of output ``pin`` when the flop holds ``state``."""
+    a, b = cell.flop.state
+    out = next(o for o in cell.outputs if o.pin == pin)
+    return out.function.evaluate({a: state, b: not state})
+
+
+def _other(cell: CellSpec, pin: str) -> str | None:
+    if not cell.other_output_axis:
+        return None
+    return next(o.pin for o in cell.outputs if o.pin != pin)
+
+
 def arcs_of(cell: CellSpec) -> tuple[Arc, ...]:
+    if cell.flop is not None:
+        return _flop_arcs(cell)
     arcs = []
     for out in cell.outputs:
         for pin in cell.inputs:
@@ -92,48 +189,141 @@ def arcs_of(cell: CellSpec) -> tuple[Arc, ...]:
                     out.function, cell.inputs, pin, cell=cell.name, pin=out.pin
                 )
             )
-            arcs.append(Arc(cell.name, pin, out.pin, sense, states))
+            arcs.append(Arc(cell.name, pin, out.pin, sense, states, other=_other(cell, out.pin)))
     return tuple(arcs)
 
 
+def _flop_arcs(cell: CellSpec) -> tuple[Arc, ...]:
+    flop = cell.flop
+    arcs = []
+    for out in cell.outputs:
+        other = _other(cell, out.pin)
+        clock_state = State((), "non_unate")
+        arcs.append(
+            Arc(cell.name, flop.clock, out.pin, "non_unate", (clock_state,), "clock", other)
+        )
+        for kind, expr, stored in (("clear", flop.clear, False), ("preset", flop.preset, True)):
+            if expr is None:
+                continue
+            (pin,) = sorted(expr.variables())
+            # The control is asserted by its edge toward the value that makes expr true.
+            active_high = expr.evaluate({pin: True})
+            out_value = stored_output(cell, out.pin, stored)
+            sense = "positive_unate" if active_high == out_value else "negative_unate"
+            edge = "rise" if out_value else "fall"
+            arcs.append(
+                Arc(cell.name, pin, out.pin, sense, (State((), sense),), kind, other, (edge,))
+            )
+    return tuple(arcs)
+
+
+def control_edge(cell: CellSpec, arc: Arc) -> str:
+    """The edge of an asynchronous control pin that asserts it."""
+    expr = cell.flop.clear if arc.kind == "clear" else cell.flop.preset
+    return "rise" if expr.evaluate({arc.related: True}) else "fall"
+
+
+def _timing_points(cell: CellSpec, arc: Arc) -> list[TimingPoint]:
+    others = cell.grid.related_load if arc.other else (None,)
+    points = []
+    for state in arc.states:
+        if arc.kind == "combinational":
+            cases = [(edge, state.output_edge(edge), state.side) for edge in EDGES]
+        elif arc.kind == "clock":
+            cases = []
+            for out_edge in EDGES:
+                stored = next(
+                    v
+                    for v in (False, True)
+                    if stored_output(cell, arc.output, v) == (out_edge == "rise")
+                )
+                side = tuple(sorted(capture_values(cell, stored).items()))
+                cases.append((cell.flop.edge, out_edge, side))
+        else:
+            side = tuple(sorted(inactive_controls(cell).items()))
+            cases = [(control_edge(cell, arc), state.output_edge(control_edge(cell, arc)), side)]
+        for in_edge, out_edge, side in cases:
+            for slew in cell.grid.slew:
+                for load in cell.grid.load:
+                    for other in others:
+                        points.append(
+                            TimingPoint(
+                                cell.name,
+                                arc.related,
+                                arc.output,
+                                side,
+                                in_edge,
+                                out_edge,
+                                slew,
+                                load,
+                                other,
+                                arc.kind,
+                            )
+                        )
+    return points
+
+
+def _flop_points(cell: CellSpec) -> list[Point]:
+    flop = cell.flop
+    points: list[Point] = []
+    for data in cell.data_inputs:
+        for kind in ("setup", "hold"):
+            for edge in EDGES:
+                for ds in cell.grid.constraint_slew or cell.grid.slew:
+                    for cs in cell.grid.constraint_slew or cell.grid.slew:
+                        points.append(
+                            ConstraintPoint(
+                                cell.name, data, flop.clock, kind, edge, flop.edge, ds, cs
+                            )
+                        )
+    pulse_pins = [(flop.clock, "high"), (flop.clock, "low")]
+    for expr in (flop.clear, flop.preset):
+        if expr is not None:
+            (pin,) = sorted(expr.variables())
+            pulse_pins.append((pin, "high" if expr.evaluate({pin: True}) else "low"))
+    # Liberty's min_pulse_width is one number per pin and level: searched at the sharpest slew.
+    for pin, level in pulse_pins:
+        points.append(PulsePoint(cell.name, pin, level, min(cell.grid.slew)))
+    return points
+
+
 def plan(config: LibraryConfig, cells: Iterable[str] | None = None) -> Plan:
-    """Every arc, state, edge, slew and load of the chosen cells (all by default)."""
+    """Every arc, state, edge and grid point of the chosen cells (all by default), and for
+    flip-flops their setup, hold and pulse-width searches."""
     chosen = [config.cell(n) for n in cells] if cells is not None else list(config.cells)
     arcs: list[Arc] = []
-    points: list[TimingPoint] = []
+    points: list[Point] = []
     for cell in chosen:
         for arc in arcs_of(cell):
             arcs.append(arc)
-            for state in arc.states:
-                for edge in EDGES:
-                    for slew in cell.grid.slew:
-                        for load in cell.grid.load:
-                            points.append(
-                                TimingPoint(
-                                    cell.name,
-                                    arc.related,
-                                    arc.output,
-                                    state.side,
-                                    edge,
-                                    state.output_edge(edge),
-                                    slew,
-                                    load,
-                                )
-                            )
+            points.extend(_timing_points(cell, arc))
+        if cell.flop is not None:
+            points.extend(_flop_points(cell))
     return Plan(tuple(arcs), tuple(points))
 
 
-def chunks(points: Iterable[TimingPoint], size: int = CHUNK) -> list[tuple[TimingPoint, ...]]:
-    """Consecutive points of one cell, at most ``size`` each; the largest loads first so the
-    longest simulations start early and the short ones fill in at the end."""
-    by_cell: dict[str, list[TimingPoint]] = {}
+# Rough simulations per point, for scheduling: searches cost one run per bisection step.
+SEARCH_COST = 14
+
+
+def _cost(p: Point) -> float:
+    if isinstance(p, ConstraintPoint | PulsePoint):
+        return SEARCH_COST
+    return 1.0 + p.load * 1e12 + p.slew * 1e9  # one run (timing points, power's toggles)
+
+
+def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]]:
+    """Consecutive points of one cell and kind, about ``size`` simulations each; the costliest
+    first so the longest tasks start early and the short ones fill in at the end."""
+    groups: dict[tuple[str, type], list[Point]] = {}
     for p in points:
-        by_cell.setdefault(p.cell, []).append(p)
+        groups.setdefault((p.cell, type(p)), []).append(p)
     out = []
-    for group in by_cell.values():
-        for i in range(0, len(group), size):
-            out.append(tuple(group[i : i + size]))
-    out.sort(key=lambda c: -max(p.load * 1e12 + p.slew * 1e9 for p in c))
+    for (_, kind), group in groups.items():
+        step = max(1, size // SEARCH_COST) if kind in (ConstraintPoint, PulsePoint) else size
+        for i in range(0, len(group), step):
+            out.append(tuple(group[i : i + step]))
+    out.sort(key=lambda c: -sum(_cost(p) for p in c))
     return out
 
 
@@ -143,13 +333,13 @@ def default_jobs() -> int:
 
 def run(
     config: LibraryConfig,
-    points: Iterable[TimingPoint],
+    points: Iterable[Point],
     *,
     jobs: int | None = None,
     on_result: Callable[[object], None] | None = None,
     measure: Callable | None = None,
 ) -> Iterator[object]:
-    """Simulate and measure ``points``; yield one outcome (Measurement or Failure) per point.
+    """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point.
 
     Outcomes come in completion order; ``on_result`` is a hook for progress display.
     ``measure`` measures one cell's chunk (default ``timing.measure_chunk``; points of

@@ -13,12 +13,16 @@ import numpy as np
 
 from .config import CellSpec, LibraryConfig
 from .errors import TableError
-from .sweep import Arc, Plan, State, TimingPoint
+from .sequential import SearchResult
+from .sweep import Arc, ConstraintPoint, Plan, PulsePoint, State
 from .tables import Axis, Table
 from .timing import Measurement, pin_capacitance
 
 SLEW_AXIS = "input_net_transition"
 LOAD_AXIS = "total_output_net_capacitance"
+OTHER_LOAD_AXIS = "related_out_total_output_net_capacitance"
+CONSTRAINED_AXIS = "constrained_pin_transition"
+RELATED_AXIS = "related_pin_transition"
 
 
 def delay_quantity(output_edge: str) -> str:
@@ -57,62 +61,135 @@ class PinCap:
 
 
 @dataclass(frozen=True, slots=True)
+class ConstraintTables:
+    """Setup or hold of a data pin against the clock: rise_ and fall_constraint tables."""
+
+    pin: str
+    related: str
+    kind: str  # setup | hold
+    clock_edge: str
+    tables: tuple[Table, ...]
+
+    @property
+    def timing_type(self) -> str:
+        return f"{self.kind}_{'rising' if self.clock_edge == 'rise' else 'falling'}"
+
+
+@dataclass(frozen=True, slots=True)
+class PulseWidth:
+    pin: str
+    level: str  # high | low
+    width: float  # s
+    bound: bool  # an upper bound: the narrowest pulse the slew allows already worked
+
+
+@dataclass(frozen=True, slots=True)
 class CellTables:
     cell: CellSpec
     arcs: tuple[ArcTables, ...]
     pins: tuple[PinCap, ...]
+    constraints: tuple[ConstraintTables, ...] = ()
+    pulses: tuple[PulseWidth, ...] = ()
 
 
-def _grid_table(cell: CellSpec, quantity: str, values: dict[tuple[float, float], float]) -> Table:
-    slews, loads = cell.grid.slew, cell.grid.load
-    grid = np.empty((len(slews), len(loads)))
-    for i, s in enumerate(slews):
-        for j, c in enumerate(loads):
-            try:
-                grid[i, j] = values[(s, c)]
-            except KeyError as exc:
-                raise TableError(
-                    f"table {quantity} has no measurement at slew {s:.4g} s, load {c:.4g} F",
-                    cell=cell.name,
-                ) from exc
-    return Table((Axis(SLEW_AXIS, slews), Axis(LOAD_AXIS, loads)), grid, quantity, "s")
+def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
+    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
+    if arc.other:
+        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
+    return tuple(axes)
 
 
-def tabulate(
-    config: LibraryConfig, plan: Plan, measurements: list[Measurement]
-) -> tuple[CellTables, ...]:
-    """Tables for every cell of the plan; every point of the plan must have a measurement."""
-    by_key: dict[TimingPoint, Measurement] = {m.point: m for m in measurements}
+def _grid_table(
+    cell: CellSpec, axes: tuple[Axis, ...], quantity: str, values: dict[tuple, float], unit: str
+) -> Table:
+    grid = np.empty(tuple(len(a.values) for a in axes))
+    for index in np.ndindex(grid.shape):
+        key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
+        try:
+            grid[index] = values[key]
+        except KeyError as exc:
+            where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
+            raise TableError(
+                f"table {quantity} has no measurement at {where}", cell=cell.name
+            ) from exc
+    return Table(axes, grid, quantity, unit)
+
+
+def _state_tables(
+    cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
+) -> StateTables:
+    axes = _axes(cell, arc)
+    mine = [
+        m
+        for m in measured
+        if m.point.related == arc.related
+        and m.point.output == arc.output
+        and m.point.kind == arc.kind
+        and m.point.state_side == state.side
+    ]
+    tables = []
+    for out_edge in arc.output_edges:
+        delays, transitions = {}, {}
+        for m in mine:
+            if m.point.output_edge != out_edge:
+                continue
+            p = m.point
+            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
+            delays[key] = m.delay
+            transitions[key] = m.transition
+        tables.append(_grid_table(cell, axes, delay_quantity(out_edge), delays, "s"))
+        tables.append(_grid_table(cell, axes, transition_quantity(out_edge), transitions, "s"))
+    return StateTables(state, tuple(tables))
+
+
+def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[ConstraintTables, ...]:
+    out = []
+    groups: dict[tuple[str, str], list[SearchResult]] = {}
+    for r in results:
+        if isinstance(r.point, ConstraintPoint):
+            groups.setdefault((r.point.constrained, r.point.kind), []).append(r)
+    slews = cell.grid.constraint_slew or cell.grid.slew
+    axes = (Axis(CONSTRAINED_AXIS, slews), Axis(RELATED_AXIS, slews))
+    for (pin, kind), group in groups.items():
+        tables = []
+        for edge in ("rise", "fall"):
+            values = {
+                (r.point.data_slew, r.point.clock_slew): r.value
+                for r in group
+                if r.point.data_edge == edge
+            }
+            tables.append(_grid_table(cell, axes, f"{edge}_constraint", values, "s"))
+        out.append(
+            ConstraintTables(pin, cell.flop.clock, kind, group[0].point.clock_edge, tuple(tables))
+        )
+    return tuple(out)
+
+
+def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTables, ...]:
+    """Tables for every cell of the plan; every point of the plan must have a result."""
     cells = []
     for cell_name in dict.fromkeys(a.cell for a in plan.arcs):
         cell = config.cell(cell_name)
+        measured = [m for m in results if isinstance(m, Measurement) and m.point.cell == cell_name]
+        searches = [r for r in results if isinstance(r, SearchResult) and r.point.cell == cell_name]
         arc_tables = []
         for arc in (a for a in plan.arcs if a.cell == cell_name):
-            states = []
-            for state in arc.states:
-                tables = []
-                for edge in ("rise", "fall"):
-                    out_edge = state.output_edge(edge)
-                    delays, transitions = {}, {}
-                    for s in cell.grid.slew:
-                        for c in cell.grid.load:
-                            point = TimingPoint(
-                                cell.name, arc.related, arc.output, state.side, edge, out_edge, s, c
-                            )
-                            m = by_key.get(point)
-                            if m is not None:
-                                delays[(s, c)] = m.delay
-                                transitions[(s, c)] = m.transition
-                    tables.append(_grid_table(cell, delay_quantity(out_edge), delays))
-                    tables.append(_grid_table(cell, transition_quantity(out_edge), transitions))
-                states.append(StateTables(state, tuple(tables)))
+            states = [_state_tables(cell, arc, st, measured) for st in arc.states]
             arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
-        measured = [m for m in measurements if m.point.cell == cell_name]
-        caps = pin_capacitance(measured, config.process.vdd)
+        caps = pin_capacitance(
+            [m for m in measured if m.point.kind == "combinational"], config.process.vdd
+        )
         pins = tuple(
             PinCap(p, caps.get((p, "rise"), 0.0), caps.get((p, "fall"), 0.0)) for p in cell.inputs
         )
-        cells.append(CellTables(cell, tuple(arc_tables), pins))
+        pulses = tuple(
+            PulseWidth(r.point.pin, r.point.level, r.value, r.bound)
+            for r in searches
+            if isinstance(r.point, PulsePoint)
+        )
+        cells.append(
+            CellTables(cell, tuple(arc_tables), pins, _constraints(cell, searches), pulses)
+        )
     return tuple(cells)
 
 

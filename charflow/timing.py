@@ -19,7 +19,7 @@ from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
-from .netlist import Deck
+from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
 
@@ -36,11 +36,15 @@ class Measurement:
     delay: float  # s; may be negative, never clipped
     transition: float  # s, already divided by the slew derate
     input_charge: float  # C drawn from the input source over the run
-    supply_energy: float  # J the supply delivered beyond its static draw over the run
-    internal_energy: float  # J: supply_energy less what the external loads took from the supply
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
     stop: float  # s, the transient's final stop time
+    # Energies are None where the point's runner does not measure them (flip-flop events).
+    supply_energy: float | None = None  # J the supply delivered beyond its static draw
+    # J: supply_energy less what the external loads took from the supply, shared equally by
+    # the outputs that switched together (a power tool adds the internal power of every output
+    # that toggles, so the event counts once)
+    internal_energy: float | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -61,15 +65,27 @@ def backend_for(config: LibraryConfig):
     return _BACKENDS[key]
 
 
-def _alters(
-    deck: Deck, cell: CellSpec, vdd: float, values: dict[str, str], load: float
+def alters(
+    deck: Deck, cell: CellSpec, values: dict[str, str], loads: dict[str, float]
 ) -> tuple[str, ...]:
+    """``alter`` commands setting every input's PULSE and every output's load (unlisted
+    outputs stay parked at a negligible load)."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
-    commands += [f"alter {deck.load_cap(o.pin)} = {load:.12g}" for o in cell.outputs]
+    commands += [
+        f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
+    ]
     return tuple(commands)
 
 
-def _simulate(backend, request: Request) -> tuple[Result, int]:
+def point_loads(cell: CellSpec, point: TimingPoint) -> dict[str, float]:
+    loads = {point.output: point.load}
+    if point.other_load is not None:
+        other = next(o.pin for o in cell.outputs if o.pin != point.output)
+        loads[other] = point.other_load
+    return loads
+
+
+def simulate(backend, request: Request) -> tuple[Result, int]:
     """Run with the fallback ladder; return the result and the number of attempts."""
     errors = []
     for attempt, options in enumerate(RETRY_LADDER, 1):
@@ -93,10 +109,8 @@ def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -
     if key not in _STATIC:
         vdd = config.process.vdd
         values = {p: stimulus.constant(vdd if b else 0.0) for p, b in key[1]}
-        request = Request(
-            deck, _alters(deck, cell, vdd, values, 0.0), "op", (f"{deck.supply}#branch",)
-        )
-        result, _ = _simulate(backend_for(config), request)
+        request = Request(deck, alters(deck, cell, values, {}), "op", (f"{deck.supply}#branch",))
+        result, _ = simulate(backend_for(config), request)
         # A source's branch current flows into its + node from outside: out of it is −i.
         _STATIC[key] = -float(result.vectors[f"{deck.supply}#branch"][-1])
     return _STATIC[key]
@@ -110,7 +124,7 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    alters = _alters(deck, cell, vdd, values, point.load)
+    commands = alters(deck, cell, values, point_loads(cell, point))
     out_node = deck.output_node(point.output)
     out_nodes = tuple(deck.output_node(o.pin) for o in cell.outputs)
     in_node = deck.input_node(point.related)
@@ -120,16 +134,21 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     target = vdd if point.output_edge == "rise" else 0.0
     start_level = vdd - target
 
-    # The run ends once the output is within the settle tolerance of its final rail and the
-    # input ramp is over, so the input charge and the supply energy are whole (a slow ramp can
-    # leave the output at its rail while the input still moves); the stop time is only a cap
-    # for outputs that never get there.
+    # The run ends once every output that switches is within the settle tolerance of its final
+    # rail and the input ramp is over, so the input charge and the supply energy are whole (a
+    # slow ramp can leave the output at its rail while the input still moves; a second output
+    # driven from the first settles after it); the stop time is only a cap for outputs that
+    # never get there.
     tol = sim.settle * vdd
-    stop_when = (
-        f"v({out_node}) > {vdd - tol:.6g}"
-        if point.output_edge == "rise"
-        else f"v({out_node}) < {tol:.6g}"
-    ) + f" when time > {ramp.end:.12g}"
+    before = {**dict(point.side), point.related: point.input_edge == "fall"}
+    after = {**before, point.related: point.input_edge == "rise"}
+    rising = point.output_edge == "rise"
+    settled = [f"v({out_node}) > {vdd - tol:.6g}" if rising else f"v({out_node}) < {tol:.6g}"]
+    for o, node in zip(cell.outputs, out_nodes, strict=True):
+        final = o.function.evaluate(after)
+        if o.pin != point.output and final != o.function.evaluate(before):
+            settled.append(f"v({node}) > {vdd - tol:.6g}" if final else f"v({node}) < {tol:.6g}")
+    stop_when = " when ".join([*settled, f"time > {ramp.end:.12g}"])
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
     max_step = ramp.duration / RAMP_SAMPLES
     runs = 0
@@ -139,12 +158,12 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     for refinement in range(REFINEMENTS + 1):
         request = Request(
             deck,
-            alters,
+            commands,
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
             vectors,
             stop_when=stop_when,
         )
-        result, attempts = _simulate(backend, request)
+        result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
@@ -172,51 +191,67 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     current = -result.vectors[supply]
-    final = {**dict(point.side), point.related: point.input_edge == "rise"}
-    static = (float(current[0]), static_current(config, deck, final))
+    static = (float(current[0]), static_current(config, deck, after))
     energy = supply_energy(t, current, vdd, t_in, static)
     # A load charging by dv took C·vdd·dv from the supply (C·V² once at the rail, half of it
     # stored); one discharging takes nothing from it. Counting the dv reached rather than the
     # full swing keeps the window's end from cutting off load energy as if it were the cell's.
-    loads = sum(
-        point.load * vdd * max(float(result.vectors[n][-1] - result.vectors[n][0]), 0.0)
-        for n in out_nodes
-    )
+    loads = point_loads(cell, point)
+    taken, switched = 0.0, 0
+    for o, node in zip(cell.outputs, out_nodes, strict=True):
+        dv = float(result.vectors[node][-1] - result.vectors[node][0])
+        taken += loads.get(o.pin, PARKED_LOAD) * vdd * max(dv, 0.0)
+        switched += abs(dv) > vdd / 2
     return Measurement(
         point=point,
         delay=t_out - t_in,
         transition=raw_transition / thr.slew_derate,
         input_charge=charge,
         supply_energy=energy,
-        internal_energy=energy - loads,
+        internal_energy=(energy - taken) / switched,
         runs=runs,
         sim_seconds=seconds,
         stop=stop,
     )
 
 
-def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list[Measurement | Failure]:
+def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
-    out: list[Measurement | Failure] = []
+    from . import sequential
+    from .sweep import ConstraintPoint, PulsePoint
+
+    out: list = []
     for point in points:
         try:
-            out.append(measure_point(config, deck, point))
+            if isinstance(point, ConstraintPoint):
+                out.append(sequential.measure_constraint(config, deck, point))
+            elif isinstance(point, PulsePoint):
+                out.append(sequential.measure_pulse(config, deck, point))
+            elif point.kind != "combinational":
+                out.append(sequential.measure_clocked(config, deck, point))
+            else:
+                out.append(measure_point(config, deck, point))
         except (MeasurementError, SimulatorError) as exc:
             out.append(Failure(point, exc.reason))
     return out
 
 
 def check_function(config: LibraryConfig, deck: Deck) -> None:
-    """Every input vector gives the declared output levels at DC; raise naming the vector."""
+    """Every input vector gives the declared output levels at DC; raise naming the vector.
+    A flip-flop is checked by clocking every data vector in from either stored value."""
     cell = config.cell(deck.cell)
+    if cell.flop is not None:
+        from .sequential import check_flop
+
+        return check_flop(config, deck)
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)
     for bits in itertools.product((False, True), repeat=len(cell.inputs)):
         assign = dict(zip(cell.inputs, bits, strict=True))
         values = {p: stimulus.constant(vdd if b else 0.0) for p, b in assign.items()}
-        request = Request(deck, _alters(deck, cell, vdd, values, 0.0), "op", outputs)
-        result, _ = _simulate(backend, request)
+        request = Request(deck, alters(deck, cell, values, {}), "op", outputs)
+        result, _ = simulate(backend, request)
         vector = " ".join(f"{p}={int(b)}" for p, b in assign.items())
         for spec, node in zip(cell.outputs, outputs, strict=True):
             level = float(result.vectors[node][-1])

@@ -29,6 +29,7 @@ ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"
 # Values are written with 7 significant digits ("{:.7g}"): a relative rounding of at most 5e-7.
 RTOL = 1e-6
+SAME_EVENT_RTOL = 0.01  # one event's energy from two runs with different time steps
 QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
 
 AOI21_TOML = """\
@@ -53,6 +54,30 @@ params = {{ wna = 0.8e-6, wnb = 0.4e-6, wpa = 1.6e-6, wpb = 1.6e-6, l = 0.1e-6 }
 inputs = ["A1", "A2", "B"]
 outputs = {{ Y = "!((A1&A2)|B)" }}
 area = 1.6
+"""
+
+
+BUFC_TOML = """\
+[library]
+name = "cfg_bufc"
+time_unit = "ns"
+cap_unit = "pf"
+
+[process]
+models = [{{ file = "{model}", section = "tt" }}]
+vdd = 1.2
+
+[grid]
+slew = [0.02, 0.1]
+load = [0.002, 0.01]
+related_load = [0.002, 0.01]
+
+[[cell]]
+name = "BUFC_X1"
+template = "{template}"
+params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
+inputs = ["A"]
+outputs = {{ Y = "A", YN = "!A" }}
 """
 
 
@@ -372,7 +397,11 @@ def _energy_table(cfg: LibraryConfig, group: Group, table: Table, templates: dic
     capacitance unit times 1 V^2 (1 pF V^2 = 1 pJ), slew in the time unit."""
     got = group.get_group(table.quantity)
     assert table.unit == "J"
-    per_axis = {power.SLEW_AXIS: cfg.time_scale, power.LOAD_AXIS: cfg.cap_scale}
+    per_axis = {
+        power.SLEW_AXIS: cfg.time_scale,
+        power.LOAD_AXIS: cfg.cap_scale,
+        power.OTHER_LOAD_AXIS: cfg.cap_scale,
+    }
     values = np.asarray(table.values) / cfg.cap_scale
     np.testing.assert_allclose(
         got.get_array("values").reshape(values.shape), values, rtol=RTOL, atol=0
@@ -515,3 +544,44 @@ def test_json_has_the_same_power(run: Characterized) -> None:
             m.point.slew,
         )
         assert rec["energy_J"] == m.energy
+
+
+@pytest.fixture(scope="module")
+def bufc(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
+    out = tmp_path_factory.mktemp("bufc")
+    path = out / "cfg_bufc.toml"
+    path.write_text(
+        BUFC_TOML.format(
+            model=(ROOT / "models" / "vellum90_l1.lib").as_posix(),
+            template=(ROOT / "templates" / "cells" / "bufc.sp.j2").as_posix(),
+        ),
+        encoding="utf-8",
+    )
+    return _characterize(config.load(path), out)
+
+
+def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
+    # A cell with Y and YN: each output's internal_power names the other as
+    # equal_or_opposite_output, and its tables take that output's load as index_3.
+    cfg, lib = bufc.config, bufc.lib
+    templates = _power_templates(lib)
+    (cell,) = bufc.result.power
+    pins = lib.get_group("cell", "BUFC_X1")
+    by_output = {}
+    for arc in cell.arcs:
+        (group,) = pins.get_group("pin", arc.arc.output).get_groups("internal_power")
+        assert _text(group["related_pin"]) == "A"
+        assert _text(group["equal_or_opposite_output"]) == arc.arc.other
+        for table in arc.default:
+            assert table.axis_names[2] == power.OTHER_LOAD_AXIS
+            _energy_table(cfg, group, table, templates)
+        by_output[arc.arc.output] = {t.quantity: t.values for t in arc.default}
+    assert sorted(by_output) == ["Y", "YN"]
+    # One edge of A switches both outputs; each output's table holds half of that event, so a
+    # power tool adding the internal power of every output that toggles counts it once. Y's
+    # rise at (slew, load of Y, load of YN) is the event of YN's fall at (slew, load of YN,
+    # load of Y): the two runs differ only in whose edge refines the time step.
+    for y_edge, yn_edge in (("rise", "fall"), ("fall", "rise")):
+        y = by_output["Y"][f"{y_edge}_power"]
+        yn = by_output["YN"][f"{yn_edge}_power"]
+        np.testing.assert_allclose(y, np.swapaxes(yn, 1, 2), rtol=SAME_EVENT_RTOL, atol=0)

@@ -1,0 +1,79 @@
+"""The full demo, run once through the installed command (slow: every cell on a 7 x 7 grid
+with the BSIM demo models)."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+from liberty.parser import parse_liberty
+
+from charflow.tables import Table
+
+pytestmark = pytest.mark.slow
+
+# Sutherland, Sproull & Harris, "Logical Effort", 1999: input capacitance of NAND2 and NOR2
+# sized for the inverter's drive, over the inverter's, is 4/3 and 5/3 (p/n mobility ratio 2).
+LOGICAL_EFFORT = {"NAND2_X1": 4 / 3, "NOR2_X1": 5 / 3}
+LE_RTOL = 0.15
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    exe = shutil.which("charflow")
+    if exe is None or shutil.which("ngspice") is None:
+        pytest.fail("the demo needs the installed charflow command and ngspice")
+    out = tmp_path_factory.mktemp("demo")
+    proc = subprocess.run(
+        [exe, "demo", "--out", str(out), "--quiet"], capture_output=True, text=True, timeout=900
+    )
+    assert proc.returncode == 0, proc.stderr
+    return out, json.loads((out / "vellum90_tt.json").read_text())
+
+
+def _tables(doc):
+    for cell in doc["cells"]:
+        for arc in cell["arcs"]:
+            for t in arc["tables"]:
+                yield cell["name"], arc["related_pin"], Table.from_dict(t)
+
+
+def test_demo_tables_grow_with_load(demo):
+    # Delay and transition grow with the output load in every NLDM table (common practice).
+    _, doc = demo
+    count = 0
+    for cell, pin, table in _tables(doc):
+        steps = np.diff(table.values, axis=1)
+        assert (steps > 0).all(), f"{cell} {pin} {table.quantity} not increasing with load"
+        count += 1
+    assert count == 4 * sum(len(c["arcs"]) for c in doc["cells"])
+
+
+def test_demo_delay_mostly_grows_with_input_slew(demo):
+    # Delay grows with input slew for most arcs (common practice); at a light load a fast
+    # output can reach its threshold sooner as the input slows, so only the heavy load is held.
+    _, doc = demo
+    for cell, pin, table in _tables(doc):
+        if table.quantity.startswith("cell_"):
+            assert (np.diff(table.values[:, -1]) > 0).all(), f"{cell} {pin} {table.quantity}"
+
+
+def test_demo_logical_effort_of_input_capacitance(demo):
+    _, doc = demo
+    caps = {
+        c["name"]: max(max(p["rise_capacitance_F"], p["fall_capacitance_F"]) for p in c["inputs"])
+        for c in doc["cells"]
+    }
+    for cell, ratio in LOGICAL_EFFORT.items():
+        assert caps[cell] / caps["INV_X1"] == pytest.approx(ratio, rel=LE_RTOL), cell
+
+
+def test_demo_liberty_parses_and_holds_every_cell(demo):
+    out, doc = demo
+    lib = parse_liberty((out / "vellum90_tt.lib").read_text())
+    names = [g.args[0] for g in lib.get_groups("cell")]
+    assert names == [c["name"] for c in doc["cells"]]
+    assert len(names) >= 6
