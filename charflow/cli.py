@@ -10,7 +10,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, config, flow
+from . import __version__, config, fidelity, flow, gridstudy
 from .errors import (
     CharflowError,
     ConfigError,
@@ -37,7 +37,76 @@ def _parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
+    for p in (run, demo):
+        p.add_argument(
+            "--fidelity", action="store_true", help="then check the tables off their grid"
+        )
+
+    fid = sub.add_parser(
+        "fidelity", help="re-simulate off the grid and report how accurate the tables are"
+    )
+    fid.add_argument("config", type=Path)
+    _common(fid)
+    fid.add_argument("--cell", action="append", help="only this cell (repeatable)")
+
+    study = sub.add_parser(
+        "grid-study", help="find the smallest grid that meets a target error for one arc"
+    )
+    study.add_argument("config", type=Path)
+    _common(study)
+    study.add_argument("--cell", required=True, help="the cell to study")
+    study.add_argument("--arc", help="FROM:TO, related input and output (default: first arc)")
+    study.add_argument(
+        "--target",
+        type=_fraction,
+        action="append",
+        help="largest relative error allowed, e.g. 1%% or 0.01 (repeatable; default 1%%)",
+    )
+    study.add_argument(
+        "--sizes",
+        type=_sizes,
+        default=gridstudy.SIZES,
+        help="points per axis to try, MIN:MAX (default 3:12)",
+    )
+    study.add_argument(
+        "--reference",
+        type=_reference,
+        default=gridstudy.REFERENCE_POINTS,
+        help=f"points per axis of the reference grid (default {gridstudy.REFERENCE_POINTS})",
+    )
     return parser
+
+
+def _fraction(text: str) -> float:
+    try:
+        value = float(text[:-1]) / 100 if text.endswith("%") else float(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"not a fraction or a percentage: {text!r}") from exc
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"must be between 0 and 100 %, got {text!r}")
+    return value
+
+
+def _sizes(text: str) -> tuple[int, ...]:
+    low, _, high = text.partition(":")
+    try:
+        lo, hi = int(low), int(high or low)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"must be MIN:MAX, got {text!r}") from exc
+    if not 2 <= lo <= hi:
+        raise argparse.ArgumentTypeError(f"must be MIN:MAX with 2 <= MIN <= MAX, got {text!r}")
+    return tuple(range(lo, hi + 1))
+
+
+def _reference(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from exc
+    # The optimizer's surrogate is a cubic spline: it needs at least 4 points per axis.
+    if value < 4:
+        raise argparse.ArgumentTypeError(f"must be at least 4, got {value}")
+    return value
 
 
 def _common(p: argparse.ArgumentParser) -> None:
@@ -111,7 +180,83 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
         for f in result.failures[:20]:
             print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
         return EXIT_FAILED_POINTS
+    if args.fidelity:
+        return _check_fidelity(cfg, result.cells, out, args)
     return EXIT_OK
+
+
+def _setup(args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = config.load(args.config)
+    if args.jobs is not None and args.jobs < 1:
+        raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    out = args.out or RUNS / cfg.name
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
+    return cfg, out
+
+
+def _check_fidelity(cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace) -> int:
+    progress = _Progress(args.quiet)
+    try:
+        report = fidelity.check(
+            cfg, cells, jobs=args.jobs, on_start=progress.start, on_result=progress.result
+        )
+    finally:
+        progress.close()
+    written = fidelity.write(cfg, report, out, jobs=args.jobs)
+    print("\n".join(fidelity.summary_lines(cfg, report)))
+    for path in written:
+        print(f"wrote {path}")
+    return EXIT_FAILED_POINTS if report.failures else EXIT_OK
+
+
+def _fidelity(args: argparse.Namespace) -> int:
+    """Characterize (the tables are not written again), then check the tables off the grid."""
+    cfg, out = _setup(args)
+    progress = _Progress(args.quiet)
+    try:
+        result = flow.characterize(
+            cfg, cells=args.cell, jobs=args.jobs, on_start=progress.start, on_result=progress.result
+        )
+    finally:
+        progress.close()
+    if result.failures:
+        print(f"{len(result.failures)} grid point(s) failed; no tables to check:", file=sys.stderr)
+        for f in result.failures[:20]:
+            print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+        return EXIT_FAILED_POINTS
+    return _check_fidelity(cfg, result.cells, out, args)
+
+
+def _grid_study(args: argparse.Namespace) -> int:
+    cfg, out = _setup(args)
+    progress = _Progress(args.quiet)
+
+    def phase(total: int) -> None:  # two sweeps: a bar for each
+        progress.close()
+        progress.start(total)
+
+    try:
+        study = gridstudy.study(
+            cfg,
+            args.cell,
+            args.arc,
+            sizes=args.sizes,
+            reference_points=args.reference,
+            targets=args.target or (0.01,),
+            jobs=args.jobs,
+            on_start=phase,
+            on_result=progress.result,
+        )
+    finally:
+        progress.close()
+    written = gridstudy.write(cfg, study, out)
+    print("\n".join(gridstudy.summary_lines(cfg, study)))
+    for path in written:
+        print(f"wrote {path}")
+    return EXIT_FAILED_POINTS if any(c.failures for c in study.candidates) else EXIT_OK
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -119,6 +264,10 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "run":
             return _run(args.config, args)
+        if args.command == "fidelity":
+            return _fidelity(args)
+        if args.command == "grid-study":
+            return _grid_study(args)
         return _run(DEMO_CONFIG, args)
     except (ConfigError, NetlistError, FunctionalMismatchError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)

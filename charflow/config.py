@@ -133,10 +133,17 @@ class Simulation:
     window: float | None = None  # s the transient may run past the input ramp (a cap)
     samples_per_edge: int = 20  # minimum samples across the output transition
     settle: float = 0.01  # fraction of vdd the output must come within of its final rail
-    pushout: float = (
-        0.1  # setup/hold pass: clock-to-output at most this much over its relaxed value
-    )
+    pushout: float = 0.1  # setup/hold pass: clock-to-output at most this much over relaxed
     bisect_tolerance: float = 1e-12  # s, width of the final bracket of a constraint search
+
+
+@dataclass(frozen=True, slots=True)
+class Fidelity:
+    """How the tables are checked against re-simulation off their grid (``[fidelity]``)."""
+
+    random_points: int = 16  # Latin-hypercube points per table, besides every cell centre
+    seed: int = 1
+    rel_floor: float = 1e-12  # s; relative errors divide by max(|simulated|, rel_floor)
 
 
 @dataclass(frozen=True, slots=True)
@@ -150,6 +157,7 @@ class LibraryConfig:
     grid: Grid
     cells: tuple[CellSpec, ...]
     simulation: Simulation = field(default_factory=Simulation)
+    fidelity: Fidelity = field(default_factory=Fidelity)
 
     @property
     def time_scale(self) -> float:
@@ -297,6 +305,7 @@ _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
 _GRID_KEYS = {"slew", "load", "related_load", "constraint_slew"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
+_FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
 _CELL_KEYS = {
     "name",
     "template",
@@ -312,7 +321,7 @@ _CELL_KEYS = {
     "other_output_axis",
 }
 _FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
-_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation"}
+_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation", "fidelity"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -368,6 +377,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     )
     grid = Grid(slew or (), load_ or (), related or (), constraint or ())
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
+    fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
 
     cells_doc = doc.get("cell", [])
     if not isinstance(cells_doc, list) or not cells_doc:
@@ -402,6 +412,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         grid=grid,
         cells=tuple(cells),
         simulation=simulation,
+        fidelity=fidelity,
     )
 
 
@@ -492,6 +503,24 @@ def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
         settle=settle or d.settle,
         pushout=pushout or d.pushout,
         bisect_tolerance=d.bisect_tolerance if tol is None else tol * tscale,
+    )
+
+
+def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
+    d = Fidelity()
+    count = r.get(doc, "random_points", int, "fidelity", d.random_points)
+    if count is not None and count < 0:
+        r.problem("fidelity.random_points", f"must not be negative, got {count}")
+        count = None
+    seed = r.get(doc, "seed", int, "fidelity", d.seed)
+    if seed is not None and seed < 0:
+        r.problem("fidelity.seed", f"must not be negative, got {seed}")
+        seed = None
+    floor = r.number(doc, "rel_floor", "fidelity", None, low=0.0)
+    return Fidelity(
+        random_points=d.random_points if count is None else count,
+        seed=d.seed if seed is None else seed,
+        rel_floor=d.rel_floor if floor is None else floor * tscale,
     )
 
 

@@ -256,13 +256,19 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     }
 
 
-def write_atomic(path: Path, text: str) -> None:
+OUTPUT_MODE = 0o644
+
+
+def write_atomic(path: Path, text: str | bytes) -> None:
     """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
-    path.parent.mkdir(parents=True, exist_ok=True)
+    binary = isinstance(text, bytes)
     try:
+        path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
             fh.write(text)
+        # mkstemp makes the file private; outputs are ordinary files.
+        os.chmod(tmp, OUTPUT_MODE)
         os.replace(tmp, path)
     except OSError as exc:
         raise OutputError(f"cannot write output: {exc}", file=path) from exc

@@ -176,7 +176,7 @@ class SharedBackend:
         return out
 
     def _reset_options(self, options: tuple[str, ...], cell: str) -> None:
-        defaults = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3"}
+        defaults = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
         for option in options:
             key = option.split("=")[0].strip().lower()
             if key in defaults:

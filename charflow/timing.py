@@ -65,12 +65,31 @@ def backend_for(config: LibraryConfig):
     return _BACKENDS[key]
 
 
+# Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters).
+GRID_POINTS = 40
+
+
+def breakpoints(start: float, stop: float, spacing: float) -> str:
+    """A PWL vector for the breakpoint source: corners every ``spacing`` over [start, stop]."""
+    n = int(min(GRID_POINTS, max(2, (stop - start) / spacing)))
+    times = np.linspace(start, stop, n)
+    return "[ 0 0 " + " ".join(f"{x:.9g} 0" for x in times if x > 0) + " 1 0 ]"
+
+
+PARKED_GRID = "[ 0 0 1 0 ]"
+
+
 def alters(
-    deck: Deck, cell: CellSpec, values: dict[str, str], loads: dict[str, float]
+    deck: Deck,
+    cell: CellSpec,
+    values: dict[str, str],
+    loads: dict[str, float],
+    grid: str = PARKED_GRID,
 ) -> tuple[str, ...]:
-    """``alter`` commands setting every input's PULSE and every output's load (unlisted
-    outputs stay parked at a negligible load)."""
+    """``alter`` commands setting every input's PULSE, every output's load (unlisted outputs
+    stay parked at a negligible load) and the breakpoint source."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
+    commands.append(f"alter @vgrid[pwl] = {grid}")
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
     ]
@@ -90,7 +109,7 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     errors = []
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
-            return backend.run(replace(request, options=options)), attempt
+            return backend.run(replace(request, options=request.options + options)), attempt
         except SimulatorError as exc:
             errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
     raise SimulatorError(

@@ -140,9 +140,14 @@ def _render(cell: str) -> str:
     return env.from_string((CELLS / f"{cell}.sp.j2").read_text()).render(**params)
 
 
+# Templates whose outputs are not a DC function of the inputs alone (a flip-flop) or that
+# have two outputs: their function is checked by charflow's own functional check instead.
+CHECKED_IN_TEST_SEQUENTIAL = {"dff", "bufc"}
+
+
 def test_every_template_has_a_case() -> None:
     templates = {p.name.removesuffix(".sp.j2") for p in CELLS.glob("*.sp.j2")}
-    assert templates == set(CELL_CASES)
+    assert templates == set(CELL_CASES) | CHECKED_IN_TEST_SEQUENTIAL
 
 
 @pytest.mark.parametrize("cell", sorted(CELL_CASES))
