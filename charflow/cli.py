@@ -10,7 +10,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, config, fidelity, flow, gridstudy
+from . import __version__, bench, config, estimate, fidelity, flow, gridstudy, sweep
 from .errors import (
     CharflowError,
     ConfigError,
@@ -34,6 +34,11 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("config", type=Path)
     _common(run)
     run.add_argument("--cell", action="append", help="only this cell (repeatable)")
+    run.add_argument(
+        "--plan",
+        action="store_true",
+        help="print the simulations per cell and arc and an estimated time; run no sweep",
+    )
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
@@ -73,6 +78,32 @@ def _parser() -> argparse.ArgumentParser:
         type=_reference,
         default=gridstudy.REFERENCE_POINTS,
         help=f"points per axis of the reference grid (default {gridstudy.REFERENCE_POINTS})",
+    )
+
+    bench_cmd = sub.add_parser(
+        "bench", help="time charflow against the naive way and the simulator"
+    )
+    bench_cmd.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
+    bench_cmd.add_argument(
+        "--library",
+        action="append",
+        choices=bench.LIBRARIES,
+        help="only this library (repeatable; default: all)",
+    )
+    bench_cmd.add_argument(
+        "--naive-points",
+        type=int,
+        default=bench.NAIVE_POINTS,
+        help="points the naive way runs per library",
+    )
+    bench_cmd.add_argument(
+        "--params",
+        type=int,
+        default=bench.KIT_PARAMS,
+        help=".param lines in the foundry-style model file",
+    )
+    bench_cmd.add_argument(
+        "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
     )
     return parser
 
@@ -143,15 +174,12 @@ class _Progress:
 
 
 def _run(cfg_path: Path, args: argparse.Namespace) -> int:
-    cfg = config.load(cfg_path)
-    if args.jobs is not None and args.jobs < 1:
-        raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
-    out = args.out or RUNS / cfg.name
-    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
+    if getattr(args, "plan", False):
+        cfg = _load(cfg_path, args)
+        jobs = args.jobs or sweep.default_jobs()
+        print(estimate.render(estimate.estimate(cfg, getattr(args, "cell", None), jobs)))
+        return EXIT_OK
+    cfg, out = _setup(cfg_path, args)
     progress = _Progress(args.quiet)
     try:
         result = flow.characterize(
@@ -185,11 +213,17 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _setup(args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = config.load(args.config)
+def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
+    cfg = config.load(cfg_path)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
+    return cfg
+
+
+def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = _load(cfg_path, args)
     out = args.out or RUNS / cfg.name
+    # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -214,7 +248,7 @@ def _check_fidelity(cfg: config.LibraryConfig, cells, out: Path, args: argparse.
 
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     progress = _Progress(args.quiet)
     try:
         result = flow.characterize(
@@ -231,7 +265,7 @@ def _fidelity(args: argparse.Namespace) -> int:
 
 
 def _grid_study(args: argparse.Namespace) -> int:
-    cfg, out = _setup(args)
+    cfg, out = _setup(args.config, args)
     progress = _Progress(args.quiet)
 
     def phase(total: int) -> None:  # two sweeps: a bar for each
@@ -259,6 +293,26 @@ def _grid_study(args: argparse.Namespace) -> int:
     return EXIT_FAILED_POINTS if any(c.failures for c in study.candidates) else EXIT_OK
 
 
+def _bench(args: argparse.Namespace) -> int:
+    for option, value, least in (
+        ("--jobs", args.jobs, 1),
+        ("--naive-points", args.naive_points, 1),
+        ("--params", args.params, 2),
+        ("--repeat", args.repeat, 1),
+    ):
+        if value is not None and value < least:
+            raise ConfigError(f"{option} must be at least {least}, got {value}")
+    results = bench.run(
+        jobs=args.jobs,
+        naive_points=args.naive_points,
+        params=args.params,
+        repeat=args.repeat,
+        libraries=tuple(args.library or bench.LIBRARIES),
+    )
+    print(bench.render(results))
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
@@ -268,6 +322,8 @@ def main(argv: list[str] | None = None) -> int:
             return _fidelity(args)
         if args.command == "grid-study":
             return _grid_study(args)
+        if args.command == "bench":
+            return _bench(args)
         return _run(DEMO_CONFIG, args)
     except (ConfigError, NetlistError, FunctionalMismatchError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)

@@ -8,6 +8,7 @@ reads the models and the cell once (see ``simulate``).
 
 from __future__ import annotations
 
+import functools
 import hashlib
 from dataclasses import dataclass
 from pathlib import Path
@@ -58,6 +59,13 @@ class Deck:
         return f"cf_out_{pin}".lower()
 
 
+@functools.lru_cache(maxsize=256)
+def _compiled(text: str) -> jinja2.Template:
+    # Compiling a template costs milliseconds, and every run renders each one more than once.
+    env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
+    return env.from_string(text)
+
+
 def render_cell(cell: CellSpec) -> str:
     """The cell's SPICE text: a rendered template or the plain netlist file."""
     source = cell.source
@@ -67,9 +75,8 @@ def render_cell(cell: CellSpec) -> str:
         raise NetlistError(f"cannot read netlist: {exc}", file=source, cell=cell.name) from exc
     if cell.template is None:
         return text
-    env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
     try:
-        return env.from_string(text).render(name=cell.name, **dict(cell.params))
+        return _compiled(text).render(name=cell.name, **dict(cell.params))
     except jinja2.TemplateSyntaxError as exc:
         raise NetlistError(
             f"template syntax error: {exc.message}", file=source, line=exc.lineno, cell=cell.name
@@ -145,13 +152,8 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     nodes = {cell.power.upper(): "cf_vdd", cell.ground.upper(): "0"}
     nodes.update({p.upper(): Deck.input_node(p) for p in cell.inputs})
     nodes.update({o.pin.upper(): Deck.output_node(o.pin) for o in cell.outputs})
-    env = jinja2.Environment(
-        loader=jinja2.FileSystemLoader(TEMPLATE_DIR),
-        undefined=jinja2.StrictUndefined,
-        keep_trailing_newline=True,
-    )
     process = config.process
-    text = env.get_template(TESTBENCH).render(
+    text = _compiled((TEMPLATE_DIR / TESTBENCH).read_text(encoding="utf-8")).render(
         cell=cell.name,
         models=process.models,
         cell_text=cell_text.rstrip("\n"),

@@ -35,7 +35,12 @@ RETRY_LADDER: tuple[tuple[str, ...], ...] = (
 # few devices that costs more than it saves, and with one worker per core the spinning
 # threads of two workers starve each other (measured: 15x slower); parallelism is across points.
 SINGLE_THREAD = "set num_threads=1"
+QUIET = "set noinit"  # no initial-solution listing per transient: a dozen callbacks less each
 RELEASE_EVERY = 200  # runs between clearing ngspice's command history (it grows per command)
+# Testbenches a worker keeps loaded (ngspice switches between them with `setcirc`), so a
+# worker that goes back to a cell does not read the models again: with a foundry's model
+# file that read can take seconds.
+MAX_CIRCUITS = 16
 
 
 @dataclass(frozen=True, slots=True)
@@ -79,6 +84,8 @@ class SharedBackend:
         # pending `stop when`; charflow clears it itself between runs instead.
         self._ng.NUMBER_OF_EXEC_CALLS_TO_RELEASE_MEMORY = float("inf")
         self._ng.exec_command(SINGLE_THREAD)
+        self._ng.exec_command(QUIET)
+        self._circuits: list[str] = []  # keys of the decks loaded, in ngspice's order
         self._runs = 0
         self._loaded: str | None = None
 
@@ -92,32 +99,56 @@ class SharedBackend:
                 f"ngspice command '{command}' failed: {_messages(self._ng.stderr)}", cell=cell
             ) from exc
 
-    def _load(self, deck: Deck) -> None:
+    def load(self, deck: Deck) -> None:
+        """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
         if self._loaded == deck.key:
+            return
+        if deck.key in self._circuits:
+            # ngspice numbers its circuits newest first, from 1.
+            self._ng.exec_command(f"setcirc {self._circuits.index(deck.key) + 1}")
+            self._loaded = deck.key
             return
         from PySpice.Spice.NgSpice.Shared import NgSpiceCircuitError
 
-        if self._loaded is not None:
+        self._loaded = None
+        if len(self._circuits) >= MAX_CIRCUITS:
+            # The oldest goes: made current, then removed.
+            self._ng.exec_command(f"setcirc {len(self._circuits)}")
             self._ng.exec_command("remcirc")
-            self._loaded = None
+            self._circuits.pop()
         # The compatibility mode applies to decks read after it is set.
         self._ng.exec_command(
             f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
         )
+        listed = len(self._circuits)
         try:
             self._ng.load_circuit(deck.text)
+            failed = None
         except NgSpiceCircuitError as exc:
-            messages = _messages(self._ng.stdout + self._ng.stderr)
-            raise SimulatorError(
-                f"ngspice cannot read the testbench: {messages}", cell=deck.cell
-            ) from exc
-        self._loaded = deck.key
+            failed = exc
+        messages = _messages(self._ng.stdout + self._ng.stderr)
+        # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
+        # either would shift the numbering of the others under them.
+        if self._listed() > listed:
+            if failed is None:
+                self._circuits.insert(0, deck.key)
+                self._loaded = deck.key
+                return
+            self._ng.exec_command("remcirc")
+        raise SimulatorError(
+            f"ngspice cannot read the testbench: {messages}", cell=deck.cell
+        ) from failed
+
+    def _listed(self) -> int:
+        """How many circuits ngspice holds (``setcirc`` without a number lists them)."""
+        listing = self._ng.exec_command("setcirc")
+        return len(re.findall(r"^(?:current\s+)?\d+\s", listing, flags=re.M | re.I))
 
     def run(self, request: Request) -> Result:
         from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
 
         cell = request.deck.cell
-        self._load(request.deck)
+        self.load(request.deck)
         for command in request.alters:
             self._command(command, cell)
         for option in request.options:
@@ -165,14 +196,17 @@ class SharedBackend:
         self._ng._ngspice_shared.ngSpice_Command(FFI.NULL)
 
     def _vectors(self, plot: str, names: tuple[str, ...], cell: str) -> dict[str, np.ndarray]:
-        data = self._ng.plot(None, plot)
+        # Only the vectors asked for, straight from the simulator's memory (one copy each).
+        from PySpice.Spice.NgSpice.Shared import FFI, ffi
+
         out = {}
-        lowered = {k.lower(): k for k in data}
         for name in ("time", *names) if plot.startswith("tran") else names:
-            key = lowered.get(name.lower())
-            if key is None:
+            info = self._ng._ngspice_shared.ngGet_Vec_Info(f"{plot}.{name}".encode())
+            # Transient and operating-point vectors are real; anything else is not ours.
+            if info == FFI.NULL or info.v_realdata == FFI.NULL:
                 raise SimulatorError(f"ngspice returned no vector {name} in plot {plot}", cell=cell)
-            out[name] = np.real(np.asarray(data[key]._data, dtype=np.complex128)).astype(np.float64)
+            data = ffi.buffer(info.v_realdata, info.v_length * 8)
+            out[name] = np.frombuffer(data, dtype=np.float64).copy()
         return out
 
     def _reset_options(self, options: tuple[str, ...], cell: str) -> None:
@@ -276,9 +310,16 @@ def _messages(lines: list[str] | str) -> str:
     return "; ".join((interesting or keep)[-6:]) or "no message"
 
 
+_SHARED: list[SharedBackend] = []
+
+
 def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:
     if name == "shared":
-        return SharedBackend()
+        # One per process: PySpice hands every caller the same simulator, whose loaded
+        # circuits this backend keeps track of.
+        if not _SHARED:
+            _SHARED.append(SharedBackend())
+        return _SHARED[0]
     if name == "subprocess":
         return SubprocessBackend(timeout=timeout)
     raise SimulatorError(f"unknown backend {name!r}; use 'shared' or 'subprocess'")

@@ -359,6 +359,8 @@ def run(
     if jobs == 1 or len(tasks) == 1:
         results: Iterable[list] = (chunk(config, decks[t[0].cell], t) for t in tasks)
     else:
+        # Worker processes, not this one, run the simulator: a crash of the shared library
+        # then costs a worker's chunk, not the run.
         results = Parallel(n_jobs=min(jobs, len(tasks)), return_as="generator_unordered")(
             delayed(chunk)(config, decks[t[0].cell], t) for t in tasks
         )

@@ -1,11 +1,11 @@
 """Simulating and measuring one sweep point, and checking a cell's function by simulation.
 
-The transient of a point ends when the output has settled and the input ramp is over (an
-ngspice stop condition), with a cap for outputs that never settle; its maximum step follows
-the input ramp and is refined when too few samples fall on the output edge. Besides delay and
-transition a point yields the input pin's charge and the supply's switching energy. Every run
-of a point is deterministic in the point alone, so re-running one arc reproduces its stored
-values.
+The transient of a point ends when every output that switches has settled and the input ramp
+is over (an ngspice stop condition), with a cap for outputs that never do; its first maximum
+step follows an estimate of the output edge (``stepsize``) and is refined when too few samples
+fall on the output edge. Besides delay and transition a point yields the input pin's charge and
+the supply's switching energy. Every run of a point is deterministic in the point alone, so
+re-running one arc reproduces its stored values.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from . import stimulus
+from . import stepsize, stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
@@ -135,7 +135,16 @@ def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -
     return _STATIC[key]
 
 
-def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
+def measure_point(
+    config: LibraryConfig, deck: Deck, point: TimingPoint, *, step: float | None = None
+) -> Measurement:
+    """Simulate and measure one point; ``step`` overrides the first maximum step, which is
+    otherwise estimated from the point's series (``stepsize``)."""
+    if step is None:
+        known = stepsize.probed(config, deck, point)
+        if known is not None:
+            return known
+        step = stepsize.first_step(config, deck, point)
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
@@ -169,7 +178,7 @@ def measure_point(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Meas
             settled.append(f"v({node}) > {vdd - tol:.6g}" if final else f"v({node}) < {tol:.6g}")
     stop_when = " when ".join([*settled, f"time > {ramp.end:.12g}"])
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
-    max_step = ramp.duration / RAMP_SAMPLES
+    max_step = step
     runs = 0
     seconds = 0.0
     backend = backend_for(config)

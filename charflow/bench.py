@@ -1,0 +1,622 @@
+"""The speed benchmark: charflow against the naive way, and against the simulator's own time.
+
+The simulator's analysis time is the floor; all charflow adds around it (process starts,
+netlist reading, vector transfer, measurement, scheduling, writing) is overhead. The naive
+way is what a user would script without charflow: one ``ngspice -b`` process per point, a
+complete netlist written for it with a ``.control`` block, the results read from what
+ngspice prints (``meas``). It is given charflow's estimated first step and stop time for
+each point, runs each once and on as many processes as charflow has workers, so it does no
+more simulator work and the speed-up it shows is charflow's overhead against its own.
+
+Every charflow run is a fresh process doing what ``charflow run`` does (``_child``), as a
+user starts it: its wall time includes Python's start, the functional check, worker start-up
+and writing, each stage timed.
+
+The libraries: the demo on its level-1 and its BSIM models (7 × 7 grid), and a model file of
+the kind foundries ship, generated here with invented values: thousands of ``.param``
+expressions, binned BSIM models and every device wrapped in a subcircuit. Ratios are measured
+side by side in the same run, since absolute times drift with the machine's load.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import random
+import re
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+from . import config as config_mod
+from . import netlist, stepsize, stimulus, sweep
+from .config import LibraryConfig
+from .errors import CharflowError, SimulatorError
+from .simulate import QUIET, SINGLE_THREAD
+
+PROJECT = Path(__file__).resolve().parent.parent
+DEMO = PROJECT / "demo" / "vellum90.toml"
+LEVEL1_MODELS = PROJECT / "models" / "vellum90_l1.lib"
+
+KIT_PARAMS = 3000  # .param lines in the generated foundry-style model file
+KIT_BINS = 4  # length bins per device type
+NAIVE_POINTS = 48  # points the naive way runs per library; its rate is scaled to the rest
+NAIVE_TIMEOUT = 600.0  # s per naive ngspice process
+
+# Targets (issue 7): throughput against the naive way per library, overhead over the floor,
+# scaling from one to two cores, peak memory per worker process.
+TARGET_SPEEDUP = {"level-1 demo": 3.0, "BSIM demo": 1.5, "foundry-style kit": 10.0}
+TARGET_FLOOR_RATIO = 1.3  # BSIM demo, all cores
+TARGET_SCALING = 1.8  # 1 -> 2 cores
+TARGET_PEAK_BYTES = 300e6
+
+
+@dataclass(frozen=True, slots=True)
+class RunStats:
+    """One way of measuring a set of points, timed (SI units)."""
+
+    label: str
+    workers: int
+    points: int
+    simulations: int
+    wall: float  # s
+    analysis: float  # s inside the simulator, summed over the points
+    cpu: float  # s of processor time, every process of the run together
+    peak_rss: float | None = None  # bytes, the largest process of the run
+    stages: tuple[tuple[str, float], ...] = ()  # (stage, s of wall time), in order
+
+    @property
+    def sweep(self) -> float:
+        """Wall time of the sweep alone (first point to last); the whole run's if not timed."""
+        return dict(self.stages).get("sweep", self.wall)
+
+    @property
+    def points_per_second(self) -> float:
+        return self.points / self.wall
+
+    @property
+    def simulations_per_second(self) -> float:
+        return self.simulations / self.wall
+
+    @property
+    def floor_ratio(self) -> float:
+        """Wall time over the simulator's time per worker: 1 would be no overhead at all."""
+        return self.wall / (self.analysis / self.workers)
+
+    @property
+    def sweep_floor_ratio(self) -> float:
+        """The same for the sweep alone, without start-up, checks and writing."""
+        return self.sweep / (self.analysis / self.workers)
+
+    @property
+    def busy(self) -> float:
+        """Share of the sweep's wall time each worker spends inside the simulator."""
+        return 1.0 / self.sweep_floor_ratio
+
+
+@dataclass(frozen=True, slots=True)
+class NaivePoint:
+    point: sweep.TimingPoint
+    delay: float  # s
+    transition: float  # s, divided by the slew derate
+
+
+@dataclass(frozen=True, slots=True)
+class LibraryBench:
+    name: str
+    one: RunStats  # charflow, one worker
+    full: RunStats  # charflow, all workers
+    naive: RunStats  # the naive way on a subset of the points
+    agreement: float  # largest |naive − charflow| delay or transition, relative
+    notes: tuple[str, ...] = ()
+
+    @property
+    def speedup(self) -> float:
+        """Points per second, charflow on all workers over the naive way on as many."""
+        return self.full.points_per_second / self.naive.points_per_second
+
+    @property
+    def scaling(self) -> float:
+        return self.one.wall / self.full.wall
+
+    @property
+    def sweep_scaling(self) -> float:
+        """The same for the sweep alone: start-up, checks and writing do not parallelise."""
+        return self.one.sweep / self.full.sweep
+
+    @property
+    def cpu_speedup(self) -> float:
+        """Processor time per point, the naive way's over charflow's: the speed-up as far as
+        it does not depend on what else the machine runs."""
+        return (self.naive.cpu / self.naive.points) / (self.full.cpu / self.full.points)
+
+
+def level1_demo(folder: Path) -> Path:
+    """The demo library on the level-1 models, as a config file in ``folder``."""
+    text = DEMO.read_text(encoding="utf-8")
+    text = text.replace("../models/vellum90_bsim.lib", LEVEL1_MODELS.as_posix())
+    text = text.replace("../templates/", (PROJECT / "templates").as_posix() + "/")
+    text = text.replace('name = "vellum90_tt"', 'name = "vellum90_l1_tt"')
+    path = folder / "vellum90_l1.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def foundry_kit(
+    folder: Path, params: int = KIT_PARAMS, bins: int = KIT_BINS, grid: str | None = None
+) -> Path:
+    """A model file of the kind foundries ship (invented values), two cells on it and their
+    config, in ``folder``; returns the config's path.
+
+    ``params`` ``.param`` lines, each an expression of two earlier ones (reading them is what
+    makes such files slow); ``bins`` length bins per device type (``nch.1`` ..., selected by
+    ngspice from ``lmin``/``lmax``/``wmin``/``wmax``); devices wrapped in subcircuits that the
+    cells instantiate with X. ``grid`` is the config's ``[grid]`` body (default: the demo's).
+    """
+    lines = [
+        "* Foundry-style model file for the charflow benchmark. EVERY VALUE IS INVENTED.",
+        ".lib tt",
+        ".param kit_vth_n = 0.35 kit_vth_p = -0.35 kit_tox = 2.2e-9 kit_p0 = 0.01 kit_p1 = 0.02",
+    ]
+    for i in range(2, params):
+        a, b = (i * 7919) % i, (i * 104729) % i
+        lines.append(f".param kit_p{i} = 'kit_p{a} * 0.5 + kit_p{b} * 0.5 + {1e-4 * (i % 13):.4g}'")
+    edges = [0.05e-6 * 2**k for k in range(bins + 1)]
+    for dev, kind, vth, u0 in (
+        ("nch", "nmos", "kit_vth_n", 0.03),
+        ("pch", "pmos", "kit_vth_p", 0.015),
+    ):
+        for k in range(bins):
+            lines += [
+                f".model {dev}.{k + 1} {kind} level=54 version=4.8 lmin={edges[k]:.4g} "
+                f"lmax={edges[k + 1]:.4g} wmin=0.1e-6 wmax=100e-6",
+                f"+ toxe={{kit_tox}} toxp=1.9e-9 toxm={{kit_tox}} epsrox=3.9 "
+                f"vth0={{{vth} + kit_p{(k * 97) % params} * 0.001}} k1=0.40 k2=0.0 k3=0.0",
+                f"+ lpe0=0.0 ndep=2e18 xj=3e-8 u0={u0} ua=1e-9 ub=1e-18 vsat=1.1e5 rdsw=150",
+                "+ lint=5e-9 dvt0=1.0 dvt1=0.5 dsub=0.2 eta0=0.10 nfactor=1.2 pclm=1.0",
+                "+ cgso=0.25e-9 cgdo=0.25e-9 cgbo=0.0 cjs=1.0e-3 cjd=1.0e-3 mjs=0.40 mjd=0.40",
+            ]
+    for dev in ("nch", "pch"):
+        lines += [
+            f".subckt {dev}_mac d g s b w=1e-6 l=1e-7",
+            f"m0 d g s b {dev} w={{w}} l={{l}} as={{w*0.25e-6}} ad={{w*0.25e-6}} "
+            "ps={2*(w+0.25e-6)} pd={2*(w+0.25e-6)}",
+            f".ends {dev}_mac",
+        ]
+    lines.append(".endl tt")
+    (folder / "kit.lib").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (folder / "kit_cells.sp").write_text(
+        """* Cells on the kit's wrapped devices (X instances), invented.
+.subckt KINV A Y VDD VSS
+xp Y A VDD VDD pch_mac w=0.8e-6 l=0.1e-6
+xn Y A VSS VSS nch_mac w=0.4e-6 l=0.1e-6
+.ends KINV
+.subckt KNAND2 A1 A2 Y VDD VSS
+xp1 Y A1 VDD VDD pch_mac w=0.8e-6 l=0.1e-6
+xp2 Y A2 VDD VDD pch_mac w=0.8e-6 l=0.1e-6
+xn1 Y A1 n1 VSS nch_mac w=0.8e-6 l=0.1e-6
+xn2 n1 A2 VSS VSS nch_mac w=0.8e-6 l=0.1e-6
+.ends KNAND2
+""",
+        encoding="utf-8",
+    )
+    if grid is None:
+        grid = DEMO.read_text(encoding="utf-8").split("[grid]")[1].split("[[cell]]")[0].strip()
+    path = folder / "kit.toml"
+    path.write_text(
+        f"""[library]
+name = "kit_tt"
+
+[process]
+models = [{{ file = "kit.lib", section = "tt" }}]
+vdd = 1.2
+
+[grid]
+{grid}
+
+[[cell]]
+name = "KINV"
+netlist = "kit_cells.sp"
+inputs = ["A"]
+outputs = {{ Y = "!A" }}
+
+[[cell]]
+name = "KNAND2"
+netlist = "kit_cells.sp"
+inputs = ["A1", "A2"]
+outputs = {{ Y = "!(A1&A2)" }}
+""",
+        encoding="utf-8",
+    )
+    return path
+
+
+def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dict]:
+    """charflow on ``config_path`` in a fresh process, as ``charflow run`` does it (this
+    module's ``_child``: load, characterize, write), timed stage by stage; its statistics and
+    the JSON it wrote."""
+    out.mkdir(parents=True, exist_ok=True)
+    cmd = [sys.executable, "-m", "charflow.bench", str(config_path), str(jobs), str(out)]
+    with open(out / "stderr.txt", "w+", encoding="utf-8") as err:
+        begun = time.time()
+        start = time.perf_counter()
+        proc = subprocess.Popen(
+            [*cmd, repr(begun)], stdout=subprocess.DEVNULL, stderr=err, stdin=subprocess.DEVNULL
+        )
+        # wait4 reports the child's peak memory, its reaped worker processes included.
+        _, status, usage = os.wait4(proc.pid, 0)
+        wall = time.perf_counter() - start
+        proc.returncode = os.waitstatus_to_exitcode(status)
+        err.seek(0)
+        message = err.read().strip()
+    if proc.returncode != 0:
+        raise SimulatorError(f"charflow on {config_path.name} failed: {message}")
+    name = config_mod.load(config_path).name
+    doc = json.loads((out / f"{name}.json").read_text(encoding="utf-8"))
+    stages = json.loads((out / STAGES).read_text(encoding="utf-8"))
+    records = [r for cell in doc["points"].values() for r in cell]
+    stats = RunStats(
+        label=f"charflow, {jobs} worker{'s' * (jobs > 1)}",
+        workers=jobs,
+        points=len(records),
+        simulations=sum(r["simulations"] for r in records),
+        wall=wall,
+        analysis=sum(r["sim_seconds"] for r in records),
+        cpu=usage.ru_utime + usage.ru_stime,
+        peak_rss=usage.ru_maxrss * 1024.0,  # Linux reports kilobytes
+        stages=tuple(stages.items()),
+    )
+    return stats, doc
+
+
+STAGES = "bench_stages.json"
+
+
+def _child(argv: list[str]) -> int:
+    """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time
+    written to DIR/bench_stages.json (seconds; "start" runs from the parent's launch)."""
+    from . import flow
+
+    path, jobs, out, begun = Path(argv[0]), int(argv[1]), Path(argv[2]), float(argv[3])
+    stages = {"start and imports": time.time() - begun}
+    mark = time.perf_counter()
+    sweep_start = last = 0.0
+
+    def on_start(_: int) -> None:
+        nonlocal sweep_start
+        sweep_start = time.perf_counter()
+
+    def on_result(_: object) -> None:
+        nonlocal last
+        last = time.perf_counter()
+
+    cfg = config_mod.load(path)
+    stages["config"] = time.perf_counter() - mark
+    mark = time.perf_counter()
+    result = flow.characterize(cfg, jobs=jobs, on_start=on_start, on_result=on_result)
+    done = time.perf_counter()
+    stages["plan and functional check"] = sweep_start - mark
+    stages["sweep"] = last - sweep_start
+    stages["tables"] = done - last
+    flow.write(cfg, result, out)
+    stages["write"] = time.perf_counter() - done
+    (out / STAGES).write_text(json.dumps(stages), encoding="utf-8")
+    return 1 if result.failures else 0
+
+
+def naive_netlist(
+    config: LibraryConfig, deck: netlist.Deck, point: sweep.TimingPoint, step: float, stop: float
+) -> str:
+    """A complete netlist for one point, as a script without charflow would write it."""
+    cell = config.cell(point.cell)
+    vdd = config.process.vdd
+    thr = config.thresholds
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    waves = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
+    waves[point.related] = ramp.pulse()
+    text = deck.text
+    for pin in cell.inputs:
+        src, node = deck.input_source(pin), deck.input_node(pin)
+        pulse = waves[pin].strip("[] ")
+        text = re.sub(rf"^{src} .*$", f"{src} {node} 0 pulse({pulse})", text, flags=re.M)
+    for out in cell.outputs:
+        cap, node = deck.load_cap(out.pin), deck.output_node(out.pin)
+        load = point.load if out.pin == point.output else netlist.PARKED_LOAD
+        text = re.sub(rf"^{cap} .*$", f"{cap} {node} 0 {load:.12g}", text, flags=re.M)
+    out_node = deck.output_node(point.output)
+    in_node = deck.input_node(point.related)
+    tol = config.simulation.settle * vdd
+    rising = point.output_edge == "rise"
+    settled = f"v({out_node}) > {vdd - tol:.6g}" if rising else f"v({out_node}) < {tol:.6g}"
+    lower, upper = thr.slew_band(point.output_edge)
+    o_dir = point.output_edge
+    i_dir = point.input_edge
+    control = [
+        ".control",
+        SINGLE_THREAD,
+        QUIET,
+        f"stop when {settled}",
+        f"tran {step:.6g} {stop:.6g} 0 {step:.6g}",
+        f"meas tran t_in when v({in_node})={thr.delay_input(i_dir) * vdd:.6g} {i_dir}=1",
+        f"meas tran t_out when v({out_node})={thr.delay_output(o_dir) * vdd:.6g} {o_dir}=1",
+        f"meas tran t_lo when v({out_node})={lower * vdd:.6g} {o_dir}=1",
+        f"meas tran t_hi when v({out_node})={upper * vdd:.6g} {o_dir}=1",
+        ".endc",
+    ]
+    return re.sub(r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", text, flags=re.M)
+
+
+def naive_point(
+    config: LibraryConfig,
+    deck: netlist.Deck,
+    point: sweep.TimingPoint,
+    step: float,
+    stop: float,
+    folder: Path,
+) -> NaivePoint:
+    """One ``ngspice -b`` process for one point; its results read from what it prints."""
+    exe = shutil.which("ngspice")
+    if exe is None:
+        raise SimulatorError("ngspice is not on PATH; install it (Debian: apt-get install ngspice)")
+    with tempfile.TemporaryDirectory(dir=folder) as tmp:
+        path = Path(tmp) / "point.sp"
+        path.write_text(naive_netlist(config, deck, point, step, stop), encoding="utf-8")
+        if deck.compat:
+            (Path(tmp) / ".spiceinit").write_text(f"set ngbehavior={deck.compat}\n")
+        proc = subprocess.run(
+            [exe, "-b", str(path)],
+            capture_output=True,
+            text=True,
+            cwd=tmp,
+            timeout=NAIVE_TIMEOUT,
+            env={**os.environ, "LC_ALL": "C"},
+            check=False,
+        )
+    found = dict(re.findall(r"^(t_\w+)\s*=\s*(\S+)", proc.stdout, flags=re.M))
+    try:
+        t = {k: float(found[k]) for k in ("t_in", "t_out", "t_lo", "t_hi")}
+    except (KeyError, ValueError) as exc:
+        raise SimulatorError(
+            f"the naive run printed no {exc} (exit {proc.returncode})", cell=point.cell
+        ) from exc
+    transition = abs(t["t_hi"] - t["t_lo"]) / config.thresholds.slew_derate
+    return NaivePoint(point, t["t_out"] - t["t_in"], transition)
+
+
+def naive_run(
+    config: LibraryConfig, doc: dict, count: int, jobs: int, folder: Path
+) -> tuple[RunStats, float]:
+    """The naive way on ``count`` points drawn from the plan, on ``jobs`` processes at once;
+    its statistics and its largest relative difference from charflow's values in ``doc``."""
+    plan = sweep.plan(config)
+    # A fixed sample, not a stride: a stride of the series' length picks one grid corner only.
+    chosen = sorted(random.Random(0).sample(range(len(plan.points)), min(count, len(plan.points))))
+    points = [plan.points[i] for i in chosen]
+    decks = {c.name: netlist.build_deck(config, c) for c in config.cells}
+    measured = _records(doc)
+    # charflow's estimated first step and its stop time for each point.
+    runs = [
+        (p, stepsize.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_s"])
+        for p in points
+    ]
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    with ThreadPoolExecutor(max_workers=jobs) as pool:
+        results = list(pool.map(lambda r: naive_point(config, decks[r[0].cell], *r, folder), runs))
+    wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    worst = 0.0
+    for r in results:
+        m = measured[_key(r.point)]
+        for got, want in ((r.delay, m["delay_s"]), (r.transition, m["transition_s"])):
+            worst = max(worst, abs(got - want) / abs(want))
+    stats = RunStats(
+        label=f"naive, {jobs} process{'es' * (jobs > 1)} at a time",
+        workers=jobs,
+        points=len(results),
+        simulations=len(results),
+        wall=wall,
+        analysis=math.nan,
+        cpu=after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime,
+    )
+    return stats, worst
+
+
+def _key(p: sweep.TimingPoint) -> tuple:
+    when = sweep.State(p.side, "").when
+    return (p.cell, p.related, p.output, when, p.input_edge, p.slew, p.load)
+
+
+def _records(doc: dict) -> dict[tuple, dict]:
+    return {
+        (
+            cell,
+            r["related_pin"],
+            r["output"],
+            r["when"],
+            r["input_edge"],
+            r["slew_s"],
+            r["load_F"],
+        ): r
+        for cell, records in doc["points"].items()
+        for r in records
+    }
+
+
+def bench_library(
+    name: str, config_path: Path, jobs: int, naive_points: int, folder: Path, repeat: int = 1
+) -> LibraryBench:
+    """charflow on one and on ``jobs`` workers, and the naive way, side by side; charflow's
+    runs alternate ``repeat`` times and the fastest of each is kept."""
+    config = config_mod.load(config_path)
+    ones, fulls = [], []
+    doc: dict = {}
+    for i in range(repeat):
+        ones.append(charflow_run(config_path, 1, folder / f"one{i}")[0])
+        stats, doc = charflow_run(config_path, jobs, folder / f"full{i}")
+        fulls.append(stats)
+    naive, agreement = naive_run(config, doc, naive_points, jobs, folder)
+    one = min(ones, key=lambda s: s.wall)
+    full = min(fulls, key=lambda s: s.wall)
+    return LibraryBench(name, one, full, naive, agreement)
+
+
+def kit_load_seconds(config_path: Path) -> float:
+    """Wall time of ngspice reading one cell's testbench on the kit (its models, mostly)."""
+    from .timing import backend_for
+
+    config = config_mod.load(config_path)
+    deck = netlist.build_deck(config, config.cells[0])
+    backend = backend_for(config)
+    start = time.perf_counter()
+    backend.load(deck)
+    return time.perf_counter() - start
+
+
+LIBRARIES = ("level-1 demo", "BSIM demo", "foundry-style kit")
+
+
+SPIN = 3_000_000  # iterations of the busy loop that gauges the cores free for the benchmark
+
+
+def _spin() -> None:
+    total = 0
+    for i in range(SPIN):
+        total += i
+
+
+def free_cores(jobs: int) -> float:
+    """How many cores ``jobs`` busy processes get at once, against one alone: ``jobs`` on an
+    idle machine, less when other work shares it (then no scaling above it can be measured)."""
+    import multiprocessing
+
+    method = "fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn"
+    context = multiprocessing.get_context(method)
+
+    def timed(count: int) -> float:
+        procs = [context.Process(target=_spin) for _ in range(count)]
+        start = time.perf_counter()
+        for proc in procs:
+            proc.start()
+        for proc in procs:
+            proc.join()
+        return time.perf_counter() - start
+
+    return jobs * timed(1) / timed(jobs)
+
+
+def run(
+    *,
+    jobs: int | None = None,
+    naive_points: int = NAIVE_POINTS,
+    params: int = KIT_PARAMS,
+    repeat: int = 1,
+    libraries: tuple[str, ...] = LIBRARIES,
+) -> list[LibraryBench]:
+    """The benchmark on each of ``libraries``, in a temporary folder."""
+    jobs = jobs or sweep.default_jobs()
+    unknown = sorted(set(libraries) - set(LIBRARIES))
+    if unknown:
+        raise CharflowError(f"no benchmark library {unknown[0]!r}; have {', '.join(LIBRARIES)}")
+    out = []
+    with tempfile.TemporaryDirectory(prefix="charflow-bench-") as tmp:
+        base = Path(tmp)
+        for name in libraries:
+            work = base / name.replace(" ", "_")
+            work.mkdir()
+            notes = []
+            before = free_cores(jobs)
+            if name == "level-1 demo":
+                path = level1_demo(work)
+            elif name == "BSIM demo":
+                path = DEMO
+            else:
+                path = foundry_kit(work, params)
+                load = kit_load_seconds(path)
+                notes.append(
+                    f"ngspice reads one testbench on the kit ({params} .param lines) in "
+                    f"{load:.2f} s; the naive way does so for every point"
+                )
+            result = bench_library(name, path, jobs, naive_points, work, repeat)
+            notes.append(
+                f"{jobs} busy processes got {before:.2f} cores' worth just before, "
+                f"{free_cores(jobs):.2f} just after (no more scaling than that can show)"
+            )
+            out.append(replace(result, notes=tuple(notes)))
+    return out
+
+
+def render(results: list[LibraryBench]) -> str:
+    """The benchmark's report: a table per library, then the ratios against their targets."""
+    head = (
+        f"  {'':<34}{'points':>7}{'sims':>6}{'wall s':>8}{'sims/s':>8}{'simulator s':>12}"
+        f"{'wall/floor':>11}{'sweep/floor':>12}{'CPU s':>7}{'peak MB':>8}"
+    )
+    lines = [
+        "floor = simulator time / workers; sweep = first point to last, without start-up, "
+        "checks and writing",
+        "",
+    ]
+    for r in results:
+        lines += [r.name, head]
+        for s in (r.one, r.full, r.naive):
+            ratios = (
+                f"{s.analysis:>12.2f}{s.floor_ratio:>11.2f}{s.sweep_floor_ratio:>12.2f}"
+                if not math.isnan(s.analysis)
+                else f"{'-':>12}{'-':>11}{'-':>12}"
+            )
+            tail = f"{s.cpu:>7.2f}" + (
+                f"{s.peak_rss / 1e6:>8.0f}" if s.peak_rss is not None else f"{'-':>8}"
+            )
+            lines.append(
+                f"  {s.label:<34}{s.points:>7}{s.simulations:>6}{s.wall:>8.2f}"
+                f"{s.simulations_per_second:>8.0f}{ratios}{tail}"
+            )
+        for s in (r.one, r.full):
+            parts = ", ".join(f"{name} {t:.2f}" for name, t in s.stages)
+            lines.append(f"  {s.label} stages (s): {parts}")
+        naive_all = r.full.points / r.naive.points_per_second
+        lines += [
+            f"  the naive way on all {r.full.points} points: about {naive_all:.0f} s "
+            f"(its {r.naive.points} points, scaled)",
+            f"  speed-up against the naive way {r.speedup:.1f}x ({r.cpu_speedup:.1f}x in processor "
+            f"time per point); naive and charflow values agree within {r.agreement:.2%}",
+            f"  scaling 1 -> {r.full.workers} workers {r.scaling:.2f}x (sweep alone "
+            f"{r.sweep_scaling:.2f}x); in the sweep each worker is inside the simulator "
+            f"{r.one.busy:.0%} of the time on 1 worker, {r.full.busy:.0%} on {r.full.workers}",
+            *(f"  {n}" for n in r.notes),
+            "",
+        ]
+    lines.append("targets")
+    for r in results:
+        if r.name in TARGET_SPEEDUP:
+            lines.append(_target(f"speed-up, {r.name}", r.speedup, TARGET_SPEEDUP[r.name], ">="))
+        if r.name == "BSIM demo":
+            for what, value in (("wall", r.full.floor_ratio), ("sweep", r.full.sweep_floor_ratio)):
+                lines.append(_target(f"{what}/floor, {r.name}", value, TARGET_FLOOR_RATIO, "<="))
+        if r.full.workers == 2:
+            for what, value in (("", r.scaling), (" (sweep)", r.sweep_scaling)):
+                lines.append(
+                    _target(f"scaling 1 -> 2{what}, {r.name}", value, TARGET_SCALING, ">=")
+                )
+        peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
+        lines.append(
+            _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
+        )
+    return "\n".join(lines)
+
+
+def _target(what: str, value: float, target: float, sense: str) -> str:
+    met = value >= target if sense == ">=" else value <= target
+    return f"  {what:<46} {value:8.2f}  target {sense} {target:g}  {'met' if met else 'NOT MET'}"
+
+
+if __name__ == "__main__":
+    sys.exit(_child(sys.argv[1:]))

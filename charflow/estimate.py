@@ -1,0 +1,144 @@
+"""A dry-run plan: how many simulations a config asks for, and about how long they will take.
+
+The count comes from the sweep plan (every arc × sensitizing state × input edge × slew ×
+load is one point, one simulation unless its step has to be refined). The time comes from a
+few sample points per cell, simulated and timed here on one process: the smallest, the
+middle and the largest slew and load of the cell's first arc, after the probes that size the
+series' steps (``stepsize``), timed on their own. Each cell's points are charged the mean of
+its samples and each series its probes; the sum is shared by the workers. The samples cost a
+few simulations per cell, never the sweep.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import Counter
+from dataclasses import dataclass, replace
+
+from . import stepsize, sweep
+from .config import LibraryConfig
+from .netlist import build_deck
+from .timing import backend_for, measure_point
+
+SAMPLES = 3  # sample points per cell
+
+
+@dataclass(frozen=True, slots=True)
+class ArcCount:
+    cell: str
+    related: str
+    output: str
+    states: int
+    points: int
+
+
+@dataclass(frozen=True, slots=True)
+class CellCost:
+    cell: str
+    points: int
+    series: int  # arcs × states × input edges: each calibrates its steps once
+    probed: int  # points per series that its probes measure (grid corners)
+    per_point: float  # s, mean over the samples
+    per_series: float  # s, the step probes of one series
+    load: float  # s, the simulator reading the cell's testbench (once per worker)
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    arcs: tuple[ArcCount, ...]
+    cells: tuple[CellCost, ...]
+    jobs: int
+    samples: int  # points simulated to time the cells
+
+    @property
+    def points(self) -> int:
+        return sum(a.points for a in self.arcs)
+
+    @property
+    def seconds(self) -> float:
+        """Estimated wall time of the sweep on ``jobs`` workers."""
+        work = sum(
+            (c.points - c.series * c.probed) * c.per_point + c.series * c.per_series
+            for c in self.cells
+        )
+        # Any worker may read any cell's testbench, once.
+        return work / self.jobs + sum(c.load for c in self.cells)
+
+
+def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
+    """Count the points of the chosen cells and time a few of each."""
+    plan = sweep.plan(config, cells)
+    per_arc = Counter((p.cell, p.related, p.output) for p in plan.points)
+    arcs = tuple(
+        ArcCount(a.cell, a.related, a.output, len(a.states), per_arc[(a.cell, a.related, a.output)])
+        for a in plan.arcs
+    )
+    costs = []
+    samples = 0
+    for name in dict.fromkeys(a.cell for a in plan.arcs):
+        cell = config.cell(name)
+        deck = build_deck(config, cell)
+        points = plan.for_cell(name)
+        series = {replace(p, slew=0.0, load=0.0) for p in points}
+        first = points[0]
+        backend = backend_for(config)
+        start = time.perf_counter()
+        if config.simulation.backend == "shared":
+            backend.load(deck)
+        load = time.perf_counter() - start
+        start = time.perf_counter()
+        stepsize.first_step(config, deck, first)
+        per_series = time.perf_counter() - start
+        grid = cell.grid
+        picks = [
+            replace(
+                first,
+                slew=grid.slew[i * (len(grid.slew) - 1) // (SAMPLES - 1)],
+                load=grid.load[i * (len(grid.load) - 1) // (SAMPLES - 1)],
+            )
+            for i in range(SAMPLES)
+        ]
+        start = time.perf_counter()
+        for p in picks:
+            # With its step given, a grid corner is simulated too, not taken from its probe.
+            measure_point(config, deck, p, step=stepsize.first_step(config, deck, p))
+        per_point = (time.perf_counter() - start) / len(picks)
+        samples += len(picks)
+        corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
+        corners.add((grid.slew[-1], grid.load[0]))
+        costs.append(
+            CellCost(name, len(points), len(series), len(corners), per_point, per_series, load)
+        )
+    return Estimate(arcs, tuple(costs), jobs, samples)
+
+
+def render(est: Estimate) -> str:
+    lines = ["cell            arc            states  simulations"]
+    for a in est.arcs:
+        lines.append(
+            f"{a.cell:<15} {a.related + '->' + a.output:<14} {a.states:6d}  {a.points:11d}"
+        )
+    lines.append("")
+    lines.append("cell            simulations  per point  step probes      testbench read")
+    for c in est.cells:
+        probes = f"{c.series} x {c.per_series * 1e3:.1f} ms"
+        lines.append(
+            f"{c.cell:<15} {c.points:11d}  {c.per_point * 1e3:6.2f} ms  {probes:<15}  "
+            f"{c.load * 1e3:.1f} ms"
+        )
+    lines.append("")
+    lines.append(
+        f"{est.points} simulations (one per point; a point whose output edge is sampled too "
+        f"coarsely takes more); the sweep takes about {_duration(est.seconds)} on {est.jobs} "
+        f"worker{'s' * (est.jobs > 1)} (start-up and the functional check come on top), "
+        f"estimated from {est.samples} timed sample points"
+    )
+    return "\n".join(lines)
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.1f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.1f} min"
+    return f"{seconds / 3600:.1f} h"

@@ -1,0 +1,99 @@
+"""The benchmark's code on a tiny grid (the benchmark itself is ``charflow bench``, not part of
+the suite) and the dry-run plan; needs ngspice (fails without it)."""
+
+from __future__ import annotations
+
+import math
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+
+from charflow import bench, config, estimate, flow
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
+TINY_GRID = "slew = [0.02, 0.2]\nload = [0.002, 0.02]"
+# The naive way runs one transient per point with charflow's estimated first step, and
+# ngspice's `meas` interpolates linearly between samples as charflow does; charflow may have
+# refined a point's step, or measured a grid corner with its probe's step. Both put at least
+# samples_per_edge / REFINE_SLACK (about 13) samples on the edge: they agree within 1 %.
+AGREE_RTOL = 1e-2
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _needs_ngspice():
+    if shutil.which("ngspice") is None or shutil.which("charflow") is None:
+        pytest.fail("ngspice and the installed charflow command are needed here")
+
+
+def _tiny(tmp_path: Path) -> Path:
+    text = SMALL_L1.read_text(encoding="utf-8")
+    text = text.replace("../../", ROOT.as_posix() + "/")
+    head, _, rest = text.partition("[grid]")
+    path = tmp_path / "tiny.toml"
+    path.write_text(f"{head}[grid]\n{TINY_GRID}\n\n[[cell]]{rest.split('[[cell]]', 1)[1]}")
+    return path
+
+
+def test_bench_library_on_a_tiny_grid(tmp_path):
+    path = _tiny(tmp_path)
+    result = bench.bench_library("tiny", path, jobs=2, naive_points=3, folder=tmp_path)
+    points = len(flow.sweep.plan(config.load(path)).points)
+    assert result.one.points == result.full.points == points
+    assert result.naive.points == 3
+    assert result.agreement < AGREE_RTOL
+    for stats in (result.one, result.full):
+        assert stats.simulations >= stats.points
+        assert 0 < stats.analysis < stats.wall * stats.workers
+        assert stats.floor_ratio > 1.0
+        assert stats.peak_rss > 0
+    report = bench.render([result])
+    assert "tiny" in report and "targets" in report
+
+
+def test_foundry_kit_characterizes(tmp_path):
+    path = bench.foundry_kit(tmp_path, params=200, grid=TINY_GRID)
+    cfg = config.load(path)
+    text = (tmp_path / "kit.lib").read_text(encoding="utf-8")
+    assert text.count(".param") == 200 - 2 + 1  # two on the first line, one per line after
+    assert ".model nch.4 nmos" in text
+    result = flow.characterize(cfg, jobs=1)
+    assert not result.failures
+    assert len(result.measurements) == 3 * 2 * 4  # KINV and KNAND2's arcs x edges x grid
+
+
+def test_level1_demo_is_the_demo_on_level1_models(tmp_path):
+    cfg = config.load(bench.level1_demo(tmp_path))
+    demo = config.load(bench.DEMO)
+    assert [c.name for c in cfg.cells] == [c.name for c in demo.cells]
+    assert cfg.process.models[0].path == bench.LEVEL1_MODELS
+
+
+def test_plan_counts_points_and_estimates_time():
+    cfg = config.load(SMALL_L1)
+    est = estimate.estimate(cfg, ["INV_X1", "NAND2_X1"], jobs=2)
+    assert est.points == 18 + 36
+    assert [(a.cell, a.related, a.points) for a in est.arcs] == [
+        ("INV_X1", "A", 18),
+        ("NAND2_X1", "A1", 18),
+        ("NAND2_X1", "A2", 18),
+    ]
+    assert est.samples == 2 * estimate.SAMPLES
+    assert 0 < est.seconds < math.inf
+    assert "54 simulations" in estimate.render(est)
+
+
+def test_plan_option_runs_no_sweep(tmp_path):
+    out = tmp_path / "out"
+    done = subprocess.run(
+        [shutil.which("charflow"), "run", str(SMALL_L1), "--plan", "--out", str(out)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr
+    assert "90 simulations" in done.stdout and "the sweep takes about" in done.stdout
+    assert not out.exists()
