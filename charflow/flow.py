@@ -103,6 +103,27 @@ def characterize(
     )
 
 
+def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
+    energy = cell.arc(arc.related, arc.output) if cell is not None else None
+    if energy is None:
+        return {}
+    states = [{"when": st.when, "tables": [t.to_dict() for t in ts]} for st, ts in energy.states]
+    return {"internal_power": {"tables": [t.to_dict() for t in energy.default], "states": states}}
+
+
+def _cell_power_record(cell: power.CellPower | None) -> dict:
+    if cell is None:
+        return {}
+    return {
+        "cell_leakage_power_W": cell.cell_leakage,
+        "leakage_power": [{"when": s.when, "value_W": s.power} for s in cell.leakage],
+        "hidden_power": [
+            {"pin": h.pin, "when": h.when, "tables": [t.to_dict() for t in h.tables]}
+            for h in cell.hidden
+        ],
+    }
+
+
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     """Tables in SI units with the measurement details behind every point."""
 
@@ -157,65 +178,51 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         cell_power = powers.get(cell.cell.name)
         arcs = []
         for arc in cell.arcs:
-            entry = {
-                "related_pin": arc.arc.related,
-                "output": arc.arc.output,
-                "kind": arc.arc.kind,
-                "related_output": arc.arc.other,
-                "timing_sense": arc.arc.sense,
-                "tables": [t.to_dict() for t in arc.default],
-                "states": [
-                    {
-                        "when": st.state.when,
-                        "timing_sense": st.state.sense,
-                        "tables": [t.to_dict() for t in st.tables],
-                    }
-                    for st in arc.states
-                ],
-            }
-            energy = cell_power.arc(arc.arc.related, arc.arc.output) if cell_power else None
-            if energy is not None:
-                entry["internal_power"] = {
-                    "tables": [t.to_dict() for t in energy.default],
-                    "states": [
-                        {"when": st.when, "tables": [t.to_dict() for t in tables]}
-                        for st, tables in energy.states
-                    ],
-                }
-            arcs.append(entry)
-        record = {
-            "name": cell.cell.name,
-            "area": cell.cell.area,
-            "inputs": [
-                {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
-                for p in cell.pins
-            ],
-            "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
-            "arcs": arcs,
-            "constraints": [
+            arcs.append(
                 {
-                    "pin": c.pin,
-                    "related_pin": c.related,
-                    "timing_type": c.timing_type,
-                    "tables": [t.to_dict() for t in c.tables],
+                    "related_pin": arc.arc.related,
+                    "output": arc.arc.output,
+                    "kind": arc.arc.kind,
+                    "related_output": arc.arc.other,
+                    "timing_sense": arc.arc.sense,
+                    "tables": [t.to_dict() for t in arc.default],
+                    "states": [
+                        {
+                            "when": st.state.when,
+                            "timing_sense": st.state.sense,
+                            "tables": [t.to_dict() for t in st.tables],
+                        }
+                        for st in arc.states
+                    ],
+                    **_arc_power_record(cell_power, arc.arc),
                 }
-                for c in cell.constraints
-            ],
-            "min_pulse_widths": [
-                {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
-                for p in cell.pulses
-            ],
-        }
-        if cell_power is not None:
-            record["cell_leakage_power_W"] = cell_power.cell_leakage
-            record["leakage_power"] = [
-                {"when": s.when, "value_W": s.power} for s in cell_power.leakage
-            ]
-            record["hidden_power"] = [
-                {"pin": h.pin, "when": h.when, "tables": [t.to_dict() for t in h.tables]}
-                for h in cell_power.hidden
-            ]
-        cells.append(record)
+            )
+        cells.append(
+            {
+                "name": cell.cell.name,
+                "area": cell.cell.area,
+                "inputs": [
+                    {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+                    for p in cell.pins
+                ],
+                "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
+                "arcs": arcs,
+                "constraints": [
+                    {
+                        "pin": c.pin,
+                        "related_pin": c.related,
+                        "timing_type": c.timing_type,
+                        "tables": [t.to_dict() for t in c.tables],
+                    }
+                    for c in cell.constraints
+                ],
+                "min_pulse_widths": [
+                    {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+                    for p in cell.pulses
+                ],
+                **_cell_power_record(cell_power),
+            }
+        )
     lib_power, _ = power_unit(config.time_unit, config.cap_unit)
     return {
         "library": config.name,
