@@ -49,7 +49,12 @@ def test_demo_tables_grow_with_load(demo):
         steps = np.diff(table.values, axis=1)
         assert (steps > 0).all(), f"{cell} {pin} {table.quantity} not increasing with load"
         count += 1
-    assert count == 4 * sum(len(c["arcs"]) for c in doc["cells"])
+    # Four tables an arc; a clear or preset moves its output one way only, so two.
+    assert count == sum(
+        2 if arc.get("kind") in ("clear", "preset") else 4
+        for c in doc["cells"]
+        for arc in c["arcs"]
+    )
 
 
 def test_demo_delay_mostly_grows_with_input_slew(demo):
@@ -58,7 +63,8 @@ def test_demo_delay_mostly_grows_with_input_slew(demo):
     _, doc = demo
     for cell, pin, table in _tables(doc):
         if table.quantity.startswith("cell_"):
-            assert (np.diff(table.values[:, -1]) > 0).all(), f"{cell} {pin} {table.quantity}"
+            heavy = table.values[:, -1, ...]  # index_2 (load) at its largest; any index_3
+            assert (np.diff(heavy, axis=0) > 0).all(), f"{cell} {pin} {table.quantity}"
 
 
 def test_demo_logical_effort_of_input_capacitance(demo):
