@@ -38,7 +38,7 @@ class RunResult:
     # Toggles whose energy could not be measured: reported, left out of the tables; they do
     # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
     unmeasured: tuple[Failure, ...] = ()
-    power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
+    cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
 
     @property
     def simulations(self) -> int:
@@ -172,7 +172,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "window_end_s": m.settled,
         }
 
-    powers = {c.cell: c for c in result.power}
+    powers = {c.cell: c for c in result.cell_power}
     cells = []
     for cell in result.cells:
         cell_power = powers.get(cell.cell.name)
@@ -290,6 +290,6 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     written.append(json_path)
     if not result.failures:
         lib_path = out_dir / f"{config.name}.lib"
-        write_atomic(lib_path, liberty.render(config, result.cells, result.power))
+        write_atomic(lib_path, liberty.render(config, result.cells, result.cell_power))
         written.append(lib_path)
     return written

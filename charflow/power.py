@@ -322,7 +322,7 @@ def _hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pi
 
 def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
     """Leakage per input vector of every cell of the plan that power covers."""
-    names = set(dict.fromkeys(a.cell for a in plan.arcs))
+    names = {a.cell for a in plan.arcs}
     return {
         c.name: leakage(config, build_deck(config, c))
         for c in combinational(config)

@@ -421,7 +421,7 @@ def test_internal_power_reads_back(run: Characterized) -> None:
     cfg, lib = run.config, run.lib
     templates = _power_templates(lib)
     checked = 0
-    for cell in run.result.power:
+    for cell in run.result.cell_power:
         for arc in cell.arcs:
             pin = lib.get_group("cell", cell.cell).get_group("pin", arc.arc.output)
             groups = {
@@ -447,7 +447,7 @@ def test_hidden_power_reads_back(run: Characterized) -> None:
     cfg, lib = run.config, run.lib
     templates = _power_templates(lib)
     checked = 0
-    for cell in run.result.power:
+    for cell in run.result.cell_power:
         cell_group = lib.get_group("cell", cell.cell)
         for hidden in cell.hidden:
             pin = cell_group.get_group("pin", hidden.pin)
@@ -481,7 +481,7 @@ def test_leakage_reads_back(run: Characterized) -> None:
     # One leakage power unit is one energy unit per time unit: 1 pJ / 1 ns = 1 fJ / 1 ps = 1 mW.
     assert _text(lib["leakage_power_unit"]) == "1mW"
     watts = 1e-3
-    for cell in run.result.power:
+    for cell in run.result.cell_power:
         group = lib.get_group("cell", cell.cell)
         inputs = cfg.cell(cell.cell).inputs
         assert group["cell_leakage_power"] == pytest.approx(cell.cell_leakage / watts, rel=RTOL)
@@ -516,7 +516,7 @@ def test_power_units_stated_in_the_file(run: Characterized) -> None:
 def test_json_has_the_same_power(run: Characterized) -> None:
     doc = run.json
     cells = {c["name"]: c for c in doc["cells"]}
-    for cell in run.result.power:
+    for cell in run.result.cell_power:
         jcell = cells[cell.cell]
         assert jcell["cell_leakage_power_W"] == cell.cell_leakage
         assert jcell["leakage_power"] == [
@@ -565,7 +565,7 @@ def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
     # equal_or_opposite_output, and its tables take that output's load as index_3.
     cfg, lib = bufc.config, bufc.lib
     templates = _power_templates(lib)
-    (cell,) = bufc.result.power
+    (cell,) = bufc.result.cell_power
     pins = lib.get_group("cell", "BUFC_X1")
     by_output = {}
     for arc in cell.arcs:

@@ -99,7 +99,7 @@ def inverter():
     cfg = config.parse(doc, SMALL_L1)
     result = flow.characterize(cfg, jobs=1)
     assert not result.failures
-    (cell,) = result.power
+    (cell,) = result.cell_power
     (arc,) = cell.arcs
     return cfg, {t.quantity: t for t in arc.default}
 
