@@ -260,18 +260,18 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
         raise SimulatorError(f"charflow on {config_path.name} failed: {message}")
     name = config_mod.load(config_path).name
     doc = json.loads((out / f"{name}.json").read_text(encoding="utf-8"))
-    stages = json.loads((out / STAGES).read_text(encoding="utf-8"))
+    child = json.loads((out / STAGES).read_text(encoding="utf-8"))
     records = [r for cell in doc["points"].values() for r in cell]
     stats = RunStats(
         label=f"charflow, {jobs} worker{'s' * (jobs > 1)}",
         workers=jobs,
         points=len(records),
-        simulations=sum(r["simulations"] for r in records),
+        simulations=child["simulations"],
         wall=wall,
-        analysis=sum(r["sim_seconds"] for r in records),
+        analysis=child["analysis"],
         cpu=usage.ru_utime + usage.ru_stime,
         peak_rss=usage.ru_maxrss * 1024.0,  # Linux reports kilobytes
-        stages=tuple(stages.items()),
+        stages=tuple(child["stages"].items()),
     )
     return stats, doc
 
@@ -307,7 +307,10 @@ def _child(argv: list[str]) -> int:
     stages["tables"] = done - last
     flow.write(cfg, result, out)
     stages["write"] = time.perf_counter() - done
-    (out / STAGES).write_text(json.dumps(stages), encoding="utf-8")
+    # The library's JSON carries no timings (a re-run from the store must reproduce it byte
+    # for byte): the simulator's time travels beside the stages.
+    totals = {"simulations": result.simulations, "analysis": result.sim_seconds}
+    (out / STAGES).write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
     return 1 if result.failures else 0
 
 

@@ -1,7 +1,8 @@
 """The ``charflow`` command: parse, call the library, write, exit with a meaningful code.
 
-Exit codes: 0 done; 1 the run finished but some points failed (no Liberty written);
-2 bad input (config, netlist, function); 3 simulator or output trouble.
+Exit codes: 0 done; 1 the run finished but some points failed (no Liberty written), or
+``diff`` found differences; 2 bad input (config, netlist, function, a library diff cannot
+read); 3 simulator, store, cluster or output trouble.
 """
 
 from __future__ import annotations
@@ -10,16 +11,19 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, bench, config, estimate, fidelity, flow, gridstudy, sweep
+from . import __version__, bench, config, diff, estimate, fidelity, flow, gridstudy, sweep
 from .errors import (
     CharflowError,
     ConfigError,
+    DiffError,
     FunctionalMismatchError,
     NetlistError,
     OutputError,
 )
+from .store import FILE_NAME, Store
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
+EXIT_DIFFERENT = 1  # charflow diff: the libraries differ
 PROJECT = Path(__file__).resolve().parent.parent
 DEMO_CONFIG = PROJECT / "demo" / "vellum90.toml"
 RUNS = PROJECT / "runs"
@@ -33,7 +37,17 @@ def _parser() -> argparse.ArgumentParser:
     run = sub.add_parser("run", help="characterize the library a config describes")
     run.add_argument("config", type=Path)
     _common(run)
-    run.add_argument("--cell", action="append", help="only this cell (repeatable)")
+    _cluster(run)
+    run.add_argument(
+        "--cell",
+        action="append",
+        help="simulate only this cell (repeatable); the rest of the library comes from the store",
+    )
+    run.add_argument(
+        "--arc",
+        metavar="FROM:TO",
+        help="with one --cell: only the arc from input FROM to output TO",
+    )
     run.add_argument(
         "--plan",
         action="store_true",
@@ -42,6 +56,7 @@ def _parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
+    _cluster(demo)
     for p in (run, demo):
         p.add_argument(
             "--fidelity", action="store_true", help="then check the tables off their grid"
@@ -105,6 +120,18 @@ def _parser() -> argparse.ArgumentParser:
     bench_cmd.add_argument(
         "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
     )
+
+    compare = sub.add_parser("diff", help="compare two libraries (Liberty or JSON) table by table")
+    compare.add_argument("old", type=Path)
+    compare.add_argument("new", type=Path)
+    compare.add_argument("--top", type=int, default=10, help="largest changes to list (10)")
+    compare.add_argument(
+        "--tolerance",
+        type=float,
+        default=diff.TOLERANCE,
+        help=f"relative change below which a table counts as unchanged ({diff.TOLERANCE:g})",
+    )
+    compare.add_argument("--html", type=Path, help="also write an HTML report with plots here")
     return parser
 
 
@@ -146,71 +173,155 @@ def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
+def _cluster(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--backend",
+        choices=("joblib", "dask"),
+        default="joblib",
+        help="joblib: worker processes on this machine (default); dask: an existing Dask cluster",
+    )
+    p.add_argument(
+        "--scheduler", metavar="ADDRESS", help="the Dask scheduler, e.g. tcp://host:8786"
+    )
+
+
 class _Progress:
     """A tqdm bar on a terminal; nothing when output is redirected or --quiet."""
 
-    def __init__(self, quiet: bool) -> None:
+    def __init__(self, quiet: bool, name: str = "points") -> None:
         self.enabled = not quiet and sys.stderr.isatty()
+        self.name = name
         self.bar = None
-        self.failed = 0
+        self.seen = self.stored_count = self.failed = 0
 
     def start(self, total: int) -> None:
         if self.enabled:
             from tqdm import tqdm
 
-            self.bar = tqdm(total=total, unit="pt", desc="points", dynamic_ncols=True)
+            self.bar = tqdm(total=total, unit="pt", desc=self.name, dynamic_ncols=True)
+
+    def stored(self, found: tuple) -> None:
+        self.stored_count = len(found)
 
     def result(self, outcome: object) -> None:
+        self.seen += 1
         if isinstance(outcome, flow.Failure):
             self.failed += 1
         if self.bar is not None:
+            simulated = max(0, self.seen - self.stored_count - self.failed)
+            counts = {
+                "stored": min(self.seen, self.stored_count),
+                "simulated": simulated,
+                "failed": self.failed,
+            }
+            self.bar.set_postfix(counts, refresh=False)
             self.bar.update(1)
-            if self.failed:
-                self.bar.set_postfix(failed=self.failed)
 
     def close(self) -> None:
         if self.bar is not None:
             self.bar.close()
 
 
+def _arc(text: str | None) -> tuple[str, str] | None:
+    if text is None:
+        return None
+    related, sep, output = text.partition(":")
+    if not sep or not related or not output:
+        raise ConfigError(f"--arc must be FROM:TO (input pin:output pin), got {text!r}")
+    return related, output
+
+
 def _run(cfg_path: Path, args: argparse.Namespace) -> int:
+    cfg = _load(cfg_path, args)
+    if args.backend == "dask" and not args.scheduler:
+        raise ConfigError("--backend dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
+    if args.scheduler and args.backend != "dask":
+        raise ConfigError("--scheduler is for --backend dask")
+    cells = getattr(args, "cell", None)
     if getattr(args, "plan", False):
-        cfg = _load(cfg_path, args)
         jobs = args.jobs or sweep.default_jobs()
-        print(estimate.render(estimate.estimate(cfg, getattr(args, "cell", None), jobs)))
+        print(estimate.render(estimate.estimate(cfg, cells, jobs)))
         return EXIT_OK
-    cfg, out = _setup(cfg_path, args)
-    progress = _Progress(args.quiet)
-    try:
-        result = flow.characterize(
-            cfg,
-            cells=getattr(args, "cell", None),
-            jobs=args.jobs,
-            on_start=progress.start,
-            on_result=progress.result,
-        )
-    finally:
-        progress.close()
-    written = flow.write(cfg, result, out)
-    per_sim = result.sim_seconds / max(result.simulations, 1)
+    arc = _arc(getattr(args, "arc", None))
+    if arc is not None and (cells is None or len(cells) != 1):
+        raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
+    out = _output_folder(cfg, args)
+    code = EXIT_OK
+    with Store(out / FILE_NAME) as store:
+        for lib in cfg.libraries():
+            progress = _Progress(args.quiet, lib.name)
+            try:
+                result = flow.characterize(
+                    lib,
+                    cells=cells,
+                    arc=arc,
+                    jobs=args.jobs,
+                    store=store,
+                    scheduler=args.scheduler,
+                    on_start=progress.start,
+                    on_stored=progress.stored,
+                    on_result=progress.result,
+                )
+            finally:
+                progress.close()
+            written = flow.write(lib, result, out)
+            _summary(lib.name, result, selective=cells is not None)
+            for path in written:
+                print(f"wrote {path}")
+            if result.failures:
+                print(
+                    f"{lib.name}: {len(result.failures)} point(s) failed; no Liberty file written:",
+                    file=sys.stderr,
+                )
+                for f in result.failures[:20]:
+                    print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+                code = EXIT_FAILED_POINTS
+            elif args.fidelity:
+                code = max(code, _check_fidelity(lib, result.cells, out, args, store))
+    return code
+
+
+def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
     print(
-        f"{cfg.name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
-        f"{len(result.toggles)} input toggles measured, "
-        f"{result.simulations} simulations in {result.wall_seconds:.1f} s wall "
-        f"({per_sim * 1e3:.1f} ms simulator time each)"
+        f"{name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
+        f"{len(result.toggles)} input toggles measured: "
+        f"{result.simulated} simulated ({result.simulations} simulations), "
+        f"{len(result.reused)} reused from the store; simulator time {result.sim_seconds:.2f} s "
+        f"(all workers), wall time {result.wall_seconds:.2f} s"
     )
-    for path in written:
-        print(f"wrote {path}")
+    for models, tables in result.stale_tables().items():
+        arcs: dict[str, int] = {}
+        for table in tables:
+            arc = " ".join(table.split()[:2])
+            arcs[arc] = arcs.get(arc, 0) + 1
+        listed = ", ".join(f"{arc} ({n})" for arc, n in arcs.items())
+        why = (
+            f"older than the model (model file {', '.join(models)} changed)"
+            if models
+            else "out of date (the testbench or the settings changed)"
+        )
+        print(f"{name}: {len(tables)} tables are {why}: {listed}")
+    if result.stale and selective:
+        print(f"{name}: run without --cell to bring every table up to date")
     for f in result.unmeasured[:20]:
-        print(f"no hidden power: cell {f.point.cell}, {f.point.label}: {f.reason}")
-    if result.failures:
-        print(f"{len(result.failures)} point(s) failed; no Liberty file written:", file=sys.stderr)
-        for f in result.failures[:20]:
-            print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
-        return EXIT_FAILED_POINTS
-    if args.fidelity:
-        return _check_fidelity(cfg, result.cells, out, args)
-    return EXIT_OK
+        print(f"{name}: no hidden power: cell {f.point.cell}, {f.point.label}: {f.reason}")
+    if result.left_out:
+        print(
+            f"{name}: left out {', '.join(result.left_out)}: the store does not hold all their "
+            "points; run them once in full"
+        )
+
+
+def _diff(args: argparse.Namespace) -> int:
+    if args.tolerance < 0:
+        raise ConfigError(f"--tolerance must not be negative, got {args.tolerance}")
+    old, new = diff.read(args.old), diff.read(args.new)
+    comparison = diff.compare(old, new, args.tolerance)
+    print(diff.report(comparison, str(args.old), str(args.new), args.top), end="")
+    if args.html is not None:
+        diff.write_html(args.html, comparison, old, new, str(args.old), str(args.new), args.top)
+        print(f"wrote {args.html}")
+    return EXIT_DIFFERENT if comparison.differs else EXIT_OK
 
 
 def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
@@ -220,22 +331,34 @@ def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
     return cfg
 
 
-def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = _load(cfg_path, args)
+def _output_folder(cfg: config.LibraryConfig, args: argparse.Namespace) -> Path:
     out = args.out or RUNS / cfg.name
     # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
-    return cfg, out
+    return out
 
 
-def _check_fidelity(cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace) -> int:
+def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
+    cfg = _load(cfg_path, args)
+    return cfg, _output_folder(cfg, args)
+
+
+def _check_fidelity(
+    cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace, store: Store
+) -> int:
     progress = _Progress(args.quiet)
     try:
         report = fidelity.check(
-            cfg, cells, jobs=args.jobs, on_start=progress.start, on_result=progress.result
+            cfg,
+            cells,
+            jobs=args.jobs,
+            store=store,
+            on_start=progress.start,
+            on_stored=progress.stored,
+            on_result=progress.result,
         )
     finally:
         progress.close()
@@ -249,19 +372,31 @@ def _check_fidelity(cfg: config.LibraryConfig, cells, out: Path, args: argparse.
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
     cfg, out = _setup(args.config, args)
-    progress = _Progress(args.quiet)
-    try:
-        result = flow.characterize(
-            cfg, cells=args.cell, jobs=args.jobs, on_start=progress.start, on_result=progress.result
-        )
-    finally:
-        progress.close()
-    if result.failures:
-        print(f"{len(result.failures)} grid point(s) failed; no tables to check:", file=sys.stderr)
-        for f in result.failures[:20]:
-            print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
-        return EXIT_FAILED_POINTS
-    return _check_fidelity(cfg, result.cells, out, args)
+    with Store(out / FILE_NAME) as store:
+        progress = _Progress(args.quiet)
+        try:
+            result = flow.characterize(
+                cfg,
+                cells=args.cell,
+                jobs=args.jobs,
+                store=store,
+                on_start=progress.start,
+                on_stored=progress.stored,
+                on_result=progress.result,
+            )
+        finally:
+            progress.close()
+        if result.failures:
+            print(
+                f"{len(result.failures)} grid point(s) failed; no tables to check:",
+                file=sys.stderr,
+            )
+            for f in result.failures[:20]:
+                print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+            return EXIT_FAILED_POINTS
+        # With a store the library holds every stored cell; the check is for the chosen ones.
+        cells = [c for c in result.cells if args.cell is None or c.cell.name in args.cell]
+        return _check_fidelity(cfg, cells, out, args, store)
 
 
 def _grid_study(args: argparse.Namespace) -> int:
@@ -318,6 +453,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "run":
             return _run(args.config, args)
+        if args.command == "diff":
+            return _diff(args)
         if args.command == "fidelity":
             return _fidelity(args)
         if args.command == "grid-study":
@@ -325,7 +462,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "bench":
             return _bench(args)
         return _run(DEMO_CONFIG, args)
-    except (ConfigError, NetlistError, FunctionalMismatchError) as exc:
+    except (ConfigError, NetlistError, FunctionalMismatchError, DiffError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except CharflowError as exc:

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -147,6 +147,16 @@ class Fidelity:
 
 
 @dataclass(frozen=True, slots=True)
+class Corner:
+    """One operating corner: the model section it reads, its supply and temperature."""
+
+    name: str
+    section: str | None  # replaces the section of every model file read by section
+    vdd: float  # V
+    temperature: float  # degrees C
+
+
+@dataclass(frozen=True, slots=True)
 class LibraryConfig:
     path: Path
     name: str
@@ -158,6 +168,22 @@ class LibraryConfig:
     cells: tuple[CellSpec, ...]
     simulation: Simulation = field(default_factory=Simulation)
     fidelity: Fidelity = field(default_factory=Fidelity)
+    corners: tuple[Corner, ...] = ()
+
+    def at(self, corner: Corner) -> LibraryConfig:
+        """The library at one corner, named ``<name>_<corner>``, with no corners of its own."""
+        models = tuple(
+            replace(m, section=corner.section) if m.section and corner.section else m
+            for m in self.process.models
+        )
+        process = replace(
+            self.process, models=models, vdd=corner.vdd, temperature=corner.temperature
+        )
+        return replace(self, name=f"{self.name}_{corner.name}", process=process, corners=())
+
+    def libraries(self) -> tuple[LibraryConfig, ...]:
+        """One library per corner; the library itself when the config lists no corners."""
+        return tuple(self.at(c) for c in self.corners) or (self,)
 
     @property
     def time_scale(self) -> float:
@@ -321,7 +347,8 @@ _CELL_KEYS = {
     "other_output_axis",
 }
 _FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
-_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation", "fidelity"}
+_CORNER_KEYS = {"name", "section", "vdd", "temperature"}
+_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation", "fidelity", "corner"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -394,6 +421,8 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         seen.add(cell.name)
         cells.append(cell)
 
+    corners = _corners(r, doc.get("corner", []), process)
+
     # One problem keeps its own key and cell (and its one-line message); several are listed.
     if len(r.problems) == 1:
         raise r.problems[0]
@@ -413,6 +442,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         cells=tuple(cells),
         simulation=simulation,
         fidelity=fidelity,
+        corners=corners,
     )
 
 
@@ -458,6 +488,36 @@ def _process(r: _Reader, doc: dict, base: Path) -> Process:
     compat = r.get(doc, "compat", str, "process", None)
     scale = r.number(doc, "scale", "process", None, low=0.0)
     return Process(tuple(models), vdd or 0.0, temperature or 0.0, tuple(options), compat, scale)
+
+
+def _corners(r: _Reader, docs: Any, process: Process) -> tuple[Corner, ...]:
+    if not isinstance(docs, list):
+        r.problem("corner", "must be an array of tables: [[corner]]")
+        return ()
+    corners: list[Corner] = []
+    seen: set[str] = set()
+    for i, doc in enumerate(docs):
+        key = f"corner[{i}]"
+        if not isinstance(doc, dict):
+            r.problem(key, "must be a table")
+            continue
+        r.unknown(doc, _CORNER_KEYS, key, None)
+        name = r.get(doc, "name", str, key)
+        if name is not None and not _is_identifier(name):
+            r.problem(f"{key}.name", f"must be a name of letters, digits and _, got {name!r}")
+            continue
+        if name in seen:
+            r.problem(f"{key}.name", f"a corner named {name!r} is declared twice")
+            continue
+        seen.add(name)
+        section = r.get(doc, "section", str, key, None)
+        if section is not None and not any(m.section for m in process.models):
+            r.problem(f"{key}.section", "no model file is read by section ({file, section})")
+        vdd = r.number(doc, "vdd", key, process.vdd, low=0.0)
+        temperature = r.number(doc, "temperature", key, process.temperature, low=-273.15)
+        if name is not None and vdd is not None and temperature is not None:
+            corners.append(Corner(name, section, vdd, temperature))
+    return tuple(corners)
 
 
 def _thresholds(r: _Reader, doc: dict) -> Thresholds:

@@ -60,3 +60,15 @@ class LibertyError(CharflowError):
 
 class OutputError(CharflowError):
     """An output cannot be written."""
+
+
+class StoreError(CharflowError):
+    """The result store cannot be opened, read or written."""
+
+
+class ClusterError(CharflowError):
+    """The Dask cluster cannot be reached, or a task on it failed."""
+
+
+class DiffError(CharflowError):
+    """A library to compare cannot be read."""

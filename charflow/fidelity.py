@@ -28,6 +28,7 @@ from . import __version__, sweep
 from .config import Fidelity, LibraryConfig
 from .errors import TableError
 from .flow import write_atomic
+from .store import Store
 from .tables import Axis, Table, interpolate
 from .tabulate import LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
 from .timing import Failure, Measurement
@@ -277,17 +278,25 @@ def check(
     cells: Sequence[CellTables],
     *,
     jobs: int | None = None,
+    store: Store | None = None,
     on_start: Callable[[int], None] | None = None,
+    on_stored: Callable[[tuple], None] | None = None,
     on_result: Callable[[object], None] | None = None,
 ) -> FidelityReport:
-    """Re-simulate every table of ``cells`` off its grid and compare; one sweep for all of them."""
+    """Re-simulate every table of ``cells`` off its grid and compare; one sweep for all of them.
+    With a ``store``, points it holds are not simulated again (see ``sweep.run``)."""
     start = time.perf_counter()
     settings = config.fidelity
     work = _work(cells, settings)
     unique = list(dict.fromkeys(p for w in work for per_probe in w.points for p in per_probe))
     if on_start is not None:
         on_start(len(unique))
-    outcomes = {o.point: o for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)}
+    outcomes = {
+        o.point: o
+        for o in sweep.run(
+            config, unique, jobs=jobs, store=store, on_stored=on_stored, on_result=on_result
+        )
+    }
     checks = tuple(_check(w, outcomes, settings.rel_floor) for w in work)
     runs = sum(o.runs for o in outcomes.values() if isinstance(o, Measurement))
     return FidelityReport(settings, checks, len(unique), runs, time.perf_counter() - start)

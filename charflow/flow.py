@@ -2,9 +2,11 @@
 
     config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
 
-(power rides along: toggles through ``sweep.run``, leakage per deck, ``power.tabulate``).
 ``characterize`` chains them; each stage takes and returns plain records, so any one can
-be tested or re-run alone.
+be tested or re-run alone; power rides along (hidden-power toggles in the sweep, leakage per
+deck, ``power.tabulate``). With a result store (``store.Store``) the sweep simulates only
+points it does not hold, and a run of a few cells or one arc fills the rest of the library
+from the store.
 """
 
 from __future__ import annotations
@@ -19,10 +21,11 @@ from pathlib import Path
 
 from . import __version__, liberty, power, sweep
 from .config import LibraryConfig
-from .errors import OutputError
+from .errors import ConfigError, OutputError
 from .netlist import build_deck
 from .sequential import SearchResult
-from .tabulate import CellTables, tabulate
+from .store import Stale, Store, keyring
+from .tabulate import CellTables, delay_quantity, tabulate, transition_quantity
 from .timing import Failure, Measurement, check_function
 from .units import energy_unit, power_unit
 
@@ -34,6 +37,9 @@ class RunResult:
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
+    reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
+    stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
+    left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
     toggles: tuple[power.ToggleMeasurement, ...] = ()
     # Toggles whose energy could not be measured: reported, left out of the tables; they do
     # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
@@ -41,49 +47,178 @@ class RunResult:
     cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
 
     @property
+    def simulated(self) -> int:
+        """Points measured by simulating them in this run."""
+        return len(self.measurements) - len(self.reused & {m.point for m in self.measurements})
+
+    @property
     def simulations(self) -> int:
-        return sum(m.runs for m in (*self.measurements, *self.toggles))
+        """Simulator runs of this run, refinements and retries included."""
+        done = (*self.measurements, *self.toggles)
+        return sum(m.runs for m in done if m.point not in self.reused)
 
     @property
     def sim_seconds(self) -> float:
-        return sum(m.sim_seconds for m in (*self.measurements, *self.toggles))
+        """Simulator time of this run, summed over workers."""
+        done = (*self.measurements, *self.toggles)
+        return sum(m.sim_seconds for m in done if m.point not in self.reused)
+
+    def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
+        """The names (as ``charflow diff`` prints them) of the tables holding values from stored
+        rows older than the current inputs, by the model files that changed since (``()``:
+        the testbench or the settings changed)."""
+        out: dict[tuple[str, ...], dict[str, None]] = {}
+        for s in self.stale:
+            names = out.setdefault(s.models, {})
+            names.update(dict.fromkeys(_tables_of(self.plan, s.point)))
+        return {models: sorted(names) for models, names in sorted(out.items())}
 
 
-def verify(config: LibraryConfig, cells: list[str] | None = None) -> None:
-    """Simulate every input vector of every chosen cell against its declared function."""
-    for cell in config.cells:
-        if cells is None or cell.name in cells:
-            check_function(config, build_deck(config, cell))
+def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
+    """The tables (or pin values) of a library that a point's result goes into."""
+    from .diff import pin_name, table_name
+
+    if isinstance(p, sweep.PulsePoint):
+        return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
+    if isinstance(p, power.TogglePoint):
+        when = sweep.State(p.side, "").when
+        return [pin_name(p.cell, p.related, f"when {when} {power.power_quantity(p.input_edge)}")]
+    if isinstance(p, sweep.ConstraintPoint):
+        kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
+        quantity = f"{p.data_edge}_constraint"
+        return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
+    arc = next(
+        a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
+    )
+    whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
+    quantities = [delay_quantity(p.output_edge), transition_quantity(p.output_edge)]
+    if arc.kind == "combinational":
+        quantities.append(power.power_quantity(p.output_edge))
+    return [
+        table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
+        for when in whens
+        for quantity in quantities
+    ]
+
+
+def verify(
+    config: LibraryConfig, cells: list[str] | None = None, *, store: Store | None = None
+) -> None:
+    """Simulate every input vector of every chosen cell against its declared function; with a
+    store, a cell whose check passed before with the same inputs is not checked again."""
+    decks = {
+        c.name: build_deck(config, c) for c in config.cells if cells is None or c.name in cells
+    }
+    ring = keyring(config, decks) if store is not None else None
+    for name, deck in decks.items():
+        if ring is not None and store.verified(ring, name):
+            continue
+        check_function(config, deck)
+        if ring is not None:
+            store.mark_verified(ring, name)
+
+
+def select(
+    config: LibraryConfig, cells: list[str] | None = None, arc: tuple[str, str] | None = None
+) -> sweep.Plan:
+    """The plan of the chosen cells, or of one arc (related pin, output pin) of one cell."""
+    plan = sweep.plan(config, cells)
+    if arc is None:
+        return plan
+    if cells is None or len(cells) != 1:
+        raise ConfigError("an arc is chosen within one cell: give exactly one cell with it")
+    related, output = arc
+    arcs = tuple(a for a in plan.arcs if (a.related, a.output) == arc)
+    if not arcs:
+        have = ", ".join(f"{a.related}:{a.output}" for a in plan.arcs)
+        raise ConfigError(
+            f"no timing arc from {related} to {output}; the cell's arcs are {have}",
+            cell=cells[0],
+            arc=f"{related}:{output}",
+        )
+    # Setup, hold and pulse-width searches belong to no arc: they come with the whole cell.
+    points = tuple(
+        p for p in plan.points if isinstance(p, sweep.TimingPoint) and (p.related, p.output) == arc
+    )
+    return sweep.Plan(arcs, points)
 
 
 def characterize(
     config: LibraryConfig,
     *,
     cells: list[str] | None = None,
+    arc: tuple[str, str] | None = None,
     jobs: int | None = None,
+    store: Store | None = None,
+    scheduler: str | None = None,
     on_start: Callable[[int], None] | None = None,
+    on_stored: Callable[[tuple], None] | None = None,
     on_result: Callable[[object], None] | None = None,
 ) -> RunResult:
-    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers."""
+    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers.
+
+    Only the chosen ``cells`` (or ``arc``, see ``select``) are simulated. Without a store the
+    library holds just those. With one it holds every cell of the config: points not chosen
+    come from the store, from rows with the current inputs or else the newest row of their
+    slot (listed in ``stale``); a cell with a point the store never held is left out.
+    """
     start = time.perf_counter()
-    the_plan = sweep.plan(config, cells)
-    toggle_points = power.plan_toggles(config, cells)
-    verify(config, cells)
+    chosen = select(config, cells, arc)
+    # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
+    toggle_points = power.plan_toggles(config, cells) if arc is None else ()
+    verify(config, cells, store=store)
     if on_start is not None:
-        on_start(len(the_plan.points) + len(toggle_points))
+        on_start(len(chosen.points) + len(toggle_points))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
-    for outcome in sweep.run(config, the_plan.points, jobs=jobs, on_result=on_result):
-        (failures if isinstance(outcome, Failure) else measurements).append(outcome)
     toggles: list[power.ToggleMeasurement] = []
     unmeasured: list[Failure] = []
-    if toggle_points:
-        runs = sweep.run(
-            config, toggle_points, jobs=jobs, on_result=on_result, measure=power.measure_chunk
-        )
-        for outcome in runs:
-            (unmeasured if isinstance(outcome, Failure) else toggles).append(outcome)
-    order = {p: i for i, p in enumerate((*the_plan.points, *toggle_points))}
+    reused: set[sweep.Point] = set()
+
+    def keep(outcome: object) -> None:
+        if isinstance(outcome, power.ToggleMeasurement):
+            toggles.append(outcome)
+        elif isinstance(outcome, Failure):
+            toggle = isinstance(outcome.point, power.TogglePoint)
+            (unmeasured if toggle else failures).append(outcome)
+        else:
+            measurements.append(outcome)
+
+    def stored(found: tuple) -> None:
+        reused.update(m.point for m in found)
+        if on_stored is not None:
+            on_stored(found)
+
+    for outcome in sweep.run(
+        config,
+        (*chosen.points, *toggle_points),
+        jobs=jobs,
+        on_result=on_result,
+        store=store,
+        on_stored=stored,
+        scheduler=scheduler,
+    ):
+        keep(outcome)
+    whole, stale = chosen, {}
+    all_toggles = toggle_points
+    if store is not None and cells is not None:
+        whole = sweep.plan(config)
+        all_toggles = power.plan_toggles(config)
+        picked = {*chosen.points, *toggle_points}
+        rest = [p for p in (*whole.points, *all_toggles) if p not in picked]
+        decks = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in rest}}
+        found, stale = store.latest(keyring(config, decks), rest)
+        for m in found.values():
+            keep(m)
+        reused.update(found)
+    have = {m.point for m in measurements} | {f.point for f in failures}
+    names = dict.fromkeys(p.cell for p in whole.points)
+    left_out = tuple(c for c in names if not all(p in have for p in whole.for_cell(c)))
+    the_plan = sweep.Plan(
+        tuple(a for a in whole.arcs if a.cell not in left_out),
+        tuple(p for p in whole.points if p.cell not in left_out),
+    )
+    order = {p: i for i, p in enumerate((*whole.points, *all_toggles))}
     for outcomes in (measurements, failures, toggles, unmeasured):
         outcomes.sort(key=lambda m: order[m.point])
     tables, cell_power = (), ()
@@ -97,6 +232,9 @@ def characterize(
         tuple(failures),
         tables,
         time.perf_counter() - start,
+        frozenset(reused),
+        tuple(s for p, s in stale.items() if p.cell not in left_out),
+        left_out,
         tuple(toggles),
         tuple(unmeasured),
         cell_power,
@@ -135,7 +273,6 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                 "value_s": m.value,
                 "upper_bound": m.bound,
                 "simulations": m.runs,
-                "sim_seconds": round(m.sim_seconds, 6),
             }
         return {
             "related_pin": p.related,
@@ -153,7 +290,6 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "supply_energy_J": m.supply_energy,
             "internal_energy_J": m.internal_energy,
             "simulations": m.runs,
-            "sim_seconds": round(m.sim_seconds, 6),
             "stop_s": m.stop,
         }
 
@@ -168,7 +304,6 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "energy_J": m.energy,
             "input_charge_C": m.input_charge,
             "simulations": m.runs,
-            "sim_seconds": round(m.sim_seconds, 6),
             "window_end_s": m.settled,
         }
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import functools
 import hashlib
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -64,6 +65,39 @@ def _compiled(text: str) -> jinja2.Template:
     # Compiling a template costs milliseconds, and every run renders each one more than once.
     env = jinja2.Environment(undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
     return env.from_string(text)
+
+
+# `.include FILE`, `.inc FILE` and `.lib FILE SECTION` read a file; `.lib NAME` alone opens a
+# section and reads nothing. Paths may be quoted with " or '.
+_READS = re.compile(
+    r"""^[ \t]*\.(?:inc(?:lude)?[ \t]+(?P<inc>"[^"]*"|'[^']*'|\S+)"""
+    r"""|lib[ \t]+(?P<lib>"[^"]*"|'[^']*'|\S+)[ \t]+\S)""",
+    re.IGNORECASE | re.MULTILINE,
+)
+
+
+def model_files(text: str, base: Path) -> tuple[Path, ...]:
+    """Every file ``text`` reads through ``.include`` / ``.lib``, followed into those files.
+
+    A relative path is taken from the folder of the file that names it (``base`` for ``text``
+    itself), as ngspice does. Files are listed once, in the order first met; a file that does
+    not exist is listed too, so that its appearing later counts as a change.
+    """
+    found: list[Path] = []
+    pending = [(text, base)]
+    while pending:
+        body, folder = pending.pop(0)
+        for match in _READS.finditer(body):
+            name = (match.group("inc") or match.group("lib")).strip("\"'")
+            path = (folder / name).resolve()
+            if path in found:
+                continue
+            found.append(path)
+            try:
+                pending.append((path.read_text(encoding="utf-8", errors="replace"), path.parent))
+            except OSError:
+                continue  # a missing file is a simulator error, reported when the deck runs
+    return tuple(found)
 
 
 def render_cell(cell: CellSpec) -> str:

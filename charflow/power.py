@@ -24,7 +24,7 @@ import numpy as np
 
 from . import logic, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import MeasurementError, SimulatorError, TableError
+from .errors import MeasurementError, TableError
 from .measure import integral, single_crossing, supply_energy
 from .netlist import Deck, build_deck
 from .simulate import Request
@@ -33,7 +33,6 @@ from .tables import Axis, Table
 from .timing import (
     LOGIC_MARGIN,
     RAMP_SAMPLES,
-    Failure,
     Measurement,
     alters,
     backend_for,
@@ -227,17 +226,6 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     return ToggleMeasurement(point, energy, charge, runs, seconds, settled)
-
-
-def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list[ToggleMeasurement | Failure]:
-    """Measure toggles of one cell; one that fails becomes a Failure, the rest go on."""
-    out: list[ToggleMeasurement | Failure] = []
-    for point in points:
-        try:
-            out.append(measure_toggle(config, deck, point))
-        except (MeasurementError, SimulatorError) as exc:
-            out.append(Failure(point, exc.reason))
-    return out
 
 
 def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:

@@ -88,6 +88,13 @@ class SharedBackend:
         self._circuits: list[str] = []  # keys of the decks loaded, in ngspice's order
         self._runs = 0
         self._loaded: str | None = None
+        self._version: str | None = None
+
+    def version(self) -> str:
+        """The shared library's version and build date, as ngspice reports them."""
+        if self._version is None:
+            self._version = f"{self.name} {_version_of(self._ng.exec_command('version -s'))}"
+        return self._version
 
     def _command(self, command: str, cell: str) -> None:
         from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
@@ -229,6 +236,19 @@ class SubprocessBackend:
                 "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
             )
         self._timeout = timeout
+        self._version: str | None = None
+
+    def version(self) -> str:
+        """The executable's version and build date, as ``ngspice -v`` reports them."""
+        if self._version is None:
+            try:
+                proc = subprocess.run(
+                    [self._exe, "-v"], capture_output=True, text=True, timeout=self._timeout
+                )
+            except (OSError, subprocess.TimeoutExpired) as exc:
+                raise SimulatorError(f"cannot ask ngspice for its version: {exc}") from exc
+            self._version = f"{self.name} {_version_of(proc.stdout + proc.stderr)}"
+        return self._version
 
     def run(self, request: Request) -> Result:
         cell = request.deck.cell
@@ -296,6 +316,14 @@ def _wrdata_name(name: str) -> str:
     if name.endswith("#branch"):
         return f"i({name[: -len('#branch')]})"
     return f"v({name})"
+
+
+def _version_of(text: str) -> str:
+    """``ngspice-39, Creation Date: ...`` from ngspice's banner; the whole banner otherwise."""
+    name = re.search(r"ngspice-\S+", text)
+    date = re.search(r"creation date:.*", text, re.I)
+    keep = [m.group(0).strip() for m in (name, date) if m]
+    return ", ".join(keep) or " ".join(text.split())
 
 
 def _messages(lines: list[str] | str) -> str:

@@ -3,7 +3,8 @@
 ``plan`` turns every cell into timing arcs (one per input → output pair the output depends
 on), every arc into its sensitizing side-input states, and every state into points over
 input edge × slew × load. ``run`` sends the points to workers in chunks of one cell each,
-so a worker's simulator reads each cell's testbench once per chunk at most.
+so a worker's simulator reads each cell's testbench once per chunk at most; with a result
+store it simulates only the points the store does not hold.
 """
 
 from __future__ import annotations
@@ -12,11 +13,15 @@ import itertools
 import os
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from . import logic
 from .config import CellSpec, LibraryConfig
 from .errors import ConfigError
 from .netlist import Deck, build_deck
+
+if TYPE_CHECKING:
+    from .store import Store
 
 EDGES = ("rise", "fall")
 CHUNK = 25  # points per worker task: large enough to amortise the deck load
@@ -337,35 +342,57 @@ def run(
     *,
     jobs: int | None = None,
     on_result: Callable[[object], None] | None = None,
-    measure: Callable | None = None,
+    store: Store | None = None,
+    on_stored: Callable[[tuple], None] | None = None,
+    scheduler: str | None = None,
 ) -> Iterator[object]:
     """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point.
 
-    Outcomes come in completion order; ``on_result`` is a hook for progress display.
-    ``measure`` measures one cell's chunk (default ``timing.measure_chunk``; points of
-    another kind, such as ``power.TogglePoint``, bring their own).
+    Outcomes come in completion order; ``on_result`` is a hook for progress display. With a
+    ``store``, the points whose key is stored come from it first, unsimulated (``on_stored``
+    gets them together, before ``on_result`` gets each), and every new measurement is stored
+    as it arrives. With a Dask ``scheduler`` address the points run on that cluster, otherwise
+    on ``jobs`` local worker processes.
     """
     from joblib import Parallel, delayed
 
     from .timing import measure_chunk
 
-    chunk = measure or measure_chunk
     points = list(points)
     decks: dict[str, Deck] = {
         c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}
     }
+    ring = None
+    if store is not None:
+        from .store import RECORDS, keyring
+
+        ring = keyring(config, decks)
+        found = store.lookup(ring, points)
+        if on_stored is not None:
+            on_stored(tuple(found.values()))
+        for m in found.values():
+            if on_result is not None:
+                on_result(m)
+            yield m
+        points = [p for p in points if p not in found]
     tasks = chunks(points)
     jobs = jobs or default_jobs()
-    if jobs == 1 or len(tasks) == 1:
-        results: Iterable[list] = (chunk(config, decks[t[0].cell], t) for t in tasks)
+    if scheduler is not None:
+        from .cluster import map_chunks
+
+        results: Iterable[list] = map_chunks(scheduler, config, decks, tasks)
+    elif jobs == 1 or len(tasks) <= 1:
+        results = (measure_chunk(config, decks[t[0].cell], t) for t in tasks)
     else:
         # Worker processes, not this one, run the simulator: a crash of the shared library
         # then costs a worker's chunk, not the run.
         results = Parallel(n_jobs=min(jobs, len(tasks)), return_as="generator_unordered")(
-            delayed(chunk)(config, decks[t[0].cell], t) for t in tasks
+            delayed(measure_chunk)(config, decks[t[0].cell], t) for t in tasks
         )
     for batch in results:
         for outcome in batch:
+            if ring is not None and type(outcome).__name__ in RECORDS:
+                store.put(ring, outcome)
             if on_result is not None:
                 on_result(outcome)
             yield outcome

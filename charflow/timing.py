@@ -245,13 +245,15 @@ def measure_point(
 
 def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
-    from . import sequential
+    from . import power, sequential
     from .sweep import ConstraintPoint, PulsePoint
 
     out: list = []
     for point in points:
         try:
-            if isinstance(point, ConstraintPoint):
+            if isinstance(point, power.TogglePoint):
+                out.append(power.measure_toggle(config, deck, point))
+            elif isinstance(point, ConstraintPoint):
                 out.append(sequential.measure_constraint(config, deck, point))
             elif isinstance(point, PulsePoint):
                 out.append(sequential.measure_pulse(config, deck, point))

@@ -1,0 +1,85 @@
+"""The Dask backend on a small LocalCluster this test starts on 127.0.0.1: the same tables as
+joblib, and the driver, not the workers, writes the store."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+from distributed import LocalCluster
+
+from charflow import cluster as cluster_module
+from charflow import config, flow, liberty
+from charflow.errors import ClusterError
+from charflow.store import FILE_NAME, Store
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL = ROOT / "tests" / "data" / "small_l1.toml"
+POINTS = 90
+TOGGLES = 24  # hidden-power toggles of NAND2 and NOR2, stored beside the points
+
+
+@pytest.fixture(scope="module")
+def cluster():
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not installed; these tests need it (apt-get install ngspice)")
+    # Worker threads in this process, reached over TCP on the loopback address only.
+    with LocalCluster(
+        n_workers=2,
+        threads_per_worker=1,
+        processes=False,
+        protocol="tcp",
+        host="127.0.0.1",
+        dashboard_address=None,
+    ) as local:
+        yield local
+
+
+def test_dask_gives_the_same_tables_as_joblib(cluster, tmp_path: Path) -> None:
+    cfg = config.load(SMALL)
+    with Store(tmp_path / FILE_NAME) as store:
+        on_dask = flow.characterize(cfg, store=store, scheduler=cluster.scheduler_address)
+        assert store.count() == POINTS + TOGGLES
+    on_joblib = flow.characterize(cfg, jobs=2)
+    assert not on_dask.failures and len(on_dask.measurements) == POINTS
+    assert liberty.render(cfg, on_dask.cells) == liberty.render(cfg, on_joblib.cells)
+    for a, b in zip(on_dask.cells, on_joblib.cells, strict=True):
+        for x, y in zip(a.arcs, b.arcs, strict=True):
+            assert x.default == y.default
+
+
+def test_the_command_on_dask_writes_what_joblib_writes(cluster, tmp_path: Path) -> None:
+    exe = shutil.which("charflow")
+    if exe is None:
+        pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
+    outputs = {}
+    for backend in ("dask", "joblib"):
+        out = tmp_path / backend
+        extra = ["--scheduler", cluster.scheduler_address] if backend == "dask" else []
+        done = subprocess.run(
+            [exe, "run", str(SMALL), "--out", str(out), "--quiet", "--backend", backend, *extra],
+            capture_output=True,
+            text=True,
+            timeout=300,
+            check=False,
+        )
+        assert done.returncode == 0, done.stderr
+        assert f"{POINTS} simulated" in done.stdout
+        outputs[backend] = [(out / f"small_l1{s}").read_bytes() for s in (".lib", ".json")]
+    assert outputs["dask"] == outputs["joblib"]
+
+
+def test_an_unreachable_scheduler_is_a_cluster_error(monkeypatch) -> None:
+    monkeypatch.setattr(cluster_module, "CONNECT_TIMEOUT", 1.0)
+    cfg = config.load(SMALL)
+    # Port 9 (discard) on the loopback address: nothing listens there.
+    with pytest.raises(ClusterError, match="cannot reach the Dask scheduler"):
+        flow.characterize(cfg, cells=["INV_X1"], scheduler="tcp://127.0.0.1:9")
+
+
+def test_a_malformed_scheduler_address_is_refused_at_once() -> None:
+    cfg = config.load(SMALL)
+    with pytest.raises(ClusterError, match="not a Dask scheduler address: foo bar"):
+        flow.characterize(cfg, cells=["INV_X1"], scheduler="foo bar")

@@ -1,0 +1,274 @@
+"""Re-running only what changed, through the installed command: a second run, a run killed
+with SIGKILL and started again, one arc re-run after a model change, and two corners."""
+
+from __future__ import annotations
+
+import difflib
+import os
+import re
+import shutil
+import signal
+import sqlite3
+import subprocess
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from liberty.parser import parse_liberty
+
+from charflow import diff
+from charflow.store import FILE_NAME
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL = ROOT / "tests" / "data" / "small_l1.toml"
+POINTS = 90  # small_l1: (1 + 2 + 2) arcs x 2 edges x 3 slews x 3 loads
+# small_l1's hidden-power toggles, stored beside the points: NAND2 and NOR2, 2 pins x 1 state
+# (the other input at its controlling value) x 2 edges x 3 slews each.
+TOGGLES = 24
+ROWS = POINTS + TOGGLES
+KILL_POINTS = 250  # the same cells on a 5 x 5 grid
+KILL_AFTER = 50  # rows stored before the kill; the run stores 25 at a time (sweep.CHUNK)
+
+
+def _charflow(*args: str | Path, cwd: Path) -> subprocess.CompletedProcess[str]:
+    exe = shutil.which("charflow")
+    if exe is None:
+        pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not on PATH; these tests need it")
+    done = subprocess.run(
+        [exe, *map(str, args)],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        timeout=300,
+        check=False,
+        stdin=subprocess.DEVNULL,
+    )
+    assert "Traceback" not in done.stderr, done.stderr
+    return done
+
+
+def _config(folder: Path, *, extra: str = "", grid: str | None = None) -> Path:
+    """small_l1 with its own copy of the model file (so a test may edit it) beside it."""
+    models = folder / "models"
+    models.mkdir(parents=True, exist_ok=True)
+    shutil.copy(ROOT / "models" / "vellum90_l1.lib", models / "vellum90_l1.lib")
+    text = SMALL.read_text(encoding="utf-8")
+    text = text.replace("../../models/", "models/")
+    text = text.replace("../../templates/", (ROOT / "templates").as_posix() + "/")
+    if grid is not None:
+        text = re.sub(r"(?ms)^\[grid\].*?(?=^\[\[cell\]\])", grid + "\n\n", text)
+    path = folder / "small.toml"
+    path.write_text(text + extra, encoding="utf-8")
+    return path
+
+
+def _rows(db: Path) -> int:
+    if not db.is_file():
+        return 0
+    conn = sqlite3.connect(db, timeout=5)
+    try:
+        return conn.execute("SELECT count(*) FROM point").fetchone()[0]
+    except sqlite3.OperationalError:  # the run has not made the table yet
+        return 0
+    finally:
+        conn.close()
+
+
+def _outputs(out: Path, name: str = "small_l1") -> dict[str, bytes]:
+    return {s: (out / f"{name}{s}").read_bytes() for s in (".lib", ".json")}
+
+
+def test_a_second_run_simulates_nothing_and_writes_the_same_bytes(tmp_path: Path) -> None:
+    cfg = _config(tmp_path)
+    out = tmp_path / "out"
+    first = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert first.returncode == 0, first.stderr
+    assert f"{POINTS} simulated" in first.stdout and "0 reused from the store" in first.stdout
+    before = _outputs(out)
+    assert _rows(out / FILE_NAME) == ROWS
+
+    second = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert second.returncode == 0, second.stderr
+    assert "0 simulated (0 simulations)" in second.stdout
+    assert f"{ROWS} reused from the store" in second.stdout
+    assert _outputs(out) == before
+    assert _rows(out / FILE_NAME) == ROWS
+    # Nothing that varies between runs (wall time, dates) is in the outputs.
+    assert b"sim_seconds" not in before[".json"]
+
+
+def test_a_killed_run_resumes_and_ends_as_a_clean_run(tmp_path: Path) -> None:
+    # One ngspice process per simulation makes the 250 points take a few seconds.
+    grid = (
+        '[simulation]\nbackend = "subprocess"\n\n[grid]\n'
+        "slew = [0.01, 0.02, 0.05, 0.1, 0.2]\nload = [0.001, 0.002, 0.005, 0.01, 0.02]"
+    )
+    cfg = _config(tmp_path, grid=grid)
+    clean = tmp_path / "clean"
+    done = _charflow("run", cfg, "--out", clean, "--quiet", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert f"{KILL_POINTS} points measured" in done.stdout
+
+    out = tmp_path / "killed"
+    db = out / FILE_NAME
+    proc = subprocess.Popen(
+        [shutil.which("charflow"), "run", str(cfg), "--out", str(out), "--quiet"],
+        cwd=tmp_path,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,  # its own process group: its workers and ngspice die with it
+    )
+    try:
+        deadline = time.monotonic() + 120
+        while _rows(db) < KILL_AFTER:
+            assert proc.poll() is None, "the run ended before it could be killed"
+            assert time.monotonic() < deadline, "the run stored too few points in time"
+            time.sleep(0.01)
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=30)
+    assert proc.returncode == -signal.SIGKILL
+    stored = _rows(db)
+    assert KILL_AFTER <= stored < KILL_POINTS
+    assert not (out / "small_l1.lib").exists()
+
+    resumed = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert resumed.returncode == 0, resumed.stderr
+    assert f"{KILL_POINTS - stored} simulated" in resumed.stdout, resumed.stdout
+    assert f"{stored} reused from the store" in resumed.stdout, resumed.stdout
+    assert _outputs(out) == _outputs(clean)
+    assert not list(out.glob(".*.tmp"))  # no half-written output left behind
+
+
+def _arc_of_each_line(text: str) -> list[tuple[str, str, str]]:
+    """For each Liberty line, the (cell, pin, related pin) it belongs to ("" outside)."""
+    cell = pin = related = ""
+    depth = {"cell": -1, "pin": -1, "timing": -1}
+    level = 0
+    out = []
+    for line in text.splitlines():
+        head = re.match(r"\s*(cell|pin|timing) \(([^)]*)\) \{", line)
+        if head:
+            kind, name = head.groups()
+            depth[kind] = level
+            if kind == "cell":
+                cell, pin, related = name, "", ""
+            elif kind == "pin":
+                pin, related = name, ""
+        found = re.match(r'\s*related_pin : "([^"]*)"', line)
+        if found:
+            related = found.group(1)
+        out.append((cell, pin, related))
+        level += line.count("{") - line.count("}")
+        if "}" in line:
+            if level <= depth["timing"]:
+                related, depth["timing"] = "", -1
+            if level <= depth["pin"]:
+                pin, depth["pin"] = "", -1
+            if level <= depth["cell"]:
+                cell, depth["cell"] = "", -1
+    return out
+
+
+def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
+    cfg = _config(tmp_path)
+    out = tmp_path / "out"
+    assert _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path).returncode == 0
+    old = _outputs(out)
+    (tmp_path / "old.lib").write_bytes(old[".lib"])
+
+    model = tmp_path / "models" / "vellum90_l1.lib"
+    text = model.read_text(encoding="utf-8")
+    assert text.count("vto=0.35 kp=200e-6") == 1  # the tt NMOS card
+    model.write_text(text.replace("vto=0.35 kp=200e-6", "vto=0.35 kp=230e-6"), encoding="utf-8")
+
+    done = _charflow(
+        "run", cfg, "--out", out, "--cell", "NAND2_X1", "--arc", "A1:Y", "--quiet", cwd=tmp_path
+    )
+    assert done.returncode == 0, done.stderr
+    arc_points = 2 * 3 * 3  # 2 edges x 3 slews x 3 loads
+    assert f"{arc_points} simulated" in done.stdout
+    assert f"{ROWS - arc_points} reused from the store" in done.stdout
+    assert _rows(out / FILE_NAME) == ROWS + arc_points
+    # The four other arcs' tables (4 timing and 2 internal power each) and the 8 hidden-power
+    # tables (toggles come with whole cells, not with one arc) are older than the model, and
+    # the summary says so.
+    stale = re.search(r"(\d+) tables are older than the model \((.*?)\): (.*)", done.stdout)
+    assert stale is not None, done.stdout
+    assert stale.group(1) == str(4 * 6 + 8) and "vellum90_l1.lib" in stale.group(2)
+    assert "NAND2_X1 A1->Y" not in stale.group(3)
+
+    new_lib = (out / "small_l1.lib").read_text(encoding="utf-8")
+    # Only the lines of the re-run arc and of its input pin changed, byte for byte.
+    old_lines = old[".lib"].decode().splitlines()
+    where = _arc_of_each_line(old[".lib"].decode())
+    matcher = difflib.SequenceMatcher(a=old_lines, b=new_lib.splitlines(), autojunk=False)
+    changed = set()
+    for op, i1, i2, _, _ in matcher.get_opcodes():
+        assert op in ("equal", "replace"), (op, old_lines[i1:i2])
+        if op == "replace":
+            changed |= set(where[i1:i2])
+    assert changed == {("NAND2_X1", "Y", "A1"), ("NAND2_X1", "A1", "")}
+
+    # charflow diff finds the same: the arc's four tables and its pin's capacitance.
+    comparison = diff.compare(diff.read(tmp_path / "old.lib"), diff.read(out / "small_l1.lib"))
+    names = {c.name for c in comparison.changed}
+    assert {n for n in names if "->" in n} == {
+        f"NAND2_X1 A1->Y {q}" for q in diff.TIMING_QUANTITIES
+    }
+    assert {n for n in names if "->" not in n} <= {
+        f"NAND2_X1 pin A1 {q}" for q in diff.PIN_QUANTITIES
+    }
+    assert not comparison.appeared and not comparison.vanished and not comparison.reshaped
+    # A stronger NMOS (higher KP) pulls the NAND2 output down faster (square law, Shichman &
+    # Hodges, IEEE JSSC, 1968): the falling delay of the re-run arc went down.
+    fall = next(c for c in comparison.changed if c.name == "NAND2_X1 A1->Y cell_fall")
+    assert fall.relative < 0
+
+    # A full run then brings every table up to date.
+    full = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert full.returncode == 0, full.stderr
+    assert f"{POINTS - arc_points} simulated" in full.stdout and "older" not in full.stdout
+
+
+CORNERS = """
+[[corner]]
+name = "ff"
+section = "ff"
+vdd = 1.32
+temperature = -40
+
+[[corner]]
+name = "ss"
+section = "ss"
+vdd = 1.08
+temperature = 125
+"""
+
+
+def test_two_corners_give_two_libraries_ff_faster_than_ss(tmp_path: Path) -> None:
+    cfg = _config(tmp_path, extra=CORNERS)
+    out = tmp_path / "out"
+    done = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert sorted(p.name for p in out.glob("*.lib")) == ["small_l1_ff.lib", "small_l1_ss.lib"]
+    assert _rows(out / FILE_NAME) == 2 * ROWS  # one store for both corners
+    # Read back with the independent liberty-parser (Thomas Kramer, liberty-parser 0.0.29).
+    libs = {c: parse_liberty((out / f"small_l1_{c}.lib").read_text()) for c in ("ff", "ss")}
+    assert libs["ff"].args == ["small_l1_ff"] and libs["ss"].args == ["small_l1_ss"]
+    assert libs["ff"]["nom_voltage"] == pytest.approx(1.32)
+    assert libs["ss"]["nom_temperature"] == pytest.approx(125)
+    # The fast corner (fast devices, high supply, low temperature) has shorter delays and
+    # transitions than the slow one everywhere (common practice).
+    tables = {c: diff.read(out / f"small_l1_{c}.lib") for c in ("ff", "ss")}
+    timing = [n for n in tables["ff"] if "->" in n]
+    assert len(timing) == 5 * 4 and set(timing) == {n for n in tables["ss"] if "->" in n}
+    for name in timing:
+        ff, ss = tables["ff"][name].values, tables["ss"][name].values
+        assert np.all(ff < ss), name
+
+    again = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
+    assert again.stdout.count(f"0 simulated (0 simulations), {ROWS} reused") == 2
