@@ -45,6 +45,8 @@ class Measurement:
     # the outputs that switched together (a power tool adds the internal power of every output
     # that toggles, so the event counts once)
     internal_energy: float | None = None
+    # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
+    side_charges: tuple[tuple[str, str, float], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -301,17 +303,16 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
     """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
 
     At each pin and edge the points at the smallest load are averaged over slews and states:
-    the effective (Miller-inclusive) capacitance a driver sees (common practice). Any record
-    with ``point.related``, ``point.input_edge``, ``point.load`` and ``input_charge`` counts:
-    a flip-flop's clock pin gets its values by passing its clock toggles here (for example
-    ``power.ToggleMeasurement`` of clock edges that leave Q alone), with no second method.
+    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
+    point's related pin, the pins listed in its ``side_charges`` (a flip-flop's data) count.
     """
-    groups: dict[tuple[str, str], list[Measurement]] = {}
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
     for m in measurements:
-        groups.setdefault((m.point.related, m.point.input_edge), []).append(m)
+        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
+        for pin, edge, charge in entries:
+            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
     caps = {}
     for key, group in groups.items():
-        smallest = min(m.point.load for m in group)
-        charges = [abs(m.input_charge) for m in group if m.point.load == smallest]
-        caps[key] = float(np.mean(charges)) / vdd
+        smallest = min(load for load, _ in group)
+        caps[key] = float(np.mean([q for load, q in group if load == smallest])) / vdd
     return caps
