@@ -16,7 +16,7 @@ import numpy as np
 
 from . import stepsize, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
+from .errors import DeckReadError, FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, transition
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
@@ -103,6 +103,8 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
             return backend.run(replace(request, options=request.options + options)), attempt
+        except DeckReadError:
+            raise
         except SimulatorError as exc:
             errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
     raise SimulatorError(
