@@ -8,12 +8,18 @@ stop the others: a user fixing a library sees all that is wrong at once, not one
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from . import config as config_mod
 from .config import LibraryConfig
-from .errors import CharflowError, ConfigError, FunctionalMismatchError, SimulatorError
+from .errors import (
+    CharflowError,
+    ConfigError,
+    DeckReadError,
+    FunctionalMismatchError,
+    SimulatorError,
+)
 from .netlist import build_deck
 from .timing import check_function
 
@@ -40,6 +46,10 @@ def check(path: str | Path) -> CheckReport:
             check_function(cfg, build_deck(cfg, cell))
         except CharflowError as exc:
             problems.append(str(_located(cfg, index, exc)))
+            if isinstance(exc, DeckReadError) and cfg.simulation.backend == "shared":
+                # The shared ngspice may refuse every deck after one it could not read: the
+                # other cells go to one ngspice process per run, which starts afresh each time.
+                cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
     return CheckReport(len(cfg.cells), tuple(problems))
 
 
@@ -51,9 +61,10 @@ def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowErro
         context.setdefault("file", cfg.path)
         pin = context.get("pin")
         context["key"] = f"cell[{index}].outputs" + (f".{pin}" if pin else "")
-    elif isinstance(exc, SimulatorError) and "file" not in context:
-        # The simulator reads the models and the cell together: name the model files.
-        context["file"] = ", ".join(str(m.path) for m in cfg.process.models)
+    elif isinstance(exc, SimulatorError):
+        # The simulator reads the models and the cell together: either may hold the fault.
+        files = [*(m.path for m in cfg.process.models), cfg.cells[index].source]
+        context["file"] = ", ".join(map(str, files))
     else:
         context.setdefault("file", cfg.path)
     context.setdefault("cell", cfg.cells[index].name)
