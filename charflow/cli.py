@@ -288,7 +288,8 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
 
 def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
     print(
-        f"{name}: {len(result.measurements)} points measured, {len(result.failures)} failed: "
+        f"{name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
+        f"{len(result.toggles)} input toggles measured: "
         f"{result.simulated} simulated ({result.simulations} simulations), "
         f"{len(result.reused)} reused from the store; simulator time {result.sim_seconds:.2f} s "
         f"(all workers), wall time {result.wall_seconds:.2f} s"
@@ -308,6 +309,8 @@ def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
         print(f"{name}: {len(tables)} tables are {why}: {listed}")
     if result.stale and selective:
         print(f"{name}: run without --cell to bring every table up to date")
+    for f in result.unmeasured[:20]:
+        print(f"{name}: no hidden power: cell {f.point.cell}, {f.point.label}: {f.reason}")
     if result.left_out:
         print(
             f"{name}: left out {', '.join(result.left_out)}: the store does not hold all their "

@@ -3,7 +3,8 @@
     config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
 
 ``characterize`` chains them; each stage takes and returns plain records, so any one can
-be tested or re-run alone. With a result store (``store.Store``) the sweep simulates only
+be tested or re-run alone; power rides along (hidden-power toggles in the sweep, leakage per
+deck, ``power.tabulate``). With a result store (``store.Store``) the sweep simulates only
 points it does not hold, and a run of a few cells or one arc fills the rest of the library
 from the store.
 """
@@ -18,7 +19,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__, liberty, sweep
+from . import __version__, liberty, power, sweep
 from .config import LibraryConfig
 from .errors import ConfigError, OutputError
 from .netlist import build_deck
@@ -26,6 +27,7 @@ from .sequential import SearchResult
 from .store import Stale, Store, keyring
 from .tabulate import CellTables, delay_quantity, tabulate, transition_quantity
 from .timing import Failure, Measurement, check_function
+from .units import energy_unit, power_unit
 
 
 @dataclass(frozen=True, slots=True)
@@ -38,21 +40,28 @@ class RunResult:
     reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
+    toggles: tuple[power.ToggleMeasurement, ...] = ()
+    # Toggles whose energy could not be measured: reported, left out of the tables; they do
+    # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
+    unmeasured: tuple[Failure, ...] = ()
+    cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
 
     @property
     def simulated(self) -> int:
         """Points measured by simulating them in this run."""
-        return len(self.measurements) - len(self.reused)
+        return len(self.measurements) - len(self.reused & {m.point for m in self.measurements})
 
     @property
     def simulations(self) -> int:
         """Simulator runs of this run, refinements and retries included."""
-        return sum(m.runs for m in self.measurements if m.point not in self.reused)
+        done = (*self.measurements, *self.toggles)
+        return sum(m.runs for m in done if m.point not in self.reused)
 
     @property
     def sim_seconds(self) -> float:
         """Simulator time of this run, summed over workers."""
-        return sum(m.sim_seconds for m in self.measurements if m.point not in self.reused)
+        done = (*self.measurements, *self.toggles)
+        return sum(m.sim_seconds for m in done if m.point not in self.reused)
 
     def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
         """The names (as ``charflow diff`` prints them) of the tables holding values from stored
@@ -71,6 +80,9 @@ def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
 
     if isinstance(p, sweep.PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
+    if isinstance(p, power.TogglePoint):
+        when = sweep.State(p.side, "").when
+        return [pin_name(p.cell, p.related, f"when {when} {power.power_quantity(p.input_edge)}")]
     if isinstance(p, sweep.ConstraintPoint):
         kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
         quantity = f"{p.data_edge}_constraint"
@@ -79,10 +91,13 @@ def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
         a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
     )
     whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
+    quantities = [delay_quantity(p.output_edge), transition_quantity(p.output_edge)]
+    if arc.kind == "combinational":
+        quantities.append(power.power_quantity(p.output_edge))
     return [
         table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
         for when in whens
-        for quantity in (delay_quantity(p.output_edge), transition_quantity(p.output_edge))
+        for quantity in quantities
     ]
 
 
@@ -149,12 +164,25 @@ def characterize(
     """
     start = time.perf_counter()
     chosen = select(config, cells, arc)
+    # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
+    toggle_points = power.plan_toggles(config, cells) if arc is None else ()
     verify(config, cells, store=store)
     if on_start is not None:
-        on_start(len(chosen.points))
+        on_start(len(chosen.points) + len(toggle_points))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
+    toggles: list[power.ToggleMeasurement] = []
+    unmeasured: list[Failure] = []
     reused: set[sweep.Point] = set()
+
+    def keep(outcome: object) -> None:
+        if isinstance(outcome, power.ToggleMeasurement):
+            toggles.append(outcome)
+        elif isinstance(outcome, Failure):
+            toggle = isinstance(outcome.point, power.TogglePoint)
+            (unmeasured if toggle else failures).append(outcome)
+        else:
+            measurements.append(outcome)
 
     def stored(found: tuple) -> None:
         reused.update(m.point for m in found)
@@ -163,22 +191,25 @@ def characterize(
 
     for outcome in sweep.run(
         config,
-        chosen.points,
+        (*chosen.points, *toggle_points),
         jobs=jobs,
         on_result=on_result,
         store=store,
         on_stored=stored,
         scheduler=scheduler,
     ):
-        (failures if isinstance(outcome, Failure) else measurements).append(outcome)
+        keep(outcome)
     whole, stale = chosen, {}
+    all_toggles = toggle_points
     if store is not None and cells is not None:
         whole = sweep.plan(config)
-        picked = set(chosen.points)
-        rest = [p for p in whole.points if p not in picked]
+        all_toggles = power.plan_toggles(config)
+        picked = {*chosen.points, *toggle_points}
+        rest = [p for p in (*whole.points, *all_toggles) if p not in picked]
         decks = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in rest}}
         found, stale = store.latest(keyring(config, decks), rest)
-        measurements.extend(found.values())
+        for m in found.values():
+            keep(m)
         reused.update(found)
     have = {m.point for m in measurements} | {f.point for f in failures}
     names = dict.fromkeys(p.cell for p in whole.points)
@@ -187,10 +218,14 @@ def characterize(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
-    order = {p: i for i, p in enumerate(whole.points)}
-    measurements.sort(key=lambda m: order[m.point])
-    failures.sort(key=lambda f: order[f.point])
-    tables = () if failures else tabulate(config, the_plan, measurements)
+    order = {p: i for i, p in enumerate((*whole.points, *all_toggles))}
+    for outcomes in (measurements, failures, toggles, unmeasured):
+        outcomes.sort(key=lambda m: order[m.point])
+    tables, cell_power = (), ()
+    if not failures:
+        tables = tabulate(config, the_plan, measurements)
+        leakages = power.leakages(config, the_plan)
+        cell_power = power.tabulate(config, the_plan, measurements, toggles, leakages)
     return RunResult(
         the_plan,
         tuple(measurements),
@@ -200,7 +235,31 @@ def characterize(
         frozenset(reused),
         tuple(s for p, s in stale.items() if p.cell not in left_out),
         left_out,
+        tuple(toggles),
+        tuple(unmeasured),
+        cell_power,
     )
+
+
+def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
+    energy = cell.arc(arc.related, arc.output) if cell is not None else None
+    if energy is None:
+        return {}
+    states = [{"when": st.when, "tables": [t.to_dict() for t in ts]} for st, ts in energy.states]
+    return {"internal_power": {"tables": [t.to_dict() for t in energy.default], "states": states}}
+
+
+def _cell_power_record(cell: power.CellPower | None) -> dict:
+    if cell is None:
+        return {}
+    return {
+        "cell_leakage_power_W": cell.cell_leakage,
+        "leakage_power": [{"when": s.when, "value_W": s.power} for s in cell.leakage],
+        "hidden_power": [
+            {"pin": h.pin, "when": h.when, "tables": [t.to_dict() for t in h.tables]}
+            for h in cell.hidden
+        ],
+    }
 
 
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
@@ -228,12 +287,30 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "delay_s": m.delay,
             "transition_s": m.transition,
             "input_charge_C": m.input_charge,
+            "supply_energy_J": m.supply_energy,
+            "internal_energy_J": m.internal_energy,
             "simulations": m.runs,
             "stop_s": m.stop,
         }
 
+    def toggle_record(m: power.ToggleMeasurement) -> dict:
+        p = m.point
+        return {
+            "related_pin": p.related,
+            "when": sweep.State(p.side, "").when,
+            "input_edge": p.input_edge,
+            "slew_s": p.slew,
+            "load_F": p.load,
+            "energy_J": m.energy,
+            "input_charge_C": m.input_charge,
+            "simulations": m.runs,
+            "window_end_s": m.settled,
+        }
+
+    powers = {c.cell: c for c in result.cell_power}
     cells = []
     for cell in result.cells:
+        cell_power = powers.get(cell.cell.name)
         arcs = []
         for arc in cell.arcs:
             arcs.append(
@@ -252,6 +329,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                         }
                         for st in arc.states
                     ],
+                    **_arc_power_record(cell_power, arc.arc),
                 }
             )
         cells.append(
@@ -277,13 +355,27 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
                     {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
                     for p in cell.pulses
                 ],
+                **_cell_power_record(cell_power),
             }
         )
+    lib_power, _ = power_unit(config.time_unit, config.cap_unit)
     return {
         "library": config.name,
         "generator": f"charflow {__version__}",
-        "units": {"time": "s", "capacitance": "F", "charge": "C", "voltage": "V"},
-        "library_units": {"time": config.time_unit, "capacitance": config.cap_unit},
+        "units": {
+            "time": "s",
+            "capacitance": "F",
+            "charge": "C",
+            "voltage": "V",
+            "energy": "J",
+            "power": "W",
+        },
+        "library_units": {
+            "time": config.time_unit,
+            "capacitance": config.cap_unit,
+            "energy": energy_unit(config.cap_unit),
+            "power": lib_power[1:],
+        },
         "vdd_V": config.process.vdd,
         "temperature_C": config.process.temperature,
         "cells": cells,
@@ -291,9 +383,17 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             name: [point_record(m) for m in result.measurements if m.point.cell == name]
             for name in dict.fromkeys(p.cell for p in result.plan.points)
         },
+        "toggles": {
+            name: [toggle_record(m) for m in result.toggles if m.point.cell == name]
+            for name in dict.fromkeys(m.point.cell for m in result.toggles)
+        },
         "failures": [
             {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
             for f in result.failures
+        ],
+        "unmeasured_toggles": [
+            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
+            for f in result.unmeasured
         ],
     }
 
@@ -325,6 +425,6 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     written.append(json_path)
     if not result.failures:
         lib_path = out_dir / f"{config.name}.lib"
-        write_atomic(lib_path, liberty.render(config, result.cells))
+        write_atomic(lib_path, liberty.render(config, result.cells, result.cell_power))
         written.append(lib_path)
     return written

@@ -1,7 +1,10 @@
 """Writing the Liberty open format.
 
 Values are converted from SI to the library's units here and nowhere else. Table
-templates are shared: one ``lu_table_template`` per distinct pair of index vectors.
+templates are shared: one ``lu_table_template`` per distinct pair of index vectors, and one
+``power_lut_template`` per distinct set of power table indices. Internal energy is written in
+capacitive_load_unit × voltage_unit² (1pf × 1V² = 1pJ), leakage in a ``leakage_power_unit`` of
+one such energy unit per time unit (1pJ/1ns = 1mW).
 """
 
 from __future__ import annotations
@@ -11,8 +14,10 @@ from collections.abc import Iterable
 import numpy as np
 
 from .config import LibraryConfig
+from .power import CellPower
 from .tables import Table
 from .tabulate import ArcTables, CellTables
+from .units import energy_unit, power_unit
 
 VALUE_FORMAT = "{:.7g}"
 # Liberty's order of the four NLDM tables inside a timing group (common practice).
@@ -57,7 +62,8 @@ def _scales(config: LibraryConfig, table: Table) -> list[float]:
 
 
 def _value_scale(config: LibraryConfig, table: Table) -> float:
-    return {"s": config.time_scale, "F": config.cap_scale}[table.unit]
+    # Energy's library unit is one capacitance unit times (1 V)^2.
+    return {"s": config.time_scale, "F": config.cap_scale, "J": config.cap_scale}[table.unit]
 
 
 def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple, str]:
@@ -72,6 +78,25 @@ def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple,
                 shape = "x".join(str(len(a.values)) for a in table.axes)
                 names[key] = f"grid_{shape}_{len(names) + 1}"
     return names
+
+
+def power_templates(cells: Iterable[CellPower]) -> dict[tuple, str]:
+    """Power template name per distinct (axis names, index values)."""
+    names: dict[tuple, str] = {}
+    for cell in cells:
+        tables = [t for a in cell.arcs for t in a.default]
+        tables += [t for a in cell.arcs for _, ts in a.states for t in ts]
+        tables += [t for h in cell.hidden for t in h.tables]
+        for table in tables:
+            key = tuple((a.name, a.values) for a in table.axes)
+            if key not in names:
+                shape = "x".join(str(len(a.values)) for a in table.axes)
+                names[key] = f"energy_{shape}_{len(names) + 1}"
+    return names
+
+
+def _template_of(names: dict[tuple, str], table: Table) -> str:
+    return names[tuple((a.name, a.values) for a in table.axes)]
 
 
 def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) -> None:
@@ -121,18 +146,59 @@ def _timing_group(
     w.close()
 
 
-def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
-    """The whole library as Liberty text."""
+def _internal_power(
+    w: _Writer,
+    config: LibraryConfig,
+    names: dict[tuple, str],
+    tables: Iterable[Table],
+    related: str = "",
+    when: str = "",
+    other: str | None = None,
+) -> None:
+    w.open("internal_power")
+    if related:
+        w.attr("related_pin", f'"{related}"')
+    if other:
+        # The output whose load is the tables' third index (3D tables of a two-output cell).
+        w.attr("equal_or_opposite_output", f'"{other}"')
+    if when:
+        w.attr("when", f'"{when}"')
+    for table in tables:
+        write_table(w, config, table, _template_of(names, table))
+    w.close()
+
+
+def _leakage(w: _Writer, cell: CellPower, scale: float) -> None:
+    w.attr("cell_leakage_power", _fmt(cell.cell_leakage / scale))
+    for state in cell.leakage:
+        w.open("leakage_power")
+        if state.when:
+            w.attr("when", f'"{state.when}"')
+        w.attr("value", _fmt(state.power / scale))
+        w.close()
+
+
+def render(
+    config: LibraryConfig, cells: tuple[CellTables, ...], power: Iterable[CellPower] = ()
+) -> str:
+    """The whole library as Liberty text; ``power`` adds each named cell's power groups."""
     p = config.process
     t = config.thresholds
+    powers = {c.cell: c for c in power}
+    leakage_unit, leakage_scale = power_unit(config.time_unit, config.cap_unit)
     w = _Writer()
     w.lines.append(f"/* {config.name}: written by charflow from {config.path.name} */")
+    w.lines.append(
+        f"/* internal_power tables: energy per transition in 1{energy_unit(config.cap_unit)} "
+        f"(capacitive_load_unit x voltage_unit^2); leakage in {leakage_unit} */"
+    )
     w.open("library", config.name)
     w.attr("delay_model", "table_lookup")
     w.attr("time_unit", f'"1{config.time_unit}"')
     w.attr("voltage_unit", '"1V"')
     w.attr("current_unit", '"1mA"')
     w.attr("pulling_resistance_unit", '"1kohm"')
+    w.attr("leakage_power_unit", f'"{leakage_unit}"')
     w.complex("capacitive_load_unit", f"(1, {config.cap_unit})")
     w.attr("nom_process", "1")
     w.attr("nom_voltage", _fmt(p.vdd))
@@ -159,9 +225,20 @@ def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
         for k, (axis_name, values) in enumerate(key, 1):
             w.complex(f"index_{k}", _index(values, _axis_scale(config, axis_name)))
         w.close()
+    energy_names = power_templates(powers.values())
+    for key, name in energy_names.items():
+        w.open("power_lut_template", name)
+        for k, (axis_name, _) in enumerate(key, 1):
+            w.attr(f"variable_{k}", axis_name)
+        for k, (axis_name, values) in enumerate(key, 1):
+            w.complex(f"index_{k}", _index(values, _axis_scale(config, axis_name)))
+        w.close()
     for cell in cells:
+        cell_power = powers.get(cell.cell.name)
         w.open("cell", cell.cell.name)
         w.attr("area", _fmt(cell.cell.area))
+        if cell_power is not None:
+            _leakage(w, cell_power, leakage_scale)
         flop = cell.cell.flop
         if flop is not None:
             w.open("ff", ", ".join(flop.state))
@@ -180,6 +257,9 @@ def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
             w.attr("capacitance", _fmt(pin.capacitance / config.cap_scale))
             w.attr("rise_capacitance", _fmt(pin.rise / config.cap_scale))
             w.attr("fall_capacitance", _fmt(pin.fall / config.cap_scale))
+            hidden = cell_power.hidden if cell_power is not None else ()
+            for h in (h for h in hidden if h.pin == pin.pin):
+                _internal_power(w, config, energy_names, h.tables, when=h.when)
             for pulse in (p for p in cell.pulses if p.pin == pin.pin):
                 w.attr(f"min_pulse_width_{pulse.level}", _fmt(pulse.width / config.time_scale))
             for c in (c for c in cell.constraints if c.pin == pin.pin):
@@ -203,6 +283,13 @@ def render(config: LibraryConfig, cells: tuple[CellTables, ...]) -> str:
                         _timing_group(
                             w, config, names, arc, st.tables, st.state.sense, st.state.when
                         )
+            energies = cell_power.arcs if cell_power is not None else ()
+            for arc in (a for a in energies if a.arc.output == out.pin):
+                related, other = arc.arc.related, arc.arc.other
+                _internal_power(w, config, energy_names, arc.default, related, other=other)
+                if len(arc.states) > 1:
+                    for state, tables in arc.states:
+                        _internal_power(w, config, energy_names, tables, related, state.when, other)
             w.close()
         w.close()
     w.close()

@@ -1,4 +1,4 @@
-"""Waveform measurements: threshold crossings, delay, transition, charge.
+"""Waveform measurements: threshold crossings, delay, transition, charge, energy.
 
 Crossings are located on the simulator's own samples with linear interpolation between
 the two samples that straddle the level. A waveform that does not cross, crosses more
@@ -92,6 +92,25 @@ def integral(
     ts = np.concatenate(([lo], t[inside], [hi]))
     ys = np.concatenate(([np.interp(lo, t, y)], y[inside], [np.interp(hi, t, y)]))
     return float(np.trapezoid(ys, ts))
+
+
+def supply_energy(
+    t: np.ndarray,
+    current: np.ndarray,
+    vdd: float,
+    switch: float,
+    static: tuple[float, float],
+    stop: float | None = None,
+) -> float:
+    """Energy a supply at ``vdd`` delivered over [t[0], stop] beyond its static draw.
+
+    ``current`` flows out of the supply into the cell. The static (leakage) current is the
+    first state's, ``static[0]``, before ``switch`` and the second state's after it: leakage is
+    reported on its own, so it must not grow the switching energy with the window's length.
+    """
+    end = t[-1] if stop is None else stop
+    at_rest = static[0] * (switch - t[0]) + static[1] * (end - switch)
+    return vdd * (integral(t, current, None, end) - at_rest)
 
 
 def step_at(t: np.ndarray, when: float) -> float:

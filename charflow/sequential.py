@@ -17,7 +17,7 @@ import numpy as np
 from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError
-from .measure import check_settled, single_crossing, step_at
+from .measure import check_settled, integral, single_crossing, step_at
 from .netlist import Deck
 from .simulate import Request
 from .stimulus import Ramp
@@ -64,6 +64,7 @@ class Outcome:
     t_event: float
     t_out: float
     transition: float
+    charges: tuple[tuple[str, float], ...] = ()  # C drawn by each pin asked for, in its window
 
     @property
     def delay(self) -> float:
@@ -141,12 +142,14 @@ def run_event(
     before: bool,
     after: bool,
     quiet_until: float = 0.0,
+    charge_windows: dict[str, tuple[float, float | None]] | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment; the output must hold ``before`` until the event and settle at
     ``after`` (a bool level) once it. Returns the outcome, simulations and simulator seconds."""
     cell = config.cell(deck.cell)
     vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
     out_node = deck.output_node(output)
+    windows = charge_windows or {}
     edge = "rise" if after else "fall"
     tol = sim.settle * vdd
     window = sim.window or WINDOW_SLEWS * max(cell.grid.slew)
@@ -164,7 +167,7 @@ def run_event(
             deck,
             alters(deck, cell, waves, loads, grid),
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            (out_node,),
+            (out_node, *(f"{deck.input_source(p)}#branch" for p in windows)),
             stop_when=f"time > {arm:.6g} when {level}" if before != after else None,
         )
         result, attempts = simulate(backend, request)
@@ -194,7 +197,12 @@ def run_event(
         # Dense samples only around the output edge: the rest of the run keeps its step.
         margin = coarse + raw
         grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted)
-    return Outcome(t_ev, t_out, raw / thr.slew_derate), runs, seconds
+    # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
+    charges = tuple(
+        (p, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], a, b))
+        for p, (a, b) in windows.items()
+    )
+    return Outcome(t_ev, t_out, raw / thr.slew_derate, charges), runs, seconds
 
 
 def _capture_waves(
@@ -222,6 +230,10 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         waves = _capture_waves(bench, old, new, smallest, change)
         waves[flop.clock] = clock
         before = stored_output(cell, point.output, not stored)
+        # The data pins' charge while they move (clock quiet), the clock's over its edge.
+        windows = {p: (change, event.start) for p in new if new[p] != old[p]}
+        windows[flop.clock] = (event.start, None)
+        moves = tuple((p, "rise" if new[p] else "fall") for p in new if new[p] != old[p])
     else:
         stored = point.kind == "preset"
         before = stored_output(cell, point.output, not stored)
@@ -232,6 +244,7 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         event = stimulus.ramp(point.slew, point.input_edge, config.thresholds, bench.vdd)
         event = Ramp(event.edge, first.end + bench.half, event.duration, bench.vdd)
         waves[point.related] = event.pulse()
+        windows, moves = {point.related: (event.start, None)}, ()
     outcome, runs, seconds = run_event(
         config,
         deck,
@@ -241,12 +254,15 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         output=point.output,
         before=before,
         after=out_after,
+        charge_windows=windows,
     )
+    charges = dict(outcome.charges)
     return Measurement(
         point=point,
         delay=outcome.delay,
         transition=outcome.transition,
-        input_charge=0.0,
+        input_charge=charges[point.related],
+        side_charges=tuple((p, edge, charges[p]) for p, edge in moves),
         runs=runs,
         sim_seconds=seconds,
         stop=0.0,

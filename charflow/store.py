@@ -30,13 +30,16 @@ from . import __version__
 from .config import LibraryConfig
 from .errors import StoreError
 from .netlist import Deck, model_files
+from .power import ToggleMeasurement
 from .sequential import SearchResult
 from .sweep import Point
 from .timing import Measurement, backend_for
 
 FILE_NAME = "store.sqlite"
 # The result records a row may hold, by name; any point type and any of these records work.
-RECORDS: dict[str, type] = {cls.__name__: cls for cls in (Measurement, SearchResult)}
+RECORDS: dict[str, type] = {
+    cls.__name__: cls for cls in (Measurement, SearchResult, ToggleMeasurement)
+}
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
 

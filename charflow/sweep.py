@@ -312,9 +312,9 @@ SEARCH_COST = 14
 
 
 def _cost(p: Point) -> float:
-    if isinstance(p, TimingPoint):
-        return 1.0 + p.load * 1e12 + p.slew * 1e9
-    return SEARCH_COST
+    if isinstance(p, ConstraintPoint | PulsePoint):
+        return SEARCH_COST
+    return 1.0 + p.load * 1e12 + p.slew * 1e9  # one run (timing points, power's toggles)
 
 
 def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]]:
@@ -325,7 +325,7 @@ def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]
         groups.setdefault((p.cell, type(p)), []).append(p)
     out = []
     for (_, kind), group in groups.items():
-        step = size if kind is TimingPoint else max(1, size // SEARCH_COST)
+        step = max(1, size // SEARCH_COST) if kind in (ConstraintPoint, PulsePoint) else size
         for i in range(0, len(group), step):
             out.append(tuple(group[i : i + step]))
     out.sort(key=lambda c: -sum(_cost(p) for p in c))

@@ -165,6 +165,15 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
     return tuple(out)
 
 
+def _pin_cap(pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
+    """A pin measured on one edge only (a clock's active edge, a reset's asserting edge) gets
+    that value for both."""
+    rise, fall = caps.get((pin, "rise")), caps.get((pin, "fall"))
+    rise = fall if rise is None else rise
+    fall = rise if fall is None else fall
+    return PinCap(pin, rise or 0.0, fall or 0.0)
+
+
 def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTables, ...]:
     """Tables for every cell of the plan; every point of the plan must have a result."""
     cells = []
@@ -176,12 +185,8 @@ def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTabl
         for arc in (a for a in plan.arcs if a.cell == cell_name):
             states = [_state_tables(cell, arc, st, measured) for st in arc.states]
             arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
-        caps = pin_capacitance(
-            [m for m in measured if m.point.kind == "combinational"], config.process.vdd
-        )
-        pins = tuple(
-            PinCap(p, caps.get((p, "rise"), 0.0), caps.get((p, "fall"), 0.0)) for p in cell.inputs
-        )
+        caps = pin_capacitance(measured, config.process.vdd)
+        pins = tuple(_pin_cap(p, caps) for p in cell.inputs)
         pulses = tuple(
             PulseWidth(r.point.pin, r.point.level, r.value, r.bound)
             for r in searches

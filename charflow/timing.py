@@ -1,10 +1,11 @@
 """Simulating and measuring one sweep point, and checking a cell's function by simulation.
 
-The transient of a point ends when the output has settled (an ngspice stop condition),
-with a cap for outputs that never do; its first maximum step follows an estimate of the
-output edge (``stepsize``) and is refined when too few samples fall on the output edge.
-Every run of a point is deterministic in the point alone, so re-running one arc reproduces
-its stored values.
+The transient of a point ends when every output that switches has settled and the input ramp
+is over (an ngspice stop condition), with a cap for outputs that never do; its first maximum
+step follows an estimate of the output edge (``stepsize``) and is refined when too few samples
+fall on the output edge. Besides delay and transition a point yields the input pin's charge and
+the supply's switching energy. Every run of a point is deterministic in the point alone, so
+re-running one arc reproduces its stored values.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ import numpy as np
 from . import stepsize, stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import DeckReadError, FunctionalMismatchError, MeasurementError, SimulatorError
-from .measure import check_settled, integral, single_crossing, step_at, transition
+from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
@@ -38,6 +39,14 @@ class Measurement:
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
     stop: float  # s, the transient's final stop time
+    # Energies are None where the point's runner does not measure them (flip-flop events).
+    supply_energy: float | None = None  # J the supply delivered beyond its static draw
+    # J: supply_energy less what the external loads took from the supply, shared equally by
+    # the outputs that switched together (a power tool adds the internal power of every output
+    # that toggles, so the event counts once)
+    internal_energy: float | None = None
+    # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
+    side_charges: tuple[tuple[str, str, float], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -116,6 +125,24 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     raise SimulatorError(reason, cell=request.deck.cell)
 
 
+_STATIC: dict[tuple[str, tuple[tuple[str, bool], ...]], float] = {}
+
+
+def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -> float:
+    """Current (A) the supply delivers at DC with the inputs at ``assign``; computed once per
+    worker, deck and input vector."""
+    cell = config.cell(deck.cell)
+    key = (deck.key, tuple((p, assign[p]) for p in cell.inputs))
+    if key not in _STATIC:
+        vdd = config.process.vdd
+        values = {p: stimulus.constant(vdd if b else 0.0) for p, b in key[1]}
+        request = Request(deck, alters(deck, cell, values, {}), "op", (f"{deck.supply}#branch",))
+        result, _ = simulate(backend_for(config), request)
+        # A source's branch current flows into its + node from outside: out of it is −i.
+        _STATIC[key] = -float(result.vectors[f"{deck.supply}#branch"][-1])
+    return _STATIC[key]
+
+
 def measure_point(
     config: LibraryConfig, deck: Deck, point: TimingPoint, *, step: float | None = None
 ) -> Measurement:
@@ -135,20 +162,29 @@ def measure_point(
     values[point.related] = ramp.pulse()
     commands = alters(deck, cell, values, point_loads(cell, point))
     out_node = deck.output_node(point.output)
+    out_nodes = tuple(deck.output_node(o.pin) for o in cell.outputs)
     in_node = deck.input_node(point.related)
     in_branch = f"{deck.input_source(point.related)}#branch"
-    vectors = (out_node, in_node, in_branch)
+    supply = f"{deck.supply}#branch"
+    vectors = (*out_nodes, in_node, in_branch, supply)
     target = vdd if point.output_edge == "rise" else 0.0
     start_level = vdd - target
 
-    # The run ends once the output is within the settle tolerance of its final rail; the
-    # stop time is only a cap for outputs that never get there.
+    # The run ends once every output that switches is within the settle tolerance of its final
+    # rail and the input ramp is over, so the input charge and the supply energy are whole (a
+    # slow ramp can leave the output at its rail while the input still moves; a second output
+    # driven from the first settles after it); the stop time is only a cap for outputs that
+    # never get there.
     tol = sim.settle * vdd
-    stop_when = (
-        f"v({out_node}) > {vdd - tol:.6g}"
-        if point.output_edge == "rise"
-        else f"v({out_node}) < {tol:.6g}"
-    )
+    before = {**dict(point.side), point.related: point.input_edge == "fall"}
+    after = {**before, point.related: point.input_edge == "rise"}
+    rising = point.output_edge == "rise"
+    settled = [f"v({out_node}) > {vdd - tol:.6g}" if rising else f"v({out_node}) < {tol:.6g}"]
+    for o, node in zip(cell.outputs, out_nodes, strict=True):
+        final = o.function.evaluate(after)
+        if o.pin != point.output and final != o.function.evaluate(before):
+            settled.append(f"v({node}) > {vdd - tol:.6g}" if final else f"v({node}) < {tol:.6g}")
+    stop_when = " when ".join([*settled, f"time > {ramp.end:.12g}"])
     stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
     max_step = step
     runs = 0
@@ -190,11 +226,25 @@ def measure_point(
     )
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
+    current = -result.vectors[supply]
+    static = (float(current[0]), static_current(config, deck, after))
+    energy = supply_energy(t, current, vdd, t_in, static)
+    # A load charging by dv took C·vdd·dv from the supply (C·V² once at the rail, half of it
+    # stored); one discharging takes nothing from it. Counting the dv reached rather than the
+    # full swing keeps the window's end from cutting off load energy as if it were the cell's.
+    loads = point_loads(cell, point)
+    taken, switched = 0.0, 0
+    for o, node in zip(cell.outputs, out_nodes, strict=True):
+        dv = float(result.vectors[node][-1] - result.vectors[node][0])
+        taken += loads.get(o.pin, PARKED_LOAD) * vdd * max(dv, 0.0)
+        switched += abs(dv) > vdd / 2
     return Measurement(
         point=point,
         delay=t_out - t_in,
         transition=raw_transition / thr.slew_derate,
         input_charge=charge,
+        supply_energy=energy,
+        internal_energy=(energy - taken) / switched,
         runs=runs,
         sim_seconds=seconds,
         stop=stop,
@@ -203,13 +253,15 @@ def measure_point(
 
 def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
-    from . import sequential
+    from . import power, sequential
     from .sweep import ConstraintPoint, PulsePoint
 
     out: list = []
     for point in points:
         try:
-            if isinstance(point, ConstraintPoint):
+            if isinstance(point, power.TogglePoint):
+                out.append(power.measure_toggle(config, deck, point))
+            elif isinstance(point, ConstraintPoint):
                 out.append(sequential.measure_constraint(config, deck, point))
             elif isinstance(point, PulsePoint):
                 out.append(sequential.measure_pulse(config, deck, point))
@@ -257,14 +309,16 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
     """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
 
     At each pin and edge the points at the smallest load are averaged over slews and states:
-    the effective (Miller-inclusive) capacitance a driver sees (common practice).
+    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
+    point's related pin, the pins listed in its ``side_charges`` (a flip-flop's data) count.
     """
-    groups: dict[tuple[str, str], list[Measurement]] = {}
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
     for m in measurements:
-        groups.setdefault((m.point.related, m.point.input_edge), []).append(m)
+        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
+        for pin, edge, charge in entries:
+            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
     caps = {}
     for key, group in groups.items():
-        smallest = min(m.point.load for m in group)
-        charges = [abs(m.input_charge) for m in group if m.point.load == smallest]
-        caps[key] = float(np.mean(charges)) / vdd
+        smallest = min(load for load, _ in group)
+        caps[key] = float(np.mean([q for load, q in group if load == smallest])) / vdd
     return caps

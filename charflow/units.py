@@ -2,8 +2,14 @@
 
 from __future__ import annotations
 
+import math
+
 TIME_UNITS = {"ns": 1e-9, "ps": 1e-12}
 CAP_UNITS = {"pf": 1e-12, "ff": 1e-15}
+# Liberty states internal energy in capacitive_load_unit x voltage_unit^2: with 1 V, the joule
+# of the capacitance unit's prefix.
+ENERGY_UNITS = {"pf": "pJ", "ff": "fJ"}
+POWER_PREFIXES = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "m": 1e-3, "": 1.0}
 
 
 def time_scale(unit: str) -> float:
@@ -14,3 +20,16 @@ def time_scale(unit: str) -> float:
 def cap_scale(unit: str) -> float:
     """Farads per library capacitance unit."""
     return CAP_UNITS[unit]
+
+
+def energy_unit(cap_unit: str) -> str:
+    """The unit of internal energy tables: one capacitance unit times (1 V)^2."""
+    return ENERGY_UNITS[cap_unit]
+
+
+def power_unit(time_unit: str, cap_unit: str) -> tuple[str, float]:
+    """``leakage_power_unit`` coherent with the other units, and its watts: one energy unit per
+    time unit (pf and ns: 1 pJ/ns = 1mW), so energy x toggle rate and leakage add unconverted."""
+    watts = cap_scale(cap_unit) / time_scale(time_unit)
+    prefix = min(POWER_PREFIXES, key=lambda p: abs(math.log10(POWER_PREFIXES[p] / watts)))
+    return f"1{prefix}W", POWER_PREFIXES[prefix]

@@ -23,6 +23,10 @@ from charflow.store import FILE_NAME
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
 POINTS = 90  # small_l1: (1 + 2 + 2) arcs x 2 edges x 3 slews x 3 loads
+# small_l1's hidden-power toggles, stored beside the points: NAND2 and NOR2, 2 pins x 1 state
+# (the other input at its controlling value) x 2 edges x 3 slews each.
+TOGGLES = 24
+ROWS = POINTS + TOGGLES
 KILL_POINTS = 250  # the same cells on a 5 x 5 grid
 KILL_AFTER = 50  # rows stored before the kill; the run stores 25 at a time (sweep.CHUNK)
 
@@ -84,14 +88,14 @@ def test_a_second_run_simulates_nothing_and_writes_the_same_bytes(tmp_path: Path
     assert first.returncode == 0, first.stderr
     assert f"{POINTS} simulated" in first.stdout and "0 reused from the store" in first.stdout
     before = _outputs(out)
-    assert _rows(out / FILE_NAME) == POINTS
+    assert _rows(out / FILE_NAME) == ROWS
 
     second = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert second.returncode == 0, second.stderr
     assert "0 simulated (0 simulations)" in second.stdout
-    assert f"{POINTS} reused from the store" in second.stdout
+    assert f"{ROWS} reused from the store" in second.stdout
     assert _outputs(out) == before
-    assert _rows(out / FILE_NAME) == POINTS
+    assert _rows(out / FILE_NAME) == ROWS
     # Nothing that varies between runs (wall time, dates) is in the outputs.
     assert b"sim_seconds" not in before[".json"]
 
@@ -187,12 +191,14 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     assert done.returncode == 0, done.stderr
     arc_points = 2 * 3 * 3  # 2 edges x 3 slews x 3 loads
     assert f"{arc_points} simulated" in done.stdout
-    assert f"{POINTS - arc_points} reused from the store" in done.stdout
-    assert _rows(out / FILE_NAME) == POINTS + arc_points
-    # The four other arcs' tables are older than the model, and the summary says so.
+    assert f"{ROWS - arc_points} reused from the store" in done.stdout
+    assert _rows(out / FILE_NAME) == ROWS + arc_points
+    # The four other arcs' tables (4 timing and 2 internal power each) and the 8 hidden-power
+    # tables (toggles come with whole cells, not with one arc) are older than the model, and
+    # the summary says so.
     stale = re.search(r"(\d+) tables are older than the model \((.*?)\): (.*)", done.stdout)
     assert stale is not None, done.stdout
-    assert stale.group(1) == "16" and "vellum90_l1.lib" in stale.group(2)
+    assert stale.group(1) == str(4 * 6 + 8) and "vellum90_l1.lib" in stale.group(2)
     assert "NAND2_X1 A1->Y" not in stale.group(3)
 
     new_lib = (out / "small_l1.lib").read_text(encoding="utf-8")
@@ -249,7 +255,7 @@ def test_two_corners_give_two_libraries_ff_faster_than_ss(tmp_path: Path) -> Non
     done = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert sorted(p.name for p in out.glob("*.lib")) == ["small_l1_ff.lib", "small_l1_ss.lib"]
-    assert _rows(out / FILE_NAME) == 2 * POINTS  # one store for both corners
+    assert _rows(out / FILE_NAME) == 2 * ROWS  # one store for both corners
     # Read back with the independent liberty-parser (Thomas Kramer, liberty-parser 0.0.29).
     libs = {c: parse_liberty((out / f"small_l1_{c}.lib").read_text()) for c in ("ff", "ss")}
     assert libs["ff"].args == ["small_l1_ff"] and libs["ss"].args == ["small_l1_ss"]
@@ -265,7 +271,7 @@ def test_two_corners_give_two_libraries_ff_faster_than_ss(tmp_path: Path) -> Non
         assert np.all(ff < ss), name
 
     again = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
-    assert again.stdout.count(f"0 simulated (0 simulations), {POINTS} reused") == 2
+    assert again.stdout.count(f"0 simulated (0 simulations), {ROWS} reused") == 2
 
 
 def test_flip_flop_searches_are_stored_too(tmp_path: Path) -> None:

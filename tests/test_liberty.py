@@ -20,7 +20,7 @@ from liberty.boolean_functions import parse_boolean_function
 from liberty.parser import parse_liberty
 from liberty.types import Group
 
-from charflow import config, flow
+from charflow import config, flow, power
 from charflow.config import LibraryConfig
 from charflow.tables import Table
 from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
@@ -29,6 +29,7 @@ ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"
 # Values are written with 7 significant digits ("{:.7g}"): a relative rounding of at most 5e-7.
 RTOL = 1e-6
+SAME_EVENT_RTOL = 0.01  # one event's energy from two runs with different time steps
 QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
 
 AOI21_TOML = """\
@@ -56,12 +57,37 @@ area = 1.6
 """
 
 
+BUFC_TOML = """\
+[library]
+name = "cfg_bufc"
+time_unit = "ns"
+cap_unit = "pf"
+
+[process]
+models = [{{ file = "{model}", section = "tt" }}]
+vdd = 1.2
+
+[grid]
+slew = [0.02, 0.1]
+load = [0.002, 0.01]
+related_load = [0.002, 0.01]
+
+[[cell]]
+name = "BUFC_X1"
+template = "{template}"
+params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
+inputs = ["A"]
+outputs = {{ Y = "A", YN = "!A" }}
+"""
+
+
 @dataclass(frozen=True, slots=True)
 class Characterized:
     config: LibraryConfig
     result: flow.RunResult
     lib: Group  # the Liberty file as liberty-parser reads it
     json: dict
+    text: str  # the Liberty file as written
 
 
 def _characterize(cfg: LibraryConfig, out: Path) -> Characterized:
@@ -72,8 +98,9 @@ def _characterize(cfg: LibraryConfig, out: Path) -> Characterized:
     written = flow.write(cfg, result, out)
     lib_path, json_path = out / f"{cfg.name}.lib", out / f"{cfg.name}.json"
     assert sorted(written) == sorted([lib_path, json_path])
-    lib = parse_liberty(lib_path.read_text(encoding="utf-8"))
-    return Characterized(cfg, result, lib, json.loads(json_path.read_text(encoding="utf-8")))
+    text = lib_path.read_text(encoding="utf-8")
+    lib = parse_liberty(text)
+    return Characterized(cfg, result, lib, json.loads(json_path.read_text(encoding="utf-8")), text)
 
 
 @pytest.fixture(scope="module")
@@ -308,7 +335,14 @@ def test_json_has_the_same_tables_and_points(run: Characterized) -> None:
     doc, cfg, result = run.json, run.config, run.result
     assert doc["library"] == cfg.name
     assert doc["units"]["time"] == "s" and doc["units"]["capacitance"] == "F"
-    assert doc["library_units"] == {"time": cfg.time_unit, "capacitance": cfg.cap_unit}
+    # Energy in the capacitance unit times 1 V^2 (1 pF V^2 = 1 pJ), power in that per time unit.
+    assert doc["library_units"] == {
+        "time": cfg.time_unit,
+        "capacitance": cfg.cap_unit,
+        "energy": {"pf": "pJ", "ff": "fJ"}[cfg.cap_unit],
+        "power": {("ns", "pf"): "mW", ("ps", "ff"): "mW"}[(cfg.time_unit, cfg.cap_unit)],
+    }
+    assert doc["units"]["energy"] == "J" and doc["units"]["power"] == "W"
     assert doc["failures"] == []
     assert [c["name"] for c in doc["cells"]] == [c.cell.name for c in result.cells]
     for cell, jcell in zip(result.cells, doc["cells"], strict=True):
@@ -336,6 +370,8 @@ def test_json_has_the_same_tables_and_points(run: Characterized) -> None:
             assert (rec["slew_s"], rec["load_F"]) == (p.slew, p.load)
             assert (rec["delay_s"], rec["transition_s"]) == (m.delay, m.transition)
             assert rec["input_charge_C"] == m.input_charge
+            assert rec["supply_energy_J"] == m.supply_energy
+            assert rec["internal_energy_J"] == m.internal_energy
             assert rec["simulations"] == m.runs >= 1
 
 
@@ -351,3 +387,201 @@ def test_delay_and_transition_grow_with_load(small: Characterized) -> None:
                 assert np.all(steps > 0), (cell.cell.name, arc.arc.related, table.quantity)
                 checked += 1
     assert checked == 5 * 4 * 2
+
+
+# -- power ------------------------------------------------------------------------------------
+
+
+def _energy_table(cfg: LibraryConfig, group: Group, table: Table, templates: dict) -> None:
+    """One rise_power or fall_power group against its table, in library units: energy in the
+    capacitance unit times 1 V^2 (1 pF V^2 = 1 pJ), slew in the time unit."""
+    got = group.get_group(table.quantity)
+    assert table.unit == "J"
+    per_axis = {
+        power.SLEW_AXIS: cfg.time_scale,
+        power.LOAD_AXIS: cfg.cap_scale,
+        power.OTHER_LOAD_AXIS: cfg.cap_scale,
+    }
+    values = np.asarray(table.values) / cfg.cap_scale
+    np.testing.assert_allclose(
+        got.get_array("values").reshape(values.shape), values, rtol=RTOL, atol=0
+    )
+    template = templates[got.args[0]]
+    for k, axis in enumerate(table.axes, 1):
+        assert template[f"variable_{k}"] == axis.name
+        index = np.asarray(axis.values) / per_axis[axis.name]
+        np.testing.assert_allclose(got.get_array(f"index_{k}")[0], index, rtol=RTOL, atol=0)
+
+
+def _power_templates(lib: Group) -> dict[str, Group]:
+    return {g.args[0]: g for g in lib.get_groups("power_lut_template")}
+
+
+def test_internal_power_reads_back(run: Characterized) -> None:
+    cfg, lib = run.config, run.lib
+    templates = _power_templates(lib)
+    checked = 0
+    for cell in run.result.cell_power:
+        for arc in cell.arcs:
+            pin = lib.get_group("cell", cell.cell).get_group("pin", arc.arc.output)
+            groups = {
+                _text(g.get("when", "")): g
+                for g in pin.get_groups("internal_power")
+                if _text(g["related_pin"]) == arc.arc.related
+            }
+            expected = {"": arc.default}
+            if len(arc.states) > 1:
+                expected |= {st.when: tables for st, tables in arc.states}
+            assert sorted(groups) == sorted(expected)
+            for when, tables in expected.items():
+                assert [t.quantity for t in tables] == ["rise_power", "fall_power"]
+                for table in tables:
+                    _energy_table(cfg, groups[when], table, templates)
+                    checked += 1
+    assert checked == {"small_l1": 5 * 2, "cfg_aoi21": (3 + 3) * 2}[cfg.name]
+
+
+def test_hidden_power_reads_back(run: Characterized) -> None:
+    # An input pin's internal_power holds the energy of its toggles under its when, and under
+    # that when the cell's function, as liberty-parser reads it, does not depend on the pin.
+    cfg, lib = run.config, run.lib
+    templates = _power_templates(lib)
+    checked = 0
+    for cell in run.result.cell_power:
+        cell_group = lib.get_group("cell", cell.cell)
+        for hidden in cell.hidden:
+            pin = cell_group.get_group("pin", hidden.pin)
+            (group,) = [
+                g for g in pin.get_groups("internal_power") if _text(g["when"]) == hidden.when
+            ]
+            assert "related_pin" not in group
+            for table in hidden.tables:
+                _energy_table(cfg, group, table, templates)
+                checked += 1
+            when = parse_boolean_function(_text(group["when"]))
+            for out in cell_group.get_groups("pin"):
+                if out["direction"] != "output":
+                    continue
+                expr = out.get_boolean_function("function")
+                symbols = {s.name: s for s in expr.free_symbols | when.free_symbols}
+                others = [n for n in symbols if n != hidden.pin]
+                for bits in itertools.product((False, True), repeat=len(others)):
+                    assign = {symbols[n]: b for n, b in zip(others, bits, strict=True)}
+                    if not bool(when.subs(assign)):
+                        continue
+                    low = bool(expr.subs({**assign, symbols[hidden.pin]: False}))
+                    high = bool(expr.subs({**assign, symbols[hidden.pin]: True}))
+                    assert low == high, (cell.cell, hidden.pin, hidden.when)
+    # NAND2 and NOR2: each input hidden in one state (4); AOI21: A1 and A2 in three, B in one.
+    assert checked == {"small_l1": 4 * 2, "cfg_aoi21": 7 * 2}[cfg.name]
+
+
+def test_leakage_reads_back(run: Characterized) -> None:
+    cfg, lib = run.config, run.lib
+    # One leakage power unit is one energy unit per time unit: 1 pJ / 1 ns = 1 fJ / 1 ps = 1 mW.
+    assert _text(lib["leakage_power_unit"]) == "1mW"
+    watts = 1e-3
+    for cell in run.result.cell_power:
+        group = lib.get_group("cell", cell.cell)
+        inputs = cfg.cell(cell.cell).inputs
+        assert group["cell_leakage_power"] == pytest.approx(cell.cell_leakage / watts, rel=RTOL)
+        states = {_text(g["when"]): g["value"] for g in group.get_groups("leakage_power")}
+        assert len(states) == 2 ** len(inputs)
+        for state in cell.leakage:
+            assert state.power > 0
+            assert states[state.when] == pytest.approx(state.power / watts, rel=RTOL, abs=0)
+        # Each when, read by liberty-parser, holds for exactly one input vector.
+        for when in states:
+            expr = parse_boolean_function(when)
+            symbols = {s.name: s for s in expr.free_symbols}
+            assert set(symbols) == set(inputs)
+            holds = [
+                bits
+                for bits in itertools.product((False, True), repeat=len(inputs))
+                if bool(expr.subs({symbols[p]: b for p, b in zip(inputs, bits, strict=True)}))
+            ]
+            assert len(holds) == 1, when
+        mean = np.mean([s.power for s in cell.leakage])
+        assert cell.cell_leakage == pytest.approx(mean, rel=1e-12, abs=0)
+
+
+def test_power_units_stated_in_the_file(run: Characterized) -> None:
+    # The parser drops comments, so the header's statement of units is read from the text.
+    energy = {"pf": "1pJ", "ff": "1fJ"}[run.config.cap_unit]
+    header = run.text.split("library (")[0]
+    assert f"energy per transition in {energy}" in header
+    assert "leakage in 1mW" in header
+
+
+def test_json_has_the_same_power(run: Characterized) -> None:
+    doc = run.json
+    cells = {c["name"]: c for c in doc["cells"]}
+    for cell in run.result.cell_power:
+        jcell = cells[cell.cell]
+        assert jcell["cell_leakage_power_W"] == cell.cell_leakage
+        assert jcell["leakage_power"] == [
+            {"when": s.when, "value_W": s.power} for s in cell.leakage
+        ]
+        assert [(h["pin"], h["when"]) for h in jcell["hidden_power"]] == [
+            (h.pin, h.when) for h in cell.hidden
+        ]
+        for h, jh in zip(cell.hidden, jcell["hidden_power"], strict=True):
+            assert [Table.from_dict(t) for t in jh["tables"]] == list(h.tables)
+        for jarc in jcell["arcs"]:
+            arc = cell.arc(jarc["related_pin"], jarc["output"])
+            assert [Table.from_dict(t) for t in jarc["internal_power"]["tables"]] == list(
+                arc.default
+            )
+            for (_, tables), jst in zip(arc.states, jarc["internal_power"]["states"], strict=True):
+                assert [Table.from_dict(t) for t in jst["tables"]] == list(tables)
+    toggles = [rec for recs in doc["toggles"].values() for rec in recs]
+    assert len(toggles) == len(run.result.toggles) > 0
+    assert doc["unmeasured_toggles"] == []
+    for m, rec in zip(run.result.toggles, toggles, strict=True):
+        assert (rec["related_pin"], rec["input_edge"], rec["slew_s"]) == (
+            m.point.related,
+            m.point.input_edge,
+            m.point.slew,
+        )
+        assert rec["energy_J"] == m.energy
+
+
+@pytest.fixture(scope="module")
+def bufc(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
+    out = tmp_path_factory.mktemp("bufc")
+    path = out / "cfg_bufc.toml"
+    path.write_text(
+        BUFC_TOML.format(
+            model=(ROOT / "models" / "vellum90_l1.lib").as_posix(),
+            template=(ROOT / "templates" / "cells" / "bufc.sp.j2").as_posix(),
+        ),
+        encoding="utf-8",
+    )
+    return _characterize(config.load(path), out)
+
+
+def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
+    # A cell with Y and YN: each output's internal_power names the other as
+    # equal_or_opposite_output, and its tables take that output's load as index_3.
+    cfg, lib = bufc.config, bufc.lib
+    templates = _power_templates(lib)
+    (cell,) = bufc.result.cell_power
+    pins = lib.get_group("cell", "BUFC_X1")
+    by_output = {}
+    for arc in cell.arcs:
+        (group,) = pins.get_group("pin", arc.arc.output).get_groups("internal_power")
+        assert _text(group["related_pin"]) == "A"
+        assert _text(group["equal_or_opposite_output"]) == arc.arc.other
+        for table in arc.default:
+            assert table.axis_names[2] == power.OTHER_LOAD_AXIS
+            _energy_table(cfg, group, table, templates)
+        by_output[arc.arc.output] = {t.quantity: t.values for t in arc.default}
+    assert sorted(by_output) == ["Y", "YN"]
+    # One edge of A switches both outputs; each output's table holds half of that event, so a
+    # power tool adding the internal power of every output that toggles counts it once. Y's
+    # rise at (slew, load of Y, load of YN) is the event of YN's fall at (slew, load of YN,
+    # load of Y): the two runs differ only in whose edge refines the time step.
+    for y_edge, yn_edge in (("rise", "fall"), ("fall", "rise")):
+        y = by_output["Y"][f"{y_edge}_power"]
+        yn = by_output["YN"][f"{yn_edge}_power"]
+        np.testing.assert_allclose(y, np.swapaxes(yn, 1, 2), rtol=SAME_EVENT_RTOL, atol=0)

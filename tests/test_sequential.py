@@ -136,3 +136,15 @@ def test_liberty_with_3d_and_sequential_groups_reads_back(cfg, run):
     setups = [t for t in pins["D"].get_groups("timing") if t["timing_type"] == "setup_rising"]
     assert len(setups) == 1 and setups[0].get_groups("rise_constraint")
     assert float(pins["CK"]["min_pulse_width_high"]) > 0
+
+
+def test_flop_pin_capacitance_follows_the_gates_behind_each_pin(run):
+    # CK drives one inverter of the INV_X1 size (wn 0.4 um, wp 0.8 um), RN the gates of two
+    # NAND2s (4 x 0.8 um of gate): against the demo INV_X1's measured 2.39 fF (gate
+    # capacitance scales with gate area; Weste & Harris, CMOS VLSI Design, 4th ed., 2010).
+    result, _ = run
+    pins = {p.pin: p for c in result.cells if c.cell.name == "DFFR_X1" for p in c.pins}
+    inv_x1 = 2.39e-15  # F, tests/test_timing.py's measured INV_X1 input on these models
+    assert pins["CK"].capacitance == pytest.approx(inv_x1, rel=0.15, abs=0)
+    assert pins["RN"].capacitance == pytest.approx(inv_x1 * 3.2 / 1.2, rel=0.25, abs=0)
+    assert pins["D"].capacitance > pins["CK"].capacitance
