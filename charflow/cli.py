@@ -11,7 +11,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from . import __version__, bench, config, diff, estimate, fidelity, flow, gridstudy, sweep
+from . import __version__, bench, check, config, diff, estimate, fidelity, flow, gridstudy, sweep
 from .errors import (
     CharflowError,
     ConfigError,
@@ -53,6 +53,11 @@ def _parser() -> argparse.ArgumentParser:
         action="store_true",
         help="print the simulations per cell and arc and an estimated time; run no sweep",
     )
+
+    check_cmd = sub.add_parser(
+        "check", help="check the config and every cell's netlist and function; run no sweep"
+    )
+    check_cmd.add_argument("config", type=Path)
 
     demo = sub.add_parser("demo", help="characterize the bundled demo library")
     _common(demo)
@@ -325,6 +330,12 @@ def _diff(args: argparse.Namespace) -> int:
     return EXIT_DIFFERENT if comparison.differs else EXIT_OK
 
 
+def _check(args: argparse.Namespace) -> int:
+    report = check.check(args.config)
+    print(check.summary(report))
+    return EXIT_OK if report.ok else EXIT_BAD_INPUT
+
+
 def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
     cfg = config.load(cfg_path)
     if args.jobs is not None and args.jobs < 1:
@@ -456,6 +467,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run(args.config, args)
         if args.command == "diff":
             return _diff(args)
+        if args.command == "check":
+            return _check(args)
         if args.command == "fidelity":
             return _fidelity(args)
         if args.command == "grid-study":

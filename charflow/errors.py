@@ -42,6 +42,10 @@ class SimulatorError(CharflowError):
     """The simulator failed to load, run or converge."""
 
 
+class DeckReadError(SimulatorError):
+    """The simulator cannot read a testbench (its models or cell): no option can help."""
+
+
 class MeasurementError(CharflowError):
     """A waveform does not give a measurement: no crossing, a glitch, or not settled."""
 

@@ -20,8 +20,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import SimulatorError
-from .netlist import Deck
+from .errors import DeckReadError, SimulatorError
+from .netlist import Deck, model_files
 
 # Fallback ladder for runs that do not converge: each rung adds options to the previous one.
 RETRY_LADDER: tuple[tuple[str, ...], ...] = (
@@ -89,6 +89,7 @@ class SharedBackend:
         self._runs = 0
         self._loaded: str | None = None
         self._version: str | None = None
+        self._broken = ""  # ngspice's messages once it has given up on reading a deck
 
     def version(self) -> str:
         """The shared library's version and build date, as ngspice reports them."""
@@ -108,6 +109,12 @@ class SharedBackend:
 
     def load(self, deck: Deck) -> None:
         """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
+        if self._broken:
+            raise DeckReadError(
+                "the simulator cannot run any deck after an earlier one it could not read "
+                f"({self._broken}); fix that one first",
+                cell=deck.cell,
+            )
         if self._loaded == deck.key:
             return
         if deck.key in self._circuits:
@@ -131,7 +138,9 @@ class SharedBackend:
         try:
             self._ng.load_circuit(deck.text)
             failed = None
-        except NgSpiceCircuitError as exc:
+        # PySpice raises NameError when ngspice gives up reading (e.g. a model card it cannot
+        # parse), NgSpiceCircuitError when it read the deck but reported errors.
+        except (NgSpiceCircuitError, NameError) as exc:
             failed = exc
         messages = _messages(self._ng.stdout + self._ng.stderr)
         # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
@@ -142,13 +151,23 @@ class SharedBackend:
                 self._loaded = deck.key
                 return
             self._ng.exec_command("remcirc")
-        raise SimulatorError(
-            f"ngspice cannot read the testbench: {messages}", cell=deck.cell
+        if "cannot recover" in messages:
+            self._broken = messages
+        # Name the files the deck reads: a model file is the likely culprit, and ngspice's
+        # own messages seldom say which file they are about.
+        models = ", ".join(map(str, model_files(deck.text, Path.cwd())))
+        raise DeckReadError(
+            f"ngspice cannot read the testbench: {messages}", file=models or None, cell=deck.cell
         ) from failed
 
     def _listed(self) -> int:
         """How many circuits ngspice holds (``setcirc`` without a number lists them)."""
-        listing = self._ng.exec_command("setcirc")
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+
+        try:
+            listing = self._ng.exec_command("setcirc")
+        except NgSpiceCommandError:
+            return 0  # ngspice refuses the command when it holds no circuit
         return len(re.findall(r"^(?:current\s+)?\d+\s", listing, flags=re.M | re.I))
 
     def run(self, request: Request) -> Result:

@@ -17,7 +17,7 @@ import numpy as np
 
 from . import stepsize, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import FunctionalMismatchError, MeasurementError, SimulatorError
+from .errors import DeckReadError, FunctionalMismatchError, MeasurementError, SimulatorError
 from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
@@ -108,15 +108,21 @@ def point_loads(cell: CellSpec, point: TimingPoint) -> dict[str, float]:
 
 def simulate(backend, request: Request) -> tuple[Result, int]:
     """Run with the fallback ladder; return the result and the number of attempts."""
-    errors = []
+    errors = {}
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
             return backend.run(replace(request, options=request.options + options)), attempt
+        except DeckReadError:
+            raise
         except SimulatorError as exc:
-            errors.append(f"[{' '.join(options) or 'default options'}] {exc.reason}")
-    raise SimulatorError(
-        "failed with every fallback: " + " | ".join(errors), cell=request.deck.cell
-    )
+            errors[" ".join(options) or "default options"] = exc.reason
+    if len(set(errors.values())) == 1:  # the same message each time: say it once
+        reason = f"failed with every fallback ({len(errors)} tries): {next(iter(errors.values()))}"
+    else:
+        reason = "failed with every fallback: " + " | ".join(
+            f"[{k}] {v}" for k, v in errors.items()
+        )
+    raise SimulatorError(reason, cell=request.deck.cell)
 
 
 _STATIC: dict[tuple[str, tuple[tuple[str, bool], ...]], float] = {}

@@ -1,0 +1,77 @@
+"""Checking a config without characterizing it: every problem of every cell in one run.
+
+``config.load`` already gathers every problem of the config file into one error. When the
+config loads, each cell is then taken through the stages that come before the sweep (its
+netlist, its ``.subckt`` ports, its function simulated at DC), and a failing cell does not
+stop the others: a user fixing a library sees all that is wrong at once, not one per run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+from . import config as config_mod
+from .config import LibraryConfig
+from .errors import (
+    CharflowError,
+    ConfigError,
+    DeckReadError,
+    FunctionalMismatchError,
+    SimulatorError,
+)
+from .netlist import build_deck
+from .timing import check_function
+
+
+@dataclass(frozen=True, slots=True)
+class CheckReport:
+    cells: int  # cells taken through the checks (0 when the config did not load)
+    problems: tuple[str, ...]  # one line each (a line may continue, indented, below it)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
+def check(path: str | Path) -> CheckReport:
+    """Load the config and check every cell; collect the problems instead of raising them."""
+    try:
+        cfg = config_mod.load(path)
+    except ConfigError as exc:
+        return CheckReport(0, (str(exc),))
+    problems = []
+    for index, cell in enumerate(cfg.cells):
+        try:
+            check_function(cfg, build_deck(cfg, cell))
+        except CharflowError as exc:
+            problems.append(str(_located(cfg, index, exc)))
+            if isinstance(exc, DeckReadError) and cfg.simulation.backend == "shared":
+                # The shared ngspice may refuse every deck after one it could not read: the
+                # other cells go to one ngspice process per run, which starts afresh each time.
+                cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
+    return CheckReport(len(cfg.cells), tuple(problems))
+
+
+def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowError:
+    """The error with the config file and key added where the error itself names none, so
+    that every line says where to look."""
+    context = dict(exc.context)
+    if isinstance(exc, FunctionalMismatchError) and "key" not in context:
+        context.setdefault("file", cfg.path)
+        pin = context.get("pin")
+        context["key"] = f"cell[{index}].outputs" + (f".{pin}" if pin else "")
+    elif isinstance(exc, SimulatorError):
+        # The simulator reads the models and the cell together: either may hold the fault.
+        files = [*(m.path for m in cfg.process.models), cfg.cells[index].source]
+        context["file"] = ", ".join(map(str, files))
+    else:
+        context.setdefault("file", cfg.path)
+    context.setdefault("cell", cfg.cells[index].name)
+    return type(exc)(exc.reason, **context)
+
+
+def summary(report: CheckReport) -> str:
+    if report.ok:
+        return f"{report.cells} cells checked, no problems"
+    return "\n".join(report.problems) + f"\n{len(report.problems)} problem(s) found"
