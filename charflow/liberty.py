@@ -68,30 +68,27 @@ def _value_scale(config: LibraryConfig, table: Table) -> float:
 
 def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple, str]:
     """Template name per distinct (axis names, index values)."""
-    names: dict[tuple, str] = {}
-    for cell in cells:
-        tables = [t for arc in cell.arcs for t in arc.default]
-        tables += [t for c in cell.constraints for t in c.tables]
-        for table in tables:
-            key = tuple((a.name, a.values) for a in table.axes)
-            if key not in names:
-                shape = "x".join(str(len(a.values)) for a in table.axes)
-                names[key] = f"grid_{shape}_{len(names) + 1}"
-    return names
+    tables = [t for cell in cells for arc in cell.arcs for t in arc.default]
+    tables += [t for cell in cells for c in cell.constraints for t in c.tables]
+    return _template_names(tables, "grid")
 
 
 def power_templates(cells: Iterable[CellPower]) -> dict[tuple, str]:
     """Power template name per distinct (axis names, index values)."""
+    tables = [t for cell in cells for a in cell.arcs for t in a.default]
+    tables += [t for cell in cells for a in cell.arcs for _, ts in a.states for t in ts]
+    tables += [t for cell in cells for h in cell.hidden for t in h.tables]
+    return _template_names(tables, "energy")
+
+
+def _template_names(tables: Iterable[Table], prefix: str) -> dict[tuple, str]:
+    """One template name per distinct (axis names, index values), in order of first use."""
     names: dict[tuple, str] = {}
-    for cell in cells:
-        tables = [t for a in cell.arcs for t in a.default]
-        tables += [t for a in cell.arcs for _, ts in a.states for t in ts]
-        tables += [t for h in cell.hidden for t in h.tables]
-        for table in tables:
-            key = tuple((a.name, a.values) for a in table.axes)
-            if key not in names:
-                shape = "x".join(str(len(a.values)) for a in table.axes)
-                names[key] = f"energy_{shape}_{len(names) + 1}"
+    for table in tables:
+        key = tuple((a.name, a.values) for a in table.axes)
+        if key not in names:
+            shape = "x".join(str(len(a.values)) for a in table.axes)
+            names[key] = f"{prefix}_{shape}_{len(names) + 1}"
     return names
 
 

@@ -94,8 +94,8 @@ def test_good_config_is_in_si_units(cfg_path: Path) -> None:
     assert cfg.name == "cfg_lib"
     assert cfg.path == cfg_path
     assert cfg.time_scale == 1e-9 and cfg.cap_scale == 1e-12
-    assert cfg.grid.slew == pytest.approx((0.01e-9, 0.1e-9), rel=1e-15)
-    assert cfg.grid.load == pytest.approx((0.001e-12, 0.01e-12), rel=1e-15)
+    assert cfg.grid.slew == pytest.approx((0.01e-9, 0.1e-9), rel=1e-15, abs=0)
+    assert cfg.grid.load == pytest.approx((0.001e-12, 0.01e-12), rel=1e-15, abs=0)
     assert cfg.process.vdd == 1.2
     assert cfg.process.temperature == 25.0
     t = cfg.thresholds
@@ -120,8 +120,8 @@ def test_picosecond_and_femtofarad_units(cfg_path: Path) -> None:
     doc["library"] |= {"time_unit": "ps", "cap_unit": "ff"}
     doc["grid"] = {"slew": [10, 100], "load": [1, 10]}
     cfg = config.parse(doc, cfg_path)
-    assert cfg.grid.slew == pytest.approx((10e-12, 100e-12), rel=1e-15)
-    assert cfg.grid.load == pytest.approx((1e-15, 10e-15), rel=1e-15)
+    assert cfg.grid.slew == pytest.approx((10e-12, 100e-12), rel=1e-15, abs=0)
+    assert cfg.grid.load == pytest.approx((1e-15, 10e-15), rel=1e-15, abs=0)
 
 
 def test_model_entries_with_and_without_section(cfg_path: Path) -> None:
@@ -165,7 +165,7 @@ def test_cell_grid_override(cfg_path: Path) -> None:
     doc["cell"][1]["grid"] = {"slew": [0.02, 0.04, 0.08]}
     cfg = config.parse(doc, cfg_path)
     nand = cfg.cell("NAND2_X1")
-    assert nand.grid.slew == pytest.approx((0.02e-9, 0.04e-9, 0.08e-9), rel=1e-15)
+    assert nand.grid.slew == pytest.approx((0.02e-9, 0.04e-9, 0.08e-9), rel=1e-15, abs=0)
     assert nand.grid.load == cfg.grid.load  # the axis not overridden comes from [grid]
     assert cfg.cell("INV_X1").grid == cfg.grid
 

@@ -100,8 +100,8 @@ def test_rc_fast_ramp_is_a_step(rc):
         tau = R_OHMS * point.load
         assert point.slew <= tau / 100.0
         m = timing.measure_point(cfg, deck, point)
-        assert m.delay == pytest.approx(math.log(2.0) * tau, rel=RC_RTOL), point.label
-        assert m.transition == pytest.approx(math.log(4.0) * tau, rel=RC_RTOL), point.label
+        assert m.delay == pytest.approx(math.log(2.0) * tau, rel=RC_RTOL, abs=0), point.label
+        assert m.transition == pytest.approx(math.log(4.0) * tau, rel=RC_RTOL, abs=0), point.label
 
 
 def test_rc_slow_ramp_follows_the_ramp_response(rc):
@@ -110,8 +110,8 @@ def test_rc_slow_ramp_follows_the_ramp_response(rc):
         assert point.slew >= 2.0 * R_OHMS * point.load
         delay, slew = _closed_form(cfg, point)
         m = timing.measure_point(cfg, deck, point)
-        assert m.delay == pytest.approx(delay, rel=RC_RTOL), point.label
-        assert m.transition == pytest.approx(slew, rel=RC_RTOL), point.label
+        assert m.delay == pytest.approx(delay, rel=RC_RTOL, abs=0), point.label
+        assert m.transition == pytest.approx(slew, rel=RC_RTOL, abs=0), point.label
 
 
 def test_shared_and_subprocess_backends_agree(small):
@@ -127,8 +127,8 @@ def test_shared_and_subprocess_backends_agree(small):
     for point in points:
         a = timing.measure_point(small, deck, point)
         b = timing.measure_point(batch, deck, point)
-        assert a.delay == pytest.approx(b.delay, rel=BACKEND_RTOL), point.label
-        assert a.transition == pytest.approx(b.transition, rel=BACKEND_RTOL), point.label
+        assert a.delay == pytest.approx(b.delay, rel=BACKEND_RTOL, abs=0), point.label
+        assert a.transition == pytest.approx(b.transition, rel=BACKEND_RTOL, abs=0), point.label
 
 
 def test_check_function_names_cell_and_vector(tmp_path):
