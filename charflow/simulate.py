@@ -316,7 +316,7 @@ class SubprocessBackend:
             raise SimulatorError(
                 "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
             )
-        self._timeout = timeout
+        self.timeout = timeout
         self._version: str | None = None
 
     def version(self) -> str:
@@ -324,7 +324,7 @@ class SubprocessBackend:
         if self._version is None:
             try:
                 proc = subprocess.run(
-                    [self._exe, "-v"], capture_output=True, text=True, timeout=self._timeout
+                    [self._exe, "-v"], capture_output=True, text=True, timeout=self.timeout
                 )
             except (OSError, subprocess.TimeoutExpired) as exc:
                 raise SimulatorError(f"cannot ask ngspice for its version: {exc}") from exc
@@ -366,13 +366,13 @@ class SubprocessBackend:
                     [self._exe, "-b", str(deck_path)],
                     capture_output=True,
                     text=True,
-                    timeout=self._timeout,
+                    timeout=self.timeout,
                     cwd=tmp,
                     env={**os.environ, "LC_ALL": "C"},
                 )
             except subprocess.TimeoutExpired as exc:
                 raise SimulatorTimeoutError(
-                    f"ngspice did not finish within the {self._timeout:g} s timeout and was killed",
+                    f"ngspice did not finish within the {self.timeout:g} s timeout and was killed",
                     cell=cell,
                 ) from exc
             seconds = time.perf_counter() - start
@@ -417,7 +417,12 @@ def _version_of(text: str) -> str:
 def _messages(lines: list[str] | str) -> str:
     if isinstance(lines, str):
         lines = lines.splitlines()
-    keep = [ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")]
+    # Once each, in order: ngspice repeats a warning at every failed time step.
+    keep = list(
+        dict.fromkeys(
+            ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")
+        )
+    )
     interesting = [
         ln
         for ln in keep

@@ -72,7 +72,9 @@ def backend_for(config: LibraryConfig):
     key = f"{sim.backend}:{sim.timeout}"
     if key not in _BACKENDS:
         _BACKENDS[key] = make_backend(sim.backend, sim.timeout)
-    return _BACKENDS[key]
+    backend = _BACKENDS[key]
+    backend.timeout = sim.timeout  # the shared simulator serves every config of the process
+    return backend
 
 
 # Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters).
@@ -131,7 +133,10 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
                     break
                 timed_out = True
     if len(set(errors.values())) == 1:  # the same message each time: say it once
-        reason = f"failed with {len(errors)} sets of options: {next(iter(errors.values()))}"
+        tried = "; ".join(errors)
+        reason = (
+            f"failed with {len(errors)} sets of options ({tried}): {next(iter(errors.values()))}"
+        )
     else:
         reason = f"failed with {len(errors)} sets of options: " + " | ".join(
             f"[{k}] {v}" for k, v in errors.items()

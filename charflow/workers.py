@@ -158,5 +158,5 @@ def _why(death: BaseException) -> str:
     text = str(death)
     codes = text.find("The exit codes of the workers are")
     if codes >= 0:
-        return text[codes:].strip().rstrip(".")
+        return text[codes:].splitlines()[0].strip().rstrip(".")
     return text.split(".")[0]
