@@ -8,6 +8,7 @@ read); 3 simulator, store, cluster or output trouble.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 from pathlib import Path
 
@@ -460,8 +461,18 @@ def _bench(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _show_warnings() -> None:
+    """charflow's warnings (a worker that died, points re-run alone) go to stderr as lines."""
+    log = logging.getLogger("charflow")
+    if not log.handlers:
+        handler = logging.StreamHandler(sys.stderr)
+        handler.setFormatter(logging.Formatter("charflow: %(message)s"))
+        log.addHandler(handler)
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
+    _show_warnings()
     try:
         if args.command == "run":
             return _run(args.config, args)

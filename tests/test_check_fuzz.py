@@ -270,3 +270,60 @@ def test_check_command_passes_a_good_config():
     run = subprocess.run(["charflow", "check", str(SMALL)], capture_output=True, text=True)
     assert run.returncode == 0, run.stdout + run.stderr
     assert run.stdout.strip() == "3 cells checked, no problems"
+
+
+@st.composite
+def perturbed_configs(draw) -> str:
+    """small_l1 with a few numbers changed to odd but well-typed values: most still load, so
+    the simulation, measurement and writing stages see them."""
+    doc = _base()
+    numbers = [p for p in _paths(doc) if isinstance(_parent(doc, p)[p[-1]], int | float)]
+    numbers = [p for p in numbers if not isinstance(_parent(doc, p)[p[-1]], bool)]
+    for _ in range(draw(st.integers(1, 3))):
+        path = draw(st.sampled_from(numbers))
+        parent = _parent(doc, path)
+        old = parent[path[-1]]
+        parent[path[-1]] = draw(
+            st.sampled_from(
+                [0.0, -old, old * 10, old / 10, old * 1e6, old * 1e-6, 1e-30, 1e30, 99.999]
+            )
+            | st.floats(allow_nan=True, allow_infinity=True)
+        )
+    return _document(doc)
+
+
+# Configs that load are also run, on one cell and a small plan, to the written files.
+RUN_EXAMPLES = 40
+RUN_POINTS = 60  # larger plans (a mutation can grow the grid) are counted, not run
+
+
+def test_mutated_configs_that_load_run_or_fail_with_charflow_errors(tmp_path, record_property):
+    from charflow import flow
+
+    path = tmp_path / "fuzz.toml"
+    kinds = {"refused at load": 0, "too large to run": 0, "run": 0, "run refused": 0}
+
+    @settings(FUZZ, max_examples=RUN_EXAMPLES)
+    @given(text=st.one_of(mutated_configs(), perturbed_configs()))
+    def one(text: str) -> None:
+        path.write_text(text, encoding="utf-8", errors="surrogateescape")
+        try:
+            cfg = config.load(path)
+        except CharflowError:
+            kinds["refused at load"] += 1
+            return
+        cell = [cfg.cells[0].name]
+        if len(flow.select(cfg, cell).points) > RUN_POINTS:
+            kinds["too large to run"] += 1
+            return
+        try:
+            result = flow.characterize(cfg, cells=cell, jobs=1)
+            flow.write(cfg, result, tmp_path / "out")
+            kinds["run"] += 1
+        except CharflowError:
+            kinds["run refused"] += 1
+
+    one()
+    record_property("configs_run", kinds)
+    print(f"mutated configs through run: {kinds}")
+    assert sum(kinds.values()) >= 20 and kinds["run"] + kinds["run refused"] >= 1
