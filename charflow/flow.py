@@ -476,12 +476,10 @@ def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...
     or pin capacitance holding one (by the name ``charflow diff`` gives it)."""
     if not result.filled:
         return (), {}
-    methods: dict[str, int] = {}
     places: dict[str, list[str]] = {}
     for f in result.filled:
-        methods[f.method] = methods.get(f.method, 0) + 1
         p = f.failure.point
-        where = f"{_where(config, p)} ({f.method})"
+        where = _where(config, p)
         names = _tables_of(result.plan, p)
         if isinstance(p, sweep.TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
             # Pin capacitance comes from the charges at the smallest load.
@@ -489,15 +487,16 @@ def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...
             names += [pin_name(p.cell, pin, "capacitance") for pin in dict.fromkeys(pins)]
         for name in names:
             places.setdefault(name, []).append(where)
-    counts = ", ".join(f"{n} by {method}" for method, n in methods.items())
     header = (
-        f"gaps: the values of {len(result.filled)} failed point(s) were filled, not simulated: "
-        f'{counts}; the points are listed under "filled" in {config.name}.json',
+        f"gaps: the values of {len(result.filled)} failed point(s) were filled by "
+        f'{result.gap_report.method}, not simulated; they are listed under "filled" in '
+        f"{config.name}.json",
     )
     notes = {}
+    method = result.gap_report.method
     for name, where in places.items():
         shown = "; ".join(where[:NOTE_POINTS]) + ("; ..." if len(where) > NOTE_POINTS else "")
-        notes[name] = f"{len(where)} value(s) filled, not simulated, at {shown}"
+        notes[name] = f"{len(where)} value(s) filled by {method}, not simulated, at {shown}"
     return header, notes
 
 
