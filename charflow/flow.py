@@ -289,6 +289,17 @@ def _cell_power_record(cell: power.CellPower | None) -> dict:
     }
 
 
+# The values of a JSON point record that a gap-filling method fills.
+FILLED_VALUES = (
+    "delay_s",
+    "transition_s",
+    "input_charge_C",
+    "supply_energy_J",
+    "internal_energy_J",
+    "value_s",
+)
+
+
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     """Tables in SI units with the measurement details behind every point."""
 
@@ -443,16 +454,6 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     }
 
 
-# The values of a point record that a gap-filling method fills.
-FILLED_VALUES = (
-    "delay_s",
-    "transition_s",
-    "input_charge_C",
-    "supply_energy_J",
-    "internal_energy_J",
-    "value_s",
-)
-
 OUTPUT_MODE = 0o644
 
 
@@ -469,6 +470,9 @@ def write_atomic(path: Path, text: str | bytes) -> None:
         os.replace(tmp, path)
     except OSError as exc:
         raise OutputError(f"cannot write output: {exc}", file=path) from exc
+
+
+NOTE_POINTS = 4  # filled points a table's note lists
 
 
 def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...], dict[str, str]]:
@@ -498,9 +502,6 @@ def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...
         shown = "; ".join(where[:NOTE_POINTS]) + ("; ..." if len(where) > NOTE_POINTS else "")
         notes[name] = f"{len(where)} value(s) filled by {method}, not simulated, at {shown}"
     return header, notes
-
-
-NOTE_POINTS = 4  # filled points a table's note lists
 
 
 def _where(config: LibraryConfig, p: sweep.Point) -> str:

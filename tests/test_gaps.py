@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import pickle
 import re
 import shutil
 from pathlib import Path
@@ -20,7 +21,7 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import cli, config, faults, flow, gaps, sequential, sweep
+from charflow import cli, config, faults, flow, gaps, sequential, sweep, timing
 from charflow.errors import ConfigError, MeasurementError
 from charflow.netlist import build_deck
 from charflow.sequential import SearchResult
@@ -31,7 +32,8 @@ from charflow.timing import Failure, Measurement
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"
 WINDOW_NS = 0.05  # too short for the 0.02 pF load of small_l1 to settle; enough for the rest
-PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # the PNG signature (PNG specification, W3C, 2003)
+# The PNG signature (W3C, Portable Network Graphics Specification, 2nd ed., 2003; from memory).
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 RTOL = 1e-6  # the Liberty file holds 7 significant digits
 
 
@@ -259,19 +261,27 @@ def test_saved_csv_parses_back_and_names_the_point(inverter):
 
 
 def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
-    # Clocked with a half period of barely two edges, the flop never stores: Q does not switch.
+    # Clocked with a half period of barely two edges the flop never stores: Q does not switch,
+    # and the setup and pulse-width searches fail on their relaxed trial.
     cfg = config.load(DATA / "seq_l1.toml")
     cfg = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, window=2e-11))
     deck = build_deck(cfg, cfg.cell("DFFR_X1"))
-    point = next(
-        p
-        for p in sweep.plan(cfg, ["DFFR_X1"]).points
-        if isinstance(p, TimingPoint) and p.kind == "clock"
-    )
+    points = sweep.plan(cfg, ["DFFR_X1"]).points
+    clocked = next(p for p in points if isinstance(p, TimingPoint) and p.kind == "clock")
+    setup = next(p for p in points if isinstance(p, ConstraintPoint) and p.kind == "setup")
+    pulse = next(p for p in points if isinstance(p, PulsePoint))
     with pytest.raises(MeasurementError) as caught:
-        sequential.measure_clocked(cfg, deck, point)
+        sequential.measure_clocked(cfg, deck, clocked)
     names = [name for name, _ in caught.value.waveform.nodes]
-    assert names[0] == point.output and {"CK", "D", "RN"} <= set(names)
+    assert names[0] == clocked.output and {"CK", "D", "RN"} <= set(names)
+    # Through the worker's chunk, as a sweep runs it: the Failure holds the run, and survives
+    # the trip back from a worker process (pickled).
+    outcomes = pickle.loads(pickle.dumps(timing.measure_chunk(cfg, deck, [setup, pulse])))
+    for point, f in zip((setup, pulse), outcomes, strict=True):
+        assert isinstance(f, Failure) and f.point == point
+        assert "fails even with relaxed timing" in f.reason
+        assert {"Q", "CK", "D", "RN"} == {name for name, _ in f.waveform.nodes}
+        assert len(f.waveform.time) == len(f.waveform.nodes[0][1]) > 10
 
 
 # -- the command: exit codes, the store, the Liberty comments -------------------------------------
