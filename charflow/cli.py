@@ -1,8 +1,8 @@
 """The ``charflow`` command: parse, call the library, write, exit with a meaningful code.
 
-Exit codes: 0 done; 1 the run finished but some points failed (no Liberty written), or
-``diff`` found differences; 2 bad input (config, netlist, function, a library diff cannot
-read); 3 simulator, store, cluster or output trouble.
+Exit codes: 0 done; 1 the run finished but some points failed and were not filled
+(``--allow-gaps``; no Liberty written), or ``diff`` found differences; 2 bad input (config,
+netlist, function, a library diff cannot read); 3 simulator, store, cluster or output trouble.
 """
 
 from __future__ import annotations
