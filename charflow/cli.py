@@ -1,8 +1,8 @@
 """The ``charflow`` command: parse, call the library, write, exit with a meaningful code.
 
-Exit codes: 0 done; 1 the run finished but some points failed (no Liberty written), or
-``diff`` found differences; 2 bad input (config, netlist, function, a library diff cannot
-read); 3 simulator, store, cluster or output trouble.
+Exit codes: 0 done; 1 the run finished but some points failed and were not filled
+(``--allow-gaps``; no Liberty written), or ``diff`` found differences; 2 bad input (config,
+netlist, function, a library diff cannot read); 3 simulator, store, cluster or output trouble.
 """
 
 from __future__ import annotations
@@ -12,7 +12,20 @@ import logging
 import sys
 from pathlib import Path
 
-from . import __version__, bench, check, config, diff, estimate, fidelity, flow, gridstudy, sweep
+from . import (
+    __version__,
+    bench,
+    check,
+    config,
+    diff,
+    estimate,
+    faults,
+    fidelity,
+    flow,
+    gaps,
+    gridstudy,
+    sweep,
+)
 from .errors import (
     CharflowError,
     ConfigError,
@@ -66,6 +79,14 @@ def _parser() -> argparse.ArgumentParser:
     for p in (run, demo):
         p.add_argument(
             "--fidelity", action="store_true", help="then check the tables off their grid"
+        )
+        p.add_argument(
+            "--allow-gaps",
+            metavar="METHOD",
+            choices=gaps.METHODS,
+            help="fill failed points from measured neighbours by METHOD ("
+            + " or ".join(gaps.METHODS)
+            + "); the filled values are marked in the JSON and the Liberty file, never stored",
         )
 
     fid = sub.add_parser(
@@ -267,24 +288,72 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
                     on_start=progress.start,
                     on_stored=progress.stored,
                     on_result=progress.result,
+                    allow_gaps=args.allow_gaps,
                 )
             finally:
                 progress.close()
             written = flow.write(lib, result, out)
             _summary(lib.name, result, selective=cells is not None)
+            saved = [p for p in written if p.parent.parent == out / faults.FOLDER]
             for path in written:
-                print(f"wrote {path}")
+                if path not in saved:
+                    print(f"wrote {path}")
+            if saved:
+                where = out / faults.FOLDER
+                print(f"wrote {len(saved)} waveform file(s) of failed points under {where}")
+            _gaps(lib.name, result, out)
             if result.failures:
                 print(
                     f"{lib.name}: {len(result.failures)} point(s) failed; no Liberty file written:",
                     file=sys.stderr,
                 )
-                for f in result.failures[:20]:
-                    print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+                _list_faults(result, result.failures, out)
+                if args.allow_gaps is None:
+                    print(
+                        f"{lib.name}: rerun with --allow-gaps {' or '.join(gaps.METHODS)} to fill "
+                        "them from measured neighbours (marked as filled)",
+                        file=sys.stderr,
+                    )
                 code = EXIT_FAILED_POINTS
             elif args.fidelity:
                 code = max(code, _check_fidelity(lib, result.cells, out, args, store))
     return code
+
+
+LISTED = 20  # failed or filled points listed one by one; the rest are counted
+
+
+def _list_faults(result: flow.RunResult, failures, out: Path) -> None:
+    """Each failed point (the first LISTED): label, reason, why it was not filled, waveform."""
+    saved = faults.paths(result.faults)
+    why = {u.failure.point: u.why for u in result.gap_report.unfilled} if result.gap_report else {}
+    for f in failures[:LISTED]:
+        print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+        if f.point in why:
+            print(f"    not filled: {why[f.point]}", file=sys.stderr)
+        if f.point in saved:
+            print(f"    waveform: {out / saved[f.point][0]}", file=sys.stderr)
+    if len(failures) > LISTED:
+        print(f"  ... and {len(failures) - LISTED} more (all in the JSON)", file=sys.stderr)
+
+
+def _gaps(name: str, result: flow.RunResult, out: Path) -> None:
+    if not result.filled:
+        return
+    method = result.gap_report.method
+    print(
+        f"{name}: {len(result.filled)} failed point(s) filled by {method}, not simulated "
+        '(listed under "filled" in the JSON, commented in the Liberty file):'
+    )
+    saved = faults.paths(result.faults)
+    for f in result.filled[:LISTED]:
+        p = f.failure.point
+        print(f"  cell {p.cell}, {p.label}: {f.failure.reason}")
+        print(f"    filled along {f.along} from {len(f.sources)} measured point(s)")
+        if p in saved:
+            print(f"    waveform: {out / saved[p][0]}")
+    if len(result.filled) > LISTED:
+        print(f"  ... and {len(result.filled) - LISTED} more (all in the JSON)")
 
 
 def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:

@@ -56,7 +56,15 @@ class SimulatorHungError(SimulatorError):
 
 
 class MeasurementError(CharflowError):
-    """A waveform does not give a measurement: no crossing, a glitch, or not settled."""
+    """A waveform does not give a measurement: no crossing, a glitch, or not settled.
+
+    ``waveform`` (a ``measure.Waveform``) holds the simulated vectors that failed, once a
+    simulation ran, so the point can be inspected.
+    """
+
+    def __init__(self, message: str, *, waveform: object = None, **context: object) -> None:
+        self.waveform = waveform
+        super().__init__(message, **context)
 
 
 class FunctionalMismatchError(CharflowError):

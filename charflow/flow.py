@@ -19,8 +19,9 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__, liberty, power, sweep
+from . import __version__, faults, gaps, liberty, power, sweep
 from .config import LibraryConfig
+from .diff import pin_name, table_name
 from .errors import ConfigError, OutputError
 from .netlist import build_deck
 from .sequential import SearchResult
@@ -45,6 +46,23 @@ class RunResult:
     # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
     unmeasured: tuple[Failure, ...] = ()
     cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
+    # With a gap-filling method: the failed points it filled (in the tables, never stored) and
+    # those it could not (still in ``failures``).
+    gap_report: gaps.GapReport | None = None
+
+    @property
+    def filled(self) -> tuple[gaps.Filled, ...]:
+        return self.gap_report.filled if self.gap_report is not None else ()
+
+    @property
+    def faults(self) -> tuple[Failure, ...]:
+        """Every point that gave no measurement, filled or not, in the plan's order; then the
+        toggles."""
+        order = {p: i for i, p in enumerate(self.plan.points)}
+        timing = sorted(
+            (*self.failures, *(f.failure for f in self.filled)), key=lambda f: order[f.point]
+        )
+        return (*timing, *self.unmeasured)
 
     @property
     def simulated(self) -> int:
@@ -76,8 +94,6 @@ class RunResult:
 
 def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
-    from .diff import pin_name, table_name
-
     if isinstance(p, sweep.PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
     if isinstance(p, power.TogglePoint):
@@ -154,8 +170,10 @@ def characterize(
     on_start: Callable[[int], None] | None = None,
     on_stored: Callable[[tuple], None] | None = None,
     on_result: Callable[[object], None] | None = None,
+    allow_gaps: str | None = None,
 ) -> RunResult:
-    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers.
+    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers
+    unless ``allow_gaps`` names a method (``gaps.METHODS``) to fill them from measured neighbours.
 
     Only the chosen ``cells`` (or ``arc``, see ``select``) are simulated. Without a store the
     library holds just those. With one it holds every cell of the config: points not chosen
@@ -163,6 +181,8 @@ def characterize(
     slot (listed in ``stale``); a cell with a point the store never held is left out.
     """
     start = time.perf_counter()
+    if allow_gaps is not None:
+        gaps.check_method(allow_gaps)  # before the sweep, not after it
     chosen = select(config, cells, arc)
     # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
     toggle_points = power.plan_toggles(config, cells) if arc is None else ()
@@ -221,11 +241,17 @@ def characterize(
     order = {p: i for i, p in enumerate((*whole.points, *all_toggles))}
     for outcomes in (measurements, failures, toggles, unmeasured):
         outcomes.sort(key=lambda m: order[m.point])
+    report = None
+    if failures and allow_gaps is not None:
+        # After the sweep, which has stored what it measured: filled values are never stored.
+        report = gaps.fill_gaps(the_plan, measurements, failures, allow_gaps)
+        failures = list(report.remaining)
     tables, cell_power = (), ()
     if not failures:
-        tables = tabulate(config, the_plan, measurements)
+        done = [*measurements, *report.records] if report is not None else measurements
+        tables = tabulate(config, the_plan, done)
         leakages = power.leakages(config, the_plan)
-        cell_power = power.tabulate(config, the_plan, measurements, toggles, leakages)
+        cell_power = power.tabulate(config, the_plan, done, toggles, leakages)
     return RunResult(
         the_plan,
         tuple(measurements),
@@ -238,6 +264,7 @@ def characterize(
         tuple(toggles),
         tuple(unmeasured),
         cell_power,
+        report,
     )
 
 
@@ -260,6 +287,17 @@ def _cell_power_record(cell: power.CellPower | None) -> dict:
             for h in cell.hidden
         ],
     }
+
+
+# The values of a JSON point record that a gap-filling method fills.
+FILLED_VALUES = (
+    "delay_s",
+    "transition_s",
+    "input_charge_C",
+    "supply_energy_J",
+    "internal_energy_J",
+    "value_s",
+)
 
 
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
@@ -305,6 +343,29 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             "input_charge_C": m.input_charge,
             "simulations": m.runs,
             "window_end_s": m.settled,
+        }
+
+    saved = faults.paths(result.faults)
+    unfillable = (
+        {u.failure.point: u.why for u in result.gap_report.unfilled} if result.gap_report else {}
+    )
+
+    def fault_record(f: Failure) -> dict:
+        record = {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
+        if f.point in unfillable:
+            record["not_filled"] = unfillable[f.point]
+        if f.point in saved:
+            record["waveform_csv"], record["waveform_png"] = saved[f.point]
+        return record
+
+    def filled_record(f: gaps.Filled) -> dict:
+        values = {k: v for k, v in point_record(f.record).items() if k in FILLED_VALUES}
+        return {
+            **fault_record(f.failure),
+            "method": f.method,
+            "along": f.along,
+            "from": [p.label for p in f.sources],
+            **values,
         }
 
     powers = {c.cell: c for c in result.cell_power}
@@ -387,14 +448,9 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             name: [toggle_record(m) for m in result.toggles if m.point.cell == name]
             for name in dict.fromkeys(m.point.cell for m in result.toggles)
         },
-        "failures": [
-            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
-            for f in result.failures
-        ],
-        "unmeasured_toggles": [
-            {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
-            for f in result.unmeasured
-        ],
+        "failures": [fault_record(f) for f in result.failures],
+        "unmeasured_toggles": [fault_record(f) for f in result.unmeasured],
+        "filled": [filled_record(f) for f in result.filled],
     }
 
 
@@ -416,15 +472,63 @@ def write_atomic(path: Path, text: str | bytes) -> None:
         raise OutputError(f"cannot write output: {exc}", file=path) from exc
 
 
+NOTE_POINTS = 4  # filled points a table's note lists
+
+
+def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...], dict[str, str]]:
+    """The Liberty comments on filled values: the library header's lines, and a note per table
+    or pin capacitance holding one (by the name ``charflow diff`` gives it)."""
+    if not result.filled:
+        return (), {}
+    places: dict[str, list[str]] = {}
+    for f in result.filled:
+        p = f.failure.point
+        where = _where(config, p)
+        names = _tables_of(result.plan, p)
+        if isinstance(p, sweep.TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
+            # Pin capacitance comes from the charges at the smallest load.
+            pins = [p.related, *(pin for pin, _, _ in f.record.side_charges)]
+            names += [pin_name(p.cell, pin, "capacitance") for pin in dict.fromkeys(pins)]
+        for name in names:
+            places.setdefault(name, []).append(where)
+    header = (
+        f"gaps: the values of {len(result.filled)} failed point(s) were filled by "
+        f'{result.gap_report.method}, not simulated; they are listed under "filled" in '
+        f"{config.name}.json",
+    )
+    notes = {}
+    method = result.gap_report.method
+    for name, where in places.items():
+        shown = "; ".join(where[:NOTE_POINTS]) + ("; ..." if len(where) > NOTE_POINTS else "")
+        notes[name] = f"{len(where)} value(s) filled by {method}, not simulated, at {shown}"
+    return header, notes
+
+
+def _where(config: LibraryConfig, p: sweep.Point) -> str:
+    """A point's place in its table, in library units."""
+    t, c = config.time_scale, config.cap_scale
+    tu, cu = config.time_unit, config.cap_unit
+    if isinstance(p, sweep.ConstraintPoint):
+        return f"data slew {p.data_slew / t:.4g} {tu}, clock slew {p.clock_slew / t:.4g} {tu}"
+    where = f"slew {p.slew / t:.4g} {tu}, load {p.load / c:.4g} {cu}"
+    if p.other_load is not None:
+        where += f", other load {p.other_load / c:.4g} {cu}"
+    return where
+
+
 def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]:
-    """Write the JSON (always) and the Liberty file (only when every point was measured)."""
+    """Write the waveforms of the points that gave no measurement (``faults``), the JSON
+    (always) and the Liberty file (only when every point was measured or filled)."""
     out_dir = Path(out_dir)
-    written = []
+    cells = dict.fromkeys(p.cell for p in result.plan.points)
+    written = faults.write(config, result.faults, out_dir, cells)
     json_path = out_dir / f"{config.name}.json"
     write_atomic(json_path, json.dumps(to_json(config, result), indent=1) + "\n")
     written.append(json_path)
     if not result.failures:
         lib_path = out_dir / f"{config.name}.lib"
-        write_atomic(lib_path, liberty.render(config, result.cells, result.cell_power))
+        header, notes = fill_notes(config, result)
+        text = liberty.render(config, result.cells, result.cell_power, header=header, notes=notes)
+        write_atomic(lib_path, text)
         written.append(lib_path)
     return written

@@ -9,11 +9,12 @@ one such energy unit per time unit (1pJ/1ns = 1mW).
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping, Sequence
 
 import numpy as np
 
 from .config import LibraryConfig
+from .diff import pin_name, table_name
 from .power import CellPower
 from .tables import Table
 from .tabulate import ArcTables, CellTables
@@ -28,14 +29,24 @@ def _fmt(x: float) -> str:
     return VALUE_FORMAT.format(x)
 
 
+def _comment(text: str) -> str:
+    return " ".join(text.replace("*/", "* /").split())
+
+
 def _index(values: Iterable[float], scale: float) -> str:
     return '("' + ", ".join(_fmt(v / scale) for v in values) + '")'
 
 
 class _Writer:
-    def __init__(self) -> None:
+    def __init__(self, notes: Mapping[str, str] | None = None) -> None:
         self.lines: list[str] = []
         self.depth = 0
+        self.notes = notes or {}
+
+    def note(self, name: str) -> None:
+        """The comment on the table or pin value ``name`` (as ``charflow diff`` names it)."""
+        if name in self.notes:
+            self.lines.append("  " * self.depth + f"/* {_comment(self.notes[name])} */")
 
     def attr(self, name: str, value: str) -> None:
         self.lines.append("  " * self.depth + f"{name} : {value} ;")
@@ -139,6 +150,8 @@ def _timing_group(
     for quantity in TIMING_QUANTITIES:
         table = by_quantity.get(quantity)
         if table is not None:
+            spec = arc.arc
+            w.note(table_name(spec.cell, spec.related, spec.output, when, quantity, spec.kind))
             write_table(w, config, table, names[tuple((a.name, a.values) for a in table.axes)])
     w.close()
 
@@ -151,7 +164,9 @@ def _internal_power(
     related: str = "",
     when: str = "",
     other: str | None = None,
+    owner: tuple[str, str] | None = None,
 ) -> None:
+    """``owner``: the cell and output pin of an arc's tables, which may carry notes."""
     w.open("internal_power")
     if related:
         w.attr("related_pin", f'"{related}"')
@@ -161,6 +176,8 @@ def _internal_power(
     if when:
         w.attr("when", f'"{when}"')
     for table in tables:
+        if owner is not None:
+            w.note(table_name(owner[0], related, owner[1], when, table.quantity))
         write_table(w, config, table, _template_of(names, table))
     w.close()
 
@@ -176,15 +193,23 @@ def _leakage(w: _Writer, cell: CellPower, scale: float) -> None:
 
 
 def render(
-    config: LibraryConfig, cells: tuple[CellTables, ...], power: Iterable[CellPower] = ()
+    config: LibraryConfig,
+    cells: tuple[CellTables, ...],
+    power: Iterable[CellPower] = (),
+    *,
+    header: Sequence[str] = (),
+    notes: Mapping[str, str] | None = None,
 ) -> str:
-    """The whole library as Liberty text; ``power`` adds each named cell's power groups."""
+    """The whole library as Liberty text; ``power`` adds each named cell's power groups.
+    ``header`` lines become comments at the top, ``notes`` comments beside the tables and pin
+    values they name (``diff.table_name``, ``diff.pin_name``)."""
     p = config.process
     t = config.thresholds
     powers = {c.cell: c for c in power}
     leakage_unit, leakage_scale = power_unit(config.time_unit, config.cap_unit)
-    w = _Writer()
+    w = _Writer(notes)
     w.lines.append(f"/* {config.name}: written by charflow from {config.path.name} */")
+    w.lines += [f"/* {_comment(line)} */" for line in header]
     w.lines.append(
         f"/* internal_power tables: energy per transition in 1{energy_unit(config.cap_unit)} "
         f"(capacitive_load_unit x voltage_unit^2); leakage in {leakage_unit} */"
@@ -251,6 +276,7 @@ def render(
             w.attr("direction", "input")
             if flop is not None and pin.pin == flop.clock:
                 w.attr("clock", "true")
+            w.note(pin_name(cell.cell.name, pin.pin, "capacitance"))
             w.attr("capacitance", _fmt(pin.capacitance / config.cap_scale))
             w.attr("rise_capacitance", _fmt(pin.rise / config.cap_scale))
             w.attr("fall_capacitance", _fmt(pin.fall / config.cap_scale))
@@ -264,6 +290,11 @@ def render(
                 w.attr("related_pin", f'"{c.related}"')
                 w.attr("timing_type", c.timing_type)
                 for table in c.tables:
+                    w.note(
+                        table_name(
+                            cell.cell.name, c.related, c.pin, "", table.quantity, c.timing_type
+                        )
+                    )
                     write_table(
                         w, config, table, names[tuple((a.name, a.values) for a in table.axes)]
                     )
@@ -283,10 +314,15 @@ def render(
             energies = cell_power.arcs if cell_power is not None else ()
             for arc in (a for a in energies if a.arc.output == out.pin):
                 related, other = arc.arc.related, arc.arc.other
-                _internal_power(w, config, energy_names, arc.default, related, other=other)
+                owner = (cell.cell.name, out.pin)
+                _internal_power(
+                    w, config, energy_names, arc.default, related, other=other, owner=owner
+                )
                 if len(arc.states) > 1:
                     for state, tables in arc.states:
-                        _internal_power(w, config, energy_names, tables, related, state.when, other)
+                        _internal_power(
+                            w, config, energy_names, tables, related, state.when, other, owner
+                        )
             w.close()
         w.close()
     w.close()

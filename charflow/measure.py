@@ -8,9 +8,41 @@ than once, or has not settled by the end is a MeasurementError, never a number.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+
 import numpy as np
 
 from .errors import MeasurementError
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Waveform:
+    """The simulated vectors of a run that gave no measurement, kept for inspection."""
+
+    time: np.ndarray  # s
+    nodes: tuple[tuple[str, np.ndarray], ...]  # (name, V), e.g. the pin a node belongs to
+
+
+def waveform(vectors: Mapping[str, np.ndarray], nodes: Mapping[str, str]) -> Waveform:
+    """The run's time and the voltage of each ``nodes`` entry (name → simulator vector)."""
+    return Waveform(vectors["time"], tuple((name, vectors[node]) for name, node in nodes.items()))
+
+
+class KeepWaveform:
+    """A context (reusable) from which a MeasurementError leaves with ``capture()`` as its
+    waveform, unless it already carries one: the innermost run that failed is the one to see."""
+
+    def __init__(self, capture: Callable[[], Waveform | None]) -> None:
+        self.capture = capture
+
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, kind: object, exc: BaseException | None, tb: object) -> bool:
+        if isinstance(exc, MeasurementError) and exc.waveform is None:
+            exc.waveform = self.capture()
+        return False
 
 
 def crossings(t: np.ndarray, v: np.ndarray, level: float, direction: int = 0) -> np.ndarray:

@@ -25,7 +25,7 @@ import numpy as np
 from . import logic, stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import MeasurementError, TableError
-from .measure import integral, single_crossing, supply_energy
+from .measure import KeepWaveform, integral, single_crossing, supply_energy, waveform
 from .netlist import Deck, build_deck
 from .simulate import Request
 from .sweep import EDGES, Arc, Plan, State
@@ -179,6 +179,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     tail = TOGGLE_TAIL * ramp.duration
     runs = 0
     seconds = 0.0
+    saved = KeepWaveform(lambda: waveform(result.vectors, {**outputs, point.related: in_node}))
     for extension in range(TOGGLE_EXTENSIONS + 1):
         stop = ramp.end + tail
         request = Request(
@@ -191,20 +192,21 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
-        for pin, node in outputs.items():
-            v = result.vectors[node]
-            if abs(v[-1] - v[0]) > LOGIC_MARGIN * vdd:
-                raise MeasurementError(
-                    f"output {pin} moves from {v[0]:.4g} V to {v[-1]:.4g} V: "
-                    f"not a toggle that leaves the outputs alone"
-                )
-        t_in = single_crossing(
-            t,
-            result.vectors[in_node],
-            thr.delay_input(point.input_edge) * vdd,
-            point.input_edge,
-            f"input {point.related}",
-        )
+        with saved:
+            for pin, node in outputs.items():
+                v = result.vectors[node]
+                if abs(v[-1] - v[0]) > LOGIC_MARGIN * vdd:
+                    raise MeasurementError(
+                        f"output {pin} moves from {v[0]:.4g} V to {v[-1]:.4g} V: "
+                        f"not a toggle that leaves the outputs alone"
+                    )
+            t_in = single_crossing(
+                t,
+                result.vectors[in_node],
+                thr.delay_input(point.input_edge) * vdd,
+                point.input_edge,
+                f"input {point.related}",
+            )
         current = -result.vectors[supply]
         static = (float(current[0]), after)
         # Per step, the mean of its two samples: what the trapezoid integrates, and free of the
@@ -219,7 +221,8 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
             raise MeasurementError(
                 f"supply current has not settled {tail:.4g} s after the input ramp: "
                 f"{excess[-1]:.4g} A above its static value at the end, "
-                f"{excess.max():.4g} A at most"
+                f"{excess.max():.4g} A at most",
+                waveform=saved.capture(),
             )
         tail *= 2.0
     energy = supply_energy(t, current, vdd, t_in, static, settled)

@@ -17,7 +17,7 @@ import numpy as np
 from . import stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError
-from .measure import check_settled, integral, single_crossing, step_at
+from .measure import KeepWaveform, check_settled, integral, single_crossing, step_at, waveform
 from .netlist import Deck
 from .simulate import Request
 from .stimulus import Ramp
@@ -162,33 +162,38 @@ def run_event(
     runs, seconds = 0, 0.0
     backend = backend_for(config)
     what = f"output {output}"
+    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
+    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
+    saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
         request = Request(
             deck,
             alters(deck, cell, waves, loads, grid),
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            (out_node, *(f"{deck.input_source(p)}#branch" for p in windows)),
+            (*nodes.values(), *(f"{deck.input_source(p)}#branch" for p in windows)),
             stop_when=f"time > {arm:.6g} when {level}" if before != after else None,
         )
         result, attempts = simulate(backend, request)
         runs, seconds = runs + attempts, seconds + result.seconds
         t, v = result.vectors["time"], result.vectors[out_node]
         held = v[t <= event.start]
-        if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
-            raise MeasurementError(
-                f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the flop "
-                "was not initialised"
+        with saved:
+            if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
+                raise MeasurementError(
+                    f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
+                    "flop was not initialised"
+                )
+            # Overshooting the rail as it arrives is settled; stopping short of it is not.
+            after_level = vdd if after else 0.0
+            check_settled(v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what)
+            if before == after:
+                return Outcome(np.nan, np.nan, np.nan), runs, seconds
+            # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
+            t_ev = event.time_at(thr.delay_input(event.edge))
+            t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
+            band = sorted(
+                _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
             )
-        # Overshooting the rail as it arrives is settled; stopping short of it is not.
-        check_settled(v, vdd if after else 0.0, tol * (1 + 1e-6), "rise" if after else "fall", what)
-        if before == after:
-            return Outcome(np.nan, np.nan, np.nan), runs, seconds
-        # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
-        t_ev = event.time_at(thr.delay_input(event.edge))
-        t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
-        band = sorted(
-            _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
-        )
         raw = band[1] - band[0]
         wanted = raw / sim.samples_per_edge
         coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
@@ -312,12 +317,14 @@ class _Trials:
         self.config, self.deck = config, deck
         self.runs, self.seconds = 0, 0.0
         self.reference: float | None = None
+        self.failed = None  # the waveform of the last trial that gave no measurement
 
     def __call__(self, waves, loads, **kw) -> Outcome | None:
         try:
             outcome, runs, seconds = run_event(self.config, self.deck, waves, loads, **kw)
-        except MeasurementError:
+        except MeasurementError as exc:
             self.runs += 1
+            self.failed = exc.waveform
             return None
         self.runs, self.seconds = self.runs + runs, self.seconds + seconds
         return outcome
@@ -335,7 +342,9 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
     clock-to-data-change offset that keeps the captured value (either may be negative)."""
     passes, lo, hi, trials = _constraint_setup(config, deck, point)
-    value, _ = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
+    # A search that fails on its relaxed trial is saved with that trial's run.
+    with KeepWaveform(lambda: trials.failed):
+        value, _ = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
     return SearchResult(point, value, trials.runs, trials.seconds)
 
 
@@ -468,14 +477,15 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
 
         relaxed = bench.half
     # The narrowest pulse the slew allows has no flat top: its width is lead_in + lead_out.
-    value, bound = _search(
-        passes,
-        lead_in + lead_out,
-        relaxed,
-        config.simulation.bisect_tolerance,
-        point.label,
-        floor_ok=True,
-    )
+    with KeepWaveform(lambda: trials.failed):
+        value, bound = _search(
+            passes,
+            lead_in + lead_out,
+            relaxed,
+            config.simulation.bisect_tolerance,
+            point.label,
+            floor_ok=True,
+        )
     return SearchResult(point, value, trials.runs, trials.seconds, bound)
 
 

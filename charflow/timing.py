@@ -26,7 +26,17 @@ from .errors import (
     SimulatorHungError,
     SimulatorTimeoutError,
 )
-from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
+from .measure import (
+    KeepWaveform,
+    Waveform,
+    check_settled,
+    integral,
+    single_crossing,
+    step_at,
+    supply_energy,
+    transition,
+    waveform,
+)
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
@@ -61,6 +71,7 @@ class Measurement:
 class Failure:
     point: TimingPoint
     reason: str
+    waveform: Waveform | None = None  # the run that gave no measurement, when one ran
 
 
 _BACKENDS: dict[str, object] = {}
@@ -210,6 +221,9 @@ def measure_point(
     seconds = 0.0
     backend = backend_for(config)
     what = f"output {point.output}"
+    nodes = {o.pin: node for o, node in zip(cell.outputs, out_nodes, strict=True)}
+    nodes[point.related] = in_node
+    saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refinement in range(REFINEMENTS + 1):
         request = Request(
             deck,
@@ -223,26 +237,32 @@ def measure_point(
         seconds += result.seconds
         t = result.vectors["time"]
         v = result.vectors[out_node]
-        if abs(v[0] - start_level) > LOGIC_MARGIN * vdd:
-            raise MeasurementError(
-                f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs do "
-                f"not hold it where the function says"
+        with saved:
+            if abs(v[0] - start_level) > LOGIC_MARGIN * vdd:
+                raise MeasurementError(
+                    f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs "
+                    f"do not hold it where the function says"
+                )
+            check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what)
+            t_out = single_crossing(
+                t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
             )
-        check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what)
-        t_out = single_crossing(
-            t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
-        )
-        band = thr.slew_band(point.output_edge)
-        raw_transition = transition(t, v, vdd, band, point.output_edge, what)
+            band = thr.slew_band(point.output_edge)
+            raw_transition = transition(t, v, vdd, band, point.output_edge, what)
         # Too few samples on the edge make the interpolated crossings coarse: refine the step.
         wanted = raw_transition / sim.samples_per_edge
         if step_at(t, t_out) <= REFINE_SLACK * wanted or refinement == REFINEMENTS:
             break
         max_step = wanted
     vin = result.vectors[in_node]
-    t_in = single_crossing(
-        t, vin, thr.delay_input(point.input_edge) * vdd, point.input_edge, f"input {point.related}"
-    )
+    with saved:
+        t_in = single_crossing(
+            t,
+            vin,
+            thr.delay_input(point.input_edge) * vdd,
+            point.input_edge,
+            f"input {point.related}",
+        )
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     current = -result.vectors[supply]
@@ -295,7 +315,8 @@ def measure_chunk(
         except SimulatorHungError:
             raise
         except (MeasurementError, SimulatorError) as exc:
-            outcome = Failure(point, exc.reason)
+            wave = exc.waveform if isinstance(exc, MeasurementError) else None
+            outcome = Failure(point, exc.reason, wave)
         if done is not None:
             done(outcome)
         out.append(outcome)
