@@ -8,6 +8,9 @@ holding a lock on a different file of the same name).
 
 The file records its holder (process, host, command line, start time) so that a refused
 run can say who holds the folder. Use ``FolderLock`` as a context manager.
+
+Worker and simulator processes do not hold it: Python opens the file non-inheritable
+(PEP 446) and joblib's workers start through exec with only their own descriptors.
 """
 
 from __future__ import annotations
@@ -79,7 +82,7 @@ class FolderLock:
         except BlockingIOError:
             os.close(fd)
             holder = read_holder(self.folder)
-            who = holder.describe() if holder else "another charflow run that is just starting"
+            who = holder.describe() if holder else "another charflow run, starting or ending"
             raise OutputError(
                 f"the output folder is in use by {who}; wait for it to end or use another "
                 "output folder (nothing was written)",

@@ -32,7 +32,7 @@ from pathlib import Path
 
 import pytest
 
-from charflow import cli, config, flow, netlist
+from charflow import cli, config, flow, netlist, sweep
 from charflow.errors import OutputError, StoreError
 from charflow.lock import LOCK_NAME, FolderLock, read_holder
 from charflow.store import FILE_NAME, Store, keyring
@@ -178,6 +178,17 @@ def test_two_runs_at_once_on_one_folder(tmp_path: Path) -> None:
     assert a.returncode == EXIT_OK, stderr
     assert "90 points measured, 0 failed" in stdout and "114 reused from the store" in stdout
     assert _integrity(out / FILE_NAME) == "ok"
+
+
+def test_worker_processes_do_not_keep_the_folder(tmp_path: Path) -> None:
+    # joblib keeps its worker processes for the next sweep: they must not hold the lock.
+    with FolderLock(tmp_path), Store(tmp_path / FILE_NAME) as store:
+        result = flow.characterize(config.load(SMALL), jobs=2, store=store)
+    assert not result.failures
+    assert len(sweep.chunks(list(result.plan.points))) > 1  # so the sweep used the workers
+    child = _hold_in_child(tmp_path)  # returns only once it holds the folder
+    child.kill()
+    child.wait(timeout=10)
 
 
 def test_a_killed_holder_does_not_block(tmp_path: Path) -> None:
