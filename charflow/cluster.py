@@ -8,13 +8,18 @@ worker process take turns; start workers with one thread each (see README, "Scal
 
 from __future__ import annotations
 
+import logging
+import os
 import threading
 from collections.abc import Iterator, Mapping, Sequence
 
 from .config import LibraryConfig
-from .errors import CharflowError, ClusterError
+from .errors import CharflowError, ClusterError, SimulatorHungError
 from .netlist import Deck
 from .sweep import TimingPoint
+from .workers import EXIT_HUNG, run_alone
+
+log = logging.getLogger("charflow")
 
 CONNECT_TIMEOUT = 30.0  # s to reach the scheduler
 
@@ -26,7 +31,12 @@ def _measure(config: LibraryConfig, deck: Deck, points: tuple[TimingPoint, ...])
     from .timing import measure_chunk
 
     with _SIMULATOR:
-        return measure_chunk(config, deck, points)
+        try:
+            return measure_chunk(config, deck, points)
+        except SimulatorHungError:
+            # As a local worker does (``workers``): the nanny starts a fresh process and the
+            # scheduler sends the task elsewhere.
+            os._exit(EXIT_HUNG)
 
 
 def map_chunks(
@@ -39,6 +49,7 @@ def map_chunks(
     try:
         from distributed import Client, as_completed
         from distributed.comm import resolve_address
+        from distributed.scheduler import KilledWorker
     except ImportError as exc:
         raise ClusterError(
             "the Dask backend needs dask.distributed: pip install 'charflow[cluster]'"
@@ -59,12 +70,24 @@ def map_chunks(
         for i, t in enumerate(tasks):
             future = client.submit(_measure, config, decks[t[0].cell], t, pure=False, priority=-i)
             cells[future] = t[0].cell
+        chunks = dict(zip(cells, tasks, strict=True))
         for future in as_completed(list(cells), loop=client.loop):
             try:
                 yield future.result()
             except CharflowError:
                 raise
-            except Exception as exc:  # a worker that died, or a task that could not run
+            except KilledWorker as exc:
+                # The scheduler already retried the chunk on fresh workers: its points run
+                # alone here, through ngspice -b, where a crash costs one run.
+                log.warning(
+                    "the cluster gave up on a chunk of %s whose workers kept dying (%s); "
+                    "running its %d points alone here through ngspice -b",
+                    cells[future],
+                    exc,
+                    len(chunks[future]),
+                )
+                yield run_alone(config, decks, chunks[future])
+            except Exception as exc:  # a task that could not run at all
                 raise ClusterError(
                     f"a task on the cluster failed ({exc}); the scheduler and every worker need "
                     "the same charflow, ngspice and model files as this machine",

@@ -46,6 +46,15 @@ class DeckReadError(SimulatorError):
     """The simulator cannot read a testbench (its models or cell): no option can help."""
 
 
+class SimulatorTimeoutError(SimulatorError):
+    """A run took longer than the timeout and was stopped."""
+
+
+class SimulatorHungError(SimulatorError):
+    """The in-process simulator ran past its timeout and did not stop when told to: the process
+    that holds it cannot simulate again."""
+
+
 class MeasurementError(CharflowError):
     """A waveform does not give a measurement: no crossing, a glitch, or not settled."""
 

@@ -12,15 +12,17 @@ import logging
 import os
 import re
 import shutil
+import signal
 import subprocess
 import tempfile
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from .errors import DeckReadError, SimulatorError
+from .errors import DeckReadError, SimulatorError, SimulatorHungError, SimulatorTimeoutError
 from .netlist import Deck, model_files
 
 # Fallback ladder for runs that do not converge: each rung adds options to the previous one.
@@ -41,6 +43,9 @@ RELEASE_EVERY = 200  # runs between clearing ngspice's command history (it grows
 # worker that goes back to a cell does not read the models again: with a foundry's model
 # file that read can take seconds.
 MAX_CIRCUITS = 16
+# s a halted run may take to stop: ngspice checks for a halt between time steps, so only a
+# simulator stuck inside one step (in a model's code, say) takes longer.
+HALT_GRACE = 5.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -61,20 +66,43 @@ class Result:
     seconds: float  # wall time of the analysis
 
 
+def _simulator_class() -> type:
+    """PySpice's simulator, told when a run in ngspice's background thread ends."""
+    from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
+
+    class Simulator(NgSpiceShared):
+        done = threading.Event()
+
+        @staticmethod
+        def _background_thread_running(stopped, ngspice_id, user_data):
+            # ngspice calls this from its background thread, with True as that thread ends.
+            if stopped:
+                ffi.from_handle(user_data).done.set()
+            return 0
+
+    return Simulator
+
+
 class SharedBackend:
-    """libngspice in this process; one instance per worker (PySpice allows one per process)."""
+    """libngspice in this process; one instance per worker (PySpice allows one per process).
+
+    Analyses run in ngspice's background thread while this one waits with the timeout: a run
+    past it is halted and raises SimulatorTimeoutError; one that does not halt leaves the
+    simulator unusable (SimulatorHungError), and only ending the process frees it.
+    """
 
     name = "shared"
 
-    def __init__(self) -> None:
+    def __init__(self, timeout: float = 60.0) -> None:
         # PySpice logs every simulator message at error level; charflow reports them itself.
         logging.getLogger("PySpice").setLevel(logging.CRITICAL)
         try:
-            from PySpice.Spice.NgSpice.Shared import NgSpiceShared
+            simulator = _simulator_class()
         except ImportError as exc:  # pragma: no cover - PySpice is a dependency
             raise SimulatorError("PySpice is not installed") from exc
+        self.timeout = timeout
         try:
-            self._ng = NgSpiceShared.new_instance()
+            self._ng = simulator.new_instance()
         except OSError as exc:
             raise SimulatorError(
                 f"cannot load the ngspice shared library ({exc}); install libngspice0 "
@@ -90,6 +118,7 @@ class SharedBackend:
         self._loaded: str | None = None
         self._version: str | None = None
         self._broken = ""  # ngspice's messages once it has given up on reading a deck
+        self._hung = ""  # the run that did not stop when halted
 
     def version(self) -> str:
         """The shared library's version and build date, as ngspice reports them."""
@@ -109,6 +138,11 @@ class SharedBackend:
 
     def load(self, deck: Deck) -> None:
         """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
+        if self._hung:
+            raise SimulatorHungError(
+                f"the simulator of this process is stuck in an earlier run ({self._hung})",
+                cell=deck.cell,
+            )
         if self._broken:
             raise DeckReadError(
                 "the simulator cannot run any deck after an earlier one it could not read "
@@ -170,9 +204,33 @@ class SharedBackend:
             return 0  # ngspice refuses the command when it holds no circuit
         return len(re.findall(r"^(?:current\s+)?\d+\s", listing, flags=re.M | re.I))
 
-    def run(self, request: Request) -> Result:
-        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+    def _analyse(self, analysis: str, cell: str) -> str | None:
+        """Run ``analysis`` in ngspice's background thread, waiting at most the timeout; return
+        the messages of a run that reported errors, None for a clean one."""
+        ng = self._ng
+        ng.done.clear()
+        ng.clear_output()
+        if ng._ngspice_shared.ngSpice_Command(f"bg_{analysis}".encode()):
+            raise SimulatorError(f"ngspice refused '{analysis}'", cell=cell)
+        if not ng.done.wait(self.timeout):
+            ng._ngspice_shared.ngSpice_Command(b"bg_halt")
+            if not ng.done.wait(HALT_GRACE):
+                self._hung = f"'{analysis}', still running {self.timeout + HALT_GRACE:g} s on"
+                raise SimulatorHungError(
+                    f"'{analysis}' ran past the {self.timeout:g} s timeout and did not stop "
+                    f"within {HALT_GRACE:g} s of being halted",
+                    cell=cell,
+                )
+            raise SimulatorTimeoutError(
+                f"'{analysis}' did not finish within the {self.timeout:g} s timeout and was halted",
+                cell=cell,
+            )
+        # PySpice's message callback flags errors (ngspice also calls some notes errors).
+        if ng._error_in_stdout or ng._error_in_stderr:
+            return _messages(ng._stderr)
+        return None
 
+    def run(self, request: Request) -> Result:
         cell = request.deck.cell
         self.load(request.deck)
         for command in request.alters:
@@ -184,11 +242,11 @@ class SharedBackend:
         before = self._ng.last_plot
         start = time.perf_counter()
         try:
-            self._ng.exec_command(request.analysis)
-            failed = None
-        except NgSpiceCommandError:
-            # ngspice flags notes (e.g. gmin stepping) as errors too: judge by the plot made.
-            failed = _messages(self._ng.stderr)
+            # Errors are judged by the plot made: ngspice flags notes (gmin stepping) as errors.
+            failed = self._analyse(request.analysis, cell)
+        except SimulatorTimeoutError:
+            self._after(request)  # the halted run's options and partial plot go
+            raise
         seconds = time.perf_counter() - start
         plot = self._ng.last_plot
         try:
@@ -198,14 +256,7 @@ class SharedBackend:
                 )
             vectors = self._vectors(plot, request.vectors, cell)
         finally:
-            if request.options:
-                self._reset_options(request.options, cell)
-            if request.stop_when:
-                self._ng.exec_command("delete all")
-            self._ng.exec_command("destroy all")
-            self._runs += 1
-            if self._runs % RELEASE_EVERY == 0:
-                self._release()
+            self._after(request)
         # A stop condition that was met interrupts the run on purpose.
         if failed and "condition met" not in failed and request.analysis.startswith("tran"):
             stop = float(request.analysis.split()[2])
@@ -215,6 +266,17 @@ class SharedBackend:
                     cell=cell,
                 )
         return Result(vectors, seconds)
+
+    def _after(self, request: Request) -> None:
+        """Undo what a run set up, so the next run starts from the deck as loaded."""
+        if request.options:
+            self._reset_options(request.options, request.deck.cell)
+        if request.stop_when:
+            self._ng.exec_command("delete all")
+        self._ng.exec_command("destroy all")
+        self._runs += 1
+        if self._runs % RELEASE_EVERY == 0:
+            self._release()
 
     def _release(self) -> None:
         from PySpice.Spice.NgSpice.Shared import FFI
@@ -254,7 +316,7 @@ class SubprocessBackend:
             raise SimulatorError(
                 "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
             )
-        self._timeout = timeout
+        self.timeout = timeout
         self._version: str | None = None
 
     def version(self) -> str:
@@ -262,7 +324,7 @@ class SubprocessBackend:
         if self._version is None:
             try:
                 proc = subprocess.run(
-                    [self._exe, "-v"], capture_output=True, text=True, timeout=self._timeout
+                    [self._exe, "-v"], capture_output=True, text=True, timeout=self.timeout
                 )
             except (OSError, subprocess.TimeoutExpired) as exc:
                 raise SimulatorError(f"cannot ask ngspice for its version: {exc}") from exc
@@ -304,15 +366,22 @@ class SubprocessBackend:
                     [self._exe, "-b", str(deck_path)],
                     capture_output=True,
                     text=True,
-                    timeout=self._timeout,
+                    timeout=self.timeout,
                     cwd=tmp,
                     env={**os.environ, "LC_ALL": "C"},
                 )
             except subprocess.TimeoutExpired as exc:
-                raise SimulatorError(
-                    f"ngspice did not finish within {self._timeout:g} s and was killed", cell=cell
+                raise SimulatorTimeoutError(
+                    f"ngspice did not finish within the {self.timeout:g} s timeout and was killed",
+                    cell=cell,
                 ) from exc
             seconds = time.perf_counter() - start
+            if proc.returncode < 0:
+                raise SimulatorError(
+                    f"ngspice crashed ({signal.Signals(-proc.returncode).name}): "
+                    f"{_messages((proc.stdout + proc.stderr).splitlines())}",
+                    cell=cell,
+                )
             if not out.is_file():
                 raise SimulatorError(
                     f"ngspice wrote no results (exit {proc.returncode}): "
@@ -348,7 +417,12 @@ def _version_of(text: str) -> str:
 def _messages(lines: list[str] | str) -> str:
     if isinstance(lines, str):
         lines = lines.splitlines()
-    keep = [ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")]
+    # Once each, in order: ngspice repeats a warning at every failed time step.
+    keep = list(
+        dict.fromkeys(
+            ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")
+        )
+    )
     interesting = [
         ln
         for ln in keep
@@ -365,7 +439,8 @@ def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend
         # One per process: PySpice hands every caller the same simulator, whose loaded
         # circuits this backend keeps track of.
         if not _SHARED:
-            _SHARED.append(SharedBackend())
+            _SHARED.append(SharedBackend(timeout))
+        _SHARED[0].timeout = timeout
         return _SHARED[0]
     if name == "subprocess":
         return SubprocessBackend(timeout=timeout)

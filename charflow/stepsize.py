@@ -27,7 +27,7 @@ from typing import TYPE_CHECKING
 
 from . import stimulus
 from .config import LibraryConfig
-from .errors import MeasurementError, SimulatorError
+from .errors import MeasurementError, SimulatorError, SimulatorHungError
 from .netlist import Deck
 from .sweep import TimingPoint
 
@@ -127,6 +127,8 @@ def _calibrate(
         coarse = t0 / PROBE_SAMPLES
         t_load = probe(s0, c1, coarse) if c1 > c0 else t0
         t_slew = probe(s1, c0, coarse) if s1 > s0 else t0
+    except SimulatorHungError:
+        raise
     except (MeasurementError, SimulatorError):
         # The points themselves will report what is wrong; their first step stays plain.
         return None, {}

@@ -354,8 +354,6 @@ def run(
     as it arrives. With a Dask ``scheduler`` address the points run on that cluster, otherwise
     on ``jobs`` local worker processes.
     """
-    from joblib import Parallel, delayed
-
     from .timing import Failure, measure_chunk
 
     points = list(points)
@@ -381,14 +379,15 @@ def run(
         from .cluster import map_chunks
 
         results: Iterable[list] = map_chunks(scheduler, config, decks, tasks)
-    elif jobs == 1 or len(tasks) <= 1:
+    elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
+        # Each run is its own ngspice process already: a crash cannot take this one down.
         results = (measure_chunk(config, decks[t[0].cell], t) for t in tasks)
     else:
+        from .workers import run_chunks
+
         # Worker processes, not this one, run the simulator: a crash of the shared library
-        # then costs a worker's chunk, not the run.
-        results = Parallel(n_jobs=min(jobs, len(tasks)), return_as="generator_unordered")(
-            delayed(measure_chunk)(config, decks[t[0].cell], t) for t in tasks
-        )
+        # then costs only the points in flight, which are re-run alone.
+        results = run_chunks(config, decks, tasks, jobs)
     for batch in results:
         for outcome in batch:
             if ring is not None and not isinstance(outcome, Failure):

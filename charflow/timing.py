@@ -11,13 +11,21 @@ re-running one arc reproduces its stored values.
 from __future__ import annotations
 
 import itertools
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
 
 from . import stepsize, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import DeckReadError, FunctionalMismatchError, MeasurementError, SimulatorError
+from .errors import (
+    DeckReadError,
+    FunctionalMismatchError,
+    MeasurementError,
+    SimulatorError,
+    SimulatorHungError,
+    SimulatorTimeoutError,
+)
 from .measure import check_settled, integral, single_crossing, step_at, supply_energy, transition
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
@@ -64,7 +72,9 @@ def backend_for(config: LibraryConfig):
     key = f"{sim.backend}:{sim.timeout}"
     if key not in _BACKENDS:
         _BACKENDS[key] = make_backend(sim.backend, sim.timeout)
-    return _BACKENDS[key]
+    backend = _BACKENDS[key]
+    backend.timeout = sim.timeout  # the shared simulator serves every config of the process
+    return backend
 
 
 # Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters).
@@ -107,19 +117,28 @@ def point_loads(cell: CellSpec, point: TimingPoint) -> dict[str, float]:
 
 
 def simulate(backend, request: Request) -> tuple[Result, int]:
-    """Run with the fallback ladder; return the result and the number of attempts."""
+    """Run with the fallback ladder; return the result and the number of attempts. A run that
+    timed out is retried once, on the next rung: each try can cost the whole timeout."""
     errors = {}
+    timed_out = False
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
             return backend.run(replace(request, options=request.options + options)), attempt
-        except DeckReadError:
+        except (DeckReadError, SimulatorHungError):
             raise
         except SimulatorError as exc:
             errors[" ".join(options) or "default options"] = exc.reason
+            if isinstance(exc, SimulatorTimeoutError):
+                if timed_out:
+                    break
+                timed_out = True
     if len(set(errors.values())) == 1:  # the same message each time: say it once
-        reason = f"failed with every fallback ({len(errors)} tries): {next(iter(errors.values()))}"
+        tried = "; ".join(errors)
+        reason = (
+            f"failed with {len(errors)} sets of options ({tried}): {next(iter(errors.values()))}"
+        )
     else:
-        reason = "failed with every fallback: " + " | ".join(
+        reason = f"failed with {len(errors)} sets of options: " + " | ".join(
             f"[{k}] {v}" for k, v in errors.items()
         )
     raise SimulatorError(reason, cell=request.deck.cell)
@@ -251,8 +270,12 @@ def measure_point(
     )
 
 
-def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
-    """Measure points of one cell; a point that fails becomes a Failure, the rest go on."""
+def measure_chunk(
+    config: LibraryConfig, deck: Deck, points, done: Callable[[object], None] | None = None
+) -> list:
+    """Measure points of one cell; a point that fails becomes a Failure, the rest go on.
+    ``done`` gets each outcome as it is made. A simulator that hangs ends the chunk
+    (SimulatorHungError): this process cannot simulate again."""
     from . import power, sequential
     from .sweep import ConstraintPoint, PulsePoint
 
@@ -260,17 +283,22 @@ def measure_chunk(config: LibraryConfig, deck: Deck, points) -> list:
     for point in points:
         try:
             if isinstance(point, power.TogglePoint):
-                out.append(power.measure_toggle(config, deck, point))
+                outcome = power.measure_toggle(config, deck, point)
             elif isinstance(point, ConstraintPoint):
-                out.append(sequential.measure_constraint(config, deck, point))
+                outcome = sequential.measure_constraint(config, deck, point)
             elif isinstance(point, PulsePoint):
-                out.append(sequential.measure_pulse(config, deck, point))
+                outcome = sequential.measure_pulse(config, deck, point)
             elif point.kind != "combinational":
-                out.append(sequential.measure_clocked(config, deck, point))
+                outcome = sequential.measure_clocked(config, deck, point)
             else:
-                out.append(measure_point(config, deck, point))
+                outcome = measure_point(config, deck, point)
+        except SimulatorHungError:
+            raise
         except (MeasurementError, SimulatorError) as exc:
-            out.append(Failure(point, exc.reason))
+            outcome = Failure(point, exc.reason)
+        if done is not None:
+            done(outcome)
+        out.append(outcome)
     return out
 
 

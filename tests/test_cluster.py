@@ -32,7 +32,7 @@ def cluster():
         processes=False,
         protocol="tcp",
         host="127.0.0.1",
-        dashboard_address=None,
+        dashboard_address=":0",  # any free port: 8787 may be taken
     ) as local:
         yield local
 
@@ -83,3 +83,46 @@ def test_a_malformed_scheduler_address_is_refused_at_once() -> None:
     cfg = config.load(SMALL)
     with pytest.raises(ClusterError, match="not a Dask scheduler address: foo bar"):
         flow.characterize(cfg, cells=["INV_X1"], scheduler="foo bar")
+
+
+def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> None:
+    import logging
+    import os
+    import signal
+
+    import dask
+    from distributed import Client
+
+    from charflow import sweep
+
+    cfg = config.load(SMALL)
+    points = sweep.plan(cfg, ["NAND2_X1", "NOR2_X1"]).points
+    # No retries on the cluster: the first death of a worker gives up on its chunk.
+    with (
+        dask.config.set({"distributed.scheduler.allowed-failures": 0}),
+        LocalCluster(
+            n_workers=1,
+            threads_per_worker=1,
+            processes=True,
+            protocol="tcp",
+            host="127.0.0.1",
+            dashboard_address=":0",  # any free port: 8787 may be taken
+        ) as local,
+        Client(local) as client,
+    ):
+        (pid,) = client.run(os.getpid).values()
+        killed: list[int] = []
+
+        def kill_worker(outcome: object) -> None:
+            if not killed:
+                os.kill(pid, signal.SIGKILL)
+                killed.append(pid)
+
+        with caplog.at_level(logging.WARNING, logger="charflow"):
+            outcomes = list(
+                sweep.run(cfg, points, scheduler=local.scheduler_address, on_result=kill_worker)
+            )
+    assert killed
+    assert any("running its" in r.getMessage() for r in caplog.records)
+    assert sorted(map(repr, (o.point for o in outcomes))) == sorted(map(repr, points))
+    assert not [o for o in outcomes if isinstance(o, flow.Failure)]
