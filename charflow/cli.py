@@ -8,8 +8,10 @@ netlist, function, a library diff cannot read); 3 simulator, store, cluster or o
 from __future__ import annotations
 
 import argparse
+import contextlib
 import logging
 import sys
+from collections.abc import Iterator
 from pathlib import Path
 
 from . import (
@@ -34,6 +36,7 @@ from .errors import (
     NetlistError,
     OutputError,
 )
+from .lock import FolderLock
 from .store import FILE_NAME, Store
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
@@ -272,9 +275,8 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     arc = _arc(getattr(args, "arc", None))
     if arc is not None and (cells is None or len(cells) != 1):
         raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
-    out = _output_folder(cfg, args)
     code = EXIT_OK
-    with Store(out / FILE_NAME) as store:
+    with _output_folder(cfg, args) as out, Store(out / FILE_NAME) as store:
         for lib in cfg.libraries():
             progress = _Progress(args.quiet, lib.name)
             try:
@@ -413,19 +415,17 @@ def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
     return cfg
 
 
-def _output_folder(cfg: config.LibraryConfig, args: argparse.Namespace) -> Path:
+@contextlib.contextmanager
+def _output_folder(cfg: config.LibraryConfig, args: argparse.Namespace) -> Iterator[Path]:
+    """The output folder, made and held (``lock.FolderLock``) for as long as the command runs."""
     out = args.out or RUNS / cfg.name
     # Before the run, not after it: a folder that cannot be made would waste the whole sweep.
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
-    return out
-
-
-def _setup(cfg_path: Path, args: argparse.Namespace) -> tuple[config.LibraryConfig, Path]:
-    cfg = _load(cfg_path, args)
-    return cfg, _output_folder(cfg, args)
+    with FolderLock(out):
+        yield out
 
 
 def _check_fidelity(
@@ -453,8 +453,8 @@ def _check_fidelity(
 
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
-    cfg, out = _setup(args.config, args)
-    with Store(out / FILE_NAME) as store:
+    cfg = _load(args.config, args)
+    with _output_folder(cfg, args) as out, Store(out / FILE_NAME) as store:
         progress = _Progress(args.quiet)
         try:
             result = flow.characterize(
@@ -482,7 +482,12 @@ def _fidelity(args: argparse.Namespace) -> int:
 
 
 def _grid_study(args: argparse.Namespace) -> int:
-    cfg, out = _setup(args.config, args)
+    cfg = _load(args.config, args)
+    with _output_folder(cfg, args) as out:
+        return _study(cfg, out, args)
+
+
+def _study(cfg: config.LibraryConfig, out: Path, args: argparse.Namespace) -> int:
     progress = _Progress(args.quiet)
 
     def phase(total: int) -> None:  # two sweeps: a bar for each

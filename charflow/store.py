@@ -42,6 +42,9 @@ RECORDS: dict[str, type] = {
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
+# Seconds a write waits for another connection's write to the same store to end (SQLite's
+# busy timeout: writers take turns, readers never wait in WAL mode) before it gives up.
+BUSY_TIMEOUT = 30.0
 
 _TABLES = """
 CREATE TABLE IF NOT EXISTS point (
@@ -132,11 +135,11 @@ def _cell_context(config: LibraryConfig, name: str) -> object:
 class Store:
     """The SQLite database of one run folder; use as a context manager."""
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, timeout: float = BUSY_TIMEOUT) -> None:
         self.path = Path(path)
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
-            self._db = sqlite3.connect(self.path, timeout=30.0)
+            self._db = sqlite3.connect(self.path, timeout=timeout)
         except (OSError, sqlite3.Error) as exc:
             raise StoreError(f"cannot open the result store: {exc}", file=self.path) from exc
         try:
@@ -249,7 +252,13 @@ class Store:
             with self._db:
                 self._db.execute(sql, args)
         except sqlite3.Error as exc:
-            raise StoreError(f"cannot write the result store: {exc}", file=self.path) from exc
+            # Each row is its own transaction: a failed one is rolled back whole and every row
+            # before it stays (a full disk gives SQLITE_FULL, "database or disk is full").
+            raise StoreError(
+                f"cannot write the result store: {exc}; the points stored before are kept "
+                "and a re-run resumes from them",
+                file=self.path,
+            ) from exc
 
 
 def _why(point: Point, stored: list, current: tuple[tuple[str, str], ...]) -> Stale:

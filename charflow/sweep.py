@@ -9,6 +9,7 @@ store it simulates only the points the store does not hold.
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import os
 from collections.abc import Callable, Iterable, Iterator
@@ -388,10 +389,13 @@ def run(
         # Worker processes, not this one, run the simulator: a crash of the shared library
         # then costs only the points in flight, which are re-run alone.
         results = run_chunks(config, decks, tasks, jobs)
-    for batch in results:
-        for outcome in batch:
-            if ring is not None and not isinstance(outcome, Failure):
-                store.put(ring, outcome)
-            if on_result is not None:
-                on_result(outcome)
-            yield outcome
+    # Closed as soon as the loop ends early (a store that cannot take a row, an interrupt): the
+    # workers stop and their journals go now, not when the garbage collector gets to them.
+    with contextlib.closing(results):
+        for batch in results:
+            for outcome in batch:
+                if ring is not None and not isinstance(outcome, Failure):
+                    store.put(ring, outcome)
+                if on_result is not None:
+                    on_result(outcome)
+                yield outcome
