@@ -109,16 +109,21 @@ def run_chunks(
                 future = executor.submit(_work, config, decks[task[0].cell], task, path)
                 futures[future] = (task, path)
             lost, death = [], None
-            for future in as_completed(futures):
-                task, path = futures[future]
-                try:
-                    batch = future.result()
-                except BrokenProcessPool as exc:
-                    lost.append((task, path))
-                    death = exc
-                    continue
-                os.unlink(path)
-                yield batch
+            try:
+                for future in as_completed(futures):
+                    task, path = futures[future]
+                    try:
+                        batch = future.result()
+                    except BrokenProcessPool as exc:
+                        lost.append((task, path))
+                        death = exc
+                        continue
+                    os.unlink(path)
+                    yield batch
+            finally:
+                # Closed early (the caller stopped): chunks not yet started are not started.
+                for future in futures:
+                    future.cancel()
             if death is None:
                 return
             pending, in_flight, kept = [], [], 0
