@@ -383,9 +383,15 @@ class SubprocessBackend:
                     cell=cell,
                 )
             if not out.is_file():
-                raise SimulatorError(
-                    f"ngspice wrote no results (exit {proc.returncode}): "
-                    f"{_messages((proc.stdout + proc.stderr).splitlines())}",
+                messages = _messages((proc.stdout + proc.stderr).splitlines())
+                # ngspice ends with a fatal error when it cannot read the deck: options cannot
+                # help, so the fallback ladder is not tried.
+                unreadable = (
+                    "fatal error" in messages.lower() or "error on line" in messages.lower()
+                )
+                raise (DeckReadError if unreadable else SimulatorError)(
+                    f"ngspice wrote no results (exit {proc.returncode}): {messages}",
+                    file=", ".join(map(str, model_files(request.deck.text, Path.cwd()))) or None,
                     cell=cell,
                 )
             table = np.loadtxt(out, skiprows=1, ndmin=2)
