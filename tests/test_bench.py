@@ -97,3 +97,19 @@ def test_plan_option_runs_no_sweep(tmp_path):
     assert done.returncode == 0, done.stderr
     assert "90 simulations" in done.stdout and "the sweep takes about" in done.stdout
     assert not out.exists()
+
+
+def test_plan_of_flip_flops_counts_and_times_their_searches():
+    cfg = config.load(ROOT / "tests" / "data" / "seq_l1.toml")
+    est = estimate.estimate(cfg, ["DFFR_X1"], jobs=2)
+    (cell,) = est.cells
+    groups = {g.kind: g for g in cell.groups}
+    # Slews x loads x other loads = 8 per edge: 2 clock arcs x 2 output edges, 2 clear arcs x
+    # 1; setup and hold x 2 data edges at one slew pair; pulses: CK high, CK low, RN low.
+    assert groups["clock and control arcs"].points == (2 * 2 + 2) * 8
+    assert groups["setup/hold searches"].points == 4
+    assert groups["pulse-width searches"].points == 3
+    # A bisection to 1 ps takes many runs: more than a timing point's one or two.
+    assert groups["setup/hold searches"].simulations > 5
+    assert est.searches == 7 and 0 < est.seconds < math.inf
+    assert "7 searches" in estimate.render(est)
