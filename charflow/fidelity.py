@@ -18,7 +18,7 @@ import json
 import math
 import time
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -30,14 +30,18 @@ from .errors import TableError
 from .flow import write_atomic
 from .store import Store
 from .tables import Axis, Table, interpolate
-from .tabulate import LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
+from .tabulate import LOAD_AXIS, OTHER_LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
 from .timing import Failure, Measurement
 
 CENTRE, RANDOM = "centre", "random"
 # The TimingPoint field each table axis sweeps, and its short name and kind of unit in reports;
 # a third axis adds its entries here.
-POINT_FIELDS = {SLEW_AXIS: "slew", LOAD_AXIS: "load"}
-AXIS_LABELS = {SLEW_AXIS: ("slew", "time"), LOAD_AXIS: ("load", "capacitance")}
+POINT_FIELDS = {SLEW_AXIS: "slew", LOAD_AXIS: "load", OTHER_LOAD_AXIS: "other_load"}
+AXIS_LABELS = {
+    SLEW_AXIS: ("slew", "time"),
+    LOAD_AXIS: ("load", "capacitance"),
+    OTHER_LOAD_AXIS: ("other load", "capacitance"),
+}
 PERCENTILE = 95.0
 
 
@@ -188,18 +192,36 @@ def output_edge(quantity: str) -> str:
     return quantity.removeprefix("cell_").removesuffix("_transition")
 
 
+def templates(config: LibraryConfig, cell: str) -> dict[tuple, sweep.TimingPoint]:
+    """A plan point of every (related pin, output, state, output edge) of ``cell``: what a
+    point off the grid shares with it (side inputs, input edge, kind, a flip-flop's captured
+    data; for a 3D table the other output's load, unless its axis is given)."""
+    out: dict[tuple, sweep.TimingPoint] = {}
+    for p in sweep.plan(config, [cell]).points:
+        if isinstance(p, sweep.TimingPoint):
+            out.setdefault((p.related, p.output, p.state_side, p.output_edge), p)
+    return out
+
+
 def timing_point(
-    cell: str, arc: sweep.Arc, state: sweep.State, quantity: str, axes: Sequence[Axis], coords
+    template: sweep.TimingPoint, axes: Sequence[Axis], coords: Sequence[float]
 ) -> sweep.TimingPoint:
-    """The sweep point that measures ``quantity`` of ``state`` at ``coords`` on ``axes``."""
-    out_edge = output_edge(quantity)
-    edge = next(e for e in sweep.EDGES if state.output_edge(e) == out_edge)
+    """The point of ``template``'s series at ``coords`` on ``axes``."""
     fields = {}
     for axis, value in zip(axes, coords, strict=True):
         if axis.name not in POINT_FIELDS:
-            raise TableError(f"no sweep coordinate for table axis {axis.name!r}", cell=cell)
+            raise TableError(
+                f"no sweep coordinate for table axis {axis.name!r}", cell=template.cell
+            )
         fields[POINT_FIELDS[axis.name]] = float(value)
-    return sweep.TimingPoint(cell, arc.related, arc.output, state.side, edge, out_edge, **fields)
+    return replace(template, **fields)
+
+
+def template_of(
+    points: dict[tuple, sweep.TimingPoint], arc: sweep.Arc, state: sweep.State, quantity: str
+) -> sweep.TimingPoint:
+    side = state.side if arc.kind == "combinational" else ()
+    return points[(arc.related, arc.output, side, output_edge(quantity))]
 
 
 def measured(outcome: Measurement, quantity: str) -> float:
@@ -219,10 +241,11 @@ class _Work:
     points: tuple[tuple[sweep.TimingPoint, ...], ...]
 
 
-def _work(cells: Iterable[CellTables], settings: Fidelity) -> list[_Work]:
+def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity) -> list[_Work]:
     work = []
     for cell in cells:
         name = cell.cell.name
+        series = templates(config, name)
         for arc in cell.arcs:
             # (table, states it is the worst of, when, default)
             targets = [
@@ -240,7 +263,9 @@ def _work(cells: Iterable[CellTables], settings: Fidelity) -> list[_Work]:
                 at = probes(table.axes, settings.random_points, settings.seed)
                 points = tuple(
                     tuple(
-                        timing_point(name, arc.arc, s, table.quantity, table.axes, p.coords)
+                        timing_point(
+                            template_of(series, arc.arc, s, table.quantity), table.axes, p.coords
+                        )
                         for s in states
                     )
                     for p in at
@@ -287,7 +312,7 @@ def check(
     With a ``store``, points it holds are not simulated again (see ``sweep.run``)."""
     start = time.perf_counter()
     settings = config.fidelity
-    work = _work(cells, settings)
+    work = _work(config, cells, settings)
     unique = list(dict.fromkeys(p for w in work for per_probe in w.points for p in per_probe))
     if on_start is not None:
         on_start(len(unique))

@@ -35,7 +35,7 @@ from scipy.optimize import brentq
 from . import __version__, sweep
 from .config import LibraryConfig
 from .errors import ConfigError, MeasurementError
-from .fidelity import axis_unit, measured, timing_point
+from .fidelity import axis_unit, measured, template_of, templates, timing_point
 from .flow import write_atomic
 from .tables import Axis, Table, interpolate
 from .tabulate import LOAD_AXIS, SLEW_AXIS, delay_quantity, transition_quantity
@@ -306,17 +306,20 @@ def table_label(key: tuple[str, str]) -> str:
     return f"when {when}: {quantity}" if when else quantity
 
 
-def _grid_points(cell: str, arc: sweep.Arc, axes: Sequence[Axis]) -> dict:
-    """(key, index tuple) → the sweep point that measures it."""
+def _grid_points(series: dict, arc: sweep.Arc, axes: Sequence[Axis]) -> dict:
+    """(key, index tuple) → the sweep point that measures it; ``series`` as
+    ``fidelity.templates`` gives it."""
     out = {}
     shape = [range(len(a)) for a in axes]
     for state in arc.states:
-        for edge in sweep.EDGES:
-            out_edge = state.output_edge(edge)
+        # In input-edge order; a clear or preset arc moves its output one way only.
+        edges = [state.output_edge(e) for e in sweep.EDGES]
+        for out_edge in (e for e in edges if e in arc.output_edges):
             for quantity in (delay_quantity(out_edge), transition_quantity(out_edge)):
+                template = template_of(series, arc, state, quantity)
                 for index in itertools.product(*shape):
                     coords = [a.values[i] for a, i in zip(axes, index, strict=True)]
-                    point = timing_point(cell, arc, state, quantity, axes, coords)
+                    point = timing_point(template, axes, coords)
                     out[((state.when, quantity), index)] = point
     return out
 
@@ -456,11 +459,13 @@ def study(
                     for (name, _, _), v in zip(span, per_axis, strict=True)
                 )
 
+    series = templates(config, cell_name)
+
     def maps_of(axes: Sequence[Axis]) -> tuple[dict, dict]:
         """The points of a grid and of its cell centres."""
         return (
-            _grid_points(cell_name, the_arc, axes),
-            _grid_points(cell_name, the_arc, centres(axes)),
+            _grid_points(series, the_arc, axes),
+            _grid_points(series, the_arc, centres(axes)),
         )
 
     outcomes: dict = {}
@@ -475,7 +480,7 @@ def study(
             (o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)
         )
 
-    ref_points = _grid_points(cell_name, the_arc, reference)
+    ref_points = _grid_points(series, the_arc, reference)
     point_maps = {key: maps_of(axes) for key, axes in grids.items()}
     simulate([ref_points, *(m for pair in point_maps.values() for m in pair)])
     ref = _surface(reference, ref_points, outcomes)

@@ -63,9 +63,9 @@ def _between(grid: np.ndarray, i: int, fraction: float) -> float:
 
 
 def cell_maxima(check: TableCheck) -> np.ndarray:
-    """Per grid cell of a 2D table, the largest relative error of the probes inside it (NaN
-    where none simulated)."""
-    x, y = (np.asarray(a.values) for a in check.table.axes)
+    """Per grid cell of a table's slew × load plane, the largest relative error of the probes
+    inside it (NaN where none simulated); a 3D table's probes at every other load count."""
+    x, y = (np.asarray(a.values) for a in check.table.axes[:2])
     out = np.full((max(x.size - 1, 1), max(y.size - 1, 1)), np.nan)
     for p in check.points:
         i = min(max(int(np.searchsorted(x, p.coords[0], side="right")) - 1, 0), out.shape[0] - 1)
@@ -77,8 +77,9 @@ def cell_maxima(check: TableCheck) -> np.ndarray:
 def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes:
     """The error of a 2D table over its slew × load plane: each grid cell coloured by the worst
     probe inside it, the probes and the grid points marked. ``vmax`` (a fraction) is shared by
-    every map of a report so that colours compare across tables."""
-    (xa, ya) = check.table.axes
+    every map of a report so that colours compare across tables. A 3D table is drawn over its
+    first two axes, each cell coloured by its worst probe at any load of the other output."""
+    xa, ya = check.table.axes[:2]
     (xl, xs, xu), (yl, ys, yu) = axis_unit(config, xa.name), axis_unit(config, ya.name)
     x, y = np.asarray(xa.values) / xs, np.asarray(ya.values) / ys
     cells = cell_maxima(check) * 100
@@ -131,6 +132,8 @@ def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes
     ax.set_ylabel(f"{yl} ({yu})")
     st = check.stats
     stats = "no probe simulated" if st is None else f"max {st.max_rel * 100:.3g} %"
+    if check.table.ndim == 3:
+        stats += ", worst over the other output's load"
     ax.set_title(f"{check.label}\n{stats}", fontsize=8.5)
     ax.tick_params(labelsize=7)
     bar = fig.colorbar(mesh, cax=cax)
@@ -207,7 +210,7 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
 def heat_maps(
     config: LibraryConfig, checks: Sequence[TableCheck], vmax: float, jobs: int | None = None
 ) -> list[bytes]:
-    """One map per 2D table; each takes ~0.1 s, so a report of dozens is drawn in parallel."""
+    """One map per table; each takes ~0.1 s, so a report of dozens is drawn in parallel."""
     from joblib import Parallel, delayed
 
     from .sweep import default_jobs
@@ -233,7 +236,7 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
     checks = report.checks
     ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
     rows = "\n".join(_summary_row(config, n, checks[n]) for n in ranked)
-    planar = [n for n, c in enumerate(checks) if c.table.ndim == 2]
+    planar = [n for n, c in enumerate(checks) if c.table.ndim in (2, 3)]
     drawn = heat_maps(config, [checks[n] for n in planar], vmax, jobs)
     maps = dict(zip(planar, drawn, strict=True))
     figures = []

@@ -94,7 +94,9 @@ def run_chunks(
 ) -> Iterator[list]:
     """Outcomes of every chunk on ``jobs`` worker processes, in completion order; every point
     gets one outcome even when workers die (see the module's description)."""
-    from joblib.externals.loky import get_reusable_executor
+    # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the
+    # process (the report's plots) shares the pool rather than finding one it cannot use.
+    from joblib.executor import get_memmapping_executor
 
     pending = list(tasks)
     fruitless = 0
@@ -102,7 +104,7 @@ def run_chunks(
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
-            executor = get_reusable_executor(max_workers=jobs)
+            executor = get_memmapping_executor(jobs)
             futures = {}
             for i, task in enumerate(pending):
                 path = os.path.join(scratch, f"{round_}-{i}.pickle")

@@ -320,3 +320,39 @@ def test_demo_arc_values_equal_an_independent_re_simulation(ngspice) -> None:
             )
             checked += 1
     assert checked == 4 * 7
+
+
+def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> None:
+    """seq_l1: a two-output buffer (3D tables) and a flop with clock and clear arcs (3D too).
+    Probes lie off the grid on all three axes; a clock-arc probe re-simulated here, without
+    the sweep, gives the report's value; every table gets its map."""
+    cfg = dataclasses.replace(
+        config.load(ROOT / "tests" / "data" / "seq_l1.toml"),
+        fidelity=Fidelity(random_points=2, seed=5, rel_floor=1e-12),
+    )
+    result = flow.characterize(cfg, jobs=2)
+    report = fidelity.check(cfg, result.cells, jobs=2)
+    assert not report.failures
+    assert {c.related for c in report.checks} == {"A", "CK", "RN"}
+    for c in report.checks:
+        assert c.table.ndim == 3 and c.stats is not None
+        for p in c.points:
+            for axis, x in zip(c.table.axes, p.coords, strict=True):
+                assert axis.values[0] < x < axis.values[-1]
+    check = next(c for c in report.checks if c.related == "CK")
+    probe = check.points[0]
+    series = fidelity.templates(cfg, check.cell)
+    arc = next(a.arc for a in result.cells[1].arcs if (a.arc.related, a.arc.output) == ("CK", "Q"))
+    template = fidelity.template_of(series, arc, arc.states[0], check.table.quantity)
+    point = fidelity.timing_point(template, check.table.axes, probe.coords)
+    assert point.kind == "clock" and point.other_load == probe.coords[2]
+    deck = netlist.build_deck(cfg, cfg.cell(check.cell))
+    (again,) = timing.measure_chunk(cfg, deck, (point,))
+    assert fidelity.measured(again, check.table.quantity) == pytest.approx(
+        probe.simulated, rel=SIM_RTOL, abs=0
+    )
+    # Maps drawn in parallel after the sweep's worker pool: the two share joblib's pool.
+    paths = fidelity.write(cfg, report, tmp_path, jobs=2)
+    page = paths[1].read_text(encoding="utf-8")
+    images = re.findall(r'<img alt="[^"]*" src="data:image/png;base64,([^"]+)">', page)
+    assert len(images) == len(report.checks)

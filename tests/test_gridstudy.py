@@ -274,3 +274,13 @@ def test_an_unknown_arc_is_named(ngspice) -> None:
     cfg = config.load(SMALL_L1)
     with pytest.raises(ConfigError, match="no arc 'B:Y'.*A1:Y, A2:Y"):
         gridstudy.study(cfg, "NAND2_X1", "B:Y", sizes=(3,), reference_points=5)
+
+
+def test_a_clock_arc_is_studied_with_its_flip_flop_experiment(ngspice) -> None:
+    cfg = dataclasses.replace(
+        config.load(ROOT / "tests" / "data" / "seq_l1.toml"), fidelity=Fidelity(rel_floor=1e-12)
+    )
+    study = gridstudy.study(cfg, "DFFR_X1", "CK:Q", sizes=(2, 3), reference_points=4, jobs=2)
+    assert (study.related, study.output) == ("CK", "Q")
+    assert study.candidates and all(c.failures == 0 for c in study.candidates)
+    assert all(c.max_rel is not None and c.max_rel < 1 for c in study.candidates)
