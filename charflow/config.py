@@ -601,9 +601,10 @@ def _cell(
     if (template is None) == (netlist is None):
         r.problem(key, "give exactly one of 'template' (Jinja2) or 'netlist' (plain SPICE)", name)
     else:
-        which = "template" if template is not None else "netlist"
-        source = (base / (template or netlist)).resolve()
-        if not source.is_file():
+        which, given = ("template", template) if template is not None else ("netlist", netlist)
+        if not given.strip():
+            r.problem(f"{key}.{which}", "must be a file path, got an empty string", name)
+        elif not (source := (base / given).resolve()).is_file():
             r.problem(f"{key}.{which}", f"file not found: {source}", name)
     params = r.get(doc, "params", dict, key, {}, name) or {}
     inputs = r.get(doc, "inputs", list, key, None, name) or []

@@ -122,6 +122,18 @@ def render_cell(cell: CellSpec) -> str:
             key="params",
             cell=cell.name,
         ) from exc
+    except jinja2.TemplateError as exc:
+        raise NetlistError(f"template error: {exc}", file=source, cell=cell.name) from exc
+    # The template's own expressions meet the params (say a width given as text): whatever
+    # they raise is a problem of this template with these params.
+    except (TypeError, ValueError, ArithmeticError, LookupError, AttributeError) as exc:
+        params = ", ".join(f"{k} = {v!r}" for k, v in cell.params)
+        raise NetlistError(
+            f"template cannot be rendered with params {{{params}}}: {exc}",
+            file=source,
+            key="params",
+            cell=cell.name,
+        ) from exc
 
 
 def find_subckt(text: str, name: str, *, source: Path | None = None) -> Subckt:

@@ -337,3 +337,30 @@ def test_mutated_configs_that_load_run_or_fail_with_charflow_errors(tmp_path, re
     record_property("configs_run", kinds)
     print(f"mutated configs through run: {kinds}")
     assert sum(kinds.values()) >= 20 and kinds["run"] + kinds["run refused"] >= 1
+
+
+def test_found_by_fuzzing_an_empty_template_path_is_a_config_error(tmp_path):
+    doc = _base()
+    doc["cell"][0]["template"] = ""
+    path = tmp_path / "empty.toml"
+    path.write_text(_document(doc), encoding="utf-8")
+    try:
+        config.load(path)
+    except CharflowError as exc:
+        assert "cell[0].template" in str(exc) and "empty string" in str(exc)
+    else:
+        raise AssertionError("an empty template path was accepted")
+
+
+def test_found_by_fuzzing_a_param_the_template_cannot_use_is_a_netlist_error(tmp_path):
+    doc = _base()
+    doc["cell"][0]["params"]["wn"] = ""  # the template multiplies it by a float
+    path = tmp_path / "text_param.toml"
+    path.write_text(_document(doc), encoding="utf-8")
+    cfg = config.load(path)
+    try:
+        netlist.build_deck(cfg, cfg.cells[0])
+    except CharflowError as exc:
+        assert "cell INV_X1" in str(exc) and "wn = ''" in str(exc)
+    else:
+        raise AssertionError("the template rendered with a text width")
