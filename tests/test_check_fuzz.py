@@ -17,7 +17,7 @@ from pathlib import Path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from charflow import check, config, netlist
+from charflow import check, config, flow, netlist
 from charflow.errors import CharflowError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -227,6 +227,9 @@ def test_mutated_netlists_end_in_charflow_errors(tmp_path, record_property):
         # The whole check, simulation included: its problems are CharflowError lines.
         report = check.check(cfg_path)
         kinds["check problems" if report.problems else "checked clean"] += 1
+        if not report.problems:  # and what checks clean is characterized
+            with contextlib.suppress(CharflowError):
+                flow.characterize(config.load(cfg_path), jobs=1)
 
     one()
     record_property("netlists_tried", len(tried))
@@ -305,8 +308,6 @@ RUN_TIMEOUT = 2.0  # s per simulation
 
 
 def test_mutated_configs_that_load_run_or_fail_with_charflow_errors(tmp_path, record_property):
-    from charflow import flow
-
     path = tmp_path / "fuzz.toml"
     kinds = {"refused at load": 0, "too large to run": 0, "run": 0, "run refused": 0}
 
