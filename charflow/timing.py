@@ -11,6 +11,7 @@ re-running one arc reproduces its stored values.
 from __future__ import annotations
 
 import itertools
+import logging
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
@@ -40,6 +41,8 @@ from .measure import (
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
+
+log = logging.getLogger("charflow")
 
 RAMP_SAMPLES = 20  # samples across the input ramp, before any refinement
 WINDOW_CAP = 100.0  # stop-time cap, in ramp durations (or the grid's largest slew)
@@ -317,6 +320,11 @@ def measure_chunk(
         except (MeasurementError, SimulatorError) as exc:
             wave = exc.waveform if isinstance(exc, MeasurementError) else None
             outcome = Failure(point, exc.reason, wave)
+        except Exception as exc:  # noqa: BLE001 - a charflow bug must not end hours of work
+            log.exception("internal error measuring cell %s, %s", point.cell, point.label)
+            outcome = Failure(
+                point, f"internal error in charflow ({type(exc).__name__}: {exc}); please report it"
+            )
         if done is not None:
             done(outcome)
         out.append(outcome)

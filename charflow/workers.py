@@ -24,7 +24,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 
 from .config import LibraryConfig
-from .errors import SimulatorError, SimulatorHungError
+from .errors import OutputError, SimulatorError, SimulatorHungError
 from .netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -39,18 +39,25 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple, journal: str) -> lis
     """A worker's task: measure ``points``, writing each outcome to ``journal`` at once."""
     from .timing import measure_chunk
 
-    with open(journal, "wb") as fh:
+    try:
+        fh = open(journal, "wb")  # noqa: SIM115 - closed below
+    except OSError:
+        fh = None  # no journal (a full temporary folder): a death then costs the whole chunk
 
-        def done(outcome: object) -> None:
+    def done(outcome: object) -> None:
+        if fh is not None:
             pickle.dump(outcome, fh)
             fh.flush()  # into the kernel: it survives this process, whatever kills it
 
-        try:
-            return measure_chunk(config, deck, points, done)
-        except SimulatorHungError:
-            # The simulator is still running in its thread and cannot be reset: end the
-            # process, so the pool starts a fresh one and the driver re-runs the point alone.
-            os._exit(EXIT_HUNG)
+    try:
+        return measure_chunk(config, deck, points, done)
+    except SimulatorHungError:
+        # The simulator is still running in its thread and cannot be reset: end the process,
+        # so the pool starts a fresh one and the driver re-runs the point alone.
+        os._exit(EXIT_HUNG)
+    finally:
+        if fh is not None:
+            fh.close()
 
 
 def read_journal(path: str) -> list | None:
@@ -100,7 +107,13 @@ def run_chunks(
 
     pending = list(tasks)
     fruitless = 0
-    with tempfile.TemporaryDirectory(prefix="charflow-journal-") as scratch:
+    try:
+        scratch_folder = tempfile.TemporaryDirectory(prefix="charflow-journal-")
+    except OSError as exc:
+        raise OutputError(
+            f"cannot make the workers' journal folder in {tempfile.gettempdir()}: {exc}"
+        ) from exc
+    with scratch_folder as scratch:
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.

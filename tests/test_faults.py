@@ -4,6 +4,7 @@ finished points survive and the message names the point that failed."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import os
@@ -21,7 +22,7 @@ from charflow.errors import SimulatorError, SimulatorTimeoutError
 from charflow.netlist import build_deck
 from charflow.simulate import Request, SharedBackend, SubprocessBackend
 from charflow.store import FILE_NAME, Store
-from charflow.timing import Failure, Measurement, backend_for, measure_point
+from charflow.timing import Failure, Measurement, backend_for, measure_chunk, measure_point
 from charflow.workers import EXIT_HUNG, read_journal
 
 DATA = Path(__file__).parent / "data"
@@ -209,3 +210,17 @@ def test_a_hung_simulator_refuses_every_later_run():
     first, second = done.stdout.splitlines()
     assert first.startswith("cell CRAWL: 'tran 1p 20n' ran past the 0.3 s timeout")
     assert second.startswith("cell RCCELL: the simulator of this process is stuck")
+
+
+def test_a_charflow_bug_at_one_point_is_that_points_failure(caplog):
+    cfg = config.load(FAULTS)
+    deck = build_deck(cfg, cfg.cell("RCCELL"))
+    good = _cell_point(cfg, "RCCELL")
+    # A point no plan makes: its pin is not the cell's, which the measuring code never expects.
+    bad = dataclasses.replace(good, related="NOPE")
+    with caplog.at_level(logging.ERROR, logger="charflow"):
+        first, second = measure_chunk(cfg, deck, (bad, good))
+    assert isinstance(first, Failure) and "internal error in charflow (KeyError" in first.reason
+    assert "please report it" in first.reason
+    assert isinstance(second, Measurement)
+    assert any("internal error measuring cell RCCELL" in r.getMessage() for r in caplog.records)
