@@ -53,6 +53,9 @@ class Measurement:
     # the outputs that switched together (a power tool adds the internal power of every output
     # that toggles, so the event counts once)
     internal_energy: float | None = None
+    # A: the supply's static draw before the event and once it has settled, taken off
+    # supply_energy (a flip-flop's depends on the value it stores)
+    static_current: tuple[float, float] | None = None
     # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
     side_charges: tuple[tuple[str, str, float], ...] = ()
 
@@ -264,6 +267,7 @@ def measure_point(
         input_charge=charge,
         supply_energy=energy,
         internal_energy=(energy - taken) / switched,
+        static_current=static,
         runs=runs,
         sim_seconds=seconds,
         stop=stop,
