@@ -23,7 +23,7 @@ from .config import CellSpec, LibraryConfig
 from .errors import FunctionalMismatchError, MeasurementError
 from .measure import integral, single_crossing
 from .netlist import PARKED_LOAD, Deck
-from .power import LeakageState, PinPower, ToggleMeasurement, TogglePoint, power_quantity
+from .power import SLEW_AXIS, LeakageState, PinPower, ToggleMeasurement, TogglePoint, power_quantity
 from .sequential import WINDOW_STEPS, _Bench
 from .simulate import Request
 from .stimulus import Ramp
@@ -380,7 +380,7 @@ def hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pin
         (m.point.related, m.point.side, m.point.state, m.point.input_edge, m.point.slew): m.energy
         for m in toggles
     }
-    axes = (Axis("input_transition_time", cell.grid.slew),)
+    axes = (Axis(SLEW_AXIS, cell.grid.slew),)
     out = []
     for point in plan_toggles(cell):
         if point.input_edge != EDGES[0] or point.slew != cell.grid.slew[0]:
