@@ -262,7 +262,9 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
         event = stimulus.ramp(point.slew, point.input_edge, config.thresholds, bench.vdd)
-        event = Ramp(event.edge, first.end + bench.half, event.duration, bench.vdd)
+        # A quarter period after the clock's inactive edge has ended: that edge's currents
+        # have died down and stay out of the control's energy window.
+        event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, bench.vdd)
         waves[point.related] = event.pulse()
         windows, moves = {point.related: (event.start, None)}, ()
     outcome, runs, seconds = run_event(
