@@ -268,13 +268,15 @@ def event_energy(
 
 def plan_toggles(cell: CellSpec) -> tuple[TogglePoint, ...]:
     """A flop's hidden events: the clock's two edges with the data equal to each stored value,
-    and every data pin's two edges under either clock level and either stored value."""
+    its inactive edge with the data opposite it (no edge of that kind captures), and every data
+    pin's two edges under either clock level and either stored value."""
     flop = cell.flop
     load = min(cell.grid.load)
+    inactive = EDGES[1] if flop.edge == EDGES[0] else EDGES[0]
     points = []
-    for state in (False, True):
-        side = tuple(sorted(capture_values(cell, state).items(), key=_order(cell)))
-        for edge in EDGES:
+    for state, data in itertools.product((False, True), repeat=2):
+        side = tuple(sorted(capture_values(cell, data).items(), key=_order(cell)))
+        for edge in EDGES if data == state else (inactive,):
             for slew in cell.grid.slew:
                 points.append(
                     TogglePoint(
@@ -306,7 +308,24 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     vdd, thr = bench.vdd, bench.thr
     side = dict(point.side)
     state = stored_value(cell, point)
-    if point.related == flop.clock:
+    inactive = point.input_edge != flop.edge
+    if point.related == flop.clock and inactive and side != capture_values(cell, state):
+        # The data opposite the stored value: it moves there while the clock is still active
+        # after writing the state, then the inactive edge under test.
+        active = flop.edge == "rise"
+        waves, ready = _hold_waves(bench, state, {**side, flop.clock: active})
+        back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+        event = Ramp(back.edge, ready + bench.half, back.duration, vdd)
+        first = stimulus.ramp(min(cell.grid.slew), flop.edge, thr, vdd)
+        waves[flop.clock] = stimulus.pulse_vector(
+            *first.levels,
+            bench.lead,
+            first.duration,
+            event.duration,
+            event.start - bench.lead - first.duration,
+            2.0,
+        )
+    elif point.related == flop.clock:
         clock, second = bench.clock(point.slew, edges=2)
         waves = {p: stimulus.constant(_level(config, v)) for p, v in side.items()}
         waves[flop.clock] = clock
@@ -382,15 +401,13 @@ def hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pin
     }
     axes = (Axis(SLEW_AXIS, cell.grid.slew),)
     out = []
-    for point in plan_toggles(cell):
-        if point.input_edge != EDGES[0] or point.slew != cell.grid.slew[0]:
-            continue
-        key = (point.related, point.side, point.state)
+    for key in dict.fromkeys((p.related, p.side, p.state) for p in plan_toggles(cell)):
         tables = []
         for edge in EDGES:
             row = [energy.get((*key, edge, s)) for s in cell.grid.slew]
             if all(e is not None for e in row):
                 tables.append(Table(axes, row, power_quantity(edge), "J"))
         if tables:
-            out.append(PinPower(point.related, point.when, tuple(tables)))
+            when = logic.when_condition((*key[1], *key[2]))
+            out.append(PinPower(key[0], when, tuple(tables)))
     return tuple(out)
