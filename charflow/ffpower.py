@@ -20,7 +20,7 @@ import numpy as np
 
 from . import logic, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import FunctionalMismatchError, MeasurementError
+from .errors import MeasurementError
 from .measure import integral, single_crossing
 from .netlist import PARKED_LOAD, Deck
 from .power import SLEW_AXIS, LeakageState, PinPower, ToggleMeasurement, TogglePoint, power_quantity
@@ -57,6 +57,7 @@ def state_term(cell: CellSpec, state: bool) -> tuple[tuple[str, bool], ...]:
 
 
 def stored_value(cell: CellSpec, point: TogglePoint) -> bool:
+    """The value a flop's toggle point stores, read back from its ``state_term``."""
     ((pin, level),) = point.state
     return level == stored_output(cell, pin, True)
 
@@ -79,8 +80,8 @@ def _hold_waves(
     bench: _Bench, state: bool, vector: dict[str, bool]
 ) -> tuple[dict[str, str], float]:
     """Waves that store ``state`` with one active clock edge (the grid's sharpest slew) and
-    then move every input to ``vector`` with no active edge; and the time the vector is
-    reached. A data pin moves a quarter period after the clock's last edge: no hold risk."""
+    then move every input to ``vector`` with no active edge; and the time the inputs start to
+    move (sharpest-slew ramps), a quarter period after the clock's last edge: no hold risk."""
     cell, flop = bench.cell, bench.cell.flop
     small = min(cell.grid.slew)
     active = stimulus.ramp(small, flop.edge, bench.thr, bench.vdd)
@@ -96,7 +97,7 @@ def _hold_waves(
     written = capture_values(cell, state)
     for pin, value in written.items():
         waves[pin] = bench.data(pin, value, vector[pin], move, small)[0]
-    return waves, move + active.duration
+    return waves, move
 
 
 _STATIC: dict[tuple[str, bool, tuple[tuple[str, bool], ...]], float] = {}
@@ -116,8 +117,8 @@ def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[s
             f"not {int(state)}"
         )
     bench = _Bench(config, cell)
-    waves, ready = _hold_waves(bench, state, vector)
-    stop = ready + STATIC_HOLD
+    waves, move = _hold_waves(bench, state, vector)
+    stop = move + STATIC_HOLD
     max_step = STATIC_HOLD / HOLD_STEPS
     supply = f"{deck.supply}#branch"
     outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}
@@ -132,7 +133,7 @@ def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[s
     for pin, node in outputs.items():
         want = stored_output(cell, pin, state)
         if abs(result.vectors[node][-1] - _level(config, want)) > LOGIC_MARGIN * config.process.vdd:
-            raise FunctionalMismatchError(
+            raise MeasurementError(
                 f"output {pin} ends at {result.vectors[node][-1]:.4g} V holding state "
                 f"{int(state)}, {int(want)} expected",
                 cell=cell.name,
@@ -143,7 +144,7 @@ def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[s
     # sample ringing trapezoidal integration leaves on a source's current cancels step by step
     # (it would not from an end between samples). A source's branch current flows into its
     # + node.
-    tail = t >= stop - READ_FRACTION * (stop - ready)
+    tail = t >= stop - READ_FRACTION * STATIC_HOLD
     ts, current = t[tail], -result.vectors[supply][tail]
     _STATIC[key] = float(np.trapezoid(current, ts) / (ts[-1] - ts[0]))
     return _STATIC[key]
@@ -313,9 +314,9 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
         # The data opposite the stored value: it moves there while the clock is still active
         # after writing the state, then the inactive edge under test.
         active = flop.edge == "rise"
-        waves, ready = _hold_waves(bench, state, {**side, flop.clock: active})
+        waves, move = _hold_waves(bench, state, {**side, flop.clock: active})
         back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-        event = Ramp(back.edge, ready + bench.half, back.duration, vdd)
+        event = Ramp(back.edge, move + bench.half, back.duration, vdd)
         first = stimulus.ramp(min(cell.grid.slew), flop.edge, thr, vdd)
         waves[flop.clock] = stimulus.pulse_vector(
             *first.levels,
@@ -336,15 +337,14 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
             event = Ramp(back.edge, bench.lead + bench.half, back.duration, vdd)
     else:
         before = point.input_edge == "fall"
-        waves, ready = _hold_waves(bench, state, {**side, point.related: before})
+        waves, move = _hold_waves(bench, state, {**side, point.related: before})
         go = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-        event = Ramp(go.edge, ready + bench.half, go.duration, vdd)
-        move = ready - stimulus.ramp(min(cell.grid.slew), "rise", thr, vdd).duration
+        event = Ramp(go.edge, move + bench.half, go.duration, vdd)
         written = capture_values(cell, state)[point.related]
         if written == before:
             waves[point.related] = event.pulse()
         else:  # to ``before`` with the other data, then the edge under test back again
-            first = stimulus.ramp(min(cell.grid.slew), go.edge, thr, vdd)
+            first = stimulus.ramp(min(cell.grid.slew), "rise" if before else "fall", thr, vdd)
             flat = event.start - move - first.duration
             waves[point.related] = stimulus.pulse_vector(
                 *reversed(event.levels), move, first.duration, event.duration, flat, 2.0
