@@ -62,14 +62,13 @@ def stored_value(cell: CellSpec, point: TogglePoint) -> bool:
     return level == stored_output(cell, pin, True)
 
 
-def forced_state(cell: CellSpec, vector: dict[str, bool]) -> bool | None:
-    """The state an asynchronous control asserted in ``vector`` forces; None if none is."""
+def rests(cell: CellSpec, state: bool, vector: dict[str, bool]) -> bool:
+    """Whether the flop can hold ``state`` under ``vector``: an asserted clear or preset forces
+    its value, and with both asserted the state is not defined."""
     flop = cell.flop
     clear = flop.clear is not None and flop.clear.evaluate(vector)
     preset = flop.preset is not None and flop.preset.evaluate(vector)
-    if clear and preset:
-        raise MeasurementError("clear and preset are both asserted: the state is not defined")
-    return False if clear else True if preset else None
+    return not (clear and preset) and not (clear and state) and not (preset and not state)
 
 
 def _level(config: LibraryConfig, value: bool) -> float:
@@ -110,11 +109,10 @@ def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[s
     key = (deck.key, state, tuple((p, vector[p]) for p in cell.inputs))
     if key in _STATIC:
         return _STATIC[key]
-    forced = forced_state(cell, vector)
-    if forced is not None and forced != state:
+    if not rests(cell, state, vector):
         raise MeasurementError(
-            f"the vector {logic.when_condition(key[2])} forces the state {int(forced)}, "
-            f"not {int(state)}"
+            f"the flop cannot hold {int(state)} under {logic.when_condition(key[2])}: a clear "
+            "or preset it asserts forces the state"
         )
     bench = _Bench(config, cell)
     waves, move = _hold_waves(bench, state, vector)
@@ -151,14 +149,12 @@ def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[s
 
 
 def vectors(cell: CellSpec) -> tuple[tuple[bool, dict[str, bool]], ...]:
-    """Every (state, input vector) a flop can rest in: a vector whose asserted control forces
-    the other state is left out."""
+    """Every (state, input vector) a flop can rest in (``rests``), in counting order."""
     found = []
     for state in (False, True):
         for bits in itertools.product((False, True), repeat=len(cell.inputs)):
             vector = dict(zip(cell.inputs, bits, strict=True))
-            forced = forced_state(cell, vector)
-            if forced is None or forced == state:
+            if rests(cell, state, vector):
                 found.append((state, vector))
     return tuple(found)
 

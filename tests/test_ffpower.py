@@ -174,7 +174,7 @@ def test_a_vector_that_forces_the_other_state_is_no_leakage_state(cfg):
     rests = ffpower.vectors(cell)
     assert len(rests) == 8 + 4
     assert all(state is False for state, v in rests if not v["RN"])
-    with pytest.raises(MeasurementError, match="forces the state 0"):
+    with pytest.raises(MeasurementError, match="cannot hold 1 under D&!CK&!RN"):
         ffpower.state_current(
             cfg, netlist.build_deck(cfg, cell), True, {"D": True, "CK": False, "RN": False}
         )
