@@ -47,7 +47,7 @@ class Measurement:
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
     stop: float  # s, the transient's final stop time
-    # Energies are None where the point's runner does not measure them (flip-flop events).
+    # Energies: every runner measures them; None only in records built without (tests).
     supply_energy: float | None = None  # J the supply delivered beyond its static draw
     # J: supply_energy less what the external loads took from the supply, shared equally by
     # the outputs that switched together (a power tool adds the internal power of every output
