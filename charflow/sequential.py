@@ -176,6 +176,8 @@ def run_event(
     stop = arm + window
     max_step = window / WINDOW_STEPS
     grid = PARKED_GRID
+    if states is not None:
+        grid = ffpower.event_grid(event, window)
     runs, seconds = 0, 0.0
     backend = backend_for(config)
     what = f"output {output}"
