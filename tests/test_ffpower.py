@@ -24,7 +24,9 @@ DEMO = ROOT / "demo" / "vellum90.toml"
 CELL = "DFFR_X1"
 RTOL_READBACK = 1e-6  # 7 significant digits in the Liberty file
 CV2_RTOL = 0.03  # supply energy growth with the load against C·V²
-FALL_RTOL = 0.03  # ... and its change on a falling output, as a fraction of the same C·V²
+# ... and its change on a falling output, as a fraction of the same C·V²: only the short-circuit
+# current of the inverter the output drives (QN's, on Q) changes with the output's slew: 3.0 %
+FALL_RTOL = 0.05
 STATE_SPREAD = 0.05  # leakage of the two stored values under one vector differs by more
 HOLD_RTOL = 0.01  # a static level read after a 10 times longer hold
 
