@@ -98,8 +98,7 @@ def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
     if isinstance(p, sweep.PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
     if isinstance(p, power.TogglePoint):
-        when = sweep.State(p.side, "").when
-        return [pin_name(p.cell, p.related, f"when {when} {power.power_quantity(p.input_edge)}")]
+        return [pin_name(p.cell, p.related, f"when {p.when} {power.power_quantity(p.input_edge)}")]
     if isinstance(p, sweep.ConstraintPoint):
         kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
         quantity = f"{p.data_edge}_constraint"
@@ -108,9 +107,11 @@ def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
         a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
     )
     whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
-    quantities = [delay_quantity(p.output_edge), transition_quantity(p.output_edge)]
-    if arc.kind == "combinational":
-        quantities.append(power.power_quantity(p.output_edge))
+    quantities = [
+        delay_quantity(p.output_edge),
+        transition_quantity(p.output_edge),
+        power.power_quantity(p.output_edge),
+    ]
     return [
         table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
         for when in whens
@@ -336,7 +337,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         p = m.point
         return {
             "related_pin": p.related,
-            "when": sweep.State(p.side, "").when,
+            "when": p.when,
             "input_edge": p.input_edge,
             "slew_s": p.slew,
             "load_F": p.load,

@@ -64,12 +64,18 @@ class TogglePoint:
     input_edge: str
     slew: float  # s
     load: float  # F on every output (the grid's smallest: the outputs hold)
+    # A flip-flop's stored value as the level of an output, e.g. (("Q", True),); () otherwise.
+    state: tuple[tuple[str, bool], ...] = ()
+
+    @property
+    def when(self) -> str:
+        return logic.when_condition((*self.side, *self.state))
 
     @property
     def label(self) -> str:
-        when = logic.when_condition(self.side) or "-"
         return (
-            f"{self.related} {self.input_edge} (no output edge) when {when} slew {self.slew:.4g} s"
+            f"{self.related} {self.input_edge} (no output edge) when {self.when or '-'} "
+            f"slew {self.slew:.4g} s"
         )
 
 
@@ -140,16 +146,21 @@ def hidden_states(cell: CellSpec, pin: str) -> tuple[tuple[tuple[str, bool], ...
     return tuple(found)
 
 
-def combinational(config: LibraryConfig, cells: list[str] | None = None) -> list[CellSpec]:
-    """The chosen cells (all by default) that power covers: those without a flip-flop."""
-    chosen = [config.cell(n) for n in cells] if cells is not None else list(config.cells)
-    return [c for c in chosen if c.flop is None]
+def _chosen(config: LibraryConfig, cells: list[str] | None) -> list[CellSpec]:
+    """The chosen cells, all by default."""
+    return [config.cell(n) for n in cells] if cells is not None else list(config.cells)
 
 
 def plan_toggles(config: LibraryConfig, cells: list[str] | None = None) -> tuple[TogglePoint, ...]:
-    """Every hidden toggle of the chosen cells: pin × side state × input edge × slew."""
+    """Every hidden toggle of the chosen cells: pin × side state × input edge × slew (and for a
+    flip-flop × stored value, ``ffpower.plan_toggles``)."""
+    from . import ffpower
+
     points = []
-    for cell in combinational(config, cells):
+    for cell in _chosen(config, cells):
+        if cell.flop is not None:
+            points.extend(ffpower.plan_toggles(cell))
+            continue
         for pin in cell.inputs:
             for side in hidden_states(cell, pin):
                 for edge in EDGES:
@@ -162,6 +173,10 @@ def plan_toggles(config: LibraryConfig, cells: list[str] | None = None) -> tuple
 
 def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> ToggleMeasurement:
     cell = config.cell(point.cell)
+    if cell.flop is not None:
+        from . import ffpower
+
+        return ffpower.measure_toggle(config, deck, point)
     vdd = config.process.vdd
     thr = config.thresholds
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
@@ -232,8 +247,13 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
 
 
 def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
-    """The supply's DC power (W) for every input vector, in counting order."""
+    """The supply's DC power (W) for every input vector, in counting order (a flip-flop's per
+    stored value too, ``ffpower.leakage``)."""
     cell = config.cell(deck.cell)
+    if cell.flop is not None:
+        from . import ffpower
+
+        return ffpower.leakage(config, deck)
     states = []
     for bits in itertools.product((False, True), repeat=len(cell.inputs)):
         assign = dict(zip(cell.inputs, bits, strict=True))
@@ -256,10 +276,11 @@ def _arc_tables(
     mine = [
         m
         for m in measured
-        if (m.point.related, m.point.output, m.point.side) == (arc.related, arc.output, state.side)
+        if (m.point.related, m.point.output, m.point.state_side)
+        == (arc.related, arc.output, state.side)
     ]
     tables = []
-    for out_edge in EDGES:
+    for out_edge in arc.output_edges:
         energy = {}
         for m in (m for m in mine if m.point.output_edge == out_edge):
             p = m.point
@@ -312,13 +333,9 @@ def _hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pi
 
 
 def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
-    """Leakage per input vector of every cell of the plan that power covers."""
+    """Leakage per input vector (and stored value) of every cell of the plan."""
     names = {a.cell for a in plan.arcs}
-    return {
-        c.name: leakage(config, build_deck(config, c))
-        for c in combinational(config)
-        if c.name in names
-    }
+    return {c.name: leakage(config, build_deck(config, c)) for c in config.cells if c.name in names}
 
 
 def tabulate(
@@ -328,16 +345,22 @@ def tabulate(
     toggles: list[ToggleMeasurement],
     leakage_states: dict[str, tuple[LeakageState, ...]],
 ) -> tuple[CellPower, ...]:
-    """Power of every cell of the plan that power covers; every timing point must have a
-    measurement (a toggle may be missing: its pin and state then get no table for that edge)."""
+    """Power of every cell of the plan; every timing point must have a measurement (a toggle
+    may be missing: its pin and state then get no table for that edge)."""
+    from . import ffpower
+
     measured = [m for m in results if isinstance(m, Measurement)]
     cells = []
-    for cell in combinational(config, list(dict.fromkeys(a.cell for a in plan.arcs))):
+    for cell in _chosen(config, list(dict.fromkeys(a.cell for a in plan.arcs))):
         mine = [m for m in measured if m.point.cell == cell.name]
         arcs = []
         for arc in (a for a in plan.arcs if a.cell == cell.name):
             states = [(st, _arc_tables(cell, arc, st, mine)) for st in arc.states]
             arcs.append(ArcPower(arc, _worst(states), tuple(states)))
-        hidden = _hidden_tables(cell, [m for m in toggles if m.point.cell == cell.name])
+        mine_toggles = [m for m in toggles if m.point.cell == cell.name]
+        if cell.flop is not None:
+            hidden = ffpower.hidden_tables(cell, mine_toggles)
+        else:
+            hidden = _hidden_tables(cell, mine_toggles)
         cells.append(CellPower(cell.name, tuple(arcs), hidden, leakage_states[cell.name]))
     return tuple(cells)

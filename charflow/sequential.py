@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -42,6 +43,9 @@ from .timing import (
     simulate,
 )
 
+if TYPE_CHECKING:
+    from .ffpower import EventEnergy
+
 WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew
 WINDOW_STEPS = 200  # first-run samples across a window, before refinement
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
@@ -65,6 +69,7 @@ class Outcome:
     t_out: float
     transition: float
     charges: tuple[tuple[str, float], ...] = ()  # C drawn by each pin asked for, in its window
+    energy: EventEnergy | None = None  # asked for with ``run_event``'s states
 
     @property
     def delay(self) -> float:
@@ -143,9 +148,12 @@ def run_event(
     after: bool,
     quiet_until: float = 0.0,
     charge_windows: dict[str, tuple[float, float | None]] | None = None,
+    states: tuple[bool, bool] | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment; the output must hold ``before`` until the event and settle at
-    ``after`` (a bool level) once it. Returns the outcome, simulations and simulator seconds."""
+    ``after`` (a bool level) once it. With ``states`` (the flop's state before and after the
+    event) the event's energy is measured too (``ffpower.event_energy``).
+    Returns the outcome, simulations and simulator seconds."""
     cell = config.cell(deck.cell)
     vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
     out_node = deck.output_node(output)
@@ -156,22 +164,33 @@ def run_event(
     # Stop once the output has settled after the event, and after any late data edge.
     arm = max(event.end, quiet_until)
     level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
+    stop_when = f"time > {arm:.6g} when {level}" if before != after else None
+    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
+    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
+    recorded = (*nodes.values(), *(f"{deck.input_source(p)}#branch" for p in windows))
+    if states is not None:
+        from . import ffpower
+
+        # The energy window ends when the supply current is quiet, some time after the
+        # outputs settle: the run goes on to its cap.
+        recorded = tuple(dict.fromkeys((*recorded, *ffpower.event_vectors(cell, deck))))
+        stop_when = None
     stop = arm + window
     max_step = window / WINDOW_STEPS
     grid = PARKED_GRID
+    if states is not None:
+        grid = ffpower.event_grid(event, window)
     runs, seconds = 0, 0.0
     backend = backend_for(config)
     what = f"output {output}"
-    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
-    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
         request = Request(
             deck,
             alters(deck, cell, waves, loads, grid),
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            (*nodes.values(), *(f"{deck.input_source(p)}#branch" for p in windows)),
-            stop_when=f"time > {arm:.6g} when {level}" if before != after else None,
+            recorded,
+            stop_when=stop_when,
         )
         result, attempts = simulate(backend, request)
         runs, seconds = runs + attempts, seconds + result.seconds
@@ -207,7 +226,10 @@ def run_event(
         (p, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], a, b))
         for p, (a, b) in windows.items()
     )
-    return Outcome(t_ev, t_out, raw / thr.slew_derate, charges), runs, seconds
+    energy = None
+    if states is not None:
+        energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads)
+    return Outcome(t_ev, t_out, raw / thr.slew_derate, charges, energy), runs, seconds
 
 
 def _capture_waves(
@@ -247,7 +269,9 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
         event = stimulus.ramp(point.slew, point.input_edge, config.thresholds, bench.vdd)
-        event = Ramp(event.edge, first.end + bench.half, event.duration, bench.vdd)
+        # A quarter period after the clock's inactive edge has ended: that edge's currents
+        # have died down and stay out of the control's energy window.
+        event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, bench.vdd)
         waves[point.related] = event.pulse()
         windows, moves = {point.related: (event.start, None)}, ()
     outcome, runs, seconds = run_event(
@@ -260,8 +284,10 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         before=before,
         after=out_after,
         charge_windows=windows,
+        states=(not stored, stored),
     )
     charges = dict(outcome.charges)
+    energy = outcome.energy
     return Measurement(
         point=point,
         delay=outcome.delay,
@@ -271,6 +297,9 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         runs=runs,
         sim_seconds=seconds,
         stop=0.0,
+        supply_energy=energy.supply,
+        internal_energy=energy.internal,
+        static_current=energy.static,
     )
 
 

@@ -60,12 +60,15 @@ class Measurement:
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
     stop: float  # s, the transient's final stop time
-    # Energies are None where the point's runner does not measure them (flip-flop events).
+    # Energies: every runner measures them; None only in records built without (tests).
     supply_energy: float | None = None  # J the supply delivered beyond its static draw
     # J: supply_energy less what the external loads took from the supply, shared equally by
     # the outputs that switched together (a power tool adds the internal power of every output
     # that toggles, so the event counts once)
     internal_energy: float | None = None
+    # A: the supply's static draw before the event and once it has settled, taken off
+    # supply_energy (a flip-flop's depends on the value it stores)
+    static_current: tuple[float, float] | None = None
     # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
     side_charges: tuple[tuple[str, str, float], ...] = ()
 
@@ -287,6 +290,7 @@ def measure_point(
         input_charge=charge,
         supply_energy=energy,
         internal_energy=(energy - taken) / switched,
+        static_current=static,
         runs=runs,
         sim_seconds=seconds,
         stop=stop,
