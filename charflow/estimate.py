@@ -39,7 +39,7 @@ class GroupCost:
     """Points of a flip-flop measured the same way: its clock and control arcs, or one kind
     of search."""
 
-    kind: str  # "clock arcs", "setup/hold searches", "pulse-width searches"
+    kind: str  # "clock and control arcs", "constraint searches", "pulse-width searches"
     points: int
     per_point: float  # s, mean over the samples
     simulations: float  # per point, mean over the samples
@@ -143,7 +143,7 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
 CLOCKED = "clock and control arcs"
 _KINDS = (
     (CLOCKED, sweep.TimingPoint),
-    ("setup/hold searches", sweep.ConstraintPoint),
+    ("constraint searches", sweep.ConstraintPoint),
     ("pulse-width searches", sweep.PulsePoint),
 )
 

@@ -369,7 +369,8 @@ class _Trials:
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
-    clock-to-data-change offset that keeps the captured value (either may be negative)."""
+    clock-to-data-change offset that keeps the captured value (either may be negative).
+    Recovery and removal: the same for a clear or preset's release (``_release_setup``)."""
     passes, lo, hi, trials = _constraint_setup(config, deck, point)
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
@@ -379,6 +380,8 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
 
 def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint point, its failing and its relaxed (passing) offset."""
+    if point.kind in ("recovery", "removal"):
+        return _release_setup(config, deck, point)
     cell = config.cell(point.cell)
     bench, flop = _Bench(config, cell), cell.flop
     out = cell.outputs[0].pin
@@ -428,6 +431,50 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
         )
     else:
         lo = -relaxed / 2
+    return passes, lo, relaxed, trials
+
+
+def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+    """Recovery: the least release-before-clock offset of a clear or preset after which the
+    clock edge still captures the other value in time. Removal: the least clock-to-release
+    offset for which the edge captures nothing, the control still holding the flop (either may
+    be negative). The data asks for the value the control does not force."""
+    cell = config.cell(point.cell)
+    bench, flop = _Bench(config, cell), cell.flop
+    out = cell.outputs[0].pin
+    pin = point.constrained
+    clear = flop.clear is not None and pin in flop.clear.variables()
+    forced = not clear  # the state the control holds
+    released = point.data_edge == "rise"  # the pin's value once released
+    clock, event = bench.clock(point.clock_slew, edges=2)
+    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    trials = _Trials(config, deck)
+    held = stored_output(cell, out, forced)
+    recovery = point.kind == "recovery"
+    probe = bench.data(pin, not released, released, 0.0, point.data_slew)
+    go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
+    values = capture_values(cell, not forced)
+
+    def passes(offset: float) -> bool:
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
+        waves[flop.clock] = clock
+        release_at = t_clk - offset if recovery else t_clk + offset
+        waves[pin], go, _ = bench.data(
+            pin, not released, released, release_at - go_along, point.data_slew
+        )
+        after = stored_output(cell, out, not forced) if recovery else held
+        quiet = go.end if recovery else go.end + bench.window / 4
+        outcome = trials(
+            waves, loads, event=event, output=out, before=held, after=after, quiet_until=quiet
+        )
+        # Recovery is judged like setup (captured, and in time); removal by the flop staying.
+        return trials.in_time(outcome) if recovery else outcome is not None
+
+    relaxed = bench.half / 2
+    # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
+    # edge captures nothing, or captures.
+    lo = -(probe[1].duration + event.duration) if recovery else -relaxed
     return passes, lo, relaxed, trials
 
 

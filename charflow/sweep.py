@@ -94,13 +94,14 @@ class TimingPoint:
 
 @dataclass(frozen=True, slots=True)
 class ConstraintPoint:
-    """A setup or hold search of a data pin against the clock at one pair of slews."""
+    """A setup or hold search of a data pin against the clock at one pair of slews, or a
+    recovery or removal search of an asynchronous control's release against the clock."""
 
     cell: str
-    constrained: str  # data pin
+    constrained: str  # data pin, or the clear or preset pin
     related: str  # clock pin
-    kind: str  # "setup" | "hold"
-    data_edge: str  # the constrained pin's transition the constraint is for
+    kind: str  # "setup" | "hold" | "recovery" | "removal"
+    data_edge: str  # the constrained pin's transition the constraint is for (a release)
     clock_edge: str
     data_slew: float  # s
     clock_slew: float  # s
@@ -282,11 +283,23 @@ def _flop_points(cell: CellSpec) -> list[Point]:
                                 cell.name, data, flop.clock, kind, edge, flop.edge, ds, cs
                             )
                         )
+    slews = cell.grid.constraint_slew or cell.grid.slew
     pulse_pins = [(flop.clock, "high"), (flop.clock, "low")]
     for expr in (flop.clear, flop.preset):
         if expr is not None:
             (pin,) = sorted(expr.variables())
-            pulse_pins.append((pin, "high" if expr.evaluate({pin: True}) else "low"))
+            active_high = expr.evaluate({pin: True})
+            pulse_pins.append((pin, "high" if active_high else "low"))
+            # Recovery and removal: the control's releasing edge against the clock.
+            release = "fall" if active_high else "rise"
+            for kind in ("recovery", "removal"):
+                for ds in slews:
+                    for cs in slews:
+                        points.append(
+                            ConstraintPoint(
+                                cell.name, pin, flop.clock, kind, release, flop.edge, ds, cs
+                            )
+                        )
     # Liberty's min_pulse_width is one number per pin and level: searched at the sharpest slew.
     for pin, level in pulse_pins:
         points.append(PulsePoint(cell.name, pin, level, min(cell.grid.slew)))

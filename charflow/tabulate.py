@@ -62,11 +62,12 @@ class PinCap:
 
 @dataclass(frozen=True, slots=True)
 class ConstraintTables:
-    """Setup or hold of a data pin against the clock: rise_ and fall_constraint tables."""
+    """Setup or hold of a data pin against the clock (rise_ and fall_constraint tables), or
+    recovery or removal of a control pin (the table of its releasing edge)."""
 
     pin: str
     related: str
-    kind: str  # setup | hold
+    kind: str  # setup | hold | recovery | removal
     clock_edge: str
     tables: tuple[Table, ...]
 
@@ -152,7 +153,8 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
     axes = (Axis(CONSTRAINED_AXIS, slews), Axis(RELATED_AXIS, slews))
     for (pin, kind), group in groups.items():
         tables = []
-        for edge in ("rise", "fall"):
+        # A control's recovery and removal are for its releasing edge alone.
+        for edge in (e for e in ("rise", "fall") if any(r.point.data_edge == e for r in group)):
             values = {
                 (r.point.data_slew, r.point.clock_slew): r.value
                 for r in group

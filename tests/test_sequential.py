@@ -96,7 +96,7 @@ def test_clear_arc_only_moves_its_output_the_way_the_reset_forces(run):
     assert to_q.arc.sense == "positive_unate" and to_qn.arc.sense == "negative_unate"
 
 
-@pytest.mark.parametrize("kind", ["setup", "hold"])
+@pytest.mark.parametrize("kind", ["setup", "hold", "recovery", "removal"])
 def test_constraint_is_the_edge_between_pass_and_fail(cfg, run, kind):
     # The bisection's answer passes, and one tolerance step tighter fails, each re-simulated
     # from scratch (the pass test: right value, clock-to-Q at most 10 % over relaxed;
@@ -135,6 +135,11 @@ def test_liberty_with_3d_and_sequential_groups_reads_back(cfg, run):
     assert got == pytest.approx(want, rel=RTOL_READBACK)
     setups = [t for t in pins["D"].get_groups("timing") if t["timing_type"] == "setup_rising"]
     assert len(setups) == 1 and setups[0].get_groups("rise_constraint")
+    # The reset's release (RN rising) against the clock: one table each, for that edge only.
+    for kind in ("recovery_rising", "removal_rising"):
+        (group,) = [t for t in pins["RN"].get_groups("timing") if t["timing_type"] == kind]
+        assert group["related_pin"] == "CK"
+        assert group.get_groups("rise_constraint") and not group.get_groups("fall_constraint")
     assert float(pins["CK"]["min_pulse_width_high"]) > 0
 
 
@@ -148,3 +153,17 @@ def test_flop_pin_capacitance_follows_the_gates_behind_each_pin(run):
     assert pins["CK"].capacitance == pytest.approx(inv_x1, rel=0.15, abs=0)
     assert pins["RN"].capacitance == pytest.approx(inv_x1 * 3.2 / 1.2, rel=0.25, abs=0)
     assert pins["D"].capacitance > pins["CK"].capacitance
+
+
+def test_recovery_and_removal_leave_a_window_between_them(run):
+    # Released later than recovery allows, the edge no longer captures in time; released
+    # earlier than removal allows, it captures: recovery + removal >= 0 brackets the release
+    # times that do neither cleanly (as setup + hold >= 0 does for data; common practice).
+    result, _ = run
+    found = {
+        m.point.kind: m.value
+        for m in result.measurements
+        if isinstance(m.point, ConstraintPoint) and m.point.constrained == "RN"
+    }
+    assert set(found) == {"recovery", "removal"}
+    assert found["recovery"] + found["removal"] >= 0
