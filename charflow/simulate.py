@@ -378,7 +378,7 @@ class SubprocessBackend:
             seconds = time.perf_counter() - start
             if proc.returncode < 0:
                 raise SimulatorError(
-                    f"ngspice crashed ({signal.Signals(-proc.returncode).name}): "
+                    f"ngspice crashed ({_signal_name(-proc.returncode)}): "
                     f"{_messages((proc.stdout + proc.stderr).splitlines())}",
                     cell=cell,
                 )
@@ -410,6 +410,13 @@ def _wrdata_name(name: str) -> str:
     if name.endswith("#branch"):
         return f"i({name[: -len('#branch')]})"
     return f"v({name})"
+
+
+def _signal_name(number: int) -> str:
+    try:
+        return signal.Signals(number).name
+    except ValueError:
+        return f"signal {number}"
 
 
 def _version_of(text: str) -> str:

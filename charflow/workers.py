@@ -14,6 +14,7 @@ of them are re-run alone: the pool cannot say which worker died first.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import pickle
@@ -133,7 +134,8 @@ def run_chunks(
                         lost.append((task, path))
                         death = exc
                         continue
-                    os.unlink(path)
+                    with contextlib.suppress(FileNotFoundError):  # a worker without one
+                        os.unlink(path)
                     yield batch
             finally:
                 # Closed early (the caller stopped): chunks not yet started are not started.
