@@ -19,21 +19,22 @@ ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
 POINTS = 90
 TOGGLES = 24  # hidden-power toggles of NAND2 and NOR2, stored beside the points
+# Reached over TCP on the loopback address only, one thread per worker (one simulator each);
+# the dashboard on any free port, as 8787 may be taken.
+LOOPBACK = {
+    "threads_per_worker": 1,
+    "protocol": "tcp",
+    "host": "127.0.0.1",
+    "dashboard_address": ":0",
+}
 
 
 @pytest.fixture(scope="module")
 def cluster():
     if shutil.which("ngspice") is None:
         pytest.fail("ngspice is not installed; these tests need it (apt-get install ngspice)")
-    # Worker threads in this process, reached over TCP on the loopback address only.
-    with LocalCluster(
-        n_workers=2,
-        threads_per_worker=1,
-        processes=False,
-        protocol="tcp",
-        host="127.0.0.1",
-        dashboard_address=":0",  # any free port: 8787 may be taken
-    ) as local:
+    # Worker threads in this process.
+    with LocalCluster(n_workers=2, processes=False, **LOOPBACK) as local:
         yield local
 
 
@@ -100,14 +101,7 @@ def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> No
     # No retries on the cluster: the first death of a worker gives up on its chunk.
     with (
         dask.config.set({"distributed.scheduler.allowed-failures": 0}),
-        LocalCluster(
-            n_workers=1,
-            threads_per_worker=1,
-            processes=True,
-            protocol="tcp",
-            host="127.0.0.1",
-            dashboard_address=":0",  # any free port: 8787 may be taken
-        ) as local,
+        LocalCluster(n_workers=1, processes=True, **LOOPBACK) as local,
         Client(local) as client,
     ):
         (pid,) = client.run(os.getpid).values()

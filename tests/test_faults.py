@@ -147,31 +147,43 @@ def test_a_killed_worker_costs_no_point(tmp_path, caplog):
         assert m.transition == pytest.approx(ref.transition, rel=ALONE_RTOL, abs=0)
 
 
+# A real run of the crawling cell in a fresh process, but the signal that ngspice's thread has
+# ended is swallowed: to charflow this is a simulator stuck inside a time step after the halt.
+_STUCK = """
+import threading
+from charflow import config, simulate, sweep, timing, workers
+from charflow.errors import SimulatorHungError
+from charflow.netlist import build_deck
+
+class NeverSet(threading.Event):
+    def set(self):
+        pass
+
+def stick():
+    timing.backend_for(cfg)._ng.done = NeverSet()
+
+simulate.HALT_GRACE = 0.5
+cfg = config.load({faults!r})
+"""
+
+
+def _stuck(body: str) -> subprocess.CompletedProcess:
+    script = _STUCK.format(faults=str(FAULTS)) + textwrap.dedent(body)
+    return subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120, check=False
+    )
+
+
 def test_a_simulator_that_does_not_stop_ends_its_worker_and_keeps_the_journal(tmp_path):
-    # A real run of the crawling cell, but the signal that ngspice's thread has ended is
-    # swallowed: to charflow this is a simulator stuck inside a time step after the halt.
     journal = tmp_path / "journal.pickle"
-    script = textwrap.dedent(
+    done = _stuck(
         f"""
-        import threading
-        from charflow import config, simulate, sweep, timing, workers
-        from charflow.netlist import build_deck
-
-        class NeverSet(threading.Event):
-            def set(self):
-                pass
-
-        simulate.HALT_GRACE = 0.5
-        cfg = config.load({str(FAULTS)!r})
         rc = sweep.plan(cfg, ["RCCELL"]).points[:1]
         crawl = sweep.plan(cfg, ["CRAWL"]).points[:1]
         workers._work(cfg, build_deck(cfg, cfg.cell("RCCELL")), rc, {str(journal)!r} + "0")
-        timing.backend_for(cfg)._ng.done = NeverSet()
+        stick()
         workers._work(cfg, build_deck(cfg, cfg.cell("CRAWL")), crawl, {str(journal)!r})
         """
-    )
-    done = subprocess.run(
-        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120, check=False
     )
     assert done.returncode == EXIT_HUNG, done.stderr
     (first,) = read_journal(f"{journal}0")
@@ -181,31 +193,16 @@ def test_a_simulator_that_does_not_stop_ends_its_worker_and_keeps_the_journal(tm
 
 
 def test_a_hung_simulator_refuses_every_later_run():
-    script = textwrap.dedent(
-        f"""
-        import threading
-        from charflow import config, simulate, sweep, timing
-        from charflow.errors import SimulatorHungError
-        from charflow.netlist import build_deck
-
-        class NeverSet(threading.Event):
-            def set(self):
-                pass
-
-        simulate.HALT_GRACE = 0.5
-        cfg = config.load({str(FAULTS)!r})
-        backend = timing.backend_for(cfg)
-        backend._ng.done = NeverSet()
+    done = _stuck(
+        """
+        stick()
         for cell in ("CRAWL", "RCCELL"):
             deck = build_deck(cfg, cfg.cell(cell))
             try:
-                backend.run(simulate.Request(deck, (), "tran 1p 20n", ("y",)))
+                timing.backend_for(cfg).run(simulate.Request(deck, (), "tran 1p 20n", ("y",)))
             except SimulatorHungError as exc:
                 print(exc)
         """
-    )
-    done = subprocess.run(
-        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120, check=False
     )
     first, second = done.stdout.splitlines()
     assert first.startswith("cell CRAWL: 'tran 1p 20n' ran past the 0.3 s timeout")
