@@ -273,17 +273,17 @@ def _timing_points(cell: CellSpec, arc: Arc) -> list[TimingPoint]:
 def _flop_points(cell: CellSpec) -> list[Point]:
     flop = cell.flop
     points: list[Point] = []
+    slews = cell.grid.constraint_slew or cell.grid.slew
     for data in cell.data_inputs:
         for kind in ("setup", "hold"):
             for edge in EDGES:
-                for ds in cell.grid.constraint_slew or cell.grid.slew:
-                    for cs in cell.grid.constraint_slew or cell.grid.slew:
+                for ds in slews:
+                    for cs in slews:
                         points.append(
                             ConstraintPoint(
                                 cell.name, data, flop.clock, kind, edge, flop.edge, ds, cs
                             )
                         )
-    slews = cell.grid.constraint_slew or cell.grid.slew
     pulse_pins = [(flop.clock, "high"), (flop.clock, "low")]
     for expr in (flop.clear, flop.preset):
         if expr is not None:
