@@ -39,11 +39,11 @@ from . import config as config_mod
 from . import netlist, stepsize, stimulus, sweep
 from .config import LibraryConfig
 from .errors import CharflowError, SimulatorError
+from .resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
 from .simulate import QUIET, SINGLE_THREAD
 
-PROJECT = Path(__file__).resolve().parent.parent
-DEMO = PROJECT / "demo" / "vellum90.toml"
-LEVEL1_MODELS = PROJECT / "models" / "vellum90_l1.lib"
+DEMO = DEMO_CONFIG
+LEVEL1_MODELS = MODEL_DIR / "vellum90_l1.lib"
 
 KIT_PARAMS = 3000  # .param lines in the generated foundry-style model file
 KIT_BINS = 4  # length bins per device type
@@ -142,7 +142,7 @@ def level1_demo(folder: Path) -> Path:
     """The demo library on the level-1 models, as a config file in ``folder``."""
     text = DEMO.read_text(encoding="utf-8")
     text = text.replace("../models/vellum90_bsim.lib", LEVEL1_MODELS.as_posix())
-    text = text.replace("../templates/", (PROJECT / "templates").as_posix() + "/")
+    text = text.replace("../templates/", TEMPLATE_DIR.as_posix() + "/")
     text = text.replace('name = "vellum90_tt"', 'name = "vellum90_l1_tt"')
     path = folder / "vellum90_l1.toml"
     path.write_text(text, encoding="utf-8")

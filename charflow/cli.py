@@ -37,13 +37,12 @@ from .errors import (
     OutputError,
 )
 from .lock import FolderLock
+from .resources import DEMO_CONFIG
 from .store import FILE_NAME, Store
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
 EXIT_DIFFERENT = 1  # charflow diff: the libraries differ
-PROJECT = Path(__file__).resolve().parent.parent
-DEMO_CONFIG = PROJECT / "demo" / "vellum90.toml"
-RUNS = PROJECT / "runs"
+RUNS = Path("runs")  # default outputs: runs/<library name> under the current folder
 
 
 def _parser() -> argparse.ArgumentParser:

@@ -18,8 +18,8 @@ import jinja2
 
 from .config import CellSpec, LibraryConfig
 from .errors import NetlistError
+from .resources import TEMPLATE_DIR
 
-TEMPLATE_DIR = Path(__file__).resolve().parent.parent / "templates"
 TESTBENCH = "testbench.sp.j2"
 
 # Placeholder values in the deck; every point overrides them with ``alter``.

@@ -19,10 +19,11 @@ from hypothesis import strategies as st
 
 from charflow import check, config, flow, netlist
 from charflow.errors import CharflowError
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
-INV = ROOT / "templates" / "cells" / "inv.sp.j2"
+INV = TEMPLATE_DIR / "cells" / "inv.sp.j2"
 FUZZ = settings(
     max_examples=150,
     deadline=None,
@@ -255,7 +256,7 @@ def test_check_command_reports_problems_of_two_cells_in_one_run(tmp_path):
 
 
 def test_check_command_names_a_model_file_ngspice_cannot_read(tmp_path):
-    models = (ROOT / "models" / "vellum90_l1.lib").read_text(encoding="utf-8")
+    models = (MODEL_DIR / "vellum90_l1.lib").read_text(encoding="utf-8")
     bad = tmp_path / "broken.lib"
     bad.write_text(models.replace("kp=200e-6", "kp={200e-6", 1), encoding="utf-8")
     doc = _base()

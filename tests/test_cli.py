@@ -15,11 +15,12 @@ import pytest
 from liberty.parser import parse_liberty
 
 from charflow import __version__
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
-MODEL = (ROOT / "models" / "vellum90_l1.lib").as_posix()
-INV = (ROOT / "templates" / "cells" / "inv.sp.j2").as_posix()
+MODEL = (MODEL_DIR / "vellum90_l1.lib").as_posix()
+INV = (TEMPLATE_DIR / "cells" / "inv.sp.j2").as_posix()
 EXIT_BAD_INPUT, EXIT_TROUBLE = 2, 3
 
 

@@ -15,10 +15,11 @@ import pytest
 from charflow import config, netlist
 from charflow.config import ModelFile
 from charflow.errors import ConfigError, NetlistError
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
-MODEL = ROOT / "models" / "vellum90_l1.lib"
-CELLS = ROOT / "templates" / "cells"
+MODEL = MODEL_DIR / "vellum90_l1.lib"
+CELLS = TEMPLATE_DIR / "cells"
 INV_PARAMS = {"wn": 0.4e-6, "wp": 0.8e-6, "l": 0.1e-6}
 NAND2_PARAMS = {"wn": 0.8e-6, "wp": 0.8e-6, "l": 0.1e-6}
 

@@ -9,6 +9,7 @@ import pytest
 
 from charflow import config
 from charflow.errors import ConfigError
+from charflow.resources import MODEL_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -63,7 +64,7 @@ def test_corner_errors_name_their_key(corners, key, message) -> None:
 
 
 def test_a_corner_section_needs_a_model_read_by_section() -> None:
-    model = str(ROOT / "models" / "vellum90_l1.lib")
+    model = str(MODEL_DIR / "vellum90_l1.lib")
     with pytest.raises(ConfigError, match="no model file is read by section") as info:
         _parse([{"name": "ff", "section": "ff"}], models=[model])
     assert info.value.context["key"] == "corner[0].section"

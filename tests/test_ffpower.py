@@ -14,13 +14,14 @@ from liberty.parser import parse_liberty
 
 from charflow import config, ffpower, flow, netlist, power, sweep
 from charflow.errors import MeasurementError
+from charflow.resources import DEMO_CONFIG
 from charflow.store import FILE_NAME, Store
 from charflow.timing import Measurement
 from charflow.units import power_unit
 
 ROOT = Path(__file__).resolve().parents[1]
 SEQ = ROOT / "tests" / "data" / "seq_l1.toml"
-DEMO = ROOT / "demo" / "vellum90.toml"
+DEMO = DEMO_CONFIG
 CELL = "DFFR_X1"
 RTOL_READBACK = 1e-6  # 7 significant digits in the Liberty file
 CV2_RTOL = 0.03  # supply energy growth with the load against C·V²

@@ -24,12 +24,13 @@ from scipy.interpolate import RegularGridInterpolator
 from charflow import config, fidelity, flow, netlist, sweep, timing
 from charflow.config import Fidelity
 from charflow.fidelity import CENTRE, RANDOM, Probe, compare, probes, statistics
+from charflow.resources import DEMO_CONFIG
 from charflow.tables import Axis, Table
 from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
-DEMO = ROOT / "demo" / "vellum90.toml"
+DEMO = DEMO_CONFIG
 NS, PF = 1e-9, 1e-12
 RTOL = 1e-12  # closed forms against a few floating-point operations
 SIM_RTOL = 1e-9  # the same simulator on the same point: deterministic up to printing

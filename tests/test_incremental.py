@@ -18,6 +18,7 @@ import pytest
 from liberty.parser import parse_liberty
 
 from charflow import diff
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.store import FILE_NAME
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -54,10 +55,10 @@ def _config(folder: Path, *, extra: str = "", grid: str | None = None) -> Path:
     """small_l1 with its own copy of the model file (so a test may edit it) beside it."""
     models = folder / "models"
     models.mkdir(parents=True, exist_ok=True)
-    shutil.copy(ROOT / "models" / "vellum90_l1.lib", models / "vellum90_l1.lib")
+    shutil.copy(MODEL_DIR / "vellum90_l1.lib", models / "vellum90_l1.lib")
     text = SMALL.read_text(encoding="utf-8")
-    text = text.replace("../../models/", "models/")
-    text = text.replace("../../templates/", (ROOT / "templates").as_posix() + "/")
+    text = text.replace("../../charflow/bundled/models/", "models/")
+    text = text.replace("../../charflow/bundled/templates/", (TEMPLATE_DIR).as_posix() + "/")
     if grid is not None:
         text = re.sub(r"(?ms)^\[grid\].*?(?=^\[\[cell\]\])", grid + "\n\n", text)
     path = folder / "small.toml"

@@ -22,6 +22,7 @@ from liberty.types import Group
 
 from charflow import config, flow, power
 from charflow.config import LibraryConfig
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.tables import Table
 from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
 
@@ -115,8 +116,8 @@ def aoi21(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
     path = out / "cfg_aoi21.toml"
     path.write_text(
         AOI21_TOML.format(
-            model=(ROOT / "models" / "vellum90_l1.lib").as_posix(),
-            template=(ROOT / "templates" / "cells" / "aoi21.sp.j2").as_posix(),
+            model=(MODEL_DIR / "vellum90_l1.lib").as_posix(),
+            template=(TEMPLATE_DIR / "cells" / "aoi21.sp.j2").as_posix(),
         ),
         encoding="utf-8",
     )
@@ -552,8 +553,8 @@ def bufc(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
     path = out / "cfg_bufc.toml"
     path.write_text(
         BUFC_TOML.format(
-            model=(ROOT / "models" / "vellum90_l1.lib").as_posix(),
-            template=(ROOT / "templates" / "cells" / "bufc.sp.j2").as_posix(),
+            model=(MODEL_DIR / "vellum90_l1.lib").as_posix(),
+            template=(TEMPLATE_DIR / "cells" / "bufc.sp.j2").as_posix(),
         ),
         encoding="utf-8",
     )

@@ -12,9 +12,11 @@ from pathlib import Path
 import jinja2
 import pytest
 
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+
 ROOT = Path(__file__).resolve().parents[1]
-MODELS = ROOT / "models"
-CELLS = ROOT / "templates" / "cells"
+MODELS = MODEL_DIR
+CELLS = TEMPLATE_DIR / "cells"
 MODEL_FILES = ("vellum90_l1.lib", "vellum90_bsim.lib")
 CORNERS = ("tt", "ff", "ss")
 VDD = 1.2

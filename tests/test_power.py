@@ -11,6 +11,7 @@ import pytest
 
 from charflow import config, flow, netlist, power, stimulus, sweep, timing
 from charflow.measure import integral, supply_energy
+from charflow.resources import DEMO_CONFIG, MODEL_DIR
 from charflow.simulate import Request
 from charflow.units import power_unit
 
@@ -18,7 +19,7 @@ ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"
 CAP_CONFIG = DATA / "cap_cell.toml"
 SMALL_L1 = DATA / "small_l1.toml"
-DEMO = ROOT / "demo" / "vellum90.toml"
+DEMO = DEMO_CONFIG
 C1 = 10e-15  # F, the capacitor inside tests/data/cap_cell.sp
 R_ON = 1e3  # ohm, its switches' on resistance
 
@@ -124,7 +125,7 @@ def _level1_card(model: str, section: str = "tt") -> dict[str, float]:
     """The numbers of one .model card inside ``.lib section`` of the level-1 model file."""
     card: dict[str, float] = {}
     inside = mine = False
-    for raw in (ROOT / "models" / "vellum90_l1.lib").read_text(encoding="utf-8").splitlines():
+    for raw in (MODEL_DIR / "vellum90_l1.lib").read_text(encoding="utf-8").splitlines():
         line = raw.strip().lower()
         if line.startswith("*") or not line:
             continue

@@ -16,6 +16,7 @@ import pytest
 
 from charflow import config, netlist, sweep, timing
 from charflow.errors import StoreError
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.store import FILE_NAME, Store, keyring
 from charflow.sweep import TimingPoint
 from charflow.timing import Measurement
@@ -158,11 +159,13 @@ def test_sweep_run_stores_and_then_serves_without_simulating(tmp_path, monkeypat
 
 
 def test_latest_serves_older_rows_and_says_why(tmp_path: Path) -> None:
-    shutil.copy(ROOT / "models" / "vellum90_l1.lib", tmp_path / "models.lib")
+    shutil.copy(MODEL_DIR / "vellum90_l1.lib", tmp_path / "models.lib")
     doc = (
         SMALL.read_text(encoding="utf-8")
-        .replace("../../models/vellum90_l1.lib", (tmp_path / "models.lib").as_posix())
-        .replace("../../templates", (ROOT / "templates").as_posix())
+        .replace(
+            "../../charflow/bundled/models/vellum90_l1.lib", (tmp_path / "models.lib").as_posix()
+        )
+        .replace("../../charflow/bundled/templates", TEMPLATE_DIR.as_posix())
     )
     (tmp_path / "cfg.toml").write_text(doc, encoding="utf-8")
     cfg = config.load(tmp_path / "cfg.toml")

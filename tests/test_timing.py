@@ -12,6 +12,7 @@ from scipy.optimize import brentq
 
 from charflow import config, flow, netlist, sweep, timing
 from charflow.errors import FunctionalMismatchError, MeasurementError
+from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.sweep import TimingPoint
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -132,8 +133,8 @@ def test_shared_and_subprocess_backends_agree(small):
 
 
 def test_check_function_names_cell_and_vector(tmp_path):
-    nand2 = ROOT / "templates" / "cells" / "nand2.sp.j2"
-    models = ROOT / "models" / "vellum90_l1.lib"
+    nand2 = TEMPLATE_DIR / "cells" / "nand2.sp.j2"
+    models = MODEL_DIR / "vellum90_l1.lib"
     path = tmp_path / "wrong.toml"
     path.write_text(
         f"""[library]
