@@ -198,11 +198,11 @@ def foundry_kit(
 xp Y A VDD VDD pch_mac w=0.8e-6 l=0.1e-6
 xn Y A VSS VSS nch_mac w=0.4e-6 l=0.1e-6
 .ends KINV
-.subckt KNAND2 A1 A2 Y VDD VSS
-xp1 Y A1 VDD VDD pch_mac w=0.8e-6 l=0.1e-6
-xp2 Y A2 VDD VDD pch_mac w=0.8e-6 l=0.1e-6
-xn1 Y A1 n1 VSS nch_mac w=0.8e-6 l=0.1e-6
-xn2 n1 A2 VSS VSS nch_mac w=0.8e-6 l=0.1e-6
+.subckt KNAND2 IA IB Y VDD VSS
+xp1 Y IA VDD VDD pch_mac w=0.8e-6 l=0.1e-6
+xp2 Y IB VDD VDD pch_mac w=0.8e-6 l=0.1e-6
+xn1 Y IA n1 VSS nch_mac w=0.8e-6 l=0.1e-6
+xn2 n1 IB VSS VSS nch_mac w=0.8e-6 l=0.1e-6
 .ends KNAND2
 """,
         encoding="utf-8",
@@ -230,8 +230,8 @@ outputs = {{ Y = "!A" }}
 [[cell]]
 name = "KNAND2"
 netlist = "kit_cells.sp"
-inputs = ["A1", "A2"]
-outputs = {{ Y = "!(A1&A2)" }}
+inputs = ["IA", "IB"]
+outputs = {{ Y = "!(IA&IB)" }}
 """,
         encoding="utf-8",
     )

@@ -77,8 +77,8 @@ class Comparison:
 def table_name(
     cell: str, related: str, pin: str, when: str, quantity: str, kind: str = "combinational"
 ) -> str:
-    """How charflow names a table: ``NAND2_X1 A1->Y when A2 cell_rise``, ``DFF_X1 CK->Q clock
-    cell_rise``, ``DFF_X1 CK->D setup_rising rise_constraint``."""
+    """How charflow names a table: ``QNAND2_P1 IA->Y when IB cell_rise``, ``QDFF_P1 CLK->Q clock
+    cell_rise``, ``QDFF_P1 CLK->D setup_rising rise_constraint``."""
     name = f"{cell} {related}->{pin}" + ("" if kind == "combinational" else f" {kind}")
     return name + (f" when {when}" if when else "") + f" {quantity}"
 

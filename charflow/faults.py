@@ -39,7 +39,7 @@ def paths(failures: Iterable[Failure]) -> dict[Point, tuple[str, str]]:
             continue
         cell = f.point.cell
         count[cell] = count.get(cell, 0) + 1
-        label = f.point.label.replace("!", "not")  # a `when` of !A2 is not one of A2
+        label = f.point.label.replace("!", "not")  # a `when` of !IB is not one of IB
         slug = re.sub(r"[^A-Za-z0-9.+]+", "-", label).strip("-")[:SLUG_LENGTH]
         stem = f"{FOLDER}/{_safe(cell)}/{count[cell]:03d}-{slug.rstrip('-')}"
         out[f.point] = (f"{stem}.csv", f"{stem}.png")

@@ -2,7 +2,7 @@
 
 Internal energy of a timing point is measured by ``timing.measure_point`` (the supply's energy
 beyond its static draw, less what the external loads took); here it becomes tables. A toggle
-is an input edge that changes no output (NAND2's A1 while A2 = 0): the supply energy it costs
+is an input edge that changes no output (NAND2's IA while IB = 0): the supply energy it costs
 is Liberty's hidden power, kept on the input pin. Leakage is the supply's DC power per input
 vector. Everything is SI here (J, W); the Liberty writer converts.
 
@@ -91,7 +91,7 @@ class ToggleMeasurement:
 
 @dataclass(frozen=True, slots=True)
 class LeakageState:
-    when: str  # every input, e.g. "!A1&A2"
+    when: str  # every input, e.g. "!IA&IB"
     power: float  # W
 
 

@@ -73,12 +73,12 @@ def test_level1_demo_is_the_demo_on_level1_models(tmp_path):
 
 def test_plan_counts_points_and_estimates_time():
     cfg = config.load(SMALL_L1)
-    est = estimate.estimate(cfg, ["INV_X1", "NAND2_X1"], jobs=2)
+    est = estimate.estimate(cfg, ["QINV_P1", "QNAND2_P1"], jobs=2)
     assert est.points == 18 + 36
     assert [(a.cell, a.related, a.points) for a in est.arcs] == [
-        ("INV_X1", "A", 18),
-        ("NAND2_X1", "A1", 18),
-        ("NAND2_X1", "A2", 18),
+        ("QINV_P1", "A", 18),
+        ("QNAND2_P1", "IA", 18),
+        ("QNAND2_P1", "IB", 18),
     ]
     assert est.samples == 2 * estimate.SAMPLES
     assert 0 < est.seconds < math.inf
@@ -101,12 +101,12 @@ def test_plan_option_runs_no_sweep(tmp_path):
 
 def test_plan_of_flip_flops_counts_and_times_their_searches():
     cfg = config.load(ROOT / "tests" / "data" / "seq_l1.toml")
-    est = estimate.estimate(cfg, ["DFFR_X1"], jobs=2)
+    est = estimate.estimate(cfg, ["QDFFR_P1"], jobs=2)
     (cell,) = est.cells
     groups = {g.kind: g for g in cell.groups}
     # Slews x loads x other loads = 8 per edge: 2 clock arcs x 2 output edges, 2 clear arcs x
-    # 1; at one slew pair setup and hold x 2 data edges, recovery and removal of RN's release;
-    # pulses: CK high, CK low, RN low.
+    # 1; at one slew pair setup and hold x 2 data edges, recovery and removal of RSTB's release;
+    # pulses: CLK high, CLK low, RSTB low.
     assert groups["clock and control arcs"].points == (2 * 2 + 2) * 8
     assert groups["constraint searches"].points == 2 * 2 + 2
     assert groups["pulse-width searches"].points == 3

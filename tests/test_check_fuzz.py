@@ -89,7 +89,7 @@ scalars = st.one_of(
     st.dictionaries(st.text(max_size=4), st.integers(), max_size=2),
 )
 garbles = st.sampled_from(
-    ["", "A &", "!(", "A1 | | A2", "B", "A'", "(A1&A2", "A1^", "1", "0", "!!A", "A+", "é", "A)("]
+    ["", "A &", "!(", "IA | | IB", "B", "A'", "(IA&IB", "IA^", "1", "0", "!!A", "A+", "é", "A)("]
 )
 
 
@@ -240,16 +240,16 @@ def test_mutated_netlists_end_in_charflow_errors(tmp_path, record_property):
 
 def test_check_command_reports_problems_of_two_cells_in_one_run(tmp_path):
     doc = _base()
-    del doc["cell"][1]["params"]["wp"]  # NAND2_X1: the template needs wp
-    doc["cell"][2]["outputs"] = {"Y": "!(A1&A2)"}  # NOR2_X1 is not a NAND
+    del doc["cell"][1]["params"]["wp"]  # QNAND2_P1: the template needs wp
+    doc["cell"][2]["outputs"] = {"Y": "!(IA&IB)"}  # QNOR2_P1 is not a NAND
     path = tmp_path / "two.toml"
     path.write_text(_document(doc), encoding="utf-8")
     run = subprocess.run(["charflow", "check", str(path)], capture_output=True, text=True)
     assert run.returncode == 2, run.stdout + run.stderr
     lines = run.stdout.splitlines()
-    assert any("cell NAND2_X1" in ln and "wp" in ln and "key params" in ln for ln in lines)
+    assert any("cell QNAND2_P1" in ln and "wp" in ln and "key params" in ln for ln in lines)
     assert any(
-        "cell NOR2_X1" in ln and "pin Y" in ln and "key cell[2].outputs.Y" in ln for ln in lines
+        "cell QNOR2_P1" in ln and "pin Y" in ln and "key cell[2].outputs.Y" in ln for ln in lines
     )
     assert "2 problem(s) found" in run.stdout
     assert "Traceback" not in run.stderr
@@ -266,7 +266,7 @@ def test_check_command_names_a_model_file_ngspice_cannot_read(tmp_path):
     run = subprocess.run(["charflow", "check", str(path)], capture_output=True, text=True)
     assert run.returncode == 2, run.stdout + run.stderr
     first = run.stdout.splitlines()[0]
-    assert "broken.lib" in first and "cell INV_X1" in first, first
+    assert "broken.lib" in first and "cell QINV_P1" in first, first
     assert "cannot read the testbench" in first and "}" in first  # ngspice's own words
     assert "Traceback" not in run.stderr
 
@@ -367,6 +367,6 @@ def test_found_by_fuzzing_a_param_the_template_cannot_use_is_a_netlist_error(tmp
     try:
         netlist.build_deck(cfg, cfg.cells[0])
     except CharflowError as exc:
-        assert "cell INV_X1" in str(exc) and "wn = ''" in str(exc)
+        assert "cell QINV_P1" in str(exc) and "wn = ''" in str(exc)
     else:
         raise AssertionError("the template rendered with a text width")

@@ -37,7 +37,7 @@ vdd = 1.2
 {grid}
 
 [[cell]]
-name = "INV_X1"
+name = "QINV_P1"
 template = "{INV}"
 params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
 inputs = ["A"]
@@ -86,7 +86,7 @@ def test_run_writes_the_library(tmp_path: Path) -> None:
     assert "90 points measured, 0 failed" in done.stdout
     # Read with the independent liberty-parser (Thomas Kramer, liberty-parser 0.0.29).
     parsed = parse_liberty(lib.read_text(encoding="utf-8"))
-    assert [c.args[0] for c in parsed.get_groups("cell")] == ["INV_X1", "NAND2_X1", "NOR2_X1"]
+    assert [c.args[0] for c in parsed.get_groups("cell")] == ["QINV_P1", "QNAND2_P1", "QNOR2_P1"]
 
 
 def test_missing_config_file(tmp_path: Path) -> None:
@@ -107,7 +107,7 @@ def test_unknown_key(tmp_path: Path) -> None:
     text = _config().replace('inputs = ["A"]', 'inputs = ["A"]\ncolour = 1')
     path.write_text(text, encoding="utf-8")
     done = _charflow("run", path, "--out", tmp_path / "out", cwd=tmp_path)
-    _bad(done, EXIT_BAD_INPUT, f"file {path}, key cell[0].colour, cell INV_X1:", "unknown key")
+    _bad(done, EXIT_BAD_INPUT, f"file {path}, key cell[0].colour, cell QINV_P1:", "unknown key")
 
 
 def test_bad_grid(tmp_path: Path) -> None:
@@ -123,7 +123,7 @@ def test_functional_mismatch(tmp_path: Path) -> None:
     path.write_text(_config(function="A"), encoding="utf-8")
     out = tmp_path / "out"
     done = _charflow("run", path, "--out", out, cwd=tmp_path)
-    _bad(done, EXIT_BAD_INPUT, "cell INV_X1", "pin Y", "vector A=0")
+    _bad(done, EXIT_BAD_INPUT, "cell QINV_P1", "pin Y", "vector A=0")
     assert not any(out.glob("*.lib"))
 
 

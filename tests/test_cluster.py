@@ -77,13 +77,13 @@ def test_an_unreachable_scheduler_is_a_cluster_error(monkeypatch) -> None:
     cfg = config.load(SMALL)
     # Port 9 (discard) on the loopback address: nothing listens there.
     with pytest.raises(ClusterError, match="cannot reach the Dask scheduler"):
-        flow.characterize(cfg, cells=["INV_X1"], scheduler="tcp://127.0.0.1:9")
+        flow.characterize(cfg, cells=["QINV_P1"], scheduler="tcp://127.0.0.1:9")
 
 
 def test_a_malformed_scheduler_address_is_refused_at_once() -> None:
     cfg = config.load(SMALL)
     with pytest.raises(ClusterError, match="not a Dask scheduler address: foo bar"):
-        flow.characterize(cfg, cells=["INV_X1"], scheduler="foo bar")
+        flow.characterize(cfg, cells=["QINV_P1"], scheduler="foo bar")
 
 
 def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> None:
@@ -97,7 +97,7 @@ def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> No
     from charflow import sweep
 
     cfg = config.load(SMALL)
-    points = sweep.plan(cfg, ["NAND2_X1", "NOR2_X1"]).points
+    points = sweep.plan(cfg, ["QNAND2_P1", "QNOR2_P1"]).points
     # No retries on the cluster: the first death of a worker gives up on its chunk.
     with (
         dask.config.set({"distributed.scheduler.allowed-failures": 0}),

@@ -36,18 +36,18 @@ def _doc() -> dict[str, Any]:
         "grid": {"slew": [0.01, 0.1], "load": [0.001, 0.01]},
         "cell": [
             {
-                "name": "INV_X1",
+                "name": "QINV_P1",
                 "template": str(CELLS / "inv.sp.j2"),
                 "params": dict(INV_PARAMS),
                 "inputs": ["A"],
                 "outputs": {"Y": "!A"},
             },
             {
-                "name": "NAND2_X1",
+                "name": "QNAND2_P1",
                 "template": str(CELLS / "nand2.sp.j2"),
                 "params": dict(NAND2_PARAMS),
-                "inputs": ["A1", "A2"],
-                "outputs": {"Y": "!(A1&A2)"},
+                "inputs": ["IA", "IB"],
+                "outputs": {"Y": "!(IA&IB)"},
             },
         ],
     }
@@ -106,7 +106,7 @@ def test_good_config_is_in_si_units(cfg_path: Path) -> None:
     assert t.slew_band("rise") == pytest.approx((0.1, 0.9))
     assert t.slew_band("fall") == pytest.approx((0.2, 0.8))
     assert t.slew_derate == 0.5  # a factor, not a percentage
-    inv = cfg.cell("INV_X1")
+    inv = cfg.cell("QINV_P1")
     assert inv.inputs == ("A",)
     assert [o.pin for o in inv.outputs] == ["Y"]
     assert inv.outputs[0].function.to_liberty() == "!A"
@@ -147,7 +147,7 @@ vdd = 1.2
 slew = [0.01, 0.1]
 load = [0.001, 0.01]
 [[cell]]
-name = "INV_X1"
+name = "QINV_P1"
 template = "../cells/cfg_inv.sp.j2"
 params = { wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }
 inputs = ["A"]
@@ -156,7 +156,7 @@ outputs = { Y = "!A" }
     )
     cfg = config.load(path)
     assert cfg.process.models == (ModelFile(model, "tt"),)
-    assert cfg.cell("INV_X1").template == template
+    assert cfg.cell("QINV_P1").template == template
     # Defaults: ns and pF, 25 degrees C.
     assert (cfg.time_unit, cfg.cap_unit, cfg.process.temperature) == ("ns", "pf", 25.0)
 
@@ -165,10 +165,10 @@ def test_cell_grid_override(cfg_path: Path) -> None:
     doc = _doc()
     doc["cell"][1]["grid"] = {"slew": [0.02, 0.04, 0.08]}
     cfg = config.parse(doc, cfg_path)
-    nand = cfg.cell("NAND2_X1")
+    nand = cfg.cell("QNAND2_P1")
     assert nand.grid.slew == pytest.approx((0.02e-9, 0.04e-9, 0.08e-9), rel=1e-15, abs=0)
     assert nand.grid.load == cfg.grid.load  # the axis not overridden comes from [grid]
-    assert cfg.cell("INV_X1").grid == cfg.grid
+    assert cfg.cell("QINV_P1").grid == cfg.grid
 
 
 def test_a_zero_load_is_a_valid_point(cfg_path: Path) -> None:
@@ -209,8 +209,8 @@ def test_unknown_process_key(cfg_path: Path) -> None:
 
 def test_unknown_cell_key(cfg_path: Path) -> None:
     doc = _doc()
-    doc["cell"][1]["inptus"] = ["A1", "A2"]
-    err = _one_problem(doc, cfg_path, "cell[1].inptus", "NAND2_X1")
+    doc["cell"][1]["inptus"] = ["IA", "IB"]
+    err = _one_problem(doc, cfg_path, "cell[1].inptus", "QNAND2_P1")
     assert "unknown key" in err.reason and "inputs" in err.reason
 
 
@@ -237,7 +237,7 @@ def test_global_grid_not_increasing(cfg_path: Path, axis: str) -> None:
 def test_cell_grid_not_increasing(cfg_path: Path) -> None:
     doc = _doc()
     doc["cell"][1]["grid"] = {"load": [0.01, 0.001]}
-    err = _one_problem(doc, cfg_path, "cell[1].grid.load", "NAND2_X1")
+    err = _one_problem(doc, cfg_path, "cell[1].grid.load", "QNAND2_P1")
     assert "strictly increasing" in err.reason
 
 
@@ -254,7 +254,7 @@ def test_grid_entry_not_positive(cfg_path: Path, axis: str, values: list[float])
 def test_cell_grid_zero_slew(cfg_path: Path) -> None:
     doc = _doc()
     doc["cell"][0]["grid"] = {"slew": [0, 0.05]}
-    err = _one_problem(doc, cfg_path, "cell[0].grid.slew", "INV_X1")
+    err = _one_problem(doc, cfg_path, "cell[0].grid.slew", "QINV_P1")
     assert "greater than 0" in err.reason
 
 
@@ -267,15 +267,15 @@ def test_grid_not_a_list_of_numbers(cfg_path: Path, values: object) -> None:
 
 def test_function_pin_not_among_inputs(cfg_path: Path) -> None:
     doc = _doc()
-    doc["cell"][1]["outputs"] = {"Y": "!(A1&B)"}
-    err = _one_problem(doc, cfg_path, "cell[1].outputs.Y", "NAND2_X1")
+    doc["cell"][1]["outputs"] = {"Y": "!(IA&B)"}
+    err = _one_problem(doc, cfg_path, "cell[1].outputs.Y", "QNAND2_P1")
     assert "B" in err.reason and "not among the inputs" in err.reason
 
 
 def test_function_syntax_error(cfg_path: Path) -> None:
     doc = _doc()
     doc["cell"][0]["outputs"] = {"Y": "!(A&"}
-    _one_problem(doc, cfg_path, "cell[0].outputs.Y", "INV_X1")
+    _one_problem(doc, cfg_path, "cell[0].outputs.Y", "QINV_P1")
 
 
 def test_missing_model_file(cfg_path: Path, tmp_path: Path) -> None:
@@ -288,21 +288,21 @@ def test_missing_model_file(cfg_path: Path, tmp_path: Path) -> None:
 def test_missing_template_file(cfg_path: Path, tmp_path: Path) -> None:
     doc = _doc()
     doc["cell"][0]["template"] = "cfg_nowhere.sp.j2"
-    err = _one_problem(doc, cfg_path, "cell[0].template", "INV_X1")
+    err = _one_problem(doc, cfg_path, "cell[0].template", "QINV_P1")
     assert str(tmp_path / "cfg_nowhere.sp.j2") in err.reason
 
 
 def test_template_and_netlist_both_given(cfg_path: Path) -> None:
     doc = _doc()
     doc["cell"][0]["netlist"] = str(CELLS / "inv.sp.j2")
-    err = _one_problem(doc, cfg_path, "cell[0]", "INV_X1")
+    err = _one_problem(doc, cfg_path, "cell[0]", "QINV_P1")
     assert "template" in err.reason and "netlist" in err.reason
 
 
 def test_neither_template_nor_netlist(cfg_path: Path) -> None:
     doc = _doc()
     del doc["cell"][0]["template"]
-    _one_problem(doc, cfg_path, "cell[0]", "INV_X1")
+    _one_problem(doc, cfg_path, "cell[0]", "QINV_P1")
 
 
 def test_unknown_time_unit(cfg_path: Path) -> None:
@@ -314,8 +314,8 @@ def test_unknown_time_unit(cfg_path: Path) -> None:
 
 def test_duplicate_cell_names(cfg_path: Path) -> None:
     doc = _doc()
-    doc["cell"][1]["name"] = "INV_X1"
-    err = _one_problem(doc, cfg_path, "cell[1].name", "INV_X1")
+    doc["cell"][1]["name"] = "QINV_P1"
+    err = _one_problem(doc, cfg_path, "cell[1].name", "QINV_P1")
     assert "twice" in err.reason
 
 
@@ -331,7 +331,7 @@ def test_several_problems_in_one_error(cfg_path: Path) -> None:
     doc["colour"] = "blue"
     doc["process"]["vdd"] = "1.2"
     doc["grid"]["slew"] = [0.1, 0.01]
-    doc["cell"][1]["outputs"] = {"Y": "!(A1&B)"}
+    doc["cell"][1]["outputs"] = {"Y": "!(IA&B)"}
     with pytest.raises(ConfigError) as info:
         config.parse(doc, cfg_path)
     head, *lines = str(info.value).splitlines()
@@ -342,7 +342,7 @@ def test_several_problems_in_one_error(cfg_path: Path) -> None:
             f"file {cfg_path}, key colour",
             f"file {cfg_path}, key process.vdd",
             f"file {cfg_path}, key grid.slew",
-            f"file {cfg_path}, key cell[1].outputs.Y, cell NAND2_X1",
+            f"file {cfg_path}, key cell[1].outputs.Y, cell QNAND2_P1",
         ]
     )
 
@@ -438,7 +438,7 @@ def test_template_with_an_undefined_variable(tmp_path: Path) -> None:
     del doc["cell"][0]["params"]["wp"]
     cfg = config.parse(doc, tmp_path / "cfg.toml")
     with pytest.raises(NetlistError) as info:
-        netlist.build_deck(cfg, cfg.cell("INV_X1"))
+        netlist.build_deck(cfg, cfg.cell("QINV_P1"))
     ctx = info.value.context
-    assert (ctx["cell"], ctx["file"], ctx["key"]) == ("INV_X1", template, "params")
+    assert (ctx["cell"], ctx["file"], ctx["key"]) == ("QINV_P1", template, "params")
     assert "wp" in str(info.value)

@@ -17,7 +17,7 @@ pytestmark = pytest.mark.slow
 
 # Sutherland, Sproull & Harris, "Logical Effort", 1999: input capacitance of NAND2 and NOR2
 # sized for the inverter's drive, over the inverter's, is 4/3 and 5/3 (p/n mobility ratio 2).
-LOGICAL_EFFORT = {"NAND2_X1": 4 / 3, "NOR2_X1": 5 / 3}
+LOGICAL_EFFORT = {"QNAND2_P1": 4 / 3, "QNOR2_P1": 5 / 3}
 LE_RTOL = 0.15
 
 
@@ -74,7 +74,7 @@ def test_demo_logical_effort_of_input_capacitance(demo):
         for c in doc["cells"]
     }
     for cell, ratio in LOGICAL_EFFORT.items():
-        assert caps[cell] / caps["INV_X1"] == pytest.approx(ratio, rel=LE_RTOL), cell
+        assert caps[cell] / caps["QINV_P1"] == pytest.approx(ratio, rel=LE_RTOL), cell
 
 
 def test_demo_liberty_parses_and_holds_every_cell(demo):

@@ -47,13 +47,13 @@ def constructed(library: Path) -> Path:
     """A copy of the JSON with two tables changed, one arc removed and one cell added."""
     doc = json.loads((library / "small_l1.json").read_text())
     new = copy.deepcopy(doc)
-    _table(_arc(new, "INV_X1", "A"), "cell_rise")["values"][1][2] *= 1.05
-    for row in _table(_arc(new, "NAND2_X1", "A1"), "fall_transition")["values"]:
+    _table(_arc(new, "QINV_P1", "A"), "cell_rise")["values"][1][2] *= 1.05
+    for row in _table(_arc(new, "QNAND2_P1", "IA"), "fall_transition")["values"]:
         row[:] = [v * 0.9 for v in row]
-    (nor2,) = [c for c in new["cells"] if c["name"] == "NOR2_X1"]
-    nor2["arcs"] = [a for a in nor2["arcs"] if a["related_pin"] != "A2"]
-    inv2 = copy.deepcopy(next(c for c in new["cells"] if c["name"] == "INV_X1"))
-    inv2["name"] = "INV_X2"
+    (nor2,) = [c for c in new["cells"] if c["name"] == "QNOR2_P1"]
+    nor2["arcs"] = [a for a in nor2["arcs"] if a["related_pin"] != "IB"]
+    inv2 = copy.deepcopy(next(c for c in new["cells"] if c["name"] == "QINV_P1"))
+    inv2["name"] = "QINV_P2"
     new["cells"].append(inv2)
     path = library / "constructed.json"
     path.write_text(json.dumps(new), encoding="utf-8")
@@ -77,15 +77,15 @@ def test_diff_finds_exactly_the_constructed_changes(
 ) -> None:
     c = diff.compare(diff.read(library / old_name), diff.read(constructed))
     assert [ch.name for ch in c.changed] == [
-        "NAND2_X1 A1->Y fall_transition",
-        "INV_X1 A->Y cell_rise",
+        "QNAND2_P1 IA->Y fall_transition",
+        "QINV_P1 A->Y cell_rise",
     ]
     assert c.changed[0].relative == pytest.approx(-0.10, rel=1e-5)
     assert c.changed[1].relative == pytest.approx(0.05, rel=1e-5)
     assert [v for _, v in c.changed[1].coords] == pytest.approx([5e-11, 2e-14])
-    assert c.vanished == tuple(sorted(f"NOR2_X1 A2->Y {q}" for q in diff.TIMING_QUANTITIES))
-    assert set(c.appeared) == {f"INV_X2 A->Y {q}" for q in diff.TIMING_QUANTITIES} | {
-        f"INV_X2 pin A {q}" for q in diff.PIN_QUANTITIES
+    assert c.vanished == tuple(sorted(f"QNOR2_P1 IB->Y {q}" for q in diff.TIMING_QUANTITIES))
+    assert set(c.appeared) == {f"QINV_P2 A->Y {q}" for q in diff.TIMING_QUANTITIES} | {
+        f"QINV_P2 pin A {q}" for q in diff.PIN_QUANTITIES
     }
     assert not c.reshaped
     assert len(c.unchanged) == TABLES - 4 - 2
@@ -110,12 +110,12 @@ def test_the_command_reports_and_exits_for_scripts(library: Path, constructed: P
     assert done.returncode == 1, done.stderr
     assert "2 tables changed, 7 appeared, 4 vanished" in done.stdout
     assert "largest relative changes (1 of 2):" in done.stdout
-    assert "-10 %  NAND2_X1 A1->Y fall_transition" in done.stdout
-    assert "INV_X1 A->Y cell_rise" not in done.stdout  # --top 1
-    assert "NOR2_X1 A2->Y cell_rise" in done.stdout
+    assert "-10 %  QNAND2_P1 IA->Y fall_transition" in done.stdout
+    assert "QINV_P1 A->Y cell_rise" not in done.stdout  # --top 1
+    assert "QNOR2_P1 IB->Y cell_rise" in done.stdout
     page = html.read_text(encoding="utf-8")
     assert page.count("<img ") == 2 and "data:image/png;base64," in page
-    assert "NAND2_X1 A1-&gt;Y fall_transition" in page
+    assert "QNAND2_P1 IA-&gt;Y fall_transition" in page
 
     missing = _charflow("diff", library / "absent.lib", constructed)
     assert missing.returncode == 2

@@ -1,5 +1,5 @@
 """Flip-flop power: clock-event energy, hidden power of the clock and data pins, leakage per
-stored value (tests/data/seq_l1.toml's DFFR_X1 on the level-1 models, the demo's DFF_X1 on the
+stored value (tests/data/seq_l1.toml's QDFFR_P1 on the level-1 models, the demo's QDFF_P1 on the
 BSIM cards for leakage); needs ngspice (fails without it)."""
 
 from __future__ import annotations
@@ -22,11 +22,11 @@ from charflow.units import power_unit
 ROOT = Path(__file__).resolve().parents[1]
 SEQ = ROOT / "tests" / "data" / "seq_l1.toml"
 DEMO = DEMO_CONFIG
-CELL = "DFFR_X1"
+CELL = "QDFFR_P1"
 RTOL_READBACK = 1e-6  # 7 significant digits in the Liberty file
 CV2_RTOL = 0.03  # supply energy growth with the load against C·V²
 # ... and its change on a falling output, as a fraction of the same C·V²: only the short-circuit
-# current of the inverter the output drives (QN's, on Q) changes with the output's slew: 3.0 %
+# current of the inverter the output drives (QB's, on Q) changes with the output's slew: 3.0 %
 FALL_RTOL = 0.05
 STATE_SPREAD = 0.05  # leakage of the two stored values under one vector differs by more
 HOLD_RTOL = 0.01  # a static level read after a 10 times longer hold
@@ -45,7 +45,7 @@ def cfg():
 
 @pytest.fixture(scope="module")
 def runs(cfg, tmp_path_factory):
-    """DFFR_X1 characterized twice into one result store, and the first run's outputs."""
+    """QDFFR_P1 characterized twice into one result store, and the first run's outputs."""
     out = tmp_path_factory.mktemp("ffpower")
     with Store(out / FILE_NAME) as store:
         first = flow.characterize(cfg, cells=[CELL], jobs=2, store=store)
@@ -63,11 +63,11 @@ def test_every_flop_arc_has_finite_positive_energy_tables(runs):
     first, _, _ = runs
     cell = _cell_power(first)
     kinds = {(a.arc.related, a.arc.output): a for a in cell.arcs}
-    assert set(kinds) == {("CK", "Q"), ("CK", "QN"), ("RN", "Q"), ("RN", "QN")}
+    assert set(kinds) == {("CLK", "Q"), ("CLK", "QB"), ("RSTB", "Q"), ("RSTB", "QB")}
     for (related, _), arc in kinds.items():
         want = (
             ["rise_power", "fall_power"]
-            if related == "CK"
+            if related == "CLK"
             else [f"{arc.arc.output_edges[0]}_power"]
         )
         assert [t.quantity for t in arc.default] == want
@@ -87,7 +87,7 @@ def _clock_points(result, output: str, edge: str) -> dict[tuple, Measurement]:
     }
 
 
-@pytest.mark.parametrize("output", ["Q", "QN"])
+@pytest.mark.parametrize("output", ["Q", "QB"])
 def test_a_larger_load_on_a_rising_output_draws_its_cv2_from_the_supply(cfg, runs, output):
     # Charging a capacitor C from a supply V draws C·V² from the supply whatever the driver;
     # discharging it to ground draws nothing (Weste & Harris, CMOS VLSI Design, 4th ed., 2010,
@@ -117,11 +117,11 @@ def test_clock_hidden_power_is_positive_per_stored_value(cfg, runs):
     # local inverters and the latches' transmission gates still switch: energy on both edges.
     first, _, _ = runs
     cell = _cell_power(first)
-    clock = {h.when: h for h in cell.hidden if h.pin == "CK"}
-    assert sorted(clock) == ["!D&RN&!Q", "!D&RN&Q", "D&RN&!Q", "D&RN&Q"]
+    clock = {h.when: h for h in cell.hidden if h.pin == "CLK"}
+    assert sorted(clock) == ["!D&RSTB&!Q", "!D&RSTB&Q", "D&RSTB&!Q", "D&RSTB&Q"]
     for when, hidden in clock.items():
         # With the data opposite the stored value only the inactive (falling) edge leaves it.
-        both = when in ("!D&RN&!Q", "D&RN&Q")
+        both = when in ("!D&RSTB&!Q", "D&RSTB&Q")
         want = ["rise_power", "fall_power"] if both else ["fall_power"]
         assert [t.quantity for t in hidden.tables] == want
         for table in hidden.tables:
@@ -129,7 +129,7 @@ def test_clock_hidden_power_is_positive_per_stored_value(cfg, runs):
             assert np.all(table.values > 0), (hidden.when, table.quantity)
     # The data pin under either clock level and either stored value, both edges at every slew.
     data = {h.when for h in cell.hidden if h.pin == "D"}
-    assert data == {"!CK&RN&!Q", "!CK&RN&Q", "CK&RN&!Q", "CK&RN&Q"}
+    assert data == {"!CLK&RSTB&!Q", "!CLK&RSTB&Q", "CLK&RSTB&!Q", "CLK&RSTB&Q"}
     assert len(first.toggles) == len(power.plan_toggles(cfg, [CELL])) == 28
 
 
@@ -139,7 +139,7 @@ def test_a_clock_edge_that_would_change_the_state_is_not_hidden(cfg):
     cell = cfg.cell(CELL)
     deck = netlist.build_deck(cfg, cell)
     good = next(
-        p for p in power.plan_toggles(cfg, [CELL]) if p.related == "CK" and p.input_edge == "rise"
+        p for p in power.plan_toggles(cfg, [CELL]) if p.related == "CLK" and p.input_edge == "rise"
     )
     m = power.measure_toggle(cfg, deck, good)
     assert m.energy > 0 and m.settled > 0
@@ -153,13 +153,13 @@ def test_flop_leakage_depends_on_the_stored_value(monkeypatch):
     # On the BSIM cards (subthreshold current modelled): every state leaks, and which devices
     # are off depends on the stored value, so under one input vector the two values differ.
     demo = config.load(DEMO)
-    cell = demo.cell("DFF_X1")
+    cell = demo.cell("QDFF_P1")
     deck = netlist.build_deck(demo, cell)
     states = power.leakage(demo, deck)
-    assert len(states) == 2 * 2**2  # stored value x (D, CK)
+    assert len(states) == 2 * 2**2  # stored value x (D, CLK)
     leak = {s.when: s.power for s in states}
     assert all(w > 0 for w in leak.values())
-    spread = [abs(leak[f"{v}&!Q"] / leak[f"{v}&Q"] - 1) for v in ("!D&!CK", "!D&CK", "D&!CK")]
+    spread = [abs(leak[f"{v}&!Q"] / leak[f"{v}&Q"] - 1) for v in ("!D&!CLK", "!D&CLK", "D&!CLK")]
     assert max(spread) > STATE_SPREAD, leak
     # The level read is settled: a hold ten times longer reads the same.
     for state, vector in ffpower.vectors(cell)[::3]:
@@ -172,14 +172,14 @@ def test_flop_leakage_depends_on_the_stored_value(monkeypatch):
 
 
 def test_a_vector_that_forces_the_other_state_is_no_leakage_state(cfg):
-    # With RN low the clear forces Q = 0: a stored 1 cannot rest under it.
+    # With RSTB low the clear forces Q = 0: a stored 1 cannot rest under it.
     cell = cfg.cell(CELL)
     rests = ffpower.vectors(cell)
     assert len(rests) == 8 + 4
-    assert all(state is False for state, v in rests if not v["RN"])
-    with pytest.raises(MeasurementError, match="cannot hold 1 under D&!CK&!RN"):
+    assert all(state is False for state, v in rests if not v["RSTB"])
+    with pytest.raises(MeasurementError, match="cannot hold 1 under D&!CLK&!RSTB"):
         ffpower.state_current(
-            cfg, netlist.build_deck(cfg, cell), True, {"D": True, "CK": False, "RN": False}
+            cfg, netlist.build_deck(cfg, cell), True, {"D": True, "CLK": False, "RSTB": False}
         )
 
 

@@ -3,7 +3,7 @@
 Pure numerics first, against closed forms: the error of linear interpolation of a quadratic is
 known exactly, and of any smooth function it obeys h²/8 · max|f''| per axis (Burden & Faires,
 *Numerical Analysis*, 9th ed., 2010, sec. 3.1). Then ngspice runs: the report of the small
-level-1 library, and on the demo arc INV_X1 A->Y the report's simulated values against an
+level-1 library, and on the demo arc QINV_P1 A->Y the report's simulated values against an
 independent re-simulation of the same points.
 """
 
@@ -287,17 +287,17 @@ def test_summary_names_the_worst_table_first(small) -> None:
 
 
 def test_demo_arc_values_equal_an_independent_re_simulation(ngspice) -> None:
-    """INV_X1 A->Y at the demo's 7 x 7 grid: the report's simulated values, read back from the
+    """QINV_P1 A->Y at the demo's 7 x 7 grid: the report's simulated values, read back from the
     JSON, against measure_point called directly in this process (no sweep, no workers), and its
     interpolated values against scipy on the tables of the characterization's own JSON."""
     cfg = dataclasses.replace(
         config.load(DEMO), fidelity=Fidelity(random_points=3, seed=8, rel_floor=1e-12)
     )
-    result = flow.characterize(cfg, cells=["INV_X1"], jobs=2)
+    result = flow.characterize(cfg, cells=["QINV_P1"], jobs=2)
     report = fidelity.check(cfg, result.cells, jobs=2)
     data = json.loads(json.dumps(fidelity.to_json(cfg, report)))
     tables = flow.to_json(cfg, result)["cells"][0]["arcs"][0]["tables"]
-    deck = netlist.build_deck(cfg, cfg.cell("INV_X1"))
+    deck = netlist.build_deck(cfg, cfg.cell("QINV_P1"))
     (arc,) = data["cells"][0]["arcs"]
     (state,) = arc["states"]
     checked = 0
@@ -312,7 +312,7 @@ def test_demo_arc_values_equal_an_independent_re_simulation(ngspice) -> None:
         assert len(table["compared"]) == 36 + 3
         for record in table["compared"][::6]:
             slew, load = record["index"]
-            point = sweep.TimingPoint("INV_X1", "A", "Y", (), in_edge, out_edge, slew, load)
+            point = sweep.TimingPoint("QINV_P1", "A", "Y", (), in_edge, out_edge, slew, load)
             m = timing.measure_point(cfg, deck, point)
             direct = m.delay if quantity.startswith("cell_") else m.transition
             assert record["simulated"] == pytest.approx(direct, rel=SIM_RTOL)
@@ -334,16 +334,16 @@ def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> N
     result = flow.characterize(cfg, jobs=2)
     report = fidelity.check(cfg, result.cells, jobs=2)
     assert not report.failures
-    assert {c.related for c in report.checks} == {"A", "CK", "RN"}
+    assert {c.related for c in report.checks} == {"A", "CLK", "RSTB"}
     for c in report.checks:
         assert c.table.ndim == 3 and c.stats is not None
         for p in c.points:
             for axis, x in zip(c.table.axes, p.coords, strict=True):
                 assert axis.values[0] < x < axis.values[-1]
-    check = next(c for c in report.checks if c.related == "CK")
+    check = next(c for c in report.checks if c.related == "CLK")
     probe = check.points[0]
     series = fidelity.templates(cfg, check.cell)
-    arc = next(a.arc for a in result.cells[1].arcs if (a.arc.related, a.arc.output) == ("CK", "Q"))
+    arc = next(a.arc for a in result.cells[1].arcs if (a.arc.related, a.arc.output) == ("CLK", "Q"))
     template = fidelity.template_of(series, arc, arc.states[0], check.table.quantity)
     point = fidelity.timing_point(template, check.table.axes, probe.coords)
     assert point.kind == "clock" and point.other_load == probe.coords[2]

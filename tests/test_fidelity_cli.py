@@ -97,7 +97,7 @@ def test_run_with_fidelity(tmp_path: Path) -> None:
         "run",
         SMALL,
         "--cell",
-        "INV_X1",
+        "QINV_P1",
         "--fidelity",
         "--out",
         out,
@@ -118,7 +118,7 @@ def test_grid_study_command(tmp_path: Path) -> None:
         "grid-study",
         SMALL,
         "--cell",
-        "INV_X1",
+        "QINV_P1",
         "--arc",
         "A:Y",
         "--sizes",
@@ -137,7 +137,7 @@ def test_grid_study_command(tmp_path: Path) -> None:
         cwd=tmp_path,
     )
     _ok(done)
-    stem = out / "small_l1.INV_X1.A-Y.gridstudy"
+    stem = out / "small_l1.QINV_P1.A-Y.gridstudy"
     assert Path(f"{stem}.json").is_file() and Path(f"{stem}.png").is_file()
     assert "target 20 %:" in done.stdout and "target 10 %:" in done.stdout
 
@@ -153,7 +153,7 @@ def test_grid_study_command(tmp_path: Path) -> None:
     ],
 )
 def test_grid_study_bad_options(tmp_path: Path, args: tuple[str, ...], message: str) -> None:
-    done = _charflow("grid-study", SMALL, "--cell", "INV_X1", *args, cwd=tmp_path)
+    done = _charflow("grid-study", SMALL, "--cell", "QINV_P1", *args, cwd=tmp_path)
     assert "Traceback" not in done.stderr
     assert done.returncode == EXIT_BAD_INPUT, done.stderr
     assert message in done.stderr

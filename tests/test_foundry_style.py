@@ -38,7 +38,7 @@ def test_wrapped_devices_time_like_their_m_card_twin(backend):
     )
     plain = config.load(DATA / "small_l1.toml")
     grid = wrapped.cells[0].grid
-    inv = dataclasses.replace(plain.cell("INV_X1"), grid=grid)
+    inv = dataclasses.replace(plain.cell("QINV_P1"), grid=grid)
     plain = dataclasses.replace(plain, cells=(inv,))
 
     got = flow.characterize(wrapped, jobs=1)
@@ -46,7 +46,7 @@ def test_wrapped_devices_time_like_their_m_card_twin(backend):
     assert not got.failures
     for quantity in ("cell_rise", "cell_fall", "rise_transition", "fall_transition"):
         a = _tables(got)[("WINV", "A", quantity)].values
-        b = _tables(want)[("INV_X1", "A", quantity)].values
+        b = _tables(want)[("QINV_P1", "A", quantity)].values
         assert a == pytest.approx(b, rel=RTOL), quantity
 
 

@@ -155,7 +155,7 @@ def test_setup_hold_fill_along_the_clock_slew():
     # rise_constraint at data slew 2e-11: clock slews 1e-11 and 4e-11 measured (30, 60 ps),
     # 2e-11 failed: 30 + 30 * (2e-11 - 1e-11) / (4e-11 - 1e-11) = 40 ps.
     def cp(ds: float, cs: float) -> ConstraintPoint:
-        return ConstraintPoint("DFF", "D", "CK", "setup", "rise", "rise", ds, cs)
+        return ConstraintPoint("DFF", "D", "CLK", "setup", "rise", "rise", ds, cs)
 
     points = tuple(cp(ds, cs) for ds in (2e-11, 8e-11) for cs in (1e-11, 2e-11, 4e-11))
     measured = [
@@ -169,7 +169,7 @@ def test_setup_hold_fill_along_the_clock_slew():
 
 
 def test_pulse_widths_and_lone_points_are_not_filled():
-    pulse = PulsePoint("DFF", "CK", "high", 1e-11)
+    pulse = PulsePoint("DFF", "CLK", "high", 1e-11)
     lone = _tp(SLEWS[0], LOADS[0])
     plan = Plan((), (pulse, lone))
     for method in gaps.METHODS:
@@ -182,7 +182,7 @@ def test_pulse_widths_and_lone_points_are_not_filled():
 def test_flop_records_keep_their_missing_energies_and_fill_side_charges():
     def clocked(load: float, delay: float, q: float) -> Measurement:
         p = TimingPoint(
-            "DFF", "CK", "Q", (("D", True),), "rise", "rise", 1e-11, load, None, "clock"
+            "DFF", "CLK", "Q", (("D", True),), "rise", "rise", 1e-11, load, None, "clock"
         )
         return Measurement(p, delay, 1e-11, 1e-15, 1, 0.0, 0.0, side_charges=(("D", "rise", q),))
 
@@ -206,7 +206,7 @@ def test_an_unknown_method_is_refused_before_any_sweep():
         gaps.fill_gaps(_grid_plan(), [], [], "spline")
     cfg = config.load(DATA / "small_l1.toml")
     with pytest.raises(ConfigError, match="spline"):
-        flow.characterize(cfg, cells=["INV_X1"], jobs=1, allow_gaps="spline")
+        flow.characterize(cfg, cells=["QINV_P1"], jobs=1, allow_gaps="spline")
 
 
 # -- real failing points and their waveforms -----------------------------------------------------
@@ -214,9 +214,9 @@ def test_an_unknown_method_is_refused_before_any_sweep():
 
 @pytest.fixture(scope="module")
 def inverter(tmp_path_factory):
-    """INV_X1 with a window its 0.02 pF load cannot settle in: 6 failed points."""
+    """QINV_P1 with a window its 0.02 pF load cannot settle in: 6 failed points."""
     tmp = tmp_path_factory.mktemp("inv")
-    cfg = config.load(_small(tmp, ("INV_X1",)))
+    cfg = config.load(_small(tmp, ("QINV_P1",)))
     result = flow.characterize(cfg, jobs=1)
     out = tmp / "out"
     written = flow.write(cfg, result, out)
@@ -241,11 +241,11 @@ def test_saved_csv_parses_back_and_names_the_point(inverter):
     for f, entry in zip(result.failures, doc["failures"], strict=True):
         csv, png = out / entry["waveform_csv"], out / entry["waveform_png"]
         assert csv in written and png in written
-        assert csv.parent == out / faults.FOLDER / "INV_X1"
+        assert csv.parent == out / faults.FOLDER / "QINV_P1"
         lines = csv.read_text().splitlines()
         comments = [line for line in lines if line.startswith("#")]
         header = " ".join(comments)
-        for text in ("INV_X1", "A->Y", f.point.label, f.reason, "input edge: ", "load: 2e-14 F"):
+        for text in ("QINV_P1", "A->Y", f.point.label, f.reason, "input edge: ", "load: 2e-14 F"):
             assert text in header
         columns = lines[len(comments)].split(",")
         assert columns == ["time_s", "Y_V", "A_V"]
@@ -265,22 +265,22 @@ def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
     # and the setup and pulse-width searches fail on their relaxed trial.
     cfg = config.load(DATA / "seq_l1.toml")
     cfg = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, window=2e-11))
-    deck = build_deck(cfg, cfg.cell("DFFR_X1"))
-    points = sweep.plan(cfg, ["DFFR_X1"]).points
+    deck = build_deck(cfg, cfg.cell("QDFFR_P1"))
+    points = sweep.plan(cfg, ["QDFFR_P1"]).points
     clocked = next(p for p in points if isinstance(p, TimingPoint) and p.kind == "clock")
     setup = next(p for p in points if isinstance(p, ConstraintPoint) and p.kind == "setup")
     pulse = next(p for p in points if isinstance(p, PulsePoint))
     with pytest.raises(MeasurementError) as caught:
         sequential.measure_clocked(cfg, deck, clocked)
     names = [name for name, _ in caught.value.waveform.nodes]
-    assert names[0] == clocked.output and {"CK", "D", "RN"} <= set(names)
+    assert names[0] == clocked.output and {"CLK", "D", "RSTB"} <= set(names)
     # Through the worker's chunk, as a sweep runs it: the Failure holds the run, and survives
     # the trip back from a worker process (pickled).
     outcomes = pickle.loads(pickle.dumps(timing.measure_chunk(cfg, deck, [setup, pulse])))
     for point, f in zip((setup, pulse), outcomes, strict=True):
         assert isinstance(f, Failure) and f.point == point
         assert "fails even with relaxed timing" in f.reason
-        assert {"Q", "CK", "D", "RN"} == {name for name, _ in f.waveform.nodes}
+        assert {"Q", "CLK", "D", "RSTB"} == {name for name, _ in f.waveform.nodes}
         assert len(f.waveform.time) == len(f.waveform.nodes[0][1]) > 10
 
 
@@ -294,7 +294,7 @@ def _run(capsys, *args) -> tuple[int, str, str]:
 
 
 def test_command_fails_without_allow_gaps_and_when_gaps_remain(tmp_path, capsys):
-    cfg_path, out = _small(tmp_path, ("INV_X1", "NAND2_X1")), tmp_path / "out"
+    cfg_path, out = _small(tmp_path, ("QINV_P1", "QNAND2_P1")), tmp_path / "out"
     code, _, err = _run(capsys, cfg_path, "--out", out)
     assert code == cli.EXIT_FAILED_POINTS
     assert "22 point(s) failed" in err
@@ -313,7 +313,7 @@ def test_command_fails_without_allow_gaps_and_when_gaps_remain(tmp_path, capsys)
 @pytest.fixture(scope="module")
 def filled_run(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("filled")
-    cfg_path, out = _small(tmp, ("INV_X1",)), tmp / "out"
+    cfg_path, out = _small(tmp, ("QINV_P1",)), tmp / "out"
     code = cli.main(
         [
             "run",
@@ -348,7 +348,7 @@ def test_filled_points_never_enter_the_store(filled_run):
     filled = {e["point"] for e in doc["filled"]}
     failed = [p for p in plan.points if p.label in filled]
     assert len(failed) == 6
-    ring = keyring(cfg, {"INV_X1": build_deck(cfg, cfg.cell("INV_X1"))})
+    ring = keyring(cfg, {"QINV_P1": build_deck(cfg, cfg.cell("QINV_P1"))})
     with Store(out / FILE_NAME) as store:
         found, _ = store.latest(ring, plan.points)
     assert set(found) == set(plan.points) - set(failed)
@@ -362,8 +362,8 @@ def test_liberty_parses_and_marks_the_filled_tables(filled_run):
     assert len(notes) == 6  # cell_rise, rise_transition, cell_fall, fall_transition, 2 powers
     lib = parse_liberty(text)
     doc = json.loads((out / f"{cfg.name}.json").read_text())
-    measured = {(p["input_edge"], p["slew_s"], p["load_F"]): p for p in doc["points"]["INV_X1"]}
-    slews, loads = cfg.cell("INV_X1").grid.slew, cfg.cell("INV_X1").grid.load
+    measured = {(p["input_edge"], p["slew_s"], p["load_F"]): p for p in doc["points"]["QINV_P1"]}
+    slews, loads = cfg.cell("QINV_P1").grid.slew, cfg.cell("QINV_P1").grid.load
     (timing,) = lib.get_groups("cell")[0].get_groups("pin", "Y")[0].get_groups("timing")
     for in_edge, quantity in (("fall", "cell_rise"), ("rise", "cell_fall")):
         table = timing.get_groups(quantity)[0].get_array("values")

@@ -167,7 +167,7 @@ CANDIDATES = (
 
 
 def _study(candidates) -> Study:
-    return Study("INV_X1", "A", "Y", 1e-12, (), tuple(candidates), (), 0, 0.0)
+    return Study("QINV_P1", "A", "Y", 1e-12, (), tuple(candidates), (), 0, 0.0)
 
 
 def test_recommendation_is_the_smallest_grid_that_meets_the_target() -> None:
@@ -215,7 +215,7 @@ def small_study(ngspice):
     mp.setattr(sweep, "run", recording_run)
     try:
         study = gridstudy.study(
-            cfg, "NAND2_X1", "A2:Y", sizes=(3, 4), reference_points=7, targets=(0.05, 0.2), jobs=2
+            cfg, "QNAND2_P1", "IB:Y", sizes=(3, 4), reference_points=7, targets=(0.05, 0.2), jobs=2
         )
     finally:
         mp.undo()
@@ -227,7 +227,7 @@ def test_every_candidate_grid_is_simulated(small_study) -> None:
     asked = set(requested)
     assert len(asked) == len(requested)  # nothing simulated twice within the study
     assert study.points == len(asked)
-    (state,) = sweep.arcs_of(cfg.cell("NAND2_X1"))[1].states
+    (state,) = sweep.arcs_of(cfg.cell("QNAND2_P1"))[1].states
     assert {(c.placement, c.size) for c in study.candidates} == {
         (p, n) for p in gridstudy.PLACEMENTS for n in (3, 4)
     }
@@ -237,7 +237,7 @@ def test_every_candidate_grid_is_simulated(small_study) -> None:
         middles = itertools.product(sweep.EDGES, *(a.values for a in gridstudy.centres(c.axes)))
         for edge, slew, load in itertools.chain(nodes, middles):
             point = sweep.TimingPoint(
-                "NAND2_X1", "A2", "Y", state.side, edge, state.output_edge(edge), slew, load
+                "QNAND2_P1", "IB", "Y", state.side, edge, state.output_edge(edge), slew, load
             )
             assert point in asked, (c.placement, c.size, point)
         lo_hi = [(a.values[0], a.values[-1]) for a in c.axes]
@@ -255,7 +255,7 @@ def test_errors_fall_with_more_points(small_study) -> None:
 def test_outputs_and_the_paste_line(small_study, tmp_path: Path) -> None:
     cfg, study, _ = small_study
     json_path, png_path = gridstudy.write(cfg, study, tmp_path)
-    assert json_path.name == "small_l1.NAND2_X1.A2-Y.gridstudy.json"
+    assert json_path.name == "small_l1.QNAND2_P1.IB-Y.gridstudy.json"
     assert png_path.read_bytes().startswith(PNG_MAGIC)
     data = json.loads(json_path.read_text(encoding="utf-8"))
     assert len(data["candidates"]) == len(study.candidates)
@@ -267,20 +267,20 @@ def test_outputs_and_the_paste_line(small_study, tmp_path: Path) -> None:
         assert [v * NS for v in grid["slew"]] == pytest.approx(r.best.axes[0].values, rel=RTOL)
         assert [v * PF for v in grid["load"]] == pytest.approx(r.best.axes[1].values, rel=RTOL)
     lines = gridstudy.summary_lines(cfg, study)
-    assert lines[0].startswith("grid study of NAND2_X1 A2->Y: reference 7x7")
+    assert lines[0].startswith("grid study of QNAND2_P1 IB->Y: reference 7x7")
 
 
 def test_an_unknown_arc_is_named(ngspice) -> None:
     cfg = config.load(SMALL_L1)
-    with pytest.raises(ConfigError, match="no arc 'B:Y'.*A1:Y, A2:Y"):
-        gridstudy.study(cfg, "NAND2_X1", "B:Y", sizes=(3,), reference_points=5)
+    with pytest.raises(ConfigError, match="no arc 'B:Y'.*IA:Y, IB:Y"):
+        gridstudy.study(cfg, "QNAND2_P1", "B:Y", sizes=(3,), reference_points=5)
 
 
 def test_a_clock_arc_is_studied_with_its_flip_flop_experiment(ngspice) -> None:
     cfg = dataclasses.replace(
         config.load(ROOT / "tests" / "data" / "seq_l1.toml"), fidelity=Fidelity(rel_floor=1e-12)
     )
-    study = gridstudy.study(cfg, "DFFR_X1", "CK:Q", sizes=(2, 3), reference_points=4, jobs=2)
-    assert (study.related, study.output) == ("CK", "Q")
+    study = gridstudy.study(cfg, "QDFFR_P1", "CLK:Q", sizes=(2, 3), reference_points=4, jobs=2)
+    assert (study.related, study.output) == ("CLK", "Q")
     assert study.candidates and all(c.failures == 0 for c in study.candidates)
     assert all(c.max_rel is not None and c.max_rel < 1 for c in study.candidates)

@@ -187,7 +187,7 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     model.write_text(text.replace("vto=0.35 kp=200e-6", "vto=0.35 kp=230e-6"), encoding="utf-8")
 
     done = _charflow(
-        "run", cfg, "--out", out, "--cell", "NAND2_X1", "--arc", "A1:Y", "--quiet", cwd=tmp_path
+        "run", cfg, "--out", out, "--cell", "QNAND2_P1", "--arc", "IA:Y", "--quiet", cwd=tmp_path
     )
     assert done.returncode == 0, done.stderr
     arc_points = 2 * 3 * 3  # 2 edges x 3 slews x 3 loads
@@ -200,7 +200,7 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     stale = re.search(r"(\d+) tables are older than the model \((.*?)\): (.*)", done.stdout)
     assert stale is not None, done.stdout
     assert stale.group(1) == str(4 * 6 + 8) and "vellum90_l1.lib" in stale.group(2)
-    assert "NAND2_X1 A1->Y" not in stale.group(3)
+    assert "QNAND2_P1 IA->Y" not in stale.group(3)
 
     new_lib = (out / "small_l1.lib").read_text(encoding="utf-8")
     # Only the lines of the re-run arc and of its input pin changed, byte for byte.
@@ -212,21 +212,21 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
         assert op in ("equal", "replace"), (op, old_lines[i1:i2])
         if op == "replace":
             changed |= set(where[i1:i2])
-    assert changed == {("NAND2_X1", "Y", "A1"), ("NAND2_X1", "A1", "")}
+    assert changed == {("QNAND2_P1", "Y", "IA"), ("QNAND2_P1", "IA", "")}
 
     # charflow diff finds the same: the arc's four tables and its pin's capacitance.
     comparison = diff.compare(diff.read(tmp_path / "old.lib"), diff.read(out / "small_l1.lib"))
     names = {c.name for c in comparison.changed}
     assert {n for n in names if "->" in n} == {
-        f"NAND2_X1 A1->Y {q}" for q in diff.TIMING_QUANTITIES
+        f"QNAND2_P1 IA->Y {q}" for q in diff.TIMING_QUANTITIES
     }
     assert {n for n in names if "->" not in n} <= {
-        f"NAND2_X1 pin A1 {q}" for q in diff.PIN_QUANTITIES
+        f"QNAND2_P1 pin IA {q}" for q in diff.PIN_QUANTITIES
     }
     assert not comparison.appeared and not comparison.vanished and not comparison.reshaped
     # A stronger NMOS (higher KP) pulls the NAND2 output down faster (square law, Shichman &
     # Hodges, IEEE JSSC, 1968): the falling delay of the re-run arc went down.
-    fall = next(c for c in comparison.changed if c.name == "NAND2_X1 A1->Y cell_fall")
+    fall = next(c for c in comparison.changed if c.name == "QNAND2_P1 IA->Y cell_fall")
     assert fall.relative < 0
 
     # A full run then brings every table up to date.
@@ -284,7 +284,7 @@ def test_flip_flop_searches_are_stored_too(tmp_path: Path) -> None:
     assert first.returncode == 0, first.stderr
     points = int(re.search(r"(\d+) points measured", first.stdout).group(1))
     toggles = int(re.search(r"(\d+) input toggles measured", first.stdout).group(1))
-    # DFFR_X1's hidden events (ffpower): CK's edges with D equal to each stored value and its
+    # QDFFR_P1's hidden events (ffpower): CLK's edges with D equal to each stored value and its
     # falling edge with D opposite it (2 x 2 + 2) x 2 slews, D's edges under either clock level
     # and stored value 2 x 2 x 2 x 2.
     assert toggles == 28

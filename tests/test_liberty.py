@@ -49,11 +49,11 @@ slew = [20, 100]
 load = [2, 10]
 
 [[cell]]
-name = "AOI21_X1"
+name = "QAOI21_P1"
 template = "{template}"
 params = {{ wna = 0.8e-6, wnb = 0.4e-6, wpa = 1.6e-6, wpb = 1.6e-6, l = 0.1e-6 }}
-inputs = ["A1", "A2", "B"]
-outputs = {{ Y = "!((A1&A2)|B)" }}
+inputs = ["IA", "IB", "IC"]
+outputs = {{ Y = "!((IA&IB)|IC)" }}
 area = 1.6
 """
 
@@ -74,11 +74,11 @@ load = [0.002, 0.01]
 related_load = [0.002, 0.01]
 
 [[cell]]
-name = "BUFC_X1"
+name = "QBUFC_P1"
 template = "{template}"
 params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
 inputs = ["A"]
-outputs = {{ Y = "A", YN = "!A" }}
+outputs = {{ Y = "A", YB = "!A" }}
 """
 
 
@@ -256,14 +256,14 @@ def test_functions_read_back(run: Characterized) -> None:
 # Each input of an inverting static CMOS gate (INV, NAND, NOR, AOI) pulls the output the other
 # way: every arc is negative unate (Weste & Harris, CMOS VLSI Design, 4th ed., 2010, ch. 1).
 SENSES = {
-    ("INV_X1", "A"): "negative_unate",
-    ("NAND2_X1", "A1"): "negative_unate",
-    ("NAND2_X1", "A2"): "negative_unate",
-    ("NOR2_X1", "A1"): "negative_unate",
-    ("NOR2_X1", "A2"): "negative_unate",
-    ("AOI21_X1", "A1"): "negative_unate",
-    ("AOI21_X1", "A2"): "negative_unate",
-    ("AOI21_X1", "B"): "negative_unate",
+    ("QINV_P1", "A"): "negative_unate",
+    ("QNAND2_P1", "IA"): "negative_unate",
+    ("QNAND2_P1", "IB"): "negative_unate",
+    ("QNOR2_P1", "IA"): "negative_unate",
+    ("QNOR2_P1", "IB"): "negative_unate",
+    ("QAOI21_P1", "IA"): "negative_unate",
+    ("QAOI21_P1", "IB"): "negative_unate",
+    ("QAOI21_P1", "IC"): "negative_unate",
 }
 
 
@@ -291,32 +291,32 @@ def test_no_when_for_single_state_arcs(small: Characterized) -> None:
 
 def test_aoi21_b_arc_has_a_when_per_state(aoi21: Characterized) -> None:
     lib = aoi21.lib
-    # Y = !((A1&A2)|B) follows B whenever A1&A2 = 0: three side states; A1 follows only with
-    # A2 = 1 and B = 0, one state (and the same for A2).
-    b = _timing_groups(lib, "AOI21_X1", "Y", "B")
-    assert sorted(b) == sorted(["", "!A1&!A2", "!A1&A2", "A1&!A2"])
-    assert list(_timing_groups(lib, "AOI21_X1", "Y", "A1")) == [""]
-    assert list(_timing_groups(lib, "AOI21_X1", "Y", "A2")) == [""]
+    # Y = !((IA&IB)|IC) follows IC whenever IA&IB = 0: three side states; IA follows only with
+    # IB = 1 and B = 0, one state (and the same for IB).
+    b = _timing_groups(lib, "QAOI21_P1", "Y", "IC")
+    assert sorted(b) == sorted(["", "!IA&!IB", "!IA&IB", "IA&!IB"])
+    assert list(_timing_groups(lib, "QAOI21_P1", "Y", "IA")) == [""]
+    assert list(_timing_groups(lib, "QAOI21_P1", "Y", "IB")) == [""]
     # Each when, parsed by liberty-parser, holds at its own side state and at no other.
     (cell,) = aoi21.result.cells
-    (arc,) = [a for a in cell.arcs if a.arc.related == "B"]
+    (arc,) = [a for a in cell.arcs if a.arc.related == "IC"]
     for st in arc.states:
         group = b[st.state.when]
         assert group["timing_sense"] == st.state.sense == "negative_unate"
         expr = parse_boolean_function(_text(group["when"]))
         symbols = {s.name: s for s in expr.free_symbols}
-        assert set(symbols) == {"A1", "A2"}
+        assert set(symbols) == {"IA", "IB"}
         holds = [
             side
             for side in itertools.product((False, True), repeat=2)
-            if bool(expr.subs(dict(zip((symbols["A1"], symbols["A2"]), side, strict=True))))
+            if bool(expr.subs(dict(zip((symbols["IA"], symbols["IB"]), side, strict=True))))
         ]
         assert holds == [tuple(v for _, v in st.state.side)]
 
 
 def test_default_table_is_the_worst_state(aoi21: Characterized) -> None:
     (cell,) = aoi21.result.cells
-    (arc,) = [a for a in cell.arcs if a.arc.related == "B"]
+    (arc,) = [a for a in cell.arcs if a.arc.related == "IC"]
     assert len(arc.states) == 3
     for table in arc.default:
         states = [t for st in arc.states for t in st.tables if t.quantity == table.quantity]
@@ -325,7 +325,7 @@ def test_default_table_is_the_worst_state(aoi21: Characterized) -> None:
         # Not all equal, or the check would be empty.
         assert any(not np.array_equal(states[0].values, t.values) for t in states[1:])
     # In the file as well: rounding to 7 digits is monotone, so the max survives it exactly.
-    groups = _timing_groups(aoi21.lib, "AOI21_X1", "Y", "B")
+    groups = _timing_groups(aoi21.lib, "QAOI21_P1", "Y", "IC")
     for quantity in QUANTITIES:
         written = {w: g.get_group(quantity).get_array("values") for w, g in groups.items()}
         worst = np.max([v for w, v in written.items() if w], axis=0)
@@ -473,7 +473,7 @@ def test_hidden_power_reads_back(run: Characterized) -> None:
                     low = bool(expr.subs({**assign, symbols[hidden.pin]: False}))
                     high = bool(expr.subs({**assign, symbols[hidden.pin]: True}))
                     assert low == high, (cell.cell, hidden.pin, hidden.when)
-    # NAND2 and NOR2: each input hidden in one state (4); AOI21: A1 and A2 in three, B in one.
+    # NAND2 and NOR2: each input hidden in one state (4); AOI21: IA and IB in three, IC in one.
     assert checked == {"small_l1": 4 * 2, "cfg_aoi21": 7 * 2}[cfg.name]
 
 
@@ -562,12 +562,12 @@ def bufc(tmp_path_factory: pytest.TempPathFactory) -> Characterized:
 
 
 def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
-    # A cell with Y and YN: each output's internal_power names the other as
+    # A cell with Y and YB: each output's internal_power names the other as
     # equal_or_opposite_output, and its tables take that output's load as index_3.
     cfg, lib = bufc.config, bufc.lib
     templates = _power_templates(lib)
     (cell,) = bufc.result.cell_power
-    pins = lib.get_group("cell", "BUFC_X1")
+    pins = lib.get_group("cell", "QBUFC_P1")
     by_output = {}
     for arc in cell.arcs:
         (group,) = pins.get_group("pin", arc.arc.output).get_groups("internal_power")
@@ -577,12 +577,12 @@ def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
             assert table.axis_names[2] == power.OTHER_LOAD_AXIS
             _energy_table(cfg, group, table, templates)
         by_output[arc.arc.output] = {t.quantity: t.values for t in arc.default}
-    assert sorted(by_output) == ["Y", "YN"]
+    assert sorted(by_output) == ["Y", "YB"]
     # One edge of A switches both outputs; each output's table holds half of that event, so a
     # power tool adding the internal power of every output that toggles counts it once. Y's
-    # rise at (slew, load of Y, load of YN) is the event of YN's fall at (slew, load of YN,
+    # rise at (slew, load of Y, load of YB) is the event of YB's fall at (slew, load of YB,
     # load of Y): the two runs differ only in whose edge refines the time step.
     for y_edge, yn_edge in (("rise", "fall"), ("fall", "rise")):
         y = by_output["Y"][f"{y_edge}_power"]
-        yn = by_output["YN"][f"{yn_edge}_power"]
+        yn = by_output["YB"][f"{yn_edge}_power"]
         np.testing.assert_allclose(y, np.swapaxes(yn, 1, 2), rtol=SAME_EVENT_RTOL, atol=0)

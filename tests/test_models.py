@@ -25,22 +25,22 @@ _W = 0.4e-6
 _L = 0.1e-6
 # X1 sizes from templates/cells/SIZES.md, with the logic function each cell must implement.
 CELL_CASES: dict[str, tuple[dict[str, object], Callable[..., bool]]] = {
-    "inv": ({"name": "INV_X1", "wn": _W, "wp": 2 * _W, "l": _L}, lambda a: not a),
+    "inv": ({"name": "QINV_P1", "wn": _W, "wp": 2 * _W, "l": _L}, lambda a: not a),
     "buf": (
-        {"name": "BUF_X1", "wn1": _W, "wp1": 2 * _W, "wn2": _W, "wp2": 2 * _W, "l": _L},
+        {"name": "QBUF_P1", "wn1": _W, "wp1": 2 * _W, "wn2": _W, "wp2": 2 * _W, "l": _L},
         lambda a: a,
     ),
     "nand2": (
-        {"name": "NAND2_X1", "wn": 2 * _W, "wp": 2 * _W, "l": _L},
-        lambda a1, a2: not (a1 and a2),
+        {"name": "QNAND2_P1", "wn": 2 * _W, "wp": 2 * _W, "l": _L},
+        lambda ia, ib: not (ia and ib),
     ),
     "nor2": (
-        {"name": "NOR2_X1", "wn": _W, "wp": 4 * _W, "l": _L},
-        lambda a1, a2: not (a1 or a2),
+        {"name": "QNOR2_P1", "wn": _W, "wp": 4 * _W, "l": _L},
+        lambda ia, ib: not (ia or ib),
     ),
     "aoi21": (
-        {"name": "AOI21_X1", "wna": 2 * _W, "wnb": _W, "wpa": 4 * _W, "wpb": 4 * _W, "l": _L},
-        lambda a1, a2, b: not ((a1 and a2) or b),
+        {"name": "QAOI21_P1", "wna": 2 * _W, "wnb": _W, "wpa": 4 * _W, "wpb": 4 * _W, "l": _L},
+        lambda ia, ib, ic: not ((ia and ib) or ic),
     ),
 }
 

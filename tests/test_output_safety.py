@@ -236,11 +236,11 @@ def test_a_second_writer_of_the_store_waits_its_turn(tmp_path: Path) -> None:
     with Store(path) as store:
         child = _hold_store_in_child(path, 1.0)
         start = time.perf_counter()
-        store.mark_verified(ring, "INV_X1")
+        store.mark_verified(ring, "QINV_P1")
         waited = time.perf_counter() - start
         child.wait(timeout=10)
         assert waited > 0.3  # it waited for the other writer rather than failing
-        assert store.verified(ring, "INV_X1")
+        assert store.verified(ring, "QINV_P1")
 
 
 def test_a_writer_kept_waiting_too_long_names_the_store(tmp_path: Path) -> None:
@@ -251,7 +251,7 @@ def test_a_writer_kept_waiting_too_long_names_the_store(tmp_path: Path) -> None:
         child = _hold_store_in_child(path, 5.0)
         try:
             with pytest.raises(StoreError) as err:
-                store.mark_verified(ring, "INV_X1")
+                store.mark_verified(ring, "QINV_P1")
             # Opening writes the schema version: it waits for the other writer too.
             with pytest.raises(StoreError, match="cannot open the result store"):
                 Store(path, timeout=0.2)

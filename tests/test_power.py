@@ -93,10 +93,10 @@ def test_capacitor_cell_stores_half_and_the_switch_burns_half(cap):
 
 @pytest.fixture(scope="module")
 def inverter():
-    """INV_X1 of small_l1 over slews from fast to four times the largest, loads from none."""
+    """QINV_P1 of small_l1 over slews from fast to four times the largest, loads from none."""
     doc = tomllib.loads(SMALL_L1.read_text(encoding="utf-8"))
     doc["grid"] = {"slew": [0.01, 0.1, 0.2, 0.4], "load": [0.0, 0.005, 0.02]}
-    doc["cell"] = [c for c in doc["cell"] if c["name"] == "INV_X1"]
+    doc["cell"] = [c for c in doc["cell"] if c["name"] == "QINV_P1"]
     cfg = config.parse(doc, SMALL_L1)
     result = flow.characterize(cfg, jobs=1)
     assert not result.failures
@@ -144,12 +144,12 @@ def _level1_card(model: str, section: str = "tt") -> dict[str, float]:
 def test_inverter_short_circuit_energy_follows_veendrick(inverter):
     # Unloaded symmetric inverter with square-law devices, linear input ramps of duration tau:
     # short-circuit energy per cycle = beta/12 · (V − 2 Vt)³ · tau (Veendrick, IEEE JSSC 19(4),
-    # 1984; from memory). INV_X1 is symmetric on the level-1 card: KP(p) W(p) = KP(n) W(n) and
+    # 1984; from memory). QINV_P1 is symmetric on the level-1 card: KP(p) W(p) = KP(n) W(n) and
     # Vt(p) = −Vt(n). Only the growth between the slowest slews is compared: the rest of the
     # cycle's energy (junction and gate charge) does not depend on the slew.
     cfg, tables = inverter
     nch = _level1_card("nch")
-    params = dict(cfg.cell("INV_X1").params)
+    params = dict(cfg.cell("QINV_P1").params)
     beta = nch["kp"] * params["wn"] / (params["l"] - 2 * nch["ld"])
     vdd = cfg.process.vdd
     per_second = beta / 12 * (vdd - 2 * nch["vto"]) ** 3
@@ -164,33 +164,33 @@ def test_nand2_leakage_is_least_with_both_nmos_off():
     # Two off transistors in series leak far less than one (the stack effect; common practice):
     # NAND2 with both inputs low leaks least. On the BSIM cards, which model subthreshold current.
     cfg = config.load(DEMO)
-    deck = netlist.build_deck(cfg, cfg.cell("NAND2_X1"))
+    deck = netlist.build_deck(cfg, cfg.cell("QNAND2_P1"))
     leak = {s.when: s.power for s in power.leakage(cfg, deck)}
-    assert list(leak) == ["!A1&!A2", "!A1&A2", "A1&!A2", "A1&A2"]
+    assert list(leak) == ["!IA&!IB", "!IA&IB", "IA&!IB", "IA&IB"]
     assert all(w > 0 for w in leak.values())
-    assert leak["!A1&!A2"] < min(leak["!A1&A2"], leak["A1&!A2"]) / 2
+    assert leak["!IA&!IB"] < min(leak["!IA&IB"], leak["IA&!IB"]) / 2
     # The supply's DC current times its voltage, in watts: the op point charflow reads.
     vdd = cfg.process.vdd
-    assert leak["A1&A2"] == pytest.approx(
-        vdd * timing.static_current(cfg, deck, {"A1": True, "A2": True}), rel=1e-12, abs=0
+    assert leak["IA&IB"] == pytest.approx(
+        vdd * timing.static_current(cfg, deck, {"IA": True, "IB": True}), rel=1e-12, abs=0
     )
 
 
 def test_hidden_toggles_are_the_controlling_side_values():
     # A 0 on either NAND input (a 1 on either NOR input) fixes the output whatever the other
     # does (the controlling value; Weste & Harris, 2010, ch. 1): those are the toggles of no
-    # output edge, and an AOI21's A1 is hidden by A2 = 0 or by B = 1.
+    # output edge, and an AOI21's IA is hidden by IB = 0 or by B = 1.
     cfg = config.load(DEMO)
-    assert power.hidden_states(cfg.cell("NAND2_X1"), "A1") == ((("A2", False),),)
-    assert power.hidden_states(cfg.cell("NOR2_X1"), "A2") == ((("A1", True),),)
-    assert power.hidden_states(cfg.cell("INV_X1"), "A") == ()
-    assert power.hidden_states(cfg.cell("AOI21_X1"), "A1") == (
-        (("A2", False), ("B", False)),
-        (("A2", False), ("B", True)),
-        (("A2", True), ("B", True)),
+    assert power.hidden_states(cfg.cell("QNAND2_P1"), "IA") == ((("IB", False),),)
+    assert power.hidden_states(cfg.cell("QNOR2_P1"), "IB") == ((("IA", True),),)
+    assert power.hidden_states(cfg.cell("QINV_P1"), "A") == ()
+    assert power.hidden_states(cfg.cell("QAOI21_P1"), "IA") == (
+        (("IB", False), ("B", False)),
+        (("IB", False), ("B", True)),
+        (("IB", True), ("B", True)),
     )
-    toggles = power.plan_toggles(cfg, ["NAND2_X1"])
-    grid = cfg.cell("NAND2_X1").grid
+    toggles = power.plan_toggles(cfg, ["QNAND2_P1"])
+    grid = cfg.cell("QNAND2_P1").grid
     assert len(toggles) == 2 * 1 * 2 * len(grid.slew)
     assert {t.load for t in toggles} == {min(grid.load)}
 

@@ -80,7 +80,7 @@ def test_results_do_not_depend_on_worker_count(small):
 
 def test_backend_switches_and_evicts_loaded_testbenches(small, monkeypatch):
     # Two cells, alternately, with room for one testbench only: every switch reads again.
-    inv, nand = (small.cell(n) for n in ("INV_X1", "NAND2_X1"))
+    inv, nand = (small.cell(n) for n in ("QINV_P1", "QNAND2_P1"))
     decks = [netlist.build_deck(small, c) for c in (inv, nand)]
     points = [sweep.plan(small, [c.name]).points[4] for c in (inv, nand)]
     want = [timing.measure_point(small, d, p) for d, p in zip(decks, points, strict=True)]
@@ -92,18 +92,18 @@ def test_backend_switches_and_evicts_loaded_testbenches(small, monkeypatch):
 
 
 def test_probe_failure_falls_back_to_the_plain_step(small):
-    # A2 = 0 holds NAND2's output high: the probes cannot measure an edge, so no model.
-    cell = small.cell("NAND2_X1")
+    # IB = 0 holds NAND2's output high: the probes cannot measure an edge, so no model.
+    cell = small.cell("QNAND2_P1")
     deck = netlist.build_deck(small, cell)
-    point = dataclasses.replace(sweep.plan(small, ["NAND2_X1"]).points[0], side=(("A2", False),))
+    point = dataclasses.replace(sweep.plan(small, ["QNAND2_P1"]).points[0], side=(("IB", False),))
     assert stepsize.model_for(small, deck, point) is None
     assert stepsize.first_step(small, deck, point) == stepsize.plain_step(small, point)
 
 
 def test_a_testbench_that_cannot_be_read_leaves_the_others_in_place(small):
-    cell = small.cell("INV_X1")
+    cell = small.cell("QINV_P1")
     deck = netlist.build_deck(small, cell)
-    point = sweep.plan(small, ["INV_X1"]).points[4]
+    point = sweep.plan(small, ["QINV_P1"]).points[4]
     want = timing.measure_point(small, deck, point)
     text = deck.text.replace("xdut ", "xbroken cf_in_a cf_out_y no_such_subckt\nxdut ")
     broken = dataclasses.replace(deck, text=text, key="broken")

@@ -39,8 +39,8 @@ def _ring(cfg):
 
 
 def _point(cfg, slew: float = 3.3e-11, load: float = 7.7e-15) -> TimingPoint:
-    """An INV_X1 point off the config's grid, as a fidelity check would ask for."""
-    base = sweep.plan(cfg, ["INV_X1"]).points[0]
+    """An QINV_P1 point off the config's grid, as a fidelity check would ask for."""
+    base = sweep.plan(cfg, ["QINV_P1"]).points[0]
     return dataclasses.replace(base, slew=slew, load=load)
 
 

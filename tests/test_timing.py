@@ -120,10 +120,10 @@ def test_shared_and_subprocess_backends_agree(small):
     doc["simulation"] = {"backend": "subprocess"}
     batch = config.parse(doc, SMALL_L1)
     assert (small.simulation.backend, batch.simulation.backend) == ("shared", "subprocess")
-    cell = small.cell("INV_X1")
+    cell = small.cell("QINV_P1")
     deck = netlist.build_deck(small, cell)
     middle = (cell.grid.slew[1], cell.grid.load[1])
-    points = [p for p in sweep.plan(small, ["INV_X1"]).points if (p.slew, p.load) == middle]
+    points = [p for p in sweep.plan(small, ["QINV_P1"]).points if (p.slew, p.load) == middle]
     assert len(points) == 2
     for point in points:
         a = timing.measure_point(small, deck, point)
@@ -149,22 +149,22 @@ slew = [0.05]
 load = [0.005]
 
 [[cell]]
-name = "NAND2_X1"
+name = "QNAND2_P1"
 template = "{nand2.as_posix()}"
 params = {{ wn = 0.8e-6, wp = 0.8e-6, l = 0.1e-6 }}
-inputs = ["A1", "A2"]
-outputs = {{ Y = "!(A1|A2)" }}
+inputs = ["IA", "IB"]
+outputs = {{ Y = "!(IA|IB)" }}
 """,
         encoding="utf-8",
     )
     cfg = config.load(path)
-    deck = netlist.build_deck(cfg, cfg.cell("NAND2_X1"))
+    deck = netlist.build_deck(cfg, cfg.cell("QNAND2_P1"))
     with pytest.raises(FunctionalMismatchError) as caught:
         timing.check_function(cfg, deck)
     # The first vector where NAND and NOR differ, in charflow's counting order.
-    assert caught.value.context["cell"] == "NAND2_X1"
-    assert caught.value.context["vector"] == "A1=0 A2=1"
-    assert "NAND2_X1" in str(caught.value) and "A1=0 A2=1" in str(caught.value)
+    assert caught.value.context["cell"] == "QNAND2_P1"
+    assert caught.value.context["vector"] == "IA=0 IB=1"
+    assert "QNAND2_P1" in str(caught.value) and "IA=0 IB=1" in str(caught.value)
 
 
 @pytest.mark.parametrize(
@@ -172,13 +172,13 @@ outputs = {{ Y = "!(A1|A2)" }}
     [("rise", "fall", "has not settled"), ("fall", "rise", "starts at")],
 )
 def test_side_input_that_never_sensitizes(small, input_edge, output_edge, reason):
-    # A2 = 0 holds NAND2's output high whatever A1 does: the output never switches.
-    cell = small.cell("NAND2_X1")
+    # IB = 0 holds NAND2's output high whatever IA does: the output never switches.
+    cell = small.cell("QNAND2_P1")
     point = TimingPoint(
         cell.name,
-        "A1",
+        "IA",
         "Y",
-        (("A2", False),),
+        (("IB", False),),
         input_edge,
         output_edge,
         cell.grid.slew[0],
@@ -195,13 +195,13 @@ def pin_caps(small):
     return {(c.cell.name, p.pin): p.capacitance for c in result.cells for p in c.pins}
 
 
-@pytest.mark.parametrize(("cell", "effort"), [("NAND2_X1", 4.0 / 3.0), ("NOR2_X1", 5.0 / 3.0)])
+@pytest.mark.parametrize(("cell", "effort"), [("QNAND2_P1", 4.0 / 3.0), ("QNOR2_P1", 5.0 / 3.0)])
 def test_pin_capacitance_follows_logical_effort(pin_caps, cell, effort):
     # Gates sized to the inverter's drive have input capacitance NAND2 : INV = 4/3 and
     # NOR2 : INV = 5/3 with a p/n mobility ratio of 2 (Sutherland, Sproull & Harris, Logical
     # Effort, 1999); the demo cells are sized that way (templates/cells/SIZES.md).
-    inv = pin_caps[("INV_X1", "A")]
-    for pin in ("A1", "A2"):
+    inv = pin_caps[("QINV_P1", "A")]
+    for pin in ("IA", "IB"):
         assert pin_caps[(cell, pin)] / inv == pytest.approx(effort, rel=EFFORT_RTOL), pin
 
 
@@ -232,13 +232,13 @@ def test_pin_charge_does_not_depend_on_the_slew(small):
     # output swinging too, is the same at every slew. The run must last until the input ramp
     # is over: a slow ramp leaves the output at its rail long before (its charge came out 23 %
     # short when the run stopped at the output alone).
-    cell = small.cell("INV_X1")
+    cell = small.cell("QINV_P1")
     deck = netlist.build_deck(small, cell)
     smallest = min(cell.grid.load)
     for edge in ("rise", "fall"):
         charges = [
             timing.measure_point(small, deck, p).input_charge
-            for p in sweep.plan(small, ["INV_X1"]).points
+            for p in sweep.plan(small, ["QINV_P1"]).points
             if p.load == smallest and p.input_edge == edge
         ]
         assert len(charges) == len(cell.grid.slew)
@@ -252,7 +252,7 @@ def test_inverter_pin_capacitance_is_its_gate_capacitance(small, pin_caps):
     # an effective one: the Miller effect doubles the gate-drain overlap (the output swings
     # against the input, +0.3 fF here), while the level-1 Meyer charge over a full swing stays
     # below Cox W Leff V (depletion and saturation); each is under 10 % of the total.
-    cell = small.cell("INV_X1")
+    cell = small.cell("QINV_P1")
     params = dict(cell.params)
     cards = _model_params(small.process.models[0].path, small.process.models[0].section)
     eps_ox = 3.9 * 8.8541878128e-12  # F/m
@@ -261,4 +261,4 @@ def test_inverter_pin_capacitance_is_its_gate_capacitance(small, pin_caps):
         card = cards[model]
         leff = params["l"] - 2.0 * card["ld"]
         gate += eps_ox / card["tox"] * width * leff + (card["cgso"] + card["cgdo"]) * width
-    assert pin_caps[("INV_X1", "A")] == pytest.approx(gate, rel=GATE_CAP_RTOL, abs=0)
+    assert pin_caps[("QINV_P1", "A")] == pytest.approx(gate, rel=GATE_CAP_RTOL, abs=0)
