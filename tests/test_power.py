@@ -179,15 +179,15 @@ def test_nand2_leakage_is_least_with_both_nmos_off():
 def test_hidden_toggles_are_the_controlling_side_values():
     # A 0 on either NAND input (a 1 on either NOR input) fixes the output whatever the other
     # does (the controlling value; Weste & Harris, 2010, ch. 1): those are the toggles of no
-    # output edge, and an AOI21's IA is hidden by IB = 0 or by B = 1.
+    # output edge, and an AOI21's IA is hidden by IB = 0 or by IC = 1.
     cfg = config.load(DEMO)
     assert power.hidden_states(cfg.cell("QNAND2_P1"), "IA") == ((("IB", False),),)
     assert power.hidden_states(cfg.cell("QNOR2_P1"), "IB") == ((("IA", True),),)
     assert power.hidden_states(cfg.cell("QINV_P1"), "A") == ()
     assert power.hidden_states(cfg.cell("QAOI21_P1"), "IA") == (
-        (("IB", False), ("B", False)),
-        (("IB", False), ("B", True)),
-        (("IB", True), ("B", True)),
+        (("IB", False), ("IC", False)),
+        (("IB", False), ("IC", True)),
+        (("IB", True), ("IC", True)),
     )
     toggles = power.plan_toggles(cfg, ["QNAND2_P1"])
     grid = cfg.cell("QNAND2_P1").grid
