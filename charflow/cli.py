@@ -48,7 +48,7 @@ def _deferred(name: str) -> types.ModuleType:
 bench = _deferred("charflow.bench")
 check = _deferred("charflow.check")
 config = _deferred("charflow.config")
-demo_mod = _deferred("charflow.demo")
+demo = _deferred("charflow.demo")
 diff = _deferred("charflow.diff")
 estimate = _deferred("charflow.estimate")
 faults = _deferred("charflow.faults")
@@ -566,7 +566,7 @@ def _check(args: argparse.Namespace) -> int:
 
 def _load(cfg_path: Path | None, args: argparse.Namespace) -> config.LibraryConfig:
     """The config at ``cfg_path``; with None the demo's (its quick variant with --quick)."""
-    cfg = config.load(cfg_path) if cfg_path is not None else demo_mod.load(quick=args.quick)
+    cfg = config.load(cfg_path) if cfg_path is not None else demo.load(quick=args.quick)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
     return cfg
@@ -702,7 +702,7 @@ def _show_warnings() -> None:
 
 
 def _copy_demo(args: argparse.Namespace) -> int:
-    config_path = demo_mod.copy_to(args.folder)
+    config_path = demo.copy_to(args.folder)
     print(f"copied the demo's config, cell templates and models into {args.folder}")
     print(f"edit them, then: charflow run {config_path}")
     return EXIT_OK
