@@ -9,25 +9,14 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import importlib.util
 import logging
 import sys
-from collections.abc import Iterator
+import types
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
-from . import (
-    __version__,
-    bench,
-    check,
-    config,
-    diff,
-    estimate,
-    faults,
-    fidelity,
-    flow,
-    gaps,
-    gridstudy,
-    sweep,
-)
+from . import __version__
 from .errors import (
     CharflowError,
     ConfigError,
@@ -36,132 +25,294 @@ from .errors import (
     NetlistError,
     OutputError,
 )
-from .lock import FolderLock
-from .resources import DEMO_CONFIG
-from .store import FILE_NAME, Store
+
+
+def _deferred(name: str) -> types.ModuleType:
+    """The module ``name``, executed when one of its attributes is first used."""
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.find_spec(name)
+    if spec is None or spec.loader is None:
+        raise ModuleNotFoundError(f"no module named {name!r}", name=name)
+    spec.loader = importlib.util.LazyLoader(spec.loader)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+# The commands' modules pull in numpy, scipy, matplotlib, jinja2 and the simulator's bindings:
+# seconds of start-up that --help, --version and a mistyped option should not pay. They are
+# loaded here, in this one place, on first use by the command that needs them (not to dodge an
+# import cycle). Only the version and the error types are imported as usual.
+bench = _deferred("charflow.bench")
+check = _deferred("charflow.check")
+config = _deferred("charflow.config")
+demo = _deferred("charflow.demo")
+diff = _deferred("charflow.diff")
+estimate = _deferred("charflow.estimate")
+faults = _deferred("charflow.faults")
+fidelity = _deferred("charflow.fidelity")
+flow = _deferred("charflow.flow")
+gaps = _deferred("charflow.gaps")
+gridstudy = _deferred("charflow.gridstudy")
+lock = _deferred("charflow.lock")
+store_mod = _deferred("charflow.store")
+sweep = _deferred("charflow.sweep")
+tqdm = _deferred("tqdm")
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
 EXIT_DIFFERENT = 1  # charflow diff: the libraries differ
 RUNS = Path("runs")  # default outputs: runs/<library name> under the current folder
 
+DESCRIPTION = """\
+charflow characterizes standard cells. For each cell of a library it simulates the cell's
+transistor netlist with ngspice over a grid of input slews and output loads, and writes the
+delay, transition, setup/hold and power tables as a Liberty file (.lib) and as JSON.
+A library is described by a TOML config: its process (model files, supply, temperature),
+grids and cells. Outputs go to runs/<library name> in the current folder unless --out is given.
 
-def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="charflow", description=__doc__.splitlines()[0])
-    parser.add_argument("--version", action="version", version=f"charflow {__version__}")
-    sub = parser.add_subparsers(dest="command", required=True)
+Run "charflow COMMAND --help" for the options of one command."""
 
-    run = sub.add_parser("run", help="characterize the library a config describes")
-    run.add_argument("config", type=Path)
-    _common(run)
-    _cluster(run)
-    run.add_argument(
+EPILOG = """\
+examples:
+  charflow demo --quick             a quick trial: the demo library on a 3 x 3 grid
+  charflow demo                     the demo library as shipped (minutes)
+  charflow copy-demo mylib          copy the demo's config, templates and models to edit
+  charflow check mylib/demo/vellum90.toml
+  charflow run mylib/demo/vellum90.toml --plan
+  charflow run mylib/demo/vellum90.toml --jobs 2
+  charflow diff runs/old/lib.lib runs/new/lib.lib
+
+exit status:
+  0  done
+  1  the run finished but some points failed (no Liberty file written unless --allow-gaps
+     filled them), a fidelity check found failures, or diff found differences
+  2  bad input: config, netlist, cell function, or a library diff cannot read
+  3  trouble with the simulator, the result store, the cluster or the output folder"""
+
+
+def _parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The command-line parser. With ``command``, only that command gets its options ("" for
+    none): the options take their defaults from the command's module, which loads it."""
+    parser = argparse.ArgumentParser(
+        prog="charflow",
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument(
+        "--version", action="version", version=f"charflow {__version__}", help="print the version"
+    )
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND", title="commands")
+    for name, (summary, description, options) in COMMANDS.items():
+        p = sub.add_parser(name, help=summary, description=description)
+        if command is None or command == name:
+            options(p)
+    return parser
+
+
+def _run_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")
+    _common(p)
+    _cluster(p)
+    p.add_argument(
         "--cell",
         action="append",
-        help="simulate only this cell (repeatable); the rest of the library comes from the store",
+        metavar="NAME",
+        help="simulate only this cell (repeatable); the rest of the library comes from the "
+        "result store of earlier runs",
     )
-    run.add_argument(
+    p.add_argument(
         "--arc",
         metavar="FROM:TO",
-        help="with one --cell: only the arc from input FROM to output TO",
+        help="with one --cell: only the arc from input pin FROM to output pin TO",
     )
-    run.add_argument(
+    p.add_argument(
         "--plan",
         action="store_true",
-        help="print the simulations per cell and arc and an estimated time; run no sweep",
+        help="print the simulations per cell and arc and an estimated time, then stop "
+        "(runs a few sample points to time them)",
+    )
+    _finish(p)
+
+
+def _demo_options(p: argparse.ArgumentParser) -> None:
+    _common(p)
+    _cluster(p)
+    p.add_argument(
+        "--quick",
+        action="store_true",
+        help="a quick trial: every grid axis cut to its first, middle and last value and the "
+        "level-1 demo models; the library is named vellum90_tt_quick",
+    )
+    _finish(p)
+
+
+def _finish(p: argparse.ArgumentParser) -> None:
+    """Options of run and demo for what follows the sweep."""
+    p.add_argument(
+        "--fidelity",
+        action="store_true",
+        help="then re-simulate points off the grid and report how far the tables are off",
+    )
+    p.add_argument(
+        "--allow-gaps",
+        metavar="METHOD",
+        choices=gaps.METHODS,
+        help="fill failed points from measured neighbours by METHOD ("
+        + " or ".join(gaps.METHODS)
+        + "); the filled values are marked in the JSON and the Liberty file, never stored",
     )
 
-    check_cmd = sub.add_parser(
-        "check", help="check the config and every cell's netlist and function; run no sweep"
-    )
-    check_cmd.add_argument("config", type=Path)
 
-    demo = sub.add_parser("demo", help="characterize the bundled demo library")
-    _common(demo)
-    _cluster(demo)
-    for p in (run, demo):
-        p.add_argument(
-            "--fidelity", action="store_true", help="then check the tables off their grid"
-        )
-        p.add_argument(
-            "--allow-gaps",
-            metavar="METHOD",
-            choices=gaps.METHODS,
-            help="fill failed points from measured neighbours by METHOD ("
-            + " or ".join(gaps.METHODS)
-            + "); the filled values are marked in the JSON and the Liberty file, never stored",
-        )
-
-    fid = sub.add_parser(
-        "fidelity", help="re-simulate off the grid and report how accurate the tables are"
+def _copy_demo_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "folder",
+        type=Path,
+        metavar="FOLDER",
+        help="where to copy (made if missing; files already there are never overwritten)",
     )
-    fid.add_argument("config", type=Path)
-    _common(fid)
-    fid.add_argument("--cell", action="append", help="only this cell (repeatable)")
 
-    study = sub.add_parser(
-        "grid-study", help="find the smallest grid that meets a target error for one arc"
+
+def _check_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")
+
+
+def _fidelity_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")
+    _common(p)
+    p.add_argument("--cell", action="append", metavar="NAME", help="only this cell (repeatable)")
+
+
+def _grid_study_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")
+    _common(p)
+    p.add_argument("--cell", required=True, metavar="NAME", help="the cell to study")
+    p.add_argument(
+        "--arc", metavar="FROM:TO", help="input pin and output pin of the arc (default: first arc)"
     )
-    study.add_argument("config", type=Path)
-    _common(study)
-    study.add_argument("--cell", required=True, help="the cell to study")
-    study.add_argument("--arc", help="FROM:TO, related input and output (default: first arc)")
-    study.add_argument(
+    p.add_argument(
         "--target",
         type=_fraction,
         action="append",
         help="largest relative error allowed, e.g. 1%% or 0.01 (repeatable; default 1%%)",
     )
-    study.add_argument(
+    p.add_argument(
         "--sizes",
         type=_sizes,
         default=gridstudy.SIZES,
-        help="points per axis to try, MIN:MAX (default 3:12)",
+        metavar="MIN:MAX",
+        help=f"points per axis to try (default {gridstudy.SIZES[0]}:{gridstudy.SIZES[-1]})",
     )
-    study.add_argument(
+    p.add_argument(
         "--reference",
         type=_reference,
         default=gridstudy.REFERENCE_POINTS,
+        metavar="N",
         help=f"points per axis of the reference grid (default {gridstudy.REFERENCE_POINTS})",
     )
 
-    bench_cmd = sub.add_parser(
-        "bench", help="time charflow against the naive way and the simulator"
-    )
-    bench_cmd.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
-    bench_cmd.add_argument(
+
+def _bench_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: one per core)")
+    p.add_argument(
         "--library",
         action="append",
         choices=bench.LIBRARIES,
         help="only this library (repeatable; default: all)",
     )
-    bench_cmd.add_argument(
+    p.add_argument(
         "--naive-points",
         type=int,
         default=bench.NAIVE_POINTS,
-        help="points the naive way runs per library",
+        metavar="N",
+        help=f"points the naive way runs per library (default {bench.NAIVE_POINTS})",
     )
-    bench_cmd.add_argument(
+    p.add_argument(
         "--params",
         type=int,
         default=bench.KIT_PARAMS,
-        help=".param lines in the foundry-style model file",
+        metavar="N",
+        help=f".param lines in the foundry-style model file (default {bench.KIT_PARAMS})",
     )
-    bench_cmd.add_argument(
-        "--repeat", type=int, default=1, help="charflow runs per setting; fastest kept"
+    p.add_argument(
+        "--repeat",
+        type=int,
+        default=1,
+        metavar="N",
+        help="charflow runs per setting; the fastest is kept (default 1)",
     )
 
-    compare = sub.add_parser("diff", help="compare two libraries (Liberty or JSON) table by table")
-    compare.add_argument("old", type=Path)
-    compare.add_argument("new", type=Path)
-    compare.add_argument("--top", type=int, default=10, help="largest changes to list (10)")
-    compare.add_argument(
+
+def _diff_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("old", type=Path, help="the first library (.lib or .json)")
+    p.add_argument("new", type=Path, help="the second library (.lib or .json)")
+    p.add_argument(
+        "--top", type=int, default=10, metavar="N", help="largest changes to list (default 10)"
+    )
+    p.add_argument(
         "--tolerance",
         type=float,
         default=diff.TOLERANCE,
-        help=f"relative change below which a table counts as unchanged ({diff.TOLERANCE:g})",
+        help="relative change below which a table counts as unchanged "
+        f"(default {diff.TOLERANCE:g})",
     )
-    compare.add_argument("--html", type=Path, help="also write an HTML report with plots here")
-    return parser
+    p.add_argument("--html", type=Path, metavar="FILE", help="also write an HTML report with plots")
+
+
+# Each command: its line in charflow --help, the first lines of its own --help, its options.
+COMMANDS: dict[str, tuple[str, str, Callable[[argparse.ArgumentParser], None]]] = {
+    "run": (
+        "characterize the library a config describes",
+        "Characterize the library a config describes and write runs/<library name>/<library "
+        "name>.lib and .json. Points already in the folder's result store are reused.",
+        _run_options,
+    ),
+    "check": (
+        "check a config and every cell's netlist and function; simulate no sweep",
+        "Check a config: every key, every cell's netlist and that it implements its declared "
+        "function (a DC run per input vector). Lists every problem found.",
+        _check_options,
+    ),
+    "demo": (
+        "characterize the bundled demo library",
+        "Characterize the bundled demo library: the invented vellum90 process and its cells "
+        "(inverters, a buffer, gates, a two-output cell and two flip-flops). Writes "
+        "runs/vellum90_tt (runs/vellum90_tt_quick with --quick) in the current folder.",
+        _demo_options,
+    ),
+    "copy-demo": (
+        "copy the demo's config, cell templates and models into a folder, to edit and run",
+        "Copy the demo's config, cell templates and models into FOLDER, keeping their layout; "
+        "then edit them and run charflow run FOLDER/demo/vellum90.toml.",
+        _copy_demo_options,
+    ),
+    "fidelity": (
+        "re-simulate off the grid and report how accurate the tables are",
+        "Characterize (reusing the result store), then re-simulate points between the grid's "
+        "points and report each table's interpolation error.",
+        _fidelity_options,
+    ),
+    "grid-study": (
+        "find the smallest grid that meets a target error for one arc",
+        "Try grids of several sizes and spacings for one arc against a dense reference grid "
+        "and report the smallest that meets each target error.",
+        _grid_study_options,
+    ),
+    "bench": (
+        "time charflow against the naive way and the simulator alone",
+        "Time charflow's sweep against one simulator run per point (the naive way) and the "
+        "simulator's own time: the demo's cells on both demo model sets and on a generated "
+        "foundry-style model file.",
+        _bench_options,
+    ),
+    "diff": (
+        "compare two libraries (Liberty or JSON) table by table",
+        "Compare two libraries (Liberty or JSON) table by table and list the largest changes.",
+        _diff_options,
+    ),
+}
 
 
 def _fraction(text: str) -> float:
@@ -197,8 +348,14 @@ def _reference(text: str) -> int:
 
 
 def _common(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--out", type=Path, help="output folder (default: runs/<library name>)")
-    p.add_argument("--jobs", type=int, help="worker processes (default: all cores)")
+    p.add_argument(
+        "--out",
+        type=Path,
+        metavar="FOLDER",
+        help="output folder (default: runs/<library name> in the current folder); it also "
+        "holds the result store that later runs reuse",
+    )
+    p.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: one per core)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -207,10 +364,13 @@ def _cluster(p: argparse.ArgumentParser) -> None:
         "--backend",
         choices=("joblib", "dask"),
         default="joblib",
-        help="joblib: worker processes on this machine (default); dask: an existing Dask cluster",
+        help="where the points run: joblib, worker processes on this machine (default); dask, "
+        "the workers of a running Dask cluster (needs --scheduler)",
     )
     p.add_argument(
-        "--scheduler", metavar="ADDRESS", help="the Dask scheduler, e.g. tcp://host:8786"
+        "--scheduler",
+        metavar="ADDRESS",
+        help="with --backend dask: the cluster's scheduler, e.g. tcp://host:8786",
     )
 
 
@@ -225,9 +385,7 @@ class _Progress:
 
     def start(self, total: int) -> None:
         if self.enabled:
-            from tqdm import tqdm
-
-            self.bar = tqdm(total=total, unit="pt", desc=self.name, dynamic_ncols=True)
+            self.bar = tqdm.tqdm(total=total, unit="pt", desc=self.name, dynamic_ncols=True)
 
     def stored(self, found: tuple) -> None:
         self.stored_count = len(found)
@@ -260,8 +418,7 @@ def _arc(text: str | None) -> tuple[str, str] | None:
     return related, output
 
 
-def _run(cfg_path: Path, args: argparse.Namespace) -> int:
-    cfg = _load(cfg_path, args)
+def _run(cfg: config.LibraryConfig, args: argparse.Namespace) -> int:
     if args.backend == "dask" and not args.scheduler:
         raise ConfigError("--backend dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
     if args.scheduler and args.backend != "dask":
@@ -275,7 +432,7 @@ def _run(cfg_path: Path, args: argparse.Namespace) -> int:
     if arc is not None and (cells is None or len(cells) != 1):
         raise ConfigError("--arc needs exactly one --cell: the cell whose arc it is")
     code = EXIT_OK
-    with _output_folder(cfg, args) as out, Store(out / FILE_NAME) as store:
+    with _output_folder(cfg, args) as out, store_mod.Store(out / store_mod.FILE_NAME) as store:
         for lib in cfg.libraries():
             progress = _Progress(args.quiet, lib.name)
             try:
@@ -407,8 +564,9 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK if report.ok else EXIT_BAD_INPUT
 
 
-def _load(cfg_path: Path, args: argparse.Namespace) -> config.LibraryConfig:
-    cfg = config.load(cfg_path)
+def _load(cfg_path: Path | None, args: argparse.Namespace) -> config.LibraryConfig:
+    """The config at ``cfg_path``; with None the demo's (its quick variant with --quick)."""
+    cfg = config.load(cfg_path) if cfg_path is not None else demo.load(quick=args.quick)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs must be at least 1, got {args.jobs}")
     return cfg
@@ -423,12 +581,12 @@ def _output_folder(cfg: config.LibraryConfig, args: argparse.Namespace) -> Itera
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot make the output folder: {exc.strerror}", file=out) from exc
-    with FolderLock(out):
+    with lock.FolderLock(out):
         yield out
 
 
 def _check_fidelity(
-    cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace, store: Store
+    cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace, store: store_mod.Store
 ) -> int:
     progress = _Progress(args.quiet)
     try:
@@ -453,7 +611,7 @@ def _check_fidelity(
 def _fidelity(args: argparse.Namespace) -> int:
     """Characterize (the tables are not written again), then check the tables off the grid."""
     cfg = _load(args.config, args)
-    with _output_folder(cfg, args) as out, Store(out / FILE_NAME) as store:
+    with _output_folder(cfg, args) as out, store_mod.Store(out / store_mod.FILE_NAME) as store:
         progress = _Progress(args.quiet)
         try:
             result = flow.characterize(
@@ -543,12 +701,25 @@ def _show_warnings() -> None:
         log.addHandler(handler)
 
 
+def _copy_demo(args: argparse.Namespace) -> int:
+    config_path = demo.copy_to(args.folder)
+    print(f"copied the demo's config, cell templates and models into {args.folder}")
+    print(f"edit them, then: charflow run {config_path}")
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    argv = sys.argv[1:] if argv is None else argv
+    # Only the chosen command's options are built (see _parser): --help loads no command module.
+    args = _parser(argv[0] if argv and argv[0] in COMMANDS else "").parse_args(argv)
     _show_warnings()
     try:
         if args.command == "run":
-            return _run(args.config, args)
+            return _run(_load(args.config, args), args)
+        if args.command == "demo":
+            return _run(_load(None, args), args)
+        if args.command == "copy-demo":
+            return _copy_demo(args)
         if args.command == "diff":
             return _diff(args)
         if args.command == "check":
@@ -557,9 +728,7 @@ def main(argv: list[str] | None = None) -> int:
             return _fidelity(args)
         if args.command == "grid-study":
             return _grid_study(args)
-        if args.command == "bench":
-            return _bench(args)
-        return _run(DEMO_CONFIG, args)
+        return _bench(args)
     except (ConfigError, NetlistError, FunctionalMismatchError, DiffError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT

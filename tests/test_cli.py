@@ -14,8 +14,8 @@ from pathlib import Path
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import __version__
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow import __version__, cli, demo
+from charflow.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -154,3 +154,46 @@ def test_demo_help(tmp_path: Path) -> None:
     assert done.stdout.startswith("usage: charflow demo")
     for option in ("--out", "--jobs", "--quiet"):
         assert option in done.stdout
+
+
+def test_help_lists_every_command_with_examples(tmp_path: Path) -> None:
+    done = _charflow("--help", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    for name in cli.COMMANDS:
+        assert f"    {name}" in done.stdout, name
+    assert "examples:" in done.stdout and "exit status:" in done.stdout
+
+
+def test_every_option_of_every_command_has_a_help_text() -> None:
+    (commands,) = (a for a in cli._parser()._actions if a.choices and a.dest == "command")
+    assert set(commands.choices) == set(cli.COMMANDS)
+    for name, parser in commands.choices.items():
+        assert parser.description, name
+        for action in parser._actions:
+            assert action.help, (name, action.dest)
+
+
+def test_copy_demo_then_check_the_copy(tmp_path: Path) -> None:
+    done = _charflow("copy-demo", "mine", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    copied = tmp_path / "mine" / "demo" / "vellum90.toml"
+    assert copied.read_bytes() == DEMO_CONFIG.read_bytes()
+    assert f"charflow run {Path('mine') / 'demo' / 'vellum90.toml'}" in done.stdout
+    # A second copy would overwrite the user's edits: refused before anything is written.
+    _bad(_charflow("copy-demo", "mine", cwd=tmp_path), EXIT_TROUBLE, "vellum90.toml", "exists")
+    # The copy's relative paths to its templates and models hold.
+    checked = _charflow("check", copied, cwd=tmp_path)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
+
+
+def test_quick_demo_is_the_demo_on_thinned_grids_and_level1_models() -> None:
+    full, quick = demo.load(), demo.load(quick=True)
+    assert quick.name == full.name + demo.QUICK_SUFFIX
+    assert [c.name for c in quick.cells] == [c.name for c in full.cells]
+    assert {m.path for m in quick.process.models} == {demo.QUICK_MODELS}
+    for small, big in zip(quick.cells, full.cells, strict=True):
+        for axis in ("slew", "load", "related_load", "constraint_slew"):
+            kept, shipped = getattr(small.grid, axis), getattr(big.grid, axis)
+            assert len(kept) <= 3 and set(kept) <= set(shipped), (small.name, axis)
+            if shipped:  # the table's range is the shipped one: its ends are kept
+                assert (kept[0], kept[-1]) == (shipped[0], shipped[-1]), (small.name, axis)
