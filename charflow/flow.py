@@ -190,7 +190,7 @@ def characterize(
     toggle_points = power.plan_toggles(config, cells) if arc is None else ()
     verify(config, cells, store=store)
     if on_start is not None:
-        on_start(len(chosen.points) + len(toggle_points))
+        on_start(sweep.work((*chosen.points, *toggle_points)))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
     toggles: list[power.ToggleMeasurement] = []
