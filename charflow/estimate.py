@@ -27,7 +27,7 @@ import time
 from collections import Counter
 from dataclasses import dataclass, replace
 
-from . import ffpower, power, stepsize, sweep
+from . import ffpower, plausible, power, stepsize, sweep
 from .config import CellSpec, LibraryConfig
 from .errors import CharflowError, MeasurementError
 from .netlist import Deck, build_deck
@@ -120,6 +120,7 @@ class Estimate:
 def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
     """Count the points of the chosen cells and measure a few of each."""
     plan = sweep.plan(config, cells)
+    plausible.announce(config, {a.cell for a in plan.arcs})
     timing = [p for p in plan.points if isinstance(p, sweep.TimingPoint)]
     per_arc = Counter((p.cell, p.related, p.output) for p in timing)
     arcs = tuple(
@@ -173,42 +174,43 @@ def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[Gr
     first = points[0]
     series = len({replace(p, slew=0.0, load=0.0) for p in points})
     start = time.perf_counter()
-    try:
-        stepsize.first_step(config, deck, first)
-        per_series = time.perf_counter() - start
-        grid = config.cell(first.cell).grid
-        corners = {(s, c) for s in (grid.slew[0], grid.slew[-1]) for c in (grid.load[0],)}
-        corners.add((grid.slew[0], grid.load[-1]))
-        probes = [stepsize.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners]
-        probes = [m for m in probes if m is not None]  # none when a probe failed
-        picks = [
-            replace(
-                first,
-                slew=grid.slew[i * (len(grid.slew) - 1) // (SAMPLES - 1)],
-                load=grid.load[i * (len(grid.load) - 1) // (SAMPLES - 1)],
-            )
-            for i in range(SAMPLES)
-        ]
-        start = time.perf_counter()
-        # With its step given, a grid corner is simulated too, not taken from its probe.
-        measured = [
-            measure_point(config, deck, p, step=stepsize.first_step(config, deck, p)) for p in picks
-        ]
-    except CharflowError as exc:
-        raise explain(config, first, exc) from exc
-    per_point = (time.perf_counter() - start) / len(picks)
-    runs = sum(m.runs for m in measured) / len(measured)
-    probed = series * len(probes)
-    groups = [GroupCost("timing points", len(points) - probed, per_point, runs, len(picks))]
-    if probes:
-        per_probe = sum(m.runs for m in probes) / len(probes)
-        groups.append(
-            GroupCost("step probes", probed, per_series / len(probes), per_probe, len(probes))
+    stepsize.first_step(config, deck, first)  # a probe that fails leaves the plain step
+    per_series = time.perf_counter() - start
+    grid = config.cell(first.cell).grid
+    corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
+    corners.add((grid.slew[-1], grid.load[0]))
+    probes = [stepsize.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners]
+    probes = [m for m in probes if m is not None]  # none when a probe failed
+    picks = [
+        replace(
+            first,
+            slew=grid.slew[i * (len(grid.slew) - 1) // (SAMPLES - 1)],
+            load=grid.load[i * (len(grid.load) - 1) // (SAMPLES - 1)],
         )
-    return tuple(groups)
+        for i in range(SAMPLES)
+    ]
+    start = time.perf_counter()
+    runs = 0
+    for p in picks:
+        try:
+            # With its step given, a grid corner is simulated too, not taken from its probe.
+            runs += measure_point(config, deck, p, step=stepsize.first_step(config, deck, p)).runs
+        except CharflowError as exc:
+            raise explain(config, p, exc) from exc
+    per_point = (time.perf_counter() - start) / len(picks)
+    probed = series * len(probes)
+    samples = GroupCost(
+        "timing points", len(points) - probed, per_point, runs / len(picks), len(picks)
+    )
+    if not probes:
+        return (samples,)
+    per_probe = sum(m.runs for m in probes) / len(probes)
+    cost = GroupCost("step probes", probed, per_series / len(probes), per_probe, len(probes))
+    return (samples, cost)
 
 
 _SEARCHES = ("setup", "hold", "recovery", "removal")
+CLOCKED = "clock and control arcs"
 
 
 def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, ...]:
@@ -224,9 +226,6 @@ def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, 
     if pulses:
         groups.append(_sampled(config, deck, "pulse-width searches", pulses, 1))
     return tuple(groups)
-
-
-CLOCKED = "clock and control arcs"
 
 
 def _outside(cell: CellSpec) -> int:

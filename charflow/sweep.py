@@ -30,10 +30,11 @@ CHUNK = 25  # points per worker task: large enough to amortise the deck load
 
 # Simulations a point of each kind takes, roughly: the weights of the progress bar and of the
 # chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
-# point is one run, now and then refined; a flip-flop experiment writes a value first and is
-# refined more often (2.4 runs a clock point on tests/data/seq_l1.toml); a search bisects
-# log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks (21 to 25
-# runs a search there, more with a tighter tolerance).
+# point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's BUFC_X1); a flip-flop
+# experiment writes a value first and is refined more often (2.4 a clock point there); a search
+# bisects log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks
+# (13 to 25 runs a search there at 1 ps, 4 when the narrowest pulse already passes; 15 to 37
+# in the demo plan's samples).
 POINT_RUNS = 1
 FLOP_POINT_RUNS = 2
 SEARCH_RUNS = 30
@@ -180,7 +181,8 @@ class PulsePoint:
     def where(self, config: LibraryConfig) -> dict[str, str | None]:
         """Where the search is, in the library's units, as an error's context."""
         slew = show_time(self.slew, config.time_unit)
-        return {"cell": self.cell, "pin": self.pin, "point": f"minimum {self.level} pulse, {slew}"}
+        point = f"minimum {self.level} pulse, slew {slew}"
+        return {"cell": self.cell, "pin": self.pin, "point": point}
 
 
 Point = TimingPoint | ConstraintPoint | PulsePoint

@@ -98,11 +98,11 @@ def explain(config: LibraryConfig, point, exc: CharflowError) -> CharflowError:
     library's units); a run cut off by its window also names the key and what to change."""
     reason = exc.reason
     if isinstance(exc, CutOffError):
-        reason = f"{reason}; {_window_advice(config, point, exc.cap)}"
+        reason = f"{reason}; {_window_advice(config, point.cell, exc.cap)}"
     return exc.located(reason, **point.where(config))
 
 
-def _window_advice(config: LibraryConfig, point, cap: float | None) -> str:
+def _window_advice(config: LibraryConfig, cell: str, cap: float | None) -> str:
     """Which ``[simulation] window`` cut a run off, in the library's units, and what to do."""
     unit = config.time_unit
     window = config.simulation.window
@@ -115,7 +115,7 @@ def _window_advice(config: LibraryConfig, point, cap: float | None) -> str:
     fix = "set window longer than the output takes to settle"
     if longer is not None:
         fix += f" (e.g. window = {longer * WINDOW_ADVICE / config.time_scale:.4g}, in {unit})"
-    if min(config.cell(point.cell).grid.slew) < plausible.SHARPEST_SLEW:
+    if min(config.cell(cell).grid.slew) < plausible.SHARPEST_SLEW:
         fix += f", or, if the grid's slews are not in {unit}, correct time_unit"
     return f"{said}: {fix}"
 
@@ -388,7 +388,15 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
     if cell.flop is not None:
         from .sequential import check_flop
 
-        return check_flop(config, deck)
+        try:
+            return check_flop(config, deck)
+        except FunctionalMismatchError as exc:
+            cause = exc.__cause__
+            if not isinstance(cause, CutOffError):
+                raise
+            # Not the netlist's fault: the window is too short for the flop to settle.
+            advice = _window_advice(config, cell.name, cause.cap)
+            raise exc.located(f"{exc.reason}; {advice}", key="simulation.window") from cause
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)
