@@ -12,10 +12,12 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from . import config as config_mod
+from . import plausible
 from .config import LibraryConfig
 from .errors import (
     CharflowError,
     ConfigError,
+    ConfigProblemsError,
     DeckReadError,
     FunctionalMismatchError,
     SimulatorError,
@@ -28,6 +30,7 @@ from .timing import check_function
 class CheckReport:
     cells: int  # cells taken through the checks (0 when the config did not load)
     problems: tuple[str, ...]  # one line each (a line may continue, indented, below it)
+    warnings: tuple[str, ...] = ()  # values that run but no process makes (``plausible``)
 
     @property
     def ok(self) -> bool:
@@ -38,6 +41,8 @@ def check(path: str | Path) -> CheckReport:
     """Load the config and check every cell; collect the problems instead of raising them."""
     try:
         cfg = config_mod.load(path)
+    except ConfigProblemsError as exc:
+        return CheckReport(0, tuple(map(str, exc.problems)))
     except ConfigError as exc:
         return CheckReport(0, (str(exc),))
     problems = []
@@ -50,7 +55,7 @@ def check(path: str | Path) -> CheckReport:
                 # The shared ngspice may refuse every deck after one it could not read: the
                 # other cells go to one ngspice process per run, which starts afresh each time.
                 cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
-    return CheckReport(len(cfg.cells), tuple(problems))
+    return CheckReport(len(cfg.cells), tuple(problems), plausible.warnings(cfg))
 
 
 def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowError:
@@ -72,6 +77,14 @@ def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowErro
 
 
 def summary(report: CheckReport) -> str:
-    if report.ok:
-        return f"{report.cells} cells checked, no problems"
-    return "\n".join(report.problems) + f"\n{len(report.problems)} problem(s) found"
+    """Every problem and warning, then one line counting them."""
+    lines = [*report.problems, *(f"warning: {w}" for w in report.warnings)]
+    counts = [_count(len(report.problems), "problem") if report.problems else "no problems"]
+    if report.warnings:
+        counts.append(_count(len(report.warnings), "warning"))
+    what = _count(report.cells, "cell") + " checked" if report.cells else "the config did not load"
+    return "\n".join([*lines, f"{what}: {', '.join(counts)}"])
+
+
+def _count(n: int, thing: str) -> str:
+    return f"{n} {thing}{'s' * (n != 1)}"

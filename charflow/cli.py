@@ -375,20 +375,32 @@ def _cluster(p: argparse.ArgumentParser) -> None:
 
 
 class _Progress:
-    """A tqdm bar on a terminal; nothing when output is redirected or --quiet."""
+    """A tqdm bar on a terminal; nothing when output is redirected or --quiet. The bar counts
+    work, each point's ``cost`` (about its simulations), not points: a flip-flop's search
+    weighs what its runs take, and the time left holds when the searches come last. Points
+    from the store take no time and count for none."""
 
     def __init__(self, quiet: bool, name: str = "points") -> None:
         self.enabled = not quiet and sys.stderr.isatty()
         self.name = name
         self.bar = None
         self.seen = self.stored_count = self.failed = 0
+        self.from_store: set = set()
 
     def start(self, total: int) -> None:
+        """``total``: the work of every point to come (``sweep.work``)."""
         if self.enabled:
-            self.bar = tqdm.tqdm(total=total, unit="pt", desc=self.name, dynamic_ncols=True)
+            # smoothing 0: the mean rate since the start, steadier than a recent one when
+            # results come a worker's chunk at a time.
+            self.bar = tqdm.tqdm(
+                total=total, unit="sim", desc=self.name, dynamic_ncols=True, smoothing=0.0
+            )
 
     def stored(self, found: tuple) -> None:
         self.stored_count = len(found)
+        self.from_store = {m.point for m in found}
+        if self.bar is not None:
+            self.bar.total -= sum(m.point.cost for m in found)
 
     def result(self, outcome: object) -> None:
         self.seen += 1
@@ -402,7 +414,8 @@ class _Progress:
                 "failed": self.failed,
             }
             self.bar.set_postfix(counts, refresh=False)
-            self.bar.update(1)
+            point = outcome.point
+            self.bar.update(0 if point in self.from_store else point.cost)
 
     def close(self) -> None:
         if self.bar is not None:
@@ -466,7 +479,9 @@ def _run(cfg: config.LibraryConfig, args: argparse.Namespace) -> int:
                     file=sys.stderr,
                 )
                 _list_faults(result, result.failures, out)
-                if args.allow_gaps is None:
+                # A point cut off by the window says which key to change: filling it would
+                # hide a window too short, not a point the simulator could not do.
+                if args.allow_gaps is None and not all(f.cut_off for f in result.failures):
                     print(
                         f"{lib.name}: rerun with --allow-gaps {' or '.join(gaps.METHODS)} to fill "
                         "them from measured neighbours (marked as filled)",
@@ -486,7 +501,7 @@ def _list_faults(result: flow.RunResult, failures, out: Path) -> None:
     saved = faults.paths(result.faults)
     why = {u.failure.point: u.why for u in result.gap_report.unfilled} if result.gap_report else {}
     for f in failures[:LISTED]:
-        print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+        print(f"  {f.message}", file=sys.stderr)
         if f.point in why:
             print(f"    not filled: {why[f.point]}", file=sys.stderr)
         if f.point in saved:
@@ -506,7 +521,7 @@ def _gaps(name: str, result: flow.RunResult, out: Path) -> None:
     saved = faults.paths(result.faults)
     for f in result.filled[:LISTED]:
         p = f.failure.point
-        print(f"  cell {p.cell}, {p.label}: {f.failure.reason}")
+        print(f"  {f.failure.message}")
         print(f"    filled along {f.along} from {len(f.sources)} measured point(s)")
         if p in saved:
             print(f"    waveform: {out / saved[p][0]}")
@@ -538,7 +553,7 @@ def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
     if result.stale and selective:
         print(f"{name}: run without --cell to bring every table up to date")
     for f in result.unmeasured[:20]:
-        print(f"{name}: no hidden power: cell {f.point.cell}, {f.point.label}: {f.reason}")
+        print(f"{name}: no hidden power: {f.message}")
     if result.left_out:
         print(
             f"{name}: left out {', '.join(result.left_out)}: the store does not hold all their "
@@ -631,7 +646,7 @@ def _fidelity(args: argparse.Namespace) -> int:
                 file=sys.stderr,
             )
             for f in result.failures[:20]:
-                print(f"  cell {f.point.cell}, {f.point.label}: {f.reason}", file=sys.stderr)
+                print(f"  {f.message}", file=sys.stderr)
             return EXIT_FAILED_POINTS
         # With a store the library holds every stored cell; the check is for the chosen ones.
         cells = [c for c in result.cells if args.cell is None or c.cell.name in args.cell]

@@ -15,8 +15,8 @@ from pathlib import Path
 from typing import Any
 
 from . import logic
-from .errors import ConfigError, FunctionSyntaxError
-from .units import CAP_UNITS, TIME_UNITS, cap_scale, time_scale
+from .errors import ConfigError, ConfigProblemsError, FunctionSyntaxError
+from .units import CAP_UNITS, TIME_UNITS, cap_scale, time_scale, unit_name
 
 
 @dataclass(frozen=True, slots=True)
@@ -376,14 +376,8 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     name = r.get(lib, "name", str, "library")
     if name is not None and not _is_identifier(name):
         r.problem("library.name", f"must be a name of letters, digits and _, got {name!r}")
-    time_unit = r.get(lib, "time_unit", str, "library", "ns")
-    if time_unit is not None and time_unit not in TIME_UNITS:
-        r.problem("library.time_unit", f"must be one of {', '.join(TIME_UNITS)}, got {time_unit!r}")
-        time_unit = None
-    cap_unit = r.get(lib, "cap_unit", str, "library", "pf")
-    if cap_unit is not None and cap_unit not in CAP_UNITS:
-        r.problem("library.cap_unit", f"must be one of {', '.join(CAP_UNITS)}, got {cap_unit!r}")
-        cap_unit = None
+    time_unit = _unit(r, lib, "time_unit", "ns", TIME_UNITS)
+    cap_unit = _unit(r, lib, "cap_unit", "pf", CAP_UNITS)
     tscale = time_scale(time_unit) if time_unit else 1.0
     cscale = cap_scale(cap_unit) if cap_unit else 1.0
 
@@ -427,10 +421,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     if len(r.problems) == 1:
         raise r.problems[0]
     if r.problems:
-        raise ConfigError(
-            f"{len(r.problems)} problems in the config:\n  " + "\n  ".join(map(str, r.problems)),
-            file=path,
-        )
+        raise ConfigProblemsError(r.problems, file=path)
     return LibraryConfig(
         path=path,
         name=name,
@@ -444,6 +435,17 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         fidelity=fidelity,
         corners=corners,
     )
+
+
+def _unit(r: _Reader, lib: dict, key: str, default: str, known: dict[str, float]) -> str | None:
+    """A library unit in any case (``fF``, ``nS``), kept in its lower-case spelling."""
+    text = r.get(lib, key, str, "library", default)
+    if text is None:
+        return None
+    unit = unit_name(text, known)
+    if unit is None:
+        r.problem(f"library.{key}", f"must be one of {', '.join(known)} (any case), got {text!r}")
+    return unit
 
 
 def _is_identifier(text: str) -> bool:

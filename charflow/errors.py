@@ -7,6 +7,8 @@ Raise with ``from`` when wrapping a lower-level exception.
 
 from __future__ import annotations
 
+import copy
+
 _CONTEXT_ORDER = ("file", "line", "key", "cell", "pin", "arc", "state", "point", "vector")
 
 
@@ -22,12 +24,40 @@ class CharflowError(Exception):
         super().__init__(self._format())
 
     def _format(self) -> str:
-        where = ", ".join(f"{k} {self.context[k]}" for k in _CONTEXT_ORDER if k in self.context)
+        where = place(self.context)
         return f"{where}: {self.reason}" if where else self.reason
+
+    def located(self, reason: str | None = None, **context: object) -> CharflowError:
+        """A copy of this error (same type, same attributes) with ``context`` added where it
+        names none, and with ``reason`` in place of its own when given; raise it ``from``
+        this one."""
+        other = copy.copy(self)
+        added = {k: v for k, v in context.items() if v is not None}
+        unknown = set(added) - set(_CONTEXT_ORDER)
+        if unknown:
+            raise TypeError(f"unknown error context {sorted(unknown)}")
+        other.context = {**added, **self.context}
+        other.reason = self.reason if reason is None else reason
+        other.args = (other._format(),)
+        return other
+
+
+def place(context: dict[str, object]) -> str:
+    """Where a message is about, as errors say it: ``cell INV_X1, arc A->Y (...), point ...``."""
+    return ", ".join(f"{k} {context[k]}" for k in _CONTEXT_ORDER if k in context)
 
 
 class ConfigError(CharflowError):
     """The configuration file is missing, malformed or inconsistent."""
+
+
+class ConfigProblemsError(ConfigError):
+    """Several problems in one config file; ``problems`` holds each as its own ConfigError."""
+
+    def __init__(self, problems: list[ConfigError] | tuple[ConfigError, ...], **context) -> None:
+        self.problems = tuple(problems)
+        listed = "\n  ".join(map(str, self.problems))
+        super().__init__(f"{len(self.problems)} problems in the config:\n  {listed}", **context)
 
 
 class FunctionSyntaxError(ConfigError):
@@ -64,6 +94,16 @@ class MeasurementError(CharflowError):
 
     def __init__(self, message: str, *, waveform: object = None, **context: object) -> None:
         self.waveform = waveform
+        super().__init__(message, **context)
+
+
+class CutOffError(MeasurementError):
+    """A run reached its stop-time cap (``[simulation] window`` or its default) before an
+    output settled: the point was cut off, not mis-simulated. ``cap`` holds the window in
+    effect (s past the run's last input event), when the run says it."""
+
+    def __init__(self, message: str, *, cap: float | None = None, **context: object) -> None:
+        self.cap = cap
         super().__init__(message, **context)
 
 

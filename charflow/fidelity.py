@@ -315,7 +315,7 @@ def check(
     work = _work(config, cells, settings)
     unique = list(dict.fromkeys(p for w in work for per_probe in w.points for p in per_probe))
     if on_start is not None:
-        on_start(len(unique))
+        on_start(sweep.work(unique))
     outcomes = {
         o.point: o
         for o in sweep.run(

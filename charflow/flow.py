@@ -20,7 +20,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__, faults, gaps, liberty, power, sweep
+from . import __version__, faults, gaps, liberty, plausible, power, sweep
 from .config import LibraryConfig
 from .diff import pin_name, table_name
 from .errors import ConfigError, OutputError
@@ -188,9 +188,10 @@ def characterize(
     chosen = select(config, cells, arc)
     # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
     toggle_points = power.plan_toggles(config, cells) if arc is None else ()
+    plausible.announce(config, {p.cell for p in chosen.points})  # before the first simulation
     verify(config, cells, store=store)
     if on_start is not None:
-        on_start(len(chosen.points) + len(toggle_points))
+        on_start(sweep.work((*chosen.points, *toggle_points)))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
     toggles: list[power.ToggleMeasurement] = []

@@ -475,7 +475,7 @@ def study(
         requested = dict.fromkeys(p for m in maps for p in m.values())
         unique = [p for p in requested if p not in outcomes]
         if on_start is not None:
-            on_start(len(unique))
+            on_start(sweep.work(unique))
         outcomes.update(
             (o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)
         )

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import MeasurementError
+from .errors import CutOffError, MeasurementError
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -103,14 +103,19 @@ def transition(
     return upper - lower if edge == "rise" else lower - upper
 
 
-def check_settled(v: np.ndarray, target: float, tolerance: float, edge: str, what: str) -> None:
+def check_settled(
+    v: np.ndarray, target: float, tolerance: float, edge: str, what: str, cap: float | None = None
+) -> None:
     """The waveform ended within ``tolerance`` (V) of ``target``, or beyond it in the edge's
-    direction (an output may overshoot its rail a little as it arrives)."""
+    direction (an output may overshoot its rail a little as it arrives). A run stops as soon
+    as its outputs have settled, so one that has not was stopped by its cap: a CutOffError,
+    with the window in effect (``cap``, s) when the caller gives it."""
     short = target - v[-1] if edge == "rise" else v[-1] - target
     if short > tolerance:
-        raise MeasurementError(
-            f"{what} has not settled: ends at {v[-1]:.4g} V, {target:.4g} V expected "
-            f"(tolerance {tolerance:.3g} V)"
+        raise CutOffError(
+            f"{what} had not settled when the run reached its stop-time cap (it ends at "
+            f"{v[-1]:.4g} V, {target:.4g} V expected, tolerance {tolerance:.3g} V)",
+            cap=cap,
         )
 
 

@@ -28,7 +28,7 @@ from .errors import MeasurementError, TableError
 from .measure import KeepWaveform, integral, single_crossing, supply_energy, waveform
 from .netlist import Deck, build_deck
 from .simulate import Request
-from .sweep import EDGES, Arc, Plan, State
+from .sweep import EDGES, POINT_RUNS, Arc, Plan, State
 from .tables import Axis, Table
 from .timing import (
     LOGIC_MARGIN,
@@ -39,6 +39,7 @@ from .timing import (
     simulate,
     static_current,
 )
+from .units import show_cap, show_time
 
 TOGGLE_TAIL = 4.0  # ramp durations after the ramp, before any extension
 TOGGLE_EXTENSIONS = 3
@@ -77,6 +78,20 @@ class TogglePoint:
             f"{self.related} {self.input_edge} (no output edge) when {self.when or '-'} "
             f"slew {self.slew:.4g} s"
         )
+
+    @property
+    def cost(self) -> int:
+        return POINT_RUNS
+
+    def where(self, config: LibraryConfig) -> dict[str, str | None]:
+        """Where the toggle is, in the library's units, as an error's context."""
+        slew = show_time(self.slew, config.time_unit)
+        return {
+            "cell": self.cell,
+            "pin": f"{self.related} ({self.input_edge}, no output edge)",
+            "state": self.when or None,
+            "point": f"slew {slew}, load {show_cap(self.load, config.cap_unit)}",
+        }
 
 
 @dataclass(frozen=True, slots=True)

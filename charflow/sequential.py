@@ -204,7 +204,9 @@ def run_event(
                 )
             # Overshooting the rail as it arrives is settled; stopping short of it is not.
             after_level = vdd if after else 0.0
-            check_settled(v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what)
+            check_settled(
+                v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what, window
+            )
             if before == after:
                 return Outcome(np.nan, np.nan, np.nan), runs, seconds
             # The event pin is driven by an ideal source: its ramp crosses where the ramp says.

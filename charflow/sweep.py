@@ -16,16 +16,28 @@ from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from . import logic
+from . import logic, plausible
 from .config import CellSpec, LibraryConfig
 from .errors import ConfigError
 from .netlist import Deck, build_deck
+from .units import show_cap, show_time
 
 if TYPE_CHECKING:
     from .store import Store
 
 EDGES = ("rise", "fall")
 CHUNK = 25  # points per worker task: large enough to amortise the deck load
+
+# Simulations a point of each kind takes, roughly: the weights of the progress bar and of the
+# chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
+# point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's BUFC_X1); a flip-flop
+# experiment writes a value first and is refined more often (2.4 a clock point there); a search
+# bisects log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks
+# (13 to 25 runs a search there at 1 ps, 4 when the narrowest pulse already passes; 15 to 37
+# in the demo plan's samples).
+POINT_RUNS = 1
+FLOP_POINT_RUNS = 2
+SEARCH_RUNS = 30
 
 
 @dataclass(frozen=True, slots=True)
@@ -91,6 +103,25 @@ class TimingPoint:
             f"slew {self.slew:.4g} s load {self.load:.4g} F{other}"
         )
 
+    @property
+    def cost(self) -> int:
+        return POINT_RUNS if self.kind == "combinational" else FLOP_POINT_RUNS
+
+    def where(self, config: LibraryConfig) -> dict[str, str | None]:
+        """Where the point is, in the library's units, as an error's context."""
+        edges = f"{self.related} {self.input_edge}, {self.output} {self.output_edge}"
+        kind = "" if self.kind == "combinational" else f"{self.kind}: "
+        point = f"slew {show_time(self.slew, config.time_unit)}, load "
+        point += show_cap(self.load, config.cap_unit)
+        if self.other_load is not None:
+            point += f", other output's load {show_cap(self.other_load, config.cap_unit)}"
+        return {
+            "cell": self.cell,
+            "arc": f"{self.related}->{self.output} ({kind}{edges})",
+            "state": logic.when_condition(self.state_side) or None,
+            "point": point,
+        }
+
 
 @dataclass(frozen=True, slots=True)
 class ConstraintPoint:
@@ -114,6 +145,21 @@ class ConstraintPoint:
             f"{self.clock_slew:.4g} s"
         )
 
+    @property
+    def cost(self) -> int:
+        return SEARCH_RUNS
+
+    def where(self, config: LibraryConfig) -> dict[str, str | None]:
+        """Where the search is, in the library's units, as an error's context."""
+        edges = f"{self.constrained} {self.data_edge}, {self.related} {self.clock_edge}"
+        unit = config.time_unit
+        return {
+            "cell": self.cell,
+            "arc": f"{self.related}->{self.constrained} ({self.kind}: {edges})",
+            "point": f"{self.constrained} slew {show_time(self.data_slew, unit)}, "
+            f"{self.related} slew {show_time(self.clock_slew, unit)}",
+        }
+
 
 @dataclass(frozen=True, slots=True)
 class PulsePoint:
@@ -127,6 +173,16 @@ class PulsePoint:
     @property
     def label(self) -> str:
         return f"minimum {self.level} pulse on {self.pin}, slew {self.slew:.4g} s"
+
+    @property
+    def cost(self) -> int:
+        return SEARCH_RUNS
+
+    def where(self, config: LibraryConfig) -> dict[str, str | None]:
+        """Where the search is, in the library's units, as an error's context."""
+        slew = show_time(self.slew, config.time_unit)
+        point = f"minimum {self.level} pulse, slew {slew}"
+        return {"cell": self.cell, "pin": self.pin, "point": point}
 
 
 Point = TimingPoint | ConstraintPoint | PulsePoint
@@ -321,14 +377,17 @@ def plan(config: LibraryConfig, cells: Iterable[str] | None = None) -> Plan:
     return Plan(tuple(arcs), tuple(points))
 
 
-# Rough simulations per point, for scheduling: searches cost one run per bisection step.
-SEARCH_COST = 14
+def work(points: Iterable[Point]) -> int:
+    """The simulations ``points`` take, roughly (the sum of their ``cost``): the unit of
+    progress."""
+    return sum(p.cost for p in points)
 
 
-def _cost(p: Point) -> float:
+def _weight(p: Point) -> float:
     if isinstance(p, ConstraintPoint | PulsePoint):
-        return SEARCH_COST
-    return 1.0 + p.load * 1e12 + p.slew * 1e9  # one run (timing points, power's toggles)
+        return p.cost
+    # Within a kind, a slower ramp and a larger load make a longer run (power's toggles too).
+    return p.cost * (1.0 + p.load * 1e12 + p.slew * 1e9)
 
 
 def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]]:
@@ -338,11 +397,11 @@ def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]
     for p in points:
         groups.setdefault((p.cell, type(p)), []).append(p)
     out = []
-    for (_, kind), group in groups.items():
-        step = max(1, size // SEARCH_COST) if kind in (ConstraintPoint, PulsePoint) else size
+    for group in groups.values():
+        step = max(1, size // group[0].cost)
         for i in range(0, len(group), step):
             out.append(tuple(group[i : i + step]))
-    out.sort(key=lambda c: -sum(_cost(p) for p in c))
+    out.sort(key=lambda c: -sum(_weight(p) for p in c))
     return out
 
 
@@ -374,6 +433,7 @@ def run(
     decks: dict[str, Deck] = {
         c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}
     }
+    plausible.announce(config, decks)
     ring = None
     if store is not None:
         from .store import keyring

@@ -17,15 +17,18 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from . import stepsize, stimulus
+from . import plausible, stepsize, stimulus
 from .config import CellSpec, LibraryConfig
 from .errors import (
+    CharflowError,
+    CutOffError,
     DeckReadError,
     FunctionalMismatchError,
     MeasurementError,
     SimulatorError,
     SimulatorHungError,
     SimulatorTimeoutError,
+    place,
 )
 from .measure import (
     KeepWaveform,
@@ -41,11 +44,13 @@ from .measure import (
 from .netlist import PARKED_LOAD, Deck
 from .simulate import RETRY_LADDER, Request, Result, make_backend
 from .sweep import TimingPoint
+from .units import show_time
 
 log = logging.getLogger("charflow")
 
 RAMP_SAMPLES = 20  # samples across the input ramp, before any refinement
 WINDOW_CAP = 100.0  # stop-time cap, in ramp durations (or the grid's largest slew)
+WINDOW_ADVICE = 10.0  # a cut-off point's message suggests this many times the window it had
 REFINEMENTS = 2
 REFINE_SLACK = 1.5  # the simulator's step may exceed the wanted one a little
 LOGIC_MARGIN = 0.1  # a DC output within 10 % of a rail is a clean logic level
@@ -78,6 +83,41 @@ class Failure:
     point: TimingPoint
     reason: str
     waveform: Waveform | None = None  # the run that gave no measurement, when one ran
+    where: str = ""  # cell, arc, state and point in the library's units (``explain``)
+    cut_off: bool = False  # the window cap stopped the run before the output settled
+
+    @property
+    def message(self) -> str:
+        """One line saying where and why: what the run lists for each failed point."""
+        where = self.where or f"cell {self.point.cell}, {self.point.label}"
+        return f"{where}: {self.reason}"
+
+
+def explain(config: LibraryConfig, point, exc: CharflowError) -> CharflowError:
+    """``exc`` located at ``point`` (cell, arc with its edges, state, and the point in the
+    library's units); a run cut off by its window also names the key and what to change."""
+    reason = exc.reason
+    if isinstance(exc, CutOffError):
+        reason = f"{reason}; {_window_advice(config, point.cell, exc.cap)}"
+    return exc.located(reason, **point.where(config))
+
+
+def _window_advice(config: LibraryConfig, cell: str, cap: float | None) -> str:
+    """Which ``[simulation] window`` cut a run off, in the library's units, and what to do."""
+    unit = config.time_unit
+    window = config.simulation.window
+    if window is not None:
+        said = f"the cap is [simulation] window = {show_time(window, unit)}"
+    else:
+        said = "the cap is the default of [simulation] window (not set)"
+        said += f", here {show_time(cap, unit)}" if cap is not None else ""
+    longer = window or cap
+    fix = "set window longer than the output takes to settle"
+    if longer is not None:
+        fix += f" (e.g. window = {longer * WINDOW_ADVICE / config.time_scale:.4g}, in {unit})"
+    if min(config.cell(cell).grid.slew) < plausible.SHARPEST_SLEW:
+        fix += f", or, if the grid's slews are not in {unit}, correct time_unit"
+    return f"{said}: {fix}"
 
 
 _BACKENDS: dict[str, object] = {}
@@ -221,7 +261,8 @@ def measure_point(
         if o.pin != point.output and final != o.function.evaluate(before):
             settled.append(f"v({node}) > {vdd - tol:.6g}" if final else f"v({node}) < {tol:.6g}")
     stop_when = " when ".join([*settled, f"time > {ramp.end:.12g}"])
-    stop = ramp.end + (sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew)))
+    window = sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew))
+    stop = ramp.end + window
     max_step = step
     runs = 0
     seconds = 0.0
@@ -249,7 +290,7 @@ def measure_point(
                     f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs "
                     f"do not hold it where the function says"
                 )
-            check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what)
+            check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what, window)
             t_out = single_crossing(
                 t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
             )
@@ -323,11 +364,16 @@ def measure_chunk(
             raise
         except (MeasurementError, SimulatorError) as exc:
             wave = exc.waveform if isinstance(exc, MeasurementError) else None
-            outcome = Failure(point, exc.reason, wave)
+            told = explain(config, point, exc)
+            cut = isinstance(exc, CutOffError)
+            outcome = Failure(point, told.reason, wave, place(told.context), cut)
         except Exception as exc:  # noqa: BLE001 - a charflow bug must not end hours of work
-            log.exception("internal error measuring cell %s, %s", point.cell, point.label)
+            where = place(point.where(config))
+            log.exception("internal error measuring %s", where)
             outcome = Failure(
-                point, f"internal error in charflow ({type(exc).__name__}: {exc}); please report it"
+                point,
+                f"internal error in charflow ({type(exc).__name__}: {exc}); please report it",
+                where=where,
             )
         if done is not None:
             done(outcome)
@@ -342,7 +388,15 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
     if cell.flop is not None:
         from .sequential import check_flop
 
-        return check_flop(config, deck)
+        try:
+            return check_flop(config, deck)
+        except FunctionalMismatchError as exc:
+            cause = exc.__cause__
+            if not isinstance(cause, CutOffError):
+                raise
+            # Not the netlist's fault: the window is too short for the flop to settle.
+            advice = _window_advice(config, cell.name, cause.cap)
+            raise exc.located(f"{exc.reason}; {advice}", key="simulation.window") from cause
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)

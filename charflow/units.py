@@ -22,6 +22,23 @@ def cap_scale(unit: str) -> float:
     return CAP_UNITS[unit]
 
 
+def unit_name(text: str, known: dict[str, float]) -> str | None:
+    """The unit ``text`` names, in its stored (lower-case) spelling, whatever its case
+    (``pF``, ``nS``); None when it names none of ``known``."""
+    name = text.strip().lower()
+    return name if name in known else None
+
+
+def show_time(seconds: float, unit: str) -> str:
+    """A time in the library's unit, for messages: ``0.05 ns``."""
+    return f"{seconds / time_scale(unit):.4g} {unit}"
+
+
+def show_cap(farads: float, unit: str) -> str:
+    """A capacitance in the library's unit, for messages: ``0.01 pf``."""
+    return f"{farads / cap_scale(unit):.4g} {unit}"
+
+
 def energy_unit(cap_unit: str) -> str:
     """The unit of internal energy tables: one capacitance unit times (1 V)^2."""
     return ENERGY_UNITS[cap_unit]

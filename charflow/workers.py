@@ -88,10 +88,10 @@ def run_alone(config: LibraryConfig, decks: Mapping[str, Deck], points: Sequence
     for point in points:
         (outcome,) = measure_chunk(alone, decks[point.cell], (point,))
         if isinstance(outcome, Failure):
-            outcome = Failure(
-                point,
-                "a worker process died while this point was in flight; run alone through "
-                f"ngspice -b it failed too: {outcome.reason}",
+            outcome = replace(
+                outcome,
+                reason="a worker process died while this point was in flight; run alone "
+                f"through ngspice -b it failed too: {outcome.reason}",
             )
         out.append(outcome)
     return out

@@ -228,7 +228,9 @@ def test_failed_points_are_the_heaviest_load_and_carry_their_run(inverter):
     assert len(result.failures) == 6  # 3 slews x 2 edges at 0.02 pF
     for f in result.failures:
         assert f.point.load == pytest.approx(0.02e-12, rel=1e-12, abs=0)
-        assert "has not settled" in f.reason
+        assert "had not settled" in f.reason and f.cut_off
+        # The key that cut it off, its value and a longer one, in the library's units.
+        assert "[simulation] window = 0.05 ns" in f.reason and "window = 0.5, in ns" in f.reason
         assert [name for name, _ in f.waveform.nodes] == ["Y", "A"]
         assert np.all(np.diff(f.waveform.time) > 0)
 
@@ -300,7 +302,9 @@ def test_command_fails_without_allow_gaps_and_when_gaps_remain(tmp_path, capsys)
     assert "22 point(s) failed" in err
     assert err.count("    waveform: ") == cli.LISTED
     assert "... and 2 more" in err
-    assert "--allow-gaps" in err
+    # Every point was cut off by the window: the message names it, and filling is not offered.
+    assert err.count("[simulation] window = 0.05 ns") == cli.LISTED
+    assert "--allow-gaps" not in err
     # NAND2's sharpest slew at 0.02 pF has one measured load in its row (0.001 pF) and none in
     # its column: linear cannot fill it, for either input and edge.
     code, out_text, err = _run(capsys, cfg_path, "--out", out, "--allow-gaps", "linear")
@@ -337,7 +341,7 @@ def test_command_succeeds_when_every_gap_is_filled(filled_run):
     assert doc["failures"] == [] and len(doc["filled"]) == 6
     entry = doc["filled"][0]
     assert entry["method"] == "linear" and entry["along"] == "load" and len(entry["from"]) == 2
-    assert "has not settled" in entry["reason"]
+    assert "had not settled" in entry["reason"]
     assert (out / entry["waveform_csv"]).is_file()
 
 

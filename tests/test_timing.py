@@ -169,7 +169,7 @@ outputs = {{ Y = "!(IA|IB)" }}
 
 @pytest.mark.parametrize(
     ("input_edge", "output_edge", "reason"),
-    [("rise", "fall", "has not settled"), ("fall", "rise", "starts at")],
+    [("rise", "fall", "had not settled"), ("fall", "rise", "starts at")],
 )
 def test_side_input_that_never_sensitizes(small, input_edge, output_edge, reason):
     # IB = 0 holds NAND2's output high whatever IA does: the output never switches.
