@@ -552,4 +552,12 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
             )
             write_atomic(out_dir / name, text)
             written.append(out_dir / name)
+        if len(forms) == 1:
+            # A three-axis file of an earlier run would not match this library.
+            stale = out_dir / liberty.file_names(config)[1]
+            try:
+                stale.unlink(missing_ok=True)
+            except OSError as exc:
+                reason = f"cannot remove an earlier run's file: {exc.strerror or exc}"
+                raise OutputError(reason, file=stale) from exc
     return written
