@@ -146,6 +146,22 @@ class Fidelity:
     rel_floor: float = 1e-12  # s; relative errors divide by max(|simulated|, rel_floor)
 
 
+# How the default Liberty file reduces a two-output cell's tables to the two axes every
+# consumer reads: the largest or smallest value over the other output's loads, point by point.
+OTHER_LOAD_RULES = ("largest", "smallest")
+
+
+@dataclass(frozen=True, slots=True)
+class LibertyOptions:
+    """What the Liberty writer states beyond the tables (``[liberty]``)."""
+
+    # A rule of OTHER_LOAD_RULES, or a load (F) of the other output the tables are read at.
+    other_load: str | float = "largest"
+    # max_capacitance and max_transition: this factor times the characterized range.
+    load_limit_factor: float = 1.0
+    slew_limit_factor: float = 1.0
+
+
 @dataclass(frozen=True, slots=True)
 class Corner:
     """One operating corner: the model section it reads, its supply and temperature."""
@@ -169,6 +185,7 @@ class LibraryConfig:
     simulation: Simulation = field(default_factory=Simulation)
     fidelity: Fidelity = field(default_factory=Fidelity)
     corners: tuple[Corner, ...] = ()
+    liberty: LibertyOptions = field(default_factory=LibertyOptions)
 
     def at(self, corner: Corner) -> LibraryConfig:
         """The library at one corner, named ``<name>_<corner>``, with no corners of its own."""
@@ -348,7 +365,18 @@ _CELL_KEYS = {
 }
 _FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
 _CORNER_KEYS = {"name", "section", "vdd", "temperature"}
-_TOP_KEYS = {"library", "process", "thresholds", "grid", "cell", "simulation", "fidelity", "corner"}
+_LIBERTY_KEYS = set(LibertyOptions.__dataclass_fields__)
+_TOP_KEYS = {
+    "library",
+    "process",
+    "thresholds",
+    "grid",
+    "cell",
+    "simulation",
+    "fidelity",
+    "corner",
+    "liberty",
+}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -416,6 +444,8 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         cells.append(cell)
 
     corners = _corners(r, doc.get("corner", []), process)
+    options = _liberty(r, r.section(doc, "liberty", _LIBERTY_KEYS, required=False), cscale)
+    _check_other_load(r, options, cells, cap_unit)
 
     # One problem keeps its own key and cell (and its one-line message); several are listed.
     if len(r.problems) == 1:
@@ -434,6 +464,7 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         simulation=simulation,
         fidelity=fidelity,
         corners=corners,
+        liberty=options,
     )
 
 
@@ -584,6 +615,54 @@ def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
         seed=d.seed if seed is None else seed,
         rel_floor=d.rel_floor if floor is None else floor * tscale,
     )
+
+
+def _liberty(r: _Reader, doc: dict, cscale: float) -> LibertyOptions:
+    d = LibertyOptions()
+    rule = r.get(doc, "other_load", (str, float), "liberty", d.other_load)
+    if isinstance(rule, float):
+        if math.isfinite(rule) and rule >= 0:
+            rule *= cscale
+        else:
+            r.problem("liberty.other_load", f"must be a finite load, not negative, got {rule!r}")
+            rule = None
+    elif rule is not None and rule not in OTHER_LOAD_RULES:
+        r.problem(
+            "liberty.other_load",
+            f"must be {' or '.join(map(repr, OTHER_LOAD_RULES))} or a load in cap_unit, "
+            f"got {rule!r}",
+        )
+        rule = None
+    factors = {
+        key: r.number(doc, key, "liberty", getattr(d, key), low=0.0)
+        for key in ("load_limit_factor", "slew_limit_factor")
+    }
+    return LibertyOptions(
+        other_load=d.other_load if rule is None else rule,
+        load_limit_factor=factors["load_limit_factor"] or d.load_limit_factor,
+        slew_limit_factor=factors["slew_limit_factor"] or d.slew_limit_factor,
+    )
+
+
+def _check_other_load(
+    r: _Reader, options: LibertyOptions, cells: list[CellSpec], cap_unit: str | None
+) -> None:
+    """A given other-output load must lie within every two-output cell's related_load: the
+    default file's tables are read there, never extrapolated."""
+    load = options.other_load
+    if isinstance(load, str) or cap_unit is None:
+        return
+    unit = cap_scale(cap_unit)
+    for cell in (c for c in cells if c.other_output_axis and c.grid.related_load):
+        low, high = cell.grid.related_load[0], cell.grid.related_load[-1]
+        if not low <= load <= high:
+            r.problem(
+                "liberty.other_load",
+                f"{load / unit:g} {cap_unit} is outside the cell's related_load "
+                f"[{low / unit:g}, {high / unit:g}] {cap_unit}: give a load within it, "
+                f"or {' or '.join(map(repr, OTHER_LOAD_RULES))}",
+                cell.name,
+            )
 
 
 def _cell(

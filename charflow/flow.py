@@ -454,6 +454,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         "failures": [fault_record(f) for f in result.failures],
         "unmeasured_toggles": [fault_record(f) for f in result.unmeasured],
         "filled": [filled_record(f) for f in result.filled],
+        "liberty": liberty.describe(config, result.cells, result.cell_power),
     }
 
 
@@ -529,7 +530,8 @@ def _where(config: LibraryConfig, p: sweep.Point) -> str:
 
 def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]:
     """Write the waveforms of the points that gave no measurement (``faults``), the JSON
-    (always) and the Liberty file (only when every point was measured or filled)."""
+    (always) and the Liberty files (only when every point was measured or filled): the
+    default one, and with two-output cells also their three-axis form (``liberty.file_names``)."""
     out_dir = Path(out_dir)
     cells = dict.fromkeys(p.cell for p in result.plan.points)
     written = faults.write(config, result.faults, out_dir, cells)
@@ -537,9 +539,26 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     write_atomic(json_path, json.dumps(to_json(config, result), indent=1) + "\n")
     written.append(json_path)
     if not result.failures:
-        lib_path = out_dir / f"{config.name}.lib"
         header, notes = fill_notes(config, result)
-        text = liberty.render(config, result.cells, result.cell_power, header=header, notes=notes)
-        write_atomic(lib_path, text)
-        written.append(lib_path)
+        # The default file has two-axis tables only; the three-axis form goes beside it.
+        forms = (False, True) if liberty.has_three_axes(result.cells) else (False,)
+        for three_axes, name in zip(forms, liberty.file_names(config), strict=False):
+            text = liberty.render(
+                config,
+                result.cells,
+                result.cell_power,
+                header=header,
+                notes=notes,
+                three_axes=three_axes,
+            )
+            write_atomic(out_dir / name, text)
+            written.append(out_dir / name)
+        if len(forms) == 1:
+            # A three-axis file of an earlier run would not match this library.
+            stale = out_dir / liberty.file_names(config)[1]
+            try:
+                stale.unlink(missing_ok=True)
+            except OSError as exc:
+                reason = f"cannot remove an earlier run's file: {exc.strerror or exc}"
+                raise OutputError(reason, file=stale) from exc
     return written

@@ -318,3 +318,9 @@ def timing_sense(
 def when_condition(side: Sequence[tuple[str, bool]]) -> str:
     """Liberty ``when`` string for a side assignment, e.g. ``B&!C``; empty for no side inputs."""
     return "&".join(name if value else f"!{name}" for name, value in side)
+
+
+def sdf_condition(side: Sequence[tuple[str, bool]]) -> str:
+    """The same side assignment as an SDF condition (``sdf_cond``), e.g.
+    ``B == 1'b1 && C == 1'b0``; empty for no side inputs."""
+    return " && ".join(f"{name} == 1'b{int(value)}" for name, value in side)

@@ -272,3 +272,34 @@ def interpolate_loop(table: Table, point: Iterable[float]) -> float:
             weight *= w
         total += weight * float(table.values[index])
     return total
+
+
+def drop_axis(table: Table, name: str, at: str | float) -> Table:
+    """``table`` without its axis ``name``: at each remaining grid point, the ``"largest"`` or
+    ``"smallest"`` value along that axis, or the value linearly interpolated at coordinate
+    ``at`` (SI), which must lie within the axis. A table without the axis comes back as it is.
+
+    Along one axis the table is piecewise linear, so the largest value over its grid points is
+    the largest anywhere between its first and last value (likewise the smallest).
+    """
+    if name not in table.axis_names:
+        return table
+    k = table.axis_names.index(name)
+    axes = tuple(a for a in table.axes if a.name != name)
+    if at == "largest":
+        values = np.max(table.values, axis=k)
+    elif at == "smallest":
+        values = np.min(table.values, axis=k)
+    elif isinstance(at, Real) and not isinstance(at, bool):
+        grid = table.axes[k].values
+        if not grid[0] <= at <= grid[-1]:
+            raise TableError(
+                f"table {table.quantity!r}: {name} {at:.4g} is outside the axis "
+                f"[{grid[0]:.4g}, {grid[-1]:.4g}]; it is read within its grid only"
+            )
+        lo, hi, t = _bracket(np.asarray(grid), np.array([float(at)]))
+        first = np.take(table.values, lo[0], axis=k)
+        values = (1.0 - t[0]) * first + t[0] * np.take(table.values, hi[0], axis=k)
+    else:
+        raise TableError(f"table {table.quantity!r}: cannot drop {name} at {at!r}")
+    return Table(axes, values, table.quantity, table.unit)

@@ -442,3 +442,57 @@ def test_template_with_an_undefined_variable(tmp_path: Path) -> None:
     ctx = info.value.context
     assert (ctx["cell"], ctx["file"], ctx["key"]) == ("QINV_P1", template, "params")
     assert "wp" in str(info.value)
+
+
+# --- [liberty] ---------------------------------------------------------------------------------
+
+
+def _two_outputs(doc: dict) -> dict:
+    """``doc`` with a two-output buffer whose tables take the other output's load."""
+    doc["grid"]["related_load"] = [0.001, 0.01]
+    doc["cell"].append(
+        {
+            "name": "QBUFC_P1",
+            "template": str(CELLS / "bufc.sp.j2"),
+            "params": dict(INV_PARAMS),
+            "inputs": ["A"],
+            "outputs": {"Y": "A", "YB": "!A"},
+        }
+    )
+    return doc
+
+
+def test_liberty_defaults(cfg_path: Path) -> None:
+    cfg = config.parse(_doc(), cfg_path)
+    assert cfg.liberty == config.LibertyOptions("largest", 1.0, 1.0)
+
+
+def test_liberty_other_load_in_library_units(cfg_path: Path) -> None:
+    doc = _two_outputs(_doc())
+    doc["liberty"] = {"other_load": 0.005, "load_limit_factor": 1.5, "slew_limit_factor": 2}
+    cfg = config.parse(doc, cfg_path)
+    assert cfg.liberty.other_load == pytest.approx(0.005e-12, rel=1e-12)
+    assert (cfg.liberty.load_limit_factor, cfg.liberty.slew_limit_factor) == (1.5, 2.0)
+    doc["liberty"] = {"other_load": "smallest"}
+    assert config.parse(doc, cfg_path).liberty.other_load == "smallest"
+
+
+def test_liberty_other_load_unknown_rule(cfg_path: Path) -> None:
+    doc = _doc()
+    doc["liberty"] = {"other_load": "middle"}
+    err = _one_problem(doc, cfg_path, "liberty.other_load")
+    assert "'largest' or 'smallest' or a load in cap_unit" in err.reason
+
+
+def test_liberty_other_load_outside_a_cells_related_load(cfg_path: Path) -> None:
+    # The default file's tables are read within the characterized loads, never extrapolated.
+    doc = _two_outputs(_doc())
+    doc["liberty"] = {"other_load": 0.02}
+    err = _one_problem(doc, cfg_path, "liberty.other_load", "QBUFC_P1")
+    assert "0.02 pf is outside the cell's related_load [0.001, 0.01] pf" in err.reason
+
+
+def test_liberty_limit_factor_not_positive(cfg_path: Path) -> None:
+    doc = _doc()
+    doc["liberty"] = {"slew_limit_factor": 0}
+    _one_problem(doc, cfg_path, "liberty.slew_limit_factor")

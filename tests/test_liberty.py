@@ -11,7 +11,7 @@ from __future__ import annotations
 import itertools
 import json
 import shutil
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +20,7 @@ from liberty.boolean_functions import parse_boolean_function
 from liberty.parser import parse_liberty
 from liberty.types import Group
 
-from charflow import config, flow, power
+from charflow import config, flow, liberty, power
 from charflow.config import LibraryConfig
 from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.tables import Table
@@ -86,9 +86,9 @@ outputs = {{ Y = "A", YB = "!A" }}
 class Characterized:
     config: LibraryConfig
     result: flow.RunResult
-    lib: Group  # the Liberty file as liberty-parser reads it
+    lib: Group  # the Liberty file (the three-axis one if any) as liberty-parser reads it
     json: dict
-    text: str  # the Liberty file as written
+    text: str  # that Liberty file as written
 
 
 def _characterize(cfg: LibraryConfig, out: Path) -> Characterized:
@@ -98,8 +98,12 @@ def _characterize(cfg: LibraryConfig, out: Path) -> Characterized:
     assert not result.failures, [f"{f.point.label}: {f.reason}" for f in result.failures]
     written = flow.write(cfg, result, out)
     lib_path, json_path = out / f"{cfg.name}.lib", out / f"{cfg.name}.json"
-    assert sorted(written) == sorted([lib_path, json_path])
-    text = lib_path.read_text(encoding="utf-8")
+    # A two-output cell's tables keep the other output's load in a second file beside the
+    # default one; the tests here read that full form.
+    full_path = out / f"{cfg.name}.3d.lib"
+    expected = [lib_path, json_path] + ([full_path] if full_path.exists() else [])
+    assert sorted(written) == sorted(expected)
+    text = (full_path if full_path.exists() else lib_path).read_text(encoding="utf-8")
     lib = parse_liberty(text)
     return Characterized(cfg, result, lib, json.loads(json_path.read_text(encoding="utf-8")), text)
 
@@ -212,6 +216,8 @@ def test_header(small: Characterized) -> None:
     assert lib["nom_voltage"] == pytest.approx(1.2)
     assert lib["nom_temperature"] == pytest.approx(25)
     conditions = lib.get_group("operating_conditions")
+    # Named after the corner: the model section the library was characterized with.
+    assert conditions.args == ["tt"]
     assert lib["default_operating_conditions"] == conditions.args[0]
     assert conditions["voltage"] == pytest.approx(1.2)
     assert conditions["temperature"] == pytest.approx(25)
@@ -229,6 +235,28 @@ def test_header(small: Characterized) -> None:
     assert template["variable_2"] == "total_output_net_capacitance"
     np.testing.assert_allclose(template.get_array("index_1")[0], [0.01, 0.05, 0.2], rtol=RTOL)
     np.testing.assert_allclose(template.get_array("index_2")[0], [0.001, 0.005, 0.02], rtol=RTOL)
+
+
+def test_a_library_without_two_output_cells_leaves_no_three_axis_file(
+    small: Characterized, tmp_path: Path
+) -> None:
+    # A three-axis file left by an earlier run would contradict the default file.
+    stale = tmp_path / "small_l1.3d.lib"
+    stale.write_text("library (small_l1) { }\n", encoding="utf-8")
+    written = flow.write(small.config, small.result, tmp_path)
+    assert sorted(p.name for p in written) == ["small_l1.json", "small_l1.lib"]
+    assert not stale.exists()
+
+
+def test_operating_conditions_without_a_section_take_the_library_name(small: Characterized):
+    cfg = small.config
+    plain = replace(
+        cfg,
+        process=replace(
+            cfg.process, models=tuple(replace(m, section=None) for m in cfg.process.models)
+        ),
+    )
+    assert liberty.corner_name(plain) == "small_l1"
 
 
 def test_library_units_of_the_aoi21(aoi21: Characterized) -> None:

@@ -28,6 +28,7 @@ from charflow.logic import (
     Var,
     Xor,
     parse,
+    sdf_condition,
     sensitizations,
     timing_sense,
     truth_table,
@@ -222,6 +223,13 @@ def test_pin_the_function_ignores_has_no_arc(text: str) -> None:
     expr = parse(text)
     assert sensitizations(expr, ("A", "B"), "B") == ()
     assert timing_sense(expr, ("A", "B"), "B") is None
+
+
+def test_sdf_condition() -> None:
+    # SDF's COND takes a Verilog-style expression of equalities to 1'b0 / 1'b1 joined by &&
+    # (IEEE Std 1497-2001, Standard Delay Format, section on conditions).
+    assert sdf_condition((("B", True), ("C", False))) == "B == 1'b1 && C == 1'b0"
+    assert sdf_condition(()) == ""
 
 
 def test_when_condition() -> None:

@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 from scipy.interpolate import RegularGridInterpolator
 
 from charflow.errors import TableError
-from charflow.tables import Axis, Table, interpolate, interpolate_loop
+from charflow.tables import Axis, Table, drop_axis, interpolate, interpolate_loop
 
 # Both kernels and scipy sum at most 8 weighted corner values; their rounding differs by a few
 # ulp of sum |weight * value|, so tolerances are relative to that (see _rounding_scale).
@@ -392,3 +392,34 @@ def test_bad_points_raise() -> None:
         table.interpolate(1e-11)
     with pytest.raises(TableError, match=r"table 'cell_rise': got 3 coordinates"):
         interpolate_loop(table, (1e-11, 1e-15, 0.0))
+
+
+# --- dropping an axis (the default Liberty file's two-output tables) ---------------------------
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_dropping_an_axis_at_a_value_equals_scipy_on_that_plane(seed: int) -> None:
+    # Read at a fixed third coordinate, a trilinear table is the bilinear one scipy's
+    # RegularGridInterpolator gives on that plane (scipy reference library).
+    rng = np.random.default_rng(seed)
+    table = _random_table(rng, (3, 4, 3))
+    third = table.axes[2].values
+    at = float(rng.uniform(third[0], third[-1]))
+    flat = drop_axis(table, table.axes[2].name, at)
+    assert flat.axes == table.axes[:2]
+    reference = RegularGridInterpolator([np.asarray(a.values) for a in table.axes], table.values)
+    grid = np.array(list(itertools.product(*(a.values for a in flat.axes))))
+    planar = np.column_stack([grid, np.full(len(grid), at)])
+    np.testing.assert_allclose(flat.values.reshape(-1), reference(planar), rtol=1e-12, atol=0)
+
+
+def test_dropping_an_axis_by_its_largest_and_smallest_value() -> None:
+    values = np.array([[[1.0, 5.0], [7.0, 2.0]], [[3.0, 3.0], [0.0, -1.0]]])
+    axes = (Axis("a", (1, 2)), Axis("b", (1, 2)), Axis("c", (0, 1)))
+    table = Table(axes, values, "q", "s")
+    np.testing.assert_array_equal(drop_axis(table, "c", "largest").values, [[5, 7], [3, 0]])
+    np.testing.assert_array_equal(drop_axis(table, "c", "smallest").values, [[1, 2], [3, -1]])
+    # A table without the axis is left as it is; a value off the axis is refused.
+    assert drop_axis(table, "z", "largest") is table
+    with pytest.raises(TableError, match=r"c 2 is outside the axis \[0, 1\]"):
+        drop_axis(table, "c", 2.0)
