@@ -4,8 +4,8 @@ package (Julian Berman, jsonschema 4, an implementation of JSON Schema draft 202
 
 Two hooks do it without each test asking: every document ``flow.to_json`` builds in the test
 process, and, after each test that uses ``tmp_path``, every ``<library>.json`` under it (runs of
-the ``charflow`` command in a subprocess included). ``assert_valid_library_json`` checks one
-file where neither hook sees it.
+the ``charflow`` command in a subprocess included). The ``valid_library_json`` fixture checks
+one file where neither hook sees it.
 """
 
 from __future__ import annotations
@@ -40,6 +40,13 @@ def assert_valid_library(doc: object, where: str) -> None:
 def assert_valid_library_json(path: Path) -> None:
     """The library JSON file at ``path`` follows the package's schema."""
     assert_valid_library(json.loads(Path(path).read_text(encoding="utf-8")), str(path))
+
+
+@pytest.fixture(scope="session")
+def valid_library_json():
+    """``assert_valid_library_json``, for a test whose library JSON neither hook sees (written
+    by the ``charflow`` command into a folder that is not the test's ``tmp_path``)."""
+    return assert_valid_library_json
 
 
 def is_library_json(path: Path) -> bool:

@@ -13,11 +13,12 @@ import subprocess
 import sys
 from pathlib import Path
 
+import jsonschema
 import pytest
 from liberty.parser import parse_liberty
 
 from charflow import __version__, config, flow, provenance
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.resources import LIBRARY_SCHEMA, MODEL_DIR, TEMPLATE_DIR
 from charflow.store import FILE_NAME, Store
 
 DATA = Path(__file__).parent / "data"
@@ -240,3 +241,22 @@ def test_the_simulator_version_is_read_without_loading_libngspice_here(tmp_path)
     assert done.returncode == 0, done.stderr
     # The worker that answered loaded the shared library; this process did not.
     assert done.stdout.split() == ["shared", _ngspice_release(), "False"]
+
+
+def test_the_schema_is_strict_and_matches_the_writer(runs):
+    # JSON Schema draft 2020-12, checked with jsonschema (Julian Berman, jsonschema 4).
+    schema = json.loads(LIBRARY_SCHEMA.read_text(encoding="utf-8"))
+    jsonschema.Draft202012Validator.check_schema(schema)
+    assert schema["properties"]["schema_version"]["const"] == flow.JSON_SCHEMA_VERSION
+    check = jsonschema.Draft202012Validator(schema)
+    _, base = runs
+    doc = json.loads((base / "first" / "prov_l1.json").read_text(encoding="utf-8"))
+    assert check.is_valid(doc)
+    flop = doc["cells"][1]
+    places = (doc, doc["provenance"]["models"][0], flop, flop["ff"], doc["points"]["QINV_P1"][0])
+    for place in places:
+        place["unknown"] = 1  # a key the schema does not describe
+        assert not check.is_valid(doc)
+        del place["unknown"]
+    del doc["provenance"]["simulator"]["version"]
+    assert not check.is_valid(doc)
