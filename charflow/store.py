@@ -2,7 +2,8 @@
 
 A row's key is a content hash of everything that decides the point's result: the rendered
 testbench, the bytes of every model file it reads (followed through ``.include`` and ``.lib``),
-the simulator and its version, charflow's measurement settings and thresholds, and the point
+the simulator and its version (``provenance.simulator``, read without loading the simulator
+here), charflow's measurement settings and thresholds, and the point
 itself. A point whose key is stored is not simulated again; tables and writers are rebuilt
 from the rows. Each row also has a slot, the hash of the library name and the point alone,
 so that a run of a few arcs can fill the rest of its library from older rows and say which
