@@ -404,9 +404,10 @@ def naive_run(
     points = [plan.points[i] for i in chosen]
     decks = {c.name: netlist.build_deck(config, c) for c in config.cells}
     measured = _records(doc)
-    # charflow's estimated first step and its stop time for each point.
+    # charflow's estimated first step and its stop-time cap for each point (a plain run
+    # has no stop condition: it runs to the cap).
     runs = [
-        (p, stepsize.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_s"])
+        (p, stepsize.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_cap_s"])
         for p in points
     ]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)

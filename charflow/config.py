@@ -8,6 +8,7 @@ the key and the cell.
 
 from __future__ import annotations
 
+import hashlib
 import math
 import tomllib
 from dataclasses import dataclass, field, replace
@@ -186,6 +187,8 @@ class LibraryConfig:
     fidelity: Fidelity = field(default_factory=Fidelity)
     corners: tuple[Corner, ...] = ()
     liberty: LibertyOptions = field(default_factory=LibertyOptions)
+    corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
+    digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
 
     def at(self, corner: Corner) -> LibraryConfig:
         """The library at one corner, named ``<name>_<corner>``, with no corners of its own."""
@@ -196,7 +199,8 @@ class LibraryConfig:
         process = replace(
             self.process, models=models, vdd=corner.vdd, temperature=corner.temperature
         )
-        return replace(self, name=f"{self.name}_{corner.name}", process=process, corners=())
+        name = f"{self.name}_{corner.name}"
+        return replace(self, name=name, process=process, corners=(), corner=corner)
 
     def libraries(self) -> tuple[LibraryConfig, ...]:
         """One library per corner; the library itself when the config lists no corners."""
@@ -384,14 +388,15 @@ def load(path: str | Path) -> LibraryConfig:
     """Read and validate a config file; raise one ConfigError that lists every problem."""
     path = Path(path).resolve()
     try:
-        doc = tomllib.loads(path.read_text(encoding="utf-8"))
+        data = path.read_bytes()
+        doc = tomllib.loads(data.decode("utf-8"))
     except FileNotFoundError as exc:
         raise ConfigError("config file not found", file=path) from exc
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"cannot read config: {exc}", file=path) from exc
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML: {exc}", file=path) from exc
-    return parse(doc, path)
+    return replace(parse(doc, path), digest=hashlib.sha256(data).hexdigest())
 
 
 def parse(doc: dict, path: Path) -> LibraryConfig:

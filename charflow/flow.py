@@ -20,16 +20,15 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__, faults, gaps, liberty, plausible, power, sweep
-from .config import LibraryConfig
+from . import __version__, faults, gaps, liberty, plausible, power, provenance, sweep
+from .config import FlopSpec, LibraryConfig
 from .diff import pin_name, table_name
 from .errors import ConfigError, OutputError
 from .netlist import build_deck
 from .sequential import SearchResult
 from .store import Stale, Store, keyring
-from .tabulate import CellTables, delay_quantity, tabulate, transition_quantity
+from .tabulate import ArcTables, CellTables, delay_quantity, tabulate, transition_quantity
 from .timing import Failure, Measurement, check_function
-from .units import energy_unit, power_unit
 
 
 @dataclass(frozen=True, slots=True)
@@ -39,6 +38,7 @@ class RunResult:
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
+    provenance: provenance.Provenance  # what made the library: programs, files, settings
     reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
@@ -185,6 +185,9 @@ def characterize(
     start = time.perf_counter()
     if allow_gaps is not None:
         gaps.check_method(allow_gaps)  # before the sweep, not after it
+    # Before the sweep: the version is asked of the sweep's worker pool, and the store's keys
+    # hold it.
+    made_by = provenance.build(config, provenance.simulator(config, jobs))
     chosen = select(config, cells, arc)
     # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
     toggle_points = power.plan_toggles(config, cells) if arc is None else ()
@@ -256,19 +259,129 @@ def characterize(
         leakages = power.leakages(config, the_plan)
         cell_power = power.tabulate(config, the_plan, done, toggles, leakages)
     return RunResult(
-        the_plan,
-        tuple(measurements),
-        tuple(failures),
-        tables,
-        time.perf_counter() - start,
-        frozenset(reused),
-        tuple(s for p, s in stale.items() if p.cell not in left_out),
-        left_out,
-        tuple(toggles),
-        tuple(unmeasured),
-        cell_power,
-        report,
+        plan=the_plan,
+        measurements=tuple(measurements),
+        failures=tuple(failures),
+        cells=tables,
+        wall_seconds=time.perf_counter() - start,
+        provenance=made_by,
+        reused=frozenset(reused),
+        stale=tuple(s for p, s in stale.items() if p.cell not in left_out),
+        left_out=left_out,
+        toggles=tuple(toggles),
+        unmeasured=tuple(unmeasured),
+        cell_power=cell_power,
+        gap_report=report,
     )
+
+
+# The layout of the JSON document (charflow/bundled/schema/charflow-library.schema.json);
+# raised whenever a key is renamed, removed or changes its meaning.
+JSON_SCHEMA_VERSION = 1
+
+# The values of a JSON point record that a gap-filling method fills.
+FILLED_VALUES = (
+    "delay_s",
+    "transition_s",
+    "input_charge_C",
+    "supply_energy_J",
+    "internal_energy_J",
+    "value_s",
+)
+
+
+def to_json(config: LibraryConfig, result: RunResult) -> dict:
+    """Tables in SI units with the measurement details behind every point, and where they come
+    from (``provenance``)."""
+    powers = {c.cell: c for c in result.cell_power}
+    cells = dict.fromkeys(p.cell for p in result.plan.points)
+    toggled = dict.fromkeys(m.point.cell for m in result.toggles)
+    return {
+        "schema_version": JSON_SCHEMA_VERSION,
+        "library": config.name,
+        "generator": f"charflow {__version__}",
+        **provenance.to_json(result.provenance),
+        "cells": [_cell_record(cell, powers.get(cell.cell.name)) for cell in result.cells],
+        "points": {
+            name: [_point_record(m) for m in result.measurements if m.point.cell == name]
+            for name in cells
+        },
+        "toggles": {
+            name: [_toggle_record(m) for m in result.toggles if m.point.cell == name]
+            for name in toggled
+        },
+        **_fault_records(result),
+        "liberty": liberty.describe(config, result.cells, result.cell_power),
+        # Tables served from stored results whose inputs were not the ones named above.
+        "stale_tables": [
+            {"changed_models": list(models), "tables": names}
+            for models, names in result.stale_tables().items()
+        ],
+    }
+
+
+def _cell_record(cell: CellTables, cell_power: power.CellPower | None) -> dict:
+    return {
+        "name": cell.cell.name,
+        "area": cell.cell.area,
+        "inputs": [
+            {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+            for p in cell.pins
+        ],
+        "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
+        "ff": _ff_record(cell.cell.flop),
+        "arcs": [_arc_record(arc, cell_power) for arc in cell.arcs],
+        "constraints": [
+            {
+                "pin": c.pin,
+                "related_pin": c.related,
+                "timing_type": c.timing_type,
+                "tables": [t.to_dict() for t in c.tables],
+            }
+            for c in cell.constraints
+        ],
+        "min_pulse_widths": [
+            {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+            for p in cell.pulses
+        ],
+        **_cell_power_record(cell_power),
+    }
+
+
+def _ff_record(flop: FlopSpec | None) -> dict | None:
+    """The flip-flop's state variables (which its outputs' functions name) and their updates,
+    as the Liberty ``ff`` group gives them."""
+    if flop is None:
+        return None
+    state, inverted = flop.state
+    return {
+        "state": state,
+        "inverted_state": inverted,
+        "clocked_on": flop.clocked_on,
+        "next_state": flop.next_state.to_liberty(),
+        "clear": flop.clear.to_liberty() if flop.clear is not None else None,
+        "preset": flop.preset.to_liberty() if flop.preset is not None else None,
+    }
+
+
+def _arc_record(arc: ArcTables, cell_power: power.CellPower | None) -> dict:
+    return {
+        "related_pin": arc.arc.related,
+        "output": arc.arc.output,
+        "kind": arc.arc.kind,
+        "related_output": arc.arc.other,
+        "timing_sense": arc.arc.sense,
+        "tables": [t.to_dict() for t in arc.default],
+        "states": [
+            {
+                "when": st.state.when,
+                "timing_sense": st.state.sense,
+                "tables": [t.to_dict() for t in st.tables],
+            }
+            for st in arc.states
+        ],
+        **_arc_power_record(cell_power, arc.arc),
+    }
 
 
 def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
@@ -292,68 +405,59 @@ def _cell_power_record(cell: power.CellPower | None) -> dict:
     }
 
 
-# The values of a JSON point record that a gap-filling method fills.
-FILLED_VALUES = (
-    "delay_s",
-    "transition_s",
-    "input_charge_C",
-    "supply_energy_J",
-    "internal_energy_J",
-    "value_s",
-)
-
-
-def to_json(config: LibraryConfig, result: RunResult) -> dict:
-    """Tables in SI units with the measurement details behind every point."""
-
-    def point_record(m: Measurement | SearchResult) -> dict:
-        p = m.point
-        if isinstance(m, SearchResult):
-            return {
-                "search": p.label,
-                "value_s": m.value,
-                "upper_bound": m.bound,
-                "simulations": m.runs,
-            }
+def _point_record(m: Measurement | SearchResult) -> dict:
+    p = m.point
+    if isinstance(m, SearchResult):
         return {
-            "related_pin": p.related,
-            "output": p.output,
-            "when": sweep.State(p.state_side, "").when,
-            "input_edge": p.input_edge,
-            "output_edge": p.output_edge,
-            "kind": p.kind,
-            "slew_s": p.slew,
-            "load_F": p.load,
-            "other_load_F": p.other_load,
-            "delay_s": m.delay,
-            "transition_s": m.transition,
-            "input_charge_C": m.input_charge,
-            "supply_energy_J": m.supply_energy,
-            "internal_energy_J": m.internal_energy,
+            "search": p.label,
+            "value_s": m.value,
+            "upper_bound": m.bound,
             "simulations": m.runs,
-            "stop_s": m.stop,
         }
+    return {
+        "related_pin": p.related,
+        "output": p.output,
+        "when": sweep.State(p.state_side, "").when,
+        "input_edge": p.input_edge,
+        "output_edge": p.output_edge,
+        "kind": p.kind,
+        "slew_s": p.slew,
+        "load_F": p.load,
+        "other_load_F": p.other_load,
+        "delay_s": m.delay,
+        "transition_s": m.transition,
+        "input_charge_C": m.input_charge,
+        "supply_energy_J": m.supply_energy,
+        "internal_energy_J": m.internal_energy,
+        "simulations": m.runs,
+        "stopped_s": m.stopped,
+        "stop_cap_s": m.stop_cap,
+    }
 
-    def toggle_record(m: power.ToggleMeasurement) -> dict:
-        p = m.point
-        return {
-            "related_pin": p.related,
-            "when": p.when,
-            "input_edge": p.input_edge,
-            "slew_s": p.slew,
-            "load_F": p.load,
-            "energy_J": m.energy,
-            "input_charge_C": m.input_charge,
-            "simulations": m.runs,
-            "window_end_s": m.settled,
-        }
 
+def _toggle_record(m: power.ToggleMeasurement) -> dict:
+    p = m.point
+    return {
+        "related_pin": p.related,
+        "when": p.when,
+        "input_edge": p.input_edge,
+        "slew_s": p.slew,
+        "load_F": p.load,
+        "energy_J": m.energy,
+        "input_charge_C": m.input_charge,
+        "simulations": m.runs,
+        "window_end_s": m.settled,
+    }
+
+
+def _fault_records(result: RunResult) -> dict:
+    """The failed points, the toggles not measured and the filled points, each with its
+    reason and its saved waveform."""
     saved = faults.paths(result.faults)
-    unfillable = (
-        {u.failure.point: u.why for u in result.gap_report.unfilled} if result.gap_report else {}
-    )
+    report = result.gap_report
+    unfillable = {u.failure.point: u.why for u in report.unfilled} if report else {}
 
-    def fault_record(f: Failure) -> dict:
+    def fault(f: Failure) -> dict:
         record = {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
         if f.point in unfillable:
             record["not_filled"] = unfillable[f.point]
@@ -361,100 +465,20 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             record["waveform_csv"], record["waveform_png"] = saved[f.point]
         return record
 
-    def filled_record(f: gaps.Filled) -> dict:
-        values = {k: v for k, v in point_record(f.record).items() if k in FILLED_VALUES}
+    def filled(f: gaps.Filled) -> dict:
+        values = {k: v for k, v in _point_record(f.record).items() if k in FILLED_VALUES}
         return {
-            **fault_record(f.failure),
+            **fault(f.failure),
             "method": f.method,
             "along": f.along,
             "from": [p.label for p in f.sources],
             **values,
         }
 
-    powers = {c.cell: c for c in result.cell_power}
-    cells = []
-    for cell in result.cells:
-        cell_power = powers.get(cell.cell.name)
-        arcs = []
-        for arc in cell.arcs:
-            arcs.append(
-                {
-                    "related_pin": arc.arc.related,
-                    "output": arc.arc.output,
-                    "kind": arc.arc.kind,
-                    "related_output": arc.arc.other,
-                    "timing_sense": arc.arc.sense,
-                    "tables": [t.to_dict() for t in arc.default],
-                    "states": [
-                        {
-                            "when": st.state.when,
-                            "timing_sense": st.state.sense,
-                            "tables": [t.to_dict() for t in st.tables],
-                        }
-                        for st in arc.states
-                    ],
-                    **_arc_power_record(cell_power, arc.arc),
-                }
-            )
-        cells.append(
-            {
-                "name": cell.cell.name,
-                "area": cell.cell.area,
-                "inputs": [
-                    {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
-                    for p in cell.pins
-                ],
-                "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
-                "arcs": arcs,
-                "constraints": [
-                    {
-                        "pin": c.pin,
-                        "related_pin": c.related,
-                        "timing_type": c.timing_type,
-                        "tables": [t.to_dict() for t in c.tables],
-                    }
-                    for c in cell.constraints
-                ],
-                "min_pulse_widths": [
-                    {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
-                    for p in cell.pulses
-                ],
-                **_cell_power_record(cell_power),
-            }
-        )
-    lib_power, _ = power_unit(config.time_unit, config.cap_unit)
     return {
-        "library": config.name,
-        "generator": f"charflow {__version__}",
-        "units": {
-            "time": "s",
-            "capacitance": "F",
-            "charge": "C",
-            "voltage": "V",
-            "energy": "J",
-            "power": "W",
-        },
-        "library_units": {
-            "time": config.time_unit,
-            "capacitance": config.cap_unit,
-            "energy": energy_unit(config.cap_unit),
-            "power": lib_power[1:],
-        },
-        "vdd_V": config.process.vdd,
-        "temperature_C": config.process.temperature,
-        "cells": cells,
-        "points": {
-            name: [point_record(m) for m in result.measurements if m.point.cell == name]
-            for name in dict.fromkeys(p.cell for p in result.plan.points)
-        },
-        "toggles": {
-            name: [toggle_record(m) for m in result.toggles if m.point.cell == name]
-            for name in dict.fromkeys(m.point.cell for m in result.toggles)
-        },
-        "failures": [fault_record(f) for f in result.failures],
-        "unmeasured_toggles": [fault_record(f) for f in result.unmeasured],
-        "filled": [filled_record(f) for f in result.filled],
-        "liberty": liberty.describe(config, result.cells, result.cell_power),
+        "failures": [fault(f) for f in result.failures],
+        "unmeasured_toggles": [fault(f) for f in result.unmeasured],
+        "filled": [filled(f) for f in result.filled],
     }
 
 
@@ -482,6 +506,20 @@ def write_atomic(path: Path, text: str | bytes) -> None:
                 os.unlink(tmp)
         kept = "; the previous version is kept" if path.exists() else ""
         raise OutputError(f"cannot write output: {exc.strerror or exc}{kept}", file=path) from exc
+
+
+def stale_notes(result: RunResult) -> tuple[str, ...]:
+    """Header lines on the tables that come from stored results older than the inputs the
+    header names (a run of a few cells or one arc after a change)."""
+    lines = []
+    for models, names in result.stale_tables().items():
+        changed = f"model file {', '.join(models)}" if models else "the testbench or the settings"
+        why = f"{changed} changed since"
+        lines.append(
+            f"stale: {len(names)} table(s) hold stored results from older inputs ({why}); "
+            'listed under "stale_tables" in the JSON; a full run brings them up to date'
+        )
+    return tuple(lines)
 
 
 NOTE_POINTS = 4  # filled points a table's note lists
@@ -540,6 +578,7 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     written.append(json_path)
     if not result.failures:
         header, notes = fill_notes(config, result)
+        header = (*provenance.liberty_header(result.provenance), *stale_notes(result), *header)
         # The default file has two-axis tables only; the three-axis form goes beside it.
         forms = (False, True) if liberty.has_three_axes(result.cells) else (False,)
         for three_axes, name in zip(forms, liberty.file_names(config), strict=False):

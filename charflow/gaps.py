@@ -170,7 +170,7 @@ def _record(point: Point, sources: list, weights: list[float]) -> Measurement | 
         input_charge=_mix([s.input_charge for s in sources], weights),
         runs=0,
         sim_seconds=0.0,
-        stop=0.0,
+        stopped=0.0,  # never written: a filled record gives its values only
         supply_energy=_mix([s.supply_energy for s in sources], weights),
         internal_energy=_mix([s.internal_energy for s in sources], weights),
         side_charges=tuple(side),

@@ -9,3 +9,5 @@ BUNDLED = Path(__file__).resolve().parent / "bundled"
 TEMPLATE_DIR = BUNDLED / "templates"
 DEMO_CONFIG = BUNDLED / "demo" / "vellum90.toml"
 MODEL_DIR = BUNDLED / "models"
+# The JSON Schema of the library JSON charflow writes beside each Liberty file.
+LIBRARY_SCHEMA = BUNDLED / "schema" / "charflow-library.schema.json"

@@ -70,6 +70,8 @@ class Outcome:
     transition: float
     charges: tuple[tuple[str, float], ...] = ()  # C drawn by each pin asked for, in its window
     energy: EventEnergy | None = None  # asked for with ``run_event``'s states
+    stopped: float | None = None  # s, simulated time at which the run ended
+    stop_cap: float | None = None  # s, the time the run could not go past
 
     @property
     def delay(self) -> float:
@@ -208,7 +210,8 @@ def run_event(
                 v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what, window
             )
             if before == after:
-                return Outcome(np.nan, np.nan, np.nan), runs, seconds
+                nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
+                return nothing, runs, seconds
             # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
             t_ev = event.time_at(thr.delay_input(event.edge))
             t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
@@ -231,7 +234,10 @@ def run_event(
     energy = None
     if states is not None:
         energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads)
-    return Outcome(t_ev, t_out, raw / thr.slew_derate, charges, energy), runs, seconds
+    outcome = Outcome(
+        t_ev, t_out, raw / thr.slew_derate, charges, energy, stopped=float(t[-1]), stop_cap=stop
+    )
+    return outcome, runs, seconds
 
 
 def _capture_waves(
@@ -298,7 +304,8 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         side_charges=tuple((p, edge, charges[p]) for p, edge in moves),
         runs=runs,
         sim_seconds=seconds,
-        stop=0.0,
+        stopped=outcome.stopped,
+        stop_cap=outcome.stop_cap,
         supply_energy=energy.supply,
         internal_energy=energy.internal,
         static_current=energy.static,

@@ -123,7 +123,7 @@ class SharedBackend:
     def version(self) -> str:
         """The shared library's version and build date, as ngspice reports them."""
         if self._version is None:
-            self._version = f"{self.name} {_version_of(self._ng.exec_command('version -s'))}"
+            self._version = _version_of(self._ng.exec_command("version -s"))
         return self._version
 
     def _command(self, command: str, cell: str) -> None:
@@ -328,7 +328,7 @@ class SubprocessBackend:
                 )
             except (OSError, subprocess.TimeoutExpired) as exc:
                 raise SimulatorError(f"cannot ask ngspice for its version: {exc}") from exc
-            self._version = f"{self.name} {_version_of(proc.stdout + proc.stderr)}"
+            self._version = _version_of(proc.stdout + proc.stderr)
         return self._version
 
     def run(self, request: Request) -> Result:

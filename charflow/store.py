@@ -2,7 +2,8 @@
 
 A row's key is a content hash of everything that decides the point's result: the rendered
 testbench, the bytes of every model file it reads (followed through ``.include`` and ``.lib``),
-the simulator and its version, charflow's measurement settings and thresholds, and the point
+the simulator and its version (``provenance.simulator``, read without loading the simulator
+here), charflow's measurement settings and thresholds, and the point
 itself. A point whose key is stored is not simulated again; tables and writers are rebuilt
 from the rows. Each row also has a slot, the hash of the library name and the point alone,
 so that a run of a few arcs can fill the rest of its library from older rows and say which
@@ -26,14 +27,15 @@ from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__
+from . import __version__, provenance
 from .config import LibraryConfig
 from .errors import StoreError
 from .netlist import Deck, model_files
 from .power import ToggleMeasurement
+from .provenance import file_digest
 from .sequential import SearchResult
 from .sweep import Point
-from .timing import Measurement, backend_for
+from .timing import Measurement
 
 FILE_NAME = "store.sqlite"
 # The result records a row may hold, by name; any point type and any of these records work.
@@ -67,7 +69,7 @@ class CellInputs:
     """What a cell's results depend on, apart from the point."""
 
     digest: str  # hash of the testbench, models, simulator and settings together
-    models: tuple[tuple[str, str], ...]  # (path, sha256) of every model file read
+    models: tuple[tuple[str, str | None], ...]  # (path, sha256) of every model file read
 
 
 @dataclass(frozen=True, slots=True)
@@ -100,7 +102,7 @@ class Stale:
 
 def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
     """Keys for the points of ``decks``' cells, from the files and settings as they are now."""
-    simulator = backend_for(config).version()
+    simulator = provenance.simulator(config)  # asked once per process
     sim = dataclasses.asdict(config.simulation)
     del sim["timeout"]  # how long a run may take does not change what it measures
     settings = {
@@ -111,15 +113,16 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         # A schema change of a record (new fields) makes every stored row stale.
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
-    digests: dict[Path, str] = {}
+    digests: dict[Path, str | None] = {}
     cells = {}
     for name, deck in decks.items():
         files = model_files(deck.text, Path.cwd())
         for path in files:
             if path not in digests:
-                digests[path] = _file_digest(path)
+                digests[path] = file_digest(path)
         models = tuple((str(p), digests[p]) for p in files)
-        digest = _hash([deck.key, models, simulator, settings, _cell_context(config, name)])
+        context = _cell_context(config, name)
+        digest = _hash([deck.key, models, simulator.key, settings, context])
         cells[name] = CellInputs(digest, models)
     return Keyring(config.name, cells)
 
@@ -261,7 +264,7 @@ class Store:
             ) from exc
 
 
-def _why(point: Point, stored: list, current: tuple[tuple[str, str], ...]) -> Stale:
+def _why(point: Point, stored: list, current: tuple[tuple[str, str | None], ...]) -> Stale:
     then = {path: digest for path, digest in stored}
     now = dict(current)
     changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
@@ -270,13 +273,6 @@ def _why(point: Point, stored: list, current: tuple[tuple[str, str], ...]) -> St
 
 def _hash(value: object) -> str:
     return hashlib.sha256(json.dumps(value, sort_keys=True).encode()).hexdigest()
-
-
-def _file_digest(path: Path) -> str:
-    try:
-        return hashlib.sha256(path.read_bytes()).hexdigest()
-    except OSError:
-        return "missing"
 
 
 def _point_fields(point: Point) -> list:

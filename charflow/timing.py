@@ -64,7 +64,9 @@ class Measurement:
     input_charge: float  # C drawn from the input source over the run
     runs: int  # simulations this point took (refinements and retries included)
     sim_seconds: float  # wall time inside the simulator
-    stop: float  # s, the transient's final stop time
+    # s, simulated time at which the point's last run ended: where its stop condition held
+    # (the outputs had settled), or its cap
+    stopped: float
     # Energies: every runner measures them; None only in records built without (tests).
     supply_energy: float | None = None  # J the supply delivered beyond its static draw
     # J: supply_energy less what the external loads took from the supply, shared equally by
@@ -76,6 +78,7 @@ class Measurement:
     static_current: tuple[float, float] | None = None
     # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
     side_charges: tuple[tuple[str, str, float], ...] = ()
+    stop_cap: float | None = None  # s, the time the last run could not go past; None: not run
 
 
 @dataclass(frozen=True, slots=True)
@@ -334,7 +337,8 @@ def measure_point(
         static_current=static,
         runs=runs,
         sim_seconds=seconds,
-        stop=stop,
+        stopped=float(t[-1]),
+        stop_cap=stop,
     )
 
 

@@ -31,7 +31,7 @@ LE_RTOL = 0.15
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
+def demo(tmp_path_factory, valid_library_json):
     exe = shutil.which("charflow")
     if exe is None or shutil.which("ngspice") is None:
         pytest.fail("the demo needs the installed charflow command and ngspice")
@@ -40,6 +40,7 @@ def demo(tmp_path_factory):
         [exe, "demo", "--out", str(out), "--quiet"], capture_output=True, text=True, timeout=900
     )
     assert proc.returncode == 0, proc.stderr
+    valid_library_json(out / "vellum90_tt.json")
     return out, json.loads((out / "vellum90_tt.json").read_text())
 
 

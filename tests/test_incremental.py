@@ -4,6 +4,8 @@ with SIGKILL and started again, one arc re-run after a model change, and two cor
 from __future__ import annotations
 
 import difflib
+import hashlib
+import json
 import os
 import re
 import shutil
@@ -203,10 +205,28 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     assert "QNAND2_P1 IA->Y" not in stale.group(3)
 
     new_lib = (out / "small_l1.lib").read_text(encoding="utf-8")
+    # The header names the model by its new digest (sha256, recomputed here) and says which
+    # tables come from results older than it; no other header line changed.
+    old_head, old_body = old[".lib"].decode().split("library (", 1)
+    new_head, new_body = new_lib.split("library (", 1)
+    digest = hashlib.sha256(model.read_bytes()).hexdigest()
+    assert f"/* model vellum90_l1.lib section tt sha256 {digest} */" in new_head
+    assert f"/* stale: {stale.group(1)} table(s) hold stored results from older inputs " in new_head
+    moved = set(old_head.splitlines()) ^ set(new_head.splitlines())
+    assert {line.split(" sha256 ")[0].split(":")[0] for line in moved} == {
+        "/* model vellum90_l1.lib section tt",
+        "/* stale",
+    }
+    doc = json.loads((out / "small_l1.json").read_text(encoding="utf-8"))
+    assert [(s["changed_models"], len(s["tables"])) for s in doc["stale_tables"]] == [
+        (["vellum90_l1.lib"], int(stale.group(1)))
+    ]
     # Only the lines of the re-run arc and of its input pin changed, byte for byte.
-    old_lines = old[".lib"].decode().splitlines()
-    where = _arc_of_each_line(old[".lib"].decode())
-    matcher = difflib.SequenceMatcher(a=old_lines, b=new_lib.splitlines(), autojunk=False)
+    old_lines = f"library ({old_body}".splitlines()
+    where = _arc_of_each_line(f"library ({old_body}")
+    matcher = difflib.SequenceMatcher(
+        a=old_lines, b=f"library ({new_body}".splitlines(), autojunk=False
+    )
     changed = set()
     for op, i1, i2, _, _ in matcher.get_opcodes():
         assert op in ("equal", "replace"), (op, old_lines[i1:i2])
