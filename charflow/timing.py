@@ -367,11 +367,14 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
 
 
 def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
-    """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
+    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
+    smallest load: each edge's value from its own edge's charge.
 
     At each pin and edge the points at the smallest load are averaged over slews and states:
     the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
-    point's related pin, the pins listed in its ``side_charges`` (a flip-flop's data) count.
+    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
+    data pins as they move before the clock edge, the clock's inactive edge, a clear or
+    preset's release (``sequential.measure_clocked``).
     """
     groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
     for m in measurements:
