@@ -108,11 +108,13 @@ def _read_json(text: str, path: Path) -> dict[str, Entry]:
         for cell in doc["cells"]:
             for pin in cell["inputs"]:
                 rise, fall = pin["rise_capacitance_F"], pin["fall_capacitance_F"]
-                caps = (max(rise, fall), rise, fall)
+                measured = [c for c in (rise, fall) if c is not None]
+                caps = (max(measured) if measured else None, rise, fall)
                 for quantity, value in zip(PIN_QUANTITIES, caps, strict=True):
                     name = pin_name(cell["name"], pin["pin"], quantity)
-                    entries[name] = Entry(name, (), np.array(float(value)), "F")
-            for pulse in cell.get("min_pulse_widths", []):
+                    if value is not None:  # an edge left out of the library
+                        entries[name] = Entry(name, (), np.array(float(value)), "F")
+            for pulse in (p for p in cell.get("min_pulse_widths", []) if p["width_s"] is not None):
                 name = pin_name(cell["name"], pulse["pin"], f"min_pulse_width_{pulse['level']}")
                 entries[name] = Entry(name, (), np.array(float(pulse["width_s"])), "s")
             groups = []

@@ -43,7 +43,7 @@ class CharflowError(Exception):
 
 
 def place(context: dict[str, object]) -> str:
-    """Where a message is about, as errors say it: ``cell INV_X1, arc A->Y (...), point ...``."""
+    """Where a message is about, as errors say it: ``cell QINV_P1, arc A->Y (...), point ...``."""
     return ", ".join(f"{k} {context[k]}" for k in _CONTEXT_ORDER if k in context)
 
 

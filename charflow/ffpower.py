@@ -264,11 +264,13 @@ def event_energy(
     return EventEnergy(supplied, (supplied - taken) / max(switched, 1), static, settled)
 
 
-def event_grid(event: Ramp, window: float) -> str:
+def event_grid(event: Ramp, window: float, extra: tuple[float, ...] = ()) -> str:
     """Breakpoints over the event's ramp and the first tenth of the settle window after it,
     where the cell's own nodes switch: at the run's coarse step (window / WINDOW_STEPS) the
-    energy of a demo flop's event was off by up to 0.8 fJ, with these by 0.1 fJ."""
-    return breakpoints(event.start, event.end + GRID_SPAN * window, event.duration / RAMP_SAMPLES)
+    energy of a demo flop's event was off by up to 0.8 fJ, with these by 0.1 fJ. ``extra``:
+    more breakpoints (``timing.breakpoints``)."""
+    span = (event.start, event.end + GRID_SPAN * window, event.duration / RAMP_SAMPLES)
+    return breakpoints(*span, extra)
 
 
 def plan_toggles(cell: CellSpec) -> tuple[TogglePoint, ...]:

@@ -341,7 +341,14 @@ def _cell_record(cell: CellTables, cell_power: power.CellPower | None) -> dict:
             for c in cell.constraints
         ],
         "min_pulse_widths": [
-            {"pin": p.pin, "level": p.level, "width_s": p.width, "upper_bound": p.bound}
+            {
+                "pin": p.pin,
+                "level": p.level,
+                "width_s": p.width,  # null: left out of the library (note)
+                "stimulus": p.stimulus,
+                "bracket_s": p.bracket,
+                "note": p.note,
+            }
             for p in cell.pulses
         ],
         **_cell_power_record(cell_power),
@@ -408,12 +415,10 @@ def _cell_power_record(cell: power.CellPower | None) -> dict:
 def _point_record(m: Measurement | SearchResult) -> dict:
     p = m.point
     if isinstance(m, SearchResult):
-        return {
-            "search": p.label,
-            "value_s": m.value,
-            "upper_bound": m.bound,
-            "simulations": m.runs,
-        }
+        record = {"search": p.label, "value_s": m.value, "simulations": m.runs}
+        if isinstance(p, sweep.PulsePoint):
+            record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
+        return record
     return {
         "related_pin": p.related,
         "output": p.output,

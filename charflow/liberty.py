@@ -526,12 +526,14 @@ def _input_pin(
     if spec.flop is not None and pin.pin == spec.flop.clock:
         w.attr("clock", "true")
     w.note(pin_name(spec.name, pin.pin, "capacitance"))
-    w.attr("capacitance", _fmt(pin.capacitance / config.cap_scale))
-    w.attr("rise_capacitance", _fmt(pin.rise / config.cap_scale))
-    w.attr("fall_capacitance", _fmt(pin.fall / config.cap_scale))
+    # An edge no run made is left out (``tabulate`` warns), never copied.
+    for name, cap in (("", pin.capacitance), ("rise_", pin.rise), ("fall_", pin.fall)):
+        if cap is not None:
+            w.attr(f"{name}capacitance", _fmt(cap / config.cap_scale))
     for h in (h for h in (energy.hidden if energy else ()) if h.pin == pin.pin):
         _internal_power(w, config, ctx.energy_names, h.tables, when=h.when)
-    for pulse in (p for p in cell.pulses if p.pin == pin.pin):
+    # A pulse no width failed has no minimum: left out (``tabulate`` warns).
+    for pulse in (p for p in cell.pulses if p.pin == pin.pin and p.width is not None):
         w.attr(f"min_pulse_width_{pulse.level}", _fmt(pulse.width / config.time_scale))
     for c in (c for c in cell.constraints if c.pin == pin.pin):
         w.open("timing")

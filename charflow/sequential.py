@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from . import stimulus
-from .config import CellSpec, LibraryConfig
+from .config import CellSpec, LibraryConfig, Thresholds
 from .errors import FunctionalMismatchError, MeasurementError
 from .measure import KeepWaveform, check_settled, integral, single_crossing, step_at, waveform
 from .netlist import Deck
@@ -31,6 +31,7 @@ from .sweep import (
     stored_output,
 )
 from .timing import (
+    EXTRA_POINTS,
     LOGIC_MARGIN,
     PARKED_GRID,
     REFINE_SLACK,
@@ -49,15 +50,28 @@ if TYPE_CHECKING:
 WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew
 WINDOW_STEPS = 200  # first-run samples across a window, before refinement
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
+CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
+
+
+# How a minimum pulse width was found: pulses that reach the far rail, their width set by a flat
+# top; or, where the narrowest of those still works, pulses at the same edge rate that turn
+# back before the rail, their width at the thresholds set by how far they go (RUNT).
+FULL = "full swing"
+RUNT = "runt"
 
 
 @dataclass(frozen=True, slots=True)
 class SearchResult:
     point: ConstraintPoint | PulsePoint
-    value: float  # s: the constraint (may be negative) or the minimum pulse width
+    # s: the constraint (may be negative) or the minimum pulse width; None for a pulse that
+    # works at every width the search could shape (``note`` says why)
+    value: float | None
     runs: int  # simulations the search took
     sim_seconds: float
-    bound: bool = False  # the value is an upper bound: the narrowest pulse possible passed
+    # s: the search's last failing and passing values; failing None when no value failed
+    bracket: tuple[float | None, float] | None = None
+    stimulus: str = FULL  # a pulse search's pulse shape
+    note: str = ""  # why a pulse search has no value
 
 
 @dataclass(frozen=True, slots=True)
@@ -68,7 +82,8 @@ class Outcome:
     t_event: float
     t_out: float
     transition: float
-    charges: tuple[tuple[str, float], ...] = ()  # C drawn by each pin asked for, in its window
+    # (pin, edge, C): the charge each pin asked for drew over its window
+    charges: tuple[tuple[str, str, float], ...] = ()
     energy: EventEnergy | None = None  # asked for with ``run_event``'s states
     stopped: float | None = None  # s, simulated time at which the run ended
     stop_cap: float | None = None  # s, the time the run could not go past
@@ -96,11 +111,17 @@ class _Bench:
         return self.vdd if value else 0.0
 
     def clock(
-        self, slew: float, edges: int, high: float | None = None, low: float | None = None
+        self,
+        slew: float,
+        edges: int,
+        high: float | None = None,
+        low: float | None = None,
+        start: float | None = None,
     ) -> tuple[str, Ramp]:
-        """A clock PULSE with ``edges`` active edges, one period (2 × half) apart; ``high`` and
-        ``low`` set the flat time of the active and of the inactive phase (pulse widths).
-        Returns the vector and the ramp of the last active edge."""
+        """A clock PULSE with ``edges`` active edges, one period (2 × half) apart, the first at
+        ``start`` (``lead`` by default); ``high`` and ``low`` set the flat time of the active
+        and of the inactive phase (pulse widths). Returns the vector and the ramp of the last
+        active edge."""
         flop = self.cell.flop
         active = stimulus.ramp(slew, flop.edge, self.thr, self.vdd)
         back = stimulus.ramp(slew, "fall" if flop.edge == "rise" else "rise", self.thr, self.vdd)
@@ -108,12 +129,11 @@ class _Bench:
         width = self.half - active.duration if high is None else high
         rest = self.half - back.duration if low is None else low
         period = active.duration + width + back.duration + rest
-        last = self.lead + (edges - 1) * period
+        first = self.lead if start is None else start
+        last = first + (edges - 1) * period
         if edges == 1:
             period = 1.0  # one edge only: the next is far beyond the run
-        vector = stimulus.pulse_vector(
-            v1, v2, self.lead, active.duration, back.duration, width, period
-        )
+        vector = stimulus.pulse_vector(v1, v2, first, active.duration, back.duration, width, period)
         return vector, Ramp(flop.edge, last, active.duration, self.vdd)
 
     def data(
@@ -138,6 +158,19 @@ def _crossing_after(t, v, level: float, edge: str, after: float, what: str) -> f
     return single_crossing(t[keep], v[keep], level, edge, what)
 
 
+def _settle_samples(ramps: tuple[Ramp, ...], event: Ramp, window: float) -> tuple[float, ...]:
+    """Breakpoints over each input ramp whose charge is measured, other than the event's (the
+    event has its own), and the first part of the settle window after it, where the cell's
+    nodes answer it: at the run's coarse step a demo flop's data pin came out 6–12 % short of
+    a 1 ps-step run (and scattered from point to point), with these within 1 %."""
+    starts = sorted({r.start: r for r in ramps if r.start != event.start}.items())
+    if not starts:
+        return ()
+    n = max(2, EXTRA_POINTS // len(starts))
+    spans = (np.linspace(r.start, r.end + CHARGE_SPAN * window, n) for _, r in starts)
+    return tuple(float(x) for span in spans for x in span)
+
+
 def run_event(
     config: LibraryConfig,
     deck: Deck,
@@ -149,17 +182,17 @@ def run_event(
     before: bool,
     after: bool,
     quiet_until: float = 0.0,
-    charge_windows: dict[str, tuple[float, float | None]] | None = None,
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...] = (),
     states: tuple[bool, bool] | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment; the output must hold ``before`` until the event and settle at
-    ``after`` (a bool level) once it. With ``states`` (the flop's state before and after the
-    event) the event's energy is measured too (``ffpower.event_energy``).
-    Returns the outcome, simulations and simulator seconds."""
+    ``after`` (a bool level) once it. Each ``charge_windows`` entry (pin, its ramp, the end
+    or None for the run's end) asks for the charge the pin draws from its ramp's start. With
+    ``states`` (the flop's state before and after the event) the event's energy is measured
+    too (``ffpower.event_energy``). Returns the outcome, simulations and simulator seconds."""
     cell = config.cell(deck.cell)
     vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
     out_node = deck.output_node(output)
-    windows = charge_windows or {}
     edge = "rise" if after else "fall"
     tol = sim.settle * vdd
     window = sim.window or WINDOW_SLEWS * max(cell.grid.slew)
@@ -169,7 +202,8 @@ def run_event(
     stop_when = f"time > {arm:.6g} when {level}" if before != after else None
     # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
     nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
-    recorded = (*nodes.values(), *(f"{deck.input_source(p)}#branch" for p in windows))
+    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
+    recorded = (*nodes.values(), *branches)
     if states is not None:
         from . import ffpower
 
@@ -180,8 +214,9 @@ def run_event(
     stop = arm + window
     max_step = window / WINDOW_STEPS
     grid = PARKED_GRID
+    inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
     if states is not None:
-        grid = ffpower.event_grid(event, window)
+        grid = ffpower.event_grid(event, window, inside)
     runs, seconds = 0, 0.0
     backend = backend_for(config)
     what = f"output {output}"
@@ -225,11 +260,11 @@ def run_event(
             break
         # Dense samples only around the output edge: the rest of the run keeps its step.
         margin = coarse + raw
-        grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted)
+        grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted, inside)
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
-        (p, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], a, b))
-        for p, (a, b) in windows.items()
+        (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
+        for p, r, b in charge_windows
     )
     energy = None
     if states is not None:
@@ -249,59 +284,39 @@ def _capture_waves(
 
 def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
     """A clock arc (second active edge after writing the opposite value) or an asynchronous
-    control arc (after writing the value it changes)."""
+    control arc (after writing the value it changes). Every input that moves in the run is
+    asked for its charge on each of its edges (``_clock_run``, ``_control_run``)."""
     cell = config.cell(point.cell)
     bench = _Bench(config, cell)
-    flop = cell.flop
-    loads = point_loads(cell, point)
-    smallest = min(cell.grid.slew)
     out_after = point.output_edge == "rise"
     if point.kind == "clock":
         stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
-        new, old = dict(point.side), capture_values(cell, not stored)
-        clock, event = bench.clock(point.slew, edges=2)
-        # Data moves half-way through the inactive phase before the measured edge: relaxed.
-        change = event.start - bench.half / 2
-        waves = _capture_waves(bench, old, new, smallest, change)
-        waves[flop.clock] = clock
-        before = stored_output(cell, point.output, not stored)
-        # The data pins' charge while they move (clock quiet), the clock's over its edge.
-        windows = {p: (change, event.start) for p in new if new[p] != old[p]}
-        windows[flop.clock] = (event.start, None)
-        moves = tuple((p, "rise" if new[p] else "fall") for p in new if new[p] != old[p])
+        waves, event, windows = _clock_run(bench, point, stored)
     else:
         stored = point.kind == "preset"
-        before = stored_output(cell, point.output, not stored)
-        old = capture_values(cell, not stored)
-        clock, first = bench.clock(smallest, edges=1)
-        waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
-        waves[flop.clock] = clock
-        event = stimulus.ramp(point.slew, point.input_edge, config.thresholds, bench.vdd)
-        # A quarter period after the clock's inactive edge has ended: that edge's currents
-        # have died down and stay out of the control's energy window.
-        event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, bench.vdd)
-        waves[point.related] = event.pulse()
-        windows, moves = {point.related: (event.start, None)}, ()
+        waves, event, windows = _control_run(bench, point, stored)
     outcome, runs, seconds = run_event(
         config,
         deck,
         waves,
-        loads,
+        point_loads(cell, point),
         event=event,
         output=point.output,
-        before=before,
+        before=stored_output(cell, point.output, not stored),
         after=out_after,
         charge_windows=windows,
         states=(not stored, stored),
     )
-    charges = dict(outcome.charges)
+    (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
     return Measurement(
         point=point,
         delay=outcome.delay,
         transition=outcome.transition,
-        input_charge=charges[point.related],
-        side_charges=tuple((p, edge, charges[p]) for p, edge in moves),
+        input_charge=measured,
+        side_charges=tuple(
+            c for c in outcome.charges if (c[0], c[1]) != (point.related, point.input_edge)
+        ),
         runs=runs,
         sim_seconds=seconds,
         stopped=outcome.stopped,
@@ -310,6 +325,58 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         internal_energy=energy.internal,
         static_current=energy.static,
     )
+
+
+def _clock_run(bench: _Bench, point: TimingPoint, stored: bool):
+    """Waves of a clock arc's run: the first active edge writes the opposite value; half a
+    period later the inactive edge, the flop holding; half-way through the inactive phase
+    the data moves (the latch that captures is open: the pins' load as a driver sees it while
+    setting up); then the measured edge. Charge windows: each data pin over its edge, the clock
+    over its inactive edge (until the data moves) and over its measured edge."""
+    cell, flop = bench.cell, bench.cell.flop
+    new, old = dict(point.side), capture_values(cell, not stored)
+    clock, event = bench.clock(point.slew, edges=2)
+    change = event.start - bench.half / 2
+    moves = {p: bench.data(p, old[p], new[p], change, min(cell.grid.slew)) for p in new}
+    waves = {p: vector for p, (vector, _, _) in moves.items()}
+    waves[flop.clock] = clock
+    back = stimulus.ramp(
+        point.slew, "fall" if flop.edge == "rise" else "rise", bench.thr, bench.vdd
+    )
+    windows = (
+        *((p, go, event.start) for p, (_, go, _) in moves.items() if new[p] != old[p]),
+        (flop.clock, Ramp(back.edge, event.start - bench.half, back.duration, bench.vdd), change),
+        (flop.clock, event, None),
+    )
+    return waves, event, windows
+
+
+def _control_run(bench: _Bench, point: TimingPoint, stored: bool):
+    """Waves of a clear or preset arc's run: the control starts asserted and is released at
+    the run's start (the flop takes the control's value and keeps it); half a period later one
+    active clock edge writes the other value; a quarter period after the clock's inactive edge
+    (its currents have died down and stay out of the event's energy window) the control is
+    asserted again: the measured event. Charge windows: the release until the clock edge, the
+    assertion until the run's end."""
+    cell, flop, thr, vdd = bench.cell, bench.cell.flop, bench.thr, bench.vdd
+    waves = {
+        p: stimulus.constant(bench.level(v)) for p, v in capture_values(cell, not stored).items()
+    }
+    clock, first = bench.clock(min(cell.grid.slew), edges=1, start=bench.lead + bench.half)
+    waves[flop.clock] = clock
+    release = "fall" if point.input_edge == "rise" else "rise"
+    up = stimulus.ramp(point.slew, release, thr, vdd)
+    event = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, vdd)
+    held = event.start - bench.lead - up.duration
+    waves[point.related] = stimulus.pulse_vector(
+        *up.levels, bench.lead, up.duration, event.duration, held, 1.0
+    )
+    windows = (
+        (point.related, Ramp(release, bench.lead, up.duration, vdd), first.start),
+        (point.related, event, None),
+    )
+    return waves, event, windows
 
 
 def _sensitized_data(cell: CellSpec, pin: str) -> dict[str, bool]:
@@ -327,25 +394,25 @@ def _sensitized_data(cell: CellSpec, pin: str) -> dict[str, bool]:
     raise MeasurementError(f"the next state {flop.next_state.to_liberty()} never depends on {pin}")
 
 
-def _search(
-    passes, lo: float, hi: float, tol: float, what: str, *, floor_ok: bool = False
-) -> tuple[float, bool]:
-    """Bisection for the smallest passing value between ``lo`` (must fail) and ``hi`` (must
-    pass). With ``floor_ok`` a passing ``lo`` is returned as an upper bound (the narrowest
-    pulse the slew allows already works); returns the value and whether it is such a bound."""
-    if not passes(hi):
-        raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
-    if passes(lo):
-        if floor_ok:
-            return lo, True
-        raise MeasurementError(f"{what}: passes even at {lo:.4g} s; the search does not bracket")
+def _bisect(passes, lo: float, hi: float, tol: float) -> tuple[float, float]:
+    """Halve [lo (fails), hi (passes)] to ``tol``; the final (failing, passing) bracket."""
     while hi - lo > tol:
         mid = 0.5 * (lo + hi)
         if passes(mid):
             hi = mid
         else:
             lo = mid
-    return hi, False
+    return lo, hi
+
+
+def _search(passes, lo: float, hi: float, tol: float, what: str) -> tuple[float, float]:
+    """Bisection for the smallest passing value between ``lo`` (must fail) and ``hi`` (must
+    pass); returns the final (failing, passing) bracket."""
+    if not passes(hi):
+        raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
+    if passes(lo):
+        raise MeasurementError(f"{what}: passes even at {lo:.4g} s; the search does not bracket")
+    return _bisect(passes, lo, hi, tol)
 
 
 class _Trials:
@@ -383,8 +450,8 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     passes, lo, hi, trials = _constraint_setup(config, deck, point)
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
-        value, _ = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
-    return SearchResult(point, value, trials.runs, trials.seconds)
+        bracket = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
 
 
 def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
@@ -487,91 +554,152 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     return passes, lo, relaxed, trials
 
 
+@dataclass(frozen=True, slots=True)
+class _Pulse:
+    """A pulse's two edges at one slew, timed from 0; its width is threshold to threshold."""
+
+    first: Ramp  # leaves the resting level
+    second: Ramp  # comes back
+    along_in: float  # fraction of the swing the first edge has made at its threshold
+    along_out: float  # the same for the second edge
+
+    @classmethod
+    def at(cls, slew: float, level: str, thr: Thresholds, vdd: float) -> _Pulse:
+        up, down = stimulus.ramp(slew, "rise", thr, vdd), stimulus.ramp(slew, "fall", thr, vdd)
+        first, second = (up, down) if level == "high" else (down, up)
+        along = [
+            (r.time_at(thr.delay_input(r.edge)) - r.start) / r.duration for r in (first, second)
+        ]
+        return cls(first, second, *along)
+
+    @property
+    def narrowest(self) -> float:
+        """The narrowest full-swing pulse: no flat top."""
+        return (1.0 - self.along_in) * self.first.duration + self.along_out * self.second.duration
+
+    @property
+    def floor(self) -> float:
+        """The width of a pulse that turns back just as it has crossed both thresholds."""
+        d1, d2 = self.first.duration, self.second.duration
+        turn = self.along_in + self.along_out - 1.0
+        return max(0.0, turn * d2, -turn * d1)
+
+    def flat(self, width: float) -> float:
+        return max(width - self.narrowest, 0.0)
+
+    def depth(self, width: float) -> float:
+        """The fraction of the swing a pulse ``width`` wide makes at the slew's edge rate:
+        below the narrowest full-swing width it turns back before the far rail."""
+        if width >= self.narrowest:
+            return 1.0
+        d1, d2 = self.first.duration, self.second.duration
+        return (width + self.along_in * d1 + (1.0 - self.along_out) * d2) / (d1 + d2)
+
+    def vector(self, start: float, width: float) -> tuple[str, float]:
+        """The PULSE vector of a pulse ``width`` wide starting at ``start``, and its end."""
+        depth, flat = self.depth(width), self.flat(width)
+        v1, v2 = self.first.levels
+        rise, fall = depth * self.first.duration, depth * self.second.duration
+        vector = stimulus.pulse_vector(v1, v1 + depth * (v2 - v1), start, rise, fall, flat, 1.0)
+        return vector, start + rise + flat + fall
+
+
 def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> SearchResult:
     """The narrowest pulse (threshold to threshold) on a clock or control pin that still does
-    its job: the clock captures in time, the control forces the state."""
+    its job: the clock captures in time, the control forces the state. Full-swing pulses
+    first; when the narrowest of them (no flat top) still works, a control's pulses keep the
+    slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
+    crosses the thresholds. A pulse that works even then has no minimum: no value, and the
+    result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
     cell = config.cell(point.cell)
-    bench, flop, thr = _Bench(config, cell), cell.flop, config.thresholds
+    bench = _Bench(config, cell)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    trials = _Trials(config, deck)
+    clock = point.pin == cell.flop.clock
+    test = _clock_pulse_test if clock else _control_pulse_test
+    passes, relaxed = test(bench, point, shape, trials)
+    tol = config.simulation.bisect_tolerance
+    with KeepWaveform(lambda: trials.failed):
+        if not passes(relaxed):
+            raise MeasurementError(
+                f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
+            )
+        if not passes(shape.narrowest):
+            bracket = _bisect(passes, shape.narrowest, relaxed, tol)
+            return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
+        if clock:
+            note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
+            return SearchResult(
+                point, None, trials.runs, trials.seconds, (None, shape.narrowest), FULL, note
+            )
+        floor = min(shape.floor + tol, shape.narrowest)
+        if passes(floor):
+            note = "works even as a pulse that turns back just past the thresholds: no width fails"
+            return SearchResult(point, None, trials.runs, trials.seconds, (None, floor), RUNT, note)
+        bracket = _bisect(passes, floor, shape.narrowest, tol)
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket, RUNT)
+
+
+def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+    """The pass test of a clock pulse by its width (full swing: a flat top of the width less
+    the edges'), and a relaxed width: two writes, the second must capture in time."""
+    cell, flop = bench.cell, bench.cell.flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
-    trials = _Trials(config, deck)
-    up = stimulus.ramp(point.slew, "rise", thr, bench.vdd)
-    down = stimulus.ramp(point.slew, "fall", thr, bench.vdd)
-    first, second = (up, down) if point.level == "high" else (down, up)
-    # Flat time that gives ``width`` between the two edges' delay thresholds.
-    lead_in = first.duration - (first.time_at(thr.delay_input(first.edge)) - first.start)
-    lead_out = second.time_at(thr.delay_input(second.edge)) - second.start
+    stored = True
+    new, old = capture_values(cell, stored), capture_values(cell, not stored)
+    active_level = "high" if flop.edge == "rise" else "low"
 
-    def flat(width: float) -> float:
-        return width - lead_in - lead_out
-
-    if point.pin == flop.clock:
-        stored = True
-        new, old = capture_values(cell, stored), capture_values(cell, not stored)
-        active_level = "high" if flop.edge == "rise" else "low"
-
-        def waves_at(width: float):
-            if point.level == active_level:
-                clock, event = bench.clock(point.slew, edges=2, high=max(flat(width), 0.0))
-                change = event.start - bench.half / 2
-            else:
-                clock, event = bench.clock(point.slew, edges=2, low=max(flat(width), 0.0))
-                change = bench.lead + bench.half / 2
-            waves = _capture_waves(bench, old, new, min(cell.grid.slew), change)
-            waves[flop.clock] = clock
-            return waves, event
-
-        def passes(width: float) -> bool:
-            waves, event = waves_at(width)
-            outcome = trials(
-                waves,
-                loads,
-                event=event,
-                output=out,
-                before=stored_output(cell, out, not stored),
-                after=stored_output(cell, out, stored),
-            )
-            return trials.in_time(outcome)
-
-        relaxed = bench.half - up.duration
-    else:
-        stored = flop.preset is not None and point.pin in flop.preset.variables()
-        old = capture_values(cell, not stored)
-        clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
-        start = first_edge.end + bench.half
-
-        def passes(width: float) -> bool:
-            waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
-            waves[flop.clock] = clock
-            v1, v2 = first.levels
-            waves[point.pin] = stimulus.pulse_vector(
-                v1, v2, start, first.duration, second.duration, max(flat(width), 0.0), 1.0
-            )
-            event = Ramp(first.edge, start, first.duration, bench.vdd)
-            end = start + first.duration + max(flat(width), 0.0) + second.duration
-            outcome = trials(
-                waves,
-                loads,
-                event=event,
-                output=out,
-                before=stored_output(cell, out, not stored),
-                after=stored_output(cell, out, stored),
-                quiet_until=end,
-            )
-            return outcome is not None
-
-        relaxed = bench.half
-    # The narrowest pulse the slew allows has no flat top: its width is lead_in + lead_out.
-    with KeepWaveform(lambda: trials.failed):
-        value, bound = _search(
-            passes,
-            lead_in + lead_out,
-            relaxed,
-            config.simulation.bisect_tolerance,
-            point.label,
-            floor_ok=True,
+    def passes(width: float) -> bool:
+        if point.level == active_level:
+            clock, event = bench.clock(point.slew, edges=2, high=shape.flat(width))
+            change = event.start - bench.half / 2
+        else:
+            clock, event = bench.clock(point.slew, edges=2, low=shape.flat(width))
+            change = bench.lead + bench.half / 2
+        waves = _capture_waves(bench, old, new, min(cell.grid.slew), change)
+        waves[flop.clock] = clock
+        outcome = trials(
+            waves,
+            loads,
+            event=event,
+            output=out,
+            before=stored_output(cell, out, not stored),
+            after=stored_output(cell, out, stored),
         )
-    return SearchResult(point, value, trials.runs, trials.seconds, bound)
+        return trials.in_time(outcome)
+
+    return passes, bench.half - shape.first.duration
+
+
+def _control_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+    """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
+    relaxed width: with the other value stored, the pulse must force the control's value."""
+    cell, flop = bench.cell, bench.cell.flop
+    out = cell.outputs[0].pin
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    stored = flop.preset is not None and point.pin in flop.preset.variables()
+    old = capture_values(cell, not stored)
+    clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
+    start = first_edge.end + bench.half
+
+    def passes(width: float) -> bool:
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
+        waves[flop.clock] = clock
+        waves[point.pin], end = shape.vector(start, width)
+        event = Ramp(shape.first.edge, start, shape.first.duration, bench.vdd)
+        outcome = trials(
+            waves,
+            loads,
+            event=event,
+            output=out,
+            before=stored_output(cell, out, not stored),
+            after=stored_output(cell, out, stored),
+            quiet_until=end,
+        )
+        return outcome is not None
+
+    return passes, bench.half
 
 
 def check_flop(config: LibraryConfig, deck: Deck) -> None:
@@ -617,6 +745,20 @@ def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint search as a function of the offset, for re-checking a
     result: a fresh relaxed reference is simulated first."""
     passes, _, relaxed, _ = _constraint_setup(config, deck, point)
+    if not passes(relaxed):
+        raise MeasurementError(f"{point.label}: fails even with relaxed timing")
+    return passes
+
+
+def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
+    """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
+    swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
+    relaxed reference is simulated first."""
+    cell = config.cell(point.cell)
+    bench = _Bench(config, cell)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    test = _clock_pulse_test if point.pin == cell.flop.clock else _control_pulse_test
+    passes, relaxed = test(bench, point, shape, _Trials(config, deck))
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes

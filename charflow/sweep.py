@@ -30,7 +30,7 @@ CHUNK = 25  # points per worker task: large enough to amortise the deck load
 
 # Simulations a point of each kind takes, roughly: the weights of the progress bar and of the
 # chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
-# point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's BUFC_X1); a flip-flop
+# point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's QBUFC_P1); a flip-flop
 # experiment writes a value first and is refined more often (2.4 a clock point there); a search
 # bisects log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks
 # (13 to 25 runs a search there at 1 ps, 4 when the narrowest pulse already passes; 15 to 37

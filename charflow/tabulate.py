@@ -7,6 +7,7 @@ by point, the largest value over its sensitizing states.
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,6 +24,8 @@ LOAD_AXIS = "total_output_net_capacitance"
 OTHER_LOAD_AXIS = "related_out_total_output_net_capacitance"
 CONSTRAINED_AXIS = "constrained_pin_transition"
 RELATED_AXIS = "related_pin_transition"
+
+log = logging.getLogger("charflow")
 
 
 def delay_quantity(output_edge: str) -> str:
@@ -51,13 +54,17 @@ class ArcTables:
 
 @dataclass(frozen=True, slots=True)
 class PinCap:
+    """A pin's capacitance on each input edge, from the charge it drew on that edge; None
+    where no run moved the pin that way (left out of the library, never copied)."""
+
     pin: str
-    rise: float  # F
-    fall: float  # F
+    rise: float | None  # F
+    fall: float | None  # F
 
     @property
-    def capacitance(self) -> float:
-        return max(self.rise, self.fall)
+    def capacitance(self) -> float | None:
+        measured = [c for c in (self.rise, self.fall) if c is not None]
+        return max(measured) if measured else None
 
 
 @dataclass(frozen=True, slots=True)
@@ -80,8 +87,10 @@ class ConstraintTables:
 class PulseWidth:
     pin: str
     level: str  # high | low
-    width: float  # s
-    bound: bool  # an upper bound: the narrowest pulse the slew allows already worked
+    width: float | None  # s; None: no width the search could shape failed (``note``)
+    stimulus: str  # the pulse shape that found it (sequential.FULL or RUNT)
+    bracket: tuple[float | None, float] | None  # s, the search's last failing, passing width
+    note: str = ""
 
 
 @dataclass(frozen=True, slots=True)
@@ -167,13 +176,39 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
     return tuple(out)
 
 
-def _pin_cap(pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
-    """A pin measured on one edge only (a clock's active edge, a reset's asserting edge) gets
-    that value for both."""
-    rise, fall = caps.get((pin, "rise")), caps.get((pin, "fall"))
-    rise = fall if rise is None else rise
-    fall = rise if fall is None else fall
-    return PinCap(pin, rise or 0.0, fall or 0.0)
+def _pin_cap(cell: str, pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
+    """Each edge's capacitance from that edge's charge; an edge no run made is left out."""
+    found = PinCap(pin, caps.get((pin, "rise")), caps.get((pin, "fall")))
+    for edge in (e for e in ("rise", "fall") if getattr(found, e) is None):
+        log.warning(
+            "cell %s, pin %s: %s_capacitance left out: no run moved the pin on its %s edge",
+            cell,
+            pin,
+            edge,
+            "rising" if edge == "rise" else "falling",
+        )
+    return found
+
+
+def _pulse_width(config: LibraryConfig, r: SearchResult) -> PulseWidth:
+    """A pulse search's result; one with no value is left out of the library, with a warning."""
+    p = r.point
+    if r.value is None:
+        tried = r.bracket[1] / config.time_scale
+        log.warning(
+            "cell %s, pin %s: min_pulse_width_%s left out: %s (%s pulse %.4g %s wide at the "
+            "thresholds, slew %.4g %s)",
+            p.cell,
+            p.pin,
+            p.level,
+            r.note,
+            r.stimulus,
+            tried,
+            config.time_unit,
+            p.slew / config.time_scale,
+            config.time_unit,
+        )
+    return PulseWidth(p.pin, p.level, r.value, r.stimulus, r.bracket, r.note)
 
 
 def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTables, ...]:
@@ -188,12 +223,8 @@ def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTabl
             states = [_state_tables(cell, arc, st, measured) for st in arc.states]
             arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
         caps = pin_capacitance(measured, config.process.vdd)
-        pins = tuple(_pin_cap(p, caps) for p in cell.inputs)
-        pulses = tuple(
-            PulseWidth(r.point.pin, r.point.level, r.value, r.bound)
-            for r in searches
-            if isinstance(r.point, PulsePoint)
-        )
+        pins = tuple(_pin_cap(cell_name, p, caps) for p in cell.inputs)
+        pulses = tuple(_pulse_width(config, r) for r in searches if isinstance(r.point, PulsePoint))
         cells.append(
             CellTables(cell, tuple(arc_tables), pins, _constraints(cell, searches), pulses)
         )

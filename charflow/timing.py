@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import itertools
 import logging
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -137,15 +137,19 @@ def backend_for(config: LibraryConfig):
     return backend
 
 
-# Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters).
+# Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters, about
+# 58 corners): GRID_POINTS over a span, EXTRA_POINTS anywhere else.
 GRID_POINTS = 40
+EXTRA_POINTS = 16
 
 
-def breakpoints(start: float, stop: float, spacing: float) -> str:
-    """A PWL vector for the breakpoint source: corners every ``spacing`` over [start, stop]."""
+def breakpoints(start: float, stop: float, spacing: float, extra: Sequence[float] = ()) -> str:
+    """A PWL vector for the breakpoint source: corners every ``spacing`` over [start, stop],
+    and at the ``extra`` times (at most EXTRA_POINTS of them)."""
     n = int(min(GRID_POINTS, max(2, (stop - start) / spacing)))
-    times = np.linspace(start, stop, n)
-    return "[ 0 0 " + " ".join(f"{x:.9g} 0" for x in times if x > 0) + " 1 0 ]"
+    # Rounded as written, so that no two corners print alike: the times must increase.
+    times = sorted({float(f"{x:.9g}") for x in (*np.linspace(start, stop, n), *extra) if x > 0})
+    return "[ 0 0 " + " ".join(f"{x:.9g} 0" for x in times) + " 1 0 ]"
 
 
 PARKED_GRID = "[ 0 0 1 0 ]"
@@ -425,11 +429,14 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
 
 
 def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
-    """(pin, input edge) → capacitance, from the charge the pin drew at the smallest load.
+    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
+    smallest load: each edge's value from its own edge's charge.
 
     At each pin and edge the points at the smallest load are averaged over slews and states:
     the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
-    point's related pin, the pins listed in its ``side_charges`` (a flip-flop's data) count.
+    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
+    data pins as they move before the clock edge, the clock's inactive edge, a clear or
+    preset's release (``sequential.measure_clocked``).
     """
     groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
     for m in measurements:

@@ -81,11 +81,11 @@ def test_plan_counts_points_and_estimates_time():
         ("QNAND2_P1", "IB", 18),
     ]
     # Per cell: SAMPLES timing points, the 3 probes of one series (grid corners), and one
-    # hidden-power toggle (NAND2_X1 has toggles, INV_X1 none).
+    # hidden-power toggle (QNAND2_P1 has toggles, QINV_P1 none).
     assert est.samples == 2 * (estimate.SAMPLES + 3) + 1
     assert 0 < est.seconds < math.inf
     # Every point takes one simulation at least; refinements add some.
-    assert est.points + 12 <= est.simulations  # NAND2_X1's 12 toggles
+    assert est.points + 12 <= est.simulations  # QNAND2_P1's 12 toggles
     assert f"about {est.simulations:,.0f} simulations in the sweep" in estimate.render(est)
 
 

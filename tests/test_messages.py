@@ -106,37 +106,37 @@ def seq():
 def test_every_point_kind_says_where_it_is_in_library_units(seq):
     # seq_l1 is in ns and pf: 2e-11 s = 0.02 ns, 1e-14 F = 0.01 pf (SI prefixes, BIPM 2019).
     plan = sweep.plan(seq)
-    bufc = next(p for p in plan.points if isinstance(p, TimingPoint) and p.output == "YN")
+    bufc = next(p for p in plan.points if isinstance(p, TimingPoint) and p.output == "YB")
     assert bufc.where(seq) == {
-        "cell": "BUFC_X1",
-        "arc": "A->YN (A rise, YN fall)",
+        "cell": "QBUFC_P1",
+        "arc": "A->YB (A rise, YB fall)",
         "state": None,
         "point": "slew 0.01 ns, load 0.002 pf, other output's load 0.001 pf",
     }
     clock = next(p for p in plan.points if isinstance(p, TimingPoint) and p.kind == "clock")
-    assert clock.where(seq)["arc"] == "CK->Q (clock: CK rise, Q rise)"
+    assert clock.where(seq)["arc"] == "CLK->Q (clock: CLK rise, Q rise)"
     setup = next(p for p in plan.points if isinstance(p, ConstraintPoint))
     assert setup.where(seq) == {
-        "cell": "DFFR_X1",
-        "arc": "CK->D (setup: D rise, CK rise)",
-        "point": "D slew 0.02 ns, CK slew 0.02 ns",
+        "cell": "QDFFR_P1",
+        "arc": "CLK->D (setup: D rise, CLK rise)",
+        "point": "D slew 0.02 ns, CLK slew 0.02 ns",
     }
     pulse = next(p for p in plan.points if isinstance(p, PulsePoint))
     assert pulse.where(seq) == {
-        "cell": "DFFR_X1",
-        "pin": "CK",
+        "cell": "QDFFR_P1",
+        "pin": "CLK",
         "point": "minimum high pulse, slew 0.01 ns",
     }
-    toggle = power.plan_toggles(seq, ["DFFR_X1"])[0]
-    assert toggle.where(seq)["pin"] == "CK (rise, no output edge)"
+    toggle = power.plan_toggles(seq, ["QDFFR_P1"])[0]
+    assert toggle.where(seq)["pin"] == "CLK (rise, no output edge)"
     assert toggle.where(seq)["point"] == "slew 0.01 ns, load 0.002 pf"
 
 
 def test_a_failure_reads_as_one_line_naming_its_point(seq):
-    point = sweep.plan(seq, ["BUFC_X1"]).points[0]
+    point = sweep.plan(seq, ["QBUFC_P1"]).points[0]
     told = timing.explain(seq, point, CutOffError("output Y had not settled", cap=2e-9))
     assert str(told).startswith(
-        "cell BUFC_X1, arc A->Y (A rise, Y rise), point slew 0.01 ns, load 0.002 pf, "
+        "cell QBUFC_P1, arc A->Y (A rise, Y rise), point slew 0.01 ns, load 0.002 pf, "
         "other output's load 0.001 pf: output Y had not settled; the cap is the default of "
         "[simulation] window (not set), here 2 ns: set window longer than the output takes "
         "to settle (e.g. window = 20, in ns)"
@@ -147,9 +147,9 @@ def test_a_failure_reads_as_one_line_naming_its_point(seq):
 
 @pytest.fixture(scope="module")
 def unit_mistake(tmp_path_factory):
-    """INV_X1 of small_l1 with time_unit ps and the values still in ns, run by the command."""
+    """QINV_P1 of small_l1 with time_unit ps and the values still in ns, run by the command."""
     tmp = tmp_path_factory.mktemp("ps")
-    path = _data_config(tmp, "small_l1.toml", lambda t: _only(("INV_X1",))(_in_ps(t)))
+    path = _data_config(tmp, "small_l1.toml", lambda t: _only(("QINV_P1",))(_in_ps(t)))
     return path, tmp
 
 
@@ -163,12 +163,12 @@ def test_a_unit_mistake_warns_then_names_each_point_and_the_window(unit_mistake,
         f"charflow: warning: file {path}, key grid.slew: 0.01 ps, 0.05 ps, 0.2 ps: under 1 ps, "
         "sharper than any process makes an edge; are the values in time_unit = ps?"
     ]
-    failed = [ln.strip() for ln in err.splitlines() if ln.startswith("  cell INV_X1")]
+    failed = [ln.strip() for ln in err.splitlines() if ln.startswith("  cell QINV_P1")]
     # The 0.005 and 0.02 pf loads, 3 slews, 2 edges: cut off by a window of 100 x the grid's
     # largest slew, 0.2 ps (the default the README states).
     assert len(failed) == 12
     first = (
-        "cell INV_X1, arc A->Y (A rise, Y fall), point slew 0.01 ps, load 0.005 pf: output Y had "
+        "cell QINV_P1, arc A->Y (A rise, Y fall), point slew 0.01 ps, load 0.005 pf: output Y had "
         "not settled when the run reached its stop-time cap"
     )
     assert failed[0].startswith(first)
@@ -186,7 +186,7 @@ def test_the_plan_of_a_unit_mistake_names_the_point_it_failed_on(unit_mistake):
         estimate.estimate(config.load(path), jobs=1)
     # The middle sample of the first arc: slew 0.05 ps, load 0.005 pf.
     assert str(caught.value).startswith(
-        "cell INV_X1, arc A->Y (A rise, Y fall), point slew 0.05 ps, load 0.005 pf: output Y "
+        "cell QINV_P1, arc A->Y (A rise, Y fall), point slew 0.05 ps, load 0.005 pf: output Y "
     )
     assert "[simulation] window (not set)" in str(caught.value)
 
@@ -207,8 +207,8 @@ def test_spice_numbers_are_read_with_their_suffixes(text, value):
 
 def test_input_capacitance_bound_is_the_gate_area_at_the_thinnest_oxide(tmp_path):
     small = config.load(DATA / "small_l1.toml")
-    # INV_X1: W = 0.4 + 0.8 um at L = 0.1 um on pin A (its template's params).
-    (bound,) = plausible.input_bounds(small, small.cell("INV_X1"))
+    # QINV_P1: W = 0.4 + 0.8 um at L = 0.1 um on pin A (its template's params).
+    (bound,) = plausible.input_bounds(small, small.cell("QINV_P1"))
     area, width = (0.4e-6 + 0.8e-6) * 0.1e-6, 0.4e-6 + 0.8e-6
     assert bound.pin == "A" and bound.gate_area == pytest.approx(area, rel=REL)
     assert bound.farads == pytest.approx(COX_BOUND * area + 2 * EDGE_BOUND * width, rel=REL)
@@ -241,9 +241,9 @@ def test_check_warns_of_slews_and_loads_no_process_makes(tmp_path):
     assert report.ok and len(report.warnings) == 2
     slew, load = report.warnings
     assert slew.startswith(f"file {path}, key grid.slew: 0.01 ps, 0.05 ps, 0.2 ps: under 1 ps")
-    # INV_X1's bound: 6.38 fF (the test above); 10 pf is over 1000 x that, 0.005 pf is not.
+    # QINV_P1's bound: 6.38 fF (the test above); 10 pf is over 1000 x that, 0.005 pf is not.
     assert load.startswith(
-        f"file {path}, key cell[0].grid.load, cell INV_X1: 10 pf: over 1000 x the cell's input "
+        f"file {path}, key cell[0].grid.load, cell QINV_P1: 10 pf: over 1000 x the cell's input "
         "capacitance, which is at most 0.00638 pf (an upper bound from the gate area pin A "
         "drives, 0.12 um^2, not simulated); are the values in cap_unit = pf?"
     )
@@ -319,10 +319,12 @@ def test_a_flip_flop_check_cut_off_by_the_window_names_the_window(tmp_path):
     def edit(text: str) -> str:
         return text.replace("[[cell]]", "[simulation]\nwindow = 0.03\n\n[[cell]]", 1)
 
-    report = check.check(_data_config(tmp_path, "seq_l1.toml", _compose(_only(("DFFR_X1",)), edit)))
+    report = check.check(
+        _data_config(tmp_path, "seq_l1.toml", _compose(_only(("QDFFR_P1",)), edit))
+    )
     (problem,) = report.problems
     # The key is the window's, not the outputs' (the netlist is not at fault).
-    assert ", key simulation.window, cell DFFR_X1, pin Q, vector RN=1 D=0: " in problem
+    assert ", key simulation.window, cell QDFFR_P1, pin Q, vector RSTB=1 D=0: " in problem
     assert "had not settled when the run reached its stop-time cap" in problem
     assert problem.endswith(
         "the cap is [simulation] window = 0.03 ns: set window longer than the output takes to "

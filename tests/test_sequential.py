@@ -4,22 +4,31 @@
 from __future__ import annotations
 
 import dataclasses
+import json
+import logging
+import re
 import shutil
+import subprocess
 from pathlib import Path
 
 import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import config, flow, logic, sequential
+from charflow import config, flow, logic, resources, sequential
 from charflow.errors import FunctionalMismatchError
-from charflow.netlist import build_deck
-from charflow.sweep import ConstraintPoint
+from charflow.netlist import build_deck, render_cell
+from charflow.sweep import ConstraintPoint, PulsePoint
+from charflow.tabulate import tabulate
 
 DATA = Path(__file__).parent / "data"
 RTOL_READBACK = 1e-6  # 7 significant digits in the Liberty file
 COUPLED_MIN = 0.05  # an output driven through the other: index_3 moves delay by > 5 %
 FLAT_MAX = 0.02  # an output not driven through the other: < 2 %
+PIN_CAP_RTOL = 0.02  # a pin's capacitance on one edge against a plain-ngspice charge ÷ vdd
+EDGES_APART = 0.03  # RSTB's two edges move different nodes: their charges differ by more
+SETTLE = 2e-9  # s each event of the reference run is given: twice charflow's settle window
+REFERENCE_STEP = 1e-12  # s, the reference run's largest time step
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -167,3 +176,159 @@ def test_recovery_and_removal_leave_a_window_between_them(run):
     }
     assert set(found) == {"recovery", "removal"}
     assert found["recovery"] + found["removal"] >= 0
+
+
+def _pwl(level: float, edges: list[tuple[float, float]], vdd: float) -> str:
+    """A PWL source moving between 0 and vdd: (start, duration) of each edge in turn."""
+    points = [(0.0, level)]
+    for start, duration in edges:
+        level = vdd - level
+        points += [(start, vdd - level), (start + duration, level)]
+    return "pwl(" + " ".join(f"{t:.6g} {v:.6g}" for t, v in points) + ")"
+
+
+def _reference_charges(cfg, slew: float) -> dict[tuple[str, str], list[float]]:
+    """(pin, edge) -> the charges each pin draws on its edges, from one plain-ngspice run of
+    QDFFR_P1 with its own stimulus and ``.meas ... integ``: RSTB released from reset, a capture
+    of 1, of 0 and of 1 again (CLK and RSTB at ``slew``, D at the grid's sharpest, D moving
+    while CLK is low), then RSTB asserted. A linear ramp spends the slew between the slew
+    thresholds (common practice); each event is given SETTLE."""
+    cell, thr, vdd = cfg.cell("QDFFR_P1"), cfg.thresholds, cfg.process.vdd
+    band = thr.slew_upper_rise - thr.slew_lower_rise
+    full, sharp = slew * thr.slew_derate / band, min(cell.grid.slew) * thr.slew_derate / band
+    t = [1e-10 + k * SETTLE for k in range(11)]  # one event each, in the order below
+    events = [
+        ("RSTB", "rise", t[0], full),
+        ("CLK", "rise", t[1], full),  # captures 1 from the reset state
+        ("CLK", "fall", t[2], full),
+        ("D", "fall", t[3], sharp),
+        ("CLK", "rise", t[4], full),  # captures 0
+        ("CLK", "fall", t[5], full),
+        ("D", "rise", t[6], sharp),
+        ("CLK", "rise", t[7], full),  # captures 1
+        ("CLK", "fall", t[8], full),
+        ("RSTB", "fall", t[9], full),  # clears
+    ]
+    start = {"RSTB": 0.0, "CLK": 0.0, "D": vdd}
+    model = cfg.process.models[0]
+    lines = [
+        "* reference: QDFFR_P1 pin charges",
+        f'.lib "{model.path}" {model.section}',
+        f".temp {cfg.process.temperature}",
+        render_cell(cell),
+        f"vdd vdd 0 {vdd}",
+        *(
+            f"v{p} {p} 0 " + _pwl(start[p], [(a, d) for q, _, a, d in events if q == p], vdd)
+            for p in ("D", "CLK", "RSTB")
+        ),
+        f"cq q 0 {min(cell.grid.load)}",
+        f"cqn qn 0 {min(cell.grid.related_load)}",
+        "xdut D CLK RSTB q qn vdd 0 QDFFR_P1",
+        f".tran {REFERENCE_STEP} {t[10]} 0 {REFERENCE_STEP}",
+        *(
+            f".meas tran q{k} integ i(v{p}) from={a:.6g} to={a + SETTLE:.6g}"
+            for k, (p, _, a, _) in enumerate(events)
+        ),
+        ".end",
+    ]
+    done = subprocess.run(
+        ["ngspice", "-b"], input="\n".join(lines), capture_output=True, text=True, check=True
+    )
+    found = dict(re.findall(r"^(q\d+)\s*=\s*(\S+)", done.stdout, re.MULTILINE))
+    charges: dict[tuple[str, str], list[float]] = {}
+    for k, (p, edge, _, _) in enumerate(events):
+        charges.setdefault((p, edge), []).append(abs(float(found[f"q{k}"])))
+    return charges
+
+
+def test_each_pin_edge_capacitance_is_that_edges_charge(cfg, run):
+    # Every input of the flop has a capacitance on each edge, measured on that edge: against
+    # the charge the pin draws on it divided by vdd (C = Q / V) in an independent plain-
+    # ngspice run; the clock's captures of 0 and of 1 and its falls after each, averaged over
+    # the grid's slews as charflow averages them. RSTB's release and assertion move different
+    # nodes (the master latch, the slave and the outputs): its two edges differ.
+    result, _ = run
+    pins = {p.pin: p for c in result.cells if c.cell.name == "QDFFR_P1" for p in c.pins}
+    slews = cfg.cell("QDFFR_P1").grid.slew
+    runs = [_reference_charges(cfg, s) for s in slews]
+    vdd = cfg.process.vdd
+    for pin, edge in runs[0]:
+        # The clock's last two edges each way: after (or capturing) a 0 and a 1.
+        want = float(np.mean([r[pin, edge][-2:] for r in runs])) / vdd
+        got = getattr(pins[pin], edge)
+        assert got == pytest.approx(want, rel=PIN_CAP_RTOL, abs=0), (pin, edge, got, want)
+    rn = pins["RSTB"]
+    assert abs(rn.rise / rn.fall - 1.0) > EDGES_APART, (rn.rise, rn.fall)
+
+
+def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
+    # A minimum pulse width is the edge between pass and fail (common practice): the width
+    # found passes and the bracket's lower end fails, each re-simulated from scratch. RSTB's
+    # narrowest full-swing pulse at the sharpest slew still clears the flop: its minimum is
+    # found with pulses at that edge rate that turn back before the rail, below that width.
+    result, out = run
+    tol = cfg.simulation.bisect_tolerance
+    deck = build_deck(cfg, cfg.cell("QDFFR_P1"))
+    found = {
+        (m.point.pin, m.point.level): m
+        for m in result.measurements
+        if isinstance(m.point, PulsePoint)
+    }
+    assert set(found) == {("CLK", "high"), ("CLK", "low"), ("RSTB", "low")}
+    lib = parse_liberty((out / "seq_l1.lib").read_text())
+    cells = {c.args[0]: c for c in lib.get_groups("cell")}
+    pins = {p.args[0]: p for p in cells["QDFFR_P1"].get_groups("pin")}
+    for (pin, level), m in found.items():
+        low, high = m.bracket
+        assert low < m.value == high and high - low <= tol, (pin, level, m.bracket)
+        probe = sequential.pulse_probe(cfg, deck, m.point)
+        assert probe(high) and not probe(low), (pin, level)
+        written = float(pins[pin][f"min_pulse_width_{level}"]) * cfg.time_scale
+        assert written == pytest.approx(m.value, rel=RTOL_READBACK), (pin, level)
+    rn = found["RSTB", "low"]
+    narrowest = sequential._Pulse.at(rn.point.slew, "low", cfg.thresholds, cfg.process.vdd)
+    assert rn.stimulus == sequential.RUNT and rn.value < narrowest.narrowest
+
+
+def test_a_pulse_no_width_fails_is_left_out_with_a_warning(cfg, run, tmp_path, caplog):
+    # Never write a number that was not measured (the project's rule): a pulse search whose
+    # every width passed has no minimum, so the Liberty file has no min_pulse_width for it, a
+    # warning names cell, pin and level, and the JSON says why.
+    result, _ = run
+    note = "works even as a pulse that turns back just past the thresholds: no width fails"
+
+    def unbracketed(m):
+        if isinstance(m.point, PulsePoint) and m.point.pin == "RSTB":
+            return dataclasses.replace(m, value=None, bracket=(None, 1e-12), note=note)
+        return m
+
+    measurements = tuple(map(unbracketed, result.measurements))
+    with caplog.at_level(logging.WARNING, logger="charflow"):
+        tables = tabulate(cfg, result.plan, list(measurements))
+    (warning,) = [r.getMessage() for r in caplog.records if "min_pulse_width" in r.getMessage()]
+    assert all(w in warning for w in ("QDFFR_P1", "RSTB", "min_pulse_width_low", note))
+    flow.write(cfg, dataclasses.replace(result, measurements=measurements, cells=tables), tmp_path)
+    lib = parse_liberty((tmp_path / "seq_l1.lib").read_text())
+    cells = {c.args[0]: c for c in lib.get_groups("cell")}
+    pins = {p.args[0]: p for p in cells["QDFFR_P1"].get_groups("pin")}
+    assert pins["RSTB"].get_attribute("min_pulse_width_low") is None
+    assert float(pins["CLK"]["min_pulse_width_low"]) > 0
+    doc = json.loads((tmp_path / "seq_l1.json").read_text())
+    (cell,) = [c for c in doc["cells"] if c["name"] == "QDFFR_P1"]
+    (rn,) = [p for p in cell["min_pulse_widths"] if p["pin"] == "RSTB"]
+    assert rn["width_s"] is None and rn["note"] == note
+
+
+def test_the_demo_reset_clears_the_flop_with_any_pulse_past_the_thresholds():
+    # On the demo's models a pulse on QDFFR_P1's RSTB that dips one search tolerance past the
+    # delay threshold at the sharpest slew's edge rate already clears the flop: no width
+    # fails, so the search gives no value (and the attribute is left out) rather than the
+    # narrowest pulse the slew can shape.
+    demo = config.load(resources.DEMO_CONFIG)
+    cell = demo.cell("QDFFR_P1")
+    deck = build_deck(demo, cell)
+    point = PulsePoint(cell.name, "RSTB", "low", min(cell.grid.slew))
+    m = sequential.measure_pulse(demo, deck, point)
+    assert m.value is None and m.stimulus == sequential.RUNT
+    probe = sequential.pulse_probe(demo, deck, point)
+    assert probe(m.bracket[1])

@@ -19,6 +19,8 @@ ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"
 RC_CONFIG = DATA / "rc_cell.toml"
 SMALL_L1 = DATA / "small_l1.toml"
+CAP_PIN_CONFIG = DATA / "cap_pin.toml"
+CA, CM = 2e-15, 1e-15  # F: the input's capacitors in tests/data/cap_pin.sp
 R_OHMS = 1e3  # R1 in tests/data/rc_cell.sp
 
 RC_RTOL = 5e-3  # simulated RC edges against the closed forms
@@ -26,6 +28,7 @@ BACKEND_RTOL = 1e-3  # shared against subprocess ngspice on the same point
 EFFORT_RTOL = 0.15  # pin capacitance ratios against logical effort
 GATE_CAP_RTOL = 0.10  # INV pin capacitance against the level-1 card's gate capacitance
 CHARGE_RTOL = 0.02  # a pin's charge over a full swing, from slew to slew
+LINEAR_CAP_RTOL = 3e-3  # a known capacitor's value: the output settles to 0.1 % of its swing
 BRENTQ_XTOL = 1e-18  # s
 
 
@@ -262,3 +265,23 @@ def test_inverter_pin_capacitance_is_its_gate_capacitance(small, pin_caps):
         leff = params["l"] - 2.0 * card["ld"]
         gate += eps_ox / card["tox"] * width * leff + (card["cgso"] + card["cgdo"]) * width
     assert pin_caps[("QINV_P1", "A")] == pytest.approx(gate, rel=GATE_CAP_RTOL, abs=0)
+
+
+def test_each_edge_of_a_linear_input_capacitor_reads_its_value():
+    # A linear capacitor takes Q = C dV, the same on either edge; one from the input to an
+    # output that swings the other way takes C 2V, the Miller effect (Rabaey, Chandrakasan &
+    # Nikolic, Digital Integrated Circuits, 2nd ed., 2003). Each edge's value is that edge's
+    # own charge divided by vdd.
+    cfg = config.load(CAP_PIN_CONFIG)
+    result = flow.characterize(cfg, jobs=1)
+    assert not result.failures
+    ((pin,),) = [c.pins for c in result.cells]
+    for edge in ("rise", "fall"):
+        charges = [
+            abs(m.input_charge)
+            for m in result.measurements
+            if m.point.input_edge == edge and m.point.load == min(cfg.cells[0].grid.load)
+        ]
+        vdd = cfg.process.vdd
+        assert getattr(pin, edge) == pytest.approx(sum(charges) / len(charges) / vdd, rel=1e-12)
+        assert getattr(pin, edge) == pytest.approx(CA + 2 * CM, rel=LINEAR_CAP_RTOL, abs=0)
