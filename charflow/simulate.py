@@ -33,6 +33,20 @@ RETRY_LADDER: tuple[tuple[str, ...], ...] = (
 )
 
 
+# ngspice's defaults of the options a run may set, put back after it.
+RESETTABLE = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
+_OPTION_LINE = re.compile(r"^[ \t]*\.options?[ \t]+(.*)$", re.IGNORECASE | re.MULTILINE)
+
+
+def deck_options(text: str) -> dict[str, str]:
+    """The ``name=value`` settings of a deck's ``.option`` lines, names in lower case."""
+    found = {}
+    for line in _OPTION_LINE.findall(text):
+        for name, value in re.findall(r"(\w+)\s*=\s*(\S+)", line):
+            found[name.lower()] = value
+    return found
+
+
 # ngspice evaluates BSIM devices with OpenMP threads (two unless told otherwise). For a cell's
 # few devices that costs more than it saves, and with one worker per core the spinning
 # threads of two workers starve each other (measured: 15x slower); parallelism is across points.
@@ -270,7 +284,7 @@ class SharedBackend:
     def _after(self, request: Request) -> None:
         """Undo what a run set up, so the next run starts from the deck as loaded."""
         if request.options:
-            self._reset_options(request.options, request.deck.cell)
+            self._reset_options(request.options, request.deck)
         if request.stop_when:
             self._ng.exec_command("delete all")
         self._ng.exec_command("destroy all")
@@ -297,12 +311,14 @@ class SharedBackend:
             out[name] = np.frombuffer(data, dtype=np.float64).copy()
         return out
 
-    def _reset_options(self, options: tuple[str, ...], cell: str) -> None:
-        defaults = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
+    def _reset_options(self, options: tuple[str, ...], deck: Deck) -> None:
+        """Put each option a run set back to the deck's own value, ngspice's default if the
+        deck sets none (a process's ``options`` are the deck's ``.option`` lines)."""
+        values = {**RESETTABLE, **deck_options(deck.text)}
         for option in options:
             key = option.split("=")[0].strip().lower()
-            if key in defaults:
-                self._command(f"option {key}={defaults[key]}", cell)
+            if key in values:
+                self._command(f"option {key}={values[key]}", deck.cell)
 
 
 class SubprocessBackend:

@@ -169,11 +169,8 @@ def test_nand2_leakage_is_least_with_both_nmos_off():
     assert list(leak) == ["!A1&!A2", "!A1&A2", "A1&!A2", "A1&A2"]
     assert all(w > 0 for w in leak.values())
     assert leak["!A1&!A2"] < min(leak["!A1&A2"], leak["A1&!A2"]) / 2
-    # The supply's DC current times its voltage, in watts: the op point charflow reads.
-    vdd = cfg.process.vdd
-    assert leak["A1&A2"] == pytest.approx(
-        vdd * timing.static_current(cfg, deck, {"A1": True, "A2": True}), rel=1e-12, abs=0
-    )
+    # The values themselves are checked against a plain ngspice operating point in
+    # tests/test_leakage.py.
 
 
 def test_hidden_toggles_are_the_controlling_side_values():
