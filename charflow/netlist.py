@@ -45,6 +45,9 @@ class Deck:
     key: str
     supply: str  # name of the supply source, whose branch current is the supply current
     compat: str | None = None  # ngspice compatibility mode (ngbehavior) the deck is read in
+    # The cell's netlist or template, and its text as rendered: for locating simulator errors.
+    source: Path | None = None
+    cell_text: str = ""
 
     @staticmethod
     def input_source(pin: str) -> str:
@@ -235,4 +238,4 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
         scale=process.scale,
     )
     key = hashlib.sha256(f"{process.compat}\n{text}".encode()).hexdigest()
-    return Deck(cell=cell.name, text=text, key=key, supply="vsupply", compat=process.compat)
+    return Deck(cell.name, text, key, "vsupply", process.compat, cell.source, cell_text)
