@@ -267,9 +267,11 @@ def _quiet_end(
     loud = np.flatnonzero(excess > config.simulation.settle * excess.max())
     settled = max(event.end, float(ts[loud[-1] + 1]))
     if settled > ts[-1] - QUIET_FRACTION * (ts[-1] - event.end):
+        span = (ts[-1] - event.end) / config.time_scale
         raise MeasurementError(
-            f"supply current has not settled {ts[-1] - event.end:.4g} s after {what}: "
-            f"{excess[-1]:.4g} A off its static value at the end, {excess.max():.4g} A at most"
+            f"supply current has not settled {span:.4g} {config.time_unit} after {what}, the "
+            f"end of the run ([simulation] window): {excess[-1]:.4g} A off its static value at "
+            f"the end, {excess.max():.4g} A at most"
         )
     return settled
 
