@@ -536,11 +536,12 @@ def locate(cause: str, deck: Deck) -> tuple[Path, int | None] | None:
 
 def _missing_models(cause: str, deck: Deck) -> str:
     """For each model ngspice cannot find, where the files the deck reads define it, if
-    anywhere: a card in a ``.lib`` section the deck does not read is a common slip."""
+    anywhere (binned cards ``name.1``, ``name.2`` … too): a card in a ``.lib`` section the deck
+    does not read, or bins that do not cover a device's size, are common slips."""
     notes = []
     files = model_files(deck.text, Path.cwd())
     for name in dict.fromkeys(re.findall(r"can't find model '([^']+)'", cause, re.I)):
-        card = re.compile(rf"^[ \t]*\.model[ \t]+{re.escape(name)}\s", re.I | re.M)
+        card = re.compile(rf"^[ \t]*\.model[ \t]+{re.escape(name)}(\.\d+)?\s", re.I | re.M)
         places = []
         for path in files:
             try:
@@ -550,7 +551,8 @@ def _missing_models(cause: str, deck: Deck) -> str:
             lines = (text.count("\n", 0, m.start()) + 1 for m in card.finditer(text))
             places += [f"{path} line {n}" for n in lines]
         notes.append(
-            f"model {name} is defined at {', '.join(places)}, in no part the testbench reads"
+            f"model {name} is defined at {', '.join(places)}: in a part the testbench does "
+            "not read, or in bins none of which covers the device's W and L"
             if places
             else f"no file the testbench reads defines a model {name}"
         )

@@ -89,7 +89,7 @@ def test_a_model_in_a_section_not_read_says_where_it_is(tmp_path):
     text = (tmp_path / "models.lib").read_text().splitlines()
     line = next(i for i, ln in enumerate(text, 1) if ln.startswith(".model pch_fast"))
     assert f"model pch_fast is defined at {tmp_path / 'models.lib'} line {line}" in error.reason
-    assert "in no part the testbench reads" in error.reason
+    assert "in a part the testbench does not read" in error.reason
 
 
 @pytest.mark.parametrize("backend", BACKENDS, ids=["shared", "subprocess"])
