@@ -94,6 +94,19 @@ class FlopSpec:
 
 
 @dataclass(frozen=True, slots=True)
+class BodyPin:
+    """A cell's body (well) pin: tied to the supply of its kind (an n-well to the cell's power,
+    a p-well to its ground) or, with ``voltage``, held at its own voltage (body bias)."""
+
+    pin: str
+    kind: str  # "nwell" or "pwell": Liberty's pg_type of the pin
+    voltage: float | None = None  # V; None: tied to the cell's power (nwell) or ground (pwell)
+
+
+BODY_KINDS = ("nwell", "pwell")
+
+
+@dataclass(frozen=True, slots=True)
 class CellSpec:
     name: str
     inputs: tuple[str, ...]
@@ -107,6 +120,12 @@ class CellSpec:
     area: float = 0.0
     flop: FlopSpec | None = None
     other_output_axis: bool = False  # tables get the other output's load as a third index
+    body: tuple[BodyPin, ...] = ()  # body pins, n-well before p-well
+
+    @property
+    def supply_pins(self) -> tuple[str, ...]:
+        """The power and ground pins and the body pins."""
+        return (self.power, self.ground, *(b.pin for b in self.body))
 
     @property
     def data_inputs(self) -> tuple[str, ...]:
@@ -366,6 +385,7 @@ _CELL_KEYS = {
     "grid",
     "flop",
     "other_output_axis",
+    *BODY_KINDS,
 }
 _FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
 _CORNER_KEYS = {"name", "section", "vdd", "temperature"}
@@ -727,6 +747,8 @@ def _cell(
         outputs.append(OutputSpec(pin, expr))
     power = r.get(doc, "power", str, key, "VDD", name)
     ground = r.get(doc, "ground", str, key, "VSS", name)
+    taken = {*inputs, *outputs_doc, power or "VDD", ground or "VSS"}
+    body = _body(r, doc, key, name, taken)
     area = r.number(doc, "area", key, 0.0, name)
     grid_doc = r.get(doc, "grid", dict, key, {}, name) or {}
     r.unknown(grid_doc, _GRID_KEYS, f"{key}.grid", name)
@@ -771,7 +793,36 @@ def _cell(
         area=area or 0.0,
         flop=flop,
         other_output_axis=bool(axis3) and len(outputs) == 2,
+        body=body,
     )
+
+
+def _body(r: _Reader, doc: dict, key: str, name: str, taken: set[str]) -> tuple[BodyPin, ...]:
+    """The cell's body pins: ``nwell``/``pwell`` = "PIN" (tied to the cell's power / ground)
+    or { pin = "PIN", voltage = V } (its own voltage, for body bias)."""
+    found = []
+    for kind in BODY_KINDS:
+        bkey = f"{key}.{kind}"
+        entry = doc.get(kind)
+        if entry is None:
+            continue
+        if isinstance(entry, dict):
+            r.unknown(entry, {"pin", "voltage"}, bkey, name)
+            pin = r.get(entry, "pin", str, bkey, None, name)
+            voltage = r.number(entry, "voltage", bkey, None, name)
+        else:
+            pin, voltage = entry, None
+        if not isinstance(pin, str) or not _is_identifier(pin):
+            r.problem(
+                bkey, f'must be a pin name or {{ pin = "...", voltage = V }}, got {entry!r}', name
+            )
+            continue
+        if pin.upper() in {t.upper() for t in taken}:
+            r.problem(bkey, f"pin {pin} is already an input, output or supply pin", name)
+            continue
+        taken.add(pin)
+        found.append(BodyPin(pin, kind, voltage))
+    return tuple(found)
 
 
 def _flop(r: _Reader, doc: dict, key: str, name: str, inputs: list[str]) -> FlopSpec | None:

@@ -1,13 +1,14 @@
 """Flip-flop power: the energy of clock and control events, hidden power, leakage per state.
 
-A flop's static current depends on the value it stores, which a DC operating point cannot
-know: every static level here is the supply current at the settled end of a transient that
-writes the state with one active clock edge and then holds an input vector without another
-(``state_current``). The energy of an event (a clock edge that switches the outputs, a clear)
-is the supply's energy from the event's start until its current has come back to the new
-state's static level, less that static draw, less what the external loads took; a hidden event
-(the clock toggling with the data equal to the stored value, a data pin moving while the clock
-holds still) is measured the same way, and every output must hold its level through it.
+A flop's static current depends on the value it stores, which a DC operating point cannot know:
+every static level here is the supply current at the settled end of a transient that writes the
+state with one active clock edge and then holds an input vector without another
+(``state_current``; for leakage, ``state_leakage``, at a gmin that adds no leakage of its own).
+The energy of an event (a clock edge that switches the outputs, a clear) is the supply's energy
+from the event's start until its current has come back to the new state's static level, less
+that static draw, less what the external loads took; a hidden event (the clock toggling with
+the data equal to the stored value, a data pin moving while the clock holds still) is measured
+the same way, and every output must hold its level through it.
 Everything is SI here (J, W, A); ``power`` tabulates and the Liberty writer converts.
 """
 
@@ -23,9 +24,17 @@ from .config import CellSpec, LibraryConfig
 from .errors import MeasurementError
 from .measure import integral, single_crossing
 from .netlist import PARKED_LOAD, Deck
-from .power import SLEW_AXIS, LeakageState, PinPower, ToggleMeasurement, TogglePoint, power_quantity
+from .power import (
+    SLEW_AXIS,
+    LeakageState,
+    PinPower,
+    ToggleMeasurement,
+    TogglePoint,
+    leakage_run,
+    power_quantity,
+)
 from .sequential import WINDOW_STEPS, _Bench
-from .simulate import Request
+from .simulate import Request, Result
 from .stimulus import Ramp
 from .sweep import EDGES, capture_values, stored_output
 from .tables import Axis, Table
@@ -37,6 +46,15 @@ from .timing import LOGIC_MARGIN, RAMP_SAMPLES, alters, backend_for, breakpoints
 STATIC_HOLD = 1e-3  # s
 HOLD_STEPS = 200
 READ_FRACTION = 0.25
+# Leakage holds: Gear integration, as the trapezoidal rule's ringing on the supply current
+# biases a hold's mean (measured: 72 pW of 17.5 nW on the demo's QDFF_P1, and ±5 pW on the
+# level-1 QDFFR_P1 whose devices leak nothing); up to LEAKAGE_HOLDS holds, each ten times the
+# last, until the last two quarters' currents agree within STEADY_RTOL: with gmin out of the
+# way a node between off devices relaxes at the devices' own leakage: 1 fF / 2e-14 S ≈ 50 ms
+# at 0.03 pW.
+LEAKAGE_METHOD = "method=gear"
+LEAKAGE_HOLDS = 3
+STEADY_RTOL = 0.01
 QUIET_FRACTION = 0.5  # an event's current must be quiet over the last half of its window
 GRID_SPAN = 0.1  # of the settle window: see event_grid
 
@@ -103,50 +121,106 @@ def _hold_waves(
 _STATIC: dict[tuple[str, bool, tuple[tuple[str, bool], ...]], float] = {}
 
 
-def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[str, bool]) -> float:
-    """Current (A) the supply delivers once the flop holds ``state`` under the input
-    ``vector``; simulated once per worker, deck, state and vector."""
+def _hold_request(
+    config: LibraryConfig,
+    deck: Deck,
+    state: bool,
+    vector: dict[str, bool],
+    hold: float,
+    options: tuple[str, ...] = (),
+) -> Request:
+    """The run that writes ``state``, moves the inputs to ``vector`` and holds them ``hold``
+    seconds (the data's pulses stay flat 1 s: holds are shorter)."""
     cell = config.cell(deck.cell)
-    key = (deck.key, state, tuple((p, vector[p]) for p in cell.inputs))
-    if key in _STATIC:
-        return _STATIC[key]
     if not rests(cell, state, vector):
+        when = logic.when_condition(tuple(vector.items()))
         raise MeasurementError(
-            f"the flop cannot hold {int(state)} under {logic.when_condition(key[2])}: a clear "
+            f"the flop cannot hold {int(state)} under {when}: a clear "
             "or preset it asserts forces the state"
         )
-    bench = _Bench(config, cell)
-    waves, move = _hold_waves(bench, state, vector)
-    stop = move + STATIC_HOLD
-    max_step = STATIC_HOLD / HOLD_STEPS
-    supply = f"{deck.supply}#branch"
-    outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}
-    request = Request(
+    waves, move = _hold_waves(_Bench(config, cell), state, vector)
+    max_step = hold / HOLD_STEPS
+    outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
+    return Request(
         deck,
         alters(deck, cell, waves, {}),
-        f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-        (*outputs.values(), supply),
+        f"tran {max_step:.6g} {move + hold:.6g} 0 {max_step:.6g}",
+        (*outputs, f"{deck.supply}#branch"),
+        options,
     )
-    result, _ = simulate(backend_for(config), request)
-    t = result.vectors["time"]
-    for pin, node in outputs.items():
-        want = stored_output(cell, pin, state)
-        if abs(result.vectors[node][-1] - _level(config, want)) > LOGIC_MARGIN * config.process.vdd:
+
+
+def _held(
+    config: LibraryConfig, deck: Deck, state: bool, vector: dict[str, bool], result: Result
+) -> tuple[np.ndarray, np.ndarray]:
+    """The run's time and supply current, once every output is checked to hold ``state``."""
+    cell = config.cell(deck.cell)
+    for o in cell.outputs:
+        want = stored_output(cell, o.pin, state)
+        end = result.vectors[deck.output_node(o.pin)][-1]
+        if abs(end - _level(config, want)) > LOGIC_MARGIN * config.process.vdd:
             raise MeasurementError(
-                f"output {pin} ends at {result.vectors[node][-1]:.4g} V holding state "
-                f"{int(state)}, {int(want)} expected",
+                f"output {o.pin} ends at {end:.4g} V holding state {int(state)}, "
+                f"{int(want)} expected",
                 cell=cell.name,
-                pin=pin,
-                vector=logic.when_condition(key[2]),
+                pin=o.pin,
+                vector=logic.when_condition(tuple(vector.items())),
             )
-    # The trapezoid's mean over whole steps of the tail, not its last sample: the sample-to-
-    # sample ringing trapezoidal integration leaves on a source's current cancels step by step
-    # (it would not from an end between samples). A source's branch current flows into its
-    # + node.
-    tail = t >= stop - READ_FRACTION * STATIC_HOLD
-    ts, current = t[tail], -result.vectors[supply][tail]
-    _STATIC[key] = float(np.trapezoid(current, ts) / (ts[-1] - ts[0]))
+    # A source's branch current flows into its + node.
+    return result.vectors["time"], -result.vectors[f"{deck.supply}#branch"]
+
+
+def _tail_mean(t: np.ndarray, current: np.ndarray, start: float, stop: float) -> float:
+    """The trapezoid's mean over the whole steps in [start, stop], not a last sample: the
+    sample-to-sample ringing trapezoidal integration leaves on a source's current cancels step
+    by step (it would not from an end between samples)."""
+    keep = (t >= start) & (t <= stop)
+    ts, cs = t[keep], current[keep]
+    return float(np.trapezoid(cs, ts) / (ts[-1] - ts[0]))
+
+
+def state_current(config: LibraryConfig, deck: Deck, state: bool, vector: dict[str, bool]) -> float:
+    """Current (A) the supply delivers once the flop holds ``state`` under the input
+    ``vector``, at the simulator settings of the timing runs it is taken off; simulated once
+    per worker, deck, state and vector."""
+    cell = config.cell(deck.cell)
+    key = (deck.key, state, tuple((p, vector[p]) for p in cell.inputs))
+    if key not in _STATIC:
+        request = _hold_request(config, deck, state, vector, STATIC_HOLD)
+        result, _ = simulate(backend_for(config), request)
+        t, current = _held(config, deck, state, vector, result)
+        _STATIC[key] = _tail_mean(t, current, t[-1] - READ_FRACTION * STATIC_HOLD, t[-1])
     return _STATIC[key]
+
+
+def state_leakage(
+    config: LibraryConfig, deck: Deck, state: bool, vector: dict[str, bool]
+) -> tuple[float, float]:
+    """The power (W) the flop leaks holding ``state`` under ``vector``, and the gmin it was
+    measured with (``power.leakage_run``), with Gear integration (``LEAKAGE_METHOD``). The hold
+    is made ten times longer while its current still moves between the last two quarters."""
+    cell = config.cell(deck.cell)
+    vdd = config.process.vdd
+    when = logic.when_condition((*vector.items(), *state_term(cell, state)))
+    hold = STATIC_HOLD
+    for _ in range(LEAKAGE_HOLDS):
+        request = _hold_request(config, deck, state, vector, hold, (LEAKAGE_METHOD,))
+        result, gmin = leakage_run(config, request, when)
+        t, current = _held(config, deck, state, vector, result)
+        quarter = READ_FRACTION * hold
+        last = _tail_mean(t, current, t[-1] - quarter, t[-1])
+        before = _tail_mean(t, current, t[-1] - 2 * quarter, t[-1] - quarter)
+        # Steady: within STEADY_RTOL, or within one junction's gmin current, which the value
+        # may hold anyway.
+        if abs(last - before) <= max(STEADY_RTOL * abs(last), gmin * vdd):
+            return vdd * last, gmin
+        hold *= 10
+    raise MeasurementError(
+        f"leakage has not settled in a {hold / 10:g} s hold: the supply current moves from "
+        f"{before:.4g} A to {last:.4g} A over its last two quarters",
+        cell=cell.name,
+        vector=when,
+    )
 
 
 def vectors(cell: CellSpec) -> tuple[tuple[bool, dict[str, bool]], ...]:
@@ -166,7 +240,7 @@ def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
     return tuple(
         LeakageState(
             logic.when_condition((*vector.items(), *state_term(cell, state))),
-            config.process.vdd * state_current(config, deck, state, vector),
+            *state_leakage(config, deck, state, vector),
         )
         for state, vector in vectors(cell)
     )
@@ -193,9 +267,11 @@ def _quiet_end(
     loud = np.flatnonzero(excess > config.simulation.settle * excess.max())
     settled = max(event.end, float(ts[loud[-1] + 1]))
     if settled > ts[-1] - QUIET_FRACTION * (ts[-1] - event.end):
+        span = (ts[-1] - event.end) / config.time_scale
         raise MeasurementError(
-            f"supply current has not settled {ts[-1] - event.end:.4g} s after {what}: "
-            f"{excess[-1]:.4g} A off its static value at the end, {excess.max():.4g} A at most"
+            f"supply current has not settled {span:.4g} {config.time_unit} after {what}, the "
+            f"end of the run ([simulation] window): {excess[-1]:.4g} A off its static value at "
+            f"the end, {excess.max():.4g} A at most"
         )
     return settled
 

@@ -1,9 +1,10 @@
 """Cell netlists and testbenches: rendering templates, reading ``.subckt`` ports, building decks.
 
-A testbench deck holds the models, the cell, one PULSE source per input, a supply and a
-load capacitor per output. Every sweep point of a cell runs on the same deck: the point's
-slew, load and side-input values are applied with ``alter`` commands, so the simulator
-reads the models and the cell once (see ``simulate``).
+A testbench deck holds the models, the cell, one PULSE source per input, a supply and a load
+capacitor per output. A body pin is tied to the supply or ground, or held at its own voltage by
+a DC source of its own, whose current is not the supply's. Every sweep point of a cell runs on
+the same deck: the point's slew, load and side-input values are applied with ``alter``
+commands, so the simulator reads the models and the cell once (see ``simulate``).
 """
 
 from __future__ import annotations
@@ -24,6 +25,8 @@ TESTBENCH = "testbench.sp.j2"
 
 # Placeholder values in the deck; every point overrides them with ``alter``.
 PARKED_LOAD = 1e-18
+# The node a body pin with no voltage of its own is tied to: the supply of its kind.
+_TIED = {"nwell": "cf_vdd", "pwell": "0"}
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,6 +45,9 @@ class Deck:
     key: str
     supply: str  # name of the supply source, whose branch current is the supply current
     compat: str | None = None  # ngspice compatibility mode (ngbehavior) the deck is read in
+    # The cell's netlist or template, and its text as rendered: for locating simulator errors.
+    source: Path | None = None
+    cell_text: str = ""
 
     @staticmethod
     def input_source(pin: str) -> str:
@@ -58,6 +64,15 @@ class Deck:
     @staticmethod
     def output_node(pin: str) -> str:
         return f"cf_out_{pin}".lower()
+
+    @staticmethod
+    def body_node(kind: str) -> str:
+        """The node of a body pin held at its own voltage (``kind`` nwell or pwell)."""
+        return f"cf_{kind}"
+
+    @staticmethod
+    def body_source(kind: str) -> str:
+        return f"v{kind}"
 
 
 @functools.lru_cache(maxsize=256)
@@ -166,7 +181,7 @@ def find_subckt(text: str, name: str, *, source: Path | None = None) -> Subckt:
 def check_ports(cell: CellSpec, sub: Subckt) -> None:
     """Every declared pin is a port and every port is a declared pin, whatever the order."""
     ports = {p.upper(): p for p in sub.ports}
-    declared = [*cell.inputs, *(o.pin for o in cell.outputs), cell.power, cell.ground]
+    declared = [*cell.inputs, *(o.pin for o in cell.outputs), *cell.supply_pins]
     for pin in declared:
         if pin.upper() not in ports:
             raise NetlistError(
@@ -181,8 +196,9 @@ def check_ports(cell: CellSpec, sub: Subckt) -> None:
     for port in sub.ports:
         if port.upper() not in declared_upper:
             raise NetlistError(
-                f"port {port} of .subckt {sub.name} is neither an input, an output, power "
-                "nor ground in the config",
+                f"port {port} of .subckt {sub.name} is neither an input, an output, power, "
+                "ground nor a body pin in the config (a well or substrate pin is declared "
+                f'with nwell = "{port}" or pwell = "{port}")',
                 file=cell.source,
                 line=sub.line,
                 cell=cell.name,
@@ -196,6 +212,13 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     sub = find_subckt(cell_text, cell.name, source=cell.source)
     check_ports(cell, sub)
     nodes = {cell.power.upper(): "cf_vdd", cell.ground.upper(): "0"}
+    for b in cell.body:
+        nodes[b.pin.upper()] = _TIED[b.kind] if b.voltage is None else Deck.body_node(b.kind)
+    biases = [
+        (Deck.body_source(b.kind), Deck.body_node(b.kind), b.voltage)
+        for b in cell.body
+        if b.voltage is not None
+    ]
     nodes.update({p.upper(): Deck.input_node(p) for p in cell.inputs})
     nodes.update({o.pin.upper(): Deck.output_node(o.pin) for o in cell.outputs})
     process = config.process
@@ -207,6 +230,7 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
         port_nodes=[nodes[p.upper()] for p in sub.ports],
         inputs=[(Deck.input_source(p), Deck.input_node(p)) for p in cell.inputs],
         loads=[(Deck.load_cap(o.pin), Deck.output_node(o.pin)) for o in cell.outputs],
+        biases=biases,
         parked_load=PARKED_LOAD,
         vdd=process.vdd,
         temperature=process.temperature,
@@ -214,4 +238,4 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
         scale=process.scale,
     )
     key = hashlib.sha256(f"{process.compat}\n{text}".encode()).hexdigest()
-    return Deck(cell=cell.name, text=text, key=key, supply="vsupply", compat=process.compat)
+    return Deck(cell.name, text, key, "vsupply", process.compat, cell.source, cell_text)

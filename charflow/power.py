@@ -6,6 +6,16 @@ is an input edge that changes no output (NAND2's IA while IB = 0): the supply en
 is Liberty's hidden power, kept on the input pin. Leakage is the supply's DC power per input
 vector. Everything is SI here (J, W); the Liberty writer converts.
 
+Leakage is the devices' own, not the simulator's: ngspice puts its gmin (1e-12 S unless told
+otherwise) across every pn junction of every device, MOS bulk junctions included, so each
+junction reverse-biased by vdd draws gmin·vdd that no device draws, 1.44 pW at 1.2 V: more than
+a whole cell's device leakage on a low-leakage process. Leakage runs therefore set gmin to
+``LEAKAGE_GMINS[0]``, far below any device's off conductance (0.03 pW at 1.2 V is 2e-14 S); what
+it still adds is gmin·vdd² per junction, 1.4e-18 W at 1.2 V. Taking the gmin current off instead
+would need every junction's voltage, which only the models know. A state whose operating point
+does not converge there is tried at the next, larger gmin, with a warning naming it; the gmin
+a value was measured with is kept beside it.
+
 A toggle has no output edge to end its run. Its energy window ends once the input ramp is
 over and the supply current has come back to the static current within ``simulation.settle``
 of its largest excursion; the run lasts the ramp and a tail of ``TOGGLE_TAIL`` ramp durations,
@@ -18,16 +28,23 @@ fraction of the switching current, is the state's leakage, not the toggle's ener
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
+import logging
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from . import logic, stimulus
 from .config import CellSpec, LibraryConfig
-from .errors import MeasurementError, TableError
+from .errors import (
+    DeckReadError,
+    MeasurementError,
+    SimulatorError,
+    SimulatorHungError,
+    TableError,
+)
 from .measure import KeepWaveform, integral, single_crossing, supply_energy, waveform
 from .netlist import Deck, build_deck
-from .simulate import Request
+from .simulate import Request, Result
 from .sweep import EDGES, POINT_RUNS, Arc, Plan, State
 from .tables import Axis, Table
 from .timing import (
@@ -41,8 +58,13 @@ from .timing import (
 )
 from .units import show_cap, show_time
 
+log = logging.getLogger("charflow")
+
 TOGGLE_TAIL = 4.0  # ramp durations after the ramp, before any extension
 TOGGLE_EXTENSIONS = 3
+# S: gmin of leakage runs, smallest first; the last is ngspice's default, a last resort whose
+# values hold the gmin current (see the module's text).
+LEAKAGE_GMINS = (1e-18, 1e-15, 1e-12)
 
 # power_lut_template's variables: the input slew, the output's load and, on a two-output
 # cell, the other output's load.
@@ -108,6 +130,7 @@ class ToggleMeasurement:
 class LeakageState:
     when: str  # every input, e.g. "!IA&IB"
     power: float  # W
+    gmin: float = LEAKAGE_GMINS[0]  # S, the simulator's gmin the value was measured with
 
 
 @dataclass(frozen=True, slots=True)
@@ -261,19 +284,62 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     return ToggleMeasurement(point, energy, charge, runs, seconds, settled)
 
 
+def leakage_run(config: LibraryConfig, request: Request, vector: str) -> tuple[Result, float]:
+    """Run a leakage ``request`` at the smallest of ``LEAKAGE_GMINS`` that converges; return
+    the result and that gmin. ``vector`` names the state in messages."""
+    backend = backend_for(config)
+    cell = request.deck.cell
+    failed: dict[float, str] = {}
+    for gmin in LEAKAGE_GMINS:
+        try:
+            result = backend.run(replace(request, options=(*request.options, f"gmin={gmin:g}")))
+        except (DeckReadError, SimulatorHungError):
+            raise  # no gmin can help
+        except SimulatorError as exc:
+            failed[gmin] = exc.reason
+            continue
+        if failed:
+            log.warning(
+                "cell %s, vector %s: leakage measured with gmin %g S, which adds up to %.3g W "
+                "per reverse-biased junction (%s)",
+                cell,
+                vector,
+                gmin,
+                gmin * config.process.vdd**2,
+                _tried(failed),
+            )
+        return result, gmin
+    raise SimulatorError(
+        f"no leakage: the simulator does not converge with any gmin ({_tried(failed)}); "
+        "check the models and the cell at this input vector",
+        cell=cell,
+        vector=vector,
+    )
+
+
+def _tried(failed: dict[float, str]) -> str:
+    return "; ".join(f"gmin {g:g} S: {reason}" for g, reason in failed.items())
+
+
 def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
     """The supply's DC power (W) for every input vector, in counting order (a flip-flop's per
-    stored value too, ``ffpower.leakage``)."""
+    stored value too, ``ffpower.leakage``), at a gmin that adds no leakage of its own."""
     cell = config.cell(deck.cell)
     if cell.flop is not None:
         from . import ffpower
 
         return ffpower.leakage(config, deck)
+    vdd = config.process.vdd
+    supply = f"{deck.supply}#branch"
     states = []
     for bits in itertools.product((False, True), repeat=len(cell.inputs)):
-        assign = dict(zip(cell.inputs, bits, strict=True))
-        watts = config.process.vdd * static_current(config, deck, assign)
-        states.append(LeakageState(logic.when_condition(tuple(assign.items())), watts))
+        assign = tuple(zip(cell.inputs, bits, strict=True))
+        when = logic.when_condition(assign)
+        values = {p: stimulus.constant(vdd if b else 0.0) for p, b in assign}
+        request = Request(deck, alters(deck, cell, values, {}), "op", (supply,))
+        result, gmin = leakage_run(config, request, when)
+        # A source's branch current flows into its + node from outside: out of it is −i.
+        states.append(LeakageState(when, -vdd * float(result.vectors[supply][-1]), gmin))
     return tuple(states)
 
 

@@ -19,7 +19,7 @@ from . import stimulus
 from .config import CellSpec, LibraryConfig, Thresholds
 from .errors import FunctionalMismatchError, MeasurementError
 from .measure import KeepWaveform, check_settled, integral, single_crossing, step_at, waveform
-from .netlist import Deck
+from .netlist import Deck, build_deck
 from .simulate import Request
 from .stimulus import Ramp
 from .sweep import (
@@ -28,6 +28,7 @@ from .sweep import (
     TimingPoint,
     capture_values,
     inactive_controls,
+    plan,
     stored_output,
 )
 from .timing import (
@@ -47,7 +48,8 @@ from .timing import (
 if TYPE_CHECKING:
     from .ffpower import EventEnergy
 
-WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew
+WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew, at least
+WINDOW_DOUBLINGS = 5  # ... doubled up to this many times until the cell settles in it
 WINDOW_STEPS = 200  # first-run samples across a window, before refinement
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
@@ -96,12 +98,12 @@ class Outcome:
 class _Bench:
     """The waveform timeline shared by every experiment on one cell."""
 
-    def __init__(self, config: LibraryConfig, cell: CellSpec) -> None:
+    def __init__(self, config: LibraryConfig, cell: CellSpec, window: float | None = None) -> None:
         self.config, self.cell = config, cell
         self.vdd = config.process.vdd
         self.thr = config.thresholds
         largest = max(cell.grid.slew)
-        self.window = config.simulation.window or WINDOW_SLEWS * largest
+        self.window = window or settle_window(config, cell)
         ramp = stimulus.ramp(largest, "rise", self.thr, self.vdd)
         # Half a period holds the slowest edge and its settling, with room for a data edge.
         self.half = 2.0 * ramp.duration + self.window
@@ -153,6 +155,43 @@ class _Bench:
         return vector, go, back
 
 
+_WINDOWS: dict[tuple, float] = {}
+
+
+def settle_window(config: LibraryConfig, cell: CellSpec) -> float:
+    """How long a flop experiment runs past its event, and the clock's phases hold:
+    ``simulation.window`` when set; else WINDOW_SLEWS × the grid's largest slew, doubled up to
+    WINDOW_DOUBLINGS times until the cell's slowest events (its clock and control arcs to the
+    first output at the sharpest slew and the largest loads; the other output moving draws
+    supply current, which must settle too) measure cleanly in it: a window follows the cell,
+    not only the grid. A cell that measures in none keeps the shortest, and its points report
+    why. Probed once per worker and cell."""
+    if config.simulation.window:
+        return config.simulation.window
+    deck = build_deck(config, cell)
+    key = (deck.key, cell.grid, config.thresholds, config.simulation)
+    if key not in _WINDOWS:
+        base = WINDOW_SLEWS * max(cell.grid.slew)
+        slowest = [
+            p
+            for p in plan(config, [cell.name]).points
+            if isinstance(p, TimingPoint)
+            and p.output == cell.outputs[0].pin
+            and (p.slew, p.load) == (min(cell.grid.slew), max(cell.grid.load))
+            and p.other_load in (None, max(cell.grid.related_load, default=None))
+        ]
+        _WINDOWS[key] = base
+        for window in (base * 2**k for k in range(WINDOW_DOUBLINGS + 1)):
+            try:
+                for point in slowest:
+                    measure_clocked(config, deck, point, window)
+            except MeasurementError:
+                continue
+            _WINDOWS[key] = window
+            break
+    return _WINDOWS[key]
+
+
 def _crossing_after(t, v, level: float, edge: str, after: float, what: str) -> float:
     keep = t >= after
     return single_crossing(t[keep], v[keep], level, edge, what)
@@ -184,10 +223,12 @@ def run_event(
     quiet_until: float = 0.0,
     charge_windows: tuple[tuple[str, Ramp, float | None], ...] = (),
     states: tuple[bool, bool] | None = None,
+    window: float | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment; the output must hold ``before`` until the event and settle at
-    ``after`` (a bool level) once it. Each ``charge_windows`` entry (pin, its ramp, the end
-    or None for the run's end) asks for the charge the pin draws from its ramp's start. With
+    ``after`` (a bool level) once it, within ``window`` (``settle_window`` unless given).
+    Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
+    the charge the pin draws from its ramp's start. With
     ``states`` (the flop's state before and after the event) the event's energy is measured
     too (``ffpower.event_energy``). Returns the outcome, simulations and simulator seconds."""
     cell = config.cell(deck.cell)
@@ -195,7 +236,7 @@ def run_event(
     out_node = deck.output_node(output)
     edge = "rise" if after else "fall"
     tol = sim.settle * vdd
-    window = sim.window or WINDOW_SLEWS * max(cell.grid.slew)
+    window = window or settle_window(config, cell)
     # Stop once the output has settled after the event, and after any late data edge.
     arm = max(event.end, quiet_until)
     level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
@@ -282,12 +323,15 @@ def _capture_waves(
     return {p: bench.data(p, old[p], new[p], start, slew)[0] for p in new}
 
 
-def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement:
+def measure_clocked(
+    config: LibraryConfig, deck: Deck, point: TimingPoint, window: float | None = None
+) -> Measurement:
     """A clock arc (second active edge after writing the opposite value) or an asynchronous
-    control arc (after writing the value it changes). Every input that moves in the run is
-    asked for its charge on each of its edges (``_clock_run``, ``_control_run``)."""
+    control arc (after writing the value it changes); ``window`` as in ``run_event``. Every
+    input that moves in the run is asked for its charge on each of its edges (``_clock_run``,
+    ``_control_run``)."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, cell)
+    bench = _Bench(config, cell, window)
     out_after = point.output_edge == "rise"
     if point.kind == "clock":
         stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
@@ -306,6 +350,7 @@ def measure_clocked(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Me
         after=out_after,
         charge_windows=windows,
         states=(not stored, stored),
+        window=bench.window,
     )
     (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
@@ -706,7 +751,8 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     """Every data vector is captured from either stored value, and every asynchronous control
     forces its value: simulated with relaxed timing; raise naming the vector."""
     cell = config.cell(deck.cell)
-    bench, flop = _Bench(config, cell), cell.flop
+    # The shortest window: a cell that does not work should not be probed for one first.
+    bench, flop = _Bench(config, cell, WINDOW_SLEWS * max(cell.grid.slew)), cell.flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
@@ -730,6 +776,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
                         output=out.pin,
                         before=stored_output(cell, out.pin, previous),
                         after=stored_output(cell, out.pin, stored),
+                        window=bench.window,
                     )
                 except MeasurementError as exc:
                     raise FunctionalMismatchError(

@@ -33,6 +33,20 @@ RETRY_LADDER: tuple[tuple[str, ...], ...] = (
 )
 
 
+# ngspice's defaults of the options a run may set, put back after it.
+RESETTABLE = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
+_OPTION_LINE = re.compile(r"^[ \t]*\.options?[ \t]+(.*)$", re.IGNORECASE | re.MULTILINE)
+
+
+def deck_options(text: str) -> dict[str, str]:
+    """The ``name=value`` settings of a deck's ``.option`` lines, names in lower case."""
+    found = {}
+    for line in _OPTION_LINE.findall(text):
+        for name, value in re.findall(r"(\w+)\s*=\s*(\S+)", line):
+            found[name.lower()] = value
+    return found
+
+
 # ngspice evaluates BSIM devices with OpenMP threads (two unless told otherwise). For a cell's
 # few devices that costs more than it saves, and with one worker per core the spinning
 # threads of two workers starve each other (measured: 15x slower); parallelism is across points.
@@ -176,7 +190,7 @@ class SharedBackend:
         # parse), NgSpiceCircuitError when it read the deck but reported errors.
         except (NgSpiceCircuitError, NameError) as exc:
             failed = exc
-        messages = _messages(self._ng.stdout + self._ng.stderr)
+        output = f"{self._ng.stdout}\n{self._ng.stderr}"
         # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
         # either would shift the numbering of the others under them.
         if self._listed() > listed:
@@ -185,14 +199,9 @@ class SharedBackend:
                 self._loaded = deck.key
                 return
             self._ng.exec_command("remcirc")
-        if "cannot recover" in messages:
-            self._broken = messages
-        # Name the files the deck reads: a model file is the likely culprit, and ngspice's
-        # own messages seldom say which file they are about.
-        models = ", ".join(map(str, model_files(deck.text, Path.cwd())))
-        raise DeckReadError(
-            f"ngspice cannot read the testbench: {messages}", file=models or None, cell=deck.cell
-        ) from failed
+        if "cannot recover" in output:
+            self._broken = read_cause(output)
+        raise deck_read_error("ngspice cannot read the testbench", deck, output) from failed
 
     def _listed(self) -> int:
         """How many circuits ngspice holds (``setcirc`` without a number lists them)."""
@@ -270,7 +279,7 @@ class SharedBackend:
     def _after(self, request: Request) -> None:
         """Undo what a run set up, so the next run starts from the deck as loaded."""
         if request.options:
-            self._reset_options(request.options, request.deck.cell)
+            self._reset_options(request.options, request.deck)
         if request.stop_when:
             self._ng.exec_command("delete all")
         self._ng.exec_command("destroy all")
@@ -297,12 +306,14 @@ class SharedBackend:
             out[name] = np.frombuffer(data, dtype=np.float64).copy()
         return out
 
-    def _reset_options(self, options: tuple[str, ...], cell: str) -> None:
-        defaults = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
+    def _reset_options(self, options: tuple[str, ...], deck: Deck) -> None:
+        """Put each option a run set back to the deck's own value, ngspice's default if the
+        deck sets none (a process's ``options`` are the deck's ``.option`` lines)."""
+        values = {**RESETTABLE, **deck_options(deck.text)}
         for option in options:
             key = option.split("=")[0].strip().lower()
-            if key in defaults:
-                self._command(f"option {key}={defaults[key]}", cell)
+            if key in values:
+                self._command(f"option {key}={values[key]}", deck.cell)
 
 
 class SubprocessBackend:
@@ -383,15 +394,15 @@ class SubprocessBackend:
                     cell=cell,
                 )
             if not out.is_file():
-                messages = _messages((proc.stdout + proc.stderr).splitlines())
+                output = f"{proc.stdout}\n{proc.stderr}"
                 # ngspice ends with a fatal error when it cannot read the deck: options cannot
                 # help, so the fallback ladder is not tried.
-                unreadable = (
-                    "fatal error" in messages.lower() or "error on line" in messages.lower()
-                )
-                raise (DeckReadError if unreadable else SimulatorError)(
-                    f"ngspice wrote no results (exit {proc.returncode}): {messages}",
-                    file=", ".join(map(str, model_files(request.deck.text, Path.cwd()))) or None,
+                if re.search(_UNREADABLE, output, re.IGNORECASE):
+                    what = f"ngspice cannot read the testbench (exit {proc.returncode})"
+                    raise deck_read_error(what, request.deck, output)
+                raise SimulatorError(
+                    f"ngspice wrote no results (exit {proc.returncode}): "
+                    f"{_messages(output.splitlines())}",
                     cell=cell,
                 )
             table = np.loadtxt(out, skiprows=1, ndmin=2)
@@ -442,6 +453,123 @@ def _messages(lines: list[str] | str) -> str:
         if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)
     ]
     return "; ".join((interesting or keep)[-6:]) or "no message"
+
+
+# ngspice's lines that say nothing about what went wrong.
+_NOISE = re.compile(
+    r"^(note:|circuit:|please check your input|error: ngspice\.dll cannot recover"
+    r"|simulation interrupted|error: fatal error in ngspice|warning: can't find the init)",
+    re.IGNORECASE,
+)
+# A line that introduces the card it is about, printed on the next line.
+_INTRODUCES = re.compile(r"(:|from line)$", re.IGNORECASE)
+# The cards ngspice quotes after such an introduction, and the line numbers it gives (of the
+# card's first line in its own file, which ngspice does not name).
+_QUOTED = re.compile(
+    r"(?:from line|error on line:|on line \d+ :|expression err:|could not find include file)"
+    r"\s*(.+)",
+    re.IGNORECASE,
+)
+_LINE_NUMBER = re.compile(r"(?:line no\.|on line)\s+(\d+)", re.IGNORECASE)
+# ngspice's words when it cannot read a deck at all.
+_UNREADABLE = r"fatal error|error on line|could not find include file|unknown subckt"
+QUOTE_CHARS = 60  # of a quoted card, matched against the files: ngspice cuts long ones short
+
+
+def read_cause(output: str) -> str:
+    """ngspice's account of a deck it cannot read, whole: each line once, a line that
+    introduces a card joined with that card."""
+    parts: list[str] = []
+    for line in (ln.strip() for ln in output.splitlines()):
+        if not line or _NOISE.match(line):
+            continue
+        if parts and _INTRODUCES.search(parts[-1]):
+            parts[-1] += " " + line
+        else:
+            parts.append(line)
+    return "; ".join(dict.fromkeys(parts)) or "no message"
+
+
+def _cards(text: str) -> list[tuple[str, list[tuple[int, int]]]]:
+    """Each card of a SPICE text: continuation lines joined, in lower case with single spaces
+    (as ngspice quotes cards), with the offset in it and the number of each physical line."""
+    cards: list[tuple[str, list[tuple[int, int]]]] = []
+    for number, raw in enumerate(text.splitlines(), 1):
+        body = " ".join(raw.split()).lower()
+        if body.startswith("+") and cards:
+            card, starts = cards[-1]
+            starts.append((len(card) + 1, number))
+            cards[-1] = (f"{card} {body[1:].strip()}", starts)
+        elif body and not body.startswith("*"):
+            cards.append((body, [(0, number)]))
+    return cards
+
+
+def locate(cause: str, deck: Deck) -> tuple[Path, int | None] | None:
+    """The file and line of the card ngspice quotes in ``cause``: in the cell's netlist or a
+    file the deck reads; a card at a line number ngspice gives first. A card found only in the
+    cell's rendered text (a template's) gives the template, with no line."""
+    quoted = [
+        " ".join(q.split()).lower().removesuffix("...").rstrip(" }")[:QUOTE_CHARS]
+        for q in _QUOTED.findall(cause.replace("; ", "\n"))
+    ]
+    quoted = [q for q in quoted if q]
+    numbers = {int(n) for n in _LINE_NUMBER.findall(cause)}
+    files = [f for f in (deck.source, *model_files(deck.text, Path.cwd())) if f is not None]
+    found = []
+    for path in dict.fromkeys(files):
+        try:
+            text = path.read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            continue
+        for card, starts in _cards(text):
+            for at in (card.find(q) for q in quoted):
+                if at >= 0:
+                    line = max(n for offset, n in starts if offset <= at)
+                    found.append((starts[0][1] not in numbers, path, line))
+    if found:
+        _, path, line = min(found, key=lambda f: f[0])
+        return path, line
+    in_cell = any(card.find(q) >= 0 for card, _ in _cards(deck.cell_text) for q in quoted)
+    return (deck.source, None) if in_cell and deck.source is not None else None
+
+
+def _missing_models(cause: str, deck: Deck) -> str:
+    """For each model ngspice cannot find, where the files the deck reads define it, if
+    anywhere (binned cards ``name.1``, ``name.2`` … too): a card in a ``.lib`` section the deck
+    does not read, or bins that do not cover a device's size, are common slips."""
+    notes = []
+    files = model_files(deck.text, Path.cwd())
+    for name in dict.fromkeys(re.findall(r"can't find model '([^']+)'", cause, re.I)):
+        card = re.compile(rf"^[ \t]*\.model[ \t]+{re.escape(name)}(\.\d+)?\s", re.I | re.M)
+        places = []
+        for path in files:
+            try:
+                text = path.read_text(encoding="utf-8", errors="replace")
+            except OSError:
+                continue
+            lines = (text.count("\n", 0, m.start()) + 1 for m in card.finditer(text))
+            places += [f"{path} line {n}" for n in lines]
+        notes.append(
+            f"model {name} is defined at {', '.join(places)}: in a part the testbench does "
+            "not read, or in bins none of which covers the device's W and L"
+            if places
+            else f"no file the testbench reads defines a model {name}"
+        )
+    return "".join(f"; {n}" for n in notes)
+
+
+def deck_read_error(what: str, deck: Deck, output: str) -> DeckReadError:
+    """``what`` with ngspice's whole cause, naming the file and line it is about when its
+    messages let them be found, or else the files the deck reads."""
+    cause = read_cause(output)
+    where = locate(cause, deck)
+    cause += _missing_models(cause, deck)
+    if where is not None:
+        return DeckReadError(f"{what}: {cause}", file=where[0], line=where[1], cell=deck.cell)
+    files = ", ".join(map(str, model_files(deck.text, Path.cwd())))
+    read = f" (not located; the testbench reads {files})" if files else ""
+    return DeckReadError(f"{what}: {cause}{read}", cell=deck.cell)
 
 
 _SHARED: list[SharedBackend] = []

@@ -169,11 +169,8 @@ def test_nand2_leakage_is_least_with_both_nmos_off():
     assert list(leak) == ["!IA&!IB", "!IA&IB", "IA&!IB", "IA&IB"]
     assert all(w > 0 for w in leak.values())
     assert leak["!IA&!IB"] < min(leak["!IA&IB"], leak["IA&!IB"]) / 2
-    # The supply's DC current times its voltage, in watts: the op point charflow reads.
-    vdd = cfg.process.vdd
-    assert leak["IA&IB"] == pytest.approx(
-        vdd * timing.static_current(cfg, deck, {"IA": True, "IB": True}), rel=1e-12, abs=0
-    )
+    # The values themselves are checked against a plain ngspice operating point in
+    # tests/test_leakage.py.
 
 
 def test_hidden_toggles_are_the_controlling_side_values():
