@@ -253,20 +253,34 @@ def limits(
 
 @dataclass(frozen=True, slots=True)
 class SupplyPin:
-    """A cell's supply or body pin as Liberty's ``pg_pin``; ``name`` is also its voltage_map
-    entry."""
+    """A cell's supply or body pin as Liberty's ``pg_pin``, and its ``voltage_map`` entry."""
 
     name: str
     pg_type: str  # primary_power | primary_ground (body pins: nwell | pwell)
     voltage: float  # V
+    voltage_name: str  # the supply's own name; a tied body pin shares its supply's
+
+
+def _bias_name(pin: str, volts: float) -> str:
+    """A biased body pin's voltage_map name, e.g. ``VPB_1p5V``: one name per pin and voltage."""
+    return f"{pin}_{_fmt(volts).replace('-', 'm').replace('.', 'p')}V"
 
 
 def supply_pins(config: LibraryConfig, cell: CellSpec) -> tuple[SupplyPin, ...]:
-    """The cell's supply pins. Body pins, once the config names them, join here with pg_type
-    nwell (at the supply's voltage) or pwell (at ground's)."""
+    """The cell's supply pins: power, ground, then its body pins with pg_type nwell (at the
+    supply's voltage unless biased) or pwell (at ground's unless biased)."""
+    vdd = config.process.vdd
+    tied = {"nwell": (vdd, cell.power), "pwell": (0.0, cell.ground)}
+    body = (
+        SupplyPin(b.pin, b.kind, *tied[b.kind])
+        if b.voltage is None
+        else SupplyPin(b.pin, b.kind, b.voltage, _bias_name(b.pin, b.voltage))
+        for b in cell.body
+    )
     return (
-        SupplyPin(cell.power, "primary_power", config.process.vdd),
-        SupplyPin(cell.ground, "primary_ground", 0.0),
+        SupplyPin(cell.power, "primary_power", vdd, cell.power),
+        SupplyPin(cell.ground, "primary_ground", 0.0, cell.ground),
+        *body,
     )
 
 
@@ -275,10 +289,11 @@ def voltage_map(config: LibraryConfig) -> dict[str, float]:
     volts: dict[str, float] = {}
     for cell in config.cells:
         for pin in supply_pins(config, cell):
-            if volts.setdefault(pin.name, pin.voltage) != pin.voltage:
+            if volts.setdefault(pin.voltage_name, pin.voltage) != pin.voltage:
                 raise ConfigError(
-                    f"supply {pin.name} is at {_fmt(volts[pin.name])} V in another cell and "
-                    f"at {_fmt(pin.voltage)} V ({pin.pg_type}) here: give it another name",
+                    f"supply {pin.voltage_name} is at {_fmt(volts[pin.voltage_name])} V in "
+                    f"another cell and at {_fmt(pin.voltage)} V ({pin.name}, {pin.pg_type}) "
+                    "here: give it another name",
                     file=config.path,
                     cell=cell.name,
                 )
@@ -576,7 +591,7 @@ def _cell(w: _Writer, ctx: _Context, cell: CellTables, energy: CellPower | None)
     w.attr("area", _fmt(spec.area))
     for supply in supply_pins(config, spec):
         w.open("pg_pin", supply.name)
-        w.attr("voltage_name", supply.name)
+        w.attr("voltage_name", supply.voltage_name)
         w.attr("pg_type", supply.pg_type)
         w.close()
     if energy is not None:

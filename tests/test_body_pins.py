@@ -131,3 +131,28 @@ def test_a_reverse_biased_n_well_slows_the_rise_only(run):
     fall = _table(result, "INV_BB", "cell_fall") / _table(result, "INV_B", "cell_fall")
     assert np.all(rise > BIAS_SLOWER), rise
     assert np.all(fall < 1.0), fall
+
+
+def test_body_pins_are_pg_pins_of_their_well_type(run):
+    # Liberty's pg_pin groups: pg_type nwell / pwell for body pins, voltage_name naming a
+    # voltage_map entry (Liberty's power and ground pin syntax; common practice). A tied
+    # well shares its supply's voltage; a biased one gets an entry of its own.
+    cfg, _, out = run
+    lib = parse_liberty((out / f"{cfg.name}.lib").read_text())
+    cells = {str(g.args[0]).strip('"'): g for g in lib.get_groups("cell")}
+
+    def pg(cell: str) -> dict[str, tuple[str, str]]:
+        return {
+            str(g.args[0]).strip('"'): (str(g["pg_type"]), str(g["voltage_name"]).strip('"'))
+            for g in cells[cell].get_groups("pg_pin")
+        }
+
+    assert pg("INV_B") == {
+        "VPWR": ("primary_power", "VPWR"),
+        "VGND": ("primary_ground", "VGND"),
+        "VPB": ("nwell", "VPWR"),
+        "VNB": ("pwell", "VGND"),
+    }
+    assert pg("INV_BB")["VPB"] == ("nwell", "VPB_1p5V")
+    text = (out / f"{cfg.name}.lib").read_text()
+    assert "voltage_map (VPB_1p5V, 1.5) ;" in text
