@@ -209,6 +209,15 @@ class LibraryConfig:
     corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
     digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
 
+    @property
+    def corner_name(self) -> str:
+        """The corner's name: the ``[[corner]]`` this library is at, else the model sections
+        read (e.g. ``tt``), else the library's name."""
+        if self.corner is not None:
+            return self.corner.name
+        sections = dict.fromkeys(m.section for m in self.process.models if m.section)
+        return "_".join(sections) or self.name
+
     def at(self, corner: Corner) -> LibraryConfig:
         """The library at one corner, named ``<name>_<corner>``, with no corners of its own."""
         models = tuple(

@@ -300,13 +300,6 @@ def voltage_map(config: LibraryConfig) -> dict[str, float]:
     return volts
 
 
-def corner_name(config: LibraryConfig) -> str:
-    """The operating conditions' name: the model sections read (e.g. ``tt``), else the
-    library's name."""
-    sections = dict.fromkeys(m.section for m in config.process.models if m.section)
-    return "_".join(sections) or config.name
-
-
 # --- Writing -------------------------------------------------------------------------------
 
 
@@ -478,7 +471,7 @@ def _library_attributes(w: _Writer, config: LibraryConfig, limit: Limits) -> Non
     w.attr("nom_process", "1")
     w.attr("nom_voltage", _fmt(p.vdd))
     w.attr("nom_temperature", _fmt(p.temperature))
-    corner = corner_name(config)
+    corner = config.corner_name
     w.open("operating_conditions", corner)
     w.attr("process", "1")
     w.attr("voltage", _fmt(p.vdd))

@@ -90,7 +90,7 @@ class Provenance:
     simulator: Simulator
     config: FileDigest
     models: tuple[ModelDigest, ...]
-    corner: str | None  # the config's [[corner]] name; None: the [process] values as they are
+    corner: str  # ``LibraryConfig.corner_name``: the [[corner]], else the model sections read
     vdd: float  # V
     temperature: float  # degrees C
     time_unit: str
@@ -153,7 +153,7 @@ def build(config: LibraryConfig, sim: Simulator) -> Provenance:
         simulator=sim,
         config=FileDigest(config.path.name, config.digest),
         models=_models(config),
-        corner=config.corner.name if config.corner is not None else None,
+        corner=config.corner_name,
         vdd=p.vdd,
         temperature=p.temperature,
         time_unit=config.time_unit,
@@ -201,7 +201,7 @@ def liberty_header(prov: Provenance) -> tuple[str, ...]:
         if m.included_by:
             how = f"named in {m.included_by}"
         lines.append(f"model {m.file} {how} sha256 {m.sha256 or 'none (unreadable)'}")
-    corner = f"corner {prov.corner}" if prov.corner else "corner none ([process] values)"
+    corner = f"corner {prov.corner}"
     lines.append(f"{corner}: vdd {_number(prov.vdd)} V, temperature {_number(prov.temperature)} C")
     lines.append(f"units: time 1{tu}, capacitance 1{prov.cap_unit}")
     t = prov.thresholds

@@ -20,7 +20,7 @@ from liberty.boolean_functions import parse_boolean_function
 from liberty.parser import parse_liberty
 from liberty.types import Group
 
-from charflow import config, flow, liberty, power
+from charflow import config, flow, power
 from charflow.config import LibraryConfig
 from charflow.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.tables import Table
@@ -256,7 +256,7 @@ def test_operating_conditions_without_a_section_take_the_library_name(small: Cha
             cfg.process, models=tuple(replace(m, section=None) for m in cfg.process.models)
         ),
     )
-    assert liberty.corner_name(plain) == "small_l1"
+    assert plain.corner_name == "small_l1"
 
 
 def test_library_units_of_the_aoi21(aoi21: Characterized) -> None:

@@ -129,7 +129,9 @@ def test_liberty_header_names_programs_files_and_settings(runs):
     assert f"/* simulator ngspice {_ngspice_release()}, built " in header
     assert f"/* config prov.toml sha256 {_sha256(cfg_path)} */" in header
     assert f"/* model vellum90_l1.lib section tt sha256 {_sha256(MODEL)} */" in header
-    assert "/* corner none ([process] values): vdd 1.2 V, temperature 30 C */" in header
+    # The corner is named as operating_conditions names it: the model section read.
+    assert "/* corner tt: vdd 1.2 V, temperature 30 C */" in header
+    assert "operating_conditions (tt) {" in text
     assert "output_rise 45," in header and "slew_derate 0.6 */" in header
     assert "settle 0.02," in header and "window 1 ns," in header
     assert "bisect_tolerance 0.001 ns" in header
@@ -152,7 +154,7 @@ def test_json_names_programs_files_settings_and_flip_flops(runs):
     assert made["models"] == [
         {"file": MODEL.name, "section": "tt", "sha256": _sha256(MODEL), "included_by": None}
     ]
-    assert doc["corner"] == {"name": None, "vdd_V": 1.2, "temperature_C": 30.0}
+    assert doc["corner"] == {"name": "tt", "vdd_V": 1.2, "temperature_C": 30.0}
     assert doc["thresholds"]["output_rise"] == 0.45 and doc["thresholds"]["input_rise"] == 0.5
     assert doc["slew_derate"] == 0.6
     assert doc["simulation"]["settle"] == 0.02 and doc["simulation"]["window_s"] == 1e-9
