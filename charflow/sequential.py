@@ -751,8 +751,10 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     """Every data vector is captured from either stored value, and every asynchronous control
     forces its value: simulated with relaxed timing; raise naming the vector."""
     cell = config.cell(deck.cell)
-    # The shortest window: a cell that does not work should not be probed for one first.
-    bench, flop = _Bench(config, cell, WINDOW_SLEWS * max(cell.grid.slew)), cell.flop
+    # The configured window, else the shortest: a cell that does not work should not be
+    # probed for a window first.
+    shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
+    bench, flop = _Bench(config, cell, shortest), cell.flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
