@@ -35,12 +35,14 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from . import config as config_mod
-from . import netlist, stepsize, stimulus, sweep
-from .config import LibraryConfig
-from .errors import CharflowError, SimulatorError
-from .resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
-from .simulate import QUIET, SINGLE_THREAD
+from charflow.config import library as config_mod
+from charflow.config.library import LibraryConfig
+from charflow.config.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
+from charflow.execution import sweep
+from charflow.measurement import stepsize
+from charflow.records.errors import CharflowError, SimulatorError
+from charflow.simulation import netlist, stimulus
+from charflow.simulation.backends import QUIET, SINGLE_THREAD
 
 DEMO = DEMO_CONFIG
 LEVEL1_MODELS = MODEL_DIR / "vellum90_l1.lib"
@@ -282,7 +284,7 @@ STAGES = "bench_stages.json"
 def _child(argv: list[str]) -> int:
     """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time
     written to DIR/bench_stages.json (seconds; "start" runs from the parent's launch)."""
-    from . import flow
+    from charflow.flow import characterize as flow
 
     path, jobs, out, begun = Path(argv[0]), int(argv[1]), Path(argv[2]), float(argv[3])
     stages = {"start and imports": time.time() - begun}
@@ -474,7 +476,7 @@ def bench_library(
 
 def kit_load_seconds(config_path: Path) -> float:
     """Wall time of ngspice reading one cell's testbench on the kit (its models, mostly)."""
-    from .timing import backend_for
+    from charflow.measurement.combinational import backend_for
 
     config = config_mod.load(config_path)
     deck = netlist.build_deck(config, config.cells[0])

@@ -17,8 +17,8 @@ from pathlib import Path
 import jsonschema
 import pytest
 
-from charflow import flow
-from charflow.resources import LIBRARY_SCHEMA
+from charflow.config.resources import LIBRARY_SCHEMA
+from charflow.flow import characterize as flow
 
 SHOWN_ERRORS = 5  # schema violations a failure lists
 

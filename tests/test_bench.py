@@ -10,7 +10,10 @@ from pathlib import Path
 
 import pytest
 
-from charflow import bench, config, estimate, flow
+from charflow import bench
+from charflow.analysis import estimate
+from charflow.config import library as config
+from charflow.flow import characterize as flow
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"

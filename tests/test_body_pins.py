@@ -11,10 +11,12 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import config, flow, netlist
-from charflow.config import BodyPin
-from charflow.errors import ConfigError, NetlistError
-from charflow.resources import MODEL_DIR
+from charflow.config import library as config
+from charflow.config.library import BodyPin
+from charflow.config.resources import MODEL_DIR
+from charflow.flow import characterize as flow
+from charflow.records.errors import ConfigError, NetlistError
+from charflow.simulation import netlist
 
 DATA = Path(__file__).resolve().parent / "data"
 BODY = DATA / "body.toml"

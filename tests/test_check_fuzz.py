@@ -17,9 +17,12 @@ from pathlib import Path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from charflow import check, config, flow, netlist
-from charflow.errors import CharflowError
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.config import library as config
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.flow import characterize as flow
+from charflow.flow import check
+from charflow.records.errors import CharflowError
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

@@ -14,8 +14,10 @@ from pathlib import Path
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import __version__, cli, demo
-from charflow.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
+from charflow import __version__
+from charflow.cli import main as cli
+from charflow.config import demo
+from charflow.config.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

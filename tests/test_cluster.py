@@ -10,10 +10,12 @@ from pathlib import Path
 import pytest
 from distributed import LocalCluster
 
-from charflow import cluster as cluster_module
-from charflow import config, flow, liberty
-from charflow.errors import ClusterError
-from charflow.store import FILE_NAME, Store
+from charflow.config import library as config
+from charflow.execution import cluster as cluster_module
+from charflow.execution.store import FILE_NAME, Store
+from charflow.flow import characterize as flow
+from charflow.io import liberty
+from charflow.records.errors import ClusterError
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -94,7 +96,7 @@ def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> No
     import dask
     from distributed import Client
 
-    from charflow import sweep
+    from charflow.execution import sweep
 
     cfg = config.load(SMALL)
     points = sweep.plan(cfg, ["QNAND2_P1", "QNOR2_P1"]).points

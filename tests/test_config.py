@@ -12,10 +12,11 @@ from typing import Any
 
 import pytest
 
-from charflow import config, netlist
-from charflow.config import ModelFile
-from charflow.errors import ConfigError, NetlistError
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.config import library as config
+from charflow.config.library import ModelFile
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.records.errors import ConfigError, NetlistError
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 MODEL = MODEL_DIR / "vellum90_l1.lib"

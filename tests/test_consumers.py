@@ -31,8 +31,10 @@ from liberty.parser import parse_liberty
 from liberty.types import Group
 from scipy.interpolate import RegularGridInterpolator
 
-from charflow import config, flow, liberty
-from charflow.config import LibraryConfig
+from charflow.config import library as config
+from charflow.config.library import LibraryConfig
+from charflow.flow import characterize as flow
+from charflow.io import liberty
 
 ROOT = Path(__file__).resolve().parents[1]
 CONFIG = ROOT / "tests" / "data" / "consumers.toml"

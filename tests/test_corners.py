@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config
-from charflow.errors import ConfigError
-from charflow.resources import MODEL_DIR
+from charflow.config import library as config
+from charflow.config.resources import MODEL_DIR
+from charflow.records.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

@@ -12,10 +12,11 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, netlist
-from charflow.errors import DeckReadError
-from charflow.resources import MODEL_DIR
-from charflow.simulate import Request, SharedBackend, SubprocessBackend, make_backend
+from charflow.config import library as config
+from charflow.config.resources import MODEL_DIR
+from charflow.records.errors import DeckReadError
+from charflow.simulation import netlist
+from charflow.simulation.backends import Request, SharedBackend, SubprocessBackend, make_backend
 
 L1 = MODEL_DIR / "vellum90_l1.lib"
 INVERTER = """* an inverter whose PMOS names {model}

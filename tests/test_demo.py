@@ -20,7 +20,7 @@ from consumer_tools import (
 )
 from liberty.parser import parse_liberty
 
-from charflow.tables import Table
+from charflow.tables.table import Table
 
 pytestmark = pytest.mark.slow
 

@@ -11,7 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, diff, flow
+from charflow.analysis import diff
+from charflow.config import library as config
+from charflow.flow import characterize as flow
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

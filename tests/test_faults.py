@@ -17,13 +17,20 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, sweep
-from charflow.errors import SimulatorError, SimulatorTimeoutError
-from charflow.netlist import build_deck
-from charflow.simulate import Request, SharedBackend, SubprocessBackend
-from charflow.store import FILE_NAME, Store
-from charflow.timing import Failure, Measurement, backend_for, measure_chunk, measure_point
-from charflow.workers import EXIT_HUNG, read_journal
+from charflow.config import library as config
+from charflow.execution import sweep
+from charflow.execution.store import FILE_NAME, Store
+from charflow.execution.workers import EXIT_HUNG, read_journal
+from charflow.measurement.combinational import (
+    Failure,
+    Measurement,
+    backend_for,
+    measure_chunk,
+    measure_point,
+)
+from charflow.records.errors import SimulatorError, SimulatorTimeoutError
+from charflow.simulation.backends import Request, SharedBackend, SubprocessBackend
+from charflow.simulation.netlist import build_deck
 
 DATA = Path(__file__).parent / "data"
 FAULTS = DATA / "faults" / "faults.toml"
@@ -153,9 +160,13 @@ def test_a_killed_worker_costs_no_point(tmp_path, caplog):
 # ended is swallowed: to charflow this is a simulator stuck inside a time step after the halt.
 _STUCK = """
 import threading
-from charflow import config, simulate, sweep, timing, workers
-from charflow.errors import SimulatorHungError
-from charflow.netlist import build_deck
+from charflow.config import library as config
+from charflow.simulation import backends as simulate
+from charflow.execution import sweep
+from charflow.measurement import combinational as timing
+from charflow.execution import workers
+from charflow.records.errors import SimulatorHungError
+from charflow.simulation.netlist import build_deck
 
 class NeverSet(threading.Event):
     def set(self):

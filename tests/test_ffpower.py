@@ -12,12 +12,16 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import config, ffpower, flow, netlist, power, sweep
-from charflow.errors import MeasurementError
-from charflow.resources import DEMO_CONFIG
-from charflow.store import FILE_NAME, Store
-from charflow.timing import Measurement
-from charflow.units import power_unit
+from charflow.config import library as config
+from charflow.config.resources import DEMO_CONFIG
+from charflow.execution import sweep
+from charflow.execution.store import FILE_NAME, Store
+from charflow.flow import characterize as flow
+from charflow.measurement import ffpower, power
+from charflow.measurement.combinational import Measurement
+from charflow.records.errors import MeasurementError
+from charflow.records.units import power_unit
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 SEQ = ROOT / "tests" / "data" / "seq_l1.toml"

@@ -21,12 +21,17 @@ import numpy as np
 import pytest
 from scipy.interpolate import RegularGridInterpolator
 
-from charflow import config, fidelity, flow, netlist, sweep, timing
-from charflow.config import Fidelity
-from charflow.fidelity import CENTRE, RANDOM, Probe, compare, probes, statistics
-from charflow.resources import DEMO_CONFIG
-from charflow.tables import Axis, Table
-from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
+from charflow.analysis import fidelity
+from charflow.analysis.fidelity import CENTRE, RANDOM, Probe, compare, probes, statistics
+from charflow.config import library as config
+from charflow.config.library import Fidelity
+from charflow.config.resources import DEMO_CONFIG
+from charflow.execution import sweep
+from charflow.flow import characterize as flow
+from charflow.measurement import combinational as timing
+from charflow.simulation import netlist
+from charflow.tables.table import Axis, Table
+from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"

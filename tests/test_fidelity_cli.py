@@ -10,9 +10,9 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config
-from charflow.config import Fidelity
-from charflow.errors import ConfigError
+from charflow.config import library as config
+from charflow.config.library import Fidelity
+from charflow.records.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

@@ -9,7 +9,8 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, flow
+from charflow.config import library as config
+from charflow.flow import characterize as flow
 
 DATA = Path(__file__).parent / "data"
 RTOL = 1e-3  # two decks of identical devices; only the simulator's step choices differ
@@ -53,7 +54,7 @@ def test_wrapped_devices_time_like_their_m_card_twin(backend):
 def test_compatibility_mode_reaches_the_deck():
     cfg = config.load(DATA / "wrapped.toml")
     assert cfg.process.compat == "hs"
-    from charflow.netlist import build_deck
+    from charflow.simulation.netlist import build_deck
 
     deck = build_deck(cfg, cfg.cells[0])
     assert deck.compat == "hs"

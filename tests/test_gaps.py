@@ -21,13 +21,20 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import cli, config, faults, flow, gaps, sequential, sweep, timing
-from charflow.errors import ConfigError, MeasurementError
-from charflow.netlist import build_deck
-from charflow.sequential import SearchResult
-from charflow.store import FILE_NAME, Store, keyring
-from charflow.sweep import ConstraintPoint, Plan, PulsePoint, TimingPoint
-from charflow.timing import Failure, Measurement
+from charflow.cli import main as cli
+from charflow.config import library as config
+from charflow.execution import sweep
+from charflow.execution.store import FILE_NAME, Store, keyring
+from charflow.execution.sweep import ConstraintPoint, Plan, PulsePoint, TimingPoint
+from charflow.flow import characterize as flow
+from charflow.io import faults
+from charflow.measurement import combinational as timing
+from charflow.measurement import sequential
+from charflow.measurement.combinational import Failure, Measurement
+from charflow.measurement.sequential import SearchResult
+from charflow.records.errors import ConfigError, MeasurementError
+from charflow.simulation.netlist import build_deck
+from charflow.tables import gaps
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

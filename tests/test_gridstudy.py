@@ -20,12 +20,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from charflow import config, gridstudy, sweep
-from charflow.config import Fidelity
-from charflow.errors import ConfigError
-from charflow.gridstudy import Candidate, Study
-from charflow.tables import Axis, Table, interpolate
-from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
+from charflow.analysis import gridstudy
+from charflow.analysis.gridstudy import Candidate, Study
+from charflow.config import library as config
+from charflow.config.library import Fidelity
+from charflow.execution import sweep
+from charflow.records.errors import ConfigError
+from charflow.tables.table import Axis, Table, interpolate
+from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"

@@ -19,9 +19,9 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import diff
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
-from charflow.store import FILE_NAME
+from charflow.analysis import diff
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.execution.store import FILE_NAME
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

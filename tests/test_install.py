@@ -19,7 +19,8 @@ from pathlib import Path
 
 import pytest
 
-from charflow import __version__, config
+from charflow import __version__
+from charflow.config import library as config
 
 ROOT = Path(__file__).resolve().parents[1]
 SOURCES = ("pyproject.toml", "README.md", "charflow")  # what the wheel is built from

@@ -13,9 +13,11 @@ from pathlib import Path
 import jinja2
 import pytest
 
-from charflow import config, netlist, power
-from charflow.errors import SimulatorError
-from charflow.resources import DEMO_CONFIG
+from charflow.config import library as config
+from charflow.config.resources import DEMO_CONFIG
+from charflow.measurement import power
+from charflow.records.errors import SimulatorError
+from charflow.simulation import netlist
 
 DATA = Path(__file__).resolve().parent / "data"
 LOWLEAK = DATA / "lowleak.toml"  # BSIM cards whose devices leak 0.03-0.5 pW per state

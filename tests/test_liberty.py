@@ -20,11 +20,13 @@ from liberty.boolean_functions import parse_boolean_function
 from liberty.parser import parse_liberty
 from liberty.types import Group
 
-from charflow import config, flow, power
-from charflow.config import LibraryConfig
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
-from charflow.tables import Table
-from charflow.tabulate import LOAD_AXIS, SLEW_AXIS
+from charflow.config import library as config
+from charflow.config.library import LibraryConfig
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.flow import characterize as flow
+from charflow.measurement import power
+from charflow.tables.table import Table
+from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

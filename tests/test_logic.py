@@ -17,8 +17,8 @@ from hypothesis import given
 from hypothesis import strategies as st
 from liberty.boolean_functions import parse_boolean_function
 
-from charflow.errors import FunctionSyntaxError
-from charflow.logic import (
+from charflow.records.errors import FunctionSyntaxError
+from charflow.records.logic import (
     And,
     Const,
     Expr,

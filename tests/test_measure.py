@@ -9,10 +9,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from charflow import stimulus
-from charflow.config import Thresholds
-from charflow.errors import MeasurementError
-from charflow.measure import (
+from charflow.config.library import Thresholds
+from charflow.measurement.waves import (
     crossings,
     crossings_loop,
     integral,
@@ -20,6 +18,8 @@ from charflow.measure import (
     supply_energy,
     transition,
 )
+from charflow.records.errors import MeasurementError
+from charflow.simulation import stimulus
 
 # The twins do the same floating-point operations in the same order: equal to the last bit.
 TWIN_RTOL = 0.0

@@ -18,10 +18,18 @@ from pathlib import Path
 
 import pytest
 
-from charflow import check, cli, config, estimate, flow, plausible, power, sweep, timing
-from charflow.errors import ConfigError, CutOffError
-from charflow.sweep import ConstraintPoint, PulsePoint, TimingPoint
-from charflow.timing import Failure
+from charflow.analysis import estimate
+from charflow.cli import main as cli
+from charflow.config import library as config
+from charflow.execution import sweep
+from charflow.execution.sweep import ConstraintPoint, PulsePoint, TimingPoint
+from charflow.flow import characterize as flow
+from charflow.flow import check
+from charflow.measurement import combinational as timing
+from charflow.measurement import power
+from charflow.measurement.combinational import Failure
+from charflow.records.errors import ConfigError, CutOffError
+from charflow.simulation import plausible
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

@@ -12,7 +12,7 @@ from pathlib import Path
 import jinja2
 import pytest
 
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 
 ROOT = Path(__file__).resolve().parents[1]
 MODELS = MODEL_DIR

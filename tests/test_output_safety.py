@@ -32,11 +32,15 @@ from pathlib import Path
 
 import pytest
 
-from charflow import cli, config, flow, netlist, sweep
-from charflow import store as store_module
-from charflow.errors import OutputError, StoreError
-from charflow.lock import LOCK_NAME, FolderLock, read_holder
-from charflow.store import FILE_NAME, Store, keyring
+from charflow.cli import main as cli
+from charflow.config import library as config
+from charflow.execution import store as store_module
+from charflow.execution import sweep
+from charflow.execution.lock import LOCK_NAME, FolderLock, read_holder
+from charflow.execution.store import FILE_NAME, Store, keyring
+from charflow.flow import characterize as flow
+from charflow.records.errors import OutputError, StoreError
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"

@@ -9,11 +9,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from charflow import config, flow, netlist, power, stimulus, sweep, timing
-from charflow.measure import integral, supply_energy
-from charflow.resources import DEMO_CONFIG, MODEL_DIR
-from charflow.simulate import Request
-from charflow.units import power_unit
+from charflow.config import library as config
+from charflow.config.resources import DEMO_CONFIG, MODEL_DIR
+from charflow.execution import sweep
+from charflow.flow import characterize as flow
+from charflow.measurement import combinational as timing
+from charflow.measurement import power
+from charflow.measurement.waves import integral, supply_energy
+from charflow.records.units import power_unit
+from charflow.simulation import netlist, stimulus
+from charflow.simulation.backends import Request
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

@@ -17,9 +17,12 @@ import jsonschema
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import __version__, config, flow, provenance
-from charflow.resources import LIBRARY_SCHEMA, MODEL_DIR, TEMPLATE_DIR
-from charflow.store import FILE_NAME, Store
+from charflow import __version__
+from charflow.config import library as config
+from charflow.config.resources import LIBRARY_SCHEMA, MODEL_DIR, TEMPLATE_DIR
+from charflow.execution import provenance
+from charflow.execution.store import FILE_NAME, Store
+from charflow.flow import characterize as flow
 
 DATA = Path(__file__).parent / "data"
 MODEL = MODEL_DIR / "vellum90_l1.lib"

@@ -15,11 +15,15 @@ import numpy as np
 import pytest
 from liberty.parser import parse_liberty
 
-from charflow import config, flow, logic, resources, sequential
-from charflow.errors import FunctionalMismatchError
-from charflow.netlist import build_deck, render_cell
-from charflow.sweep import ConstraintPoint, PulsePoint
-from charflow.tabulate import tabulate
+from charflow.config import library as config
+from charflow.config import resources
+from charflow.execution.sweep import ConstraintPoint, PulsePoint
+from charflow.flow import characterize as flow
+from charflow.measurement import sequential
+from charflow.records import logic
+from charflow.records.errors import FunctionalMismatchError
+from charflow.simulation.netlist import build_deck, render_cell
+from charflow.tables.tabulate import tabulate
 
 DATA = Path(__file__).parent / "data"
 RTOL_READBACK = 1e-6  # 7 significant digits in the Liberty file

@@ -10,8 +10,14 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, flow, netlist, simulate, stepsize, sweep, timing
-from charflow.errors import SimulatorError
+from charflow.config import library as config
+from charflow.execution import sweep
+from charflow.flow import characterize as flow
+from charflow.measurement import combinational as timing
+from charflow.measurement import stepsize
+from charflow.records.errors import SimulatorError
+from charflow.simulation import backends as simulate
+from charflow.simulation import netlist
 
 DATA = Path(__file__).parent / "data"
 SMALL_L1 = DATA / "small_l1.toml"

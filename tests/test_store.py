@@ -14,12 +14,15 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, netlist, sweep, timing
-from charflow.errors import StoreError
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
-from charflow.store import FILE_NAME, Store, keyring
-from charflow.sweep import TimingPoint
-from charflow.timing import Measurement
+from charflow.config import library as config
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.execution import sweep
+from charflow.execution.store import FILE_NAME, Store, keyring
+from charflow.execution.sweep import TimingPoint
+from charflow.measurement import combinational as timing
+from charflow.measurement.combinational import Measurement
+from charflow.records.errors import StoreError
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

@@ -16,8 +16,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.interpolate import RegularGridInterpolator
 
-from charflow.errors import TableError
-from charflow.tables import Axis, Table, drop_axis, interpolate, interpolate_loop
+from charflow.records.errors import TableError
+from charflow.tables.table import Axis, Table, drop_axis, interpolate, interpolate_loop
 
 # Both kernels and scipy sum at most 8 weighted corner values; their rounding differs by a few
 # ulp of sum |weight * value|, so tolerances are relative to that (see _rounding_scale).

@@ -10,10 +10,14 @@ from pathlib import Path
 import pytest
 from scipy.optimize import brentq
 
-from charflow import config, flow, netlist, sweep, timing
-from charflow.errors import FunctionalMismatchError, MeasurementError
-from charflow.resources import MODEL_DIR, TEMPLATE_DIR
-from charflow.sweep import TimingPoint
+from charflow.config import library as config
+from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.execution import sweep
+from charflow.execution.sweep import TimingPoint
+from charflow.flow import characterize as flow
+from charflow.measurement import combinational as timing
+from charflow.records.errors import FunctionalMismatchError, MeasurementError
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

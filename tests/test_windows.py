@@ -12,8 +12,11 @@ from pathlib import Path
 
 import pytest
 
-from charflow import config, netlist, power, sequential, sweep
-from charflow.errors import MeasurementError
+from charflow.config import library as config
+from charflow.execution import sweep
+from charflow.measurement import power, sequential
+from charflow.records.errors import MeasurementError
+from charflow.simulation import netlist
 
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
 CELL = "QDFFR_P1"

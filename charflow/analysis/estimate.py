@@ -1,0 +1,285 @@
+"""A dry-run plan: how many simulations a config asks for, and about how long they will take.
+
+The points come from the sweep plan (every arc × sensitizing state × input edge × slew ×
+load; a flip-flop adds its setup, hold, recovery, removal and pulse-width searches; every cell
+its hidden-power toggles). What each costs, in simulations and in time, is measured here on a
+few sample points per cell, simulated and timed on one process, so that refinements of the
+step, retries and the length of a search are counted as the run will meet them:
+
+- combinational points: the probes of one series, which size its steps (``stepsize``) and
+  stand as the grid corners' results, then the smallest, middle and largest slew and load of
+  the cell's first arc;
+- a flip-flop's clock and control arcs: the first, middle and last of them;
+- searches: one of each kind (setup, hold, recovery, removal, pulse width), since a search's
+  runs are set by its bracket and tolerance, about log2(bracket / tolerance) trials and its
+  two bracket checks, alike for every search of a kind in a cell;
+- toggles: the first of the cell's.
+
+Each group of points is charged the mean of its samples. The simulations counted are those the
+run's summary counts; the runs outside the sweep (the functional check and the leakage of each
+input vector) are counted apart, from their loops. The samples cost a few simulations per cell
+(a few searches per flip-flop), never the sweep.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import Counter
+from dataclasses import dataclass, replace
+
+from charflow.config.library import CellSpec, LibraryConfig
+from charflow.execution import sweep
+from charflow.measurement import ffpower, power, stepsize
+from charflow.measurement.combinational import (
+    Failure,
+    backend_for,
+    explain,
+    measure_chunk,
+    measure_point,
+)
+from charflow.records.errors import CharflowError, MeasurementError
+from charflow.simulation import plausible
+from charflow.simulation.netlist import Deck, build_deck
+
+SAMPLES = 3  # sample points per group of many (combinational and clock points)
+
+
+@dataclass(frozen=True, slots=True)
+class ArcCount:
+    cell: str
+    related: str
+    output: str
+    states: int
+    points: int
+
+
+@dataclass(frozen=True, slots=True)
+class GroupCost:
+    """Points of a cell measured the same way, and what one of them costs."""
+
+    kind: str  # "timing points", "step probes", "clock and control arcs", "setup searches", ...
+    points: int
+    per_point: float  # s, mean over the samples
+    simulations: float  # per point, mean over the samples
+    samples: int  # points simulated to measure the two
+
+
+@dataclass(frozen=True, slots=True)
+class CellCost:
+    cell: str
+    groups: tuple[GroupCost, ...]
+    load: float  # s, the simulator reading the cell's testbench (once per worker)
+    outside: int  # simulations outside the sweep: the functional check and leakage
+
+    @property
+    def work(self) -> float:
+        """s of simulation on one worker."""
+        return sum(g.points * g.per_point for g in self.groups)
+
+    @property
+    def simulations(self) -> float:
+        """Simulations of the cell's sweep, as the run's summary counts them."""
+        return sum(g.points * g.simulations for g in self.groups)
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    arcs: tuple[ArcCount, ...]
+    cells: tuple[CellCost, ...]
+    jobs: int
+
+    @property
+    def points(self) -> int:
+        """Timing points of every arc."""
+        return sum(a.points for a in self.arcs)
+
+    @property
+    def samples(self) -> int:
+        """Points simulated to measure the costs."""
+        return sum(g.samples for c in self.cells for g in c.groups)
+
+    def _searches(self) -> list[GroupCost]:
+        return [g for c in self.cells for g in c.groups if g.kind.endswith("searches")]
+
+    @property
+    def searches(self) -> int:
+        return sum(g.points for g in self._searches())
+
+    @property
+    def search_simulations(self) -> float:
+        return sum(g.points * g.simulations for g in self._searches())
+
+    @property
+    def simulations(self) -> float:
+        """Simulations of the sweep: what the run's summary will count."""
+        return sum(c.simulations for c in self.cells)
+
+    @property
+    def outside(self) -> int:
+        return sum(c.outside for c in self.cells)
+
+    @property
+    def seconds(self) -> float:
+        """Estimated wall time of the sweep on ``jobs`` workers."""
+        # Any worker may read any cell's testbench, once.
+        return sum(c.work for c in self.cells) / self.jobs + sum(c.load for c in self.cells)
+
+
+def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
+    """Count the points of the chosen cells and measure a few of each."""
+    plan = sweep.plan(config, cells)
+    plausible.announce(config, {a.cell for a in plan.arcs})
+    timing = [p for p in plan.points if isinstance(p, sweep.TimingPoint)]
+    per_arc = Counter((p.cell, p.related, p.output) for p in timing)
+    arcs = tuple(
+        ArcCount(a.cell, a.related, a.output, len(a.states), per_arc[(a.cell, a.related, a.output)])
+        for a in plan.arcs
+    )
+    costs = []
+    for name in dict.fromkeys(a.cell for a in plan.arcs):
+        cell = config.cell(name)
+        deck = build_deck(config, cell)
+        start = time.perf_counter()
+        if config.simulation.backend == "shared":
+            backend_for(config).load(deck)
+        load = time.perf_counter() - start
+        points = plan.for_cell(name)
+        if cell.flop is not None:
+            groups = _flop_groups(config, deck, points)
+        else:
+            groups = _combinational_groups(config, deck, points)
+        toggles = power.plan_toggles(config, [name])
+        if toggles:
+            groups += (_sampled(config, deck, "hidden-power toggles", toggles, 1),)
+        costs.append(CellCost(name, groups, load, _outside(cell)))
+    return Estimate(arcs, tuple(costs), jobs)
+
+
+def _measured(config: LibraryConfig, deck: Deck, points) -> list:
+    """Measure sample points; a sample that fails stops the plan, naming the point: the run
+    would fail there too."""
+    outcomes = measure_chunk(config, deck, points)
+    for o in outcomes:
+        if isinstance(o, Failure):
+            raise MeasurementError(o.reason, **o.point.where(config))
+    return outcomes
+
+
+def _sampled(config: LibraryConfig, deck: Deck, kind: str, group, count: int) -> GroupCost:
+    """A group's cost from ``count`` samples spread over it (the first, ..., the last)."""
+    count = min(count, len(group))
+    picks = [group[i * (len(group) - 1) // max(1, count - 1)] for i in range(count)]
+    start = time.perf_counter()
+    outcomes = _measured(config, deck, picks)
+    seconds = (time.perf_counter() - start) / len(picks)
+    runs = sum(o.runs for o in outcomes) / len(outcomes)
+    return GroupCost(kind, len(group), seconds, runs, len(picks))
+
+
+def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, ...]:
+    """The step probes of one series (each series runs its own, on the grid's corners), and
+    a few points measured with the step the probes give."""
+    first = points[0]
+    series = len({replace(p, slew=0.0, load=0.0) for p in points})
+    start = time.perf_counter()
+    stepsize.first_step(config, deck, first)  # a probe that fails leaves the plain step
+    per_series = time.perf_counter() - start
+    grid = config.cell(first.cell).grid
+    corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
+    corners.add((grid.slew[-1], grid.load[0]))
+    probes = [stepsize.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners]
+    probes = [m for m in probes if m is not None]  # none when a probe failed
+    picks = [
+        replace(
+            first,
+            slew=grid.slew[i * (len(grid.slew) - 1) // (SAMPLES - 1)],
+            load=grid.load[i * (len(grid.load) - 1) // (SAMPLES - 1)],
+        )
+        for i in range(SAMPLES)
+    ]
+    start = time.perf_counter()
+    runs = 0
+    for p in picks:
+        try:
+            # With its step given, a grid corner is simulated too, not taken from its probe.
+            runs += measure_point(config, deck, p, step=stepsize.first_step(config, deck, p)).runs
+        except CharflowError as exc:
+            raise explain(config, p, exc) from exc
+    per_point = (time.perf_counter() - start) / len(picks)
+    probed = series * len(probes)
+    samples = GroupCost(
+        "timing points", len(points) - probed, per_point, runs / len(picks), len(picks)
+    )
+    if not probes:
+        return (samples,)
+    per_probe = sum(m.runs for m in probes) / len(probes)
+    cost = GroupCost("step probes", probed, per_series / len(probes), per_probe, len(probes))
+    return (samples, cost)
+
+
+_SEARCHES = ("setup", "hold", "recovery", "removal")
+CLOCKED = "clock and control arcs"
+
+
+def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, ...]:
+    """A flip-flop's points by how they are measured: clock and control arcs from a few
+    samples, each kind of search from one."""
+    clocked = [p for p in points if isinstance(p, sweep.TimingPoint)]
+    groups = [_sampled(config, deck, CLOCKED, clocked, SAMPLES)] if clocked else []
+    for kind in _SEARCHES:
+        group = [p for p in points if isinstance(p, sweep.ConstraintPoint) and p.kind == kind]
+        if group:
+            groups.append(_sampled(config, deck, f"{kind} searches", group, 1))
+    pulses = [p for p in points if isinstance(p, sweep.PulsePoint)]
+    if pulses:
+        groups.append(_sampled(config, deck, "pulse-width searches", pulses, 1))
+    return tuple(groups)
+
+
+def _outside(cell: CellSpec) -> int:
+    """Simulations outside the sweep, counted from their loops: the functional check (a DC
+    solution per input vector; for a flip-flop each data vector clocked in from either stored
+    value, per output) and the leakage (per input vector; a flip-flop's per stored value)."""
+    if cell.flop is None:
+        return 2 * 2 ** len(cell.inputs)
+    check = 2 ** len(cell.data_inputs) * 2 * len(cell.outputs)
+    return check + len(ffpower.vectors(cell))
+
+
+def render(est: Estimate) -> str:
+    lines = ["cell            arc            states  points"]
+    for a in est.arcs:
+        lines.append(f"{a.cell:<15} {a.related + '->' + a.output:<14} {a.states:6d}  {a.points:6d}")
+    lines.append("")
+    lines.append("cell / group                 points  per point   simulations each")
+    for c in est.cells:
+        lines.append(f"{c.cell:<28} testbench read {_duration(c.load)}")
+        for g in c.groups:
+            lines.append(
+                f"  {g.kind:<26} {g.points:5d}  {_duration(g.per_point):>9}   {g.simulations:.1f}"
+            )
+    lines.append("")
+    searches = ""
+    if est.searches:
+        searches = (
+            f", {est.search_simulations:,.0f} of them in {est.searches} searches "
+            f"({est.search_simulations / est.searches:.0f} each)"
+        )
+    lines.append(
+        f"about {est.simulations:,.0f} simulations in the sweep (refinements, retries and every "
+        f"search trial included, as the run's summary counts them){searches}, and "
+        f"{est.outside:,} outside it (functional check, leakage); the sweep takes about "
+        f"{_duration(est.seconds)} on {est.jobs} worker{'s' * (est.jobs > 1)} (start-up and "
+        f"the functional check come on top); measured on {est.samples} sample points"
+    )
+    return "\n".join(lines)
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 1:
+        return f"{seconds * 1e3:.1f} ms"
+    if seconds < 120:
+        return f"{seconds:.1f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.1f} min"
+    return f"{seconds / 3600:.1f} h"

@@ -1,0 +1,355 @@
+"""HTML and PNG output: the fidelity report's heat maps and the grid study's error curves.
+
+The HTML is one self-contained file: PNGs are embedded as base64 and the summary table sorts
+with a few lines of inline JavaScript, so the report can be mailed or archived as it is.
+Values are shown in the library's units.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import math
+from collections.abc import Sequence
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import Normalize
+from matplotlib.figure import Figure
+from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
+
+from charflow import __version__
+from charflow.analysis.fidelity import (
+    CENTRE,
+    FidelityReport,
+    TableCheck,
+    axis_unit,
+    severity,
+    where,
+)
+from charflow.config.library import LibraryConfig
+
+CMAP = "YlOrRd"
+LOG_RATIO = 20.0  # an axis spanning more than this ratio is drawn on a log scale
+ANNOTATE_CELLS = 10  # per axis; beyond it the numbers would crowd the map
+DPI = 100
+PARALLEL_MAPS = 16  # fewer maps are drawn faster than workers can import matplotlib
+TICK_GAP = 0.13  # decades of table points between labelled sizes
+PERCENT_TICKS = (0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
+
+
+def _figure(width: float, height: float) -> Figure:
+    """A figure on the Agg canvas, without pyplot: no display, no global figure registry."""
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _png(fig: Figure) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
+def _img(png: bytes, alt: str) -> str:
+    data = base64.b64encode(png).decode("ascii")
+    return f'<img alt="{html.escape(alt)}" src="data:image/png;base64,{data}">'
+
+
+def _log_scale(values: np.ndarray) -> bool:
+    return values[0] > 0 and values[-1] / values[0] > LOG_RATIO
+
+
+def _between(grid: np.ndarray, i: int, fraction: float) -> float:
+    """A point ``fraction`` of the way across cell ``i`` as drawn (log or linear)."""
+    lo, hi = grid[i], grid[i + 1]
+    if _log_scale(grid):
+        return float(lo * (hi / lo) ** fraction)
+    return float(lo + (hi - lo) * fraction)
+
+
+def cell_maxima(check: TableCheck) -> np.ndarray:
+    """Per grid cell of a table's slew × load plane, the largest relative error of the probes
+    inside it (NaN where none simulated); a 3D table's probes at every other load count."""
+    x, y = (np.asarray(a.values) for a in check.table.axes[:2])
+    out = np.full((max(x.size - 1, 1), max(y.size - 1, 1)), np.nan)
+    for p in check.points:
+        i = min(max(int(np.searchsorted(x, p.coords[0], side="right")) - 1, 0), out.shape[0] - 1)
+        j = min(max(int(np.searchsorted(y, p.coords[1], side="right")) - 1, 0), out.shape[1] - 1)
+        out[i, j] = p.rel_error if math.isnan(out[i, j]) else max(out[i, j], p.rel_error)
+    return out
+
+
+def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes:
+    """The error of a 2D table over its slew × load plane: each grid cell coloured by the worst
+    probe inside it, the probes and the grid points marked. ``vmax`` (a fraction) is shared by
+    every map of a report so that colours compare across tables. A 3D table is drawn over its
+    first two axes, each cell coloured by its worst probe at any load of the other output."""
+    xa, ya = check.table.axes[:2]
+    (xl, xs, xu), (yl, ys, yu) = axis_unit(config, xa.name), axis_unit(config, ya.name)
+    x, y = np.asarray(xa.values) / xs, np.asarray(ya.values) / ys
+    cells = cell_maxima(check) * 100
+    norm = Normalize(0.0, max(vmax * 100, 1e-9))
+    # Fixed margins: a layout engine would draw every figure twice.
+    fig = _figure(4.8, 3.7)
+    ax = fig.add_axes((0.14, 0.12, 0.62, 0.74))
+    cax = fig.add_axes((0.79, 0.12, 0.03, 0.74))
+    mesh = ax.pcolormesh(x, y, cells.T, cmap=CMAP, norm=norm, shading="flat")
+    if len(x) - 1 <= ANNOTATE_CELLS and len(y) - 1 <= ANNOTATE_CELLS:
+        for i in range(len(x) - 1):
+            for j in range(len(y) - 1):
+                if not math.isnan(cells[i, j]):
+                    cx = _between(x, i, 0.5)
+                    cy = _between(y, j, 0.25)  # below the centre probe's marker
+                    dark = norm(cells[i, j]) > 0.6
+                    ax.text(
+                        cx,
+                        cy,
+                        f"{cells[i, j]:.2g}",
+                        ha="center",
+                        va="center",
+                        fontsize=6.5,
+                        color="white" if dark else "black",
+                    )
+    for kind, marker in ((CENTRE, "o"), ("random", "^")):
+        pts = [p for p in check.points if p.kind == kind]
+        if pts:
+            ax.scatter(
+                [p.coords[0] / xs for p in pts],
+                [p.coords[1] / ys for p in pts],
+                c=[p.rel_error * 100 for p in pts],
+                cmap=CMAP,
+                norm=norm,
+                marker=marker,
+                s=9,
+                linewidths=0.4,
+                edgecolors="0.25",
+                zorder=3,
+            )
+    gx, gy = np.meshgrid(x, y, indexing="ij")
+    ax.plot(gx.ravel(), gy.ravel(), "k+", markersize=6, markeredgewidth=1.1, zorder=4)
+    for fails in check.failures:
+        ax.plot(fails[0][0] / xs, fails[0][1] / ys, "bx", markersize=6, zorder=5)
+    if _log_scale(x):
+        ax.set_xscale("log")
+    if _log_scale(y):
+        ax.set_yscale("log")
+    ax.set_xlabel(f"{xl} ({xu})")
+    ax.set_ylabel(f"{yl} ({yu})")
+    st = check.stats
+    stats = "no probe simulated" if st is None else f"max {st.max_rel * 100:.3g} %"
+    if check.table.ndim == 3:
+        stats += ", worst over the other output's load"
+    ax.set_title(f"{check.label}\n{stats}", fontsize=8.5)
+    ax.tick_params(labelsize=7)
+    bar = fig.colorbar(mesh, cax=cax)
+    bar.set_label("relative error, % (cell: its worst probe)", fontsize=7)
+    bar.ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+_STYLE = """
+body { font-family: system-ui, sans-serif; margin: 1.5em; color: #222; }
+h1 { font-size: 1.4em; } h2 { font-size: 1.15em; margin-top: 1.6em; }
+table.summary { border-collapse: collapse; font-size: 0.85em; }
+table.summary th, table.summary td { border: 1px solid #ccc; padding: 0.2em 0.5em; }
+table.summary th { background: #eee; cursor: pointer; user-select: none; }
+table.summary td.n { text-align: right; font-variant-numeric: tabular-nums; }
+.maps { display: flex; flex-wrap: wrap; gap: 0.6em; }
+.maps figure { margin: 0; } .maps figcaption { font-size: 0.75em; color: #555; }
+.note { color: #555; font-size: 0.9em; max-width: 60em; }
+"""
+
+# Click a header to sort by it; a second click reverses. Numbers sort by the data-v attribute.
+_SORT = """
+document.querySelectorAll("table.summary th").forEach((th, col) => {
+  th.addEventListener("click", () => {
+    const body = th.closest("table").tBodies[0];
+    const up = th.dataset.dir !== "up";
+    th.dataset.dir = up ? "up" : "down";
+    const key = (row) => {
+      const cell = row.cells[col];
+      return cell.dataset.v !== undefined ? parseFloat(cell.dataset.v) : cell.textContent;
+    };
+    const rows = Array.from(body.rows).sort((a, b) => {
+      const x = key(a), y = key(b);
+      const order = typeof x === "number" ? x - y : String(x).localeCompare(String(y));
+      return up ? order : -order;
+    });
+    rows.forEach((row) => body.appendChild(row));
+  });
+});
+"""
+
+
+def _num(value: float | None, text: str) -> str:
+    """A number cell; an error that could not be measured sorts with the worst."""
+    if value is None:
+        return '<td class="n" data-v="Infinity">-</td>'
+    return f'<td class="n" data-v="{value:.6g}">{text}</td>'
+
+
+def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
+    st = c.stats
+    t, tu = config.time_scale, config.time_unit
+    cells = [
+        f'<td><a href="#t{n}">{html.escape(c.cell)}</a></td>',
+        f"<td>{html.escape(c.arc)}</td>",
+        f"<td>{html.escape(c.state)}</td>",
+        f"<td>{html.escape(c.table.quantity)}</td>",
+        _num(len(c.points), str(len(c.points))),
+        _num(len(c.failures), str(len(c.failures))),
+    ]
+    if st is None:
+        cells += [_num(None, "")] * 4 + ["<td>-</td>"]
+    else:
+        cells += [
+            _num(st.max_rel, f"{st.max_rel * 100:.3g} %"),
+            _num(st.rms_rel, f"{st.rms_rel * 100:.3g} %"),
+            _num(st.p95_rel, f"{st.p95_rel * 100:.3g} %"),
+            _num(st.max_abs, f"{st.max_abs / t:.4g} {tu}"),
+            f"<td>{html.escape(where(config, c.table.axes, c.worst_point.coords))}</td>",
+        ]
+    return "<tr>" + "".join(cells) + "</tr>"
+
+
+def heat_maps(
+    config: LibraryConfig, checks: Sequence[TableCheck], vmax: float, jobs: int | None = None
+) -> list[bytes]:
+    """One map per table; each takes ~0.1 s, so a report of dozens is drawn in parallel."""
+    from joblib import Parallel, delayed
+
+    from charflow.execution.sweep import default_jobs
+
+    jobs = jobs or default_jobs()
+    if jobs == 1 or len(checks) < PARALLEL_MAPS:
+        return [heat_map_png(config, c, vmax) for c in checks]
+    return Parallel(n_jobs=min(jobs, len(checks)))(
+        delayed(heat_map_png)(config, c, vmax) for c in checks
+    )
+
+
+def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | None = None) -> str:
+    """The fidelity report: settings, a sortable summary of every table, one heat map each."""
+    s = report.settings
+    errors = report.max_rel_errors()
+    vmax = float(errors.max()) if errors.size else 0.0
+    head = (
+        "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
+        "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
+        "<th>worst at</th></tr>"
+    )
+    checks = report.checks
+    ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
+    rows = "\n".join(_summary_row(config, n, checks[n]) for n in ranked)
+    planar = [n for n, c in enumerate(checks) if c.table.ndim in (2, 3)]
+    drawn = heat_maps(config, [checks[n] for n in planar], vmax, jobs)
+    maps = dict(zip(planar, drawn, strict=True))
+    figures = []
+    for n, c in enumerate(checks):
+        if n in maps:
+            body = _img(maps[n], c.label)
+        else:
+            body = f"<p>no map: the table has {c.table.ndim} axes</p>"
+        caption = f"{len(c.points)} probes, {len(c.failures)} failed"
+        figures.append(
+            f'<figure id="t{n}">{body}<figcaption>{html.escape(caption)}</figcaption></figure>'
+        )
+    spread = (
+        f"Largest relative error per table: worst {errors.max() * 100:.3g} %, median "
+        f"{np.median(errors) * 100:.3g} %."
+        if errors.size
+        else "No probe simulated."
+    )
+    name = html.escape(config.name)
+    floor = html.escape(f"{s.rel_floor / config.time_scale:.4g} {config.time_unit}")
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<title>{name}: table fidelity</title>
+<style>{_STYLE}</style></head>
+<body>
+<h1>{name}: how closely the tables follow the simulator off their grid</h1>
+<p class="note">{len(report.checks)} tables; {report.points} points simulated
+({report.simulations} simulator runs, {report.failures} failed) in {report.wall_seconds:.1f} s.
+Each table is checked at every cell centre of its grid and at {s.random_points} Latin-hypercube
+points (seed {s.seed}) spread evenly over its cells. Relative error =
+|interpolated &minus; simulated| / max(|simulated|, {floor}). {spread}</p>
+<h2>Summary (click a column to sort)</h2>
+<table class="summary"><thead>{head}</thead><tbody>
+{rows}
+</tbody></table>
+<h2>Error maps</h2>
+<p class="note">+ grid point; &#9679; cell centre; &#9650; random point; &times; failed probe.
+Colour: relative error in %, one scale for every map (0 to {vmax * 100:.3g} %).</p>
+<div class="maps">
+{chr(10).join(figures)}
+</div>
+<p class="note">charflow {__version__}</p>
+<script>{_SORT}</script>
+</body></html>
+"""
+
+
+def _spread_ticks(sizes: Sequence[int]) -> list[int]:
+    """Sizes far enough apart on the log axis of table points for their labels not to touch."""
+    ticks: list[int] = []
+    for n in sorted(sizes):
+        if not ticks or math.log10(n * n) - math.log10(ticks[-1] ** 2) >= TICK_GAP:
+            ticks.append(n)
+    return ticks
+
+
+def study_png(
+    title: str,
+    curves: Sequence[tuple[str, Sequence[int], Sequence[float], Sequence[float]]],
+    targets: Sequence[float],
+    chosen: Sequence[tuple[int, float]] = (),
+) -> bytes:
+    """Max (solid) and RMS (dashed) relative error against table points, one colour per
+    placement; ``curves`` holds (placement, points per axis, max errors, rms errors) and
+    ``chosen`` the (points per axis, max error) of each target's recommended grid."""
+    fig = _figure(6.4, 4.2)
+    ax = fig.subplots()
+    sizes: set[int] = set()
+    for k, (placement, n, max_err, rms_err) in enumerate(curves):
+        points = [m**2 for m in n]
+        sizes.update(n)
+        ax.plot(points, np.asarray(max_err) * 100, "o-", color=f"C{k}", label=f"{placement}, max")
+        ax.plot(
+            points,
+            np.asarray(rms_err) * 100,
+            "s--",
+            color=f"C{k}",
+            ms=3.5,
+            alpha=0.8,
+            label=f"{placement}, rms",
+        )
+    for n, err in chosen:
+        ax.plot(n * n, err * 100, "*", color="black", ms=13, mfc="none", zorder=5)
+    for target in targets:
+        ax.axhline(target * 100, color="0.4", linewidth=0.8, linestyle=":")
+        ax.annotate(
+            f"target {target * 100:g} %",
+            (1.0, target * 100),
+            xycoords=("axes fraction", "data"),
+            ha="right",
+            va="bottom",
+            fontsize=7,
+            color="0.3",
+        )
+    ax.set_yscale("log")
+    ax.set_xscale("log")
+    ticks = _spread_ticks(sorted(sizes))
+    ax.set_xticks([m**2 for m in ticks], [f"{m}×{m}" for m in ticks], fontsize=7)
+    ax.xaxis.set_minor_locator(NullLocator())
+    ax.yaxis.set_major_locator(FixedLocator(PERCENT_TICKS))
+    ax.yaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.yaxis.set_minor_locator(NullLocator())
+    ax.tick_params(axis="y", labelsize=7)
+    ax.set_xlabel("table points (points per axis squared)")
+    ax.set_ylabel("relative error against the reference, %")
+    ax.set_title(title + ("\n☆ recommended grid" if chosen else ""), fontsize=9)
+    ax.grid(True, which="major", alpha=0.3)
+    ax.legend(fontsize=7, ncol=3, loc="lower left")
+    return _png(fig)

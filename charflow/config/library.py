@@ -1,0 +1,881 @@
+"""Reading and validating charflow's TOML configuration into typed, frozen records.
+
+Every value the rest of charflow sees is in SI units; the config's library units
+(``time_unit``, ``cap_unit``) are applied here and in the writers only. Problems are
+collected, not stopped at: one ConfigError lists every one found, each naming the file,
+the key and the cell.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from charflow.records import logic
+from charflow.records.errors import ConfigError, ConfigProblemsError, FunctionSyntaxError
+from charflow.records.units import CAP_UNITS, TIME_UNITS, cap_scale, time_scale, unit_name
+
+
+@dataclass(frozen=True, slots=True)
+class Thresholds:
+    """Measurement thresholds as fractions of the supply (the config gives percent)."""
+
+    input_rise: float = 0.5
+    input_fall: float = 0.5
+    output_rise: float = 0.5
+    output_fall: float = 0.5
+    slew_lower_rise: float = 0.2
+    slew_upper_rise: float = 0.8
+    slew_lower_fall: float = 0.2
+    slew_upper_fall: float = 0.8
+    slew_derate: float = 1.0
+
+    def delay_input(self, edge: str) -> float:
+        return self.input_rise if edge == "rise" else self.input_fall
+
+    def delay_output(self, edge: str) -> float:
+        return self.output_rise if edge == "rise" else self.output_fall
+
+    def slew_band(self, edge: str) -> tuple[float, float]:
+        """(lower, upper) slew thresholds for an edge, as fractions of the supply."""
+        if edge == "rise":
+            return self.slew_lower_rise, self.slew_upper_rise
+        return self.slew_lower_fall, self.slew_upper_fall
+
+
+@dataclass(frozen=True, slots=True)
+class ModelFile:
+    path: Path
+    section: str | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Process:
+    models: tuple[ModelFile, ...]
+    vdd: float  # V
+    temperature: float  # degrees C
+    options: tuple[tuple[str, str], ...] = ()
+    compat: str | None = None  # ngspice's ngbehavior, e.g. "hs" for foundry decks
+    scale: float | None = None  # .option scale
+
+
+@dataclass(frozen=True, slots=True)
+class Grid:
+    slew: tuple[float, ...]  # s
+    load: tuple[float, ...]  # F
+    related_load: tuple[float, ...] = ()  # F, the other output's load of a two-output cell
+    constraint_slew: tuple[float, ...] = ()  # s, setup/hold indexes (default: slew)
+
+
+@dataclass(frozen=True, slots=True)
+class OutputSpec:
+    pin: str
+    function: logic.Expr
+
+
+@dataclass(frozen=True, slots=True)
+class FlopSpec:
+    """An edge-triggered storage element; outputs are functions of ``state``."""
+
+    clock: str
+    edge: str  # "rise" or "fall": the active clock edge
+    next_state: logic.Expr
+    clear: logic.Expr | None = None  # asynchronous clear, active when true
+    preset: logic.Expr | None = None
+    state: tuple[str, str] = ("IQ", "IQN")  # the stored value and its complement
+
+    @property
+    def clocked_on(self) -> str:
+        return self.clock if self.edge == "rise" else f"!{self.clock}"
+
+
+@dataclass(frozen=True, slots=True)
+class BodyPin:
+    """A cell's body (well) pin: tied to the supply of its kind (an n-well to the cell's power,
+    a p-well to its ground) or, with ``voltage``, held at its own voltage (body bias)."""
+
+    pin: str
+    kind: str  # "nwell" or "pwell": Liberty's pg_type of the pin
+    voltage: float | None = None  # V; None: tied to the cell's power (nwell) or ground (pwell)
+
+
+BODY_KINDS = ("nwell", "pwell")
+
+
+@dataclass(frozen=True, slots=True)
+class CellSpec:
+    name: str
+    inputs: tuple[str, ...]
+    outputs: tuple[OutputSpec, ...]
+    grid: Grid
+    template: Path | None = None
+    netlist: Path | None = None
+    params: tuple[tuple[str, Any], ...] = ()
+    power: str = "VDD"
+    ground: str = "VSS"
+    area: float = 0.0
+    flop: FlopSpec | None = None
+    other_output_axis: bool = False  # tables get the other output's load as a third index
+    body: tuple[BodyPin, ...] = ()  # body pins, n-well before p-well
+
+    @property
+    def supply_pins(self) -> tuple[str, ...]:
+        """The power and ground pins and the body pins."""
+        return (self.power, self.ground, *(b.pin for b in self.body))
+
+    @property
+    def data_inputs(self) -> tuple[str, ...]:
+        """Inputs that are neither the clock nor an asynchronous control."""
+        if self.flop is None:
+            return self.inputs
+        controls = {self.flop.clock}
+        for expr in (self.flop.clear, self.flop.preset):
+            if expr is not None:
+                controls |= expr.variables()
+        return tuple(p for p in self.inputs if p not in controls)
+
+    @property
+    def source(self) -> Path:
+        """The file the cell's ``.subckt`` comes from."""
+        return self.template if self.template is not None else self.netlist  # type: ignore[return-value]
+
+
+@dataclass(frozen=True, slots=True)
+class Simulation:
+    """How charflow drives the simulator; charflow's own settings, not the library's."""
+
+    backend: str = "shared"  # "shared" (in-process libngspice) or "subprocess"
+    timeout: float = 60.0  # s of wall time per simulation
+    window: float | None = None  # s the transient may run past the input ramp (a cap)
+    samples_per_edge: int = 20  # minimum samples across the output transition
+    settle: float = 0.01  # fraction of vdd the output must come within of its final rail
+    pushout: float = 0.1  # setup/hold pass: clock-to-output at most this much over relaxed
+    bisect_tolerance: float = 1e-12  # s, width of the final bracket of a constraint search
+
+
+@dataclass(frozen=True, slots=True)
+class Fidelity:
+    """How the tables are checked against re-simulation off their grid (``[fidelity]``)."""
+
+    random_points: int = 16  # Latin-hypercube points per table, besides every cell centre
+    seed: int = 1
+    rel_floor: float = 1e-12  # s; relative errors divide by max(|simulated|, rel_floor)
+
+
+# How the default Liberty file reduces a two-output cell's tables to the two axes every
+# consumer reads: the largest or smallest value over the other output's loads, point by point.
+OTHER_LOAD_RULES = ("largest", "smallest")
+
+
+@dataclass(frozen=True, slots=True)
+class LibertyOptions:
+    """What the Liberty writer states beyond the tables (``[liberty]``)."""
+
+    # A rule of OTHER_LOAD_RULES, or a load (F) of the other output the tables are read at.
+    other_load: str | float = "largest"
+    # max_capacitance and max_transition: this factor times the characterized range.
+    load_limit_factor: float = 1.0
+    slew_limit_factor: float = 1.0
+
+
+@dataclass(frozen=True, slots=True)
+class Corner:
+    """One operating corner: the model section it reads, its supply and temperature."""
+
+    name: str
+    section: str | None  # replaces the section of every model file read by section
+    vdd: float  # V
+    temperature: float  # degrees C
+
+
+@dataclass(frozen=True, slots=True)
+class LibraryConfig:
+    path: Path
+    name: str
+    time_unit: str
+    cap_unit: str
+    process: Process
+    thresholds: Thresholds
+    grid: Grid
+    cells: tuple[CellSpec, ...]
+    simulation: Simulation = field(default_factory=Simulation)
+    fidelity: Fidelity = field(default_factory=Fidelity)
+    corners: tuple[Corner, ...] = ()
+    liberty: LibertyOptions = field(default_factory=LibertyOptions)
+    corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
+    digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
+
+    @property
+    def corner_name(self) -> str:
+        """The corner's name: the ``[[corner]]`` this library is at, else the model sections
+        read (e.g. ``tt``), else the library's name."""
+        if self.corner is not None:
+            return self.corner.name
+        sections = dict.fromkeys(m.section for m in self.process.models if m.section)
+        return "_".join(sections) or self.name
+
+    def at(self, corner: Corner) -> LibraryConfig:
+        """The library at one corner, named ``<name>_<corner>``, with no corners of its own."""
+        models = tuple(
+            replace(m, section=corner.section) if m.section and corner.section else m
+            for m in self.process.models
+        )
+        process = replace(
+            self.process, models=models, vdd=corner.vdd, temperature=corner.temperature
+        )
+        name = f"{self.name}_{corner.name}"
+        return replace(self, name=name, process=process, corners=(), corner=corner)
+
+    def libraries(self) -> tuple[LibraryConfig, ...]:
+        """One library per corner; the library itself when the config lists no corners."""
+        return tuple(self.at(c) for c in self.corners) or (self,)
+
+    @property
+    def time_scale(self) -> float:
+        return time_scale(self.time_unit)
+
+    @property
+    def cap_scale(self) -> float:
+        return cap_scale(self.cap_unit)
+
+    def cell(self, name: str) -> CellSpec:
+        for cell in self.cells:
+            if cell.name == name:
+                return cell
+        raise ConfigError(
+            f"no cell named {name!r}; the config has {', '.join(c.name for c in self.cells)}",
+            file=self.path,
+            cell=name,
+        )
+
+
+_MISSING = object()
+
+
+class _Reader:
+    """Walks the TOML document, collecting every problem with its file, key and cell."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self.problems: list[ConfigError] = []
+
+    def problem(self, key: str, message: str, cell: str | None = None) -> None:
+        self.problems.append(ConfigError(message, file=self.path, key=key, cell=cell))
+
+    def section(
+        self, table: dict, key: str, allowed: set[str], *, required: bool, cell: str | None = None
+    ) -> dict:
+        value = table.get(key, _MISSING)
+        if value is _MISSING:
+            if required:
+                self.problem(key, "missing section", cell)
+            return {}
+        if not isinstance(value, dict):
+            self.problem(key, f"must be a table, got {type(value).__name__}", cell)
+            return {}
+        self.unknown(value, allowed, key, cell)
+        return value
+
+    def unknown(self, table: dict, allowed: set[str], prefix: str, cell: str | None) -> None:
+        for k in sorted(set(table) - allowed):
+            self.problem(
+                f"{prefix}.{k}" if prefix else k,
+                f"unknown key; allowed: {', '.join(sorted(allowed))}",
+                cell,
+            )
+
+    def get(
+        self,
+        table: dict,
+        key: str,
+        kind: type | tuple[type, ...],
+        prefix: str,
+        default: Any = _MISSING,
+        cell: str | None = None,
+    ) -> Any:
+        full = f"{prefix}.{key}" if prefix else key
+        value = table.get(key, _MISSING)
+        if value is _MISSING:
+            if default is _MISSING:
+                self.problem(full, "missing key", cell)
+                return None
+            return default
+        kinds = kind if isinstance(kind, tuple) else (kind,)
+        # TOML integers are fine where a float is wanted; booleans are not numbers here.
+        if float in kinds and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if not isinstance(value, kinds) or (isinstance(value, bool) and bool not in kinds):
+            names = " or ".join(k.__name__ for k in kinds)
+            self.problem(full, f"must be {names}, got {type(value).__name__} {value!r}", cell)
+            return None
+        return value
+
+    def number(
+        self,
+        table: dict,
+        key: str,
+        prefix: str,
+        default: Any = _MISSING,
+        cell: str | None = None,
+        low: float | None = None,
+        high: float | None = None,
+    ) -> float | None:
+        value = self.get(table, key, float, prefix, default, cell)
+        if value is None:
+            return None
+        full = f"{prefix}.{key}"
+        if not math.isfinite(value):
+            self.problem(full, f"must be finite, got {value}", cell)
+            return None
+        if low is not None and value <= low:
+            self.problem(full, f"must be greater than {low:g}, got {value:g}", cell)
+            return None
+        if high is not None and value > high:
+            self.problem(full, f"must be at most {high:g}, got {value:g}", cell)
+            return None
+        return value
+
+    def axis(
+        self,
+        table: dict,
+        key: str,
+        prefix: str,
+        scale: float,
+        cell: str | None,
+        *,
+        zero_ok: bool = False,
+    ) -> tuple[float, ...] | None:
+        full = f"{prefix}.{key}"
+        values = table.get(key)
+        if not isinstance(values, list) or not values:
+            self.problem(full, "must be a non-empty list of numbers", cell)
+            return None
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
+            self.problem(full, f"must hold numbers only, got {values!r}", cell)
+            return None
+        # A zero-duration ramp is no input slew; a zero load (an open output) is a real point.
+        least = "not negative" if zero_ok else "greater than 0"
+        for i, v in enumerate(values):
+            if not math.isfinite(v) or v < 0 or (v == 0 and not zero_ok):
+                self.problem(full, f"entry {i} must be finite and {least}, got {v!r}", cell)
+                return None
+        for i in range(1, len(values)):
+            if values[i] <= values[i - 1]:
+                self.problem(
+                    full,
+                    f"must be strictly increasing: entry {i} ({values[i]!r}) "
+                    f"follows {values[i - 1]!r}",
+                    cell,
+                )
+                return None
+        return tuple(float(v) * scale for v in values)
+
+
+_LIBRARY_KEYS = {"name", "time_unit", "cap_unit"}
+_PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
+_THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
+_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew"}
+_SIM_KEYS = set(Simulation.__dataclass_fields__)
+_FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
+_CELL_KEYS = {
+    "name",
+    "template",
+    "netlist",
+    "params",
+    "inputs",
+    "outputs",
+    "power",
+    "ground",
+    "area",
+    "grid",
+    "flop",
+    "other_output_axis",
+    *BODY_KINDS,
+}
+_FLOP_KEYS = {"clock", "edge", "next_state", "clear", "preset", "state"}
+_CORNER_KEYS = {"name", "section", "vdd", "temperature"}
+_LIBERTY_KEYS = set(LibertyOptions.__dataclass_fields__)
+_TOP_KEYS = {
+    "library",
+    "process",
+    "thresholds",
+    "grid",
+    "cell",
+    "simulation",
+    "fidelity",
+    "corner",
+    "liberty",
+}
+_PIN = r"[A-Za-z_][A-Za-z0-9_]*"
+
+
+def load(path: str | Path) -> LibraryConfig:
+    """Read and validate a config file; raise one ConfigError that lists every problem."""
+    path = Path(path).resolve()
+    try:
+        data = path.read_bytes()
+        doc = tomllib.loads(data.decode("utf-8"))
+    except FileNotFoundError as exc:
+        raise ConfigError("config file not found", file=path) from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"cannot read config: {exc}", file=path) from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML: {exc}", file=path) from exc
+    return replace(parse(doc, path), digest=hashlib.sha256(data).hexdigest())
+
+
+def parse(doc: dict, path: Path) -> LibraryConfig:
+    """Validate a parsed TOML document; ``path`` locates messages and relative paths."""
+    r = _Reader(path)
+    r.unknown(doc, _TOP_KEYS, "", None)
+    base = path.parent
+
+    lib = r.section(doc, "library", _LIBRARY_KEYS, required=True)
+    name = r.get(lib, "name", str, "library")
+    if name is not None and not _is_identifier(name):
+        r.problem("library.name", f"must be a name of letters, digits and _, got {name!r}")
+    time_unit = _unit(r, lib, "time_unit", "ns", TIME_UNITS)
+    cap_unit = _unit(r, lib, "cap_unit", "pf", CAP_UNITS)
+    tscale = time_scale(time_unit) if time_unit else 1.0
+    cscale = cap_scale(cap_unit) if cap_unit else 1.0
+
+    process = _process(r, r.section(doc, "process", _PROCESS_KEYS, required=True), base)
+    thresholds = _thresholds(r, r.section(doc, "thresholds", _THRESHOLD_KEYS, required=False))
+    grid_doc = r.section(doc, "grid", _GRID_KEYS, required=True)
+    slew = r.axis(grid_doc, "slew", "grid", tscale, None)
+    load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
+    related = (
+        r.axis(grid_doc, "related_load", "grid", cscale, None, zero_ok=True)
+        if "related_load" in grid_doc
+        else ()
+    )
+    constraint = (
+        r.axis(grid_doc, "constraint_slew", "grid", tscale, None)
+        if "constraint_slew" in grid_doc
+        else ()
+    )
+    grid = Grid(slew or (), load_ or (), related or (), constraint or ())
+    simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
+    fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
+
+    cells_doc = doc.get("cell", [])
+    if not isinstance(cells_doc, list) or not cells_doc:
+        r.problem("cell", "the config must declare at least one [[cell]]")
+        cells_doc = []
+    cells = []
+    seen: set[str] = set()
+    for i, cell_doc in enumerate(cells_doc):
+        cell = _cell(r, cell_doc, i, base, grid, tscale, cscale)
+        if cell is None:
+            continue
+        if cell.name in seen:
+            r.problem(f"cell[{i}].name", "a cell of this name is declared twice", cell.name)
+        seen.add(cell.name)
+        cells.append(cell)
+
+    corners = _corners(r, doc.get("corner", []), process)
+    options = _liberty(r, r.section(doc, "liberty", _LIBERTY_KEYS, required=False), cscale)
+    _check_other_load(r, options, cells, cap_unit)
+
+    # One problem keeps its own key and cell (and its one-line message); several are listed.
+    if len(r.problems) == 1:
+        raise r.problems[0]
+    if r.problems:
+        raise ConfigProblemsError(r.problems, file=path)
+    return LibraryConfig(
+        path=path,
+        name=name,
+        time_unit=time_unit,
+        cap_unit=cap_unit,
+        process=process,
+        thresholds=thresholds,
+        grid=grid,
+        cells=tuple(cells),
+        simulation=simulation,
+        fidelity=fidelity,
+        corners=corners,
+        liberty=options,
+    )
+
+
+def _unit(r: _Reader, lib: dict, key: str, default: str, known: dict[str, float]) -> str | None:
+    """A library unit in any case (``fF``, ``nS``), kept in its lower-case spelling."""
+    text = r.get(lib, key, str, "library", default)
+    if text is None:
+        return None
+    unit = unit_name(text, known)
+    if unit is None:
+        r.problem(f"library.{key}", f"must be one of {', '.join(known)} (any case), got {text!r}")
+    return unit
+
+
+def _is_identifier(text: str) -> bool:
+    import re
+
+    return re.fullmatch(_PIN, text) is not None
+
+
+def _process(r: _Reader, doc: dict, base: Path) -> Process:
+    models: list[ModelFile] = []
+    entries = doc.get("models")
+    if not isinstance(entries, list) or not entries:
+        r.problem("process.models", "must be a non-empty list of files or {file, section} tables")
+        entries = []
+    for i, entry in enumerate(entries):
+        key = f"process.models[{i}]"
+        if isinstance(entry, str):
+            file, section = entry, None
+        elif isinstance(entry, dict):
+            r.unknown(entry, {"file", "section"}, key, None)
+            file = r.get(entry, "file", str, key)
+            section = r.get(entry, "section", str, key, None)
+            if file is None:
+                continue
+        else:
+            r.problem(key, f"must be a file name or a {{file, section}} table, got {entry!r}")
+            continue
+        model_path = (base / file).resolve()
+        if not model_path.is_file():
+            r.problem(key, f"model file not found: {model_path}")
+            continue
+        models.append(ModelFile(model_path, section))
+    vdd = r.number(doc, "vdd", "process", low=0.0)
+    temperature = r.number(doc, "temperature", "process", 25.0, low=-273.15)
+    options_doc = r.get(doc, "options", dict, "process", {})
+    options = []
+    for k, v in sorted((options_doc or {}).items()):
+        if isinstance(v, bool) or not isinstance(v, (int, float, str)):
+            r.problem(f"process.options.{k}", f"must be a number or a string, got {v!r}")
+            continue
+        options.append((k, str(v)))
+    compat = r.get(doc, "compat", str, "process", None)
+    scale = r.number(doc, "scale", "process", None, low=0.0)
+    return Process(tuple(models), vdd or 0.0, temperature or 0.0, tuple(options), compat, scale)
+
+
+def _corners(r: _Reader, docs: Any, process: Process) -> tuple[Corner, ...]:
+    if not isinstance(docs, list):
+        r.problem("corner", "must be an array of tables: [[corner]]")
+        return ()
+    corners: list[Corner] = []
+    seen: set[str] = set()
+    for i, doc in enumerate(docs):
+        key = f"corner[{i}]"
+        if not isinstance(doc, dict):
+            r.problem(key, "must be a table")
+            continue
+        r.unknown(doc, _CORNER_KEYS, key, None)
+        name = r.get(doc, "name", str, key)
+        if name is not None and not _is_identifier(name):
+            r.problem(f"{key}.name", f"must be a name of letters, digits and _, got {name!r}")
+            continue
+        if name in seen:
+            r.problem(f"{key}.name", f"a corner named {name!r} is declared twice")
+            continue
+        seen.add(name)
+        section = r.get(doc, "section", str, key, None)
+        if section is not None and not any(m.section for m in process.models):
+            r.problem(f"{key}.section", "no model file is read by section ({file, section})")
+        vdd = r.number(doc, "vdd", key, process.vdd, low=0.0)
+        temperature = r.number(doc, "temperature", key, process.temperature, low=-273.15)
+        if name is not None and vdd is not None and temperature is not None:
+            corners.append(Corner(name, section, vdd, temperature))
+    return tuple(corners)
+
+
+def _thresholds(r: _Reader, doc: dict) -> Thresholds:
+    values = {}
+    for key, default in Thresholds.__dataclass_fields__.items():
+        if key == "slew_derate":
+            v = r.number(doc, key, "thresholds", default.default, low=0.0, high=1.0)
+            values[key] = default.default if v is None else v
+        else:
+            v = r.number(doc, key, "thresholds", default.default * 100, low=0.0, high=100.0)
+            values[key] = default.default if v is None else v / 100.0
+    t = Thresholds(**values)
+    for edge in ("rise", "fall"):
+        lo, hi = t.slew_band(edge)
+        if lo >= hi:
+            r.problem(
+                f"thresholds.slew_lower_{edge}",
+                f"must be below slew_upper_{edge} ({lo * 100:g} % >= {hi * 100:g} %)",
+            )
+    return t
+
+
+def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
+    d = Simulation()
+    backend = r.get(doc, "backend", str, "simulation", d.backend)
+    if backend not in ("shared", "subprocess"):
+        r.problem("simulation.backend", f"must be 'shared' or 'subprocess', got {backend!r}")
+        backend = d.backend
+    timeout = r.number(doc, "timeout", "simulation", d.timeout, low=0.0)
+    window = r.number(doc, "window", "simulation", None, low=0.0)
+    samples = r.get(doc, "samples_per_edge", int, "simulation", d.samples_per_edge)
+    if samples is not None and samples < 4:
+        r.problem("simulation.samples_per_edge", f"must be at least 4, got {samples}")
+        samples = None
+    settle = r.number(doc, "settle", "simulation", d.settle, low=0.0, high=0.5)
+    pushout = r.number(doc, "pushout", "simulation", d.pushout, low=0.0, high=1.0)
+    tol = r.number(doc, "bisect_tolerance", "simulation", None, low=0.0)
+    return Simulation(
+        backend=backend,
+        timeout=timeout or d.timeout,
+        window=None if window is None else window * tscale,
+        samples_per_edge=samples or d.samples_per_edge,
+        settle=settle or d.settle,
+        pushout=pushout or d.pushout,
+        bisect_tolerance=d.bisect_tolerance if tol is None else tol * tscale,
+    )
+
+
+def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
+    d = Fidelity()
+    count = r.get(doc, "random_points", int, "fidelity", d.random_points)
+    if count is not None and count < 0:
+        r.problem("fidelity.random_points", f"must not be negative, got {count}")
+        count = None
+    seed = r.get(doc, "seed", int, "fidelity", d.seed)
+    if seed is not None and seed < 0:
+        r.problem("fidelity.seed", f"must not be negative, got {seed}")
+        seed = None
+    floor = r.number(doc, "rel_floor", "fidelity", None, low=0.0)
+    return Fidelity(
+        random_points=d.random_points if count is None else count,
+        seed=d.seed if seed is None else seed,
+        rel_floor=d.rel_floor if floor is None else floor * tscale,
+    )
+
+
+def _liberty(r: _Reader, doc: dict, cscale: float) -> LibertyOptions:
+    d = LibertyOptions()
+    rule = r.get(doc, "other_load", (str, float), "liberty", d.other_load)
+    if isinstance(rule, float):
+        if math.isfinite(rule) and rule >= 0:
+            rule *= cscale
+        else:
+            r.problem("liberty.other_load", f"must be a finite load, not negative, got {rule!r}")
+            rule = None
+    elif rule is not None and rule not in OTHER_LOAD_RULES:
+        r.problem(
+            "liberty.other_load",
+            f"must be {' or '.join(map(repr, OTHER_LOAD_RULES))} or a load in cap_unit, "
+            f"got {rule!r}",
+        )
+        rule = None
+    factors = {
+        key: r.number(doc, key, "liberty", getattr(d, key), low=0.0)
+        for key in ("load_limit_factor", "slew_limit_factor")
+    }
+    return LibertyOptions(
+        other_load=d.other_load if rule is None else rule,
+        load_limit_factor=factors["load_limit_factor"] or d.load_limit_factor,
+        slew_limit_factor=factors["slew_limit_factor"] or d.slew_limit_factor,
+    )
+
+
+def _check_other_load(
+    r: _Reader, options: LibertyOptions, cells: list[CellSpec], cap_unit: str | None
+) -> None:
+    """A given other-output load must lie within every two-output cell's related_load: the
+    default file's tables are read there, never extrapolated."""
+    load = options.other_load
+    if isinstance(load, str) or cap_unit is None:
+        return
+    unit = cap_scale(cap_unit)
+    for cell in (c for c in cells if c.other_output_axis and c.grid.related_load):
+        low, high = cell.grid.related_load[0], cell.grid.related_load[-1]
+        if not low <= load <= high:
+            r.problem(
+                "liberty.other_load",
+                f"{load / unit:g} {cap_unit} is outside the cell's related_load "
+                f"[{low / unit:g}, {high / unit:g}] {cap_unit}: give a load within it, "
+                f"or {' or '.join(map(repr, OTHER_LOAD_RULES))}",
+                cell.name,
+            )
+
+
+def _cell(
+    r: _Reader, doc: Any, i: int, base: Path, grid: Grid, tscale: float, cscale: float
+) -> CellSpec | None:
+    key = f"cell[{i}]"
+    if not isinstance(doc, dict):
+        r.problem(key, "must be a table")
+        return None
+    name = r.get(doc, "name", str, key)
+    if name is None:
+        return None
+    r.unknown(doc, _CELL_KEYS, key, name)
+    template = r.get(doc, "template", str, key, None, name)
+    netlist = r.get(doc, "netlist", str, key, None, name)
+    source: Path | None = None
+    if (template is None) == (netlist is None):
+        r.problem(key, "give exactly one of 'template' (Jinja2) or 'netlist' (plain SPICE)", name)
+    else:
+        which, given = ("template", template) if template is not None else ("netlist", netlist)
+        if not given.strip():
+            r.problem(f"{key}.{which}", "must be a file path, got an empty string", name)
+        elif not (source := (base / given).resolve()).is_file():
+            r.problem(f"{key}.{which}", f"file not found: {source}", name)
+    params = r.get(doc, "params", dict, key, {}, name) or {}
+    inputs = r.get(doc, "inputs", list, key, None, name) or []
+    for j, pin in enumerate(inputs):
+        if not isinstance(pin, str) or not _is_identifier(pin):
+            r.problem(f"{key}.inputs[{j}]", f"must be a pin name, got {pin!r}", name)
+    inputs = [p for p in inputs if isinstance(p, str)]
+    if len(set(inputs)) != len(inputs):
+        r.problem(f"{key}.inputs", f"names a pin twice: {inputs}", name)
+    flop = _flop(r, doc, key, name, inputs)
+    known = set(inputs) | (set(flop.state) if flop else set())
+    outputs_doc = r.get(doc, "outputs", dict, key, None, name) or {}
+    if not outputs_doc:
+        r.problem(f"{key}.outputs", "must map at least one output pin to its function", name)
+    outputs = []
+    for pin, text in outputs_doc.items():
+        okey = f"{key}.outputs.{pin}"
+        if not isinstance(text, str):
+            r.problem(okey, f"must be a Boolean function in Liberty syntax, got {text!r}", name)
+            continue
+        if pin in inputs:
+            r.problem(okey, "an output cannot also be an input", name)
+        try:
+            expr = logic.parse(text, cell=name, pin=pin)
+        except FunctionSyntaxError as exc:
+            r.problem(okey, exc.reason, name)
+            continue
+        extra = sorted(expr.variables() - known)
+        if extra:
+            r.problem(
+                okey, f"function uses {', '.join(extra)}, not among the inputs {inputs}", name
+            )
+            continue
+        outputs.append(OutputSpec(pin, expr))
+    power = r.get(doc, "power", str, key, "VDD", name)
+    ground = r.get(doc, "ground", str, key, "VSS", name)
+    taken = {*inputs, *outputs_doc, power or "VDD", ground or "VSS"}
+    body = _body(r, doc, key, name, taken)
+    area = r.number(doc, "area", key, 0.0, name)
+    grid_doc = r.get(doc, "grid", dict, key, {}, name) or {}
+    r.unknown(grid_doc, _GRID_KEYS, f"{key}.grid", name)
+    slew = (
+        r.axis(grid_doc, "slew", f"{key}.grid", tscale, name) if "slew" in grid_doc else grid.slew
+    )
+    load_ = (
+        r.axis(grid_doc, "load", f"{key}.grid", cscale, name, zero_ok=True)
+        if "load" in grid_doc
+        else grid.load
+    )
+    related = (
+        r.axis(grid_doc, "related_load", f"{key}.grid", cscale, name, zero_ok=True)
+        if "related_load" in grid_doc
+        else grid.related_load
+    )
+    constraint = (
+        r.axis(grid_doc, "constraint_slew", f"{key}.grid", tscale, name)
+        if "constraint_slew" in grid_doc
+        else grid.constraint_slew
+    )
+    axis3 = r.get(doc, "other_output_axis", bool, key, len(outputs) == 2, name)
+    if axis3 and len(outputs) != 2:
+        r.problem(f"{key}.other_output_axis", "needs a cell with exactly two outputs", name)
+    if axis3 and len(outputs) == 2 and not related:
+        r.problem(
+            f"{key}.grid.related_load",
+            "a two-output cell with other_output_axis needs [grid] related_load "
+            "(or set other_output_axis = false)",
+            name,
+        )
+    return CellSpec(
+        name=name,
+        inputs=tuple(inputs),
+        outputs=tuple(outputs),
+        grid=Grid(slew or (), load_ or (), related or (), constraint or ()),
+        template=source if template is not None else None,
+        netlist=source if netlist is not None else None,
+        params=tuple(sorted(params.items())),
+        power=power or "VDD",
+        ground=ground or "VSS",
+        area=area or 0.0,
+        flop=flop,
+        other_output_axis=bool(axis3) and len(outputs) == 2,
+        body=body,
+    )
+
+
+def _body(r: _Reader, doc: dict, key: str, name: str, taken: set[str]) -> tuple[BodyPin, ...]:
+    """The cell's body pins: ``nwell``/``pwell`` = "PIN" (tied to the cell's power / ground)
+    or { pin = "PIN", voltage = V } (its own voltage, for body bias)."""
+    found = []
+    for kind in BODY_KINDS:
+        bkey = f"{key}.{kind}"
+        entry = doc.get(kind)
+        if entry is None:
+            continue
+        if isinstance(entry, dict):
+            r.unknown(entry, {"pin", "voltage"}, bkey, name)
+            pin = r.get(entry, "pin", str, bkey, None, name)
+            voltage = r.number(entry, "voltage", bkey, None, name)
+        else:
+            pin, voltage = entry, None
+        if not isinstance(pin, str) or not _is_identifier(pin):
+            r.problem(
+                bkey, f'must be a pin name or {{ pin = "...", voltage = V }}, got {entry!r}', name
+            )
+            continue
+        if pin.upper() in {t.upper() for t in taken}:
+            r.problem(bkey, f"pin {pin} is already an input, output or supply pin", name)
+            continue
+        taken.add(pin)
+        found.append(BodyPin(pin, kind, voltage))
+    return tuple(found)
+
+
+def _flop(r: _Reader, doc: dict, key: str, name: str, inputs: list[str]) -> FlopSpec | None:
+    fdoc = r.get(doc, "flop", dict, key, None, name)
+    if fdoc is None:
+        return None
+    fkey = f"{key}.flop"
+    r.unknown(fdoc, _FLOP_KEYS, fkey, name)
+    clock = r.get(fdoc, "clock", str, fkey, None, name)
+    if clock is not None and clock not in inputs:
+        r.problem(f"{fkey}.clock", f"clock {clock} is not among the inputs {inputs}", name)
+    edge = r.get(fdoc, "edge", str, fkey, "rise", name)
+    if edge not in ("rise", "fall"):
+        r.problem(f"{fkey}.edge", f"must be 'rise' or 'fall', got {edge!r}", name)
+    state = r.get(fdoc, "state", list, fkey, ["IQ", "IQN"], name) or ["IQ", "IQN"]
+    if len(state) != 2 or not all(isinstance(s, str) and _is_identifier(s) for s in state):
+        r.problem(f"{fkey}.state", f"must name two state variables, got {state!r}", name)
+        state = ["IQ", "IQN"]
+    exprs = {}
+    for attr in ("next_state", "clear", "preset"):
+        text = r.get(fdoc, attr, str, fkey, None if attr == "next_state" else "", name)
+        if not text:
+            continue
+        try:
+            expr = logic.parse(text, cell=name, pin=attr)
+        except FunctionSyntaxError as exc:
+            r.problem(f"{fkey}.{attr}", exc.reason, name)
+            continue
+        bad = sorted(expr.variables() - set(inputs))
+        if bad or (clock in expr.variables()):
+            r.problem(
+                f"{fkey}.{attr}",
+                f"may use only non-clock inputs, uses {', '.join(bad or [clock])}",
+                name,
+            )
+            continue
+        exprs[attr] = expr
+    if clock is None or "next_state" not in exprs:
+        return None
+    return FlopSpec(
+        clock=clock,
+        edge=edge if edge in ("rise", "fall") else "rise",
+        next_state=exprs["next_state"],
+        clear=exprs.get("clear"),
+        preset=exprs.get("preset"),
+        state=(state[0], state[1]),
+    )

@@ -1,0 +1,283 @@
+"""Where a library comes from: one record per run, written into the Liberty header and the JSON.
+
+The record names charflow's version, the simulator and its version, the config file and every
+model file (with its section) by name and sha256 digest, and the settings that decide the
+numbers. It holds nothing that changes between two runs of the same inputs (no date, host or
+folder), so the same results give the same bytes. Files are named, not located: where a file
+lies changes nothing it holds, its digest says what it holds, and a path would make the same
+library differ between two checkouts.
+
+The simulator's version is read without loading libngspice in this process: the subprocess
+backend's runs start the ``ngspice`` executable, so ``ngspice -v`` here asks that program;
+the shared backend's runs load libngspice in worker processes, so one of those (the sweep's own
+pool, which stays up for the runs) loads it and answers.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+import shutil
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, fields
+from pathlib import Path
+
+from charflow import __version__
+from charflow.config.library import LibraryConfig, Simulation, Thresholds
+from charflow.execution.sweep import default_jobs
+from charflow.measurement.combinational import backend_for
+from charflow.records.errors import SimulatorError
+from charflow.records.units import energy_unit, power_unit, time_scale
+from charflow.simulation.backends import make_backend
+from charflow.simulation.netlist import model_files
+
+# ngspice's banner: "ngspice-39, Creation Date: Sun Feb  5 13:44:35 UTC 2023" (``_version_of``).
+_RELEASE = re.compile(r"(?P<program>[A-Za-z]+)-(?P<version>[^\s,]+)")
+_BUILT = re.compile(r"creation date:\s*(?P<date>.+)", re.IGNORECASE)
+NUMBER = "{:.10g}"  # settings in the Liberty header: enough digits to give the value back
+
+
+@dataclass(frozen=True, slots=True)
+class Simulator:
+    """The simulator the runs use, as it reports itself."""
+
+    backend: str  # "shared" (libngspice in worker processes) or "subprocess" (ngspice -b)
+    banner: str  # its version and build date as it prints them (``simulate._version_of``)
+
+    @property
+    def key(self) -> str:
+        """What the result store's keys hold: a new simulator or backend makes rows stale."""
+        return f"{self.backend} {self.banner}"
+
+    @property
+    def program(self) -> str:
+        found = _RELEASE.search(self.banner)
+        return found["program"] if found else "ngspice"
+
+    @property
+    def version(self) -> str:
+        """The release ("39"); the whole banner when it names none."""
+        found = _RELEASE.search(self.banner)
+        return found["version"] if found else self.banner
+
+    @property
+    def build_date(self) -> str | None:
+        found = _BUILT.search(self.banner)
+        return " ".join(found["date"].split()) if found else None
+
+
+@dataclass(frozen=True, slots=True)
+class FileDigest:
+    file: str  # the file's name
+    sha256: str | None  # None: the file could not be read (the simulator then says why)
+
+
+@dataclass(frozen=True, slots=True)
+class ModelDigest:
+    file: str  # the file's name
+    section: str | None  # the section read (``.lib FILE SECTION``); None: read whole
+    sha256: str | None
+    # The config's model file that names this one (``.include``/``.lib``, any section); None:
+    # the config names it.
+    included_by: str | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Provenance:
+    """What made a library: programs, input files and the settings behind its numbers."""
+
+    charflow: str
+    simulator: Simulator
+    config: FileDigest
+    models: tuple[ModelDigest, ...]
+    corner: str  # ``LibraryConfig.corner_name``: the [[corner]], else the model sections read
+    vdd: float  # V
+    temperature: float  # degrees C
+    time_unit: str
+    cap_unit: str
+    thresholds: Thresholds
+    simulation: Simulation
+    options: tuple[tuple[str, str], ...]  # the testbench's .option lines
+    compat: str | None  # ngspice's ngbehavior
+    scale: float | None  # .option scale
+
+
+_ASKED: dict[tuple[str, str | None], str] = {}  # banners met in this process, by program
+
+
+def simulator(config: LibraryConfig, jobs: int | None = None) -> Simulator:
+    """The simulator the runs of ``config`` use, with its version (see the module's note); a
+    worker pool of ``jobs`` processes (the sweep's) answers for the shared backend. Asked once
+    per process and program."""
+    sim = config.simulation
+    # The executable is looked up as the subprocess backend does: PATH may change.
+    program = (sim.backend, shutil.which("ngspice") if sim.backend == "subprocess" else None)
+    if program not in _ASKED:
+        if sim.backend == "subprocess":
+            _ASKED[program] = make_backend(sim.backend, sim.timeout).version()
+        else:
+            _ASKED[program] = _ask_a_worker(config, jobs or default_jobs())
+    return Simulator(sim.backend, _ASKED[program])
+
+
+def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
+    # joblib takes a noticeable time to import: only commands that run the simulator need it.
+    from joblib.executor import get_memmapping_executor
+
+    try:
+        return get_memmapping_executor(jobs).submit(_banner_here, config).result()
+    except BrokenProcessPool as exc:
+        raise SimulatorError(
+            f"a worker process died while loading the ngspice shared library ({exc}); "
+            "try backend 'subprocess' in [simulation]"
+        ) from exc
+
+
+def _banner_here(config: LibraryConfig) -> str:
+    """In a worker: this process's simulator (kept for its runs) and its version."""
+    return backend_for(config).version()
+
+
+def file_digest(path: Path) -> str | None:
+    try:
+        return hashlib.sha256(path.read_bytes()).hexdigest()
+    except OSError:
+        return None
+
+
+def build(config: LibraryConfig, sim: Simulator) -> Provenance:
+    """The provenance of a library made from ``config`` by ``sim``, from the files as they are."""
+    p = config.process
+    return Provenance(
+        charflow=__version__,
+        simulator=sim,
+        config=FileDigest(config.path.name, config.digest),
+        models=_models(config),
+        corner=config.corner_name,
+        vdd=p.vdd,
+        temperature=p.temperature,
+        time_unit=config.time_unit,
+        cap_unit=config.cap_unit,
+        thresholds=config.thresholds,
+        simulation=config.simulation,
+        options=p.options,
+        compat=p.compat,
+        scale=p.scale,
+    )
+
+
+def _models(config: LibraryConfig) -> tuple[ModelDigest, ...]:
+    """The config's model files, each followed by the files it names, as the testbench reads
+    them; a file read twice (two sections) is listed twice, a file named twice once."""
+    found: list[ModelDigest] = []
+    for m in config.process.models:
+        found.append(ModelDigest(m.path.name, m.section, file_digest(m.path)))
+        try:
+            text = m.path.read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            continue  # the simulator names the missing file when the deck runs
+        for path in model_files(text, m.path.parent):
+            found.append(ModelDigest(path.name, None, file_digest(path), m.path.name))
+    return tuple(dict.fromkeys(found))
+
+
+def _number(value: float | None, scale: float = 1.0, unit: str = "") -> str:
+    if value is None:
+        return "none"
+    return NUMBER.format(value / scale) + (f" {unit}" if unit else "")
+
+
+def liberty_header(prov: Provenance) -> tuple[str, ...]:
+    """The Liberty file's header comment lines, settings in the config's keys and units."""
+    sim, tu = prov.simulator, prov.time_unit
+    built = f", built {sim.build_date}" if sim.build_date else ""
+    lines = [
+        f"charflow {prov.charflow}",
+        f"simulator {sim.program} {sim.version}{built}, {sim.backend} backend",
+        f"config {prov.config.file} sha256 {prov.config.sha256 or 'none (not read from a file)'}",
+    ]
+    for m in prov.models:
+        how = f"section {m.section}" if m.section else "whole file"
+        if m.included_by:
+            how = f"named in {m.included_by}"
+        lines.append(f"model {m.file} {how} sha256 {m.sha256 or 'none (unreadable)'}")
+    corner = f"corner {prov.corner}"
+    lines.append(f"{corner}: vdd {_number(prov.vdd)} V, temperature {_number(prov.temperature)} C")
+    lines.append(f"units: time 1{tu}, capacitance 1{prov.cap_unit}")
+    t = prov.thresholds
+    percent = ", ".join(
+        f"{f.name} {_number(100 * getattr(t, f.name))}"
+        for f in fields(t)
+        if f.name != "slew_derate"
+    )
+    lines.append(f"thresholds (% of vdd): {percent}; slew_derate {_number(t.slew_derate)}")
+    s, scale = prov.simulation, time_scale(tu)
+    lines.append(
+        f"simulation: backend {s.backend}, timeout {_number(s.timeout)} s, "
+        f"window {_number(s.window, scale, tu)}, samples_per_edge {s.samples_per_edge}, "
+        f"settle {_number(s.settle)}, pushout {_number(s.pushout)}, "
+        f"bisect_tolerance {_number(s.bisect_tolerance, scale, tu)}"
+    )
+    options = ", ".join(f"{k}={v}" for k, v in prov.options) or "none"
+    lines.append(
+        f"process: options {options}, compat {prov.compat or 'none'}, scale {_number(prov.scale)}"
+    )
+    return tuple(lines)
+
+
+def to_json(prov: Provenance) -> dict:
+    """The JSON's provenance and settings, in SI units (thresholds as fractions of vdd)."""
+    sim, s = prov.simulator, prov.simulation
+    lib_power, _ = power_unit(prov.time_unit, prov.cap_unit)
+    return {
+        "provenance": {
+            "charflow_version": prov.charflow,
+            "simulator": {
+                "program": sim.program,
+                "version": sim.version,
+                "build_date": sim.build_date,
+                "backend": sim.backend,
+            },
+            "config": {"file": prov.config.file, "sha256": prov.config.sha256},
+            "models": [
+                {
+                    "file": m.file,
+                    "section": m.section,
+                    "sha256": m.sha256,
+                    "included_by": m.included_by,
+                }
+                for m in prov.models
+            ],
+        },
+        "corner": {"name": prov.corner, "vdd_V": prov.vdd, "temperature_C": prov.temperature},
+        "units": {
+            "time": "s",
+            "capacitance": "F",
+            "charge": "C",
+            "voltage": "V",
+            "energy": "J",
+            "power": "W",
+        },
+        "library_units": {
+            "time": prov.time_unit,
+            "capacitance": prov.cap_unit,
+            "energy": energy_unit(prov.cap_unit),
+            "power": lib_power[1:],
+        },
+        "thresholds": {
+            f.name: getattr(prov.thresholds, f.name)
+            for f in fields(prov.thresholds)
+            if f.name != "slew_derate"
+        },
+        "slew_derate": prov.thresholds.slew_derate,
+        "simulation": {
+            "backend": s.backend,
+            "timeout_s": s.timeout,
+            "window_s": s.window,
+            "samples_per_edge": s.samples_per_edge,
+            "settle": s.settle,
+            "pushout": s.pushout,
+            "bisect_tolerance_s": s.bisect_tolerance,
+        },
+        "process": {"options": dict(prov.options), "compat": prov.compat, "scale": prov.scale},
+    }

@@ -1,0 +1,619 @@
+"""The characterization flow as public stages a user can call one by one.
+
+    config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
+
+``characterize`` chains them; each stage takes and returns plain records, so any one can
+be tested or re-run alone; power rides along (hidden-power toggles in the sweep, leakage per
+deck, ``power.tabulate``). With a result store (``store.Store``) the sweep simulates only
+points it does not hold, and a run of a few cells or one arc fills the rest of the library
+from the store.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+from charflow import __version__
+from charflow.analysis.diff import pin_name, table_name
+from charflow.config.library import FlopSpec, LibraryConfig
+from charflow.execution import provenance, sweep
+from charflow.execution.store import Stale, Store, keyring
+from charflow.io import faults, liberty
+from charflow.measurement import power
+from charflow.measurement.combinational import Failure, Measurement, check_function
+from charflow.measurement.sequential import SearchResult
+from charflow.records.errors import ConfigError, OutputError
+from charflow.simulation import plausible
+from charflow.simulation.netlist import build_deck
+from charflow.tables import gaps
+from charflow.tables.tabulate import (
+    ArcTables,
+    CellTables,
+    delay_quantity,
+    tabulate,
+    transition_quantity,
+)
+
+
+@dataclass(frozen=True, slots=True)
+class RunResult:
+    plan: sweep.Plan
+    measurements: tuple[Measurement | SearchResult, ...]
+    failures: tuple[Failure, ...]
+    cells: tuple[CellTables, ...]  # empty when any point failed
+    wall_seconds: float
+    provenance: provenance.Provenance  # what made the library: programs, files, settings
+    reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
+    stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
+    left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
+    toggles: tuple[power.ToggleMeasurement, ...] = ()
+    # Toggles whose energy could not be measured: reported, left out of the tables; they do
+    # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
+    unmeasured: tuple[Failure, ...] = ()
+    cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
+    # With a gap-filling method: the failed points it filled (in the tables, never stored) and
+    # those it could not (still in ``failures``).
+    gap_report: gaps.GapReport | None = None
+
+    @property
+    def filled(self) -> tuple[gaps.Filled, ...]:
+        return self.gap_report.filled if self.gap_report is not None else ()
+
+    @property
+    def faults(self) -> tuple[Failure, ...]:
+        """Every point that gave no measurement, filled or not, in the plan's order; then the
+        toggles."""
+        order = {p: i for i, p in enumerate(self.plan.points)}
+        timing = sorted(
+            (*self.failures, *(f.failure for f in self.filled)), key=lambda f: order[f.point]
+        )
+        return (*timing, *self.unmeasured)
+
+    @property
+    def simulated(self) -> int:
+        """Points measured by simulating them in this run."""
+        return len(self.measurements) - len(self.reused & {m.point for m in self.measurements})
+
+    @property
+    def simulations(self) -> int:
+        """Simulator runs of this run, refinements and retries included."""
+        done = (*self.measurements, *self.toggles)
+        return sum(m.runs for m in done if m.point not in self.reused)
+
+    @property
+    def sim_seconds(self) -> float:
+        """Simulator time of this run, summed over workers."""
+        done = (*self.measurements, *self.toggles)
+        return sum(m.sim_seconds for m in done if m.point not in self.reused)
+
+    def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
+        """The names (as ``charflow diff`` prints them) of the tables holding values from stored
+        rows older than the current inputs, by the model files that changed since (``()``:
+        the testbench or the settings changed)."""
+        out: dict[tuple[str, ...], dict[str, None]] = {}
+        for s in self.stale:
+            names = out.setdefault(s.models, {})
+            names.update(dict.fromkeys(_tables_of(self.plan, s.point)))
+        return {models: sorted(names) for models, names in sorted(out.items())}
+
+
+def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
+    """The tables (or pin values) of a library that a point's result goes into."""
+    if isinstance(p, sweep.PulsePoint):
+        return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
+    if isinstance(p, power.TogglePoint):
+        return [pin_name(p.cell, p.related, f"when {p.when} {power.power_quantity(p.input_edge)}")]
+    if isinstance(p, sweep.ConstraintPoint):
+        kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
+        quantity = f"{p.data_edge}_constraint"
+        return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
+    arc = next(
+        a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
+    )
+    whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
+    quantities = [
+        delay_quantity(p.output_edge),
+        transition_quantity(p.output_edge),
+        power.power_quantity(p.output_edge),
+    ]
+    return [
+        table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
+        for when in whens
+        for quantity in quantities
+    ]
+
+
+def verify(
+    config: LibraryConfig, cells: list[str] | None = None, *, store: Store | None = None
+) -> None:
+    """Simulate every input vector of every chosen cell against its declared function; with a
+    store, a cell whose check passed before with the same inputs is not checked again."""
+    decks = {
+        c.name: build_deck(config, c) for c in config.cells if cells is None or c.name in cells
+    }
+    ring = keyring(config, decks) if store is not None else None
+    for name, deck in decks.items():
+        if ring is not None and store.verified(ring, name):
+            continue
+        check_function(config, deck)
+        if ring is not None:
+            store.mark_verified(ring, name)
+
+
+def select(
+    config: LibraryConfig, cells: list[str] | None = None, arc: tuple[str, str] | None = None
+) -> sweep.Plan:
+    """The plan of the chosen cells, or of one arc (related pin, output pin) of one cell."""
+    plan = sweep.plan(config, cells)
+    if arc is None:
+        return plan
+    if cells is None or len(cells) != 1:
+        raise ConfigError("an arc is chosen within one cell: give exactly one cell with it")
+    related, output = arc
+    arcs = tuple(a for a in plan.arcs if (a.related, a.output) == arc)
+    if not arcs:
+        have = ", ".join(f"{a.related}:{a.output}" for a in plan.arcs)
+        raise ConfigError(
+            f"no timing arc from {related} to {output}; the cell's arcs are {have}",
+            cell=cells[0],
+            arc=f"{related}:{output}",
+        )
+    # Setup, hold and pulse-width searches belong to no arc: they come with the whole cell.
+    points = tuple(
+        p for p in plan.points if isinstance(p, sweep.TimingPoint) and (p.related, p.output) == arc
+    )
+    return sweep.Plan(arcs, points)
+
+
+def characterize(
+    config: LibraryConfig,
+    *,
+    cells: list[str] | None = None,
+    arc: tuple[str, str] | None = None,
+    jobs: int | None = None,
+    store: Store | None = None,
+    scheduler: str | None = None,
+    on_start: Callable[[int], None] | None = None,
+    on_stored: Callable[[tuple], None] | None = None,
+    on_result: Callable[[object], None] | None = None,
+    allow_gaps: str | None = None,
+) -> RunResult:
+    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers
+    unless ``allow_gaps`` names a method (``gaps.METHODS``) to fill them from measured neighbours.
+
+    Only the chosen ``cells`` (or ``arc``, see ``select``) are simulated. Without a store the
+    library holds just those. With one it holds every cell of the config: points not chosen
+    come from the store, from rows with the current inputs or else the newest row of their
+    slot (listed in ``stale``); a cell with a point the store never held is left out.
+    """
+    start = time.perf_counter()
+    if allow_gaps is not None:
+        gaps.check_method(allow_gaps)  # before the sweep, not after it
+    # Before the sweep: the version is asked of the sweep's worker pool, and the store's keys
+    # hold it.
+    made_by = provenance.build(config, provenance.simulator(config, jobs))
+    chosen = select(config, cells, arc)
+    # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
+    toggle_points = power.plan_toggles(config, cells) if arc is None else ()
+    plausible.announce(config, {p.cell for p in chosen.points})  # before the first simulation
+    verify(config, cells, store=store)
+    if on_start is not None:
+        on_start(sweep.work((*chosen.points, *toggle_points)))
+    measurements: list[Measurement | SearchResult] = []
+    failures: list[Failure] = []
+    toggles: list[power.ToggleMeasurement] = []
+    unmeasured: list[Failure] = []
+    reused: set[sweep.Point] = set()
+
+    def keep(outcome: object) -> None:
+        if isinstance(outcome, power.ToggleMeasurement):
+            toggles.append(outcome)
+        elif isinstance(outcome, Failure):
+            toggle = isinstance(outcome.point, power.TogglePoint)
+            (unmeasured if toggle else failures).append(outcome)
+        else:
+            measurements.append(outcome)
+
+    def stored(found: tuple) -> None:
+        reused.update(m.point for m in found)
+        if on_stored is not None:
+            on_stored(found)
+
+    for outcome in sweep.run(
+        config,
+        (*chosen.points, *toggle_points),
+        jobs=jobs,
+        on_result=on_result,
+        store=store,
+        on_stored=stored,
+        scheduler=scheduler,
+    ):
+        keep(outcome)
+    whole, stale = chosen, {}
+    all_toggles = toggle_points
+    if store is not None and cells is not None:
+        whole = sweep.plan(config)
+        all_toggles = power.plan_toggles(config)
+        picked = {*chosen.points, *toggle_points}
+        rest = [p for p in (*whole.points, *all_toggles) if p not in picked]
+        decks = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in rest}}
+        found, stale = store.latest(keyring(config, decks), rest)
+        for m in found.values():
+            keep(m)
+        reused.update(found)
+    have = {m.point for m in measurements} | {f.point for f in failures}
+    names = dict.fromkeys(p.cell for p in whole.points)
+    left_out = tuple(c for c in names if not all(p in have for p in whole.for_cell(c)))
+    the_plan = sweep.Plan(
+        tuple(a for a in whole.arcs if a.cell not in left_out),
+        tuple(p for p in whole.points if p.cell not in left_out),
+    )
+    order = {p: i for i, p in enumerate((*whole.points, *all_toggles))}
+    for outcomes in (measurements, failures, toggles, unmeasured):
+        outcomes.sort(key=lambda m: order[m.point])
+    report = None
+    if failures and allow_gaps is not None:
+        # After the sweep, which has stored what it measured: filled values are never stored.
+        report = gaps.fill_gaps(the_plan, measurements, failures, allow_gaps)
+        failures = list(report.remaining)
+    tables, cell_power = (), ()
+    if not failures:
+        done = [*measurements, *report.records] if report is not None else measurements
+        tables = tabulate(config, the_plan, done)
+        leakages = power.leakages(config, the_plan)
+        cell_power = power.tabulate(config, the_plan, done, toggles, leakages)
+    return RunResult(
+        plan=the_plan,
+        measurements=tuple(measurements),
+        failures=tuple(failures),
+        cells=tables,
+        wall_seconds=time.perf_counter() - start,
+        provenance=made_by,
+        reused=frozenset(reused),
+        stale=tuple(s for p, s in stale.items() if p.cell not in left_out),
+        left_out=left_out,
+        toggles=tuple(toggles),
+        unmeasured=tuple(unmeasured),
+        cell_power=cell_power,
+        gap_report=report,
+    )
+
+
+# The layout of the JSON document (charflow/bundled/schema/charflow-library.schema.json);
+# raised whenever a key is renamed, removed or changes its meaning.
+JSON_SCHEMA_VERSION = 1
+
+# The values of a JSON point record that a gap-filling method fills.
+FILLED_VALUES = (
+    "delay_s",
+    "transition_s",
+    "input_charge_C",
+    "supply_energy_J",
+    "internal_energy_J",
+    "value_s",
+)
+
+
+def to_json(config: LibraryConfig, result: RunResult) -> dict:
+    """Tables in SI units with the measurement details behind every point, and where they come
+    from (``provenance``)."""
+    powers = {c.cell: c for c in result.cell_power}
+    cells = dict.fromkeys(p.cell for p in result.plan.points)
+    toggled = dict.fromkeys(m.point.cell for m in result.toggles)
+    return {
+        "schema_version": JSON_SCHEMA_VERSION,
+        "library": config.name,
+        "generator": f"charflow {__version__}",
+        **provenance.to_json(result.provenance),
+        "cells": [_cell_record(cell, powers.get(cell.cell.name)) for cell in result.cells],
+        "points": {
+            name: [_point_record(m) for m in result.measurements if m.point.cell == name]
+            for name in cells
+        },
+        "toggles": {
+            name: [_toggle_record(m) for m in result.toggles if m.point.cell == name]
+            for name in toggled
+        },
+        **_fault_records(result),
+        "liberty": liberty.describe(config, result.cells, result.cell_power),
+        # Tables served from stored results whose inputs were not the ones named above.
+        "stale_tables": [
+            {"changed_models": list(models), "tables": names}
+            for models, names in result.stale_tables().items()
+        ],
+    }
+
+
+def _cell_record(cell: CellTables, cell_power: power.CellPower | None) -> dict:
+    return {
+        "name": cell.cell.name,
+        "area": cell.cell.area,
+        "inputs": [
+            {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+            for p in cell.pins
+        ],
+        "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
+        "ff": _ff_record(cell.cell.flop),
+        "arcs": [_arc_record(arc, cell_power) for arc in cell.arcs],
+        "constraints": [
+            {
+                "pin": c.pin,
+                "related_pin": c.related,
+                "timing_type": c.timing_type,
+                "tables": [t.to_dict() for t in c.tables],
+            }
+            for c in cell.constraints
+        ],
+        "min_pulse_widths": [
+            {
+                "pin": p.pin,
+                "level": p.level,
+                "width_s": p.width,  # null: left out of the library (note)
+                "stimulus": p.stimulus,
+                "bracket_s": p.bracket,
+                "note": p.note,
+            }
+            for p in cell.pulses
+        ],
+        **_cell_power_record(cell_power),
+    }
+
+
+def _ff_record(flop: FlopSpec | None) -> dict | None:
+    """The flip-flop's state variables (which its outputs' functions name) and their updates,
+    as the Liberty ``ff`` group gives them."""
+    if flop is None:
+        return None
+    state, inverted = flop.state
+    return {
+        "state": state,
+        "inverted_state": inverted,
+        "clocked_on": flop.clocked_on,
+        "next_state": flop.next_state.to_liberty(),
+        "clear": flop.clear.to_liberty() if flop.clear is not None else None,
+        "preset": flop.preset.to_liberty() if flop.preset is not None else None,
+    }
+
+
+def _arc_record(arc: ArcTables, cell_power: power.CellPower | None) -> dict:
+    return {
+        "related_pin": arc.arc.related,
+        "output": arc.arc.output,
+        "kind": arc.arc.kind,
+        "related_output": arc.arc.other,
+        "timing_sense": arc.arc.sense,
+        "tables": [t.to_dict() for t in arc.default],
+        "states": [
+            {
+                "when": st.state.when,
+                "timing_sense": st.state.sense,
+                "tables": [t.to_dict() for t in st.tables],
+            }
+            for st in arc.states
+        ],
+        **_arc_power_record(cell_power, arc.arc),
+    }
+
+
+def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
+    energy = cell.arc(arc.related, arc.output) if cell is not None else None
+    if energy is None:
+        return {}
+    states = [{"when": st.when, "tables": [t.to_dict() for t in ts]} for st, ts in energy.states]
+    return {"internal_power": {"tables": [t.to_dict() for t in energy.default], "states": states}}
+
+
+def _cell_power_record(cell: power.CellPower | None) -> dict:
+    if cell is None:
+        return {}
+    return {
+        "cell_leakage_power_W": cell.cell_leakage,
+        "leakage_power": [{"when": s.when, "value_W": s.power} for s in cell.leakage],
+        "hidden_power": [
+            {"pin": h.pin, "when": h.when, "tables": [t.to_dict() for t in h.tables]}
+            for h in cell.hidden
+        ],
+    }
+
+
+def _point_record(m: Measurement | SearchResult) -> dict:
+    p = m.point
+    if isinstance(m, SearchResult):
+        record = {"search": p.label, "value_s": m.value, "simulations": m.runs}
+        if isinstance(p, sweep.PulsePoint):
+            record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
+        return record
+    return {
+        "related_pin": p.related,
+        "output": p.output,
+        "when": sweep.State(p.state_side, "").when,
+        "input_edge": p.input_edge,
+        "output_edge": p.output_edge,
+        "kind": p.kind,
+        "slew_s": p.slew,
+        "load_F": p.load,
+        "other_load_F": p.other_load,
+        "delay_s": m.delay,
+        "transition_s": m.transition,
+        "input_charge_C": m.input_charge,
+        "supply_energy_J": m.supply_energy,
+        "internal_energy_J": m.internal_energy,
+        "simulations": m.runs,
+        "stopped_s": m.stopped,
+        "stop_cap_s": m.stop_cap,
+    }
+
+
+def _toggle_record(m: power.ToggleMeasurement) -> dict:
+    p = m.point
+    return {
+        "related_pin": p.related,
+        "when": p.when,
+        "input_edge": p.input_edge,
+        "slew_s": p.slew,
+        "load_F": p.load,
+        "energy_J": m.energy,
+        "input_charge_C": m.input_charge,
+        "simulations": m.runs,
+        "window_end_s": m.settled,
+    }
+
+
+def _fault_records(result: RunResult) -> dict:
+    """The failed points, the toggles not measured and the filled points, each with its
+    reason and its saved waveform."""
+    saved = faults.paths(result.faults)
+    report = result.gap_report
+    unfillable = {u.failure.point: u.why for u in report.unfilled} if report else {}
+
+    def fault(f: Failure) -> dict:
+        record = {"cell": f.point.cell, "point": f.point.label, "reason": f.reason}
+        if f.point in unfillable:
+            record["not_filled"] = unfillable[f.point]
+        if f.point in saved:
+            record["waveform_csv"], record["waveform_png"] = saved[f.point]
+        return record
+
+    def filled(f: gaps.Filled) -> dict:
+        values = {k: v for k, v in _point_record(f.record).items() if k in FILLED_VALUES}
+        return {
+            **fault(f.failure),
+            "method": f.method,
+            "along": f.along,
+            "from": [p.label for p in f.sources],
+            **values,
+        }
+
+    return {
+        "failures": [fault(f) for f in result.failures],
+        "unmeasured_toggles": [fault(f) for f in result.unmeasured],
+        "filled": [filled(f) for f in result.filled],
+    }
+
+
+OUTPUT_MODE = 0o644
+
+
+def write_atomic(path: Path, text: str | bytes) -> None:
+    """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
+    binary = isinstance(text, bytes)
+    tmp = None
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            # A full disk may only show when the data goes out: find it before the rename.
+            os.fsync(fh.fileno())
+        # mkstemp makes the file private; outputs are ordinary files.
+        os.chmod(tmp, OUTPUT_MODE)
+        os.replace(tmp, path)
+    except OSError as exc:
+        if tmp is not None:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+        kept = "; the previous version is kept" if path.exists() else ""
+        raise OutputError(f"cannot write output: {exc.strerror or exc}{kept}", file=path) from exc
+
+
+def stale_notes(result: RunResult) -> tuple[str, ...]:
+    """Header lines on the tables that come from stored results older than the inputs the
+    header names (a run of a few cells or one arc after a change)."""
+    lines = []
+    for models, names in result.stale_tables().items():
+        changed = f"model file {', '.join(models)}" if models else "the testbench or the settings"
+        why = f"{changed} changed since"
+        lines.append(
+            f"stale: {len(names)} table(s) hold stored results from older inputs ({why}); "
+            'listed under "stale_tables" in the JSON; a full run brings them up to date'
+        )
+    return tuple(lines)
+
+
+NOTE_POINTS = 4  # filled points a table's note lists
+
+
+def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...], dict[str, str]]:
+    """The Liberty comments on filled values: the library header's lines, and a note per table
+    or pin capacitance holding one (by the name ``charflow diff`` gives it)."""
+    if not result.filled:
+        return (), {}
+    places: dict[str, list[str]] = {}
+    for f in result.filled:
+        p = f.failure.point
+        where = _where(config, p)
+        names = _tables_of(result.plan, p)
+        if isinstance(p, sweep.TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
+            # Pin capacitance comes from the charges at the smallest load.
+            pins = [p.related, *(pin for pin, _, _ in f.record.side_charges)]
+            names += [pin_name(p.cell, pin, "capacitance") for pin in dict.fromkeys(pins)]
+        for name in names:
+            places.setdefault(name, []).append(where)
+    header = (
+        f"gaps: the values of {len(result.filled)} failed point(s) were filled by "
+        f'{result.gap_report.method}, not simulated; they are listed under "filled" in '
+        f"{config.name}.json",
+    )
+    notes = {}
+    method = result.gap_report.method
+    for name, where in places.items():
+        shown = "; ".join(where[:NOTE_POINTS]) + ("; ..." if len(where) > NOTE_POINTS else "")
+        notes[name] = f"{len(where)} value(s) filled by {method}, not simulated, at {shown}"
+    return header, notes
+
+
+def _where(config: LibraryConfig, p: sweep.Point) -> str:
+    """A point's place in its table, in library units."""
+    t, c = config.time_scale, config.cap_scale
+    tu, cu = config.time_unit, config.cap_unit
+    if isinstance(p, sweep.ConstraintPoint):
+        return f"data slew {p.data_slew / t:.4g} {tu}, clock slew {p.clock_slew / t:.4g} {tu}"
+    where = f"slew {p.slew / t:.4g} {tu}, load {p.load / c:.4g} {cu}"
+    if p.other_load is not None:
+        where += f", other load {p.other_load / c:.4g} {cu}"
+    return where
+
+
+def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]:
+    """Write the waveforms of the points that gave no measurement (``faults``), the JSON
+    (always) and the Liberty files (only when every point was measured or filled): the
+    default one, and with two-output cells also their three-axis form (``liberty.file_names``)."""
+    out_dir = Path(out_dir)
+    cells = dict.fromkeys(p.cell for p in result.plan.points)
+    written = faults.write(config, result.faults, out_dir, cells)
+    json_path = out_dir / f"{config.name}.json"
+    write_atomic(json_path, json.dumps(to_json(config, result), indent=1) + "\n")
+    written.append(json_path)
+    if not result.failures:
+        header, notes = fill_notes(config, result)
+        header = (*provenance.liberty_header(result.provenance), *stale_notes(result), *header)
+        # The default file has two-axis tables only; the three-axis form goes beside it.
+        forms = (False, True) if liberty.has_three_axes(result.cells) else (False,)
+        for three_axes, name in zip(forms, liberty.file_names(config), strict=False):
+            text = liberty.render(
+                config,
+                result.cells,
+                result.cell_power,
+                header=header,
+                notes=notes,
+                three_axes=three_axes,
+            )
+            write_atomic(out_dir / name, text)
+            written.append(out_dir / name)
+        if len(forms) == 1:
+            # A three-axis file of an earlier run would not match this library.
+            stale = out_dir / liberty.file_names(config)[1]
+            try:
+                stale.unlink(missing_ok=True)
+            except OSError as exc:
+                reason = f"cannot remove an earlier run's file: {exc.strerror or exc}"
+                raise OutputError(reason, file=stale) from exc
+    return written

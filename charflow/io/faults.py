@@ -1,0 +1,187 @@
+"""The saved waveforms of failed points: a CSV and a PNG each, for inspection.
+
+Every failed point whose simulation ran is written to ``<out>/failed/<cell>/<index>-<slug>``
+(``.csv`` and ``.png``): the index counts the cell's failed points in the run's order, the slug
+is the point's label. The CSV opens with ``#`` comment lines naming the point (cell, arc, kind,
+state, edges, slew, loads), the reason and the units; then a header row (``time_s`` and one
+``<node>_V`` column per node) and the samples, SI. The PNG draws the same voltages over time
+with the library's delay and slew thresholds as horizontal lines.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from charflow.config.library import LibraryConfig
+from charflow.execution.sweep import ConstraintPoint, Point, PulsePoint, TimingPoint
+from charflow.measurement.combinational import Failure
+from charflow.measurement.power import TogglePoint
+from charflow.records import logic
+from charflow.records.errors import OutputError
+
+FOLDER = "failed"
+SLUG_LENGTH = 72
+DPI = 110
+
+
+def paths(failures: Iterable[Failure]) -> dict[Point, tuple[str, str]]:
+    """(CSV, PNG) path relative to the output folder, per failed point that has a waveform."""
+    out: dict[Point, tuple[str, str]] = {}
+    count: dict[str, int] = {}
+    for f in failures:
+        if f.waveform is None:
+            continue
+        cell = f.point.cell
+        count[cell] = count.get(cell, 0) + 1
+        label = f.point.label.replace("!", "not")  # a `when` of !IB is not one of IB
+        slug = re.sub(r"[^A-Za-z0-9.+]+", "-", label).strip("-")[:SLUG_LENGTH]
+        stem = f"{FOLDER}/{_safe(cell)}/{count[cell]:03d}-{slug.rstrip('-')}"
+        out[f.point] = (f"{stem}.csv", f"{stem}.png")
+    return out
+
+
+def _safe(name: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_.+-]+", "_", name)
+
+
+def describe(p: Point) -> list[tuple[str, str]]:
+    """The point's coordinates, named, with their units (SI)."""
+    if isinstance(p, TimingPoint):
+        side = " ".join(f"{pin}={int(v)}" for pin, v in p.side) or "-"
+        other = "-" if p.other_load is None else f"{p.other_load:.6g} F"
+        return [
+            ("arc", f"{p.related}->{p.output}"),
+            ("kind", p.kind),
+            ("when", logic.when_condition(p.state_side) or "-"),
+            ("side inputs", side),
+            ("input edge", p.input_edge),
+            ("output edge", p.output_edge),
+            ("slew", f"{p.slew:.6g} s"),
+            ("load", f"{p.load:.6g} F"),
+            ("other load", other),
+        ]
+    if isinstance(p, TogglePoint):
+        return [
+            ("pin", p.related),
+            ("kind", "hidden-power toggle"),
+            ("when", logic.when_condition(p.side) or "-"),
+            ("input edge", p.input_edge),
+            ("slew", f"{p.slew:.6g} s"),
+            ("load", f"{p.load:.6g} F"),
+        ]
+    if isinstance(p, ConstraintPoint):
+        return [
+            ("arc", f"{p.related}->{p.constrained}"),
+            ("kind", p.kind),
+            ("data edge", p.data_edge),
+            ("clock edge", p.clock_edge),
+            ("data slew", f"{p.data_slew:.6g} s"),
+            ("clock slew", f"{p.clock_slew:.6g} s"),
+        ]
+    if isinstance(p, PulsePoint):
+        return [
+            ("pin", p.pin),
+            ("kind", f"minimum {p.level} pulse"),
+            ("slew", f"{p.slew:.6g} s"),
+        ]
+    raise TypeError(f"not a sweep point: {p!r}")
+
+
+def csv_text(config: LibraryConfig, failure: Failure) -> str:
+    w = failure.waveform
+    names = [name for name, _ in w.nodes]
+    lines = [
+        "# charflow: the simulation of a point that gave no measurement",
+        f"# library: {config.name}",
+        f"# cell: {failure.point.cell}",
+        f"# point: {failure.point.label}",
+        *(f"# {key}: {value}" for key, value in describe(failure.point)),
+        f"# reason: {' '.join(failure.reason.split())}",
+        f"# units: time_s in s; {', '.join(f'{n}_V' for n in names)} in V (node voltages)",
+        ",".join(["time_s", *(f"{n}_V" for n in names)]),
+    ]
+    columns = [w.time, *(v for _, v in w.nodes)]
+    lines += (",".join(f"{x:.9g}" for x in row) for row in zip(*columns, strict=True))
+    return "\n".join(lines) + "\n"
+
+
+def _levels(config: LibraryConfig) -> dict[float, list[str]]:
+    """Threshold (V) → what the library uses it for."""
+    thr, vdd = config.thresholds, config.process.vdd
+    uses: dict[float, list[str]] = {}
+    for edge in ("rise", "fall"):
+        named = [
+            (thr.delay_input(edge), f"input delay {edge}"),
+            (thr.delay_output(edge), f"output delay {edge}"),
+            *((x, f"slew {edge}") for x in thr.slew_band(edge)),
+        ]
+        for fraction, use in named:
+            entry = uses.setdefault(round(fraction * vdd, 12), [])
+            if use not in entry:
+                entry.append(use)
+    return uses
+
+
+def png_bytes(config: LibraryConfig, failure: Failure) -> bytes:
+    w = failure.waveform
+    fig = Figure(figsize=(8.0, 4.8))
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    scale = config.time_scale
+    for name, v in w.nodes:
+        ax.plot(w.time / scale, v, label=f"{name}", linewidth=1.2)
+    for level, uses in sorted(_levels(config).items()):
+        ax.axhline(level, color="0.6", linewidth=0.7, linestyle="--")
+        ax.annotate(
+            f"{level:.3g} V: {', '.join(uses)}",
+            (0.0, level),
+            xycoords=("axes fraction", "data"),
+            xytext=(3, 2),
+            textcoords="offset points",
+            fontsize=6,
+            color="0.4",
+        )
+    ax.set_xlabel(f"time ({config.time_unit})")
+    ax.set_ylabel("V")
+    ax.legend(loc="center right", fontsize=8)
+    reason = failure.reason if len(failure.reason) <= 110 else failure.reason[:107] + "..."
+    ax.set_title(f"{failure.point.cell} {failure.point.label}\n{reason}", fontsize=8)
+    # Fixed margins: tight_layout would cost more than the drawing (many failed points).
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.9, bottom=0.1)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
+def write(
+    config: LibraryConfig, failures: Sequence[Failure], out_dir: Path, cells: Iterable[str] = ()
+) -> list[Path]:
+    """Write every failed point's waveform (see the module text). The waveforms a previous run
+    left for the failed points' cells and for ``cells`` (those the run covers) go first, so
+    those folders show this run only."""
+    from charflow.flow.characterize import write_atomic
+
+    out_dir = Path(out_dir)
+    for cell in dict.fromkeys([*cells, *(f.point.cell for f in failures)]):
+        folder = out_dir / FOLDER / _safe(cell)
+        try:
+            for old in (*folder.glob("*.csv"), *folder.glob("*.png")):
+                old.unlink()
+        except OSError as exc:
+            raise OutputError(f"cannot remove an old waveform: {exc}", file=folder) from exc
+    written = []
+    where = paths(failures)
+    for f in failures:
+        if f.point not in where:
+            continue
+        csv_path, png_path = (out_dir / p for p in where[f.point])
+        write_atomic(csv_path, csv_text(config, f))
+        write_atomic(png_path, png_bytes(config, f))
+        written += [csv_path, png_path]
+    return written

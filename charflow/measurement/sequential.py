@@ -1,0 +1,821 @@
+"""Flip-flops: clock-to-output and asynchronous-control arcs, setup, hold and pulse widths.
+
+Every experiment writes the opposite value into the flop with a first clock edge, then
+applies the event under test (a second clock edge, an asynchronous control, a pulse), so
+each output edge is measured from a properly initialised state. Constraints are found by
+bisection on the data-to-clock offset; a point passes when the right value is captured and
+clock-to-output has pushed out by no more than ``simulation.pushout`` over its relaxed value.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from charflow.config.library import CellSpec, LibraryConfig, Thresholds
+from charflow.execution.sweep import (
+    ConstraintPoint,
+    PulsePoint,
+    TimingPoint,
+    capture_values,
+    inactive_controls,
+    plan,
+    stored_output,
+)
+from charflow.measurement.combinational import (
+    EXTRA_POINTS,
+    LOGIC_MARGIN,
+    PARKED_GRID,
+    REFINE_SLACK,
+    REFINEMENTS,
+    Measurement,
+    alters,
+    backend_for,
+    breakpoints,
+    point_loads,
+    simulate,
+)
+from charflow.measurement.waves import (
+    KeepWaveform,
+    check_settled,
+    integral,
+    single_crossing,
+    step_at,
+    waveform,
+)
+from charflow.records.errors import FunctionalMismatchError, MeasurementError
+from charflow.simulation import stimulus
+from charflow.simulation.backends import Request
+from charflow.simulation.netlist import Deck
+from charflow.simulation.stimulus import Ramp
+
+if TYPE_CHECKING:
+    from charflow.measurement.ffpower import EventEnergy
+
+WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew, at least
+WINDOW_DOUBLINGS = 5  # ... doubled up to this many times until the cell settles in it
+WINDOW_STEPS = 200  # first-run samples across a window, before refinement
+GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
+CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
+
+
+# How a minimum pulse width was found: pulses that reach the far rail, their width set by a flat
+# top; or, where the narrowest of those still works, pulses at the same edge rate that turn
+# back before the rail, their width at the thresholds set by how far they go (RUNT).
+FULL = "full swing"
+RUNT = "runt"
+
+
+@dataclass(frozen=True, slots=True)
+class SearchResult:
+    point: ConstraintPoint | PulsePoint
+    # s: the constraint (may be negative) or the minimum pulse width; None for a pulse that
+    # works at every width the search could shape (``note`` says why)
+    value: float | None
+    runs: int  # simulations the search took
+    sim_seconds: float
+    # s: the search's last failing and passing values; failing None when no value failed
+    bracket: tuple[float | None, float] | None = None
+    stimulus: str = FULL  # a pulse search's pulse shape
+    note: str = ""  # why a pulse search has no value
+
+
+@dataclass(frozen=True, slots=True)
+class Outcome:
+    """One flop experiment: when the measured event crossed its threshold, when the output
+    did, and the output's transition (already derated)."""
+
+    t_event: float
+    t_out: float
+    transition: float
+    # (pin, edge, C): the charge each pin asked for drew over its window
+    charges: tuple[tuple[str, str, float], ...] = ()
+    energy: EventEnergy | None = None  # asked for with ``run_event``'s states
+    stopped: float | None = None  # s, simulated time at which the run ended
+    stop_cap: float | None = None  # s, the time the run could not go past
+
+    @property
+    def delay(self) -> float:
+        return self.t_out - self.t_event
+
+
+class _Bench:
+    """The waveform timeline shared by every experiment on one cell."""
+
+    def __init__(self, config: LibraryConfig, deck: Deck, window: float | None = None) -> None:
+        cell = config.cell(deck.cell)
+        self.config, self.cell = config, cell
+        self.vdd = config.process.vdd
+        self.thr = config.thresholds
+        largest = max(cell.grid.slew)
+        self.window = window or settle_window(config, deck)
+        ramp = stimulus.ramp(largest, "rise", self.thr, self.vdd)
+        # Half a period holds the slowest edge and its settling, with room for a data edge.
+        self.half = 2.0 * ramp.duration + self.window
+        self.lead = ramp.start
+
+    def level(self, value: bool) -> float:
+        return self.vdd if value else 0.0
+
+    def clock(
+        self,
+        slew: float,
+        edges: int,
+        high: float | None = None,
+        low: float | None = None,
+        start: float | None = None,
+    ) -> tuple[str, Ramp]:
+        """A clock PULSE with ``edges`` active edges, one period (2 × half) apart, the first at
+        ``start`` (``lead`` by default); ``high`` and ``low`` set the flat time of the active
+        and of the inactive phase (pulse widths). Returns the vector and the ramp of the last
+        active edge."""
+        flop = self.cell.flop
+        active = stimulus.ramp(slew, flop.edge, self.thr, self.vdd)
+        back = stimulus.ramp(slew, "fall" if flop.edge == "rise" else "rise", self.thr, self.vdd)
+        v1, v2 = active.levels
+        width = self.half - active.duration if high is None else high
+        rest = self.half - back.duration if low is None else low
+        period = active.duration + width + back.duration + rest
+        first = self.lead if start is None else start
+        last = first + (edges - 1) * period
+        if edges == 1:
+            period = 1.0  # one edge only: the next is far beyond the run
+        vector = stimulus.pulse_vector(v1, v2, first, active.duration, back.duration, width, period)
+        return vector, Ramp(flop.edge, last, active.duration, self.vdd)
+
+    def data(
+        self, pin: str, old: bool, new: bool, start: float, slew: float, hold: float = 1.0
+    ) -> tuple[str, Ramp, Ramp]:
+        """A data PULSE leaving ``old`` at ``start``, staying ``hold`` at ``new``, then
+        returning; with the ramps of its two edges (timed from ``start``)."""
+        go = stimulus.ramp(slew, "rise" if new else "fall", self.thr, self.vdd)
+        back = stimulus.ramp(slew, "fall" if new else "rise", self.thr, self.vdd)
+        go = Ramp(go.edge, start, go.duration, self.vdd)
+        back = Ramp(back.edge, start + go.duration + hold, back.duration, self.vdd)
+        if old == new:
+            return stimulus.constant(self.level(old)), go, back
+        vector = stimulus.pulse_vector(
+            self.level(old), self.level(new), start, go.duration, back.duration, hold, 2.0
+        )
+        return vector, go, back
+
+
+_WINDOWS: dict[tuple, float] = {}
+
+
+def settle_window(config: LibraryConfig, deck: Deck) -> float:
+    """How long a flop experiment runs past its event, and the clock's phases hold:
+    ``simulation.window`` when set; else WINDOW_SLEWS × the grid's largest slew, doubled up to
+    WINDOW_DOUBLINGS times until the cell's slowest events (its clock and control arcs to the
+    first output at the sharpest slew and the largest loads; the other output moving draws
+    supply current, which must settle too) measure cleanly in it: a window follows the cell,
+    not only the grid. A cell that measures in none keeps the shortest, and its points report
+    why. Probed once per worker and testbench."""
+    if config.simulation.window:
+        return config.simulation.window
+    cell = config.cell(deck.cell)
+    key = (deck.key, cell.grid, config.thresholds, config.simulation)
+    if key not in _WINDOWS:
+        base = WINDOW_SLEWS * max(cell.grid.slew)
+        slowest = [
+            p
+            for p in plan(config, [cell.name]).points
+            if isinstance(p, TimingPoint)
+            and p.output == cell.outputs[0].pin
+            and (p.slew, p.load) == (min(cell.grid.slew), max(cell.grid.load))
+            and p.other_load in (None, max(cell.grid.related_load, default=None))
+        ]
+        _WINDOWS[key] = base
+        for window in (base * 2**k for k in range(WINDOW_DOUBLINGS + 1)):
+            try:
+                for point in slowest:
+                    measure_clocked(config, deck, point, window)
+            except MeasurementError:
+                continue
+            _WINDOWS[key] = window
+            break
+    return _WINDOWS[key]
+
+
+def _crossing_after(t, v, level: float, edge: str, after: float, what: str) -> float:
+    keep = t >= after
+    return single_crossing(t[keep], v[keep], level, edge, what)
+
+
+def _settle_samples(ramps: tuple[Ramp, ...], event: Ramp, window: float) -> tuple[float, ...]:
+    """Breakpoints over each input ramp whose charge is measured, other than the event's (the
+    event has its own), and the first part of the settle window after it, where the cell's
+    nodes answer it: at the run's coarse step a demo flop's data pin came out 6–12 % short of
+    a 1 ps-step run (and scattered from point to point), with these within 1 %."""
+    starts = sorted({r.start: r for r in ramps if r.start != event.start}.items())
+    if not starts:
+        return ()
+    n = max(2, EXTRA_POINTS // len(starts))
+    spans = (np.linspace(r.start, r.end + CHARGE_SPAN * window, n) for _, r in starts)
+    return tuple(float(x) for span in spans for x in span)
+
+
+def run_event(
+    config: LibraryConfig,
+    deck: Deck,
+    waves: dict[str, str],
+    loads: dict[str, float],
+    *,
+    event: Ramp,
+    output: str,
+    before: bool,
+    after: bool,
+    quiet_until: float = 0.0,
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...] = (),
+    states: tuple[bool, bool] | None = None,
+    window: float | None = None,
+) -> tuple[Outcome, int, float]:
+    """Simulate one experiment; the output must hold ``before`` until the event and settle at
+    ``after`` (a bool level) once it, within ``window`` (``settle_window`` unless given).
+    Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
+    the charge the pin draws from its ramp's start. With
+    ``states`` (the flop's state before and after the event) the event's energy is measured
+    too (``ffpower.event_energy``). Returns the outcome, simulations and simulator seconds."""
+    cell = config.cell(deck.cell)
+    vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
+    out_node = deck.output_node(output)
+    edge = "rise" if after else "fall"
+    tol = sim.settle * vdd
+    window = window or settle_window(config, deck)
+    # Stop once the output has settled after the event, and after any late data edge.
+    arm = max(event.end, quiet_until)
+    level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
+    stop_when = f"time > {arm:.6g} when {level}" if before != after else None
+    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
+    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
+    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
+    recorded = (*nodes.values(), *branches)
+    if states is not None:
+        from charflow.measurement import ffpower
+
+        # The energy window ends when the supply current is quiet, some time after the
+        # outputs settle: the run goes on to its cap.
+        recorded = tuple(dict.fromkeys((*recorded, *ffpower.event_vectors(cell, deck))))
+        stop_when = None
+    stop = arm + window
+    max_step = window / WINDOW_STEPS
+    grid = PARKED_GRID
+    inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
+    if states is not None:
+        grid = ffpower.event_grid(event, window, inside)
+    runs, seconds = 0, 0.0
+    backend = backend_for(config)
+    what = f"output {output}"
+    saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
+    for refine in range(REFINEMENTS + 1):
+        request = Request(
+            deck,
+            alters(deck, cell, waves, loads, grid),
+            f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
+            recorded,
+            stop_when=stop_when,
+        )
+        result, attempts = simulate(backend, request)
+        runs, seconds = runs + attempts, seconds + result.seconds
+        t, v = result.vectors["time"], result.vectors[out_node]
+        held = v[t <= event.start]
+        with saved:
+            if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
+                raise MeasurementError(
+                    f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
+                    "flop was not initialised"
+                )
+            # Overshooting the rail as it arrives is settled; stopping short of it is not.
+            after_level = vdd if after else 0.0
+            check_settled(
+                v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what, window
+            )
+            if before == after:
+                nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
+                return nothing, runs, seconds
+            # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
+            t_ev = event.time_at(thr.delay_input(event.edge))
+            t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
+            band = sorted(
+                _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
+            )
+        raw = band[1] - band[0]
+        wanted = raw / sim.samples_per_edge
+        coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
+        if coarse <= REFINE_SLACK * wanted or refine == REFINEMENTS:
+            break
+        # Dense samples only around the output edge: the rest of the run keeps its step.
+        margin = coarse + raw
+        grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted, inside)
+    # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
+    charges = tuple(
+        (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
+        for p, r, b in charge_windows
+    )
+    energy = None
+    if states is not None:
+        energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads)
+    outcome = Outcome(
+        t_ev, t_out, raw / thr.slew_derate, charges, energy, stopped=float(t[-1]), stop_cap=stop
+    )
+    return outcome, runs, seconds
+
+
+def _capture_waves(
+    bench: _Bench, old: dict[str, bool], new: dict[str, bool], slew: float, start: float
+) -> dict[str, str]:
+    """Every non-clock input moving from ``old`` to ``new`` at ``start``."""
+    return {p: bench.data(p, old[p], new[p], start, slew)[0] for p in new}
+
+
+def measure_clocked(
+    config: LibraryConfig, deck: Deck, point: TimingPoint, window: float | None = None
+) -> Measurement:
+    """A clock arc (second active edge after writing the opposite value) or an asynchronous
+    control arc (after writing the value it changes); ``window`` as in ``run_event``. Every
+    input that moves in the run is asked for its charge on each of its edges (``_clock_run``,
+    ``_control_run``)."""
+    cell = config.cell(point.cell)
+    bench = _Bench(config, deck, window)
+    out_after = point.output_edge == "rise"
+    if point.kind == "clock":
+        stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
+        waves, event, windows = _clock_run(bench, point, stored)
+    else:
+        stored = point.kind == "preset"
+        waves, event, windows = _control_run(bench, point, stored)
+    outcome, runs, seconds = run_event(
+        config,
+        deck,
+        waves,
+        point_loads(cell, point),
+        event=event,
+        output=point.output,
+        before=stored_output(cell, point.output, not stored),
+        after=out_after,
+        charge_windows=windows,
+        states=(not stored, stored),
+        window=bench.window,
+    )
+    (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
+    energy = outcome.energy
+    return Measurement(
+        point=point,
+        delay=outcome.delay,
+        transition=outcome.transition,
+        input_charge=measured,
+        side_charges=tuple(
+            c for c in outcome.charges if (c[0], c[1]) != (point.related, point.input_edge)
+        ),
+        runs=runs,
+        sim_seconds=seconds,
+        stopped=outcome.stopped,
+        stop_cap=outcome.stop_cap,
+        supply_energy=energy.supply,
+        internal_energy=energy.internal,
+        static_current=energy.static,
+    )
+
+
+def _clock_run(bench: _Bench, point: TimingPoint, stored: bool):
+    """Waves of a clock arc's run: the first active edge writes the opposite value; half a
+    period later the inactive edge, the flop holding; half-way through the inactive phase
+    the data moves (the latch that captures is open: the pins' load as a driver sees it while
+    setting up); then the measured edge. Charge windows: each data pin over its edge, the clock
+    over its inactive edge (until the data moves) and over its measured edge."""
+    cell, flop = bench.cell, bench.cell.flop
+    new, old = dict(point.side), capture_values(cell, not stored)
+    clock, event = bench.clock(point.slew, edges=2)
+    change = event.start - bench.half / 2
+    moves = {p: bench.data(p, old[p], new[p], change, min(cell.grid.slew)) for p in new}
+    waves = {p: vector for p, (vector, _, _) in moves.items()}
+    waves[flop.clock] = clock
+    back = stimulus.ramp(
+        point.slew, "fall" if flop.edge == "rise" else "rise", bench.thr, bench.vdd
+    )
+    windows = (
+        *((p, go, event.start) for p, (_, go, _) in moves.items() if new[p] != old[p]),
+        (flop.clock, Ramp(back.edge, event.start - bench.half, back.duration, bench.vdd), change),
+        (flop.clock, event, None),
+    )
+    return waves, event, windows
+
+
+def _control_run(bench: _Bench, point: TimingPoint, stored: bool):
+    """Waves of a clear or preset arc's run: the control starts asserted and is released at
+    the run's start (the flop takes the control's value and keeps it); half a period later one
+    active clock edge writes the other value; a quarter period after the clock's inactive edge
+    (its currents have died down and stay out of the event's energy window) the control is
+    asserted again: the measured event. Charge windows: the release until the clock edge, the
+    assertion until the run's end."""
+    cell, flop, thr, vdd = bench.cell, bench.cell.flop, bench.thr, bench.vdd
+    waves = {
+        p: stimulus.constant(bench.level(v)) for p, v in capture_values(cell, not stored).items()
+    }
+    clock, first = bench.clock(min(cell.grid.slew), edges=1, start=bench.lead + bench.half)
+    waves[flop.clock] = clock
+    release = "fall" if point.input_edge == "rise" else "rise"
+    up = stimulus.ramp(point.slew, release, thr, vdd)
+    event = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, vdd)
+    held = event.start - bench.lead - up.duration
+    waves[point.related] = stimulus.pulse_vector(
+        *up.levels, bench.lead, up.duration, event.duration, held, 1.0
+    )
+    windows = (
+        (point.related, Ramp(release, bench.lead, up.duration, vdd), first.start),
+        (point.related, event, None),
+    )
+    return waves, event, windows
+
+
+def _sensitized_data(cell: CellSpec, pin: str) -> dict[str, bool]:
+    """Values of the other data pins (controls inactive) under which ``pin`` decides the
+    next state, with the next state equal to ``pin``'s value where the function allows."""
+    fixed = inactive_controls(cell)
+    others = [p for p in cell.data_inputs if p != pin]
+    flop = cell.flop
+    for bits in itertools.product((False, True), repeat=len(others)):
+        assign = {**fixed, **dict(zip(others, bits, strict=True))}
+        if flop.next_state.evaluate({**assign, pin: True}) != flop.next_state.evaluate(
+            {**assign, pin: False}
+        ):
+            return assign
+    raise MeasurementError(f"the next state {flop.next_state.to_liberty()} never depends on {pin}")
+
+
+def _bisect(passes, lo: float, hi: float, tol: float) -> tuple[float, float]:
+    """Halve [lo (fails), hi (passes)] to ``tol``; the final (failing, passing) bracket."""
+    while hi - lo > tol:
+        mid = 0.5 * (lo + hi)
+        if passes(mid):
+            hi = mid
+        else:
+            lo = mid
+    return lo, hi
+
+
+def _search(passes, lo: float, hi: float, tol: float, what: str) -> tuple[float, float]:
+    """Bisection for the smallest passing value between ``lo`` (must fail) and ``hi`` (must
+    pass); returns the final (failing, passing) bracket."""
+    if not passes(hi):
+        raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
+    if passes(lo):
+        raise MeasurementError(f"{what}: passes even at {lo:.4g} s; the search does not bracket")
+    return _bisect(passes, lo, hi, tol)
+
+
+class _Trials:
+    """Counts simulations and keeps the relaxed clock-to-output delay for the pass test."""
+
+    def __init__(self, config: LibraryConfig, deck: Deck) -> None:
+        self.config, self.deck = config, deck
+        self.runs, self.seconds = 0, 0.0
+        self.reference: float | None = None
+        self.failed = None  # the waveform of the last trial that gave no measurement
+
+    def __call__(self, waves, loads, **kw) -> Outcome | None:
+        try:
+            outcome, runs, seconds = run_event(self.config, self.deck, waves, loads, **kw)
+        except MeasurementError as exc:
+            self.runs += 1
+            self.failed = exc.waveform
+            return None
+        self.runs, self.seconds = self.runs + runs, self.seconds + seconds
+        return outcome
+
+    def in_time(self, outcome: Outcome | None) -> bool:
+        if outcome is None:
+            return False
+        if self.reference is None:
+            self.reference = outcome.delay
+            return True
+        return outcome.delay <= (1.0 + self.config.simulation.pushout) * self.reference
+
+
+def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
+    """Setup: the least data-before-clock offset that still captures in time. Hold: the least
+    clock-to-data-change offset that keeps the captured value (either may be negative).
+    Recovery and removal: the same for a clear or preset's release (``_release_setup``)."""
+    passes, lo, hi, trials = _constraint_setup(config, deck, point)
+    # A search that fails on its relaxed trial is saved with that trial's run.
+    with KeepWaveform(lambda: trials.failed):
+        bracket = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
+
+
+def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+    """The pass test of a constraint point, its failing and its relaxed (passing) offset."""
+    if point.kind in ("recovery", "removal"):
+        return _release_setup(config, deck, point)
+    cell = config.cell(point.cell)
+    bench, flop = _Bench(config, deck), cell.flop
+    out = cell.outputs[0].pin
+    others = _sensitized_data(cell, point.constrained)
+    final = point.data_edge == "rise"  # the constrained pin's value after its edge
+    captured = final if point.kind == "setup" else not final
+    stored = flop.next_state.evaluate({**others, point.constrained: captured})
+    old = {**others, point.constrained: not captured}
+    clock, event = bench.clock(point.clock_slew, edges=2)
+    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    trials = _Trials(config, deck)
+    before, after = stored_output(cell, out, not stored), stored_output(cell, out, stored)
+    pin = point.constrained
+
+    def waves_at(offset: float):
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
+        waves[flop.clock] = clock
+        probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
+        go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
+        back_along = probe[2].time_at(config.thresholds.delay_input(probe[2].edge)) - probe[2].start
+        if point.kind == "setup":
+            vector, go, _ = bench.data(
+                pin, not captured, captured, t_clk - offset - go_along, point.data_slew
+            )
+            quiet = go.end
+        else:
+            start = t_clk - bench.half / 2 - go_along
+            hold = t_clk + offset - back_along - start - probe[1].duration
+            vector, _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
+            quiet = back.end + bench.window / 4
+        waves[pin] = vector
+        return waves, quiet
+
+    def passes(offset: float) -> bool:
+        waves, quiet = waves_at(offset)
+        outcome = trials(
+            waves, loads, event=event, output=out, before=before, after=after, quiet_until=quiet
+        )
+        return trials.in_time(outcome)
+
+    relaxed = bench.half / 2
+    if point.kind == "setup":
+        lo = -(
+            stimulus.ramp(point.data_slew, point.data_edge, config.thresholds, bench.vdd).duration
+            + event.duration
+        )
+    else:
+        lo = -relaxed / 2
+    return passes, lo, relaxed, trials
+
+
+def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+    """Recovery: the least release-before-clock offset of a clear or preset after which the
+    clock edge still captures the other value in time. Removal: the least clock-to-release
+    offset for which the edge captures nothing, the control still holding the flop (either may
+    be negative). The data asks for the value the control does not force."""
+    cell = config.cell(point.cell)
+    bench, flop = _Bench(config, deck), cell.flop
+    out = cell.outputs[0].pin
+    pin = point.constrained
+    clear = flop.clear is not None and pin in flop.clear.variables()
+    forced = not clear  # the state the control holds
+    released = point.data_edge == "rise"  # the pin's value once released
+    clock, event = bench.clock(point.clock_slew, edges=2)
+    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    trials = _Trials(config, deck)
+    held = stored_output(cell, out, forced)
+    recovery = point.kind == "recovery"
+    probe = bench.data(pin, not released, released, 0.0, point.data_slew)
+    go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
+    values = capture_values(cell, not forced)
+
+    def passes(offset: float) -> bool:
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
+        waves[flop.clock] = clock
+        release_at = t_clk - offset if recovery else t_clk + offset
+        waves[pin], go, _ = bench.data(
+            pin, not released, released, release_at - go_along, point.data_slew
+        )
+        after = stored_output(cell, out, not forced) if recovery else held
+        quiet = go.end if recovery else go.end + bench.window / 4
+        outcome = trials(
+            waves, loads, event=event, output=out, before=held, after=after, quiet_until=quiet
+        )
+        # Recovery is judged like setup (captured, and in time); removal by the flop staying.
+        return trials.in_time(outcome) if recovery else outcome is not None
+
+    relaxed = bench.half / 2
+    # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
+    # edge captures nothing, or captures.
+    lo = -(probe[1].duration + event.duration) if recovery else -relaxed
+    return passes, lo, relaxed, trials
+
+
+@dataclass(frozen=True, slots=True)
+class _Pulse:
+    """A pulse's two edges at one slew, timed from 0; its width is threshold to threshold."""
+
+    first: Ramp  # leaves the resting level
+    second: Ramp  # comes back
+    along_in: float  # fraction of the swing the first edge has made at its threshold
+    along_out: float  # the same for the second edge
+
+    @classmethod
+    def at(cls, slew: float, level: str, thr: Thresholds, vdd: float) -> _Pulse:
+        up, down = stimulus.ramp(slew, "rise", thr, vdd), stimulus.ramp(slew, "fall", thr, vdd)
+        first, second = (up, down) if level == "high" else (down, up)
+        along = [
+            (r.time_at(thr.delay_input(r.edge)) - r.start) / r.duration for r in (first, second)
+        ]
+        return cls(first, second, *along)
+
+    @property
+    def narrowest(self) -> float:
+        """The narrowest full-swing pulse: no flat top."""
+        return (1.0 - self.along_in) * self.first.duration + self.along_out * self.second.duration
+
+    @property
+    def floor(self) -> float:
+        """The width of a pulse that turns back just as it has crossed both thresholds."""
+        d1, d2 = self.first.duration, self.second.duration
+        turn = self.along_in + self.along_out - 1.0
+        return max(0.0, turn * d2, -turn * d1)
+
+    def flat(self, width: float) -> float:
+        return max(width - self.narrowest, 0.0)
+
+    def depth(self, width: float) -> float:
+        """The fraction of the swing a pulse ``width`` wide makes at the slew's edge rate:
+        below the narrowest full-swing width it turns back before the far rail."""
+        if width >= self.narrowest:
+            return 1.0
+        d1, d2 = self.first.duration, self.second.duration
+        return (width + self.along_in * d1 + (1.0 - self.along_out) * d2) / (d1 + d2)
+
+    def vector(self, start: float, width: float) -> tuple[str, float]:
+        """The PULSE vector of a pulse ``width`` wide starting at ``start``, and its end."""
+        depth, flat = self.depth(width), self.flat(width)
+        v1, v2 = self.first.levels
+        rise, fall = depth * self.first.duration, depth * self.second.duration
+        vector = stimulus.pulse_vector(v1, v1 + depth * (v2 - v1), start, rise, fall, flat, 1.0)
+        return vector, start + rise + flat + fall
+
+
+def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> SearchResult:
+    """The narrowest pulse (threshold to threshold) on a clock or control pin that still does
+    its job: the clock captures in time, the control forces the state. Full-swing pulses
+    first; when the narrowest of them (no flat top) still works, a control's pulses keep the
+    slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
+    crosses the thresholds. A pulse that works even then has no minimum: no value, and the
+    result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
+    cell = config.cell(point.cell)
+    bench = _Bench(config, deck)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    trials = _Trials(config, deck)
+    clock = point.pin == cell.flop.clock
+    test = _clock_pulse_test if clock else _control_pulse_test
+    passes, relaxed = test(bench, point, shape, trials)
+    tol = config.simulation.bisect_tolerance
+    with KeepWaveform(lambda: trials.failed):
+        if not passes(relaxed):
+            raise MeasurementError(
+                f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
+            )
+        if not passes(shape.narrowest):
+            bracket = _bisect(passes, shape.narrowest, relaxed, tol)
+            return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
+        if clock:
+            note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
+            return SearchResult(
+                point, None, trials.runs, trials.seconds, (None, shape.narrowest), FULL, note
+            )
+        floor = min(shape.floor + tol, shape.narrowest)
+        if passes(floor):
+            note = "works even as a pulse that turns back just past the thresholds: no width fails"
+            return SearchResult(point, None, trials.runs, trials.seconds, (None, floor), RUNT, note)
+        bracket = _bisect(passes, floor, shape.narrowest, tol)
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket, RUNT)
+
+
+def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+    """The pass test of a clock pulse by its width (full swing: a flat top of the width less
+    the edges'), and a relaxed width: two writes, the second must capture in time."""
+    cell, flop = bench.cell, bench.cell.flop
+    out = cell.outputs[0].pin
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    stored = True
+    new, old = capture_values(cell, stored), capture_values(cell, not stored)
+    active_level = "high" if flop.edge == "rise" else "low"
+
+    def passes(width: float) -> bool:
+        if point.level == active_level:
+            clock, event = bench.clock(point.slew, edges=2, high=shape.flat(width))
+            change = event.start - bench.half / 2
+        else:
+            clock, event = bench.clock(point.slew, edges=2, low=shape.flat(width))
+            change = bench.lead + bench.half / 2
+        waves = _capture_waves(bench, old, new, min(cell.grid.slew), change)
+        waves[flop.clock] = clock
+        outcome = trials(
+            waves,
+            loads,
+            event=event,
+            output=out,
+            before=stored_output(cell, out, not stored),
+            after=stored_output(cell, out, stored),
+        )
+        return trials.in_time(outcome)
+
+    return passes, bench.half - shape.first.duration
+
+
+def _control_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+    """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
+    relaxed width: with the other value stored, the pulse must force the control's value."""
+    cell, flop = bench.cell, bench.cell.flop
+    out = cell.outputs[0].pin
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    stored = flop.preset is not None and point.pin in flop.preset.variables()
+    old = capture_values(cell, not stored)
+    clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
+    start = first_edge.end + bench.half
+
+    def passes(width: float) -> bool:
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
+        waves[flop.clock] = clock
+        waves[point.pin], end = shape.vector(start, width)
+        event = Ramp(shape.first.edge, start, shape.first.duration, bench.vdd)
+        outcome = trials(
+            waves,
+            loads,
+            event=event,
+            output=out,
+            before=stored_output(cell, out, not stored),
+            after=stored_output(cell, out, stored),
+            quiet_until=end,
+        )
+        return outcome is not None
+
+    return passes, bench.half
+
+
+def check_flop(config: LibraryConfig, deck: Deck) -> None:
+    """Every data vector is captured from either stored value, and every asynchronous control
+    forces its value: simulated with relaxed timing; raise naming the vector."""
+    cell = config.cell(deck.cell)
+    # The configured window, else the shortest: a cell that does not work should not be
+    # probed for a window first.
+    shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
+    bench, flop = _Bench(config, deck, shortest), cell.flop
+    slew = cell.grid.slew[len(cell.grid.slew) // 2]
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    fixed = inactive_controls(cell)
+    for bits in itertools.product((False, True), repeat=len(cell.data_inputs)):
+        new = {**fixed, **dict(zip(cell.data_inputs, bits, strict=True))}
+        stored = flop.next_state.evaluate(new)
+        for previous in (False, True):
+            old = capture_values(cell, previous)
+            clock, event = bench.clock(slew, edges=2)
+            waves = _capture_waves(bench, old, new, slew, event.start - bench.half / 2)
+            waves[flop.clock] = clock
+            vector = " ".join(f"{p}={int(v)}" for p, v in new.items())
+            for out in cell.outputs:
+                try:
+                    run_event(
+                        config,
+                        deck,
+                        waves,
+                        loads,
+                        event=event,
+                        output=out.pin,
+                        before=stored_output(cell, out.pin, previous),
+                        after=stored_output(cell, out.pin, stored),
+                        window=bench.window,
+                    )
+                except MeasurementError as exc:
+                    raise FunctionalMismatchError(
+                        f"storing {int(previous)} then clocking in {vector} should give "
+                        f"{out.pin}={int(stored_output(cell, out.pin, stored))}: {exc.reason}",
+                        cell=cell.name,
+                        pin=out.pin,
+                        vector=vector,
+                    ) from exc
+
+
+def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+    """The pass test of a constraint search as a function of the offset, for re-checking a
+    result: a fresh relaxed reference is simulated first."""
+    passes, _, relaxed, _ = _constraint_setup(config, deck, point)
+    if not passes(relaxed):
+        raise MeasurementError(f"{point.label}: fails even with relaxed timing")
+    return passes
+
+
+def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
+    """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
+    swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
+    relaxed reference is simulated first."""
+    cell = config.cell(point.cell)
+    bench = _Bench(config, deck)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    test = _clock_pulse_test if point.pin == cell.flop.clock else _control_pulse_test
+    passes, relaxed = test(bench, point, shape, _Trials(config, deck))
+    if not passes(relaxed):
+        raise MeasurementError(f"{point.label}: fails even with relaxed timing")
+    return passes

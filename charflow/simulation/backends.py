@@ -1,0 +1,582 @@
+"""ngspice backends: in-process (libngspice through PySpice) and one batch process per run.
+
+Both take the same request: a deck, the ``alter`` commands that set one point's values, an
+analysis line and the vectors wanted back, and both return those vectors as numpy arrays.
+The in-process backend keeps one simulator per worker process with the last deck loaded,
+so the models and the cell are parsed once per worker and cell, not once per point.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import re
+import shutil
+import signal
+import subprocess
+import tempfile
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from charflow.records.errors import (
+    DeckReadError,
+    SimulatorError,
+    SimulatorHungError,
+    SimulatorTimeoutError,
+)
+from charflow.simulation.netlist import Card, Deck, model_files, spice_cards
+
+# Fallback ladder for runs that do not converge: each rung adds options to the previous one.
+RETRY_LADDER: tuple[tuple[str, ...], ...] = (
+    (),
+    ("method=gear",),
+    ("method=gear", "gmin=1e-10", "itl4=100"),
+)
+
+
+# ngspice's defaults of the options a run may set, put back after it.
+RESETTABLE = {"method": "trap", "gmin": "1e-12", "itl4": "10", "reltol": "1e-3", "trtol": "7"}
+_OPTION_LINE = re.compile(r"^[ \t]*\.options?[ \t]+(.*)$", re.IGNORECASE | re.MULTILINE)
+
+
+def deck_options(text: str) -> dict[str, str]:
+    """The ``name=value`` settings of a deck's ``.option`` lines, names in lower case."""
+    found = {}
+    for line in _OPTION_LINE.findall(text):
+        for name, value in re.findall(r"(\w+)\s*=\s*(\S+)", line):
+            found[name.lower()] = value
+    return found
+
+
+# ngspice evaluates BSIM devices with OpenMP threads (two unless told otherwise). For a cell's
+# few devices that costs more than it saves, and with one worker per core the spinning
+# threads of two workers starve each other (measured: 15x slower); parallelism is across points.
+SINGLE_THREAD = "set num_threads=1"
+QUIET = "set noinit"  # no initial-solution listing per transient: a dozen callbacks less each
+RELEASE_EVERY = 200  # runs between clearing ngspice's command history (it grows per command)
+# Testbenches a worker keeps loaded (ngspice switches between them with `setcirc`), so a
+# worker that goes back to a cell does not read the models again: with a foundry's model
+# file that read can take seconds.
+MAX_CIRCUITS = 16
+# s a halted run may take to stop: ngspice checks for a halt between time steps, so only a
+# simulator stuck inside one step (in a model's code, say) takes longer.
+HALT_GRACE = 5.0
+
+
+@dataclass(frozen=True, slots=True)
+class Request:
+    deck: Deck
+    alters: tuple[str, ...]
+    analysis: str  # "op" or "tran STEP STOP 0 MAXSTEP"
+    vectors: tuple[str, ...]  # node names and "<source>#branch"
+    options: tuple[str, ...] = ()
+    stop_when: str | None = (
+        None  # ngspice condition that ends a transient early, e.g. "v(y) > 1.19"
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class Result:
+    vectors: dict[str, np.ndarray] = field(hash=False)
+    seconds: float  # wall time of the analysis
+
+
+def _simulator_class() -> type:
+    """PySpice's simulator, told when a run in ngspice's background thread ends."""
+    from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
+
+    class Simulator(NgSpiceShared):
+        done = threading.Event()
+
+        @staticmethod
+        def _background_thread_running(stopped, ngspice_id, user_data):
+            # ngspice calls this from its background thread, with True as that thread ends.
+            if stopped:
+                ffi.from_handle(user_data).done.set()
+            return 0
+
+    return Simulator
+
+
+class SharedBackend:
+    """libngspice in this process; one instance per worker (PySpice allows one per process).
+
+    Analyses run in ngspice's background thread while this one waits with the timeout: a run
+    past it is halted and raises SimulatorTimeoutError; one that does not halt leaves the
+    simulator unusable (SimulatorHungError), and only ending the process frees it.
+    """
+
+    name = "shared"
+
+    def __init__(self, timeout: float = 60.0) -> None:
+        # PySpice logs every simulator message at error level; charflow reports them itself.
+        logging.getLogger("PySpice").setLevel(logging.CRITICAL)
+        try:
+            simulator = _simulator_class()
+        except ImportError as exc:  # pragma: no cover - PySpice is a dependency
+            raise SimulatorError("PySpice is not installed") from exc
+        self.timeout = timeout
+        try:
+            self._ng = simulator.new_instance()
+        except OSError as exc:
+            raise SimulatorError(
+                f"cannot load the ngspice shared library ({exc}); install libngspice0 "
+                "(Debian: apt-get install libngspice0-dev) or use backend 'subprocess'"
+            ) from exc
+        # PySpice clears ngspice's command history every so many commands, which also drops a
+        # pending `stop when`; charflow clears it itself between runs instead.
+        self._ng.NUMBER_OF_EXEC_CALLS_TO_RELEASE_MEMORY = float("inf")
+        self._ng.exec_command(SINGLE_THREAD)
+        self._ng.exec_command(QUIET)
+        self._circuits: list[str] = []  # keys of the decks loaded, in ngspice's order
+        self._runs = 0
+        self._loaded: str | None = None
+        self._version: str | None = None
+        self._broken = ""  # ngspice's messages once it has given up on reading a deck
+        self._hung = ""  # the run that did not stop when halted
+
+    def version(self) -> str:
+        """The shared library's version and build date, as ngspice reports them."""
+        if self._version is None:
+            self._version = _version_of(self._ng.exec_command("version -s"))
+        return self._version
+
+    def _command(self, command: str, cell: str) -> None:
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+
+        try:
+            self._ng.exec_command(command)
+        except NgSpiceCommandError as exc:
+            raise SimulatorError(
+                f"ngspice command '{command}' failed: {_messages(self._ng.stderr)}", cell=cell
+            ) from exc
+
+    def load(self, deck: Deck) -> None:
+        """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
+        if self._hung:
+            raise SimulatorHungError(
+                f"the simulator of this process is stuck in an earlier run ({self._hung})",
+                cell=deck.cell,
+            )
+        if self._broken:
+            raise DeckReadError(
+                "the simulator cannot run any deck after an earlier one it could not read "
+                f"({self._broken}); fix that one first",
+                cell=deck.cell,
+            )
+        if self._loaded == deck.key:
+            return
+        if deck.key in self._circuits:
+            # ngspice numbers its circuits newest first, from 1.
+            self._ng.exec_command(f"setcirc {self._circuits.index(deck.key) + 1}")
+            self._loaded = deck.key
+            return
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCircuitError
+
+        self._loaded = None
+        if len(self._circuits) >= MAX_CIRCUITS:
+            # The oldest goes: made current, then removed.
+            self._ng.exec_command(f"setcirc {len(self._circuits)}")
+            self._ng.exec_command("remcirc")
+            self._circuits.pop()
+        # The compatibility mode applies to decks read after it is set.
+        self._ng.exec_command(
+            f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
+        )
+        listed = len(self._circuits)
+        try:
+            self._ng.load_circuit(deck.text)
+            failed = None
+        # PySpice raises NameError when ngspice gives up reading (e.g. a model card it cannot
+        # parse), NgSpiceCircuitError when it read the deck but reported errors.
+        except (NgSpiceCircuitError, NameError) as exc:
+            failed = exc
+        output = f"{self._ng.stdout}\n{self._ng.stderr}"
+        # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
+        # either would shift the numbering of the others under them.
+        if self._listed() > listed:
+            if failed is None:
+                self._circuits.insert(0, deck.key)
+                self._loaded = deck.key
+                return
+            self._ng.exec_command("remcirc")
+        if "cannot recover" in output:
+            self._broken = read_cause(output)
+        raise deck_read_error("ngspice cannot read the testbench", deck, output) from failed
+
+    def _listed(self) -> int:
+        """How many circuits ngspice holds (``setcirc`` without a number lists them)."""
+        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
+
+        try:
+            listing = self._ng.exec_command("setcirc")
+        except NgSpiceCommandError:
+            return 0  # ngspice refuses the command when it holds no circuit
+        return len(re.findall(r"^(?:current\s+)?\d+\s", listing, flags=re.M | re.I))
+
+    def _analyse(self, analysis: str, cell: str) -> str | None:
+        """Run ``analysis`` in ngspice's background thread, waiting at most the timeout; return
+        the messages of a run that reported errors, None for a clean one."""
+        ng = self._ng
+        ng.done.clear()
+        ng.clear_output()
+        if ng._ngspice_shared.ngSpice_Command(f"bg_{analysis}".encode()):
+            raise SimulatorError(f"ngspice refused '{analysis}'", cell=cell)
+        if not ng.done.wait(self.timeout):
+            ng._ngspice_shared.ngSpice_Command(b"bg_halt")
+            if not ng.done.wait(HALT_GRACE):
+                self._hung = f"'{analysis}', still running {self.timeout + HALT_GRACE:g} s on"
+                raise SimulatorHungError(
+                    f"'{analysis}' ran past the {self.timeout:g} s timeout and did not stop "
+                    f"within {HALT_GRACE:g} s of being halted",
+                    cell=cell,
+                )
+            raise SimulatorTimeoutError(
+                f"'{analysis}' did not finish within the {self.timeout:g} s timeout and was halted",
+                cell=cell,
+            )
+        # PySpice's message callback flags errors (ngspice also calls some notes errors).
+        if ng._error_in_stdout or ng._error_in_stderr:
+            return _messages(ng._stderr)
+        return None
+
+    def run(self, request: Request) -> Result:
+        cell = request.deck.cell
+        self.load(request.deck)
+        for command in request.alters:
+            self._command(command, cell)
+        for option in request.options:
+            self._command(f"option {option}", cell)
+        if request.stop_when:
+            self._command(f"stop when {request.stop_when}", cell)
+        before = self._ng.last_plot
+        start = time.perf_counter()
+        try:
+            # Errors are judged by the plot made: ngspice flags notes (gmin stepping) as errors.
+            failed = self._analyse(request.analysis, cell)
+        except SimulatorTimeoutError:
+            self._after(request)  # the halted run's options and partial plot go
+            raise
+        seconds = time.perf_counter() - start
+        plot = self._ng.last_plot
+        try:
+            if plot == before or plot == "const":
+                raise SimulatorError(
+                    f"'{request.analysis}' did not run: {failed or 'no output'}", cell=cell
+                )
+            vectors = self._vectors(plot, request.vectors, cell)
+        finally:
+            self._after(request)
+        # A stop condition that was met interrupts the run on purpose.
+        if failed and "condition met" not in failed and request.analysis.startswith("tran"):
+            stop = float(request.analysis.split()[2])
+            if vectors["time"][-1] < stop * (1 - 1e-9):
+                raise SimulatorError(
+                    f"transient stopped at {vectors['time'][-1]:.4g} s of {stop:.4g} s: {failed}",
+                    cell=cell,
+                )
+        return Result(vectors, seconds)
+
+    def _after(self, request: Request) -> None:
+        """Undo what a run set up, so the next run starts from the deck as loaded."""
+        if request.options:
+            self._reset_options(request.options, request.deck)
+        if request.stop_when:
+            self._ng.exec_command("delete all")
+        self._ng.exec_command("destroy all")
+        self._runs += 1
+        if self._runs % RELEASE_EVERY == 0:
+            self._release()
+
+    def _release(self) -> None:
+        from PySpice.Spice.NgSpice.Shared import FFI
+
+        self._ng._ngspice_shared.ngSpice_Command(FFI.NULL)
+
+    def _vectors(self, plot: str, names: tuple[str, ...], cell: str) -> dict[str, np.ndarray]:
+        # Only the vectors asked for, straight from the simulator's memory (one copy each).
+        from PySpice.Spice.NgSpice.Shared import FFI, ffi
+
+        out = {}
+        for name in ("time", *names) if plot.startswith("tran") else names:
+            info = self._ng._ngspice_shared.ngGet_Vec_Info(f"{plot}.{name}".encode())
+            # Transient and operating-point vectors are real; anything else is not ours.
+            if info == FFI.NULL or info.v_realdata == FFI.NULL:
+                raise SimulatorError(f"ngspice returned no vector {name} in plot {plot}", cell=cell)
+            data = ffi.buffer(info.v_realdata, info.v_length * 8)
+            out[name] = np.frombuffer(data, dtype=np.float64).copy()
+        return out
+
+    def _reset_options(self, options: tuple[str, ...], deck: Deck) -> None:
+        """Put each option a run set back to the deck's own value, ngspice's default if the
+        deck sets none (a process's ``options`` are the deck's ``.option`` lines)."""
+        values = {**RESETTABLE, **deck_options(deck.text)}
+        for option in options:
+            key = option.split("=")[0].strip().lower()
+            if key in values:
+                self._command(f"option {key}={values[key]}", deck.cell)
+
+
+class SubprocessBackend:
+    """One ``ngspice -b`` process per run: slower, but a crash or hang costs only that run."""
+
+    name = "subprocess"
+
+    def __init__(self, timeout: float = 60.0, executable: str | None = None) -> None:
+        self._exe = executable or shutil.which("ngspice")
+        if self._exe is None:
+            raise SimulatorError(
+                "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
+            )
+        self.timeout = timeout
+        self._version: str | None = None
+
+    def version(self) -> str:
+        """The executable's version and build date, as ``ngspice -v`` reports them."""
+        if self._version is None:
+            try:
+                proc = subprocess.run(
+                    [self._exe, "-v"], capture_output=True, text=True, timeout=self.timeout
+                )
+            except (OSError, subprocess.TimeoutExpired) as exc:
+                raise SimulatorError(f"cannot ask ngspice for its version: {exc}") from exc
+            self._version = _version_of(proc.stdout + proc.stderr)
+        return self._version
+
+    def run(self, request: Request) -> Result:
+        cell = request.deck.cell
+        with tempfile.TemporaryDirectory(prefix="charflow-") as tmp:
+            out = Path(tmp) / "vectors.txt"
+            names = (
+                ("time", *request.vectors)
+                if request.analysis.startswith("tran")
+                else request.vectors
+            )
+            control = [
+                ".control",
+                "set wr_singlescale",
+                "set wr_vecnames",
+                SINGLE_THREAD,
+                *request.alters,
+                *(f"option {o}" for o in request.options),
+                *([f"stop when {request.stop_when}"] if request.stop_when else []),
+                request.analysis,
+                f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
+                ".endc",
+            ]
+            text = re.sub(
+                r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M
+            )
+            deck_path = Path(tmp) / "deck.sp"
+            deck_path.write_text(text, encoding="utf-8")
+            if request.deck.compat:
+                # ngspice reads .spiceinit from its working folder before the deck.
+                (Path(tmp) / ".spiceinit").write_text(f"set ngbehavior={request.deck.compat}\n")
+            start = time.perf_counter()
+            try:
+                proc = subprocess.run(
+                    [self._exe, "-b", str(deck_path)],
+                    capture_output=True,
+                    text=True,
+                    timeout=self.timeout,
+                    cwd=tmp,
+                    env={**os.environ, "LC_ALL": "C"},
+                )
+            except subprocess.TimeoutExpired as exc:
+                raise SimulatorTimeoutError(
+                    f"ngspice did not finish within the {self.timeout:g} s timeout and was killed",
+                    cell=cell,
+                ) from exc
+            seconds = time.perf_counter() - start
+            if proc.returncode < 0:
+                raise SimulatorError(
+                    f"ngspice crashed ({_signal_name(-proc.returncode)}): "
+                    f"{_messages((proc.stdout + proc.stderr).splitlines())}",
+                    cell=cell,
+                )
+            if not out.is_file():
+                output = f"{proc.stdout}\n{proc.stderr}"
+                # ngspice ends with a fatal error when it cannot read the deck: options cannot
+                # help, so the fallback ladder is not tried.
+                if re.search(_UNREADABLE, output, re.IGNORECASE):
+                    what = f"ngspice cannot read the testbench (exit {proc.returncode})"
+                    raise deck_read_error(what, request.deck, output)
+                raise SimulatorError(
+                    f"ngspice wrote no results (exit {proc.returncode}): "
+                    f"{_messages(output.splitlines())}",
+                    cell=cell,
+                )
+            table = np.loadtxt(out, skiprows=1, ndmin=2)
+        # wrdata writes the plot's scale column first (for tran too, where "time" is also
+        # asked for): the vectors asked for are the last columns.
+        offset = table.shape[1] - len(names)
+        vectors = {n: table[:, offset + i].copy() for i, n in enumerate(names)}
+        if not request.analysis.startswith("tran"):
+            vectors = {n: v[-1:] for n, v in vectors.items()}
+        return Result(vectors, seconds)
+
+
+def _wrdata_name(name: str) -> str:
+    if name == "time":
+        return "time"
+    if name.endswith("#branch"):
+        return f"i({name[: -len('#branch')]})"
+    return f"v({name})"
+
+
+def _signal_name(number: int) -> str:
+    try:
+        return signal.Signals(number).name
+    except ValueError:
+        return f"signal {number}"
+
+
+def _version_of(text: str) -> str:
+    """``ngspice-39, Creation Date: ...`` from ngspice's banner; the whole banner otherwise."""
+    name = re.search(r"ngspice-\S+", text)
+    date = re.search(r"creation date:.*", text, re.I)
+    keep = [m.group(0).strip() for m in (name, date) if m]
+    return ", ".join(keep) or " ".join(text.split())
+
+
+def _messages(lines: list[str] | str) -> str:
+    if isinstance(lines, str):
+        lines = lines.splitlines()
+    # Once each, in order: ngspice repeats a warning at every failed time step.
+    keep = list(
+        dict.fromkeys(
+            ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")
+        )
+    )
+    interesting = [
+        ln
+        for ln in keep
+        if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)
+    ]
+    return "; ".join((interesting or keep)[-6:]) or "no message"
+
+
+# ngspice's lines that say nothing about what went wrong.
+_NOISE = re.compile(
+    r"^(note:|circuit:|please check your input|error: ngspice\.dll cannot recover"
+    r"|simulation interrupted|error: fatal error in ngspice|warning: can't find the init)",
+    re.IGNORECASE,
+)
+# A line that introduces the card it is about, printed on the next line.
+_INTRODUCES = re.compile(r"(:|from line)$", re.IGNORECASE)
+# The cards ngspice quotes after such an introduction, and the line numbers it gives (of the
+# card's first line in its own file, which ngspice does not name).
+_QUOTED = re.compile(
+    r"(?:from line|error on line:|on line \d+ :|expression err:|could not find include file)"
+    r"\s*(.+)",
+    re.IGNORECASE,
+)
+_LINE_NUMBER = re.compile(r"(?:line no\.|on line)\s+(\d+)", re.IGNORECASE)
+# ngspice's words when it cannot read a deck at all.
+_UNREADABLE = r"fatal error|error on line|could not find include file|unknown subckt"
+QUOTE_CHARS = 60  # of a quoted card, matched against the files: ngspice cuts long ones short
+
+
+def read_cause(output: str) -> str:
+    """ngspice's account of a deck it cannot read, whole: each line once, a line that
+    introduces a card joined with that card."""
+    parts: list[str] = []
+    for line in (ln.strip() for ln in output.splitlines()):
+        if not line or _NOISE.match(line):
+            continue
+        if parts and _INTRODUCES.search(parts[-1]):
+            parts[-1] += " " + line
+        else:
+            parts.append(line)
+    return "; ".join(dict.fromkeys(parts)) or "no message"
+
+
+def _cards(text: str) -> list[Card]:
+    """Each card of a SPICE text in lower case, as ngspice quotes cards."""
+    return [Card(c.text.lower(), c.lines) for c in spice_cards(text)]
+
+
+def locate(cause: str, deck: Deck) -> tuple[Path, int | None] | None:
+    """The file and line of the card ngspice quotes in ``cause``: in the cell's netlist or a
+    file the deck reads; a card at a line number ngspice gives first. A card found only in the
+    cell's rendered text (a template's) gives the template, with no line."""
+    quoted = [
+        " ".join(q.split()).lower().removesuffix("...").rstrip(" }")[:QUOTE_CHARS]
+        for q in _QUOTED.findall(cause.replace("; ", "\n"))
+    ]
+    quoted = [q for q in quoted if q]
+    numbers = {int(n) for n in _LINE_NUMBER.findall(cause)}
+    files = [f for f in (deck.source, *model_files(deck.text, Path.cwd())) if f is not None]
+    found = []
+    for path in dict.fromkeys(files):
+        try:
+            text = path.read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            continue
+        for card in _cards(text):
+            for at in (card.text.find(q) for q in quoted):
+                if at >= 0:
+                    found.append((card.line not in numbers, path, card.line_at(at)))
+    if found:
+        _, path, line = min(found, key=lambda f: f[0])
+        return path, line
+    in_cell = any(card.text.find(q) >= 0 for card in _cards(deck.cell_text) for q in quoted)
+    return (deck.source, None) if in_cell and deck.source is not None else None
+
+
+def _missing_models(cause: str, deck: Deck) -> str:
+    """For each model ngspice cannot find, where the files the deck reads define it, if
+    anywhere (binned cards ``name.1``, ``name.2`` … too): a card in a ``.lib`` section the deck
+    does not read, or bins that do not cover a device's size, are common slips."""
+    notes = []
+    files = model_files(deck.text, Path.cwd())
+    for name in dict.fromkeys(re.findall(r"can't find model '([^']+)'", cause, re.I)):
+        card = re.compile(rf"^[ \t]*\.model[ \t]+{re.escape(name)}(\.\d+)?\s", re.I | re.M)
+        places = []
+        for path in files:
+            try:
+                text = path.read_text(encoding="utf-8", errors="replace")
+            except OSError:
+                continue
+            lines = (text.count("\n", 0, m.start()) + 1 for m in card.finditer(text))
+            places += [f"{path} line {n}" for n in lines]
+        notes.append(
+            f"model {name} is defined at {', '.join(places)}: in a part the testbench does "
+            "not read, or in bins none of which covers the device's W and L"
+            if places
+            else f"no file the testbench reads defines a model {name}"
+        )
+    return "".join(f"; {n}" for n in notes)
+
+
+def deck_read_error(what: str, deck: Deck, output: str) -> DeckReadError:
+    """``what`` with ngspice's whole cause, naming the file and line it is about when its
+    messages let them be found, or else the files the deck reads."""
+    cause = read_cause(output)
+    where = locate(cause, deck)
+    cause += _missing_models(cause, deck)
+    if where is not None:
+        return DeckReadError(f"{what}: {cause}", file=where[0], line=where[1], cell=deck.cell)
+    files = ", ".join(map(str, model_files(deck.text, Path.cwd())))
+    read = f" (not located; the testbench reads {files})" if files else ""
+    return DeckReadError(f"{what}: {cause}{read}", cell=deck.cell)
+
+
+_SHARED: list[SharedBackend] = []
+
+
+def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:
+    if name == "shared":
+        # One per process: PySpice hands every caller the same simulator, whose loaded
+        # circuits this backend keeps track of.
+        if not _SHARED:
+            _SHARED.append(SharedBackend(timeout))
+        _SHARED[0].timeout = timeout
+        return _SHARED[0]
+    if name == "subprocess":
+        return SubprocessBackend(timeout=timeout)
+    raise SimulatorError(f"unknown backend {name!r}; use 'shared' or 'subprocess'")

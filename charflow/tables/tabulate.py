@@ -1,0 +1,247 @@
+"""From measurements to tables: per arc and state, and the worst case over states.
+
+Quantities follow Liberty's names: ``cell_rise``/``cell_fall`` (delay to a rising/falling
+output) and ``rise_transition``/``fall_transition``. The arc's default table holds, point
+by point, the largest value over its sensitizing states.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+
+from charflow.config.library import CellSpec, LibraryConfig
+from charflow.execution.sweep import Arc, ConstraintPoint, Plan, PulsePoint, State
+from charflow.measurement.combinational import Measurement, pin_capacitance
+from charflow.measurement.sequential import SearchResult
+from charflow.records.errors import TableError
+from charflow.tables.table import Axis, Table
+
+SLEW_AXIS = "input_net_transition"
+LOAD_AXIS = "total_output_net_capacitance"
+OTHER_LOAD_AXIS = "related_out_total_output_net_capacitance"
+CONSTRAINED_AXIS = "constrained_pin_transition"
+RELATED_AXIS = "related_pin_transition"
+
+log = logging.getLogger("charflow")
+
+
+def delay_quantity(output_edge: str) -> str:
+    return f"cell_{output_edge}"
+
+
+def transition_quantity(output_edge: str) -> str:
+    return f"{output_edge}_transition"
+
+
+@dataclass(frozen=True, slots=True)
+class StateTables:
+    state: State
+    tables: tuple[Table, ...]
+
+
+@dataclass(frozen=True, slots=True)
+class ArcTables:
+    arc: Arc
+    default: tuple[Table, ...]  # worst case over states
+    states: tuple[StateTables, ...]
+
+    def table(self, quantity: str) -> Table | None:
+        return next((t for t in self.default if t.quantity == quantity), None)
+
+
+@dataclass(frozen=True, slots=True)
+class PinCap:
+    """A pin's capacitance on each input edge, from the charge it drew on that edge; None
+    where no run moved the pin that way (left out of the library, never copied)."""
+
+    pin: str
+    rise: float | None  # F
+    fall: float | None  # F
+
+    @property
+    def capacitance(self) -> float | None:
+        measured = [c for c in (self.rise, self.fall) if c is not None]
+        return max(measured) if measured else None
+
+
+@dataclass(frozen=True, slots=True)
+class ConstraintTables:
+    """Setup or hold of a data pin against the clock (rise_ and fall_constraint tables), or
+    recovery or removal of a control pin (the table of its releasing edge)."""
+
+    pin: str
+    related: str
+    kind: str  # setup | hold | recovery | removal
+    clock_edge: str
+    tables: tuple[Table, ...]
+
+    @property
+    def timing_type(self) -> str:
+        return f"{self.kind}_{'rising' if self.clock_edge == 'rise' else 'falling'}"
+
+
+@dataclass(frozen=True, slots=True)
+class PulseWidth:
+    pin: str
+    level: str  # high | low
+    width: float | None  # s; None: no width the search could shape failed (``note``)
+    stimulus: str  # the pulse shape that found it (sequential.FULL or RUNT)
+    bracket: tuple[float | None, float] | None  # s, the search's last failing, passing width
+    note: str = ""
+
+
+@dataclass(frozen=True, slots=True)
+class CellTables:
+    cell: CellSpec
+    arcs: tuple[ArcTables, ...]
+    pins: tuple[PinCap, ...]
+    constraints: tuple[ConstraintTables, ...] = ()
+    pulses: tuple[PulseWidth, ...] = ()
+
+
+def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
+    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
+    if arc.other:
+        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
+    return tuple(axes)
+
+
+def _grid_table(
+    cell: CellSpec, axes: tuple[Axis, ...], quantity: str, values: dict[tuple, float], unit: str
+) -> Table:
+    grid = np.empty(tuple(len(a.values) for a in axes))
+    for index in np.ndindex(grid.shape):
+        key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
+        try:
+            grid[index] = values[key]
+        except KeyError as exc:
+            where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
+            raise TableError(
+                f"table {quantity} has no measurement at {where}", cell=cell.name
+            ) from exc
+    return Table(axes, grid, quantity, unit)
+
+
+def _state_tables(
+    cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
+) -> StateTables:
+    axes = _axes(cell, arc)
+    mine = [
+        m
+        for m in measured
+        if m.point.related == arc.related
+        and m.point.output == arc.output
+        and m.point.kind == arc.kind
+        and m.point.state_side == state.side
+    ]
+    tables = []
+    for out_edge in arc.output_edges:
+        delays, transitions = {}, {}
+        for m in mine:
+            if m.point.output_edge != out_edge:
+                continue
+            p = m.point
+            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
+            delays[key] = m.delay
+            transitions[key] = m.transition
+        tables.append(_grid_table(cell, axes, delay_quantity(out_edge), delays, "s"))
+        tables.append(_grid_table(cell, axes, transition_quantity(out_edge), transitions, "s"))
+    return StateTables(state, tuple(tables))
+
+
+def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[ConstraintTables, ...]:
+    out = []
+    groups: dict[tuple[str, str], list[SearchResult]] = {}
+    for r in results:
+        if isinstance(r.point, ConstraintPoint):
+            groups.setdefault((r.point.constrained, r.point.kind), []).append(r)
+    slews = cell.grid.constraint_slew or cell.grid.slew
+    axes = (Axis(CONSTRAINED_AXIS, slews), Axis(RELATED_AXIS, slews))
+    for (pin, kind), group in groups.items():
+        tables = []
+        # A control's recovery and removal are for its releasing edge alone.
+        for edge in (e for e in ("rise", "fall") if any(r.point.data_edge == e for r in group)):
+            values = {
+                (r.point.data_slew, r.point.clock_slew): r.value
+                for r in group
+                if r.point.data_edge == edge
+            }
+            tables.append(_grid_table(cell, axes, f"{edge}_constraint", values, "s"))
+        out.append(
+            ConstraintTables(pin, cell.flop.clock, kind, group[0].point.clock_edge, tuple(tables))
+        )
+    return tuple(out)
+
+
+def _pin_cap(cell: str, pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
+    """Each edge's capacitance from that edge's charge; an edge no run made is left out."""
+    found = PinCap(pin, caps.get((pin, "rise")), caps.get((pin, "fall")))
+    for edge in (e for e in ("rise", "fall") if getattr(found, e) is None):
+        log.warning(
+            "cell %s, pin %s: %s_capacitance left out: no run moved the pin on its %s edge",
+            cell,
+            pin,
+            edge,
+            "rising" if edge == "rise" else "falling",
+        )
+    return found
+
+
+def _pulse_width(config: LibraryConfig, r: SearchResult) -> PulseWidth:
+    """A pulse search's result; one with no value is left out of the library, with a warning."""
+    p = r.point
+    if r.value is None:
+        tried = r.bracket[1] / config.time_scale
+        log.warning(
+            "cell %s, pin %s: min_pulse_width_%s left out: %s (%s pulse %.4g %s wide at the "
+            "thresholds, slew %.4g %s)",
+            p.cell,
+            p.pin,
+            p.level,
+            r.note,
+            r.stimulus,
+            tried,
+            config.time_unit,
+            p.slew / config.time_scale,
+            config.time_unit,
+        )
+    return PulseWidth(p.pin, p.level, r.value, r.stimulus, r.bracket, r.note)
+
+
+def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTables, ...]:
+    """Tables for every cell of the plan; every point of the plan must have a result."""
+    cells = []
+    for cell_name in dict.fromkeys(a.cell for a in plan.arcs):
+        cell = config.cell(cell_name)
+        measured = [m for m in results if isinstance(m, Measurement) and m.point.cell == cell_name]
+        searches = [r for r in results if isinstance(r, SearchResult) and r.point.cell == cell_name]
+        arc_tables = []
+        for arc in (a for a in plan.arcs if a.cell == cell_name):
+            states = [_state_tables(cell, arc, st, measured) for st in arc.states]
+            arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
+        caps = pin_capacitance(measured, config.process.vdd)
+        pins = tuple(_pin_cap(cell_name, p, caps) for p in cell.inputs)
+        pulses = tuple(_pulse_width(config, r) for r in searches if isinstance(r.point, PulsePoint))
+        cells.append(
+            CellTables(cell, tuple(arc_tables), pins, _constraints(cell, searches), pulses)
+        )
+    return tuple(cells)
+
+
+def _worst(states: list[StateTables]) -> tuple[Table, ...]:
+    """Per quantity, the point-wise maximum over the states that have it (non-unate arcs
+    reach one output edge from both input edges, in different states)."""
+    by_quantity: dict[str, list[Table]] = {}
+    for st in states:
+        for t in st.tables:
+            by_quantity.setdefault(t.quantity, []).append(t)
+    worst = []
+    for quantity in ("cell_rise", "rise_transition", "cell_fall", "fall_transition"):
+        group = by_quantity.get(quantity)
+        if group:
+            values = np.max(np.stack([t.values for t in group]), axis=0)
+            worst.append(Table(group[0].axes, values, quantity, group[0].unit))
+    return tuple(worst)
