@@ -38,7 +38,7 @@ from pathlib import Path
 from charflow.config import library as config_mod
 from charflow.config.library import LibraryConfig
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
-from charflow.execution import sweep
+from charflow.execution import sweep, workers
 from charflow.measurement import stepsize
 from charflow.records.errors import CharflowError, SimulatorError
 from charflow.simulation import netlist, stimulus
@@ -527,7 +527,7 @@ def run(
     libraries: tuple[str, ...] = LIBRARIES,
 ) -> list[LibraryBench]:
     """The benchmark on each of ``libraries``, in a temporary folder."""
-    jobs = jobs or sweep.default_jobs()
+    jobs = jobs or workers.default_jobs()
     unknown = sorted(set(libraries) - set(LIBRARIES))
     if unknown:
         raise CharflowError(f"no benchmark library {unknown[0]!r}; have {', '.join(LIBRARIES)}")

@@ -15,6 +15,7 @@ from charflow.execution import cluster as cluster_module
 from charflow.execution.store import FILE_NAME, Store
 from charflow.flow import characterize as flow
 from charflow.io import liberty
+from charflow.plan import arcs as planning
 from charflow.records.errors import ClusterError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -99,7 +100,7 @@ def test_a_chunk_whose_worker_dies_runs_alone_here(tmp_path: Path, caplog) -> No
     from charflow.execution import sweep
 
     cfg = config.load(SMALL)
-    points = sweep.plan(cfg, ["QNAND2_P1", "QNOR2_P1"]).points
+    points = planning.plan(cfg, ["QNAND2_P1", "QNOR2_P1"]).points
     # No retries on the cluster: the first death of a worker gives up on its chunk.
     with (
         dask.config.set({"distributed.scheduler.allowed-failures": 0}),

@@ -14,6 +14,7 @@ import pytest
 from charflow.analysis import diff
 from charflow.config import library as config
 from charflow.flow import characterize as flow
+from charflow.records.names import PIN_QUANTITIES, TIMING_QUANTITIES
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -85,9 +86,9 @@ def test_diff_finds_exactly_the_constructed_changes(
     assert c.changed[0].relative == pytest.approx(-0.10, rel=1e-5)
     assert c.changed[1].relative == pytest.approx(0.05, rel=1e-5)
     assert [v for _, v in c.changed[1].coords] == pytest.approx([5e-11, 2e-14])
-    assert c.vanished == tuple(sorted(f"QNOR2_P1 IB->Y {q}" for q in diff.TIMING_QUANTITIES))
-    assert set(c.appeared) == {f"QINV_P2 A->Y {q}" for q in diff.TIMING_QUANTITIES} | {
-        f"QINV_P2 pin A {q}" for q in diff.PIN_QUANTITIES
+    assert c.vanished == tuple(sorted(f"QNOR2_P1 IB->Y {q}" for q in TIMING_QUANTITIES))
+    assert set(c.appeared) == {f"QINV_P2 A->Y {q}" for q in TIMING_QUANTITIES} | {
+        f"QINV_P2 pin A {q}" for q in PIN_QUANTITIES
     }
     assert not c.reshaped
     assert len(c.unchanged) == TABLES - 4 - 2

@@ -21,14 +21,12 @@ from charflow.config import library as config
 from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store
 from charflow.execution.workers import EXIT_HUNG, read_journal
-from charflow.measurement.combinational import (
-    Failure,
-    Measurement,
-    backend_for,
-    measure_chunk,
-    measure_point,
-)
+from charflow.measurement.combinational import backend_for, measure_point
+from charflow.measurement.registry import measure_chunk
+from charflow.plan import arcs as planning
 from charflow.records.errors import SimulatorError, SimulatorTimeoutError
+from charflow.records.outcomes import Failure, Measurement
+from charflow.records.points import TimingPoint
 from charflow.simulation.backends import Request, SharedBackend, SubprocessBackend
 from charflow.simulation.netlist import build_deck
 
@@ -40,8 +38,8 @@ SMALL = DATA / "small_l1.toml"
 ALONE_RTOL = 1e-6
 
 
-def _cell_point(cfg: config.LibraryConfig, cell: str) -> sweep.TimingPoint:
-    return next(p for p in sweep.plan(cfg, [cell]).points if isinstance(p, sweep.TimingPoint))
+def _cell_point(cfg: config.LibraryConfig, cell: str) -> TimingPoint:
+    return next(p for p in planning.plan(cfg, [cell]).points if isinstance(p, TimingPoint))
 
 
 def test_a_hanging_and_a_non_converging_cell_fail_by_name_and_the_rest_is_kept(tmp_path):
@@ -132,7 +130,7 @@ def test_a_killed_worker_costs_no_point(tmp_path, caplog):
         cfg = config.load(path)
     finally:
         path.unlink()
-    points = sweep.plan(cfg).points
+    points = planning.plan(cfg).points
     killed: list[int] = []
 
     def kill_one(outcome: object) -> None:
@@ -165,6 +163,7 @@ from charflow.simulation import backends as simulate
 from charflow.execution import sweep
 from charflow.measurement import combinational as timing
 from charflow.execution import workers
+from charflow.plan import arcs as planning
 from charflow.records.errors import SimulatorHungError
 from charflow.simulation.netlist import build_deck
 
@@ -191,8 +190,8 @@ def test_a_simulator_that_does_not_stop_ends_its_worker_and_keeps_the_journal(tm
     journal = tmp_path / "journal.pickle"
     done = _stuck(
         f"""
-        rc = sweep.plan(cfg, ["RCCELL"]).points[:1]
-        crawl = sweep.plan(cfg, ["CRAWL"]).points[:1]
+        rc = planning.plan(cfg, ["RCCELL"]).points[:1]
+        crawl = planning.plan(cfg, ["CRAWL"]).points[:1]
         workers._work(cfg, build_deck(cfg, cfg.cell("RCCELL")), rc, {str(journal)!r} + "0")
         stick()
         workers._work(cfg, build_deck(cfg, cfg.cell("CRAWL")), crawl, {str(journal)!r})

@@ -14,14 +14,16 @@ from liberty.parser import parse_liberty
 
 from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG
-from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store
 from charflow.flow import characterize as flow
-from charflow.measurement import ffpower, power
-from charflow.measurement.combinational import Measurement
+from charflow.measurement import ffpower, registry, sequential
+from charflow.plan.toggles import plan_toggles, vectors
 from charflow.records.errors import MeasurementError
+from charflow.records.outcomes import Measurement
+from charflow.records.points import TimingPoint
 from charflow.records.units import power_unit
 from charflow.simulation import netlist
+from charflow.tables import power as power_tables
 
 ROOT = Path(__file__).resolve().parents[1]
 SEQ = ROOT / "tests" / "data" / "seq_l1.toml"
@@ -59,7 +61,7 @@ def runs(cfg, tmp_path_factory):
     return first, second, out
 
 
-def _cell_power(result) -> power.CellPower:
+def _cell_power(result) -> power_tables.CellPower:
     return next(c for c in result.cell_power if c.cell == CELL)
 
 
@@ -77,7 +79,11 @@ def test_every_flop_arc_has_finite_positive_energy_tables(runs):
         assert [t.quantity for t in arc.default] == want
         for table in arc.default:
             # The third index is the other output's load, as on the timing tables.
-            assert table.axis_names == (power.SLEW_AXIS, power.LOAD_AXIS, power.OTHER_LOAD_AXIS)
+            assert table.axis_names == (
+                power_tables.SLEW_AXIS,
+                power_tables.LOAD_AXIS,
+                power_tables.OTHER_LOAD_AXIS,
+            )
             assert np.all(np.isfinite(table.values)) and np.all(table.values > 0), arc.arc.label
 
 
@@ -129,12 +135,12 @@ def test_clock_hidden_power_is_positive_per_stored_value(cfg, runs):
         want = ["rise_power", "fall_power"] if both else ["fall_power"]
         assert [t.quantity for t in hidden.tables] == want
         for table in hidden.tables:
-            assert table.axis_names == (power.SLEW_AXIS,)
+            assert table.axis_names == (power_tables.SLEW_AXIS,)
             assert np.all(table.values > 0), (hidden.when, table.quantity)
     # The data pin under either clock level and either stored value, both edges at every slew.
     data = {h.when for h in cell.hidden if h.pin == "D"}
     assert data == {"!CLK&RSTB&!Q", "!CLK&RSTB&Q", "CLK&RSTB&!Q", "CLK&RSTB&Q"}
-    assert len(first.toggles) == len(power.plan_toggles(cfg, [CELL])) == 28
+    assert len(first.toggles) == len(plan_toggles(cfg, [CELL])) == 28
 
 
 def test_a_clock_edge_that_would_change_the_state_is_not_hidden(cfg):
@@ -143,14 +149,14 @@ def test_a_clock_edge_that_would_change_the_state_is_not_hidden(cfg):
     cell = cfg.cell(CELL)
     deck = netlist.build_deck(cfg, cell)
     good = next(
-        p for p in power.plan_toggles(cfg, [CELL]) if p.related == "CLK" and p.input_edge == "rise"
+        p for p in plan_toggles(cfg, [CELL]) if p.related == "CLK" and p.input_edge == "rise"
     )
-    m = power.measure_toggle(cfg, deck, good)
+    m = registry.measure(cfg, deck, good)
     assert m.energy > 0 and m.settled > 0
     flipped = tuple((p, not v) if p == "D" else (p, v) for p, v in good.side)
     bad = dataclasses.replace(good, side=flipped)
     with pytest.raises(MeasurementError, match="leaves its stored level"):
-        power.measure_toggle(cfg, deck, bad)
+        registry.measure(cfg, deck, bad)
 
 
 def test_flop_leakage_depends_on_the_stored_value(monkeypatch):
@@ -159,31 +165,36 @@ def test_flop_leakage_depends_on_the_stored_value(monkeypatch):
     demo = config.load(DEMO)
     cell = demo.cell("QDFF_P1")
     deck = netlist.build_deck(demo, cell)
-    states = power.leakage(demo, deck)
+    states = registry.leakage(demo, deck)
     assert len(states) == 2 * 2**2  # stored value x (D, CLK)
     leak = {s.when: s.power for s in states}
     assert all(w > 0 for w in leak.values())
     spread = [abs(leak[f"{v}&!Q"] / leak[f"{v}&Q"] - 1) for v in ("!D&!CLK", "!D&CLK", "D&!CLK")]
     assert max(spread) > STATE_SPREAD, leak
     # The level read is settled: a hold ten times longer reads the same.
-    for state, vector in ffpower.vectors(cell)[::3]:
-        held = ffpower.state_current(demo, deck, state, vector)
+    window = sequential.settle_window(demo, deck)
+    for state, vector in vectors(cell)[::3]:
+        held = ffpower.state_current(demo, deck, state, vector, window)
         with monkeypatch.context() as longer:
             longer.setattr(ffpower, "_STATIC", {})
             longer.setattr(ffpower, "STATIC_HOLD", 10 * ffpower.STATIC_HOLD)
-            again = ffpower.state_current(demo, deck, state, vector)
+            again = ffpower.state_current(demo, deck, state, vector, window)
         assert again == pytest.approx(held, rel=HOLD_RTOL, abs=0), (state, vector)
 
 
 def test_a_vector_that_forces_the_other_state_is_no_leakage_state(cfg):
     # With RSTB low the clear forces Q = 0: a stored 1 cannot rest under it.
     cell = cfg.cell(CELL)
-    rests = ffpower.vectors(cell)
+    rests = vectors(cell)
     assert len(rests) == 8 + 4
     assert all(state is False for state, v in rests if not v["RSTB"])
     with pytest.raises(MeasurementError, match="cannot hold 1 under D&!CLK&!RSTB"):
         ffpower.state_current(
-            cfg, netlist.build_deck(cfg, cell), True, {"D": True, "CLK": False, "RSTB": False}
+            cfg,
+            netlist.build_deck(cfg, cell),
+            True,
+            {"D": True, "CLK": False, "RSTB": False},
+            window=1e-9,
         )
 
 
@@ -244,6 +255,6 @@ def test_the_store_keeps_flop_energies_and_hidden_power(runs):
     assert len(tables[True]) == len(tables[False]) == 6 + 14
     for old, new in zip(tables[True], tables[False], strict=True):
         np.testing.assert_array_equal(old, new)
-    clocked = [m for m in second.measurements if isinstance(m.point, sweep.TimingPoint)]
+    clocked = [m for m in second.measurements if isinstance(m.point, TimingPoint)]
     assert clocked and all(m.internal_energy is not None for m in clocked)
     assert all(m.static_current is not None for m in clocked)

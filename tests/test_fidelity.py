@@ -26,9 +26,10 @@ from charflow.analysis.fidelity import CENTRE, RANDOM, Probe, compare, probes, s
 from charflow.config import library as config
 from charflow.config.library import Fidelity
 from charflow.config.resources import DEMO_CONFIG
-from charflow.execution import sweep
 from charflow.flow import characterize as flow
 from charflow.measurement import combinational as timing
+from charflow.measurement import registry
+from charflow.records.points import TimingPoint
 from charflow.simulation import netlist
 from charflow.tables.table import Axis, Table
 from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
@@ -224,7 +225,7 @@ def small(ngspice, tmp_path_factory):
     result = flow.characterize(cfg, jobs=2)
     report = fidelity.check(cfg, result.cells, jobs=2)
     out = tmp_path_factory.mktemp("fidelity")
-    paths = fidelity.write(cfg, report, out, jobs=1)
+    paths = report.write_fidelity(cfg, report, out, jobs=1)
     return cfg, result, report, paths
 
 
@@ -317,7 +318,7 @@ def test_demo_arc_values_equal_an_independent_re_simulation(ngspice) -> None:
         assert len(table["compared"]) == 36 + 3
         for record in table["compared"][::6]:
             slew, load = record["index"]
-            point = sweep.TimingPoint("QINV_P1", "A", "Y", (), in_edge, out_edge, slew, load)
+            point = TimingPoint("QINV_P1", "A", "Y", (), in_edge, out_edge, slew, load)
             m = timing.measure_point(cfg, deck, point)
             direct = m.delay if quantity.startswith("cell_") else m.transition
             assert record["simulated"] == pytest.approx(direct, rel=SIM_RTOL)
@@ -353,12 +354,12 @@ def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> N
     point = fidelity.timing_point(template, check.table.axes, probe.coords)
     assert point.kind == "clock" and point.other_load == probe.coords[2]
     deck = netlist.build_deck(cfg, cfg.cell(check.cell))
-    (again,) = timing.measure_chunk(cfg, deck, (point,))
+    (again,) = registry.measure_chunk(cfg, deck, (point,))
     assert fidelity.measured(again, check.table.quantity) == pytest.approx(
         probe.simulated, rel=SIM_RTOL, abs=0
     )
     # Maps drawn in parallel after the sweep's worker pool: the two share joblib's pool.
-    paths = fidelity.write(cfg, report, tmp_path, jobs=2)
+    paths = report.write_fidelity(cfg, report, tmp_path, jobs=2)
     page = paths[1].read_text(encoding="utf-8")
     images = re.findall(r'<img alt="[^"]*" src="data:image/png;base64,([^"]+)">', page)
     assert len(images) == len(report.checks)

@@ -23,16 +23,14 @@ from liberty.parser import parse_liberty
 
 from charflow.cli import main as cli
 from charflow.config import library as config
-from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store, keyring
-from charflow.execution.sweep import ConstraintPoint, Plan, PulsePoint, TimingPoint
 from charflow.flow import characterize as flow
 from charflow.io import faults
-from charflow.measurement import combinational as timing
-from charflow.measurement import sequential
-from charflow.measurement.combinational import Failure, Measurement
-from charflow.measurement.sequential import SearchResult
+from charflow.measurement import registry, sequential
+from charflow.plan import arcs as planning
 from charflow.records.errors import ConfigError, MeasurementError
+from charflow.records.outcomes import Failure, Measurement, SearchResult
+from charflow.records.points import ConstraintPoint, Plan, PulsePoint, TimingPoint
 from charflow.simulation.netlist import build_deck
 from charflow.tables import gaps
 
@@ -275,7 +273,7 @@ def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
     cfg = config.load(DATA / "seq_l1.toml")
     cfg = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, window=2e-11))
     deck = build_deck(cfg, cfg.cell("QDFFR_P1"))
-    points = sweep.plan(cfg, ["QDFFR_P1"]).points
+    points = planning.plan(cfg, ["QDFFR_P1"]).points
     clocked = next(p for p in points if isinstance(p, TimingPoint) and p.kind == "clock")
     setup = next(p for p in points if isinstance(p, ConstraintPoint) and p.kind == "setup")
     pulse = next(p for p in points if isinstance(p, PulsePoint))
@@ -285,7 +283,7 @@ def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
     assert names[0] == clocked.output and {"CLK", "D", "RSTB"} <= set(names)
     # Through the worker's chunk, as a sweep runs it: the Failure holds the run, and survives
     # the trip back from a worker process (pickled).
-    outcomes = pickle.loads(pickle.dumps(timing.measure_chunk(cfg, deck, [setup, pulse])))
+    outcomes = pickle.loads(pickle.dumps(registry.measure_chunk(cfg, deck, [setup, pulse])))
     for point, f in zip((setup, pulse), outcomes, strict=True):
         assert isinstance(f, Failure) and f.point == point
         assert "fails even with relaxed timing" in f.reason
@@ -355,7 +353,7 @@ def test_command_succeeds_when_every_gap_is_filled(filled_run):
 def test_filled_points_never_enter_the_store(filled_run):
     _, cfg, out = filled_run
     doc = json.loads((out / f"{cfg.name}.json").read_text())
-    plan = sweep.plan(cfg)
+    plan = planning.plan(cfg)
     filled = {e["point"] for e in doc["filled"]}
     failed = [p for p in plan.points if p.label in filled]
     assert len(failed) == 6

@@ -25,7 +25,9 @@ from charflow.analysis.gridstudy import Candidate, Study
 from charflow.config import library as config
 from charflow.config.library import Fidelity
 from charflow.execution import sweep
+from charflow.plan.arcs import arcs_of
 from charflow.records.errors import ConfigError
+from charflow.records.points import EDGES, TimingPoint
 from charflow.tables.table import Axis, Table, interpolate
 from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
@@ -205,7 +207,7 @@ def ngspice() -> None:
 @pytest.fixture(scope="module")
 def small_study(ngspice):
     cfg = dataclasses.replace(config.load(SMALL_L1), fidelity=Fidelity(rel_floor=1e-12))
-    requested: list[sweep.TimingPoint] = []
+    requested: list[TimingPoint] = []
     real_run = sweep.run
 
     def recording_run(config_, points, **kwargs):
@@ -229,16 +231,16 @@ def test_every_candidate_grid_is_simulated(small_study) -> None:
     asked = set(requested)
     assert len(asked) == len(requested)  # nothing simulated twice within the study
     assert study.points == len(asked)
-    (state,) = sweep.arcs_of(cfg.cell("QNAND2_P1"))[1].states
+    (state,) = arcs_of(cfg.cell("QNAND2_P1"))[1].states
     assert {(c.placement, c.size) for c in study.candidates} == {
         (p, n) for p in gridstudy.PLACEMENTS for n in (3, 4)
     }
     for c in study.candidates:
         assert c.failures == 0 and c.max_rel is not None
-        nodes = itertools.product(sweep.EDGES, *(a.values for a in c.axes))
-        middles = itertools.product(sweep.EDGES, *(a.values for a in gridstudy.centres(c.axes)))
+        nodes = itertools.product(EDGES, *(a.values for a in c.axes))
+        middles = itertools.product(EDGES, *(a.values for a in gridstudy.centres(c.axes)))
         for edge, slew, load in itertools.chain(nodes, middles):
-            point = sweep.TimingPoint(
+            point = TimingPoint(
                 "QNAND2_P1", "IB", "Y", state.side, edge, state.output_edge(edge), slew, load
             )
             assert point in asked, (c.placement, c.size, point)

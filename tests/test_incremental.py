@@ -22,6 +22,7 @@ from liberty.parser import parse_liberty
 from charflow.analysis import diff
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.execution.store import FILE_NAME
+from charflow.records.names import PIN_QUANTITIES, TIMING_QUANTITIES
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -238,7 +239,7 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
             # cards' junction leakage follows the changed card).
             block = zip(old_lines[i1:i2], where[i1:i2], strict=True)
             outside = [ln for ln, w in block if w[2] == ""]
-            allowed = diff.PIN_QUANTITIES + ("max_transition", "cell_leakage_power", "value")
+            allowed = PIN_QUANTITIES + ("max_transition", "cell_leakage_power", "value")
             assert all(ln.split()[0] in allowed for ln in outside), outside
     assert changed == {
         ("QNAND2_P1", "Y", "IA"),
@@ -250,12 +251,8 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     # charflow diff finds the same: the arc's four tables and its pin's capacitance.
     comparison = diff.compare(diff.read(tmp_path / "old.lib"), diff.read(out / "small_l1.lib"))
     names = {c.name for c in comparison.changed}
-    assert {n for n in names if "->" in n} == {
-        f"QNAND2_P1 IA->Y {q}" for q in diff.TIMING_QUANTITIES
-    }
-    assert {n for n in names if "->" not in n} <= {
-        f"QNAND2_P1 pin IA {q}" for q in diff.PIN_QUANTITIES
-    }
+    assert {n for n in names if "->" in n} == {f"QNAND2_P1 IA->Y {q}" for q in TIMING_QUANTITIES}
+    assert {n for n in names if "->" not in n} <= {f"QNAND2_P1 pin IA {q}" for q in PIN_QUANTITIES}
     assert not comparison.appeared and not comparison.vanished and not comparison.reshaped
     # A stronger NMOS (higher KP) pulls the NAND2 output down faster (square law, Shichman &
     # Hodges, IEEE JSSC, 1968): the falling delay of the re-run arc went down.

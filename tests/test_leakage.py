@@ -15,7 +15,7 @@ import pytest
 
 from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG
-from charflow.measurement import power
+from charflow.measurement import power, registry
 from charflow.records.errors import SimulatorError
 from charflow.simulation import netlist
 
@@ -90,7 +90,7 @@ def test_leakage_matches_a_plain_operating_point(path, name):
     # On the level-1 cards it is the gmin and junction terms alone (see the test below).
     cfg = config.load(path)
     cell = cfg.cell(name)
-    states = power.leakage(cfg, netlist.build_deck(cfg, cell))
+    states = registry.leakage(cfg, netlist.build_deck(cfg, cell))
     for s in states:
         want = _reference(cfg, cell, _vector(s.when))
         assert s.power == pytest.approx(want, rel=REF_RTOL, abs=0), s.when
@@ -121,7 +121,7 @@ def test_flop_leakage_matches_an_operating_point_of_the_held_state(path):
     # node levels (.nodeset; ngspice User's Manual), with no transient at all.
     cfg = config.load(path)
     cell = cfg.cell("QDFF_P1")
-    states = power.leakage(cfg, netlist.build_deck(cfg, cell))
+    states = registry.leakage(cfg, netlist.build_deck(cfg, cell))
     assert len(states) == 8
     for s in states:
         vector = _vector(s.when)
@@ -133,7 +133,7 @@ def test_flop_leakage_matches_an_operating_point_of_the_held_state(path):
 def _at_gmin(monkeypatch, gmin: float, cfg, name: str) -> dict[str, float]:
     with monkeypatch.context() as m:
         m.setattr(power, "LEAKAGE_GMINS", (gmin,))
-        states = power.leakage(cfg, netlist.build_deck(cfg, cfg.cell(name)))
+        states = registry.leakage(cfg, netlist.build_deck(cfg, cfg.cell(name)))
     return {s.when: s.power for s in states}
 
 
@@ -161,7 +161,7 @@ def test_level1_leakage_is_only_the_junction_and_gmin_terms(monkeypatch):
         assert watts == pytest.approx(DEFAULT_GMIN * vdd**2, rel=ANALYTIC_RTOL, abs=0), when
     # charflow's own: at most every junction's saturation current and gmin current at vdd.
     bound = L1_JS * sum(L1_AREAS) * vdd + power.LEAKAGE_GMINS[0] * vdd**2 * len(L1_AREAS)
-    states = power.leakage(cfg, netlist.build_deck(cfg, cfg.cell("QINV_P1")))
+    states = registry.leakage(cfg, netlist.build_deck(cfg, cfg.cell("QINV_P1")))
     assert all(abs(s.power) <= bound for s in states), (bound, states)
 
 
@@ -183,11 +183,11 @@ def test_a_vector_that_does_not_converge_falls_back_to_a_larger_gmin(monkeypatch
     real = power.backend_for(cfg)
     monkeypatch.setattr(power, "backend_for", lambda _c: _Refusing(real, {"gmin=1e-18"}))
     with caplog.at_level(logging.WARNING, logger="charflow"):
-        states = power.leakage(cfg, deck)
+        states = registry.leakage(cfg, deck)
     assert [s.gmin for s in states] == [1e-15, 1e-15]
     assert "leakage measured with gmin 1e-15 S" in caplog.text
     assert "gmin 1e-18 S: no convergence" in caplog.text
     everything = {f"gmin={g:g}" for g in power.LEAKAGE_GMINS}
     monkeypatch.setattr(power, "backend_for", lambda _c: _Refusing(real, everything))
     with pytest.raises(SimulatorError, match=r"vector !A: no leakage.*gmin 1e-12 S: no conv"):
-        power.leakage(cfg, deck)
+        registry.leakage(cfg, deck)

@@ -24,7 +24,7 @@ from charflow.config import library as config
 from charflow.config.library import LibraryConfig
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.flow import characterize as flow
-from charflow.measurement import power
+from charflow.tables import power as power_tables
 from charflow.tables.table import Table
 from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
@@ -429,9 +429,9 @@ def _energy_table(cfg: LibraryConfig, group: Group, table: Table, templates: dic
     got = group.get_group(table.quantity)
     assert table.unit == "J"
     per_axis = {
-        power.SLEW_AXIS: cfg.time_scale,
-        power.LOAD_AXIS: cfg.cap_scale,
-        power.OTHER_LOAD_AXIS: cfg.cap_scale,
+        power_tables.SLEW_AXIS: cfg.time_scale,
+        power_tables.LOAD_AXIS: cfg.cap_scale,
+        power_tables.OTHER_LOAD_AXIS: cfg.cap_scale,
     }
     values = np.asarray(table.values) / cfg.cap_scale
     np.testing.assert_allclose(
@@ -604,7 +604,7 @@ def test_two_output_cell_has_3d_internal_power(bufc: Characterized) -> None:
         assert _text(group["related_pin"]) == "A"
         assert _text(group["equal_or_opposite_output"]) == arc.arc.other
         for table in arc.default:
-            assert table.axis_names[2] == power.OTHER_LOAD_AXIS
+            assert table.axis_names[2] == power_tables.OTHER_LOAD_AXIS
             _energy_table(cfg, group, table, templates)
         by_output[arc.arc.output] = {t.quantity: t.values for t in arc.default}
     assert sorted(by_output) == ["Y", "YB"]

@@ -22,13 +22,14 @@ from charflow.analysis import estimate
 from charflow.cli import main as cli
 from charflow.config import library as config
 from charflow.execution import sweep
-from charflow.execution.sweep import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.flow import characterize as flow
 from charflow.flow import check
 from charflow.measurement import combinational as timing
-from charflow.measurement import power
-from charflow.measurement.combinational import Failure
+from charflow.plan import arcs as planning
+from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import ConfigError, CutOffError
+from charflow.records.outcomes import Failure
+from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import plausible
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -113,7 +114,7 @@ def seq():
 
 def test_every_point_kind_says_where_it_is_in_library_units(seq):
     # seq_l1 is in ns and pf: 2e-11 s = 0.02 ns, 1e-14 F = 0.01 pf (SI prefixes, BIPM 2019).
-    plan = sweep.plan(seq)
+    plan = planning.plan(seq)
     bufc = next(p for p in plan.points if isinstance(p, TimingPoint) and p.output == "YB")
     assert bufc.where(seq) == {
         "cell": "QBUFC_P1",
@@ -135,13 +136,13 @@ def test_every_point_kind_says_where_it_is_in_library_units(seq):
         "pin": "CLK",
         "point": "minimum high pulse, slew 0.01 ns",
     }
-    toggle = power.plan_toggles(seq, ["QDFFR_P1"])[0]
+    toggle = plan_toggles(seq, ["QDFFR_P1"])[0]
     assert toggle.where(seq)["pin"] == "CLK (rise, no output edge)"
     assert toggle.where(seq)["point"] == "slew 0.01 ns, load 0.002 pf"
 
 
 def test_a_failure_reads_as_one_line_naming_its_point(seq):
-    point = sweep.plan(seq, ["QBUFC_P1"]).points[0]
+    point = planning.plan(seq, ["QBUFC_P1"]).points[0]
     told = timing.explain(seq, point, CutOffError("output Y had not settled", cap=2e-9))
     assert str(told).startswith(
         "cell QBUFC_P1, arc A->Y (A rise, Y rise), point slew 0.01 ns, load 0.002 pf, "
@@ -293,7 +294,7 @@ def test_check_lists_each_config_problem_and_counts_them_once(tmp_path):
 
 
 def test_the_progress_bar_counts_each_point_by_its_cost(seq, capsys):
-    points = [*sweep.plan(seq).points, *power.plan_toggles(seq)]
+    points = [*planning.plan(seq).points, *plan_toggles(seq)]
     kinds = {(type(p).__name__, getattr(p, "kind", "")): p.cost for p in points}
     assert kinds[("TimingPoint", "combinational")] == 1
     assert kinds[("TimingPoint", "clock")] == kinds[("TimingPoint", "clear")] == 2

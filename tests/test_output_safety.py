@@ -39,6 +39,7 @@ from charflow.execution import sweep
 from charflow.execution.lock import LOCK_NAME, FolderLock, read_holder
 from charflow.execution.store import FILE_NAME, Store, keyring
 from charflow.flow import characterize as flow
+from charflow.io.atomic import write_atomic
 from charflow.records.errors import OutputError, StoreError
 from charflow.simulation import netlist
 
@@ -334,7 +335,7 @@ def test_an_output_on_a_full_disk_keeps_the_previous_version(
 
     monkeypatch.setattr(flow.tempfile, "mkstemp", mkstemp_on_a_full_disk)
     with pytest.raises(OutputError) as err:
-        flow.write_atomic(path, text)
+        write_atomic(path, text)
     message = str(err.value)
     assert message.startswith(f"file {path}: cannot write output: No space left on device")
     assert "the previous version is kept" in message

@@ -11,11 +11,12 @@ import pytest
 
 from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR
-from charflow.execution import sweep
 from charflow.flow import characterize as flow
 from charflow.measurement import combinational as timing
-from charflow.measurement import power
+from charflow.measurement import registry
 from charflow.measurement.waves import integral, supply_energy
+from charflow.plan import arcs as planning
+from charflow.plan.toggles import hidden_states, plan_toggles
 from charflow.records.units import power_unit
 from charflow.simulation import netlist, stimulus
 from charflow.simulation.backends import Request
@@ -42,7 +43,7 @@ def _needs_ngspice():
 @pytest.fixture(scope="module")
 def cap():
     cfg = config.load(CAP_CONFIG)
-    return cfg, netlist.build_deck(cfg, cfg.cell("CAPCELL")), sweep.plan(cfg).points
+    return cfg, netlist.build_deck(cfg, cfg.cell("CAPCELL")), planning.plan(cfg).points
 
 
 def test_capacitor_cell_draws_cv2_per_charge_cycle(cap):
@@ -170,7 +171,7 @@ def test_nand2_leakage_is_least_with_both_nmos_off():
     # NAND2 with both inputs low leaks least. On the BSIM cards, which model subthreshold current.
     cfg = config.load(DEMO)
     deck = netlist.build_deck(cfg, cfg.cell("QNAND2_P1"))
-    leak = {s.when: s.power for s in power.leakage(cfg, deck)}
+    leak = {s.when: s.power for s in registry.leakage(cfg, deck)}
     assert list(leak) == ["!IA&!IB", "!IA&IB", "IA&!IB", "IA&IB"]
     assert all(w > 0 for w in leak.values())
     assert leak["!IA&!IB"] < min(leak["!IA&IB"], leak["IA&!IB"]) / 2
@@ -183,15 +184,15 @@ def test_hidden_toggles_are_the_controlling_side_values():
     # does (the controlling value; Weste & Harris, 2010, ch. 1): those are the toggles of no
     # output edge, and an AOI21's IA is hidden by IB = 0 or by IC = 1.
     cfg = config.load(DEMO)
-    assert power.hidden_states(cfg.cell("QNAND2_P1"), "IA") == ((("IB", False),),)
-    assert power.hidden_states(cfg.cell("QNOR2_P1"), "IB") == ((("IA", True),),)
-    assert power.hidden_states(cfg.cell("QINV_P1"), "A") == ()
-    assert power.hidden_states(cfg.cell("QAOI21_P1"), "IA") == (
+    assert hidden_states(cfg.cell("QNAND2_P1"), "IA") == ((("IB", False),),)
+    assert hidden_states(cfg.cell("QNOR2_P1"), "IB") == ((("IA", True),),)
+    assert hidden_states(cfg.cell("QINV_P1"), "A") == ()
+    assert hidden_states(cfg.cell("QAOI21_P1"), "IA") == (
         (("IB", False), ("IC", False)),
         (("IB", False), ("IC", True)),
         (("IB", True), ("IC", True)),
     )
-    toggles = power.plan_toggles(cfg, ["QNAND2_P1"])
+    toggles = plan_toggles(cfg, ["QNAND2_P1"])
     grid = cfg.cell("QNAND2_P1").grid
     assert len(toggles) == 2 * 1 * 2 * len(grid.slew)
     assert {t.load for t in toggles} == {min(grid.load)}

@@ -17,11 +17,12 @@ from liberty.parser import parse_liberty
 
 from charflow.config import library as config
 from charflow.config import resources
-from charflow.execution.sweep import ConstraintPoint, PulsePoint
 from charflow.flow import characterize as flow
 from charflow.measurement import sequential
 from charflow.records import logic
 from charflow.records.errors import FunctionalMismatchError
+from charflow.records.outcomes import RUNT
+from charflow.records.points import ConstraintPoint, PulsePoint
 from charflow.simulation.netlist import build_deck, render_cell
 from charflow.tables.tabulate import tabulate
 
@@ -292,7 +293,7 @@ def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
         assert written == pytest.approx(m.value, rel=RTOL_READBACK), (pin, level)
     rn = found["RSTB", "low"]
     narrowest = sequential._Pulse.at(rn.point.slew, "low", cfg.thresholds, cfg.process.vdd)
-    assert rn.stimulus == sequential.RUNT and rn.value < narrowest.narrowest
+    assert rn.stimulus == RUNT and rn.value < narrowest.narrowest
 
 
 def test_a_pulse_no_width_fails_is_left_out_with_a_warning(cfg, run, tmp_path, caplog):
@@ -334,6 +335,6 @@ def test_the_demo_reset_clears_the_flop_with_any_pulse_past_the_thresholds():
     deck = build_deck(demo, cell)
     point = PulsePoint(cell.name, "RSTB", "low", min(cell.grid.slew))
     m = sequential.measure_pulse(demo, deck, point)
-    assert m.value is None and m.stimulus == sequential.RUNT
+    assert m.value is None and m.stimulus == RUNT
     probe = sequential.pulse_probe(demo, deck, point)
     assert probe(m.bracket[1])

@@ -11,10 +11,11 @@ from pathlib import Path
 import pytest
 
 from charflow.config import library as config
-from charflow.execution import sweep
 from charflow.flow import characterize as flow
 from charflow.measurement import combinational as timing
 from charflow.measurement import stepsize
+from charflow.measurement.combinational import first_step, model_for
+from charflow.plan import arcs as planning
 from charflow.records.errors import SimulatorError
 from charflow.simulation import backends as simulate
 from charflow.simulation import netlist
@@ -44,7 +45,7 @@ def small():
 def test_estimated_first_step_keeps_results_within_tolerance(small):
     decks = {c.name: netlist.build_deck(small, c) for c in small.cells}
     fast_runs = plain_runs = 0
-    for point in sweep.plan(small).points:
+    for point in planning.plan(small).points:
         deck = decks[point.cell]
         fast = timing.measure_point(small, deck, point)
         plain = timing.measure_point(small, deck, point, step=stepsize.plain_step(small, point))
@@ -63,8 +64,8 @@ def test_rc_transition_model_is_the_step_response():
     cfg = config.load(RC_CONFIG)
     cell = cfg.cell("RCCELL")
     deck = netlist.build_deck(cfg, cell)
-    point = sweep.plan(cfg).points[0]
-    model = stepsize.model_for(cfg, deck, point)
+    point = planning.plan(cfg).points[0]
+    model = model_for(cfg, deck, point)
     assert model is not None
     c0 = cell.grid.load[0]
     assert model.base == pytest.approx(math.log(4.0) * R_OHMS * c0, rel=RC_RTOL)
@@ -88,7 +89,7 @@ def test_backend_switches_and_evicts_loaded_testbenches(small, monkeypatch):
     # Two cells, alternately, with room for one testbench only: every switch reads again.
     inv, nand = (small.cell(n) for n in ("QINV_P1", "QNAND2_P1"))
     decks = [netlist.build_deck(small, c) for c in (inv, nand)]
-    points = [sweep.plan(small, [c.name]).points[4] for c in (inv, nand)]
+    points = [planning.plan(small, [c.name]).points[4] for c in (inv, nand)]
     want = [timing.measure_point(small, d, p) for d, p in zip(decks, points, strict=True)]
     monkeypatch.setattr(simulate, "MAX_CIRCUITS", 1)
     for _ in range(2):
@@ -101,15 +102,17 @@ def test_probe_failure_falls_back_to_the_plain_step(small):
     # IB = 0 holds NAND2's output high: the probes cannot measure an edge, so no model.
     cell = small.cell("QNAND2_P1")
     deck = netlist.build_deck(small, cell)
-    point = dataclasses.replace(sweep.plan(small, ["QNAND2_P1"]).points[0], side=(("IB", False),))
-    assert stepsize.model_for(small, deck, point) is None
-    assert stepsize.first_step(small, deck, point) == stepsize.plain_step(small, point)
+    point = dataclasses.replace(
+        planning.plan(small, ["QNAND2_P1"]).points[0], side=(("IB", False),)
+    )
+    assert model_for(small, deck, point) is None
+    assert first_step(small, deck, point) == stepsize.plain_step(small, point)
 
 
 def test_a_testbench_that_cannot_be_read_leaves_the_others_in_place(small):
     cell = small.cell("QINV_P1")
     deck = netlist.build_deck(small, cell)
-    point = sweep.plan(small, ["QINV_P1"]).points[4]
+    point = planning.plan(small, ["QINV_P1"]).points[4]
     want = timing.measure_point(small, deck, point)
     text = deck.text.replace("xdut ", "xbroken cf_in_a cf_out_y no_such_subckt\nxdut ")
     broken = dataclasses.replace(deck, text=text, key="broken")

@@ -18,10 +18,11 @@ from charflow.config import library as config
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store, keyring
-from charflow.execution.sweep import TimingPoint
-from charflow.measurement import combinational as timing
-from charflow.measurement.combinational import Measurement
+from charflow.measurement import registry
+from charflow.plan import arcs as planning
 from charflow.records.errors import StoreError
+from charflow.records.outcomes import Measurement
+from charflow.records.points import TimingPoint
 from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -43,7 +44,7 @@ def _ring(cfg):
 
 def _point(cfg, slew: float = 3.3e-11, load: float = 7.7e-15) -> TimingPoint:
     """An QINV_P1 point off the config's grid, as a fidelity check would ask for."""
-    base = sweep.plan(cfg, ["QINV_P1"]).points[0]
+    base = planning.plan(cfg, ["QINV_P1"]).points[0]
     return dataclasses.replace(base, slew=slew, load=load)
 
 
@@ -77,7 +78,7 @@ def test_model_files_quoting_sections_and_cycles(tmp_path: Path) -> None:
 
 def test_keys_follow_a_change_in_an_included_file(tmp_path: Path) -> None:
     cfg = config.load(_copy_kit(tmp_path))
-    point = sweep.plan(cfg).points[0]
+    point = planning.plan(cfg).points[0]
     before = _ring(cfg)
     core = tmp_path / "wrapped_core.inc"
     core.write_text(core.read_text().replace("lambda=0.05", "lambda=0.06"), encoding="utf-8")
@@ -88,7 +89,7 @@ def test_keys_follow_a_change_in_an_included_file(tmp_path: Path) -> None:
 
 def test_keys_follow_the_inputs_of_a_result_and_nothing_else() -> None:
     cfg = config.load(SMALL)
-    point = sweep.plan(cfg).points[0]
+    point = planning.plan(cfg).points[0]
     key = _ring(cfg).key(point)
     assert _ring(cfg).key(point) == key  # the same inputs give the same key
     changed = {
@@ -154,7 +155,7 @@ def test_sweep_run_stores_and_then_serves_without_simulating(tmp_path, monkeypat
         def no_simulation(*args):
             raise AssertionError("a stored point was simulated again")
 
-        monkeypatch.setattr(timing, "measure_chunk", no_simulation)
+        monkeypatch.setattr(registry, "measure_chunk", no_simulation)
         served: list[tuple] = []
         again = list(sweep.run(cfg, points, jobs=1, store=store, on_stored=served.append))
     assert [len(s) for s in served] == [2]

@@ -12,11 +12,12 @@ from scipy.optimize import brentq
 
 from charflow.config import library as config
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
-from charflow.execution import sweep
-from charflow.execution.sweep import TimingPoint
 from charflow.flow import characterize as flow
 from charflow.measurement import combinational as timing
+from charflow.measurement import registry
+from charflow.plan import arcs as planning
 from charflow.records.errors import FunctionalMismatchError, MeasurementError
+from charflow.records.points import TimingPoint
 from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -46,7 +47,7 @@ def _needs_ngspice():
 def rc():
     cfg = config.load(RC_CONFIG)
     cell = cfg.cell("RCCELL")
-    return cfg, netlist.build_deck(cfg, cell), sweep.plan(cfg).points
+    return cfg, netlist.build_deck(cfg, cell), planning.plan(cfg).points
 
 
 @pytest.fixture(scope="module")
@@ -130,7 +131,7 @@ def test_shared_and_subprocess_backends_agree(small):
     cell = small.cell("QINV_P1")
     deck = netlist.build_deck(small, cell)
     middle = (cell.grid.slew[1], cell.grid.load[1])
-    points = [p for p in sweep.plan(small, ["QINV_P1"]).points if (p.slew, p.load) == middle]
+    points = [p for p in planning.plan(small, ["QINV_P1"]).points if (p.slew, p.load) == middle]
     assert len(points) == 2
     for point in points:
         a = timing.measure_point(small, deck, point)
@@ -167,7 +168,7 @@ outputs = {{ Y = "!(IA|IB)" }}
     cfg = config.load(path)
     deck = netlist.build_deck(cfg, cfg.cell("QNAND2_P1"))
     with pytest.raises(FunctionalMismatchError) as caught:
-        timing.check_function(cfg, deck)
+        registry.check_function(cfg, deck)
     # The first vector where NAND and NOR differ, in charflow's counting order.
     assert caught.value.context["cell"] == "QNAND2_P1"
     assert caught.value.context["vector"] == "IA=0 IB=1"
@@ -245,7 +246,7 @@ def test_pin_charge_does_not_depend_on_the_slew(small):
     for edge in ("rise", "fall"):
         charges = [
             timing.measure_point(small, deck, p).input_charge
-            for p in sweep.plan(small, ["QINV_P1"]).points
+            for p in planning.plan(small, ["QINV_P1"]).points
             if p.load == smallest and p.input_edge == edge
         ]
         assert len(charges) == len(cell.grid.slew)

@@ -13,9 +13,11 @@ from pathlib import Path
 import pytest
 
 from charflow.config import library as config
-from charflow.execution import sweep
-from charflow.measurement import power, sequential
+from charflow.measurement import registry, sequential
+from charflow.plan import arcs as planning
+from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import MeasurementError
+from charflow.records.points import TimingPoint
 from charflow.simulation import netlist
 
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
@@ -36,7 +38,7 @@ def sharp():
     cell = cfg.cell(CELL)
     cell = dataclasses.replace(cell, grid=dataclasses.replace(cell.grid, slew=SHARP))
     cfg = dataclasses.replace(cfg, cells=(cell,))
-    points = [p for p in sweep.plan(cfg).points if isinstance(p, sweep.TimingPoint)]
+    points = [p for p in planning.plan(cfg).points if isinstance(p, TimingPoint)]
     return cfg, netlist.build_deck(cfg, cell), points
 
 
@@ -69,9 +71,9 @@ def test_the_window_grows_until_the_cell_settles(monkeypatch, sharp):
     base = sequential.WINDOW_SLEWS * SHARP[-1]
     assert window in [base * 2**k for k in range(1, sequential.WINDOW_DOUBLINGS + 1)]
     assert _failures(cfg, deck, points) == []
-    toggles = power.plan_toggles(cfg)
+    toggles = plan_toggles(cfg)
     for t in toggles:
-        assert power.measure_toggle(cfg, deck, t).energy is not None
+        assert registry.measure(cfg, deck, t).energy is not None
 
 
 def test_a_window_set_in_the_config_is_kept_and_named_when_too_short(monkeypatch, sharp):

@@ -21,13 +21,18 @@ from pathlib import Path
 
 import numpy as np
 
+from charflow.io.atomic import write_atomic
 from charflow.records.errors import DiffError
+from charflow.records.names import (
+    CONSTRAINT_QUANTITIES,
+    PIN_QUANTITIES,
+    PULSE_QUANTITIES,
+    TIMING_QUANTITIES,
+    pin_name,
+    table_name,
+)
 from charflow.tables.table import Table
 
-TIMING_QUANTITIES = ("cell_rise", "rise_transition", "cell_fall", "fall_transition")
-CONSTRAINT_QUANTITIES = ("rise_constraint", "fall_constraint")
-PIN_QUANTITIES = ("capacitance", "rise_capacitance", "fall_capacitance")
-PULSE_QUANTITIES = ("min_pulse_width_high", "min_pulse_width_low")
 # Liberty holds 7 significant digits: a Liberty file and its JSON twin differ by up to 5e-7.
 TOLERANCE = 1e-6
 # A point's change is taken relative to its old value, but never to less than this fraction of
@@ -72,19 +77,6 @@ class Comparison:
     @property
     def differs(self) -> bool:
         return bool(self.changed or self.appeared or self.vanished or self.reshaped)
-
-
-def table_name(
-    cell: str, related: str, pin: str, when: str, quantity: str, kind: str = "combinational"
-) -> str:
-    """How charflow names a table: ``QNAND2_P1 IA->Y when IB cell_rise``, ``QDFF_P1 CLK->Q clock
-    cell_rise``, ``QDFF_P1 CLK->D setup_rising rise_constraint``."""
-    name = f"{cell} {related}->{pin}" + ("" if kind == "combinational" else f" {kind}")
-    return name + (f" when {when}" if when else "") + f" {quantity}"
-
-
-def pin_name(cell: str, pin: str, quantity: str) -> str:
-    return f"{cell} pin {pin} {quantity}"
 
 
 def read(path: str | Path) -> dict[str, Entry]:
@@ -315,7 +307,6 @@ def write_html(
     top: int = 10,
 ) -> None:
     """An HTML report: the text report, and plots of the tables that shifted most."""
-    from charflow.flow.characterize import write_atomic
 
     esc = html.escape
     parts = [

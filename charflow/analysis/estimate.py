@@ -28,16 +28,13 @@ from collections import Counter
 from dataclasses import dataclass, replace
 
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.execution import sweep
-from charflow.measurement import ffpower, power, stepsize
-from charflow.measurement.combinational import (
-    Failure,
-    backend_for,
-    explain,
-    measure_chunk,
-    measure_point,
-)
+from charflow.measurement import combinational, registry
+from charflow.measurement.combinational import backend_for, explain, measure_point
+from charflow.plan import arcs as planning
+from charflow.plan.toggles import plan_toggles, vectors
 from charflow.records.errors import CharflowError, MeasurementError
+from charflow.records.outcomes import Failure
+from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
 
@@ -127,9 +124,9 @@ class Estimate:
 
 def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
     """Count the points of the chosen cells and measure a few of each."""
-    plan = sweep.plan(config, cells)
+    plan = planning.plan(config, cells)
     plausible.announce(config, {a.cell for a in plan.arcs})
-    timing = [p for p in plan.points if isinstance(p, sweep.TimingPoint)]
+    timing = [p for p in plan.points if isinstance(p, TimingPoint)]
     per_arc = Counter((p.cell, p.related, p.output) for p in timing)
     arcs = tuple(
         ArcCount(a.cell, a.related, a.output, len(a.states), per_arc[(a.cell, a.related, a.output)])
@@ -148,7 +145,7 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
             groups = _flop_groups(config, deck, points)
         else:
             groups = _combinational_groups(config, deck, points)
-        toggles = power.plan_toggles(config, [name])
+        toggles = plan_toggles(config, [name])
         if toggles:
             groups += (_sampled(config, deck, "hidden-power toggles", toggles, 1),)
         costs.append(CellCost(name, groups, load, _outside(cell)))
@@ -158,7 +155,7 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
 def _measured(config: LibraryConfig, deck: Deck, points) -> list:
     """Measure sample points; a sample that fails stops the plan, naming the point: the run
     would fail there too."""
-    outcomes = measure_chunk(config, deck, points)
+    outcomes = registry.measure_chunk(config, deck, points)
     for o in outcomes:
         if isinstance(o, Failure):
             raise MeasurementError(o.reason, **o.point.where(config))
@@ -182,12 +179,14 @@ def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[Gr
     first = points[0]
     series = len({replace(p, slew=0.0, load=0.0) for p in points})
     start = time.perf_counter()
-    stepsize.first_step(config, deck, first)  # a probe that fails leaves the plain step
+    combinational.first_step(config, deck, first)  # a probe that fails leaves the plain step
     per_series = time.perf_counter() - start
     grid = config.cell(first.cell).grid
     corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
     corners.add((grid.slew[-1], grid.load[0]))
-    probes = [stepsize.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners]
+    probes = [
+        combinational.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners
+    ]
     probes = [m for m in probes if m is not None]  # none when a probe failed
     picks = [
         replace(
@@ -202,7 +201,9 @@ def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[Gr
     for p in picks:
         try:
             # With its step given, a grid corner is simulated too, not taken from its probe.
-            runs += measure_point(config, deck, p, step=stepsize.first_step(config, deck, p)).runs
+            runs += measure_point(
+                config, deck, p, step=combinational.first_step(config, deck, p)
+            ).runs
         except CharflowError as exc:
             raise explain(config, p, exc) from exc
     per_point = (time.perf_counter() - start) / len(picks)
@@ -224,13 +225,13 @@ CLOCKED = "clock and control arcs"
 def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, ...]:
     """A flip-flop's points by how they are measured: clock and control arcs from a few
     samples, each kind of search from one."""
-    clocked = [p for p in points if isinstance(p, sweep.TimingPoint)]
+    clocked = [p for p in points if isinstance(p, TimingPoint)]
     groups = [_sampled(config, deck, CLOCKED, clocked, SAMPLES)] if clocked else []
     for kind in _SEARCHES:
-        group = [p for p in points if isinstance(p, sweep.ConstraintPoint) and p.kind == kind]
+        group = [p for p in points if isinstance(p, ConstraintPoint) and p.kind == kind]
         if group:
             groups.append(_sampled(config, deck, f"{kind} searches", group, 1))
-    pulses = [p for p in points if isinstance(p, sweep.PulsePoint)]
+    pulses = [p for p in points if isinstance(p, PulsePoint)]
     if pulses:
         groups.append(_sampled(config, deck, "pulse-width searches", pulses, 1))
     return tuple(groups)
@@ -243,7 +244,7 @@ def _outside(cell: CellSpec) -> int:
     if cell.flop is None:
         return 2 * 2 ** len(cell.inputs)
     check = 2 ** len(cell.data_inputs) * 2 * len(cell.outputs)
-    return check + len(ffpower.vectors(cell))
+    return check + len(vectors(cell))
 
 
 def render(est: Estimate) -> str:

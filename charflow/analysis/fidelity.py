@@ -14,12 +14,10 @@ absolute error into a huge relative one.
 from __future__ import annotations
 
 import itertools
-import json
 import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, replace
-from pathlib import Path
 
 import numpy as np
 from scipy.stats import qmc
@@ -28,9 +26,10 @@ from charflow import __version__
 from charflow.config.library import Fidelity, LibraryConfig
 from charflow.execution import sweep
 from charflow.execution.store import Store
-from charflow.flow.characterize import write_atomic
-from charflow.measurement.combinational import Failure, Measurement
+from charflow.plan import arcs as planning
 from charflow.records.errors import TableError
+from charflow.records.outcomes import Failure, Measurement
+from charflow.records.points import Arc, State, TimingPoint
 from charflow.tables.table import Axis, Table, interpolate
 from charflow.tables.tabulate import LOAD_AXIS, OTHER_LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
 
@@ -193,20 +192,20 @@ def output_edge(quantity: str) -> str:
     return quantity.removeprefix("cell_").removesuffix("_transition")
 
 
-def templates(config: LibraryConfig, cell: str) -> dict[tuple, sweep.TimingPoint]:
+def templates(config: LibraryConfig, cell: str) -> dict[tuple, TimingPoint]:
     """A plan point of every (related pin, output, state, output edge) of ``cell``: what a
     point off the grid shares with it (side inputs, input edge, kind, a flip-flop's captured
     data; for a 3D table the other output's load, unless its axis is given)."""
-    out: dict[tuple, sweep.TimingPoint] = {}
-    for p in sweep.plan(config, [cell]).points:
-        if isinstance(p, sweep.TimingPoint):
+    out: dict[tuple, TimingPoint] = {}
+    for p in planning.plan(config, [cell]).points:
+        if isinstance(p, TimingPoint):
             out.setdefault((p.related, p.output, p.state_side, p.output_edge), p)
     return out
 
 
 def timing_point(
-    template: sweep.TimingPoint, axes: Sequence[Axis], coords: Sequence[float]
-) -> sweep.TimingPoint:
+    template: TimingPoint, axes: Sequence[Axis], coords: Sequence[float]
+) -> TimingPoint:
     """The point of ``template``'s series at ``coords`` on ``axes``."""
     fields = {}
     for axis, value in zip(axes, coords, strict=True):
@@ -219,8 +218,8 @@ def timing_point(
 
 
 def template_of(
-    points: dict[tuple, sweep.TimingPoint], arc: sweep.Arc, state: sweep.State, quantity: str
-) -> sweep.TimingPoint:
+    points: dict[tuple, TimingPoint], arc: Arc, state: State, quantity: str
+) -> TimingPoint:
     side = state.side if arc.kind == "combinational" else ()
     return points[(arc.related, arc.output, side, output_edge(quantity))]
 
@@ -239,7 +238,7 @@ class _Work:
     default: bool
     table: Table
     probes: tuple[Probe, ...]
-    points: tuple[tuple[sweep.TimingPoint, ...], ...]
+    points: tuple[tuple[TimingPoint, ...], ...]
 
 
 def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity) -> list[_Work]:
@@ -466,17 +465,3 @@ def summary_lines(config: LibraryConfig, report: FidelityReport, count: int = 10
     if report.failures:
         lines.append(f"{report.failures} probe(s) failed to simulate; see the JSON for reasons")
     return lines
-
-
-def write(
-    config: LibraryConfig, report: FidelityReport, out_dir: Path, jobs: int | None = None
-) -> list[Path]:
-    """``<library>.fidelity.json`` and the self-contained ``<library>.fidelity.html``."""
-    from charflow.analysis import report as html_report  # here: the report module imports this one
-
-    out_dir = Path(out_dir)
-    json_path = out_dir / f"{config.name}.fidelity.json"
-    write_atomic(json_path, json.dumps(to_json(config, report), indent=1) + "\n")
-    html_path = out_dir / f"{config.name}.fidelity.html"
-    write_atomic(html_path, html_report.fidelity_html(config, report, jobs))
-    return [json_path, html_path]

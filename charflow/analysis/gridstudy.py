@@ -33,14 +33,18 @@ from scipy.interpolate import make_interp_spline
 from scipy.optimize import brentq
 
 from charflow import __version__
+from charflow.analysis import report
 from charflow.analysis.fidelity import axis_unit, measured, template_of, templates, timing_point
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
-from charflow.flow.characterize import write_atomic
-from charflow.measurement.combinational import Failure, Measurement
+from charflow.io.atomic import write_atomic
+from charflow.plan.arcs import arcs_of
 from charflow.records.errors import ConfigError, MeasurementError
+from charflow.records.names import delay_quantity, transition_quantity
+from charflow.records.outcomes import Failure, Measurement
+from charflow.records.points import EDGES, Arc
 from charflow.tables.table import Axis, Table, interpolate
-from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS, delay_quantity, transition_quantity
+from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
 PLACEMENTS = ("uniform", "geometric", "optimized")
 SIZES = tuple(range(3, 13))
@@ -307,14 +311,14 @@ def table_label(key: tuple[str, str]) -> str:
     return f"when {when}: {quantity}" if when else quantity
 
 
-def _grid_points(series: dict, arc: sweep.Arc, axes: Sequence[Axis]) -> dict:
+def _grid_points(series: dict, arc: Arc, axes: Sequence[Axis]) -> dict:
     """(key, index tuple) → the sweep point that measures it; ``series`` as
     ``fidelity.templates`` gives it."""
     out = {}
     shape = [range(len(a)) for a in axes]
     for state in arc.states:
         # In input-edge order; a clear or preset arc moves its output one way only.
-        edges = [state.output_edge(e) for e in sweep.EDGES]
+        edges = [state.output_edge(e) for e in EDGES]
         for out_edge in (e for e in edges if e in arc.output_edges):
             for quantity in (delay_quantity(out_edge), transition_quantity(out_edge)):
                 template = template_of(series, arc, state, quantity)
@@ -407,9 +411,9 @@ def _range(cell_grid) -> tuple[tuple[str, float, float], ...]:
     )
 
 
-def choose_arc(config: LibraryConfig, cell_name: str, arc: str | None) -> sweep.Arc:
+def choose_arc(config: LibraryConfig, cell_name: str, arc: str | None) -> Arc:
     """The cell's arc ``FROM:TO`` (related input : output); its first arc when not given."""
-    arcs = sweep.arcs_of(config.cell(cell_name))
+    arcs = arcs_of(config.cell(cell_name))
     if arc is None:
         return arcs[0]
     related, _, output = arc.partition(":")
@@ -675,8 +679,6 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
 
 def write(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
     """``<library>.<cell>.<from>-<to>.gridstudy.json`` and ``.png`` (error against points)."""
-    from charflow.analysis import report
-
     out_dir = Path(out_dir)
     stem = f"{config.name}.{s.cell}.{s.related}-{s.output}.gridstudy"
     json_path = out_dir / f"{stem}.json"

@@ -10,8 +10,10 @@ from __future__ import annotations
 import base64
 import html
 import io
+import json
 import math
 from collections.abc import Sequence
+from pathlib import Path
 
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -20,6 +22,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
 
 from charflow import __version__
+from charflow.analysis import fidelity
 from charflow.analysis.fidelity import (
     CENTRE,
     FidelityReport,
@@ -29,6 +32,8 @@ from charflow.analysis.fidelity import (
     where,
 )
 from charflow.config.library import LibraryConfig
+from charflow.execution.workers import default_jobs
+from charflow.io.atomic import write_atomic
 
 CMAP = "YlOrRd"
 LOG_RATIO = 20.0  # an axis spanning more than this ratio is drawn on a log scale
@@ -220,8 +225,6 @@ def heat_maps(
     """One map per table; each takes ~0.1 s, so a report of dozens is drawn in parallel."""
     from joblib import Parallel, delayed
 
-    from charflow.execution.sweep import default_jobs
-
     jobs = jobs or default_jobs()
     if jobs == 1 or len(checks) < PARALLEL_MAPS:
         return [heat_map_png(config, c, vmax) for c in checks]
@@ -353,3 +356,15 @@ def study_png(
     ax.grid(True, which="major", alpha=0.3)
     ax.legend(fontsize=7, ncol=3, loc="lower left")
     return _png(fig)
+
+
+def write_fidelity(
+    config: LibraryConfig, report: FidelityReport, out_dir: Path, jobs: int | None = None
+) -> list[Path]:
+    """``<library>.fidelity.json`` and the self-contained ``<library>.fidelity.html``."""
+    out_dir = Path(out_dir)
+    json_path = out_dir / f"{config.name}.fidelity.json"
+    write_atomic(json_path, json.dumps(fidelity.to_json(config, report), indent=1) + "\n")
+    html_path = out_dir / f"{config.name}.fidelity.html"
+    write_atomic(html_path, fidelity_html(config, report, jobs))
+    return [json_path, html_path]

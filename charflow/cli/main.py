@@ -59,6 +59,8 @@ gridstudy = _deferred("charflow.analysis.gridstudy")
 lock = _deferred("charflow.execution.lock")
 store_mod = _deferred("charflow.execution.store")
 sweep = _deferred("charflow.execution.sweep")
+workers = _deferred("charflow.execution.workers")
+html_report = _deferred("charflow.analysis.report")
 tqdm = _deferred("tqdm")
 
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
@@ -438,7 +440,7 @@ def _run(cfg: config.LibraryConfig, args: argparse.Namespace) -> int:
         raise ConfigError("--scheduler is for --backend dask")
     cells = getattr(args, "cell", None)
     if getattr(args, "plan", False):
-        jobs = args.jobs or sweep.default_jobs()
+        jobs = args.jobs or workers.default_jobs()
         print(estimate.render(estimate.estimate(cfg, cells, jobs)))
         return EXIT_OK
     arc = _arc(getattr(args, "arc", None))
@@ -616,7 +618,7 @@ def _check_fidelity(
         )
     finally:
         progress.close()
-    written = fidelity.write(cfg, report, out, jobs=args.jobs)
+    written = html_report.write_fidelity(cfg, report, out, jobs=args.jobs)
     print("\n".join(fidelity.summary_lines(cfg, report)))
     for path in written:
         print(f"wrote {path}")

@@ -14,9 +14,10 @@ import threading
 from collections.abc import Iterator, Mapping, Sequence
 
 from charflow.config.library import LibraryConfig
-from charflow.execution.sweep import TimingPoint
 from charflow.execution.workers import EXIT_HUNG, run_alone
+from charflow.measurement import registry
 from charflow.records.errors import CharflowError, ClusterError, SimulatorHungError
+from charflow.records.points import TimingPoint
 from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -28,11 +29,9 @@ _SIMULATOR = threading.Lock()
 
 
 def _measure(config: LibraryConfig, deck: Deck, points: tuple[TimingPoint, ...]) -> list:
-    from charflow.measurement.combinational import measure_chunk
-
     with _SIMULATOR:
         try:
-            return measure_chunk(config, deck, points)
+            return registry.measure_chunk(config, deck, points)
         except SimulatorHungError:
             # As a local worker does (``workers``): the nanny starts a fresh process and the
             # scheduler sends the task elsewhere.

@@ -24,7 +24,7 @@ from pathlib import Path
 
 from charflow import __version__
 from charflow.config.library import LibraryConfig, Simulation, Thresholds
-from charflow.execution.sweep import default_jobs
+from charflow.execution.workers import default_jobs
 from charflow.measurement.combinational import backend_for
 from charflow.records.errors import SimulatorError
 from charflow.records.units import energy_unit, power_unit, time_scale

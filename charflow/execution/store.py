@@ -31,11 +31,9 @@ from charflow import __version__
 from charflow.config.library import LibraryConfig
 from charflow.execution import provenance
 from charflow.execution.provenance import file_digest
-from charflow.execution.sweep import Point
-from charflow.measurement.combinational import Measurement
-from charflow.measurement.power import ToggleMeasurement
-from charflow.measurement.sequential import SearchResult
 from charflow.records.errors import StoreError
+from charflow.records.outcomes import Measurement, SearchResult, ToggleMeasurement
+from charflow.records.points import Point
 from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"

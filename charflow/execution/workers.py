@@ -25,7 +25,9 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 
 from charflow.config.library import LibraryConfig
+from charflow.measurement import registry
 from charflow.records.errors import OutputError, SimulatorError, SimulatorHungError
+from charflow.records.outcomes import Failure
 from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -38,8 +40,6 @@ FRUITLESS_ROUNDS = 2
 
 def _work(config: LibraryConfig, deck: Deck, points: tuple, journal: str) -> list:
     """A worker's task: measure ``points``, writing each outcome to ``journal`` at once."""
-    from charflow.measurement.combinational import measure_chunk
-
     try:
         fh = open(journal, "wb")  # noqa: SIM115 - closed below
     except OSError:
@@ -51,7 +51,7 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple, journal: str) -> lis
             fh.flush()  # into the kernel: it survives this process, whatever kills it
 
     try:
-        return measure_chunk(config, deck, points, done)
+        return registry.measure_chunk(config, deck, points, done)
     except SimulatorHungError:
         # The simulator is still running in its thread and cannot be reset: end the process,
         # so the pool starts a fresh one and the driver re-runs the point alone.
@@ -81,12 +81,10 @@ def read_journal(path: str) -> list | None:
 
 def run_alone(config: LibraryConfig, decks: Mapping[str, Deck], points: Sequence) -> list:
     """Measure each point on its own through the subprocess backend, in this process."""
-    from charflow.measurement.combinational import Failure, measure_chunk
-
     alone = replace(config, simulation=replace(config.simulation, backend="subprocess"))
     out = []
     for point in points:
-        (outcome,) = measure_chunk(alone, decks[point.cell], (point,))
+        (outcome,) = registry.measure_chunk(alone, decks[point.cell], (point,))
         if isinstance(outcome, Failure):
             outcome = replace(
                 outcome,
@@ -182,3 +180,7 @@ def _why(death: BaseException) -> str:
     if codes >= 0:
         return text[codes:].splitlines()[0].strip().rstrip(".")
     return text.split(".")[0]
+
+
+def default_jobs() -> int:
+    return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1

@@ -1,63 +1,80 @@
 """The characterization flow as public stages a user can call one by one.
 
-    config.load → sweep.plan → netlist.build_deck → verify → sweep.run → tabulate → write
+    config.load → planning.plan → netlist.build_deck → verify → sweep.run → tabulate → write
 
 ``characterize`` chains them; each stage takes and returns plain records, so any one can
 be tested or re-run alone; power rides along (hidden-power toggles in the sweep, leakage per
-deck, ``power.tabulate``). With a result store (``store.Store``) the sweep simulates only
+deck, ``power_tables.tabulate``). With a result store (``store.Store``) the sweep simulates only
 points it does not hold, and a run of a few cells or one arc fills the rest of the library
 from the store.
 """
 
 from __future__ import annotations
 
-import contextlib
 import json
-import os
-import tempfile
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
 from charflow import __version__
-from charflow.analysis.diff import pin_name, table_name
 from charflow.config.library import FlopSpec, LibraryConfig
 from charflow.execution import provenance, sweep
 from charflow.execution.store import Stale, Store, keyring
 from charflow.io import faults, liberty
-from charflow.measurement import power
-from charflow.measurement.combinational import Failure, Measurement, check_function
-from charflow.measurement.sequential import SearchResult
+from charflow.io.atomic import write_atomic
+from charflow.measurement import registry
+from charflow.measurement.registry import check_function
+from charflow.plan import arcs as planning
+from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import ConfigError, OutputError
+from charflow.records.names import (
+    delay_quantity,
+    pin_name,
+    power_quantity,
+    table_name,
+    transition_quantity,
+)
+from charflow.records.outcomes import (
+    Failure,
+    LeakageState,
+    Measurement,
+    SearchResult,
+    ToggleMeasurement,
+)
+from charflow.records.points import (
+    Arc,
+    ConstraintPoint,
+    Plan,
+    Point,
+    PulsePoint,
+    State,
+    TimingPoint,
+    TogglePoint,
+)
 from charflow.simulation import plausible
 from charflow.simulation.netlist import build_deck
 from charflow.tables import gaps
-from charflow.tables.tabulate import (
-    ArcTables,
-    CellTables,
-    delay_quantity,
-    tabulate,
-    transition_quantity,
-)
+from charflow.tables import power as power_tables
+from charflow.tables.tabulate import ArcTables, CellTables, tabulate
 
 
 @dataclass(frozen=True, slots=True)
 class RunResult:
-    plan: sweep.Plan
+    plan: Plan
     measurements: tuple[Measurement | SearchResult, ...]
     failures: tuple[Failure, ...]
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
     provenance: provenance.Provenance  # what made the library: programs, files, settings
-    reused: frozenset[sweep.Point] = frozenset()  # from the store, not simulated now
+    reused: frozenset[Point] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
-    toggles: tuple[power.ToggleMeasurement, ...] = ()
+    toggles: tuple[ToggleMeasurement, ...] = ()
     # Toggles whose energy could not be measured: reported, left out of the tables; they do
     # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
     unmeasured: tuple[Failure, ...] = ()
-    cell_power: tuple[power.CellPower, ...] = ()  # empty when any timing point failed
+    cell_power: tuple[power_tables.CellPower, ...] = ()  # empty when any timing point failed
     # With a gap-filling method: the failed points it filled (in the tables, never stored) and
     # those it could not (still in ``failures``).
     gap_report: gaps.GapReport | None = None
@@ -104,24 +121,24 @@ class RunResult:
         return {models: sorted(names) for models, names in sorted(out.items())}
 
 
-def _tables_of(plan: sweep.Plan, p: sweep.Point) -> list[str]:
+def _tables_of(plan: Plan, p: Point) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
-    if isinstance(p, sweep.PulsePoint):
+    if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
-    if isinstance(p, power.TogglePoint):
-        return [pin_name(p.cell, p.related, f"when {p.when} {power.power_quantity(p.input_edge)}")]
-    if isinstance(p, sweep.ConstraintPoint):
+    if isinstance(p, TogglePoint):
+        return [pin_name(p.cell, p.related, f"when {p.when} {power_quantity(p.input_edge)}")]
+    if isinstance(p, ConstraintPoint):
         kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
         quantity = f"{p.data_edge}_constraint"
         return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
     arc = next(
         a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
     )
-    whens = [""] + ([sweep.State(p.state_side, "").when] if len(arc.states) > 1 else [])
+    whens = [""] + ([State(p.state_side, "").when] if len(arc.states) > 1 else [])
     quantities = [
         delay_quantity(p.output_edge),
         transition_quantity(p.output_edge),
-        power.power_quantity(p.output_edge),
+        power_quantity(p.output_edge),
     ]
     return [
         table_name(p.cell, p.related, p.output, when, quantity, arc.kind)
@@ -149,9 +166,9 @@ def verify(
 
 def select(
     config: LibraryConfig, cells: list[str] | None = None, arc: tuple[str, str] | None = None
-) -> sweep.Plan:
+) -> Plan:
     """The plan of the chosen cells, or of one arc (related pin, output pin) of one cell."""
-    plan = sweep.plan(config, cells)
+    plan = planning.plan(config, cells)
     if arc is None:
         return plan
     if cells is None or len(cells) != 1:
@@ -167,9 +184,9 @@ def select(
         )
     # Setup, hold and pulse-width searches belong to no arc: they come with the whole cell.
     points = tuple(
-        p for p in plan.points if isinstance(p, sweep.TimingPoint) and (p.related, p.output) == arc
+        p for p in plan.points if isinstance(p, TimingPoint) and (p.related, p.output) == arc
     )
-    return sweep.Plan(arcs, points)
+    return Plan(arcs, points)
 
 
 def characterize(
@@ -201,22 +218,22 @@ def characterize(
     made_by = provenance.build(config, provenance.simulator(config, jobs))
     chosen = select(config, cells, arc)
     # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
-    toggle_points = power.plan_toggles(config, cells) if arc is None else ()
+    toggle_points = plan_toggles(config, cells) if arc is None else ()
     plausible.announce(config, {p.cell for p in chosen.points})  # before the first simulation
     verify(config, cells, store=store)
     if on_start is not None:
         on_start(sweep.work((*chosen.points, *toggle_points)))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
-    toggles: list[power.ToggleMeasurement] = []
+    toggles: list[ToggleMeasurement] = []
     unmeasured: list[Failure] = []
-    reused: set[sweep.Point] = set()
+    reused: set[Point] = set()
 
     def keep(outcome: object) -> None:
-        if isinstance(outcome, power.ToggleMeasurement):
+        if isinstance(outcome, ToggleMeasurement):
             toggles.append(outcome)
         elif isinstance(outcome, Failure):
-            toggle = isinstance(outcome.point, power.TogglePoint)
+            toggle = isinstance(outcome.point, TogglePoint)
             (unmeasured if toggle else failures).append(outcome)
         else:
             measurements.append(outcome)
@@ -239,8 +256,8 @@ def characterize(
     whole, stale = chosen, {}
     all_toggles = toggle_points
     if store is not None and cells is not None:
-        whole = sweep.plan(config)
-        all_toggles = power.plan_toggles(config)
+        whole = planning.plan(config)
+        all_toggles = plan_toggles(config)
         picked = {*chosen.points, *toggle_points}
         rest = [p for p in (*whole.points, *all_toggles) if p not in picked]
         decks = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in rest}}
@@ -251,7 +268,7 @@ def characterize(
     have = {m.point for m in measurements} | {f.point for f in failures}
     names = dict.fromkeys(p.cell for p in whole.points)
     left_out = tuple(c for c in names if not all(p in have for p in whole.for_cell(c)))
-    the_plan = sweep.Plan(
+    the_plan = Plan(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
@@ -267,8 +284,8 @@ def characterize(
     if not failures:
         done = [*measurements, *report.records] if report is not None else measurements
         tables = tabulate(config, the_plan, done)
-        leakages = power.leakages(config, the_plan)
-        cell_power = power.tabulate(config, the_plan, done, toggles, leakages)
+        leaked = leakages(config, the_plan)
+        cell_power = power_tables.tabulate(config, the_plan, done, toggles, leaked)
     return RunResult(
         plan=the_plan,
         measurements=tuple(measurements),
@@ -331,7 +348,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     }
 
 
-def _cell_record(cell: CellTables, cell_power: power.CellPower | None) -> dict:
+def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) -> dict:
     return {
         "name": cell.cell.name,
         "area": cell.cell.area,
@@ -382,7 +399,7 @@ def _ff_record(flop: FlopSpec | None) -> dict | None:
     }
 
 
-def _arc_record(arc: ArcTables, cell_power: power.CellPower | None) -> dict:
+def _arc_record(arc: ArcTables, cell_power: power_tables.CellPower | None) -> dict:
     return {
         "related_pin": arc.arc.related,
         "output": arc.arc.output,
@@ -402,7 +419,7 @@ def _arc_record(arc: ArcTables, cell_power: power.CellPower | None) -> dict:
     }
 
 
-def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
+def _arc_power_record(cell: power_tables.CellPower | None, arc: Arc) -> dict:
     energy = cell.arc(arc.related, arc.output) if cell is not None else None
     if energy is None:
         return {}
@@ -410,7 +427,7 @@ def _arc_power_record(cell: power.CellPower | None, arc: sweep.Arc) -> dict:
     return {"internal_power": {"tables": [t.to_dict() for t in energy.default], "states": states}}
 
 
-def _cell_power_record(cell: power.CellPower | None) -> dict:
+def _cell_power_record(cell: power_tables.CellPower | None) -> dict:
     if cell is None:
         return {}
     return {
@@ -427,13 +444,13 @@ def _point_record(m: Measurement | SearchResult) -> dict:
     p = m.point
     if isinstance(m, SearchResult):
         record = {"search": p.label, "value_s": m.value, "simulations": m.runs}
-        if isinstance(p, sweep.PulsePoint):
+        if isinstance(p, PulsePoint):
             record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
         return record
     return {
         "related_pin": p.related,
         "output": p.output,
-        "when": sweep.State(p.state_side, "").when,
+        "when": State(p.state_side, "").when,
         "input_edge": p.input_edge,
         "output_edge": p.output_edge,
         "kind": p.kind,
@@ -451,7 +468,7 @@ def _point_record(m: Measurement | SearchResult) -> dict:
     }
 
 
-def _toggle_record(m: power.ToggleMeasurement) -> dict:
+def _toggle_record(m: ToggleMeasurement) -> dict:
     p = m.point
     return {
         "related_pin": p.related,
@@ -498,32 +515,6 @@ def _fault_records(result: RunResult) -> dict:
     }
 
 
-OUTPUT_MODE = 0o644
-
-
-def write_atomic(path: Path, text: str | bytes) -> None:
-    """Write to a temporary file beside ``path`` and rename it: never a half-written output."""
-    binary = isinstance(text, bytes)
-    tmp = None
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-        with os.fdopen(fd, "wb" if binary else "w", encoding=None if binary else "utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            # A full disk may only show when the data goes out: find it before the rename.
-            os.fsync(fh.fileno())
-        # mkstemp makes the file private; outputs are ordinary files.
-        os.chmod(tmp, OUTPUT_MODE)
-        os.replace(tmp, path)
-    except OSError as exc:
-        if tmp is not None:
-            with contextlib.suppress(OSError):
-                os.unlink(tmp)
-        kept = "; the previous version is kept" if path.exists() else ""
-        raise OutputError(f"cannot write output: {exc.strerror or exc}{kept}", file=path) from exc
-
-
 def stale_notes(result: RunResult) -> tuple[str, ...]:
     """Header lines on the tables that come from stored results older than the inputs the
     header names (a run of a few cells or one arc after a change)."""
@@ -551,7 +542,7 @@ def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...
         p = f.failure.point
         where = _where(config, p)
         names = _tables_of(result.plan, p)
-        if isinstance(p, sweep.TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
+        if isinstance(p, TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
             # Pin capacitance comes from the charges at the smallest load.
             pins = [p.related, *(pin for pin, _, _ in f.record.side_charges)]
             names += [pin_name(p.cell, pin, "capacitance") for pin in dict.fromkeys(pins)]
@@ -570,11 +561,11 @@ def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...
     return header, notes
 
 
-def _where(config: LibraryConfig, p: sweep.Point) -> str:
+def _where(config: LibraryConfig, p: Point) -> str:
     """A point's place in its table, in library units."""
     t, c = config.time_scale, config.cap_scale
     tu, cu = config.time_unit, config.cap_unit
-    if isinstance(p, sweep.ConstraintPoint):
+    if isinstance(p, ConstraintPoint):
         return f"data slew {p.data_slew / t:.4g} {tu}, clock slew {p.clock_slew / t:.4g} {tu}"
     where = f"slew {p.slew / t:.4g} {tu}, load {p.load / c:.4g} {cu}"
     if p.other_load is not None:
@@ -617,3 +608,13 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
                 reason = f"cannot remove an earlier run's file: {exc.strerror or exc}"
                 raise OutputError(reason, file=stale) from exc
     return written
+
+
+def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
+    """Leakage per input vector (and stored value) of every cell of the plan."""
+    names = {a.cell for a in plan.arcs}
+    return {
+        c.name: registry.leakage(config, build_deck(config, c))
+        for c in config.cells
+        if c.name in names
+    }

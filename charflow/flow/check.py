@@ -13,7 +13,7 @@ from pathlib import Path
 
 from charflow.config import library as config_mod
 from charflow.config.library import LibraryConfig
-from charflow.measurement.combinational import check_function
+from charflow.measurement.registry import check_function
 from charflow.records.errors import (
     CharflowError,
     ConfigError,

@@ -19,11 +19,11 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from charflow.config.library import LibraryConfig
-from charflow.execution.sweep import ConstraintPoint, Point, PulsePoint, TimingPoint
-from charflow.measurement.combinational import Failure
-from charflow.measurement.power import TogglePoint
+from charflow.io.atomic import write_atomic
 from charflow.records import logic
 from charflow.records.errors import OutputError
+from charflow.records.outcomes import Failure
+from charflow.records.points import ConstraintPoint, Point, PulsePoint, TimingPoint, TogglePoint
 
 FOLDER = "failed"
 SLUG_LENGTH = 72
@@ -165,7 +165,6 @@ def write(
     """Write every failed point's waveform (see the module text). The waveforms a previous run
     left for the failed points' cells and for ``cells`` (those the run covers) go first, so
     those folders show this run only."""
-    from charflow.flow.characterize import write_atomic
 
     out_dir = Path(out_dir)
     for cell in dict.fromkeys([*cells, *(f.point.cell for f in failures)]):

@@ -25,15 +25,15 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from charflow.analysis.diff import pin_name, table_name
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.execution.sweep import State
-from charflow.measurement import power
-from charflow.measurement.power import ArcPower, CellPower
 from charflow.records import logic
 from charflow.records.errors import ConfigError
+from charflow.records.names import pin_name, table_name
+from charflow.records.points import State
 from charflow.records.units import energy_unit, power_unit
+from charflow.tables import power as power_tables
 from charflow.tables import tabulate
+from charflow.tables.power import ArcPower, CellPower
 from charflow.tables.table import Axis, Table, drop_axis
 from charflow.tables.tabulate import ArcTables, CellTables
 
@@ -121,7 +121,7 @@ class _Writer:
 
 
 def _flat_tables(tables: Iterable[Table], rule: str | float) -> tuple[Table, ...]:
-    axes = (tabulate.OTHER_LOAD_AXIS, power.OTHER_LOAD_AXIS)
+    axes = (tabulate.OTHER_LOAD_AXIS, power_tables.OTHER_LOAD_AXIS)
     out = []
     for table in tables:
         for name in axes:
@@ -202,13 +202,13 @@ def _cell_axes(cell: CellTables, energy: CellPower | None) -> Iterator[tuple[str
         return
     for e in energy.arcs:
         roles = {
-            power.SLEW_AXIS: e.arc.related,
-            power.LOAD_AXIS: e.arc.output,
-            power.OTHER_LOAD_AXIS: e.arc.other,
+            power_tables.SLEW_AXIS: e.arc.related,
+            power_tables.LOAD_AXIS: e.arc.output,
+            power_tables.OTHER_LOAD_AXIS: e.arc.other,
         }
         yield from _pin_axes((*e.default, *(t for _, ts in e.states for t in ts)), roles)
     for h in energy.hidden:
-        yield from _pin_axes(h.tables, {power.SLEW_AXIS: h.pin})
+        yield from _pin_axes(h.tables, {power_tables.SLEW_AXIS: h.pin})
 
 
 def _covered(axes: Iterable[tuple[str, Axis]], pin: str) -> float | None:

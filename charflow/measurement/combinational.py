@@ -12,17 +12,15 @@ from __future__ import annotations
 
 import itertools
 import logging
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from collections.abc import Sequence
+from dataclasses import replace
 
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.execution.sweep import TimingPoint
 from charflow.measurement import stepsize
 from charflow.measurement.waves import (
     KeepWaveform,
-    Waveform,
     check_settled,
     integral,
     single_crossing,
@@ -40,8 +38,9 @@ from charflow.records.errors import (
     SimulatorError,
     SimulatorHungError,
     SimulatorTimeoutError,
-    place,
 )
+from charflow.records.outcomes import Measurement
+from charflow.records.points import TimingPoint
 from charflow.records.units import show_time
 from charflow.simulation import plausible, stimulus
 from charflow.simulation.backends import RETRY_LADDER, Request, Result, make_backend
@@ -49,7 +48,6 @@ from charflow.simulation.netlist import PARKED_LOAD, Deck
 
 log = logging.getLogger("charflow")
 
-RAMP_SAMPLES = 20  # samples across the input ramp, before any refinement
 WINDOW_CAP = 100.0  # stop-time cap, in ramp durations (or the grid's largest slew)
 WINDOW_ADVICE = 10.0  # a cut-off point's message suggests this many times the window it had
 REFINEMENTS = 2
@@ -57,56 +55,16 @@ REFINE_SLACK = 1.5  # the simulator's step may exceed the wanted one a little
 LOGIC_MARGIN = 0.1  # a DC output within 10 % of a rail is a clean logic level
 
 
-@dataclass(frozen=True, slots=True)
-class Measurement:
-    point: TimingPoint
-    delay: float  # s; may be negative, never clipped
-    transition: float  # s, already divided by the slew derate
-    input_charge: float  # C drawn from the input source over the run
-    runs: int  # simulations this point took (refinements and retries included)
-    sim_seconds: float  # wall time inside the simulator
-    # s, simulated time at which the point's last run ended: where its stop condition held
-    # (the outputs had settled), or its cap
-    stopped: float
-    # Energies: every runner measures them; None only in records built without (tests).
-    supply_energy: float | None = None  # J the supply delivered beyond its static draw
-    # J: supply_energy less what the external loads took from the supply, shared equally by
-    # the outputs that switched together (a power tool adds the internal power of every output
-    # that toggles, so the event counts once)
-    internal_energy: float | None = None
-    # A: the supply's static draw before the event and once it has settled, taken off
-    # supply_energy (a flip-flop's depends on the value it stores)
-    static_current: tuple[float, float] | None = None
-    # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
-    side_charges: tuple[tuple[str, str, float], ...] = ()
-    stop_cap: float | None = None  # s, the time the last run could not go past; None: not run
-
-
-@dataclass(frozen=True, slots=True)
-class Failure:
-    point: TimingPoint
-    reason: str
-    waveform: Waveform | None = None  # the run that gave no measurement, when one ran
-    where: str = ""  # cell, arc, state and point in the library's units (``explain``)
-    cut_off: bool = False  # the window cap stopped the run before the output settled
-
-    @property
-    def message(self) -> str:
-        """One line saying where and why: what the run lists for each failed point."""
-        where = self.where or f"cell {self.point.cell}, {self.point.label}"
-        return f"{where}: {self.reason}"
-
-
 def explain(config: LibraryConfig, point, exc: CharflowError) -> CharflowError:
     """``exc`` located at ``point`` (cell, arc with its edges, state, and the point in the
     library's units); a run cut off by its window also names the key and what to change."""
     reason = exc.reason
     if isinstance(exc, CutOffError):
-        reason = f"{reason}; {_window_advice(config, point.cell, exc.cap)}"
+        reason = f"{reason}; {window_advice(config, point.cell, exc.cap)}"
     return exc.located(reason, **point.where(config))
 
 
-def _window_advice(config: LibraryConfig, cell: str, cap: float | None) -> str:
+def window_advice(config: LibraryConfig, cell: str, cap: float | None) -> str:
     """Which ``[simulation] window`` cut a run off, in the library's units, and what to do."""
     unit = config.time_unit
     window = config.simulation.window
@@ -233,10 +191,10 @@ def measure_point(
     """Simulate and measure one point; ``step`` overrides the first maximum step, which is
     otherwise estimated from the point's series (``stepsize``)."""
     if step is None:
-        known = stepsize.probed(config, deck, point)
+        known = probed(config, deck, point)
         if known is not None:
             return known
-        step = stepsize.first_step(config, deck, point)
+        step = first_step(config, deck, point)
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
@@ -347,65 +305,100 @@ def measure_point(
     )
 
 
-def measure_chunk(
-    config: LibraryConfig, deck: Deck, points, done: Callable[[object], None] | None = None
-) -> list:
-    """Measure points of one cell; a point that fails becomes a Failure, the rest go on.
-    ``done`` gets each outcome as it is made. A simulator that hangs ends the chunk
-    (SimulatorHungError): this process cannot simulate again."""
-    from charflow.execution.sweep import ConstraintPoint, PulsePoint
-    from charflow.measurement import power, sequential
+def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
+    smallest load: each edge's value from its own edge's charge.
 
-    out: list = []
-    for point in points:
-        try:
-            if isinstance(point, power.TogglePoint):
-                outcome = power.measure_toggle(config, deck, point)
-            elif isinstance(point, ConstraintPoint):
-                outcome = sequential.measure_constraint(config, deck, point)
-            elif isinstance(point, PulsePoint):
-                outcome = sequential.measure_pulse(config, deck, point)
-            elif point.kind != "combinational":
-                outcome = sequential.measure_clocked(config, deck, point)
-            else:
-                outcome = measure_point(config, deck, point)
-        except SimulatorHungError:
-            raise
-        except (MeasurementError, SimulatorError) as exc:
-            wave = exc.waveform if isinstance(exc, MeasurementError) else None
-            told = explain(config, point, exc)
-            cut = isinstance(exc, CutOffError)
-            outcome = Failure(point, told.reason, wave, place(told.context), cut)
-        except Exception as exc:  # noqa: BLE001 - a charflow bug must not end hours of work
-            where = place(point.where(config))
-            log.exception("internal error measuring %s", where)
-            outcome = Failure(
-                point,
-                f"internal error in charflow ({type(exc).__name__}: {exc}); please report it",
-                where=where,
-            )
-        if done is not None:
-            done(outcome)
-        out.append(outcome)
-    return out
+    At each pin and edge the points at the smallest load are averaged over slews and states:
+    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
+    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
+    data pins as they move before the clock edge, the clock's inactive edge, a clear or
+    preset's release (``sequential.measure_clocked``).
+    """
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
+    for m in measurements:
+        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
+        for pin, edge, charge in entries:
+            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
+    caps = {}
+    for key, group in groups.items():
+        smallest = min(load for load, _ in group)
+        caps[key] = float(np.mean([q for load, q in group if load == smallest])) / vdd
+    return caps
 
 
-def check_function(config: LibraryConfig, deck: Deck) -> None:
-    """Every input vector gives the declared output levels at DC; raise naming the vector.
-    A flip-flop is checked by clocking every data vector in from either stored value."""
+# Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
+# calibrated once per process (``stepsize``).
+_SERIES: dict[tuple, tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]] = {}
+
+
+def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:
+    # Everything the probes depend on: the testbench, the grid's corners, how points are run.
+    key = (
+        deck.key,
+        replace(point, slew=0.0, load=0.0),
+        config.cell(point.cell).grid,
+        config.thresholds,
+        config.simulation,
+    )
+    if key not in _SERIES:
+        _SERIES[key] = _calibrate(config, deck, point)
+    return _SERIES[key]
+
+
+def model_for(config: LibraryConfig, deck: Deck, point: TimingPoint) -> stepsize.EdgeModel | None:
+    """The transition model of ``point``'s series, calibrated on first use in this process;
+    None when a probe fails."""
+    return _series(config, deck, point)[0]
+
+
+def probed(config: LibraryConfig, deck: Deck, point: TimingPoint) -> Measurement | None:
+    """``point``'s measurement if it is one of its series' probes (a grid corner): a probe is
+    a measurement of that point like any other, so it is not simulated twice."""
+    return _series(config, deck, point)[1].get((point.slew, point.load))
+
+
+def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
+    """The first maximum step for ``point``: its estimated transition / samples_per_edge."""
+    return stepsize.step_for(config, model_for(config, deck, point), point)
+
+
+def _calibrate(
+    config: LibraryConfig, deck: Deck, point: TimingPoint
+) -> tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]:
+    grid = config.cell(point.cell).grid
+    thr = config.thresholds
+    vdd = config.process.vdd
+    s0, s1 = grid.slew[0], grid.slew[-1]
+    c0, c1 = grid.load[0], grid.load[-1]
+    probes: dict[tuple[float, float], Measurement] = {}
+
+    def probe(slew: float, load: float, step: float) -> float:
+        corner = replace(point, slew=slew, load=load)
+        probes[(slew, load)] = measure_point(config, deck, corner, step=step)
+        return probes[(slew, load)].transition * thr.slew_derate
+
+    try:
+        t0 = probe(s0, c0, stepsize.plain_step(config, replace(point, slew=s0)))
+        # The other corners' edges are slower; measure_point refines the step if they are not.
+        coarse = t0 / stepsize.PROBE_SAMPLES
+        t_load = probe(s0, c1, coarse) if c1 > c0 else t0
+        t_slew = probe(s1, c0, coarse) if s1 > s0 else t0
+    except SimulatorHungError:
+        raise
+    except (MeasurementError, SimulatorError):
+        # The points themselves will report what is wrong; their first step stays plain.
+        return None, {}
+    r0, r1 = (stimulus.ramp(s, point.input_edge, thr, vdd).duration for s in (s0, s1))
+    per_farad = max(t_load - t0, 0.0) / (c1 - c0) if c1 > c0 else 0.0
+    per_ramp = max(t_slew - t0, 0.0) / (r1 - r0) if s1 > s0 else 0.0
+    return stepsize.EdgeModel(t0, r0, c0, per_farad, per_ramp), probes
+
+
+def check_gates(config: LibraryConfig, deck: Deck) -> None:
+    """Every input vector of a combinational cell gives the declared output levels at DC;
+    raise naming the vector."""
     cell = config.cell(deck.cell)
-    if cell.flop is not None:
-        from charflow.measurement.sequential import check_flop
-
-        try:
-            return check_flop(config, deck)
-        except FunctionalMismatchError as exc:
-            cause = exc.__cause__
-            if not isinstance(cause, CutOffError):
-                raise
-            # Not the netlist's fault: the window is too short for the flop to settle.
-            advice = _window_advice(config, cell.name, cause.cap)
-            raise exc.located(f"{exc.reason}; {advice}", key="simulation.window") from cause
     vdd = config.process.vdd
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     backend = backend_for(config)
@@ -427,25 +420,3 @@ def check_function(config: LibraryConfig, deck: Deck) -> None:
                     pin=spec.pin,
                     vector=vector,
                 )
-
-
-def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
-    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
-    smallest load: each edge's value from its own edge's charge.
-
-    At each pin and edge the points at the smallest load are averaged over slews and states:
-    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
-    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
-    data pins as they move before the clock edge, the clock's inactive edge, a clear or
-    preset's release (``sequential.measure_clocked``).
-    """
-    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
-    for m in measurements:
-        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
-        for pin, edge, charge in entries:
-            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
-    caps = {}
-    for key, group in groups.items():
-        smallest = min(load for load, _ in group)
-        caps[key] = float(np.mean([q for load, q in group if load == smallest])) / vdd
-    return caps

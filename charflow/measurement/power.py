@@ -29,21 +29,19 @@ from __future__ import annotations
 
 import itertools
 import logging
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
-from charflow.config.library import CellSpec, LibraryConfig
-from charflow.execution.sweep import EDGES, POINT_RUNS, Arc, Plan, State
+from charflow.config.library import LibraryConfig
 from charflow.measurement.combinational import (
     LOGIC_MARGIN,
-    RAMP_SAMPLES,
-    Measurement,
     alters,
     backend_for,
     simulate,
     static_current,
 )
+from charflow.measurement.stepsize import RAMP_SAMPLES
 from charflow.measurement.waves import (
     KeepWaveform,
     integral,
@@ -57,13 +55,12 @@ from charflow.records.errors import (
     MeasurementError,
     SimulatorError,
     SimulatorHungError,
-    TableError,
 )
-from charflow.records.units import show_cap, show_time
+from charflow.records.outcomes import LeakageState, ToggleMeasurement
+from charflow.records.points import TogglePoint
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request, Result
-from charflow.simulation.netlist import Deck, build_deck
-from charflow.tables.table import Axis, Table
+from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
 
@@ -75,153 +72,10 @@ LEAKAGE_GMINS = (1e-18, 1e-15, 1e-12)
 
 # power_lut_template's variables: the input slew, the output's load and, on a two-output
 # cell, the other output's load.
-SLEW_AXIS = "input_transition_time"
-LOAD_AXIS = "total_output_net_capacitance"
-OTHER_LOAD_AXIS = "equal_or_opposite_output_net_capacitance"
-
-
-def power_quantity(edge: str) -> str:
-    """Liberty's table name: rise_power or fall_power (the output's edge for an arc, the
-    input's for a toggle)."""
-    return f"{edge}_power"
-
-
-@dataclass(frozen=True, slots=True)
-class TogglePoint:
-    cell: str
-    related: str  # the input that toggles
-    side: tuple[tuple[str, bool], ...]  # every other input
-    input_edge: str
-    slew: float  # s
-    load: float  # F on every output (the grid's smallest: the outputs hold)
-    # A flip-flop's stored value as the level of an output, e.g. (("Q", True),); () otherwise.
-    state: tuple[tuple[str, bool], ...] = ()
-
-    @property
-    def when(self) -> str:
-        return logic.when_condition((*self.side, *self.state))
-
-    @property
-    def label(self) -> str:
-        return (
-            f"{self.related} {self.input_edge} (no output edge) when {self.when or '-'} "
-            f"slew {self.slew:.4g} s"
-        )
-
-    @property
-    def cost(self) -> int:
-        return POINT_RUNS
-
-    def where(self, config: LibraryConfig) -> dict[str, str | None]:
-        """Where the toggle is, in the library's units, as an error's context."""
-        slew = show_time(self.slew, config.time_unit)
-        return {
-            "cell": self.cell,
-            "pin": f"{self.related} ({self.input_edge}, no output edge)",
-            "state": self.when or None,
-            "point": f"slew {slew}, load {show_cap(self.load, config.cap_unit)}",
-        }
-
-
-@dataclass(frozen=True, slots=True)
-class ToggleMeasurement:
-    point: TogglePoint
-    energy: float  # J the supply delivered beyond its static draw: all of it is the cell's
-    input_charge: float  # C drawn from the input source over the run
-    runs: int
-    sim_seconds: float
-    settled: float  # s, the end of the energy window
-
-
-@dataclass(frozen=True, slots=True)
-class LeakageState:
-    when: str  # every input, e.g. "!IA&IB"
-    power: float  # W
-    gmin: float = LEAKAGE_GMINS[0]  # S, the simulator's gmin the value was measured with
-
-
-@dataclass(frozen=True, slots=True)
-class ArcPower:
-    arc: Arc
-    default: tuple[Table, ...]  # point-wise largest energy over the states
-    states: tuple[tuple[State, tuple[Table, ...]], ...]
-
-
-@dataclass(frozen=True, slots=True)
-class PinPower:
-    """Hidden power of one input in one side state: 1D tables over the input slew."""
-
-    pin: str
-    when: str
-    tables: tuple[Table, ...]
-
-
-@dataclass(frozen=True, slots=True)
-class CellPower:
-    cell: str
-    arcs: tuple[ArcPower, ...]
-    hidden: tuple[PinPower, ...]
-    leakage: tuple[LeakageState, ...]
-
-    @property
-    def cell_leakage(self) -> float:
-        """W: the mean over input vectors, every vector taken as equally likely (common
-        practice for a default leakage)."""
-        return float(np.mean([s.power for s in self.leakage]))
-
-    def arc(self, related: str, output: str) -> ArcPower | None:
-        return next(
-            (a for a in self.arcs if (a.arc.related, a.arc.output) == (related, output)), None
-        )
-
-
-def hidden_states(cell: CellSpec, pin: str) -> tuple[tuple[tuple[str, bool], ...], ...]:
-    """Side assignments under which ``pin`` changes no output, in counting order."""
-    others = [p for p in cell.inputs if p != pin]
-    found = []
-    for values in itertools.product((False, True), repeat=len(others)):
-        side = tuple(zip(others, values, strict=True))
-        assign = dict(side)
-        if all(
-            o.function.evaluate({**assign, pin: False})
-            == o.function.evaluate({**assign, pin: True})
-            for o in cell.outputs
-        ):
-            found.append(side)
-    return tuple(found)
-
-
-def _chosen(config: LibraryConfig, cells: list[str] | None) -> list[CellSpec]:
-    """The chosen cells, all by default."""
-    return [config.cell(n) for n in cells] if cells is not None else list(config.cells)
-
-
-def plan_toggles(config: LibraryConfig, cells: list[str] | None = None) -> tuple[TogglePoint, ...]:
-    """Every hidden toggle of the chosen cells: pin × side state × input edge × slew (and for a
-    flip-flop × stored value, ``ffpower.plan_toggles``)."""
-    from charflow.measurement import ffpower
-
-    points = []
-    for cell in _chosen(config, cells):
-        if cell.flop is not None:
-            points.extend(ffpower.plan_toggles(cell))
-            continue
-        for pin in cell.inputs:
-            for side in hidden_states(cell, pin):
-                for edge in EDGES:
-                    for slew in cell.grid.slew:
-                        points.append(
-                            TogglePoint(cell.name, pin, side, edge, slew, min(cell.grid.load))
-                        )
-    return tuple(points)
 
 
 def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> ToggleMeasurement:
     cell = config.cell(point.cell)
-    if cell.flop is not None:
-        from charflow.measurement import ffpower
-
-        return ffpower.measure_toggle(config, deck, point)
     vdd = config.process.vdd
     thr = config.thresholds
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
@@ -329,13 +183,9 @@ def _tried(failed: dict[float, str]) -> str:
 
 
 def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
-    """The supply's DC power (W) for every input vector, in counting order (a flip-flop's per
-    stored value too, ``ffpower.leakage``), at a gmin that adds no leakage of its own."""
+    """The supply's DC power (W) of a combinational cell for every input vector, in counting
+    order, at a gmin that adds no leakage of its own."""
     cell = config.cell(deck.cell)
-    if cell.flop is not None:
-        from charflow.measurement import ffpower
-
-        return ffpower.leakage(config, deck)
     vdd = config.process.vdd
     supply = f"{deck.supply}#branch"
     states = []
@@ -348,107 +198,3 @@ def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
         # A source's branch current flows into its + node from outside: out of it is −i.
         states.append(LeakageState(when, -vdd * float(result.vectors[supply][-1]), gmin))
     return tuple(states)
-
-
-def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
-    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
-    if arc.other:
-        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
-    return tuple(axes)
-
-
-def _arc_tables(
-    cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
-) -> tuple[Table, ...]:
-    axes = _axes(cell, arc)
-    mine = [
-        m
-        for m in measured
-        if (m.point.related, m.point.output, m.point.state_side)
-        == (arc.related, arc.output, state.side)
-    ]
-    tables = []
-    for out_edge in arc.output_edges:
-        energy = {}
-        for m in (m for m in mine if m.point.output_edge == out_edge):
-            p = m.point
-            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
-            energy[key] = m.internal_energy
-        grid = np.empty(tuple(len(a.values) for a in axes))
-        for index in np.ndindex(grid.shape):
-            key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
-            try:
-                grid[index] = energy[key]
-            except KeyError as exc:
-                where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
-                raise TableError(
-                    f"{power_quantity(out_edge)} has no measurement at {where}",
-                    cell=cell.name,
-                    arc=arc.label,
-                ) from exc
-        tables.append(Table(axes, grid, power_quantity(out_edge), "J"))
-    return tuple(tables)
-
-
-def _worst(states: list[tuple[State, tuple[Table, ...]]]) -> tuple[Table, ...]:
-    """Per quantity, the point-wise largest energy over the states that have it."""
-    worst = []
-    for quantity in map(power_quantity, EDGES):
-        group = [t for _, tables in states for t in tables if t.quantity == quantity]
-        if group:
-            values = np.max(np.stack([t.values for t in group]), axis=0)
-            worst.append(Table(group[0].axes, values, quantity, "J"))
-    return tuple(worst)
-
-
-def _hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[PinPower, ...]:
-    """One PinPower per pin and side state with at least one edge measured at every slew."""
-    energy = {
-        (m.point.related, m.point.side, m.point.input_edge, m.point.slew): m.energy for m in toggles
-    }
-    axes = (Axis(SLEW_AXIS, cell.grid.slew),)
-    out = []
-    for pin in cell.inputs:
-        for side in hidden_states(cell, pin):
-            tables = []
-            for edge in EDGES:
-                row = [energy.get((pin, side, edge, s)) for s in cell.grid.slew]
-                if all(e is not None for e in row):
-                    tables.append(Table(axes, row, power_quantity(edge), "J"))
-            if tables:
-                out.append(PinPower(pin, logic.when_condition(side), tuple(tables)))
-    return tuple(out)
-
-
-def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
-    """Leakage per input vector (and stored value) of every cell of the plan."""
-    names = {a.cell for a in plan.arcs}
-    return {c.name: leakage(config, build_deck(config, c)) for c in config.cells if c.name in names}
-
-
-def tabulate(
-    config: LibraryConfig,
-    plan: Plan,
-    results: list,
-    toggles: list[ToggleMeasurement],
-    leakage_states: dict[str, tuple[LeakageState, ...]],
-) -> tuple[CellPower, ...]:
-    """Power of every cell of the plan; every timing point must have a measurement (a toggle
-    may be missing: its pin and state then get no table for that edge)."""
-    from charflow.measurement import ffpower
-
-    measured = [m for m in results if isinstance(m, Measurement)]
-    cells = []
-    for cell in _chosen(config, list(dict.fromkeys(a.cell for a in plan.arcs))):
-        mine = [m for m in measured if m.point.cell == cell.name]
-        arcs = []
-        for arc in (a for a in plan.arcs if a.cell == cell.name):
-            states = [(st, _arc_tables(cell, arc, st, mine)) for st in arc.states]
-            arcs.append(ArcPower(arc, _worst(states), tuple(states)))
-        mine_toggles = [m for m in toggles if m.point.cell == cell.name]
-        if cell.flop is not None:
-            hidden = ffpower.hidden_tables(cell, mine_toggles)
-        else:
-            hidden = _hidden_tables(cell, mine_toggles)
-        cells.append(CellPower(cell.name, tuple(arcs), hidden, leakage_states[cell.name]))
-    return tuple(cells)

@@ -11,27 +11,17 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
 
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig, Thresholds
-from charflow.execution.sweep import (
-    ConstraintPoint,
-    PulsePoint,
-    TimingPoint,
-    capture_values,
-    inactive_controls,
-    plan,
-    stored_output,
-)
+from charflow.measurement import ffpower
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
     LOGIC_MARGIN,
     PARKED_GRID,
     REFINE_SLACK,
     REFINEMENTS,
-    Measurement,
     alters,
     backend_for,
     breakpoints,
@@ -46,41 +36,21 @@ from charflow.measurement.waves import (
     step_at,
     waveform,
 )
+from charflow.plan.arcs import capture_values, inactive_controls, plan, stored_output
 from charflow.records.errors import FunctionalMismatchError, MeasurementError
+from charflow.records.outcomes import FULL, RUNT, EventEnergy, Measurement, SearchResult
+from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
 from charflow.simulation.stimulus import Ramp
-
-if TYPE_CHECKING:
-    from charflow.measurement.ffpower import EventEnergy
+from charflow.simulation.timeline import Timeline
 
 WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew, at least
 WINDOW_DOUBLINGS = 5  # ... doubled up to this many times until the cell settles in it
 WINDOW_STEPS = 200  # first-run samples across a window, before refinement
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-
-
-# How a minimum pulse width was found: pulses that reach the far rail, their width set by a flat
-# top; or, where the narrowest of those still works, pulses at the same edge rate that turn
-# back before the rail, their width at the thresholds set by how far they go (RUNT).
-FULL = "full swing"
-RUNT = "runt"
-
-
-@dataclass(frozen=True, slots=True)
-class SearchResult:
-    point: ConstraintPoint | PulsePoint
-    # s: the constraint (may be negative) or the minimum pulse width; None for a pulse that
-    # works at every width the search could shape (``note`` says why)
-    value: float | None
-    runs: int  # simulations the search took
-    sim_seconds: float
-    # s: the search's last failing and passing values; failing None when no value failed
-    bracket: tuple[float | None, float] | None = None
-    stimulus: str = FULL  # a pulse search's pulse shape
-    note: str = ""  # why a pulse search has no value
 
 
 @dataclass(frozen=True, slots=True)
@@ -102,68 +72,12 @@ class Outcome:
         return self.t_out - self.t_event
 
 
-class _Bench:
-    """The waveform timeline shared by every experiment on one cell."""
-
-    def __init__(self, config: LibraryConfig, deck: Deck, window: float | None = None) -> None:
-        cell = config.cell(deck.cell)
-        self.config, self.cell = config, cell
-        self.vdd = config.process.vdd
-        self.thr = config.thresholds
-        largest = max(cell.grid.slew)
-        self.window = window or settle_window(config, deck)
-        ramp = stimulus.ramp(largest, "rise", self.thr, self.vdd)
-        # Half a period holds the slowest edge and its settling, with room for a data edge.
-        self.half = 2.0 * ramp.duration + self.window
-        self.lead = ramp.start
-
-    def level(self, value: bool) -> float:
-        return self.vdd if value else 0.0
-
-    def clock(
-        self,
-        slew: float,
-        edges: int,
-        high: float | None = None,
-        low: float | None = None,
-        start: float | None = None,
-    ) -> tuple[str, Ramp]:
-        """A clock PULSE with ``edges`` active edges, one period (2 × half) apart, the first at
-        ``start`` (``lead`` by default); ``high`` and ``low`` set the flat time of the active
-        and of the inactive phase (pulse widths). Returns the vector and the ramp of the last
-        active edge."""
-        flop = self.cell.flop
-        active = stimulus.ramp(slew, flop.edge, self.thr, self.vdd)
-        back = stimulus.ramp(slew, "fall" if flop.edge == "rise" else "rise", self.thr, self.vdd)
-        v1, v2 = active.levels
-        width = self.half - active.duration if high is None else high
-        rest = self.half - back.duration if low is None else low
-        period = active.duration + width + back.duration + rest
-        first = self.lead if start is None else start
-        last = first + (edges - 1) * period
-        if edges == 1:
-            period = 1.0  # one edge only: the next is far beyond the run
-        vector = stimulus.pulse_vector(v1, v2, first, active.duration, back.duration, width, period)
-        return vector, Ramp(flop.edge, last, active.duration, self.vdd)
-
-    def data(
-        self, pin: str, old: bool, new: bool, start: float, slew: float, hold: float = 1.0
-    ) -> tuple[str, Ramp, Ramp]:
-        """A data PULSE leaving ``old`` at ``start``, staying ``hold`` at ``new``, then
-        returning; with the ramps of its two edges (timed from ``start``)."""
-        go = stimulus.ramp(slew, "rise" if new else "fall", self.thr, self.vdd)
-        back = stimulus.ramp(slew, "fall" if new else "rise", self.thr, self.vdd)
-        go = Ramp(go.edge, start, go.duration, self.vdd)
-        back = Ramp(back.edge, start + go.duration + hold, back.duration, self.vdd)
-        if old == new:
-            return stimulus.constant(self.level(old)), go, back
-        vector = stimulus.pulse_vector(
-            self.level(old), self.level(new), start, go.duration, back.duration, hold, 2.0
-        )
-        return vector, go, back
-
-
 _WINDOWS: dict[tuple, float] = {}
+
+
+def _bench(config: LibraryConfig, deck: Deck, window: float | None = None) -> Timeline:
+    """The cell's timeline with ``window``, or the cell's own settle window."""
+    return Timeline(config, config.cell(deck.cell), window or settle_window(config, deck))
 
 
 def settle_window(config: LibraryConfig, deck: Deck) -> float:
@@ -254,11 +168,9 @@ def run_event(
     branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
     recorded = (*nodes.values(), *branches)
     if states is not None:
-        from charflow.measurement import ffpower
-
         # The energy window ends when the supply current is quiet, some time after the
         # outputs settle: the run goes on to its cap.
-        recorded = tuple(dict.fromkeys((*recorded, *ffpower.event_vectors(cell, deck))))
+        recorded = tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
         stop_when = None
     stop = arm + window
     max_step = window / WINDOW_STEPS
@@ -317,7 +229,9 @@ def run_event(
     )
     energy = None
     if states is not None:
-        energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads)
+        energy = ffpower.event_energy(
+            config, deck, result.vectors, event, states, loads, settle_window(config, deck)
+        )
     outcome = Outcome(
         t_ev, t_out, raw / thr.slew_derate, charges, energy, stopped=float(t[-1]), stop_cap=stop
     )
@@ -325,7 +239,7 @@ def run_event(
 
 
 def _capture_waves(
-    bench: _Bench, old: dict[str, bool], new: dict[str, bool], slew: float, start: float
+    bench: Timeline, old: dict[str, bool], new: dict[str, bool], slew: float, start: float
 ) -> dict[str, str]:
     """Every non-clock input moving from ``old`` to ``new`` at ``start``."""
     return {p: bench.data(p, old[p], new[p], start, slew)[0] for p in new}
@@ -339,7 +253,7 @@ def measure_clocked(
     input that moves in the run is asked for its charge on each of its edges (``_clock_run``,
     ``_control_run``)."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, deck, window)
+    bench = _bench(config, deck, window)
     out_after = point.output_edge == "rise"
     if point.kind == "clock":
         stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
@@ -380,7 +294,7 @@ def measure_clocked(
     )
 
 
-def _clock_run(bench: _Bench, point: TimingPoint, stored: bool):
+def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
     """Waves of a clock arc's run: the first active edge writes the opposite value; half a
     period later the inactive edge, the flop holding; half-way through the inactive phase
     the data moves (the latch that captures is open: the pins' load as a driver sees it while
@@ -404,7 +318,7 @@ def _clock_run(bench: _Bench, point: TimingPoint, stored: bool):
     return waves, event, windows
 
 
-def _control_run(bench: _Bench, point: TimingPoint, stored: bool):
+def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
     """Waves of a clear or preset arc's run: the control starts asserted and is released at
     the run's start (the flop takes the control's value and keeps it); half a period later one
     active clock edge writes the other value; a quarter period after the clock's inactive edge
@@ -512,7 +426,7 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
     if point.kind in ("recovery", "removal"):
         return _release_setup(config, deck, point)
     cell = config.cell(point.cell)
-    bench, flop = _Bench(config, deck), cell.flop
+    bench, flop = _bench(config, deck), cell.flop
     out = cell.outputs[0].pin
     others = _sensitized_data(cell, point.constrained)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
@@ -569,7 +483,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     offset for which the edge captures nothing, the control still holding the flop (either may
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
-    bench, flop = _Bench(config, deck), cell.flop
+    bench, flop = _bench(config, deck), cell.flop
     out = cell.outputs[0].pin
     pin = point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
@@ -665,7 +579,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
     result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, deck)
+    bench = _bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flop.clock
@@ -693,7 +607,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket, RUNT)
 
 
-def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
     """The pass test of a clock pulse by its width (full swing: a flat top of the width less
     the edges'), and a relaxed width: two writes, the second must capture in time."""
     cell, flop = bench.cell, bench.cell.flop
@@ -725,7 +639,7 @@ def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _
     return passes, bench.half - shape.first.duration
 
 
-def _control_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _Trials):
+def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
     """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
     relaxed width: with the other value stored, the pulse must force the control's value."""
     cell, flop = bench.cell, bench.cell.flop
@@ -762,7 +676,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     # The configured window, else the shortest: a cell that does not work should not be
     # probed for a window first.
     shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
-    bench, flop = _Bench(config, deck, shortest), cell.flop
+    bench, flop = _bench(config, deck, shortest), cell.flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
@@ -812,10 +726,16 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
     relaxed reference is simulated first."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, deck)
+    bench = _bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flop.clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, _Trials(config, deck))
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes
+
+
+def event_vectors(cell: CellSpec, deck: Deck) -> tuple[str, ...]:
+    """What a timing run must record for ``event_energy``: the supply and every pin."""
+    pins = (*map(deck.input_node, cell.inputs), *(deck.output_node(o.pin) for o in cell.outputs))
+    return (*pins, f"{deck.supply}#branch")

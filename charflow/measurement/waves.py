@@ -9,19 +9,11 @@ than once, or has not settled by the end is a MeasurementError, never a number.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
 
 import numpy as np
 
 from charflow.records.errors import CutOffError, MeasurementError
-
-
-@dataclass(frozen=True, slots=True, eq=False)
-class Waveform:
-    """The simulated vectors of a run that gave no measurement, kept for inspection."""
-
-    time: np.ndarray  # s
-    nodes: tuple[tuple[str, np.ndarray], ...]  # (name, V), e.g. the pin a node belongs to
+from charflow.records.outcomes import Waveform
 
 
 def waveform(vectors: Mapping[str, np.ndarray], nodes: Mapping[str, str]) -> Waveform:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from typing import Protocol
 
 TIME_UNITS = {"ns": 1e-9, "ps": 1e-12}
 CAP_UNITS = {"pf": 1e-12, "ff": 1e-15}
@@ -50,3 +51,13 @@ def power_unit(time_unit: str, cap_unit: str) -> tuple[str, float]:
     watts = cap_scale(cap_unit) / time_scale(time_unit)
     prefix = min(POWER_PREFIXES, key=lambda p: abs(math.log10(POWER_PREFIXES[p] / watts)))
     return f"1{prefix}W", POWER_PREFIXES[prefix]
+
+
+class LibraryUnits(Protocol):
+    """What a message needs to say a value in the library's units (a ``LibraryConfig``)."""
+
+    @property
+    def time_unit(self) -> str: ...
+
+    @property
+    def cap_unit(self) -> str: ...

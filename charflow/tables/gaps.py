@@ -24,10 +24,9 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from charflow.execution.sweep import ConstraintPoint, Plan, Point, PulsePoint, TimingPoint
-from charflow.measurement.combinational import Failure, Measurement
-from charflow.measurement.sequential import SearchResult
 from charflow.records.errors import ConfigError
+from charflow.records.outcomes import Failure, Measurement, SearchResult
+from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, TimingPoint
 
 METHODS = ("linear", "nearest")
 ROW, COLUMN = 1, 0  # the axes ``linear`` goes along, first and as a fallback

@@ -13,10 +13,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.execution.sweep import Arc, ConstraintPoint, Plan, PulsePoint, State
-from charflow.measurement.combinational import Measurement, pin_capacitance
-from charflow.measurement.sequential import SearchResult
+from charflow.measurement.combinational import pin_capacitance
 from charflow.records.errors import TableError
+from charflow.records.names import delay_quantity, transition_quantity
+from charflow.records.outcomes import Measurement, SearchResult
+from charflow.records.points import Arc, ConstraintPoint, Plan, PulsePoint, State
 from charflow.tables.table import Axis, Table
 
 SLEW_AXIS = "input_net_transition"
@@ -26,14 +27,6 @@ CONSTRAINED_AXIS = "constrained_pin_transition"
 RELATED_AXIS = "related_pin_transition"
 
 log = logging.getLogger("charflow")
-
-
-def delay_quantity(output_edge: str) -> str:
-    return f"cell_{output_edge}"
-
-
-def transition_quantity(output_edge: str) -> str:
-    return f"{output_edge}_transition"
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,0 +1,111 @@
+"""What measuring a point gives: a measurement of each kind, or a Failure with its reason.
+
+Workers send these back, the store keeps them, tables are built from them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint, TogglePoint, Work
+
+# How a minimum pulse width was found: pulses that reach the far rail, their width set by a flat
+# top; or, where the narrowest of those still works, pulses at the same edge rate that turn
+# back before the rail, their width at the thresholds set by how far they go (RUNT).
+FULL = "full swing"
+RUNT = "runt"
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Waveform:
+    """The simulated vectors of a run that gave no measurement, kept for inspection."""
+
+    time: np.ndarray  # s
+    nodes: tuple[tuple[str, np.ndarray], ...]  # (name, V), e.g. the pin a node belongs to
+
+
+@dataclass(frozen=True, slots=True)
+class Measurement:
+    point: TimingPoint
+    delay: float  # s; may be negative, never clipped
+    transition: float  # s, already divided by the slew derate
+    input_charge: float  # C drawn from the input source over the run
+    runs: int  # simulations this point took (refinements and retries included)
+    sim_seconds: float  # wall time inside the simulator
+    # s, simulated time at which the point's last run ended: where its stop condition held
+    # (the outputs had settled), or its cap
+    stopped: float
+    # Energies: every runner measures them; None only in records built without (tests).
+    supply_energy: float | None = None  # J the supply delivered beyond its static draw
+    # J: supply_energy less what the external loads took from the supply, shared equally by
+    # the outputs that switched together (a power tool adds the internal power of every output
+    # that toggles, so the event counts once)
+    internal_energy: float | None = None
+    # A: the supply's static draw before the event and once it has settled, taken off
+    # supply_energy (a flip-flop's depends on the value it stores)
+    static_current: tuple[float, float] | None = None
+    # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
+    side_charges: tuple[tuple[str, str, float], ...] = ()
+    stop_cap: float | None = None  # s, the time the last run could not go past; None: not run
+
+
+@dataclass(frozen=True, slots=True)
+class Failure:
+    point: Work
+    reason: str
+    waveform: Waveform | None = None  # the run that gave no measurement, when one ran
+    where: str = ""  # cell, arc, state and point in the library's units (``explain``)
+    cut_off: bool = False  # the window cap stopped the run before the output settled
+
+    @property
+    def message(self) -> str:
+        """One line saying where and why: what the run lists for each failed point."""
+        where = self.where or f"cell {self.point.cell}, {self.point.label}"
+        return f"{where}: {self.reason}"
+
+
+@dataclass(frozen=True, slots=True)
+class SearchResult:
+    point: ConstraintPoint | PulsePoint
+    # s: the constraint (may be negative) or the minimum pulse width; None for a pulse that
+    # works at every width the search could shape (``note`` says why)
+    value: float | None
+    runs: int  # simulations the search took
+    sim_seconds: float
+    # s: the search's last failing and passing values; failing None when no value failed
+    bracket: tuple[float | None, float] | None = None
+    stimulus: str = FULL  # a pulse search's pulse shape
+    note: str = ""  # why a pulse search has no value
+
+
+@dataclass(frozen=True, slots=True)
+class EventEnergy:
+    """The energy of one flop event, measured on the timing run that timed it."""
+
+    supply: float  # J the supply delivered beyond its static draw
+    internal: float  # J per output that switched, the external loads' share taken off
+    static: tuple[float, float]  # A: the static draw before the event and after it settles
+    settled: float  # s, the end of the energy window
+
+
+@dataclass(frozen=True, slots=True)
+class ToggleMeasurement:
+    point: TogglePoint
+    energy: float  # J the supply delivered beyond its static draw: all of it is the cell's
+    input_charge: float  # C drawn from the input source over the run
+    runs: int
+    sim_seconds: float
+    settled: float  # s, the end of the energy window
+
+
+@dataclass(frozen=True, slots=True)
+class LeakageState:
+    when: str  # every input, e.g. "!IA&IB"
+    power: float  # W
+    gmin: float  # S, the simulator's gmin the value was measured with
+
+
+# One outcome of a sweep point: what ``execution.sweep.run`` yields.
+Outcome = Measurement | SearchResult | ToggleMeasurement | Failure

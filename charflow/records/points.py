@@ -1,0 +1,288 @@
+"""The kinds of work a run is made of, as records: arcs and their sensitizing states, and the
+points of each kind (timing, constraint search, pulse search, hidden-power toggle).
+
+Each point kind knows its own ``series`` (the table row it belongs to: everything but its grid
+coordinates), its ``coordinates`` on that table's axes (``AXES`` names them), its ``cost`` in
+simulations and where it is in the library's units (``where``): tabulation, gap filling, the
+store, step control and messages ask the point instead of re-deriving these.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from charflow.records import logic
+from charflow.records.units import LibraryUnits, show_cap, show_time
+
+EDGES = ("rise", "fall")
+
+# Simulations a point of each kind takes, roughly: the weights of the progress bar and of the
+# chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
+# point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's QBUFC_P1); a flip-flop
+# experiment writes a value first and is refined more often (2.4 a clock point there); a search
+# bisects log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks
+# (13 to 25 runs a search there at 1 ps, 4 when the narrowest pulse already passes; 15 to 37
+# in the demo plan's samples).
+POINT_RUNS = 1
+FLOP_POINT_RUNS = 2
+SEARCH_RUNS = 30
+
+
+@dataclass(frozen=True, slots=True)
+class State:
+    """One sensitizing assignment of an arc's side inputs."""
+
+    side: tuple[tuple[str, bool], ...]
+    sense: str  # positive_unate | negative_unate
+
+    @property
+    def when(self) -> str:
+        return logic.when_condition(self.side)
+
+    def output_edge(self, input_edge: str) -> str:
+        if self.sense == "positive_unate":
+            return input_edge
+        return "fall" if input_edge == "rise" else "rise"
+
+
+@dataclass(frozen=True, slots=True)
+class Arc:
+    cell: str
+    related: str  # input pin
+    output: str
+    sense: str  # positive_unate | negative_unate | non_unate
+    states: tuple[State, ...]
+    kind: str = "combinational"  # combinational | clock | clear | preset
+    other: str | None = None  # the other output, when tables carry its load as index_3
+    output_edges: tuple[str, ...] = EDGES  # a clear or preset moves its output one way only
+
+    @property
+    def label(self) -> str:
+        return f"{self.cell} {self.related}->{self.output}"
+
+
+@dataclass(frozen=True, slots=True)
+class TimingPoint:
+    """One simulation of an arc: ``side`` holds every other input's value (for a clock arc,
+    the data that is captured); ``other_load`` is the other output's load on 3D tables."""
+
+    cell: str
+    related: str
+    output: str
+    side: tuple[tuple[str, bool], ...]
+    input_edge: str
+    output_edge: str
+    slew: float  # s, as the table records it
+    load: float  # F
+    other_load: float | None = None  # F
+    kind: str = "combinational"
+
+    @property
+    def state_side(self) -> tuple[tuple[str, bool], ...]:
+        """The side inputs that name the point's state (``when``); none for sequential arcs."""
+        return self.side if self.kind == "combinational" else ()
+
+    @property
+    def label(self) -> str:
+        when = logic.when_condition(self.state_side) or "-"
+        other = "" if self.other_load is None else f" other load {self.other_load:.4g} F"
+        return (
+            f"{self.related}->{self.output} {self.input_edge}/{self.output_edge} when {when} "
+            f"slew {self.slew:.4g} s load {self.load:.4g} F{other}"
+        )
+
+    AXES = ("slew", "load", "other load")
+
+    @property
+    def series(self) -> tuple:
+        """The table row the point belongs to: the arc, its state and edges, without the grid
+        coordinates."""
+        return (
+            "timing",
+            self.cell,
+            self.related,
+            self.output,
+            self.side,
+            self.input_edge,
+            self.output_edge,
+            self.kind,
+        )
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        """Where the point sits on its tables: (slew, load[, other output's load])."""
+        if self.other_load is None:
+            return (self.slew, self.load)
+        return (self.slew, self.load, self.other_load)
+
+    @property
+    def cost(self) -> int:
+        return POINT_RUNS if self.kind == "combinational" else FLOP_POINT_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        """Where the point is, in the library's units, as an error's context."""
+        edges = f"{self.related} {self.input_edge}, {self.output} {self.output_edge}"
+        kind = "" if self.kind == "combinational" else f"{self.kind}: "
+        point = f"slew {show_time(self.slew, units.time_unit)}, load "
+        point += show_cap(self.load, units.cap_unit)
+        if self.other_load is not None:
+            point += f", other output's load {show_cap(self.other_load, units.cap_unit)}"
+        return {
+            "cell": self.cell,
+            "arc": f"{self.related}->{self.output} ({kind}{edges})",
+            "state": logic.when_condition(self.state_side) or None,
+            "point": point,
+        }
+
+
+@dataclass(frozen=True, slots=True)
+class ConstraintPoint:
+    """A setup or hold search of a data pin against the clock at one pair of slews, or a
+    recovery or removal search of an asynchronous control's release against the clock."""
+
+    cell: str
+    constrained: str  # data pin, or the clear or preset pin
+    related: str  # clock pin
+    kind: str  # "setup" | "hold" | "recovery" | "removal"
+    data_edge: str  # the constrained pin's transition the constraint is for (a release)
+    clock_edge: str
+    data_slew: float  # s
+    clock_slew: float  # s
+
+    @property
+    def label(self) -> str:
+        return (
+            f"{self.kind} {self.constrained} {self.data_edge} vs {self.related} "
+            f"{self.clock_edge}, data slew {self.data_slew:.4g} s, clock slew "
+            f"{self.clock_slew:.4g} s"
+        )
+
+    AXES = ("data slew", "clock slew")
+
+    @property
+    def series(self) -> tuple:
+        return (
+            "constraint",
+            self.cell,
+            self.constrained,
+            self.related,
+            self.kind,
+            self.data_edge,
+            self.clock_edge,
+        )
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return (self.data_slew, self.clock_slew)
+
+    @property
+    def cost(self) -> int:
+        return SEARCH_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        """Where the search is, in the library's units, as an error's context."""
+        edges = f"{self.constrained} {self.data_edge}, {self.related} {self.clock_edge}"
+        unit = units.time_unit
+        return {
+            "cell": self.cell,
+            "arc": f"{self.related}->{self.constrained} ({self.kind}: {edges})",
+            "point": f"{self.constrained} slew {show_time(self.data_slew, unit)}, "
+            f"{self.related} slew {show_time(self.clock_slew, unit)}",
+        }
+
+
+@dataclass(frozen=True, slots=True)
+class PulsePoint:
+    """A minimum pulse width search on a clock or an asynchronous control pin."""
+
+    cell: str
+    pin: str
+    level: str  # "high" | "low": the pulse's level
+    slew: float  # s
+
+    @property
+    def label(self) -> str:
+        return f"minimum {self.level} pulse on {self.pin}, slew {self.slew:.4g} s"
+
+    AXES = ("slew",)
+
+    @property
+    def series(self) -> tuple:
+        return ("pulse", self.cell, self.pin, self.level)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return (self.slew,)
+
+    @property
+    def cost(self) -> int:
+        return SEARCH_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        """Where the search is, in the library's units, as an error's context."""
+        slew = show_time(self.slew, units.time_unit)
+        point = f"minimum {self.level} pulse, slew {slew}"
+        return {"cell": self.cell, "pin": self.pin, "point": point}
+
+
+@dataclass(frozen=True, slots=True)
+class TogglePoint:
+    """A hidden-power run: one input toggles, no output moves."""
+
+    cell: str
+    related: str  # the input that toggles
+    side: tuple[tuple[str, bool], ...]  # every other input
+    input_edge: str
+    slew: float  # s
+    load: float  # F on every output (the grid's smallest: the outputs hold)
+    # A flip-flop's stored value as the level of an output, e.g. (("Q", True),); () otherwise.
+    state: tuple[tuple[str, bool], ...] = ()
+
+    @property
+    def when(self) -> str:
+        return logic.when_condition((*self.side, *self.state))
+
+    @property
+    def label(self) -> str:
+        return (
+            f"{self.related} {self.input_edge} (no output edge) when {self.when or '-'} "
+            f"slew {self.slew:.4g} s"
+        )
+
+    AXES = ("slew",)
+
+    @property
+    def series(self) -> tuple:
+        return ("toggle", self.cell, self.related, self.side, self.state, self.input_edge)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return (self.slew,)
+
+    @property
+    def cost(self) -> int:
+        return POINT_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        """Where the toggle is, in the library's units, as an error's context."""
+        slew = show_time(self.slew, units.time_unit)
+        return {
+            "cell": self.cell,
+            "pin": f"{self.related} ({self.input_edge}, no output edge)",
+            "state": self.when or None,
+            "point": f"slew {slew}, load {show_cap(self.load, units.cap_unit)}",
+        }
+
+
+# The points of a plan's tables; with the toggles, all the work a sweep hands to workers.
+Point = TimingPoint | ConstraintPoint | PulsePoint
+Work = Point | TogglePoint
+
+
+@dataclass(frozen=True, slots=True)
+class Plan:
+    arcs: tuple[Arc, ...]
+    points: tuple[Point, ...]
+
+    def for_cell(self, cell: str) -> tuple[Point, ...]:
+        return tuple(p for p in self.points if p.cell == cell)
