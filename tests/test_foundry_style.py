@@ -1,5 +1,6 @@
 """Foundry-style inputs: device wrappers instantiated with X, .lib sections, .param
-expressions, an HSPICE compatibility mode, pins in any order (tests/data/wrapped*.*)."""
+expressions, an HSPICE compatibility mode, pins in any order (tests/data/wrapped*.*), and a
+generated kit of that kind (tests/fixtures/model_kits.py)."""
 
 from __future__ import annotations
 
@@ -8,12 +9,14 @@ import shutil
 from pathlib import Path
 
 import pytest
+from fixtures.model_kits import foundry_kit
 
 from charflow.config import library as config
 from charflow.flow import characterize as flow
 
 DATA = Path(__file__).parent / "data"
 RTOL = 1e-3  # two decks of identical devices; only the simulator's step choices differ
+TINY_GRID = "slew = [0.02, 0.2]\nload = [0.002, 0.02]"
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -59,3 +62,15 @@ def test_compatibility_mode_reaches_the_deck():
     deck = build_deck(cfg, cfg.cells[0])
     assert deck.compat == "hs"
     assert '.lib "' in deck.text and deck.text.count("xdut") == 1
+
+
+def test_a_generated_foundry_style_kit_characterizes(tmp_path):
+    path = foundry_kit(tmp_path, params=200, grid=TINY_GRID)
+    cfg = config.load(path)
+    text = (tmp_path / "kit.lib").read_text(encoding="utf-8")
+    assert text.count(".param") == 200 - 2 + 1  # two on the first line, one per line after
+    assert ".model nch.4 nmos" in text
+    result = flow.characterize(cfg, jobs=1)
+    assert not result.failures
+    # KINV's one arc and KNAND2's two, each for both output edges, on the 2 x 2 grid.
+    assert len(result.measurements) == 3 * 2 * 4

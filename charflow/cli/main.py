@@ -45,7 +45,6 @@ def _deferred(name: str) -> types.ModuleType:
 # seconds of start-up that --help, --version and a mistyped option should not pay. They are
 # loaded here, in this one place, on first use by the command that needs them (not to dodge an
 # import cycle). Only the version and the error types are imported as usual.
-bench = _deferred("charflow.bench")
 check = _deferred("charflow.flow.check")
 config = _deferred("charflow.config.library")
 demo = _deferred("charflow.config.demo")
@@ -216,37 +215,6 @@ def _grid_study_options(p: argparse.ArgumentParser) -> None:
     )
 
 
-def _bench_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: one per core)")
-    p.add_argument(
-        "--library",
-        action="append",
-        choices=bench.LIBRARIES,
-        help="only this library (repeatable; default: all)",
-    )
-    p.add_argument(
-        "--naive-points",
-        type=int,
-        default=bench.NAIVE_POINTS,
-        metavar="N",
-        help=f"points the naive way runs per library (default {bench.NAIVE_POINTS})",
-    )
-    p.add_argument(
-        "--params",
-        type=int,
-        default=bench.KIT_PARAMS,
-        metavar="N",
-        help=f".param lines in the foundry-style model file (default {bench.KIT_PARAMS})",
-    )
-    p.add_argument(
-        "--repeat",
-        type=int,
-        default=1,
-        metavar="N",
-        help="charflow runs per setting; the fastest is kept (default 1)",
-    )
-
-
 def _diff_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("old", type=Path, help="the first library (.lib or .json)")
     p.add_argument("new", type=Path, help="the second library (.lib or .json)")
@@ -301,13 +269,6 @@ COMMANDS: dict[str, tuple[str, str, Callable[[argparse.ArgumentParser], None]]] 
         "Try grids of several sizes and spacings for one arc against a dense reference grid "
         "and report the smallest that meets each target error.",
         _grid_study_options,
-    ),
-    "bench": (
-        "time charflow against the naive way and the simulator alone",
-        "Time charflow's sweep against one simulator run per point (the naive way) and the "
-        "simulator's own time: the demo's cells on both demo model sets and on a generated "
-        "foundry-style model file.",
-        _bench_options,
     ),
     "diff": (
         "compare two libraries (Liberty or JSON) table by table",
@@ -689,26 +650,6 @@ def _study(cfg: config.LibraryConfig, out: Path, args: argparse.Namespace) -> in
     return EXIT_FAILED_POINTS if any(c.failures for c in study.candidates) else EXIT_OK
 
 
-def _bench(args: argparse.Namespace) -> int:
-    for option, value, least in (
-        ("--jobs", args.jobs, 1),
-        ("--naive-points", args.naive_points, 1),
-        ("--params", args.params, 2),
-        ("--repeat", args.repeat, 1),
-    ):
-        if value is not None and value < least:
-            raise ConfigError(f"{option} must be at least {least}, got {value}")
-    results = bench.run(
-        jobs=args.jobs,
-        naive_points=args.naive_points,
-        params=args.params,
-        repeat=args.repeat,
-        libraries=tuple(args.library or bench.LIBRARIES),
-    )
-    print(bench.render(results))
-    return EXIT_OK
-
-
 class _Stderr(logging.StreamHandler):
     """Writes to the ``sys.stderr`` of the moment: a caller (a test, an embedding program) may
     replace it after the first command set the handler up."""
@@ -756,9 +697,7 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args)
         if args.command == "fidelity":
             return _fidelity(args)
-        if args.command == "grid-study":
-            return _grid_study(args)
-        return _bench(args)
+        return _grid_study(args)
     except (ConfigError, NetlistError, FunctionalMismatchError, DiffError) as exc:
         print(f"charflow: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT

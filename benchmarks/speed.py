@@ -8,20 +8,24 @@ ngspice prints (``meas``). It is given charflow's estimated first step and stop 
 each point, runs each once and on as many processes as charflow has workers, so it does no
 more simulator work and the speed-up it shows is charflow's overhead against its own.
 
-Every charflow run is a fresh process doing what ``charflow run`` does (``_child``), as a
+Every charflow run is a fresh process doing what ``charflow run`` does (``child.py``), as a
 user starts it: its wall time includes Python's start, the functional check, worker start-up
 and writing, each stage timed.
 
 The libraries: the demo on its level-1 and its BSIM models (7 × 7 grid), and a model file of
-the kind foundries ship, generated here with invented values: thousands of ``.param``
-expressions, binned BSIM models and every device wrapped in a subcircuit. Ratios are measured
-side by side in the same run, since absolute times drift with the machine's load.
+the kind foundries ship, generated with invented values by the tests' fixture
+(tests/fixtures/model_kits.py): thousands of ``.param`` expressions, binned BSIM models and
+every device wrapped in a subcircuit. Ratios are measured side by side in the same run, since
+absolute times drift with the machine's load.
+
+Not part of the charflow package: it uses charflow as a library, as any program would.
 """
 
 from __future__ import annotations
 
 import json
 import math
+import multiprocessing
 import os
 import random
 import re
@@ -35,22 +39,29 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from pathlib import Path
 
+from fixtures.model_kits import KIT_PARAMS, foundry_kit
+
 from charflow.config import library as config_mod
 from charflow.config.library import LibraryConfig
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR, TEMPLATE_DIR
-from charflow.execution import sweep, workers
-from charflow.measurement import stepsize
+from charflow.execution import workers
+from charflow.measurement import combinational
+from charflow.measurement.combinational import backend_for
+from charflow.plan import arcs as planning
 from charflow.records.errors import CharflowError, SimulatorError
+from charflow.records.points import State, TimingPoint
 from charflow.simulation import netlist, stimulus
 from charflow.simulation.backends import QUIET, SINGLE_THREAD
 
 DEMO = DEMO_CONFIG
 LEVEL1_MODELS = MODEL_DIR / "vellum90_l1.lib"
 
-KIT_PARAMS = 3000  # .param lines in the generated foundry-style model file
-KIT_BINS = 4  # length bins per device type
 NAIVE_POINTS = 48  # points the naive way runs per library; its rate is scaled to the rest
 NAIVE_TIMEOUT = 600.0  # s per naive ngspice process
+# The timed charflow run, started as a script (it imports charflow's whole flow; this module
+# does not need to, so the benchmark's --help stays quick).
+CHILD = Path(__file__).resolve().with_name("child.py")
+STAGES = "bench_stages.json"  # what CHILD writes beside the library: stage times, simulator time
 
 # Targets (issue 7): throughput against the naive way per library, overhead over the floor,
 # scaling from one to two cores, peak memory per worker process.
@@ -105,7 +116,7 @@ class RunStats:
 
 @dataclass(frozen=True, slots=True)
 class NaivePoint:
-    point: sweep.TimingPoint
+    point: TimingPoint
     delay: float  # s
     transition: float  # s, divided by the slew derate
 
@@ -151,101 +162,11 @@ def level1_demo(folder: Path) -> Path:
     return path
 
 
-def foundry_kit(
-    folder: Path, params: int = KIT_PARAMS, bins: int = KIT_BINS, grid: str | None = None
-) -> Path:
-    """A model file of the kind foundries ship (invented values), two cells on it and their
-    config, in ``folder``; returns the config's path.
-
-    ``params`` ``.param`` lines, each an expression of two earlier ones (reading them is what
-    makes such files slow); ``bins`` length bins per device type (``nch.1`` ..., selected by
-    ngspice from ``lmin``/``lmax``/``wmin``/``wmax``); devices wrapped in subcircuits that the
-    cells instantiate with X. ``grid`` is the config's ``[grid]`` body (default: the demo's).
-    """
-    lines = [
-        "* Foundry-style model file for the charflow benchmark. EVERY VALUE IS INVENTED.",
-        ".lib tt",
-        ".param kit_vth_n = 0.35 kit_vth_p = -0.35 kit_tox = 2.2e-9 kit_p0 = 0.01 kit_p1 = 0.02",
-    ]
-    for i in range(2, params):
-        a, b = (i * 7919) % i, (i * 104729) % i
-        lines.append(f".param kit_p{i} = 'kit_p{a} * 0.5 + kit_p{b} * 0.5 + {1e-4 * (i % 13):.4g}'")
-    edges = [0.05e-6 * 2**k for k in range(bins + 1)]
-    for dev, kind, vth, u0 in (
-        ("nch", "nmos", "kit_vth_n", 0.03),
-        ("pch", "pmos", "kit_vth_p", 0.015),
-    ):
-        for k in range(bins):
-            lines += [
-                f".model {dev}.{k + 1} {kind} level=54 version=4.8 lmin={edges[k]:.4g} "
-                f"lmax={edges[k + 1]:.4g} wmin=0.1e-6 wmax=100e-6",
-                f"+ toxe={{kit_tox}} toxp=1.9e-9 toxm={{kit_tox}} epsrox=3.9 "
-                f"vth0={{{vth} + kit_p{(k * 97) % params} * 0.001}} k1=0.40 k2=0.0 k3=0.0",
-                f"+ lpe0=0.0 ndep=2e18 xj=3e-8 u0={u0} ua=1e-9 ub=1e-18 vsat=1.1e5 rdsw=150",
-                "+ lint=5e-9 dvt0=1.0 dvt1=0.5 dsub=0.2 eta0=0.10 nfactor=1.2 pclm=1.0",
-                "+ cgso=0.25e-9 cgdo=0.25e-9 cgbo=0.0 cjs=1.0e-3 cjd=1.0e-3 mjs=0.40 mjd=0.40",
-            ]
-    for dev in ("nch", "pch"):
-        lines += [
-            f".subckt {dev}_mac d g s b w=1e-6 l=1e-7",
-            f"m0 d g s b {dev} w={{w}} l={{l}} as={{w*0.25e-6}} ad={{w*0.25e-6}} "
-            "ps={2*(w+0.25e-6)} pd={2*(w+0.25e-6)}",
-            f".ends {dev}_mac",
-        ]
-    lines.append(".endl tt")
-    (folder / "kit.lib").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (folder / "kit_cells.sp").write_text(
-        """* Cells on the kit's wrapped devices (X instances), invented.
-.subckt KINV A Y VDD VSS
-xp Y A VDD VDD pch_mac w=0.8e-6 l=0.1e-6
-xn Y A VSS VSS nch_mac w=0.4e-6 l=0.1e-6
-.ends KINV
-.subckt KNAND2 IA IB Y VDD VSS
-xp1 Y IA VDD VDD pch_mac w=0.8e-6 l=0.1e-6
-xp2 Y IB VDD VDD pch_mac w=0.8e-6 l=0.1e-6
-xn1 Y IA n1 VSS nch_mac w=0.8e-6 l=0.1e-6
-xn2 n1 IB VSS VSS nch_mac w=0.8e-6 l=0.1e-6
-.ends KNAND2
-""",
-        encoding="utf-8",
-    )
-    if grid is None:
-        grid = DEMO.read_text(encoding="utf-8").split("[grid]")[1].split("[[cell]]")[0].strip()
-    path = folder / "kit.toml"
-    path.write_text(
-        f"""[library]
-name = "kit_tt"
-
-[process]
-models = [{{ file = "kit.lib", section = "tt" }}]
-vdd = 1.2
-
-[grid]
-{grid}
-
-[[cell]]
-name = "KINV"
-netlist = "kit_cells.sp"
-inputs = ["A"]
-outputs = {{ Y = "!A" }}
-
-[[cell]]
-name = "KNAND2"
-netlist = "kit_cells.sp"
-inputs = ["IA", "IB"]
-outputs = {{ Y = "!(IA&IB)" }}
-""",
-        encoding="utf-8",
-    )
-    return path
-
-
 def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dict]:
-    """charflow on ``config_path`` in a fresh process, as ``charflow run`` does it (this
-    module's ``_child``: load, characterize, write), timed stage by stage; its statistics and
-    the JSON it wrote."""
+    """charflow on ``config_path`` in a fresh process, as ``charflow run`` does it (child.py:
+    load, characterize, write), timed stage by stage; its statistics and the JSON it wrote."""
     out.mkdir(parents=True, exist_ok=True)
-    cmd = [sys.executable, "-m", "charflow.bench", str(config_path), str(jobs), str(out)]
+    cmd = [sys.executable, str(CHILD), str(config_path), str(jobs), str(out), str(out / STAGES)]
     with open(out / "stderr.txt", "w+", encoding="utf-8") as err:
         begun = time.time()
         start = time.perf_counter()
@@ -262,62 +183,24 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
         raise SimulatorError(f"charflow on {config_path.name} failed: {message}")
     name = config_mod.load(config_path).name
     doc = json.loads((out / f"{name}.json").read_text(encoding="utf-8"))
-    child = json.loads((out / STAGES).read_text(encoding="utf-8"))
+    timed = json.loads((out / STAGES).read_text(encoding="utf-8"))
     records = [r for cell in doc["points"].values() for r in cell]
     stats = RunStats(
         label=f"charflow, {jobs} worker{'s' * (jobs > 1)}",
         workers=jobs,
         points=len(records),
-        simulations=child["simulations"],
+        simulations=timed["simulations"],
         wall=wall,
-        analysis=child["analysis"],
+        analysis=timed["analysis"],
         cpu=usage.ru_utime + usage.ru_stime,
         peak_rss=usage.ru_maxrss * 1024.0,  # Linux reports kilobytes
-        stages=tuple(child["stages"].items()),
+        stages=tuple(timed["stages"].items()),
     )
     return stats, doc
 
 
-STAGES = "bench_stages.json"
-
-
-def _child(argv: list[str]) -> int:
-    """What ``charflow run CONFIG --jobs N --out DIR`` does, with each stage's wall time
-    written to DIR/bench_stages.json (seconds; "start" runs from the parent's launch)."""
-    from charflow.flow import characterize as flow
-
-    path, jobs, out, begun = Path(argv[0]), int(argv[1]), Path(argv[2]), float(argv[3])
-    stages = {"start and imports": time.time() - begun}
-    mark = time.perf_counter()
-    sweep_start = last = 0.0
-
-    def on_start(_: int) -> None:
-        nonlocal sweep_start
-        sweep_start = time.perf_counter()
-
-    def on_result(_: object) -> None:
-        nonlocal last
-        last = time.perf_counter()
-
-    cfg = config_mod.load(path)
-    stages["config"] = time.perf_counter() - mark
-    mark = time.perf_counter()
-    result = flow.characterize(cfg, jobs=jobs, on_start=on_start, on_result=on_result)
-    done = time.perf_counter()
-    stages["plan and functional check"] = sweep_start - mark
-    stages["sweep"] = last - sweep_start
-    stages["tables"] = done - last
-    flow.write(cfg, result, out)
-    stages["write"] = time.perf_counter() - done
-    # The library's JSON carries no timings (a re-run from the store must reproduce it byte
-    # for byte): the simulator's time travels beside the stages.
-    totals = {"simulations": result.simulations, "analysis": result.sim_seconds}
-    (out / STAGES).write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
-    return 1 if result.failures else 0
-
-
 def naive_netlist(
-    config: LibraryConfig, deck: netlist.Deck, point: sweep.TimingPoint, step: float, stop: float
+    config: LibraryConfig, deck: netlist.Deck, point: TimingPoint, step: float, stop: float
 ) -> str:
     """A complete netlist for one point, as a script without charflow would write it."""
     cell = config.cell(point.cell)
@@ -361,7 +244,7 @@ def naive_netlist(
 def naive_point(
     config: LibraryConfig,
     deck: netlist.Deck,
-    point: sweep.TimingPoint,
+    point: TimingPoint,
     step: float,
     stop: float,
     folder: Path,
@@ -400,7 +283,7 @@ def naive_run(
 ) -> tuple[RunStats, float]:
     """The naive way on ``count`` points drawn from the plan, on ``jobs`` processes at once;
     its statistics and its largest relative difference from charflow's values in ``doc``."""
-    plan = sweep.plan(config)
+    plan = planning.plan(config)
     # A fixed sample, not a stride: a stride of the series' length picks one grid corner only.
     chosen = sorted(random.Random(0).sample(range(len(plan.points)), min(count, len(plan.points))))
     points = [plan.points[i] for i in chosen]
@@ -409,7 +292,7 @@ def naive_run(
     # charflow's estimated first step and its stop-time cap for each point (a plain run
     # has no stop condition: it runs to the cap).
     runs = [
-        (p, stepsize.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_cap_s"])
+        (p, combinational.first_step(config, decks[p.cell], p), measured[_key(p)]["stop_cap_s"])
         for p in points
     ]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -435,8 +318,8 @@ def naive_run(
     return stats, worst
 
 
-def _key(p: sweep.TimingPoint) -> tuple:
-    when = sweep.State(p.side, "").when
+def _key(p: TimingPoint) -> tuple:
+    when = State(p.side, "").when
     return (p.cell, p.related, p.output, when, p.input_edge, p.slew, p.load)
 
 
@@ -476,8 +359,6 @@ def bench_library(
 
 def kit_load_seconds(config_path: Path) -> float:
     """Wall time of ngspice reading one cell's testbench on the kit (its models, mostly)."""
-    from charflow.measurement.combinational import backend_for
-
     config = config_mod.load(config_path)
     deck = netlist.build_deck(config, config.cells[0])
     backend = backend_for(config)
@@ -501,8 +382,6 @@ def _spin() -> None:
 def free_cores(jobs: int) -> float:
     """How many cores ``jobs`` busy processes get at once, against one alone: ``jobs`` on an
     idle machine, less when other work shares it (then no scaling above it can be measured)."""
-    import multiprocessing
-
     method = "fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn"
     context = multiprocessing.get_context(method)
 
@@ -622,7 +501,3 @@ def render(results: list[LibraryBench]) -> str:
 def _target(what: str, value: float, target: float, sense: str) -> str:
     met = value >= target if sense == ">=" else value <= target
     return f"  {what:<46} {value:8.2f}  target {sense} {target:g}  {'met' if met else 'NOT MET'}"
-
-
-if __name__ == "__main__":
-    sys.exit(_child(sys.argv[1:]))

@@ -1,0 +1,56 @@
+"""One timed charflow run in a fresh process, as a user starts ``charflow run``; the benchmark
+(benchmarks/speed.py) starts it as a script:
+
+    python benchmarks/child.py CONFIG JOBS OUT STAGES LAUNCHED
+
+It does what ``charflow run CONFIG --jobs JOBS --out OUT`` does (load, characterize, write),
+through charflow's library API, and writes each stage's wall time to the JSON file STAGES
+(seconds; the first stage runs from LAUNCHED, the parent's ``time.time()`` at the launch, so it
+holds Python's start and charflow's imports). Exit 1 when some points failed.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from pathlib import Path
+
+from charflow.config import library as config
+from charflow.flow import characterize as flow
+
+
+def main(argv: list[str]) -> int:
+    path, jobs, out, timings = Path(argv[0]), int(argv[1]), Path(argv[2]), Path(argv[3])
+    begun = float(argv[4])
+    stages = {"start and imports": time.time() - begun}
+    mark = time.perf_counter()
+    sweep_start = last = 0.0
+
+    def on_start(_: int) -> None:
+        nonlocal sweep_start
+        sweep_start = time.perf_counter()
+
+    def on_result(_: object) -> None:
+        nonlocal last
+        last = time.perf_counter()
+
+    cfg = config.load(path)
+    stages["config"] = time.perf_counter() - mark
+    mark = time.perf_counter()
+    result = flow.characterize(cfg, jobs=jobs, on_start=on_start, on_result=on_result)
+    done = time.perf_counter()
+    stages["plan and functional check"] = sweep_start - mark
+    stages["sweep"] = last - sweep_start
+    stages["tables"] = done - last
+    flow.write(cfg, result, out)
+    stages["write"] = time.perf_counter() - done
+    # The library's JSON carries no timings (a re-run from the store must reproduce it byte
+    # for byte): the simulator's time travels beside the stages.
+    totals = {"simulations": result.simulations, "analysis": result.sim_seconds}
+    timings.write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
+    return 1 if result.failures else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1:]))
