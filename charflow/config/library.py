@@ -208,6 +208,11 @@ class LibraryConfig:
     liberty: LibertyOptions = field(default_factory=LibertyOptions)
     corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
     digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
+    # The cells by name, for ``cell``: built with the record, never compared or shown.
+    _by_name: dict[str, CellSpec] = field(init=False, repr=False, compare=False, hash=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "_by_name", {c.name: c for c in self.cells})
 
     @property
     def corner_name(self) -> str:
@@ -243,9 +248,9 @@ class LibraryConfig:
         return cap_scale(self.cap_unit)
 
     def cell(self, name: str) -> CellSpec:
-        for cell in self.cells:
-            if cell.name == name:
-                return cell
+        found = self._by_name.get(name)
+        if found is not None:
+            return found
         raise ConfigError(
             f"no cell named {name!r}; the config has {', '.join(c.name for c in self.cells)}",
             file=self.path,

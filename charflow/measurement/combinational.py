@@ -336,7 +336,7 @@ def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:
     # Everything the probes depend on: the testbench, the grid's corners, how points are run.
     key = (
         deck.key,
-        replace(point, slew=0.0, load=0.0),
+        point.series,
         config.cell(point.cell).grid,
         config.thresholds,
         config.simulation,

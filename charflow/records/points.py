@@ -10,6 +10,7 @@ store, step control and messages ask the point instead of re-deriving these.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import ClassVar
 
 from charflow.records import logic
 from charflow.records.units import LibraryUnits, show_cap, show_time
@@ -91,7 +92,8 @@ class TimingPoint:
             f"slew {self.slew:.4g} s load {self.load:.4g} F{other}"
         )
 
-    AXES = ("slew", "load", "other load")
+    AXES: ClassVar[tuple[str, ...]] = ("slew", "load", "other load")
+    FILLABLE: ClassVar[bool] = True  # gap filling may fill it from its table's neighbours
 
     @property
     def series(self) -> tuple:
@@ -157,7 +159,8 @@ class ConstraintPoint:
             f"{self.clock_slew:.4g} s"
         )
 
-    AXES = ("data slew", "clock slew")
+    AXES: ClassVar[tuple[str, ...]] = ("data slew", "clock slew")
+    FILLABLE: ClassVar[bool] = True  # gap filling may fill it from its table's neighbours
 
     @property
     def series(self) -> tuple:
@@ -204,7 +207,8 @@ class PulsePoint:
     def label(self) -> str:
         return f"minimum {self.level} pulse on {self.pin}, slew {self.slew:.4g} s"
 
-    AXES = ("slew",)
+    AXES: ClassVar[tuple[str, ...]] = ("slew",)
+    FILLABLE: ClassVar[bool] = False
 
     @property
     def series(self) -> tuple:
@@ -249,7 +253,8 @@ class TogglePoint:
             f"slew {self.slew:.4g} s"
         )
 
-    AXES = ("slew",)
+    AXES: ClassVar[tuple[str, ...]] = ("slew",)
+    FILLABLE: ClassVar[bool] = False
 
     @property
     def series(self) -> tuple:

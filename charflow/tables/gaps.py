@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 from charflow.records.errors import ConfigError
 from charflow.records.outcomes import Failure, Measurement, SearchResult
-from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, TimingPoint
+from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, Work
 
 METHODS = ("linear", "nearest")
 ROW, COLUMN = 1, 0  # the axes ``linear`` goes along, first and as a fallback
@@ -62,15 +62,11 @@ class GapReport:
         return tuple(u.failure for u in self.unfilled)
 
 
-def _place(p: Point) -> tuple[tuple, tuple[float | None, ...], tuple[str, ...]] | None:
+def _place(p: Work) -> tuple[tuple, tuple[float, ...], tuple[str, ...]] | None:
     """(table key, coordinates, axis names) of a point that sits on a fillable grid."""
-    if isinstance(p, TimingPoint):
-        key = ("timing", p.cell, p.related, p.output, p.side, p.input_edge, p.output_edge, p.kind)
-        return key, (p.slew, p.load, p.other_load), ("slew", "load", "other load")
-    if isinstance(p, ConstraintPoint):
-        key = ("constraint", p.cell, p.constrained, p.related, p.kind, p.data_edge, p.clock_edge)
-        return key, (p.data_slew, p.clock_slew), ("data slew", "clock slew")
-    return None
+    if not p.FILLABLE:
+        return None
+    return p.series, p.coordinates, p.AXES[: len(p.coordinates)]
 
 
 class _Grid:
@@ -84,11 +80,7 @@ class _Grid:
 
     def index(self, coords: tuple) -> tuple[int, ...]:
         if self._positions is None:
-            # A 2D table's points have no other load (None): that axis has one position.
-            self._positions = [
-                {v: i for i, v in enumerate(sorted(vs, key=lambda x: -1.0 if x is None else x))}
-                for vs in self.values
-            ]
+            self._positions = [{v: i for i, v in enumerate(sorted(vs))} for vs in self.values]
         return tuple(pos[c] for pos, c in zip(self._positions, coords, strict=True))
 
 

@@ -10,15 +10,16 @@ import numpy as np
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.plan.toggles import _chosen, flop_toggles, hidden_states
 from charflow.records import logic
-from charflow.records.errors import TableError
 from charflow.records.names import power_quantity
 from charflow.records.outcomes import LeakageState, Measurement, ToggleMeasurement
 from charflow.records.points import EDGES, Arc, Plan, State
 from charflow.tables.table import Axis, Table
+from charflow.tables.tabulate import arc_axes, grid_table
 
 SLEW_AXIS = "input_transition_time"
 LOAD_AXIS = "total_output_net_capacitance"
 OTHER_LOAD_AXIS = "equal_or_opposite_output_net_capacitance"
+POWER_AXES = (SLEW_AXIS, LOAD_AXIS, OTHER_LOAD_AXIS)
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,17 +57,10 @@ class CellPower:
         )
 
 
-def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
-    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
-    if arc.other:
-        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
-    return tuple(axes)
-
-
 def _arc_tables(
     cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
 ) -> tuple[Table, ...]:
-    axes = _axes(cell, arc)
+    axes = arc_axes(cell, arc, POWER_AXES)
     mine = [
         m
         for m in measured
@@ -75,24 +69,10 @@ def _arc_tables(
     ]
     tables = []
     for out_edge in arc.output_edges:
-        energy = {}
-        for m in (m for m in mine if m.point.output_edge == out_edge):
-            p = m.point
-            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
-            energy[key] = m.internal_energy
-        grid = np.empty(tuple(len(a.values) for a in axes))
-        for index in np.ndindex(grid.shape):
-            key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
-            try:
-                grid[index] = energy[key]
-            except KeyError as exc:
-                where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
-                raise TableError(
-                    f"{power_quantity(out_edge)} has no measurement at {where}",
-                    cell=cell.name,
-                    arc=arc.label,
-                ) from exc
-        tables.append(Table(axes, grid, power_quantity(out_edge), "J"))
+        energy = {
+            m.point.coordinates: m.internal_energy for m in mine if m.point.output_edge == out_edge
+        }
+        tables.append(grid_table(cell, axes, power_quantity(out_edge), energy, "J", arc.label))
     return tuple(tables)
 
 

@@ -95,16 +95,30 @@ class CellTables:
     pulses: tuple[PulseWidth, ...] = ()
 
 
-def _axes(cell: CellSpec, arc: Arc) -> tuple[Axis, ...]:
-    axes = [Axis(SLEW_AXIS, cell.grid.slew), Axis(LOAD_AXIS, cell.grid.load)]
+TIMING_AXES = (SLEW_AXIS, LOAD_AXIS, OTHER_LOAD_AXIS)
+
+
+def arc_axes(
+    cell: CellSpec, arc: Arc, names: tuple[str, str, str] = TIMING_AXES
+) -> tuple[Axis, ...]:
+    """The axes of an arc's tables, named ``names``: the cell's slews and loads, and the other
+    output's loads when the arc's tables have three axes (``TimingPoint.coordinates``)."""
+    axes = [Axis(names[0], cell.grid.slew), Axis(names[1], cell.grid.load)]
     if arc.other:
-        axes.append(Axis(OTHER_LOAD_AXIS, cell.grid.related_load))
+        axes.append(Axis(names[2], cell.grid.related_load))
     return tuple(axes)
 
 
-def _grid_table(
-    cell: CellSpec, axes: tuple[Axis, ...], quantity: str, values: dict[tuple, float], unit: str
+def grid_table(
+    cell: CellSpec,
+    axes: tuple[Axis, ...],
+    quantity: str,
+    values: dict[tuple, float],
+    unit: str,
+    arc: str | None = None,
 ) -> Table:
+    """The table of ``values`` (by coordinates) over ``axes``; raise naming the first point
+    without a value."""
     grid = np.empty(tuple(len(a.values) for a in axes))
     for index in np.ndindex(grid.shape):
         key = tuple(a.values[i] for a, i in zip(axes, index, strict=True))
@@ -113,7 +127,7 @@ def _grid_table(
         except KeyError as exc:
             where = ", ".join(f"{a.name} {v:.4g}" for a, v in zip(axes, key, strict=True))
             raise TableError(
-                f"table {quantity} has no measurement at {where}", cell=cell.name
+                f"table {quantity} has no measurement at {where}", cell=cell.name, arc=arc
             ) from exc
     return Table(axes, grid, quantity, unit)
 
@@ -121,7 +135,7 @@ def _grid_table(
 def _state_tables(
     cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
 ) -> StateTables:
-    axes = _axes(cell, arc)
+    axes = arc_axes(cell, arc)
     mine = [
         m
         for m in measured
@@ -136,12 +150,10 @@ def _state_tables(
         for m in mine:
             if m.point.output_edge != out_edge:
                 continue
-            p = m.point
-            key = (p.slew, p.load) if p.other_load is None else (p.slew, p.load, p.other_load)
-            delays[key] = m.delay
-            transitions[key] = m.transition
-        tables.append(_grid_table(cell, axes, delay_quantity(out_edge), delays, "s"))
-        tables.append(_grid_table(cell, axes, transition_quantity(out_edge), transitions, "s"))
+            delays[m.point.coordinates] = m.delay
+            transitions[m.point.coordinates] = m.transition
+        tables.append(grid_table(cell, axes, delay_quantity(out_edge), delays, "s"))
+        tables.append(grid_table(cell, axes, transition_quantity(out_edge), transitions, "s"))
     return StateTables(state, tuple(tables))
 
 
@@ -157,12 +169,8 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
         tables = []
         # A control's recovery and removal are for its releasing edge alone.
         for edge in (e for e in ("rise", "fall") if any(r.point.data_edge == e for r in group)):
-            values = {
-                (r.point.data_slew, r.point.clock_slew): r.value
-                for r in group
-                if r.point.data_edge == edge
-            }
-            tables.append(_grid_table(cell, axes, f"{edge}_constraint", values, "s"))
+            values = {r.point.coordinates: r.value for r in group if r.point.data_edge == edge}
+            tables.append(grid_table(cell, axes, f"{edge}_constraint", values, "s"))
         out.append(
             ConstraintTables(pin, cell.flop.clock, kind, group[0].point.clock_edge, tuple(tables))
         )
