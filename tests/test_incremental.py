@@ -30,7 +30,9 @@ POINTS = 90  # small_l1: (1 + 2 + 2) arcs x 2 edges x 3 slews x 3 loads
 # small_l1's hidden-power toggles, stored beside the points: NAND2 and NOR2, 2 pins x 1 state
 # (the other input at its controlling value) x 2 edges x 3 slews each.
 TOGGLES = 24
-ROWS = POINTS + TOGGLES
+CELLS = 3  # each with a leakage point (in the sweep) and a function check (before it), stored
+REUSED = POINTS + TOGGLES + CELLS  # what a run served from the store reports reused
+ROWS = REUSED + CELLS
 KILL_POINTS = 250  # the same cells on a 5 x 5 grid
 KILL_AFTER = 50  # rows stored before the kill; the run stores 25 at a time (sweep.CHUNK)
 
@@ -69,11 +71,15 @@ def _config(folder: Path, *, extra: str = "", grid: str | None = None) -> Path:
     return path
 
 
-def _rows(db: Path) -> int:
+def _rows(db: Path, record: str | None = None) -> int:
+    """Rows of the store, or those holding one kind of ``record``."""
     if not db.is_file():
         return 0
     conn = sqlite3.connect(db, timeout=5)
     try:
+        if record is not None:
+            query = "SELECT count(*) FROM point WHERE record = ?"
+            return conn.execute(query, (record,)).fetchone()[0]
         return conn.execute("SELECT count(*) FROM point").fetchone()[0]
     except sqlite3.OperationalError:  # the run has not made the table yet
         return 0
@@ -97,7 +103,7 @@ def test_a_second_run_simulates_nothing_and_writes_the_same_bytes(tmp_path: Path
     second = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert second.returncode == 0, second.stderr
     assert "0 simulated (0 simulations)" in second.stdout
-    assert f"{ROWS} reused from the store" in second.stdout
+    assert f"{REUSED} reused from the store" in second.stdout
     assert _outputs(out) == before
     assert _rows(out / FILE_NAME) == ROWS
     # Nothing that varies between runs (wall time, dates) is in the outputs.
@@ -139,10 +145,13 @@ def test_a_killed_run_resumes_and_ends_as_a_clean_run(tmp_path: Path) -> None:
     assert KILL_AFTER <= stored < KILL_POINTS
     assert not (out / "small_l1.lib").exists()
 
+    # The function checks, stored before the sweep, are not among the points the run reports.
+    grid = _rows(db, "Measurement")
+    checks = _rows(db, "FunctionChecked")
     resumed = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert resumed.returncode == 0, resumed.stderr
-    assert f"{KILL_POINTS - stored} simulated" in resumed.stdout, resumed.stdout
-    assert f"{stored} reused from the store" in resumed.stdout, resumed.stdout
+    assert f"{KILL_POINTS - grid} simulated" in resumed.stdout, resumed.stdout
+    assert f"{stored - checks} reused from the store" in resumed.stdout, resumed.stdout
     assert _outputs(out) == _outputs(clean)
     assert not list(out.glob(".*.tmp"))  # no half-written output left behind
 
@@ -195,14 +204,15 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
     assert done.returncode == 0, done.stderr
     arc_points = 2 * 3 * 3  # 2 edges x 3 slews x 3 loads
     assert f"{arc_points} simulated" in done.stdout
-    assert f"{ROWS - arc_points} reused from the store" in done.stdout
-    assert _rows(out / FILE_NAME) == ROWS + arc_points
-    # The four other arcs' tables (4 timing and 2 internal power each) and the 8 hidden-power
-    # tables (toggles come with whole cells, not with one arc) are older than the model, and
-    # the summary says so.
+    # The arc's cell's leakage and function check run again on the new model (two rows).
+    assert f"{REUSED - arc_points - 1} reused from the store" in done.stdout
+    assert _rows(out / FILE_NAME) == ROWS + arc_points + 2
+    # The four other arcs' tables (4 timing and 2 internal power each), the 8 hidden-power
+    # tables (toggles come with whole cells, not with one arc) and the two other cells' leakage
+    # are older than the model, and the summary says so.
     stale = re.search(r"(\d+) tables are older than the model \((.*?)\): (.*)", done.stdout)
     assert stale is not None, done.stdout
-    assert stale.group(1) == str(4 * 6 + 8) and "vellum90_l1.lib" in stale.group(2)
+    assert stale.group(1) == str(4 * 6 + 8 + 2) and "vellum90_l1.lib" in stale.group(2)
     assert "QNAND2_P1 IA->Y" not in stale.group(3)
 
     new_lib = (out / "small_l1.lib").read_text(encoding="utf-8")
@@ -302,7 +312,7 @@ def test_two_corners_give_two_libraries_ff_faster_than_ss(tmp_path: Path) -> Non
         assert np.all(ff < ss), name
 
     again = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
-    assert again.stdout.count(f"0 simulated (0 simulations), {ROWS} reused") == 2
+    assert again.stdout.count(f"0 simulated (0 simulations), {REUSED} reused") == 2
 
 
 def test_flip_flop_searches_are_stored_too(tmp_path: Path) -> None:

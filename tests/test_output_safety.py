@@ -39,6 +39,7 @@ from charflow.execution import sweep
 from charflow.execution.lock import LOCK_NAME, FolderLock, read_holder
 from charflow.execution.store import FILE_NAME, Store, keyring
 from charflow.flow import characterize as flow
+from charflow.io import atomic
 from charflow.io.atomic import write_atomic
 from charflow.records.errors import OutputError, StoreError
 from charflow.simulation import netlist
@@ -98,7 +99,7 @@ def _hold_in_child(folder: Path) -> subprocess.Popen[str]:
     """Another process holding ``folder``; returns once it holds it."""
     code = (
         "import sys, time\n"
-        "from charflow.lock import FolderLock\n"
+        "from charflow.execution.lock import FolderLock\n"
         "with FolderLock(sys.argv[1]):\n"
         "    print('held', flush=True)\n"
         "    time.sleep(60)\n"
@@ -182,7 +183,8 @@ def test_two_runs_at_once_on_one_folder(tmp_path: Path) -> None:
         blocker.close()
         stdout, stderr = a.communicate(timeout=120)
     assert a.returncode == EXIT_OK, stderr
-    assert "90 points measured, 0 failed" in stdout and "114 reused from the store" in stdout
+    # 90 points, 24 toggles and 3 cells' leakage
+    assert "90 points measured, 0 failed" in stdout and "117 reused from the store" in stdout
     assert _integrity(out / FILE_NAME) == "ok"
 
 
@@ -287,11 +289,13 @@ def test_a_full_store_stops_the_run_and_keeps_what_it_stored(tmp_path: Path) -> 
     assert _integrity(path) == "ok"
     with Store(path) as store:
         kept = store.count()
-        assert 0 < kept < 114  # it filled up part way through the 90 points and 24 toggles
+        # It filled up part way through the 90 points, 24 toggles, 3 leakage points (and 3
+        # function checks before them).
+        assert 0 < kept < 120
         result = flow.characterize(cfg, jobs=1, store=store)  # room again: resume
-        assert store.count() == 114
+        assert store.count() == 120
     assert not result.failures
-    assert len(result.reused) == kept
+    assert len(result.reused) == kept - 3  # the function checks are not among the run's points
     assert len(result.measurements) + len(result.toggles) == 114
 
 
@@ -311,7 +315,8 @@ def test_a_full_store_exits_3_and_says_a_re_run_resumes(
         kept = store.count()
     assert kept > 0
     assert cli.main(args) == EXIT_OK
-    assert f"{kept} reused from the store" in capsys.readouterr().out
+    # The 3 function checks, stored first, are not among the points the run reports.
+    assert f"{kept - 3} reused from the store" in capsys.readouterr().out
     assert read_holder(out) is None  # both commands let go of the folder
 
 
@@ -333,7 +338,7 @@ def test_an_output_on_a_full_disk_keeps_the_previous_version(
         made.append(Path(name))
         return os.open("/dev/full", os.O_WRONLY), name  # writes fail with ENOSPC
 
-    monkeypatch.setattr(flow.tempfile, "mkstemp", mkstemp_on_a_full_disk)
+    monkeypatch.setattr(atomic.tempfile, "mkstemp", mkstemp_on_a_full_disk)
     with pytest.raises(OutputError) as err:
         write_atomic(path, text)
     message = str(err.value)

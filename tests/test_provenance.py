@@ -232,7 +232,7 @@ def test_the_simulator_version_is_read_without_loading_libngspice_here(tmp_path)
     # A fresh interpreter: the test process may hold libngspice from other tests already.
     code = (
         "import sys\n"
-        "from charflow import config, provenance\n"
+        "from charflow.config import library as config\nfrom charflow.execution import provenance\n"
         "cfg = config.load(sys.argv[1])\n"
         "sim = provenance.simulator(cfg, 1)\n"
         "maps = open('/proc/self/maps').read()\n"

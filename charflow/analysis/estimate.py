@@ -16,8 +16,8 @@ step, retries and the length of a search are counted as the run will meet them:
 - toggles: the first of the cell's.
 
 Each group of points is charged the mean of its samples. The simulations counted are those the
-run's summary counts; the runs outside the sweep (the functional check and the leakage of each
-input vector) are counted apart, from their loops. The samples cost a few simulations per cell
+run's summary counts, leakage included; the functional check, which runs before the sweep, is
+counted apart (``plan.cellwork``). The samples cost a few simulations per cell
 (a few searches per flip-flop), never the sweep.
 """
 
@@ -27,11 +27,12 @@ import time
 from collections import Counter
 from dataclasses import dataclass, replace
 
-from charflow.config.library import CellSpec, LibraryConfig
+from charflow.config.library import LibraryConfig
 from charflow.measurement import combinational, registry
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
-from charflow.plan.toggles import plan_toggles, vectors
+from charflow.plan.cellwork import function_point, leakage_point
+from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import CharflowError, MeasurementError
 from charflow.records.outcomes import Failure
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
@@ -66,7 +67,8 @@ class CellCost:
     cell: str
     groups: tuple[GroupCost, ...]
     load: float  # s, the simulator reading the cell's testbench (once per worker)
-    outside: int  # simulations outside the sweep: the functional check and leakage
+    outside: int  # simulations outside the sweep: the functional check
+    leakage: int = 0  # the leakage point's runs, one per state (in the sweep)
 
     @property
     def work(self) -> float:
@@ -76,7 +78,7 @@ class CellCost:
     @property
     def simulations(self) -> float:
         """Simulations of the cell's sweep, as the run's summary counts them."""
-        return sum(g.points * g.simulations for g in self.groups)
+        return sum(g.points * g.simulations for g in self.groups) + self.leakage
 
 
 @dataclass(frozen=True, slots=True)
@@ -148,7 +150,9 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         toggles = plan_toggles(config, [name])
         if toggles:
             groups += (_sampled(config, deck, "hidden-power toggles", toggles, 1),)
-        costs.append(CellCost(name, groups, load, _outside(cell)))
+        costs.append(
+            CellCost(name, groups, load, function_point(cell).cost, leakage_point(cell).cost)
+        )
     return Estimate(arcs, tuple(costs), jobs)
 
 
@@ -237,16 +241,6 @@ def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, 
     return tuple(groups)
 
 
-def _outside(cell: CellSpec) -> int:
-    """Simulations outside the sweep, counted from their loops: the functional check (a DC
-    solution per input vector; for a flip-flop each data vector clocked in from either stored
-    value, per output) and the leakage (per input vector; a flip-flop's per stored value)."""
-    if cell.flop is None:
-        return 2 * 2 ** len(cell.inputs)
-    check = 2 ** len(cell.data_inputs) * 2 * len(cell.outputs)
-    return check + len(vectors(cell))
-
-
 def render(est: Estimate) -> str:
     lines = ["cell            arc            states  points"]
     for a in est.arcs:
@@ -269,7 +263,7 @@ def render(est: Estimate) -> str:
     lines.append(
         f"about {est.simulations:,.0f} simulations in the sweep (refinements, retries and every "
         f"search trial included, as the run's summary counts them){searches}, and "
-        f"{est.outside:,} outside it (functional check, leakage); the sweep takes about "
+        f"{est.outside:,} outside it (functional check); the sweep takes about "
         f"{_duration(est.seconds)} on {est.jobs} worker{'s' * (est.jobs > 1)} (start-up and "
         f"the functional check come on top); measured on {est.samples} sample points"
     )

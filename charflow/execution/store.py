@@ -32,14 +32,21 @@ from charflow.config.library import LibraryConfig
 from charflow.execution import provenance
 from charflow.execution.provenance import file_digest
 from charflow.records.errors import StoreError
-from charflow.records.outcomes import Measurement, SearchResult, ToggleMeasurement
+from charflow.records.outcomes import (
+    FunctionChecked,
+    LeakageResult,
+    Measurement,
+    SearchResult,
+    ToggleMeasurement,
+)
 from charflow.records.points import Point
 from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
-    cls.__name__: cls for cls in (Measurement, SearchResult, ToggleMeasurement)
+    cls.__name__: cls
+    for cls in (Measurement, SearchResult, ToggleMeasurement, LeakageResult, FunctionChecked)
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters

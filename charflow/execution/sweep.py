@@ -10,15 +10,15 @@ store it simulates only the points the store does not hold.
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Mapping
 
 from charflow.config.library import LibraryConfig
 from charflow.execution.cluster import map_chunks
 from charflow.execution.store import Store, keyring
 from charflow.execution.workers import default_jobs, run_chunks
 from charflow.measurement import registry
-from charflow.records.outcomes import Failure
-from charflow.records.points import ConstraintPoint, Point, PulsePoint
+from charflow.records.outcomes import Failure, Outcome
+from charflow.records.points import Point, TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
 
@@ -31,8 +31,8 @@ def work(points: Iterable[Point]) -> int:
     return sum(p.cost for p in points)
 
 
-def _weight(p: Point) -> float:
-    if isinstance(p, ConstraintPoint | PulsePoint):
+def _weight(p: Work) -> float:
+    if not isinstance(p, TimingPoint | TogglePoint):
         return p.cost
     # Within a kind, a slower ramp and a larger load make a longer run (power's toggles too).
     return p.cost * (1.0 + p.load * 1e12 + p.slew * 1e9)
@@ -55,14 +55,15 @@ def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]
 
 def run(
     config: LibraryConfig,
-    points: Iterable[Point],
+    points: Iterable[Work],
     *,
     jobs: int | None = None,
-    on_result: Callable[[object], None] | None = None,
+    on_result: Callable[[Outcome], None] | None = None,
     store: Store | None = None,
     on_stored: Callable[[tuple], None] | None = None,
     scheduler: str | None = None,
-) -> Iterator[object]:
+    decks: Mapping[str, Deck] | None = None,
+) -> Iterator[Outcome]:
     """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point.
 
     Outcomes come in completion order; ``on_result`` is a hook for progress display. With a
@@ -72,13 +73,15 @@ def run(
     on ``jobs`` local worker processes.
     """
     points = list(points)
-    decks: dict[str, Deck] = {
-        c: build_deck(config, config.cell(c)) for c in {p.cell for p in points}
+    # The testbenches the caller built are used as they are (a stage passes on what it made).
+    given = decks or {}
+    built = {
+        c: given.get(c) or build_deck(config, config.cell(c)) for c in {p.cell for p in points}
     }
-    plausible.announce(config, decks)
+    plausible.announce(config, built)
     ring = None
     if store is not None:
-        ring = keyring(config, decks)
+        ring = keyring(config, built)
         found = store.lookup(ring, points)
         if on_stored is not None:
             on_stored(tuple(found.values()))
@@ -90,14 +93,14 @@ def run(
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if scheduler is not None:
-        results: Iterable[list] = map_chunks(scheduler, config, decks, tasks)
+        results: Iterable[list] = map_chunks(scheduler, config, built, tasks)
     elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
         # Each run is its own ngspice process already: a crash cannot take this one down.
-        results = (registry.measure_chunk(config, decks[t[0].cell], t) for t in tasks)
+        results = (registry.measure_chunk(config, built[t[0].cell], t) for t in tasks)
     else:
         # Worker processes, not this one, run the simulator: a crash of the shared library
         # then costs only the points in flight, which are re-run alone.
-        results = run_chunks(config, decks, tasks, jobs)
+        results = run_chunks(config, built, tasks, jobs)
     # Closed as soon as the loop ends early (a store that cannot take a row, an interrupt): the
     # workers stop and their journals go now, not when the garbage collector gets to them.
     with contextlib.closing(results):

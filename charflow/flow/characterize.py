@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -23,10 +23,10 @@ from charflow.execution import provenance, sweep
 from charflow.execution.store import Stale, Store, keyring
 from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
-from charflow.measurement import registry
-from charflow.measurement.registry import check_function
 from charflow.plan import arcs as planning
+from charflow.plan.cellwork import function_points, leakage_points
 from charflow.plan.toggles import plan_toggles
+from charflow.records import errors
 from charflow.records.errors import ConfigError, OutputError
 from charflow.records.names import (
     delay_quantity,
@@ -37,23 +37,28 @@ from charflow.records.names import (
 )
 from charflow.records.outcomes import (
     Failure,
-    LeakageState,
+    FunctionChecked,
+    LeakageResult,
     Measurement,
+    Outcome,
     SearchResult,
     ToggleMeasurement,
 )
 from charflow.records.points import (
     Arc,
     ConstraintPoint,
+    FunctionPoint,
+    LeakagePoint,
     Plan,
     Point,
     PulsePoint,
     State,
     TimingPoint,
     TogglePoint,
+    Work,
 )
 from charflow.simulation import plausible
-from charflow.simulation.netlist import build_deck
+from charflow.simulation.netlist import Deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
 from charflow.tables.tabulate import ArcTables, CellTables, tabulate
@@ -71,6 +76,7 @@ class RunResult:
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
     toggles: tuple[ToggleMeasurement, ...] = ()
+    leakage: tuple[LeakageResult, ...] = ()  # per cell of the plan, in its order
     # Toggles whose energy could not be measured: reported, left out of the tables; they do
     # not stop the Liberty file, which then has no hidden power for that pin, state and edge.
     unmeasured: tuple[Failure, ...] = ()
@@ -89,7 +95,8 @@ class RunResult:
         toggles."""
         order = {p: i for i, p in enumerate(self.plan.points)}
         timing = sorted(
-            (*self.failures, *(f.failure for f in self.filled)), key=lambda f: order[f.point]
+            (*self.failures, *(f.failure for f in self.filled)),
+            key=lambda f: order.get(f.point, len(order)),  # per-cell work after the grid
         )
         return (*timing, *self.unmeasured)
 
@@ -101,13 +108,13 @@ class RunResult:
     @property
     def simulations(self) -> int:
         """Simulator runs of this run, refinements and retries included."""
-        done = (*self.measurements, *self.toggles)
+        done = (*self.measurements, *self.toggles, *self.leakage)
         return sum(m.runs for m in done if m.point not in self.reused)
 
     @property
     def sim_seconds(self) -> float:
         """Simulator time of this run, summed over workers."""
-        done = (*self.measurements, *self.toggles)
+        done = (*self.measurements, *self.toggles, *self.leakage)
         return sum(m.sim_seconds for m in done if m.point not in self.reused)
 
     def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
@@ -121,8 +128,12 @@ class RunResult:
         return {models: sorted(names) for models, names in sorted(out.items())}
 
 
-def _tables_of(plan: Plan, p: Point) -> list[str]:
+def _tables_of(plan: Plan, p: Work) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
+    if isinstance(p, LeakagePoint):
+        return [f"{p.cell} leakage"]
+    if isinstance(p, FunctionPoint):
+        return []
     if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
     if isinstance(p, TogglePoint):
@@ -148,20 +159,27 @@ def _tables_of(plan: Plan, p: Point) -> list[str]:
 
 
 def verify(
-    config: LibraryConfig, cells: list[str] | None = None, *, store: Store | None = None
-) -> None:
-    """Simulate every input vector of every chosen cell against its declared function; with a
-    store, a cell whose check passed before with the same inputs is not checked again."""
-    decks = {
-        c.name: build_deck(config, c) for c in config.cells if cells is None or c.name in cells
-    }
-    ring = keyring(config, decks) if store is not None else None
-    for name, deck in decks.items():
-        if ring is not None and store.verified(ring, name):
-            continue
-        check_function(config, deck)
-        if ring is not None:
-            store.mark_verified(ring, name)
+    config: LibraryConfig,
+    cells: list[str] | None = None,
+    *,
+    store: Store | None = None,
+    decks: Mapping[str, Deck] | None = None,
+    jobs: int | None = None,
+    scheduler: str | None = None,
+) -> tuple[FunctionChecked, ...]:
+    """Simulate every input vector of every chosen cell against its declared function, in the
+    sweep's workers; with a store, a cell whose check passed before with the same inputs is
+    not checked again. The first cell that fails stops the run with its error."""
+    names = [c.name for c in config.cells if cells is None or c.name in cells]
+    points = function_points(config, names)
+    outcomes = list(
+        sweep.run(config, points, jobs=jobs, store=store, scheduler=scheduler, decks=decks)
+    )
+    failed = [o for o in outcomes if isinstance(o, Failure)]
+    if failed:
+        first = min(failed, key=lambda f: names.index(f.point.cell))
+        raise errors.again(first.error, first.reason, dict(first.context))
+    return tuple(o for o in outcomes if isinstance(o, FunctionChecked))
 
 
 def select(
@@ -219,19 +237,25 @@ def characterize(
     chosen = select(config, cells, arc)
     # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
     toggle_points = plan_toggles(config, cells) if arc is None else ()
-    plausible.announce(config, {p.cell for p in chosen.points})  # before the first simulation
-    verify(config, cells, store=store)
+    names = list(dict.fromkeys(p.cell for p in chosen.points))
+    plausible.announce(config, names)  # before the first simulation
+    decks = {n: build_deck(config, config.cell(n)) for n in names}
+    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
+    cell_points = leakage_points(config, names)
     if on_start is not None:
-        on_start(sweep.work((*chosen.points, *toggle_points)))
+        on_start(sweep.work((*chosen.points, *toggle_points, *cell_points)))
     measurements: list[Measurement | SearchResult] = []
     failures: list[Failure] = []
     toggles: list[ToggleMeasurement] = []
     unmeasured: list[Failure] = []
-    reused: set[Point] = set()
+    leaks: dict[str, LeakageResult] = {}
+    reused: set[Work] = set()
 
-    def keep(outcome: object) -> None:
+    def keep(outcome: Outcome) -> None:
         if isinstance(outcome, ToggleMeasurement):
             toggles.append(outcome)
+        elif isinstance(outcome, LeakageResult):
+            leaks[outcome.point.cell] = outcome
         elif isinstance(outcome, Failure):
             toggle = isinstance(outcome.point, TogglePoint)
             (unmeasured if toggle else failures).append(outcome)
@@ -245,12 +269,13 @@ def characterize(
 
     for outcome in sweep.run(
         config,
-        (*chosen.points, *toggle_points),
+        (*chosen.points, *toggle_points, *cell_points),
         jobs=jobs,
         on_result=on_result,
         store=store,
         on_stored=stored,
         scheduler=scheduler,
+        decks=decks,
     ):
         keep(outcome)
     whole, stale = chosen, {}
@@ -258,9 +283,15 @@ def characterize(
     if store is not None and cells is not None:
         whole = planning.plan(config)
         all_toggles = plan_toggles(config)
-        picked = {*chosen.points, *toggle_points}
-        rest = [p for p in (*whole.points, *all_toggles) if p not in picked]
-        decks = {c: build_deck(config, config.cell(c)) for c in {p.cell for p in rest}}
+        picked = {*chosen.points, *toggle_points, *cell_points}
+        every = (
+            *whole.points,
+            *all_toggles,
+            *leakage_points(config, [c.name for c in config.cells]),
+        )
+        rest = [p for p in every if p not in picked]
+        for c in {p.cell for p in rest} - set(decks):
+            decks[c] = build_deck(config, config.cell(c))
         found, stale = store.latest(keyring(config, decks), rest)
         for m in found.values():
             keep(m)
@@ -272,7 +303,7 @@ def characterize(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
-    order = {p: i for i, p in enumerate((*whole.points, *all_toggles))}
+    order = {p: i for i, p in enumerate((*whole.points, *all_toggles, *cell_points))}
     for outcomes in (measurements, failures, toggles, unmeasured):
         outcomes.sort(key=lambda m: order[m.point])
     report = None
@@ -284,7 +315,7 @@ def characterize(
     if not failures:
         done = [*measurements, *report.records] if report is not None else measurements
         tables = tabulate(config, the_plan, done)
-        leaked = leakages(config, the_plan)
+        leaked = {c: r.states for c, r in leaks.items()}
         cell_power = power_tables.tabulate(config, the_plan, done, toggles, leaked)
     return RunResult(
         plan=the_plan,
@@ -297,6 +328,7 @@ def characterize(
         stale=tuple(s for p, s in stale.items() if p.cell not in left_out),
         left_out=left_out,
         toggles=tuple(toggles),
+        leakage=tuple(leaks[c] for c in names_in(the_plan) if c in leaks),
         unmeasured=tuple(unmeasured),
         cell_power=cell_power,
         gap_report=report,
@@ -610,11 +642,6 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     return written
 
 
-def leakages(config: LibraryConfig, plan: Plan) -> dict[str, tuple[LeakageState, ...]]:
-    """Leakage per input vector (and stored value) of every cell of the plan."""
-    names = {a.cell for a in plan.arcs}
-    return {
-        c.name: registry.leakage(config, build_deck(config, c))
-        for c in config.cells
-        if c.name in names
-    }
+def names_in(plan: Plan) -> list[str]:
+    """The plan's cells, in its order."""
+    return list(dict.fromkeys(a.cell for a in plan.arcs))

@@ -13,17 +13,18 @@ from pathlib import Path
 
 from charflow.config import library as config_mod
 from charflow.config.library import LibraryConfig
-from charflow.measurement.registry import check_function
+from charflow.execution import sweep
+from charflow.plan.cellwork import function_points
+from charflow.records import errors
 from charflow.records.errors import (
     CharflowError,
     ConfigError,
     ConfigProblemsError,
-    DeckReadError,
     FunctionalMismatchError,
     SimulatorError,
 )
+from charflow.records.outcomes import Failure
 from charflow.simulation import plausible
-from charflow.simulation.netlist import build_deck
 
 
 @dataclass(frozen=True, slots=True)
@@ -45,17 +46,25 @@ def check(path: str | Path) -> CheckReport:
         return CheckReport(0, tuple(map(str, exc.problems)))
     except ConfigError as exc:
         return CheckReport(0, (str(exc),))
+    failed = _failures(cfg, [c.name for c in cfg.cells])
+    if any(f.error == "DeckReadError" for f in failed) and cfg.simulation.backend == "shared":
+        # The shared ngspice may refuse every deck after one it could not read: those cells
+        # go again to one ngspice process per run, which starts afresh each time.
+        cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
+        failed = _failures(cfg, [f.point.cell for f in failed])
+    index = {c.name: i for i, c in enumerate(cfg.cells)}
+    failed.sort(key=lambda f: index[f.point.cell])
     problems = []
-    for index, cell in enumerate(cfg.cells):
-        try:
-            check_function(cfg, build_deck(cfg, cell))
-        except CharflowError as exc:
-            problems.append(str(_located(cfg, index, exc)))
-            if isinstance(exc, DeckReadError) and cfg.simulation.backend == "shared":
-                # The shared ngspice may refuse every deck after one it could not read: the
-                # other cells go to one ngspice process per run, which starts afresh each time.
-                cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
+    for f in failed:
+        exc = errors.again(f.error, f.reason, dict(f.context))
+        problems.append(str(_located(cfg, index[f.point.cell], exc)))
     return CheckReport(len(cfg.cells), tuple(problems), plausible.warnings(cfg))
+
+
+def _failures(cfg: LibraryConfig, cells: list[str]) -> list[Failure]:
+    """The function checks of ``cells`` that failed, run by the sweep's workers."""
+    points = function_points(cfg, cells)
+    return [o for o in sweep.run(cfg, points, jobs=1) if isinstance(o, Failure)]
 
 
 def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowError:

@@ -23,16 +23,24 @@ from charflow.io.atomic import write_atomic
 from charflow.records import logic
 from charflow.records.errors import OutputError
 from charflow.records.outcomes import Failure
-from charflow.records.points import ConstraintPoint, Point, PulsePoint, TimingPoint, TogglePoint
+from charflow.records.points import (
+    ConstraintPoint,
+    FunctionPoint,
+    LeakagePoint,
+    PulsePoint,
+    TimingPoint,
+    TogglePoint,
+    Work,
+)
 
 FOLDER = "failed"
 SLUG_LENGTH = 72
 DPI = 110
 
 
-def paths(failures: Iterable[Failure]) -> dict[Point, tuple[str, str]]:
+def paths(failures: Iterable[Failure]) -> dict[Work, tuple[str, str]]:
     """(CSV, PNG) path relative to the output folder, per failed point that has a waveform."""
-    out: dict[Point, tuple[str, str]] = {}
+    out: dict[Work, tuple[str, str]] = {}
     count: dict[str, int] = {}
     for f in failures:
         if f.waveform is None:
@@ -50,7 +58,7 @@ def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.+-]+", "_", name)
 
 
-def describe(p: Point) -> list[tuple[str, str]]:
+def describe(p: Work) -> list[tuple[str, str]]:
     """The point's coordinates, named, with their units (SI)."""
     if isinstance(p, TimingPoint):
         side = " ".join(f"{pin}={int(v)}" for pin, v in p.side) or "-"
@@ -90,6 +98,10 @@ def describe(p: Point) -> list[tuple[str, str]]:
             ("kind", f"minimum {p.level} pulse"),
             ("slew", f"{p.slew:.6g} s"),
         ]
+    if isinstance(p, LeakagePoint):
+        return [("kind", "leakage"), ("states", str(p.states))]
+    if isinstance(p, FunctionPoint):
+        return [("kind", "function check"), ("vectors", str(p.vectors))]
     raise TypeError(f"not a sweep point: {p!r}")
 
 

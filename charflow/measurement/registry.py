@@ -8,6 +8,7 @@ turned into a ``Failure`` that says where and why.
 from __future__ import annotations
 
 import logging
+import time
 from collections.abc import Callable, Sequence
 
 from charflow.config.library import LibraryConfig
@@ -21,8 +22,21 @@ from charflow.records.errors import (
     SimulatorHungError,
     place,
 )
-from charflow.records.outcomes import Failure, LeakageState, Outcome
-from charflow.records.points import ConstraintPoint, PulsePoint, TogglePoint, Work
+from charflow.records.outcomes import (
+    Failure,
+    FunctionChecked,
+    LeakageResult,
+    LeakageState,
+    Outcome,
+)
+from charflow.records.points import (
+    ConstraintPoint,
+    FunctionPoint,
+    LeakagePoint,
+    PulsePoint,
+    TogglePoint,
+    Work,
+)
 from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -31,6 +45,8 @@ log = logging.getLogger("charflow")
 def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
     """One point measured by the measurer of its kind (and of its cell's kind)."""
     flop = config.cell(point.cell).flop is not None
+    if isinstance(point, LeakagePoint | FunctionPoint):
+        return _per_cell(config, deck, point)
     if isinstance(point, TogglePoint):
         return (floptoggle if flop else power).measure_toggle(config, deck, point)
     if isinstance(point, ConstraintPoint):
@@ -40,6 +56,17 @@ def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
     if point.kind != "combinational":
         return sequential.measure_clocked(config, deck, point)
     return combinational.measure_point(config, deck, point)
+
+
+def _per_cell(
+    config: LibraryConfig, deck: Deck, point: LeakagePoint | FunctionPoint
+) -> LeakageResult | FunctionChecked:
+    start = time.perf_counter()
+    if isinstance(point, LeakagePoint):
+        states = leakage(config, deck)
+        return LeakageResult(point, states, point.states, time.perf_counter() - start)
+    check_function(config, deck)
+    return FunctionChecked(point, point.vectors, time.perf_counter() - start)
 
 
 def leakage(config: LibraryConfig, deck: Deck) -> tuple[LeakageState, ...]:
@@ -81,11 +108,13 @@ def measure_chunk(
             outcome = measure(config, deck, point)
         except SimulatorHungError:
             raise
-        except (MeasurementError, SimulatorError) as exc:
+        except (MeasurementError, SimulatorError, FunctionalMismatchError) as exc:
             wave = exc.waveform if isinstance(exc, MeasurementError) else None
             told = explain(config, point, exc)
             cut = isinstance(exc, CutOffError)
-            outcome = Failure(point, told.reason, wave, place(told.context), cut)
+            context = tuple((k, str(v)) for k, v in told.context.items())
+            kind = type(exc).__name__
+            outcome = Failure(point, told.reason, wave, place(told.context), cut, context, kind)
         except Exception as exc:  # noqa: BLE001 - a charflow bug must not end hours of work
             where = place(point.where(config))
             log.exception("internal error measuring %s", where)

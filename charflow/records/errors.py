@@ -133,3 +133,15 @@ class ClusterError(CharflowError):
 
 class DiffError(CharflowError):
     """A library to compare cannot be read."""
+
+
+def again(kind: str, reason: str, context: dict[str, str]) -> CharflowError:
+    """An error of the type named ``kind`` (one of this module's), rebuilt from what a worker
+    sent back (its reason and context): the driver raises it where a failure ends the run."""
+    cls = globals().get(kind)
+    if not (isinstance(cls, type) and issubclass(cls, CharflowError)):
+        cls = CharflowError
+    try:
+        return cls(reason, **context)
+    except TypeError:  # a type whose constructor wants more than a reason and context
+        return CharflowError(reason, **context)

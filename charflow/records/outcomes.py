@@ -9,7 +9,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint, TogglePoint, Work
+from charflow.records.points import (
+    ConstraintPoint,
+    FunctionPoint,
+    LeakagePoint,
+    PulsePoint,
+    TimingPoint,
+    TogglePoint,
+    Work,
+)
 
 # How a minimum pulse width was found: pulses that reach the far rail, their width set by a flat
 # top; or, where the narrowest of those still works, pulses at the same edge rate that turn
@@ -58,6 +66,10 @@ class Failure:
     waveform: Waveform | None = None  # the run that gave no measurement, when one ran
     where: str = ""  # cell, arc, state and point in the library's units (``explain``)
     cut_off: bool = False  # the window cap stopped the run before the output settled
+    # The error's context (cell, pin, vector, ...), for the driver to raise it again where a
+    # failure ends the run (a function check that fails)
+    context: tuple[tuple[str, str], ...] = ()
+    error: str = ""  # the error's type (``records.errors``), for the same reason
 
     @property
     def message(self) -> str:
@@ -107,5 +119,22 @@ class LeakageState:
     gmin: float  # S, the simulator's gmin the value was measured with
 
 
+@dataclass(frozen=True, slots=True)
+class LeakageResult:
+    point: LeakagePoint
+    states: tuple[LeakageState, ...]  # in counting order of the vectors (and stored values)
+    runs: int
+    sim_seconds: float  # wall time of the runs in the worker
+
+
+@dataclass(frozen=True, slots=True)
+class FunctionChecked:
+    """The cell's netlist gave every output level its functions declare."""
+
+    point: FunctionPoint
+    runs: int
+    sim_seconds: float  # wall time of the check in the worker
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
-Outcome = Measurement | SearchResult | ToggleMeasurement | Failure
+Outcome = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked | Failure

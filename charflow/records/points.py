@@ -279,9 +279,71 @@ class TogglePoint:
         }
 
 
+@dataclass(frozen=True, slots=True)
+class LeakagePoint:
+    """The static power of one cell in every state it can rest in: each input vector (and a
+    flip-flop's stored value), held until the supply current is steady."""
+
+    cell: str
+    states: int  # the states held: the run's cost
+
+    AXES: ClassVar[tuple[str, ...]] = ()
+    FILLABLE: ClassVar[bool] = False
+
+    @property
+    def series(self) -> tuple:
+        return ("leakage", self.cell)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return ()
+
+    @property
+    def label(self) -> str:
+        return f"leakage in {self.states} states"
+
+    @property
+    def cost(self) -> int:
+        return self.states
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        return {"cell": self.cell, "point": "leakage"}
+
+
+@dataclass(frozen=True, slots=True)
+class FunctionPoint:
+    """The check that a cell's netlist does what its functions say: every input vector at DC,
+    or for a flip-flop every data vector clocked in from either stored value."""
+
+    cell: str
+    vectors: int  # the vectors tried: the check's cost
+
+    AXES: ClassVar[tuple[str, ...]] = ()
+    FILLABLE: ClassVar[bool] = False
+
+    @property
+    def series(self) -> tuple:
+        return ("function", self.cell)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return ()
+
+    @property
+    def label(self) -> str:
+        return f"function check of {self.vectors} vectors"
+
+    @property
+    def cost(self) -> int:
+        return self.vectors
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        return {"cell": self.cell}
+
+
 # The points of a plan's tables; with the toggles, all the work a sweep hands to workers.
 Point = TimingPoint | ConstraintPoint | PulsePoint
-Work = Point | TogglePoint
+Work = Point | TogglePoint | LeakagePoint | FunctionPoint
 
 
 @dataclass(frozen=True, slots=True)
