@@ -13,10 +13,12 @@ from pathlib import Path
 import pytest
 
 from charflow.config import library as config
+from charflow.config.library import Simulation
 from charflow.config.resources import MODEL_DIR
 from charflow.records.errors import DeckReadError
 from charflow.simulation import netlist
-from charflow.simulation.backends import Request, SharedBackend, SubprocessBackend, make_backend
+from charflow.simulation.backends import Request, SharedBackend, SubprocessBackend
+from charflow.simulation.session import SESSION
 
 L1 = MODEL_DIR / "vellum90_l1.lib"
 INVERTER = """* an inverter whose PMOS names {model}
@@ -67,7 +69,9 @@ def _read(backend: SharedBackend | SubprocessBackend, deck: netlist.Deck) -> Dec
     return caught.value
 
 
-BACKENDS = [lambda: make_backend("shared", 60.0), lambda: SubprocessBackend(60.0)]
+# The process's one shared simulator (``session``), as the workers use it.
+SHARED = Simulation(backend="shared", timeout=60.0)
+BACKENDS = [lambda: SESSION.backend(SHARED), lambda: SubprocessBackend(60.0)]
 
 
 @pytest.mark.parametrize("backend", BACKENDS, ids=["shared", "subprocess"])
@@ -88,7 +92,7 @@ def test_a_model_in_a_section_not_read_says_where_it_is(tmp_path):
     fast = ".model pch_fast pmos level=1 vto=-0.30 kp=115e-6\n"
     models = L1.read_text().replace("\n.lib ff\n", f"\n.lib ff\n{fast}", 1)
     deck = _deck(tmp_path, models, model="pch_fast")
-    error = _read(make_backend("shared", 60.0), deck)
+    error = _read(SESSION.backend(SHARED), deck)
     text = (tmp_path / "models.lib").read_text().splitlines()
     line = next(i for i, ln in enumerate(text, 1) if ln.startswith(".model pch_fast"))
     assert f"model pch_fast is defined at {tmp_path / 'models.lib'} line {line}" in error.reason

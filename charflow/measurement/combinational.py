@@ -43,8 +43,15 @@ from charflow.records.outcomes import Measurement
 from charflow.records.points import TimingPoint
 from charflow.records.units import show_time
 from charflow.simulation import plausible, stimulus
-from charflow.simulation.backends import RETRY_LADDER, Request, Result, make_backend
+from charflow.simulation.backends import (
+    RETRY_LADDER,
+    Request,
+    Result,
+    SharedBackend,
+    SubprocessBackend,
+)
 from charflow.simulation.netlist import PARKED_LOAD, Deck
+from charflow.simulation.session import SESSION
 
 log = logging.getLogger("charflow")
 
@@ -82,18 +89,9 @@ def window_advice(config: LibraryConfig, cell: str, cap: float | None) -> str:
     return f"{said}: {fix}"
 
 
-_BACKENDS: dict[str, object] = {}
-
-
-def backend_for(config: LibraryConfig):
-    """This worker's simulator; created once per process and kept."""
-    sim = config.simulation
-    key = f"{sim.backend}:{sim.timeout}"
-    if key not in _BACKENDS:
-        _BACKENDS[key] = make_backend(sim.backend, sim.timeout)
-    backend = _BACKENDS[key]
-    backend.timeout = sim.timeout  # the shared simulator serves every config of the process
-    return backend
+def backend_for(config: LibraryConfig) -> SharedBackend | SubprocessBackend:
+    """This worker's simulator; created once per process and kept (``session``)."""
+    return SESSION.backend(config.simulation)
 
 
 # Most breakpoints one ``alter`` line holds (PySpice caps a command at 1023 characters, about
@@ -167,7 +165,7 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     raise SimulatorError(reason, cell=request.deck.cell)
 
 
-_STATIC: dict[tuple[str, tuple[tuple[str, bool], ...]], float] = {}
+_STATIC = SESSION.cache("static current")  # by testbench and input vector
 
 
 def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -> float:
@@ -329,7 +327,7 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
 
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
 # calibrated once per process (``stepsize``).
-_SERIES: dict[tuple, tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]] = {}
+_SERIES = SESSION.cache("edge models")
 
 
 def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:

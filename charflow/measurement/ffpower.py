@@ -34,6 +34,7 @@ from charflow.records.outcomes import EventEnergy, LeakageState
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request, Result
 from charflow.simulation.netlist import PARKED_LOAD, Deck
+from charflow.simulation.session import SESSION
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
 
@@ -84,7 +85,7 @@ def _hold_waves(
     return waves, move
 
 
-_STATIC: dict[tuple[str, bool, tuple[tuple[str, bool], ...]], float] = {}
+_STATIC = SESSION.cache("flip-flop static current")
 
 
 def _hold_request(

@@ -43,6 +43,7 @@ from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
+from charflow.simulation.session import SESSION
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
 
@@ -72,7 +73,7 @@ class Outcome:
         return self.t_out - self.t_event
 
 
-_WINDOWS: dict[tuple, float] = {}
+_WINDOWS = SESSION.cache("settle windows")
 
 
 def _bench(config: LibraryConfig, deck: Deck, window: float | None = None) -> Timeline:

@@ -566,17 +566,11 @@ def deck_read_error(what: str, deck: Deck, output: str) -> DeckReadError:
     return DeckReadError(f"{what}: {cause}{read}", cell=deck.cell)
 
 
-_SHARED: list[SharedBackend] = []
-
-
 def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:
+    """A new backend; the shared one exists once per process (``session.SESSION`` keeps it:
+    PySpice hands every caller the same simulator, whose loaded circuits it tracks)."""
     if name == "shared":
-        # One per process: PySpice hands every caller the same simulator, whose loaded
-        # circuits this backend keeps track of.
-        if not _SHARED:
-            _SHARED.append(SharedBackend(timeout))
-        _SHARED[0].timeout = timeout
-        return _SHARED[0]
+        return SharedBackend(timeout)
     if name == "subprocess":
         return SubprocessBackend(timeout=timeout)
     raise SimulatorError(f"unknown backend {name!r}; use 'shared' or 'subprocess'")
