@@ -123,6 +123,13 @@ class CellSpec:
     body: tuple[BodyPin, ...] = ()  # body pins, n-well before p-well
 
     @property
+    def flip_flop(self) -> FlopSpec:
+        """The cell's flip-flop, where the caller knows it is one (a bug of charflow if not)."""
+        if self.flop is None:
+            raise TypeError(f"cell {self.name} is not a flip-flop")
+        return self.flop
+
+    @property
     def supply_pins(self) -> tuple[str, ...]:
         """The power and ground pins and the body pins."""
         return (self.power, self.ground, *(b.pin for b in self.body))

@@ -366,7 +366,7 @@ def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) 
 def _timing_type(config: LibraryConfig, arc: ArcTables) -> str:
     kind = arc.arc.kind
     if kind == "clock":
-        edge = config.cell(arc.arc.cell).flop.edge
+        edge = config.cell(arc.arc.cell).flip_flop.edge
         return "rising_edge" if edge == "rise" else "falling_edge"
     return kind  # combinational, clear, preset
 
@@ -533,7 +533,7 @@ def _input_pin(
 ) -> None:
     config, spec = ctx.config, cell.cell
     _signal_pin(w, ctx, spec, pin.pin, "input")
-    if spec.flop is not None and pin.pin == spec.flop.clock:
+    if spec.flop is not None and pin.pin == spec.flip_flop.clock:
         w.attr("clock", "true")
     w.note(pin_name(spec.name, pin.pin, "capacitance"))
     # An edge no run made is left out (``tabulate`` warns), never copied.

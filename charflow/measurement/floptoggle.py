@@ -27,7 +27,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     """One hidden event of a flop: the stored value is written first, the pin's edge then
     moves no output; its supply energy from the edge until the current is quiet again."""
     cell = config.cell(point.cell)
-    flop = cell.flop
+    flop = cell.flip_flop
     window = sequential.settle_window(config, deck)
     bench = Timeline(config, cell, window)
     vdd, thr = bench.vdd, bench.thr

@@ -23,6 +23,7 @@ from charflow.records.errors import (
     place,
 )
 from charflow.records.outcomes import (
+    INTERNAL,
     Failure,
     FunctionChecked,
     LeakageResult,
@@ -122,6 +123,7 @@ def measure_chunk(
                 point,
                 f"internal error in charflow ({type(exc).__name__}: {exc}); please report it",
                 where=where,
+                error=INTERNAL,
             )
         if done is not None:
             done(outcome)

@@ -352,7 +352,7 @@ def _sensitized_data(cell: CellSpec, pin: str) -> dict[str, bool]:
     next state, with the next state equal to ``pin``'s value where the function allows."""
     fixed = inactive_controls(cell)
     others = [p for p in cell.data_inputs if p != pin]
-    flop = cell.flop
+    flop = cell.flip_flop
     for bits in itertools.product((False, True), repeat=len(others)):
         assign = {**fixed, **dict(zip(others, bits, strict=True))}
         if flop.next_state.evaluate({**assign, pin: True}) != flop.next_state.evaluate(
@@ -427,7 +427,7 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
     if point.kind in ("recovery", "removal"):
         return _release_setup(config, deck, point)
     cell = config.cell(point.cell)
-    bench, flop = _bench(config, deck), cell.flop
+    bench, flop = _bench(config, deck), cell.flip_flop
     out = cell.outputs[0].pin
     others = _sensitized_data(cell, point.constrained)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
@@ -484,7 +484,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     offset for which the edge captures nothing, the control still holding the flop (either may
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
-    bench, flop = _bench(config, deck), cell.flop
+    bench, flop = _bench(config, deck), cell.flip_flop
     out = cell.outputs[0].pin
     pin = point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
@@ -583,7 +583,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     bench = _bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     trials = _Trials(config, deck)
-    clock = point.pin == cell.flop.clock
+    clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, trials)
     tol = config.simulation.bisect_tolerance
@@ -677,7 +677,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     # The configured window, else the shortest: a cell that does not work should not be
     # probed for a window first.
     shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
-    bench, flop = _bench(config, deck, shortest), cell.flop
+    bench, flop = _bench(config, deck, shortest), cell.flip_flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
@@ -729,7 +729,7 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     cell = config.cell(point.cell)
     bench = _bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
-    test = _clock_pulse_test if point.pin == cell.flop.clock else _control_pulse_test
+    test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, _Trials(config, deck))
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")

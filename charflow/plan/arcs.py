@@ -37,7 +37,7 @@ def _assignment(expr: logic.Expr, pins, value: bool, fixed: dict[str, bool]) -> 
 
 def inactive_controls(cell: CellSpec) -> dict[str, bool]:
     """Values of the asynchronous controls that leave the flop alone."""
-    flop = cell.flop
+    flop = cell.flip_flop
     pins = [p for p in cell.inputs if p not in cell.data_inputs and p != flop.clock]
     controls = [e for e in (flop.clear, flop.preset) if e is not None]
     if not controls:
@@ -49,13 +49,13 @@ def inactive_controls(cell: CellSpec) -> dict[str, bool]:
 def capture_values(cell: CellSpec, state: bool) -> dict[str, bool]:
     """Data and control values under which the active clock edge stores ``state``."""
     fixed = inactive_controls(cell)
-    assign = _assignment(cell.flop.next_state, cell.data_inputs, state, fixed)
-    return {p: assign[p] for p in cell.inputs if p != cell.flop.clock}
+    assign = _assignment(cell.flip_flop.next_state, cell.data_inputs, state, fixed)
+    return {p: assign[p] for p in cell.inputs if p != cell.flip_flop.clock}
 
 
 def stored_output(cell: CellSpec, pin: str, state: bool) -> bool:
     """The value of output ``pin`` when the flop holds ``state``."""
-    a, b = cell.flop.state
+    a, b = cell.flip_flop.state
     out = next(o for o in cell.outputs if o.pin == pin)
     return out.function.evaluate({a: state, b: not state})
 
@@ -86,7 +86,7 @@ def arcs_of(cell: CellSpec) -> tuple[Arc, ...]:
 
 
 def _flop_arcs(cell: CellSpec) -> tuple[Arc, ...]:
-    flop = cell.flop
+    flop = cell.flip_flop
     arcs = []
     for out in cell.outputs:
         other = _other(cell, out.pin)
@@ -111,7 +111,7 @@ def _flop_arcs(cell: CellSpec) -> tuple[Arc, ...]:
 
 def control_edge(cell: CellSpec, arc: Arc) -> str:
     """The edge of an asynchronous control pin that asserts it."""
-    expr = cell.flop.clear if arc.kind == "clear" else cell.flop.preset
+    expr = cell.flip_flop.clear if arc.kind == "clear" else cell.flip_flop.preset
     return "rise" if expr.evaluate({arc.related: True}) else "fall"
 
 
@@ -130,7 +130,7 @@ def _timing_points(cell: CellSpec, arc: Arc) -> list[TimingPoint]:
                     if stored_output(cell, arc.output, v) == (out_edge == "rise")
                 )
                 side = tuple(sorted(capture_values(cell, stored).items()))
-                cases.append((cell.flop.edge, out_edge, side))
+                cases.append((cell.flip_flop.edge, out_edge, side))
         else:
             side = tuple(sorted(inactive_controls(cell).items()))
             cases = [(control_edge(cell, arc), state.output_edge(control_edge(cell, arc)), side)]
@@ -156,7 +156,7 @@ def _timing_points(cell: CellSpec, arc: Arc) -> list[TimingPoint]:
 
 
 def _flop_points(cell: CellSpec) -> list[Point]:
-    flop = cell.flop
+    flop = cell.flip_flop
     points: list[Point] = []
     slews = cell.grid.constraint_slew or cell.grid.slew
     for data in cell.data_inputs:

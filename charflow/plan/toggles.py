@@ -64,7 +64,7 @@ def stored_value(cell: CellSpec, point: TogglePoint) -> bool:
 def rests(cell: CellSpec, state: bool, vector: dict[str, bool]) -> bool:
     """Whether the flop can hold ``state`` under ``vector``: an asserted clear or preset forces
     its value, and with both asserted the state is not defined."""
-    flop = cell.flop
+    flop = cell.flip_flop
     clear = flop.clear is not None and flop.clear.evaluate(vector)
     preset = flop.preset is not None and flop.preset.evaluate(vector)
     return not (clear and preset) and not (clear and state) and not (preset and not state)
@@ -85,7 +85,7 @@ def flop_toggles(cell: CellSpec) -> tuple[TogglePoint, ...]:
     """A flop's hidden events: the clock's two edges with the data equal to each stored value,
     its inactive edge with the data opposite it (no edge of that kind captures), and every data
     pin's two edges under either clock level and either stored value."""
-    flop = cell.flop
+    flop = cell.flip_flop
     load = min(cell.grid.load)
     inactive = EDGES[1] if flop.edge == EDGES[0] else EDGES[0]
     points = []

@@ -24,6 +24,9 @@ from charflow.records.points import (
 # back before the rail, their width at the thresholds set by how far they go (RUNT).
 FULL = "full swing"
 RUNT = "runt"
+# A Failure's ``error`` for a bug of charflow: the point is kept as failed so that the rest of
+# the work is not lost, and never filled from its neighbours (``tables.gaps``).
+INTERNAL = "internal"
 
 
 @dataclass(frozen=True, slots=True, eq=False)

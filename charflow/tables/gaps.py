@@ -25,7 +25,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from charflow.records.errors import ConfigError
-from charflow.records.outcomes import Failure, Measurement, SearchResult
+from charflow.records.outcomes import INTERNAL, Failure, Measurement, SearchResult
 from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, Work
 
 METHODS = ("linear", "nearest")
@@ -189,6 +189,10 @@ def fill_gaps(
     filled, unfilled = [], []
     for failure in failures:
         place = _place(failure.point)
+        if failure.error == INTERNAL:
+            why = "an internal error of charflow is never filled: please report it"
+            unfilled.append(Unfilled(failure, why))
+            continue
         if place is None:
             why = (
                 "a minimum pulse width has no grid neighbours to fill it from"

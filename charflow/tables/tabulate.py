@@ -172,7 +172,9 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
             values = {r.point.coordinates: r.value for r in group if r.point.data_edge == edge}
             tables.append(grid_table(cell, axes, f"{edge}_constraint", values, "s"))
         out.append(
-            ConstraintTables(pin, cell.flop.clock, kind, group[0].point.clock_edge, tuple(tables))
+            ConstraintTables(
+                pin, cell.flip_flop.clock, kind, group[0].point.clock_edge, tuple(tables)
+            )
         )
     return tuple(out)
 
