@@ -22,6 +22,7 @@ import pytest
 from scipy.interpolate import RegularGridInterpolator
 
 from charflow.analysis import fidelity
+from charflow.analysis import report as html_report
 from charflow.analysis.fidelity import CENTRE, RANDOM, Probe, compare, probes, statistics
 from charflow.config import library as config
 from charflow.config.library import Fidelity
@@ -225,7 +226,7 @@ def small(ngspice, tmp_path_factory):
     result = flow.characterize(cfg, jobs=2)
     report = fidelity.check(cfg, result.cells, jobs=2)
     out = tmp_path_factory.mktemp("fidelity")
-    paths = report.write_fidelity(cfg, report, out, jobs=1)
+    paths = html_report.write_fidelity(cfg, report, out, jobs=1)
     return cfg, result, report, paths
 
 
@@ -359,7 +360,7 @@ def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> N
         probe.simulated, rel=SIM_RTOL, abs=0
     )
     # Maps drawn in parallel after the sweep's worker pool: the two share joblib's pool.
-    paths = report.write_fidelity(cfg, report, tmp_path, jobs=2)
+    paths = html_report.write_fidelity(cfg, report, tmp_path, jobs=2)
     page = paths[1].read_text(encoding="utf-8")
     images = re.findall(r'<img alt="[^"]*" src="data:image/png;base64,([^"]+)">', page)
     assert len(images) == len(report.checks)
