@@ -21,6 +21,7 @@ import numpy as np
 import pytest
 
 from charflow.analysis import gridstudy
+from charflow.analysis import report as html_report
 from charflow.analysis.gridstudy import Candidate, Study
 from charflow.config import library as config
 from charflow.config.library import Fidelity
@@ -258,7 +259,7 @@ def test_errors_fall_with_more_points(small_study) -> None:
 
 def test_outputs_and_the_paste_line(small_study, tmp_path: Path) -> None:
     cfg, study, _ = small_study
-    json_path, png_path = gridstudy.write(cfg, study, tmp_path)
+    json_path, png_path = html_report.write_study(cfg, study, tmp_path)
     assert json_path.name == "small_l1.QNAND2_P1.IB-Y.gridstudy.json"
     assert png_path.read_bytes().startswith(PNG_MAGIC)
     data = json.loads(json_path.read_text(encoding="utf-8"))

@@ -22,7 +22,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.stats import qmc
 
-from charflow import __version__
+from charflow.analysis.reporting import head, library_units, pct, where
 from charflow.config.library import Fidelity, LibraryConfig
 from charflow.execution import sweep
 from charflow.execution.store import Store
@@ -30,18 +30,13 @@ from charflow.plan import arcs as planning
 from charflow.records.errors import TableError
 from charflow.records.outcomes import Failure, Measurement
 from charflow.records.points import Arc, State, TimingPoint
+from charflow.records.units import show_time
 from charflow.tables.table import Axis, Table, interpolate
 from charflow.tables.tabulate import LOAD_AXIS, OTHER_LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
 
 CENTRE, RANDOM = "centre", "random"
-# The TimingPoint field each table axis sweeps, and its short name and kind of unit in reports;
-# a third axis adds its entries here.
+# The TimingPoint field each table axis sweeps (its name in reports: reporting.AXIS_LABELS).
 POINT_FIELDS = {SLEW_AXIS: "slew", LOAD_AXIS: "load", OTHER_LOAD_AXIS: "other_load"}
-AXIS_LABELS = {
-    SLEW_AXIS: ("slew", "time"),
-    LOAD_AXIS: ("load", "capacitance"),
-    OTHER_LOAD_AXIS: ("other load", "capacitance"),
-}
 PERCENTILE = 95.0
 
 
@@ -128,6 +123,12 @@ class FidelityReport:
 
     def max_rel_errors(self) -> np.ndarray:
         return np.array([c.stats.max_rel for c in self.checks if c.stats is not None])
+
+    def spread(self) -> tuple[float, float] | None:
+        """The worst and the median of the tables' largest relative errors; None when no probe
+        simulated."""
+        errors = self.max_rel_errors()
+        return (float(errors.max()), float(np.median(errors))) if errors.size else None
 
 
 def severity(check: TableCheck) -> float:
@@ -369,13 +370,12 @@ def to_json(config: LibraryConfig, report: FidelityReport) -> dict:
         arcs = cells.setdefault(c.cell, {})
         states = arcs.setdefault((c.related, c.output), {})
         states.setdefault((c.when, c.default), []).append(_table_record(c))
-    errors = report.max_rel_errors()
+    spread = report.spread()
     s = report.settings
     return {
-        "library": config.name,
-        "generator": f"charflow {__version__}",
+        **head(config),
         "units": {"time": "s", "capacitance": "F", "rel_error": "fraction"},
-        "library_units": {"time": config.time_unit, "capacitance": config.cap_unit},
+        "library_units": library_units(config),
         "settings": {
             "random_points": s.random_points,
             "seed": s.seed,
@@ -388,8 +388,8 @@ def to_json(config: LibraryConfig, report: FidelityReport) -> dict:
             "points_simulated": report.points,
             "simulations": report.simulations,
             "failed_probes": report.failures,
-            "worst_max_rel_error": float(errors.max()) if errors.size else None,
-            "median_max_rel_error": float(np.median(errors)) if errors.size else None,
+            "worst_max_rel_error": None if spread is None else spread[0],
+            "median_max_rel_error": None if spread is None else spread[1],
             "wall_seconds": round(report.wall_seconds, 3),
         },
         "cells": [
@@ -412,42 +412,20 @@ def to_json(config: LibraryConfig, report: FidelityReport) -> dict:
     }
 
 
-def axis_unit(config: LibraryConfig, axis_name: str) -> tuple[str, float, str]:
-    """(short name, SI per library unit, library unit) of a table axis, for reports."""
-    label, kind = AXIS_LABELS[axis_name]
-    if kind == "time":
-        return label, config.time_scale, config.time_unit
-    return label, config.cap_scale, config.cap_unit
-
-
-def where(config: LibraryConfig, axes: Sequence[Axis], coords: Sequence[float]) -> str:
-    """``slew 0.0123 ns, load 0.004 pf``."""
-    parts = []
-    for axis, x in zip(axes, coords, strict=True):
-        label, scale, unit = axis_unit(config, axis.name)
-        parts.append(f"{label} {x / scale:.4g} {unit}")
-    return ", ".join(parts)
-
-
-def _pct(x: float) -> str:
-    return f"{100 * x:.3g} %"
-
-
 def summary_lines(config: LibraryConfig, report: FidelityReport, count: int = 10) -> list[str]:
     """The terminal summary: the settings, the spread over tables, the worst tables."""
     t, tu = config.time_scale, config.time_unit
     s = report.settings
-    errors = report.max_rel_errors()
+    spread = report.spread()
     lines = [
         f"fidelity of {config.name}: {len(report.checks)} tables, {report.points} points "
         f"simulated off the grid in {report.wall_seconds:.1f} s "
         f"(cell centres + {s.random_points} Latin-hypercube points per table, seed {s.seed}; "
-        f"relative error floor {s.rel_floor / t:.4g} {tu})"
+        f"relative error floor {show_time(s.rel_floor, tu)})"
     ]
-    if errors.size:
+    if spread is not None:
         lines.append(
-            f"max relative error per table: worst {_pct(errors.max())}, "
-            f"median {_pct(float(np.median(errors)))}"
+            f"max relative error per table: worst {pct(spread[0])}, median {pct(spread[1])}"
         )
     lines.append(
         f"  {'max rel':>9} {'rms rel':>9} {'p95 rel':>9} {'max abs ' + tu:>11}  table, worst point"
@@ -459,7 +437,7 @@ def summary_lines(config: LibraryConfig, report: FidelityReport, count: int = 10
         st = check.stats
         at = where(config, check.table.axes, check.worst_point.coords)
         lines.append(
-            f"  {_pct(st.max_rel):>9} {_pct(st.rms_rel):>9} {_pct(st.p95_rel):>9} "
+            f"  {pct(st.max_rel):>9} {pct(st.rms_rel):>9} {pct(st.p95_rel):>9} "
             f"{st.max_abs / t:>11.4g}  {check.label}, at {at}"
         )
     if report.failures:

@@ -21,28 +21,25 @@ grid it picks is simulated and judged like the others.
 from __future__ import annotations
 
 import itertools
-import json
 import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 from scipy.interpolate import make_interp_spline
 from scipy.optimize import brentq
 
-from charflow import __version__
-from charflow.analysis import report
-from charflow.analysis.fidelity import axis_unit, measured, template_of, templates, timing_point
+from charflow.analysis.fidelity import measured, template_of, templates, timing_point
+from charflow.analysis.reporting import axis_unit, head, library_units, pct
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
-from charflow.io.atomic import write_atomic
 from charflow.plan.arcs import arcs_of
 from charflow.records.errors import ConfigError, MeasurementError
 from charflow.records.names import delay_quantity, transition_quantity
 from charflow.records.outcomes import Failure, Measurement
 from charflow.records.points import EDGES, Arc
+from charflow.records.units import show_time
 from charflow.tables.table import Axis, Table, interpolate
 from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
 
@@ -404,11 +401,24 @@ def recommend(candidates: Sequence[Candidate], target: float) -> Recommendation:
     return Recommendation(target, tuple(needed), best)
 
 
-def _range(cell_grid) -> tuple[tuple[str, float, float], ...]:
-    return (
-        (SLEW_AXIS, min(cell_grid.slew), max(cell_grid.slew)),
-        (LOAD_AXIS, min(cell_grid.load), max(cell_grid.load)),
+# (axis name, lowest, highest value) per axis of the studied grid.
+Span = tuple[tuple[str, float, float], ...]
+
+
+def _span(config: LibraryConfig, cell_name: str) -> Span:
+    """The range of the cell's grid on each axis; a study needs more than one value on each."""
+    grid = config.cell(cell_name).grid
+    span = (
+        (SLEW_AXIS, min(grid.slew), max(grid.slew)),
+        (LOAD_AXIS, min(grid.load), max(grid.load)),
     )
+    for name, lo, hi in span:
+        if not lo < hi:
+            raise ConfigError(
+                f"the grid study needs a range on every axis; {name} has the one value {lo:g}",
+                cell=cell_name,
+            )
+    return span
 
 
 def choose_arc(config: LibraryConfig, cell_name: str, arc: str | None) -> Arc:
@@ -422,6 +432,81 @@ def choose_arc(config: LibraryConfig, cell_name: str, arc: str | None) -> Arc:
             return a
     names = ", ".join(f"{a.related}:{a.output}" for a in arcs)
     raise ConfigError(f"no arc {arc!r}; the cell's arcs are {names}", cell=cell_name)
+
+
+def _candidate_axes(
+    config: LibraryConfig, span: Span, per_axis: Sequence[np.ndarray]
+) -> tuple[Axis, ...]:
+    """A candidate grid's axes, its values rounded in library units (``rounded``)."""
+    return tuple(
+        Axis(name, rounded(v, axis_unit(config, name)[1]))
+        for (name, _, _), v in zip(span, per_axis, strict=True)
+    )
+
+
+def _fixed_grids(
+    config: LibraryConfig, span: Span, sizes: Sequence[int]
+) -> dict[tuple[str, int], tuple[Axis, ...]]:
+    """The uniform and geometric candidates of every size: the ones that need no reference."""
+    grids: dict[tuple[str, int], tuple[Axis, ...]] = {}
+    for n in sizes:
+        for placement, place in (("uniform", uniform), ("geometric", geometric)):
+            placed = [place(lo, hi, n) for _, lo, hi in span]
+            per_axis = [v for v in placed if v is not None]
+            if len(per_axis) == len(placed):
+                grids[(placement, n)] = _candidate_axes(config, span, per_axis)
+    return grids
+
+
+def _optimized_grids(
+    config: LibraryConfig, span: Span, ref: Surface, sizes: Sequence[int], floor: float
+) -> tuple[dict[tuple[str, int], tuple[Axis, ...]], dict[int, float]]:
+    """The optimized candidates of every size, placed on the simulated reference, and the
+    largest error the optimizer predicts for each."""
+    values = list(ref.values.values())
+    grids, predicted = {}, {}
+    for n in sizes:
+        nodes, predicted[n] = optimized_axes(ref.axes, values, n, floor)
+        grids[("optimized", n)] = _candidate_axes(config, span, nodes)
+    return grids, predicted
+
+
+def _whole(ref: Surface, cell_name: str, arc: Arc) -> Surface:
+    """The reference, which must have simulated at every point."""
+    if ref.failures:
+        first = ref.failures[0]
+        raise MeasurementError(
+            f"{len(ref.failures)} reference point(s) failed; the study needs all of them. "
+            f"First: {first.reason}",
+            cell=cell_name,
+            arc=arc.label,
+            point=first.point.label,
+        )
+    return ref
+
+
+def _candidates(
+    grids: dict[tuple[str, int], tuple[Axis, ...]],
+    point_maps: dict[tuple[str, int], tuple[dict, dict]],
+    outcomes: dict,
+    ref: Surface,
+    floor: float,
+    predicted: dict[int, float],
+) -> tuple[Candidate, ...]:
+    """Every candidate judged, by placement (in ``PLACEMENTS`` order), then size."""
+    order = sorted(grids, key=lambda key: (PLACEMENTS.index(key[0]), key[1]))
+    return tuple(
+        _judge(
+            placement,
+            n,
+            _surface(grids[(placement, n)], point_maps[(placement, n)][0], outcomes),
+            _surface(centres(grids[(placement, n)]), point_maps[(placement, n)][1], outcomes),
+            ref,
+            floor,
+            predicted.get(n) if placement == "optimized" else None,
+        )
+        for placement, n in order
+    )
 
 
 def study(
@@ -443,26 +528,10 @@ def study(
     """
     start = time.perf_counter()
     the_arc = choose_arc(config, cell_name, arc)
-    cell = config.cell(cell_name)
     floor = config.fidelity.rel_floor
-    scales = {SLEW_AXIS: config.time_scale, LOAD_AXIS: config.cap_scale}
-    span = _range(cell.grid)
-    for name, lo, hi in span:
-        if not lo < hi:
-            raise ConfigError(
-                f"the grid study needs a range on every axis; {name} has the one value {lo:g}",
-                cell=cell_name,
-            )
+    span = _span(config, cell_name)
     reference = tuple(Axis(name, reference_axis(lo, hi, reference_points)) for name, lo, hi in span)
-    grids: dict[tuple[str, int], tuple[Axis, ...]] = {}
-    for n in sizes:
-        for placement, place in (("uniform", uniform), ("geometric", geometric)):
-            per_axis = [place(lo, hi, n) for _, lo, hi in span]
-            if all(v is not None for v in per_axis):
-                grids[(placement, n)] = tuple(
-                    Axis(name, rounded(v, scales[name]))
-                    for (name, _, _), v in zip(span, per_axis, strict=True)
-                )
+    grids = _fixed_grids(config, span, sizes)
 
     series = templates(config, cell_name)
 
@@ -488,40 +557,12 @@ def study(
     ref_points = _grid_points(series, the_arc, reference)
     point_maps = {key: maps_of(axes) for key, axes in grids.items()}
     simulate([ref_points, *(m for pair in point_maps.values() for m in pair)])
-    ref = _surface(reference, ref_points, outcomes)
-    if ref.failures:
-        first = ref.failures[0]
-        raise MeasurementError(
-            f"{len(ref.failures)} reference point(s) failed; the study needs all of them. "
-            f"First: {first.reason}",
-            cell=cell_name,
-            arc=the_arc.label,
-            point=first.point.label,
-        )
-    keys = list(ref.values)
-    predicted = {}
-    for n in sizes:
-        nodes, error = optimized_axes(reference, [ref.values[k] for k in keys], n, floor)
-        grids[("optimized", n)] = tuple(
-            Axis(name, rounded(g, scales[name]))
-            for (name, _, _), g in zip(span, nodes, strict=True)
-        )
-        predicted[n] = error
-        point_maps[("optimized", n)] = maps_of(grids[("optimized", n)])
-    simulate([m for n in sizes for m in point_maps[("optimized", n)]])
-    order = sorted(grids, key=lambda key: (PLACEMENTS.index(key[0]), key[1]))
-    candidates = tuple(
-        _judge(
-            placement,
-            n,
-            _surface(grids[(placement, n)], point_maps[(placement, n)][0], outcomes),
-            _surface(centres(grids[(placement, n)]), point_maps[(placement, n)][1], outcomes),
-            ref,
-            floor,
-            predicted.get(n) if placement == "optimized" else None,
-        )
-        for placement, n in order
-    )
+    ref = _whole(_surface(reference, ref_points, outcomes), cell_name, the_arc)
+    optimized, predicted = _optimized_grids(config, span, ref, sizes, floor)
+    grids.update(optimized)
+    point_maps.update((key, maps_of(axes)) for key, axes in optimized.items())
+    simulate([m for key in optimized for m in point_maps[key]])
+    candidates = _candidates(grids, point_maps, outcomes, ref, floor, predicted)
     return Study(
         cell=cell_name,
         related=the_arc.related,
@@ -550,12 +591,17 @@ def paste_line(config: LibraryConfig, axes: Sequence[Axis]) -> str:
     return "grid = { " + ", ".join(parts) + " }"
 
 
+def _index(config: LibraryConfig, axes: Sequence[Axis]) -> dict[str, list[float]]:
+    """A grid's index values in library units by the axes' short names."""
+    return {axis_unit(config, a.name)[0]: library_values(config, a) for a in axes}
+
+
 def _candidate_record(config: LibraryConfig, c: Candidate) -> dict:
     return {
         "placement": c.placement,
         "points_per_axis": c.size,
         "table_points": c.points,
-        "index": {axis_unit(config, a.name)[0]: library_values(config, a) for a in c.axes},
+        "index": _index(config, c.axes),
         "max_rel_error": c.max_rel,
         "rms_rel_error": c.rms_rel,
         "max_abs_error_s": c.max_abs,
@@ -592,15 +638,14 @@ def savings(s: Study, rec: Recommendation) -> dict[str, tuple[int, bool]]:
 
 def to_json(config: LibraryConfig, s: Study) -> dict:
     return {
-        "library": config.name,
-        "generator": f"charflow {__version__}",
+        **head(config),
         "cell": s.cell,
         "arc": {"related_pin": s.related, "output": s.output},
-        "library_units": {"time": config.time_unit, "capacitance": config.cap_unit},
+        "library_units": library_units(config),
         "rel_floor_s": s.floor,
         "rel_error": "|interpolated - simulated| / max(|simulated|, rel_floor), over every table "
         "of the arc (each state, delay and transition, rise and fall) at every reference point",
-        "reference": {axis_unit(config, a.name)[0]: library_values(config, a) for a in s.reference},
+        "reference": _index(config, s.reference),
         "points_simulated": s.points,
         "wall_seconds": round(s.wall_seconds, 3),
         "candidates": [_candidate_record(config, c) for c in s.candidates],
@@ -621,16 +666,11 @@ def to_json(config: LibraryConfig, s: Study) -> dict:
     }
 
 
-def _pct(x: float | None) -> str:
-    return "failed" if x is None else f"{x * 100:.3g} %"
-
-
 def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
     ref_shape = "x".join(str(len(a)) for a in s.reference)
     lines = [
         f"grid study of {s.cell} {s.arc}: reference {ref_shape}, {s.points} points simulated in "
-        f"{s.wall_seconds:.1f} s (relative error floor {s.floor / config.time_scale:.4g} "
-        f"{config.time_unit})",
+        f"{s.wall_seconds:.1f} s (relative error floor {show_time(s.floor, config.time_unit)})",
         f"  {'points':>7} " + " ".join(f"{p + ' max':>15} {'rms':>8}" for p in PLACEMENTS),
     ]
     sizes = sorted({c.size for c in s.candidates})
@@ -640,9 +680,7 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
         for p in PLACEMENTS:
             c = by.get((p, n))
             row.append(
-                f"{'-':>15} {'-':>8}"
-                if c is None
-                else f"{_pct(c.max_rel):>15} {_pct(c.rms_rel):>8}"
+                f"{'-':>15} {'-':>8}" if c is None else f"{pct(c.max_rel):>15} {pct(c.rms_rel):>8}"
             )
         lines.append(f"  {f'{n}x{n}':>7} " + " ".join(row))
     for r in s.recommendations:
@@ -658,7 +696,7 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
             continue
         b = r.best
         lines.append(
-            f"  recommended: {b.placement} {b.size}x{b.size}, max error {_pct(b.max_rel)}; "
+            f"  recommended: {b.placement} {b.size}x{b.size}, max error {pct(b.max_rel)}; "
             f"for the [[cell]] table of {s.cell}:"
         )
         lines.append(f"  {paste_line(config, b.axes)}")
@@ -675,28 +713,3 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
         if parts:
             lines.append("  the optimized placement saves " + ", ".join(parts))
     return lines
-
-
-def write(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
-    """``<library>.<cell>.<from>-<to>.gridstudy.json`` and ``.png`` (error against points)."""
-    out_dir = Path(out_dir)
-    stem = f"{config.name}.{s.cell}.{s.related}-{s.output}.gridstudy"
-    json_path = out_dir / f"{stem}.json"
-    write_atomic(json_path, json.dumps(to_json(config, s), indent=1) + "\n")
-    curves = []
-    for p in PLACEMENTS:
-        ok = [c for c in s.curve(p) if c.max_rel is not None]
-        if ok:
-            curves.append(
-                (p, [c.size for c in ok], [c.max_rel for c in ok], [c.rms_rel for c in ok])
-            )
-    png = report.study_png(
-        f"{config.name} {s.cell} {s.arc}: interpolation error "
-        f"(reference grid {'x'.join(str(len(a)) for a in s.reference)})",
-        curves,
-        [r.target for r in s.recommendations],
-        [(r.best.size, r.best.max_rel) for r in s.recommendations if r.best is not None],
-    )
-    png_path = out_dir / f"{stem}.png"
-    write_atomic(png_path, png)
-    return [json_path, png_path]

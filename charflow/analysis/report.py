@@ -1,4 +1,5 @@
-"""HTML and PNG output: the fidelity report's heat maps and the grid study's error curves.
+"""HTML and PNG output: the fidelity report's heat maps and the grid study's error curves, and
+the writing of each with its JSON document.
 
 The HTML is one self-contained file: PNGs are embedded as base64 and the summary table sorts
 with a few lines of inline JavaScript, so the report can be mailed or archived as it is.
@@ -10,7 +11,6 @@ from __future__ import annotations
 import base64
 import html
 import io
-import json
 import math
 from collections.abc import Sequence
 from pathlib import Path
@@ -22,18 +22,13 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
 
 from charflow import __version__
-from charflow.analysis import fidelity
-from charflow.analysis.fidelity import (
-    CENTRE,
-    FidelityReport,
-    TableCheck,
-    axis_unit,
-    severity,
-    where,
-)
+from charflow.analysis import fidelity, gridstudy
+from charflow.analysis.fidelity import CENTRE, FidelityReport, TableCheck, severity
+from charflow.analysis.gridstudy import PLACEMENTS, Study
+from charflow.analysis.reporting import axis_unit, pct, where, write_pair
 from charflow.config.library import LibraryConfig
 from charflow.execution.workers import default_jobs
-from charflow.io.atomic import write_atomic
+from charflow.records.units import show_time
 
 CMAP = "YlOrRd"
 LOG_RATIO = 20.0  # an axis spanning more than this ratio is drawn on a log scale
@@ -143,7 +138,7 @@ def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes
     ax.set_xlabel(f"{xl} ({xu})")
     ax.set_ylabel(f"{yl} ({yu})")
     st = check.stats
-    stats = "no probe simulated" if st is None else f"max {st.max_rel * 100:.3g} %"
+    stats = "no probe simulated" if st is None else f"max {pct(st.max_rel)}"
     if check.table.ndim == 3:
         stats += ", worst over the other output's load"
     ax.set_title(f"{check.label}\n{stats}", fontsize=8.5)
@@ -197,7 +192,6 @@ def _num(value: float | None, text: str) -> str:
 
 def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
     st = c.stats
-    t, tu = config.time_scale, config.time_unit
     cells = [
         f'<td><a href="#t{n}">{html.escape(c.cell)}</a></td>',
         f"<td>{html.escape(c.arc)}</td>",
@@ -210,10 +204,10 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
         cells += [_num(None, "")] * 4 + ["<td>-</td>"]
     else:
         cells += [
-            _num(st.max_rel, f"{st.max_rel * 100:.3g} %"),
-            _num(st.rms_rel, f"{st.rms_rel * 100:.3g} %"),
-            _num(st.p95_rel, f"{st.p95_rel * 100:.3g} %"),
-            _num(st.max_abs, f"{st.max_abs / t:.4g} {tu}"),
+            _num(st.max_rel, pct(st.max_rel)),
+            _num(st.rms_rel, pct(st.rms_rel)),
+            _num(st.p95_rel, pct(st.p95_rel)),
+            _num(st.max_abs, show_time(st.max_abs, config.time_unit)),
             f"<td>{html.escape(where(config, c.table.axes, c.worst_point.coords))}</td>",
         ]
     return "<tr>" + "".join(cells) + "</tr>"
@@ -236,8 +230,8 @@ def heat_maps(
 def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | None = None) -> str:
     """The fidelity report: settings, a sortable summary of every table, one heat map each."""
     s = report.settings
-    errors = report.max_rel_errors()
-    vmax = float(errors.max()) if errors.size else 0.0
+    spread = report.spread()
+    vmax = 0.0 if spread is None else spread[0]
     head = (
         "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
         "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
@@ -259,14 +253,13 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
         figures.append(
             f'<figure id="t{n}">{body}<figcaption>{html.escape(caption)}</figcaption></figure>'
         )
-    spread = (
-        f"Largest relative error per table: worst {errors.max() * 100:.3g} %, median "
-        f"{np.median(errors) * 100:.3g} %."
-        if errors.size
-        else "No probe simulated."
+    spread_text = (
+        "No probe simulated."
+        if spread is None
+        else f"Largest relative error per table: worst {pct(spread[0])}, median {pct(spread[1])}."
     )
     name = html.escape(config.name)
-    floor = html.escape(f"{s.rel_floor / config.time_scale:.4g} {config.time_unit}")
+    floor = html.escape(show_time(s.rel_floor, config.time_unit))
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <title>{name}: table fidelity</title>
@@ -277,14 +270,14 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
 ({report.simulations} simulator runs, {report.failures} failed) in {report.wall_seconds:.1f} s.
 Each table is checked at every cell centre of its grid and at {s.random_points} Latin-hypercube
 points (seed {s.seed}) spread evenly over its cells. Relative error =
-|interpolated &minus; simulated| / max(|simulated|, {floor}). {spread}</p>
+|interpolated &minus; simulated| / max(|simulated|, {floor}). {spread_text}</p>
 <h2>Summary (click a column to sort)</h2>
 <table class="summary"><thead>{head}</thead><tbody>
 {rows}
 </tbody></table>
 <h2>Error maps</h2>
 <p class="note">+ grid point; &#9679; cell centre; &#9650; random point; &times; failed probe.
-Colour: relative error in %, one scale for every map (0 to {vmax * 100:.3g} %).</p>
+Colour: relative error in %, one scale for every map (0 to {pct(vmax)}).</p>
 <div class="maps">
 {chr(10).join(figures)}
 </div>
@@ -328,8 +321,8 @@ def study_png(
             alpha=0.8,
             label=f"{placement}, rms",
         )
-    for n, err in chosen:
-        ax.plot(n * n, err * 100, "*", color="black", ms=13, mfc="none", zorder=5)
+    for m, err in chosen:
+        ax.plot(m * m, err * 100, "*", color="black", ms=13, mfc="none", zorder=5)
     for target in targets:
         ax.axhline(target * 100, color="0.4", linewidth=0.8, linestyle=":")
         ax.annotate(
@@ -362,9 +355,38 @@ def write_fidelity(
     config: LibraryConfig, report: FidelityReport, out_dir: Path, jobs: int | None = None
 ) -> list[Path]:
     """``<library>.fidelity.json`` and the self-contained ``<library>.fidelity.html``."""
-    out_dir = Path(out_dir)
-    json_path = out_dir / f"{config.name}.fidelity.json"
-    write_atomic(json_path, json.dumps(fidelity.to_json(config, report), indent=1) + "\n")
-    html_path = out_dir / f"{config.name}.fidelity.html"
-    write_atomic(html_path, fidelity_html(config, report, jobs))
-    return [json_path, html_path]
+    page = fidelity_html(config, report, jobs)
+    return write_pair(
+        out_dir, f"{config.name}.fidelity", fidelity.to_json(config, report), ".html", page
+    )
+
+
+def study_figure(config: LibraryConfig, s: Study) -> bytes:
+    """The grid study's error curves, each placement's grids that simulated, as PNG."""
+    curves = []
+    for p in PLACEMENTS:
+        ok = [
+            (c.size, c.max_rel, c.rms_rel)
+            for c in s.curve(p)
+            if c.max_rel is not None and c.rms_rel is not None
+        ]
+        if ok:
+            curves.append((p, [n for n, _, _ in ok], [m for _, m, _ in ok], [r for _, _, r in ok]))
+    chosen = [
+        (r.best.size, r.best.max_rel)
+        for r in s.recommendations
+        if r.best is not None and r.best.max_rel is not None
+    ]
+    return study_png(
+        f"{config.name} {s.cell} {s.arc}: interpolation error "
+        f"(reference grid {'x'.join(str(len(a)) for a in s.reference)})",
+        curves,
+        [r.target for r in s.recommendations],
+        chosen,
+    )
+
+
+def write_study(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
+    """``<library>.<cell>.<from>-<to>.gridstudy.json`` and ``.png`` (error against points)."""
+    stem = f"{config.name}.{s.cell}.{s.related}-{s.output}.gridstudy"
+    return write_pair(out_dir, stem, gridstudy.to_json(config, s), ".png", study_figure(config, s))

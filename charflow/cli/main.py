@@ -643,7 +643,7 @@ def _study(cfg: config.LibraryConfig, out: Path, args: argparse.Namespace) -> in
         )
     finally:
         progress.close()
-    written = gridstudy.write(cfg, study, out)
+    written = html_report.write_study(cfg, study, out)
     print("\n".join(gridstudy.summary_lines(cfg, study)))
     for path in written:
         print(f"wrote {path}")

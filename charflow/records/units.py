@@ -40,6 +40,14 @@ def show_cap(farads: float, unit: str) -> str:
     return f"{farads / cap_scale(unit):.4g} {unit}"
 
 
+def index_unit(variable: str, units: LibraryUnits) -> tuple[float, str]:
+    """(SI per library unit, library unit) of a table index variable: a capacitance
+    (``total_output_net_capacitance``) in the capacitance unit, a transition in the time unit."""
+    if variable.endswith("capacitance"):
+        return cap_scale(units.cap_unit), units.cap_unit
+    return time_scale(units.time_unit), units.time_unit
+
+
 def energy_unit(cap_unit: str) -> str:
     """The unit of internal energy tables: one capacitance unit times (1 V)^2."""
     return ENERGY_UNITS[cap_unit]
