@@ -39,6 +39,7 @@ from charflow.execution import sweep
 from charflow.execution.lock import LOCK_NAME, FolderLock, read_holder
 from charflow.execution.store import FILE_NAME, Store, keyring
 from charflow.flow import characterize as flow
+from charflow.io import atomic
 from charflow.io.atomic import write_atomic
 from charflow.records.errors import OutputError, StoreError
 from charflow.simulation import netlist
@@ -98,7 +99,7 @@ def _hold_in_child(folder: Path) -> subprocess.Popen[str]:
     """Another process holding ``folder``; returns once it holds it."""
     code = (
         "import sys, time\n"
-        "from charflow.lock import FolderLock\n"
+        "from charflow.execution.lock import FolderLock\n"
         "with FolderLock(sys.argv[1]):\n"
         "    print('held', flush=True)\n"
         "    time.sleep(60)\n"
@@ -333,7 +334,7 @@ def test_an_output_on_a_full_disk_keeps_the_previous_version(
         made.append(Path(name))
         return os.open("/dev/full", os.O_WRONLY), name  # writes fail with ENOSPC
 
-    monkeypatch.setattr(flow.tempfile, "mkstemp", mkstemp_on_a_full_disk)
+    monkeypatch.setattr(atomic.tempfile, "mkstemp", mkstemp_on_a_full_disk)
     with pytest.raises(OutputError) as err:
         write_atomic(path, text)
     message = str(err.value)
