@@ -10,6 +10,13 @@ from charflow.cli.shared import EXIT_BAD_INPUT, EXIT_OK
 
 check = shared.deferred("charflow.flow.check")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "check a config and every cell's netlist and function; simulate no sweep"
+DESCRIPTION = (
+    "Check a config: every key, every cell's netlist and that it implements its declared "
+    "function (a DC run per input vector). Lists every problem found."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")

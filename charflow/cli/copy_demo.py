@@ -10,6 +10,13 @@ from charflow.cli.shared import EXIT_OK
 
 demo = shared.deferred("charflow.config.demo")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "copy the demo's config, cell templates and models into a folder, to edit and run"
+DESCRIPTION = (
+    "Copy the demo's config, cell templates and models into FOLDER, keeping their layout; "
+    "then edit them and run charflow run FOLDER/demo/vellum90.toml."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument(

@@ -8,6 +8,14 @@ from charflow.cli import run, shared
 
 demo = shared.deferred("charflow.config.demo")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "characterize the bundled demo library"
+DESCRIPTION = (
+    "Characterize the bundled demo library: the invented vellum90 process and its cells "
+    "(inverters, a buffer, gates, a two-output cell and two flip-flops). Writes "
+    "runs/vellum90_tt (runs/vellum90_tt_quick with --quick) in the current folder."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     shared.output_options(p)

@@ -11,6 +11,10 @@ from charflow.records.errors import ConfigError
 
 diff = shared.deferred("charflow.analysis.diff")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "compare two libraries (Liberty or JSON) table by table"
+DESCRIPTION = "Compare two libraries (Liberty or JSON) table by table and list the largest changes."
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument("old", type=Path, help="the first library (.lib or .json)")

@@ -16,6 +16,13 @@ flow = shared.deferred("charflow.flow.characterize")
 html_report = shared.deferred("charflow.analysis.report")
 store_mod = shared.deferred("charflow.execution.store")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "re-simulate off the grid and report how accurate the tables are"
+DESCRIPTION = (
+    "Characterize (reusing the result store), then re-simulate points between the grid's "
+    "points and report each table's interpolation error."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")

@@ -11,6 +11,13 @@ from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
 config = shared.deferred("charflow.config.library")
 gridstudy = shared.deferred("charflow.analysis.gridstudy")
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "find the smallest grid that meets a target error for one arc"
+DESCRIPTION = (
+    "Try grids of several sizes and spacings for one arc against a dense reference grid "
+    "and report the smallest that meets each target error."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")

@@ -21,6 +21,13 @@ workers = shared.deferred("charflow.execution.workers")
 
 LISTED = 20  # failed or filled points listed one by one; the rest are counted
 
+# Its line in charflow --help, and the first lines of its own --help.
+SUMMARY = "characterize the library a config describes"
+DESCRIPTION = (
+    "Characterize the library a config describes and write runs/<library name>/<library "
+    "name>.lib and .json. Points already in the folder's result store are reused."
+)
+
 
 def options(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", type=Path, metavar="CONFIG", help="the library's TOML config")
