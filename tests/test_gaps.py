@@ -22,6 +22,8 @@ import pytest
 from liberty.parser import parse_liberty
 
 from charflow.cli import main as cli
+from charflow.cli import run as run_command
+from charflow.cli import shared as cli_shared
 from charflow.config import library as config
 from charflow.execution.store import FILE_NAME, Store, keyring
 from charflow.flow import characterize as flow
@@ -303,17 +305,17 @@ def _run(capsys, *args) -> tuple[int, str, str]:
 def test_command_fails_without_allow_gaps_and_when_gaps_remain(tmp_path, capsys):
     cfg_path, out = _small(tmp_path, ("QINV_P1", "QNAND2_P1")), tmp_path / "out"
     code, _, err = _run(capsys, cfg_path, "--out", out)
-    assert code == cli.EXIT_FAILED_POINTS
+    assert code == cli_shared.EXIT_FAILED_POINTS
     assert "22 point(s) failed" in err
-    assert err.count("    waveform: ") == cli.LISTED
+    assert err.count("    waveform: ") == run_command.LISTED
     assert "... and 2 more" in err
     # Every point was cut off by the window: the message names it, and filling is not offered.
-    assert err.count("[simulation] window = 0.05 ns") == cli.LISTED
+    assert err.count("[simulation] window = 0.05 ns") == run_command.LISTED
     assert "--allow-gaps" not in err
     # NAND2's sharpest slew at 0.02 pF has one measured load in its row (0.001 pF) and none in
     # its column: linear cannot fill it, for either input and edge.
     code, out_text, err = _run(capsys, cfg_path, "--out", out, "--allow-gaps", "linear")
-    assert code == cli.EXIT_FAILED_POINTS
+    assert code == cli_shared.EXIT_FAILED_POINTS
     assert "18 failed point(s) filled by linear" in out_text
     assert "4 point(s) failed" in err and "not filled: cannot be filled by linear" in err
     assert not (out / "small_l1.lib").exists()
@@ -341,7 +343,7 @@ def filled_run(tmp_path_factory):
 
 def test_command_succeeds_when_every_gap_is_filled(filled_run):
     code, cfg, out = filled_run
-    assert code == cli.EXIT_OK
+    assert code == cli_shared.EXIT_OK
     doc = json.loads((out / f"{cfg.name}.json").read_text())
     assert doc["failures"] == [] and len(doc["filled"]) == 6
     entry = doc["filled"][0]

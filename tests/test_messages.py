@@ -20,6 +20,7 @@ import pytest
 
 from charflow.analysis import estimate
 from charflow.cli import main as cli
+from charflow.cli import shared as cli_shared
 from charflow.config import library as config
 from charflow.execution import sweep
 from charflow.flow import characterize as flow
@@ -170,7 +171,7 @@ def test_a_unit_mistake_warns_then_names_each_point_and_the_window(
     monkeypatch.setattr(plausible, "_SAID", set())
     code = cli.main(["run", str(path), "--out", str(tmp / "out"), "--jobs", "1", "--quiet"])
     err = capsys.readouterr().err
-    assert code == cli.EXIT_FAILED_POINTS
+    assert code == cli_shared.EXIT_FAILED_POINTS
     warning = [ln for ln in err.splitlines() if ln.startswith("charflow: warning:")]
     assert warning == [
         f"charflow: warning: file {path}, key grid.slew: 0.01 ps, 0.05 ps, 0.2 ps: under 1 ps, "
@@ -299,7 +300,7 @@ def test_the_progress_bar_counts_each_point_by_its_cost(seq, capsys):
     assert kinds[("TimingPoint", "combinational")] == 1
     assert kinds[("TimingPoint", "clock")] == kinds[("TimingPoint", "clear")] == 2
     assert kinds[("ConstraintPoint", "setup")] == kinds[("PulsePoint", "")] == 30
-    progress = cli._Progress(quiet=False, name="seq_l1")
+    progress = cli_shared.Progress(quiet=False, name="seq_l1")
     progress.enabled = True  # as on a terminal
     progress.start(sweep.work(points))
     stored = [Failure(p, "from the store") for p in points[:5]]
