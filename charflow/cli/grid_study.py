@@ -10,6 +10,7 @@ from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
 
 config = shared.deferred("charflow.config.library")
 gridstudy = shared.deferred("charflow.analysis.gridstudy")
+html_report = shared.deferred("charflow.analysis.report")
 
 # Its line in charflow --help, and the first lines of its own --help.
 SUMMARY = "find the smallest grid that meets a target error for one arc"
