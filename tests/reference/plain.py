@@ -36,9 +36,9 @@ DEFAULT_THRESHOLDS = {
 }
 DEFAULT_TEMPERATURE = 25.0  # degrees C (README, "[process]")
 LEAD = 20e-12  # s before an input leaves its rail: the operating point holds until then
-# Simulator tolerances ten to a hundred times tighter than ngspice's defaults (reltol 1e-3,
-# abstol 1 pA, chgtol 1e-14 C): the reference should be the circuit's answer, not the
-# accuracy of one setting.
+# Simulator tolerances 100 to 1000 times tighter than ngspice's defaults (reltol 1e-3, abstol
+# 1 pA, vntol 1 uV, chgtol 1e-14 C; the ngspice manual, from memory): the reference should be
+# the circuit's answer, not the accuracy of one setting.
 OPTIONS = "reltol=1e-5 abstol=1e-14 vntol=1e-8 chgtol=1e-17"
 TIMEOUT = 120.0  # s of wall time for one reference run
 _MEAS = re.compile(r"^(ref_\w+)\s*=\s*([-+0-9.eE]+)")  # every .meas here is named ref_*
