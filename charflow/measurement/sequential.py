@@ -713,15 +713,6 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
                     ) from exc
 
 
-def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
-    """The pass test of a constraint search as a function of the offset, for re-checking a
-    result: a fresh relaxed reference is simulated first."""
-    passes, _, relaxed, _ = _constraint_setup(config, deck, point)
-    if not passes(relaxed):
-        raise MeasurementError(f"{point.label}: fails even with relaxed timing")
-    return passes
-
-
 def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
     swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
