@@ -19,7 +19,12 @@ import pytest
 from reference import plain
 from reference.comb import reference
 
-from charflow import config, netlist, sweep, timing
+from charflow.config import library as config
+from charflow.measurement import combinational as timing
+from charflow.plan import arcs as planning
+from charflow.records.outcomes import Measurement
+from charflow.records.points import TimingPoint
+from charflow.simulation import netlist
 
 ROOT = Path(__file__).resolve().parents[1]
 VALUES = json.loads(reference.VALUES.read_text(encoding="utf-8"))
@@ -43,12 +48,12 @@ def _needs_ngspice():
         pytest.fail("ngspice is not on PATH; these tests need it")
 
 
-def _point(cfg: config.LibraryConfig, row: dict) -> sweep.TimingPoint:
+def _point(cfg: config.LibraryConfig, row: dict) -> TimingPoint:
     """The point of charflow's own plan that ``row`` is the reference of."""
     side = {pin: bool(v) for pin, v in row["side"].items()}
     found = [
         p
-        for p in sweep.plan(cfg, [row["cell"]]).points
+        for p in planning.plan(cfg, [row["cell"]]).points
         if (p.related, p.output, p.input_edge) == (row["pin"], row["output"], row["input_edge"])
         and dict(p.side) == side
         and math.isclose(p.slew, row["slew_s"], rel_tol=SAME_RTOL)
@@ -59,7 +64,7 @@ def _point(cfg: config.LibraryConfig, row: dict) -> sweep.TimingPoint:
 
 
 @pytest.fixture(scope="module")
-def measured() -> list[tuple[dict, timing.Measurement]]:
+def measured() -> list[tuple[dict, Measurement]]:
     """Every reference point, as charflow measures it (its plan, its step control)."""
     configs: dict[str, config.LibraryConfig] = {}
     pairs = []

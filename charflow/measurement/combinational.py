@@ -334,7 +334,7 @@ def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:
     # Everything the probes depend on: the testbench, the grid's corners, how points are run.
     key = (
         deck.key,
-        point.series,
+        replace(point, slew=0.0, load=0.0),  # a series per other output's load too
         config.cell(point.cell).grid,
         config.thresholds,
         config.simulation,
