@@ -31,7 +31,7 @@ from charflow.io import faults
 from charflow.measurement import registry, sequential
 from charflow.plan import arcs as planning
 from charflow.records.errors import ConfigError, MeasurementError
-from charflow.records.outcomes import Failure, Measurement, SearchResult
+from charflow.records.outcomes import INTERNAL, Failure, Measurement, SearchResult
 from charflow.records.points import ConstraintPoint, Plan, PulsePoint, TimingPoint
 from charflow.simulation.netlist import build_deck
 from charflow.tables import gaps
@@ -109,6 +109,18 @@ def test_linear_interpolates_a_gap_inside_the_row_by_load():
     assert f.along == "load"
     assert set(f.sources) == {_tp(s, LOADS[0]), _tp(s, LOADS[2])}
     assert f.failure.reason == "not settled"
+
+
+def test_a_bug_of_charflow_is_never_filled():
+    # The same gap as above, but the point failed by an internal error (a bug, not the cell):
+    # filling it would hide the bug behind a plausible number.
+    s = SLEWS[1]
+    measured = {_tp(s, LOADS[0]): 10e-12, _tp(s, LOADS[2]): 40e-12}
+    bug = Failure(_tp(s, LOADS[1]), "internal error in charflow (KeyError: 'x')", error=INTERNAL)
+    report = gaps.fill_gaps(_grid_plan(), [_m(p, v) for p, v in measured.items()], [bug], "linear")
+    assert not report.filled
+    (left,) = report.unfilled
+    assert left.failure is bug and "never filled" in left.why
 
 
 def test_linear_extrapolates_at_the_row_end():

@@ -18,6 +18,7 @@ from charflow.config import library as config
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store, keyring
+from charflow.flow import characterize as flow
 from charflow.measurement import registry
 from charflow.plan import arcs as planning
 from charflow.records.errors import StoreError
@@ -160,6 +161,29 @@ def test_sweep_run_stores_and_then_serves_without_simulating(tmp_path, monkeypat
         again = list(sweep.run(cfg, points, jobs=1, store=store, on_stored=served.append))
     assert [len(s) for s in served] == [2]
     assert sorted(again, key=lambda m: m.point.slew) == sorted(first, key=lambda m: m.point.slew)
+
+
+def test_a_run_served_from_the_store_simulates_nothing(tmp_path, monkeypatch) -> None:
+    # The function check and the leakage are points like the others: stored on the first run,
+    # served on the second, which must not simulate at all. The subprocess backend with one
+    # job measures in this process (each run in its own ngspice), so the patch below sees
+    # every simulation the run would do.
+    cfg = config.load(SMALL)
+    cfg = dataclasses.replace(
+        cfg, simulation=dataclasses.replace(cfg.simulation, backend="subprocess")
+    )
+    with Store(tmp_path / FILE_NAME) as store:
+        first = flow.characterize(cfg, cells=["QINV_P1"], jobs=1, store=store)
+        kinds = {row[0] for row in store._db.execute("SELECT record FROM point")}
+        assert {"Measurement", "LeakageResult", "FunctionChecked"} <= kinds
+
+        def no_simulation(*args, **kwargs):
+            raise AssertionError("a stored point was simulated again")
+
+        monkeypatch.setattr(registry, "measure_chunk", no_simulation)
+        again = flow.characterize(cfg, cells=["QINV_P1"], jobs=1, store=store)
+    assert again.simulations == 0 and len(again.reused) == len(first.reused) + first.simulated + 1
+    assert again.leakage == first.leakage and again.cell_power == first.cell_power
 
 
 def test_latest_serves_older_rows_and_says_why(tmp_path: Path) -> None:
