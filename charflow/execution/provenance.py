@@ -15,6 +15,7 @@ pool, which stays up for the runs) loads it and answers.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import re
 import shutil
@@ -138,11 +139,23 @@ def _banner_here(config: LibraryConfig) -> str:
     return backend_for(config).version()
 
 
+DIGESTS = 256  # file digests kept per process
+
+
 def file_digest(path: Path) -> str | None:
+    """The sha256 of a file's bytes; None when it cannot be read. Hashed once per process while
+    the file keeps its size and modification time (a run asks for every model file several
+    times: the store's keys of each stage and the provenance)."""
     try:
-        return hashlib.sha256(path.read_bytes()).hexdigest()
+        stat = path.stat()
+        return _digest(str(path), stat.st_mtime_ns, stat.st_size)
     except OSError:
         return None
+
+
+@functools.lru_cache(maxsize=DIGESTS)
+def _digest(path: str, mtime_ns: int, size: int) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
 def build(config: LibraryConfig, sim: Simulator) -> Provenance:
