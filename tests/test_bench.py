@@ -13,7 +13,7 @@ import pytest
 
 from benchmarks import speed
 from charflow.config import library as config
-from charflow.flow import characterize as flow
+from charflow.plan import arcs as planning
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
@@ -45,7 +45,7 @@ def _tiny(tmp_path: Path) -> Path:
 def test_bench_library_on_a_tiny_grid(tmp_path):
     path = _tiny(tmp_path)
     result = speed.bench_library("tiny", path, jobs=2, naive_points=3, folder=tmp_path)
-    points = len(flow.sweep.plan(config.load(path)).points)
+    points = len(planning.plan(config.load(path)).points)
     assert result.one.points == result.full.points == points
     assert result.naive.points == 3
     assert result.agreement < AGREE_RTOL

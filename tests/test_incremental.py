@@ -329,11 +329,12 @@ def test_flip_flop_searches_are_stored_too(tmp_path: Path) -> None:
     # and stored value 2 x 2 x 2 x 2.
     assert toggles == 28
     before = _outputs(out, "seq_l1")
-    assert _rows(out / FILE_NAME) == points + toggles
+    cells = 2  # QBUFC_P1 and QDFFR_P1: a leakage point and a function check each
+    assert _rows(out / FILE_NAME) == points + toggles + 2 * cells
 
     second = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)
     assert second.returncode == 0, second.stderr
-    reused = f"0 simulated (0 simulations), {points + toggles} reused from the store"
+    reused = f"0 simulated (0 simulations), {points + toggles + cells} reused from the store"
     assert reused in second.stdout
     assert _outputs(out, "seq_l1") == before
 

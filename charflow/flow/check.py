@@ -25,6 +25,7 @@ from charflow.records.errors import (
 )
 from charflow.records.outcomes import Failure
 from charflow.simulation import plausible
+from charflow.simulation.netlist import Deck, build_deck
 
 
 @dataclass(frozen=True, slots=True)
@@ -46,25 +47,31 @@ def check(path: str | Path) -> CheckReport:
         return CheckReport(0, tuple(map(str, exc.problems)))
     except ConfigError as exc:
         return CheckReport(0, (str(exc),))
-    failed = _failures(cfg, [c.name for c in cfg.cells])
+    index = {c.name: i for i, c in enumerate(cfg.cells)}
+    problems: dict[int, str] = {}
+    decks: dict[str, Deck] = {}
+    for cell in cfg.cells:
+        try:
+            decks[cell.name] = build_deck(cfg, cell)
+        except CharflowError as exc:
+            problems[index[cell.name]] = str(_located(cfg, index[cell.name], exc))
+    failed = _failures(cfg, decks)
     if any(f.error == "DeckReadError" for f in failed) and cfg.simulation.backend == "shared":
         # The shared ngspice may refuse every deck after one it could not read: those cells
         # go again to one ngspice process per run, which starts afresh each time.
         cfg = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
-        failed = _failures(cfg, [f.point.cell for f in failed])
-    index = {c.name: i for i, c in enumerate(cfg.cells)}
-    failed.sort(key=lambda f: index[f.point.cell])
-    problems = []
+        failed = _failures(cfg, {f.point.cell: decks[f.point.cell] for f in failed})
     for f in failed:
-        exc = errors.again(f.error, f.reason, dict(f.context))
-        problems.append(str(_located(cfg, index[f.point.cell], exc)))
-    return CheckReport(len(cfg.cells), tuple(problems), plausible.warnings(cfg))
+        error = errors.again(f.error, f.reason, dict(f.context))
+        problems[index[f.point.cell]] = str(_located(cfg, index[f.point.cell], error))
+    listed = tuple(problems[i] for i in sorted(problems))
+    return CheckReport(len(cfg.cells), listed, plausible.warnings(cfg))
 
 
-def _failures(cfg: LibraryConfig, cells: list[str]) -> list[Failure]:
-    """The function checks of ``cells`` that failed, run by the sweep's workers."""
-    points = function_points(cfg, cells)
-    return [o for o in sweep.run(cfg, points, jobs=1) if isinstance(o, Failure)]
+def _failures(cfg: LibraryConfig, decks: dict[str, Deck]) -> list[Failure]:
+    """The function checks of the cells of ``decks`` that failed, run by the sweep's workers."""
+    points = function_points(cfg, decks)
+    return [o for o in sweep.run(cfg, points, jobs=1, decks=decks) if isinstance(o, Failure)]
 
 
 def _located(cfg: LibraryConfig, index: int, exc: CharflowError) -> CharflowError:
