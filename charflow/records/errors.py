@@ -54,7 +54,9 @@ class ConfigError(CharflowError):
 class ConfigProblemsError(ConfigError):
     """Several problems in one config file; ``problems`` holds each as its own ConfigError."""
 
-    def __init__(self, problems: list[ConfigError] | tuple[ConfigError, ...], **context) -> None:
+    def __init__(
+        self, problems: list[ConfigError] | tuple[ConfigError, ...], **context: object
+    ) -> None:
         self.problems = tuple(problems)
         listed = "\n  ".join(map(str, self.problems))
         super().__init__(f"{len(self.problems)} problems in the config:\n  {listed}", **context)
