@@ -56,8 +56,8 @@ def check(path: str | Path) -> CheckReport:
     failed.sort(key=lambda f: index[f.point.cell])
     problems = []
     for f in failed:
-        exc = errors.again(f.error, f.reason, dict(f.context))
-        problems.append(str(_located(cfg, index[f.point.cell], exc)))
+        error = errors.again(f.error, f.reason, dict(f.context))
+        problems.append(str(_located(cfg, index[f.point.cell], error)))
     return CheckReport(len(cfg.cells), tuple(problems), plausible.warnings(cfg))
 
 
