@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -538,8 +539,6 @@ def _unit(
 
 
 def _is_identifier(text: str) -> bool:
-    import re
-
     return re.fullmatch(_PIN, text) is not None
 
 
