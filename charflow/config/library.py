@@ -149,7 +149,10 @@ class CellSpec:
     @property
     def source(self) -> Path:
         """The file the cell's ``.subckt`` comes from."""
-        return self.template if self.template is not None else self.netlist  # type: ignore[return-value]
+        source = self.template if self.template is not None else self.netlist
+        if source is None:  # the config reader requires one of them (a bug of charflow if not)
+            raise TypeError(f"cell {self.name} has neither a template nor a netlist")
+        return source
 
 
 @dataclass(frozen=True, slots=True)

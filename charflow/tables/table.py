@@ -114,7 +114,8 @@ class Table:
             and bool(np.array_equal(self.values, other.values))
         )
 
-    # Equal tables would have to hash equal, and an ndarray has no hash.
+    # Equal tables would have to hash equal, and an ndarray has no hash. (typeshed types
+    # __hash__ as a method; None is the language's way to make instances unhashable.)
     __hash__ = None  # type: ignore[assignment]
 
     @property
