@@ -10,7 +10,8 @@
 # 2. Makes the project's virtual environment .venv in this checkout (the system's Python is
 #    externally managed, PEP 668: pip does not install into it) and installs charflow into it,
 #    editable: demo with its runtime dependencies only, test with the test extras too.
-# 3. Runs `charflow demo`, or the linter and pytest, from that environment.
+# 3. Runs `charflow demo`, or the linter, the layer and type checks and pytest, from that
+#    environment.
 #
 # Afterwards call .venv/bin/charflow, or `source .venv/bin/activate` and then charflow.
 # PYTHON=/path/to/python3 picks the interpreter that makes .venv (default: python3).
@@ -87,6 +88,9 @@ fi
 export PATH="$PWD/$VENV/bin:$PATH"
 ruff check .
 ruff format --check .
+# The package's layers (pyproject.toml, [tool.importlinter]) and its types ([tool.mypy]).
+lint-imports
+mypy
 status=0
 python -m pytest "$@" || status=$?
 if [ "$status" -eq 5 ]; then

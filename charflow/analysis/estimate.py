@@ -37,6 +37,7 @@ from charflow.records.errors import CharflowError, MeasurementError
 from charflow.records.outcomes import Failure
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import plausible
+from charflow.simulation.backends import SharedBackend
 from charflow.simulation.netlist import Deck, build_deck
 
 SAMPLES = 3  # sample points per group of many (combinational and clock points)
@@ -140,7 +141,9 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         deck = build_deck(config, cell)
         start = time.perf_counter()
         if config.simulation.backend == "shared":
-            backend_for(config).load(deck)
+            backend = backend_for(config)
+            assert isinstance(backend, SharedBackend)  # the backend the config names
+            backend.load(deck)
         load = time.perf_counter() - start
         points = plan.for_cell(name)
         if cell.flop is not None:
@@ -188,10 +191,8 @@ def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[Gr
     grid = config.cell(first.cell).grid
     corners = {(grid.slew[0], grid.load[0]), (grid.slew[0], grid.load[-1])}
     corners.add((grid.slew[-1], grid.load[0]))
-    probes = [
-        combinational.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners
-    ]
-    probes = [m for m in probes if m is not None]  # none when a probe failed
+    tried = [combinational.probed(config, deck, replace(first, slew=s, load=c)) for s, c in corners]
+    probes = [m for m in tried if m is not None]  # none when a probe failed
     picks = [
         replace(
             first,

@@ -18,6 +18,7 @@ import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 from scipy.stats import qmc
@@ -208,7 +209,7 @@ def timing_point(
     template: TimingPoint, axes: Sequence[Axis], coords: Sequence[float]
 ) -> TimingPoint:
     """The point of ``template``'s series at ``coords`` on ``axes``."""
-    fields = {}
+    fields: dict[str, Any] = {}  # TimingPoint's coordinate fields
     for axis, value in zip(axes, coords, strict=True):
         if axis.name not in POINT_FIELDS:
             raise TableError(
@@ -249,7 +250,7 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
         series = templates(config, name)
         for arc in cell.arcs:
             # (table, states it is the worst of, when, default)
-            targets = [
+            targets: list[tuple[Table, tuple[State, ...], str, bool]] = [
                 (t, (st.state,), st.state.when, False) for st in arc.states for t in st.tables
             ]
             if len(arc.states) > 1:
@@ -435,7 +436,7 @@ def summary_lines(config: LibraryConfig, report: FidelityReport, count: int = 10
             lines.append(f"  {'-':>9} {'-':>9} {'-':>9} {'-':>11}  {check.label}: no probe ran")
             continue
         st = check.stats
-        at = where(config, check.table.axes, check.worst_point.coords)
+        at = where(config, check.table.axes, check.points[st.worst].coords)
         lines.append(
             f"  {pct(st.max_rel):>9} {pct(st.rms_rel):>9} {pct(st.p95_rel):>9} "
             f"{st.max_abs / t:>11.4g}  {check.label}, at {at}"

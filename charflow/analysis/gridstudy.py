@@ -327,7 +327,7 @@ def _grid_points(series: dict, arc: Arc, axes: Sequence[Axis]) -> dict:
 
 
 def _surface(axes: Sequence[Axis], points: dict, outcomes: dict) -> Surface:
-    values: dict[str, np.ndarray] = {}
+    values: dict[tuple[str, str], np.ndarray] = {}
     failures = []
     for (key, index), point in points.items():
         outcome = outcomes[point]
@@ -530,7 +530,10 @@ def study(
     the_arc = choose_arc(config, cell_name, arc)
     floor = config.fidelity.rel_floor
     span = _span(config, cell_name)
-    reference = tuple(Axis(name, reference_axis(lo, hi, reference_points)) for name, lo, hi in span)
+    reference = tuple(
+        Axis(name, tuple(reference_axis(lo, hi, reference_points).tolist()))
+        for name, lo, hi in span
+    )
     grids = _fixed_grids(config, span, sizes)
 
     series = templates(config, cell_name)
@@ -704,7 +707,7 @@ def summary_lines(config: LibraryConfig, s: Study) -> list[str]:
         parts = []
         for other, (n, exact) in savings(s, r).items():
             c = dict(r.needed)[other]
-            if exact:
+            if exact and c is not None:  # exact: a size tried met the target
                 parts.append(f"{n} points against {other} ({c.size}x{c.size})")
             else:
                 parts.append(

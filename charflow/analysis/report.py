@@ -208,7 +208,7 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
             _num(st.rms_rel, pct(st.rms_rel)),
             _num(st.p95_rel, pct(st.p95_rel)),
             _num(st.max_abs, show_time(st.max_abs, config.time_unit)),
-            f"<td>{html.escape(where(config, c.table.axes, c.worst_point.coords))}</td>",
+            f"<td>{html.escape(where(config, c.table.axes, c.points[st.worst].coords))}</td>",
         ]
     return "<tr>" + "".join(cells) + "</tr>"
 

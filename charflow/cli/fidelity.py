@@ -6,9 +6,15 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow.cli import shared
 from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
+
+# For the type checker only: at run time these modules load on first use (``deferred``).
+if TYPE_CHECKING:
+    from charflow.config.library import LibraryConfig
+    from charflow.execution.store import Store
 
 config = shared.deferred("charflow.config.library")
 fidelity = shared.deferred("charflow.analysis.fidelity")
@@ -65,7 +71,7 @@ def command(args: argparse.Namespace) -> int:
 
 
 def check_tables(
-    cfg: config.LibraryConfig, cells, out: Path, args: argparse.Namespace, store: store_mod.Store
+    cfg: LibraryConfig, cells, out: Path, args: argparse.Namespace, store: Store
 ) -> int:
     """The fidelity check of ``cells``' tables (also ``run --fidelity``): reported, written."""
     progress = shared.Progress(args.quiet)

@@ -4,9 +4,14 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow.cli import shared
 from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
+
+# For the type checker only: at run time these modules load on first use (``deferred``).
+if TYPE_CHECKING:
+    from charflow.config.library import LibraryConfig
 
 config = shared.deferred("charflow.config.library")
 gridstudy = shared.deferred("charflow.analysis.gridstudy")
@@ -88,7 +93,7 @@ def command(args: argparse.Namespace) -> int:
         return _study(cfg, out, args)
 
 
-def _study(cfg: config.LibraryConfig, out: Path, args: argparse.Namespace) -> int:
+def _study(cfg: LibraryConfig, out: Path, args: argparse.Namespace) -> int:
     progress = shared.Progress(args.quiet)
 
     def phase(total: int) -> None:  # two sweeps: a bar for each

@@ -5,11 +5,18 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow.cli import fidelity as fidelity_command
 from charflow.cli import shared
 from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
 from charflow.records.errors import ConfigError
+
+# For the type checker only: at run time these modules load on first use (``deferred``).
+if TYPE_CHECKING:
+    from charflow.config.library import LibraryConfig
+    from charflow.execution.store import Store
+    from charflow.flow.characterize import RunResult
 
 config = shared.deferred("charflow.config.library")
 estimate = shared.deferred("charflow.analysis.estimate")
@@ -93,7 +100,7 @@ def command(args: argparse.Namespace) -> int:
     return characterize(cfg, args)
 
 
-def characterize(cfg: config.LibraryConfig, args: argparse.Namespace) -> int:
+def characterize(cfg: LibraryConfig, args: argparse.Namespace) -> int:
     """Run and demo: the plan only (``--plan``), or each library of ``cfg`` characterized,
     written and reported."""
     if args.backend == "dask" and not args.scheduler:
@@ -119,11 +126,11 @@ def characterize(cfg: config.LibraryConfig, args: argparse.Namespace) -> int:
 
 
 def _library(
-    lib: config.LibraryConfig,
+    lib: LibraryConfig,
     cells: list[str] | None,
     arc: tuple[str, str] | None,
     out: Path,
-    store: store_mod.Store,
+    store: Store,
     args: argparse.Namespace,
 ) -> int:
     """One library of the config: characterized, written, reported; its exit code."""
@@ -175,7 +182,7 @@ def _written(written: list[Path], out: Path) -> None:
         print(f"wrote {len(saved)} waveform file(s) of failed points under {where}")
 
 
-def _failed(name: str, result: flow.RunResult, out: Path, args: argparse.Namespace) -> None:
+def _failed(name: str, result: RunResult, out: Path, args: argparse.Namespace) -> None:
     print(
         f"{name}: {len(result.failures)} point(s) failed; no Liberty file written:",
         file=sys.stderr,
@@ -191,7 +198,7 @@ def _failed(name: str, result: flow.RunResult, out: Path, args: argparse.Namespa
         )
 
 
-def _list_faults(result: flow.RunResult, failures, out: Path) -> None:
+def _list_faults(result: RunResult, failures, out: Path) -> None:
     """Each failed point (the first LISTED): label, reason, why it was not filled, waveform."""
     saved = faults.paths(result.faults)
     why = {u.failure.point: u.why for u in result.gap_report.unfilled} if result.gap_report else {}
@@ -205,8 +212,8 @@ def _list_faults(result: flow.RunResult, failures, out: Path) -> None:
         print(f"  ... and {len(failures) - LISTED} more (all in the JSON)", file=sys.stderr)
 
 
-def _gaps(name: str, result: flow.RunResult, out: Path) -> None:
-    if not result.filled:
+def _gaps(name: str, result: RunResult, out: Path) -> None:
+    if result.gap_report is None or not result.filled:
         return
     method = result.gap_report.method
     print(
@@ -224,7 +231,7 @@ def _gaps(name: str, result: flow.RunResult, out: Path) -> None:
         print(f"  ... and {len(result.filled) - LISTED} more (all in the JSON)")
 
 
-def _summary(name: str, result: flow.RunResult, *, selective: bool) -> None:
+def _summary(name: str, result: RunResult, *, selective: bool) -> None:
     print(
         f"{name}: {len(result.measurements)} points measured, {len(result.failures)} failed, "
         f"{len(result.toggles)} input toggles measured: "

@@ -155,6 +155,7 @@ class _Stderr(logging.StreamHandler):
     """Writes to the ``sys.stderr`` of the moment: a caller (a test, an embedding program) may
     replace it after the first command set the handler up."""
 
+    # typeshed declares ``stream`` a plain attribute, which a property may stand for at run time.
     @property  # type: ignore[override]
     def stream(self):
         return sys.stderr

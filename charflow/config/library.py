@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -148,7 +149,10 @@ class CellSpec:
     @property
     def source(self) -> Path:
         """The file the cell's ``.subckt`` comes from."""
-        return self.template if self.template is not None else self.netlist  # type: ignore[return-value]
+        source = self.template if self.template is not None else self.netlist
+        if source is None:  # the config reader requires one of them (a bug of charflow if not)
+            raise TypeError(f"cell {self.name} has neither a template nor a netlist")
+        return source
 
 
 @dataclass(frozen=True, slots=True)
@@ -279,8 +283,14 @@ class _Reader:
         self.problems.append(ConfigError(message, file=self.path, key=key, cell=cell))
 
     def section(
-        self, table: dict, key: str, allowed: set[str], *, required: bool, cell: str | None = None
-    ) -> dict:
+        self,
+        table: dict[str, Any],
+        key: str,
+        allowed: set[str],
+        *,
+        required: bool,
+        cell: str | None = None,
+    ) -> dict[str, Any]:
         value = table.get(key, _MISSING)
         if value is _MISSING:
             if required:
@@ -292,7 +302,9 @@ class _Reader:
         self.unknown(value, allowed, key, cell)
         return value
 
-    def unknown(self, table: dict, allowed: set[str], prefix: str, cell: str | None) -> None:
+    def unknown(
+        self, table: dict[str, Any], allowed: set[str], prefix: str, cell: str | None
+    ) -> None:
         for k in sorted(set(table) - allowed):
             self.problem(
                 f"{prefix}.{k}" if prefix else k,
@@ -302,7 +314,7 @@ class _Reader:
 
     def get(
         self,
-        table: dict,
+        table: dict[str, Any],
         key: str,
         kind: type | tuple[type, ...],
         prefix: str,
@@ -328,7 +340,7 @@ class _Reader:
 
     def number(
         self,
-        table: dict,
+        table: dict[str, Any],
         key: str,
         prefix: str,
         default: Any = _MISSING,
@@ -336,7 +348,7 @@ class _Reader:
         low: float | None = None,
         high: float | None = None,
     ) -> float | None:
-        value = self.get(table, key, float, prefix, default, cell)
+        value: float | None = self.get(table, key, float, prefix, default, cell)
         if value is None:
             return None
         full = f"{prefix}.{key}"
@@ -353,7 +365,7 @@ class _Reader:
 
     def axis(
         self,
-        table: dict,
+        table: dict[str, Any],
         key: str,
         prefix: str,
         scale: float,
@@ -440,7 +452,7 @@ def load(path: str | Path) -> LibraryConfig:
     return replace(parse(doc, path), digest=hashlib.sha256(data).hexdigest())
 
 
-def parse(doc: dict, path: Path) -> LibraryConfig:
+def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
     """Validate a parsed TOML document; ``path`` locates messages and relative paths."""
     r = _Reader(path)
     r.unknown(doc, _TOP_KEYS, "", None)
@@ -498,6 +510,8 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
         raise r.problems[0]
     if r.problems:
         raise ConfigProblemsError(r.problems, file=path)
+    # A unit that did not read is a problem, raised above.
+    assert time_unit is not None and cap_unit is not None
     return LibraryConfig(
         path=path,
         name=name,
@@ -514,7 +528,9 @@ def parse(doc: dict, path: Path) -> LibraryConfig:
     )
 
 
-def _unit(r: _Reader, lib: dict, key: str, default: str, known: dict[str, float]) -> str | None:
+def _unit(
+    r: _Reader, lib: dict[str, Any], key: str, default: str, known: dict[str, float]
+) -> str | None:
     """A library unit in any case (``fF``, ``nS``), kept in its lower-case spelling."""
     text = r.get(lib, key, str, "library", default)
     if text is None:
@@ -526,12 +542,10 @@ def _unit(r: _Reader, lib: dict, key: str, default: str, known: dict[str, float]
 
 
 def _is_identifier(text: str) -> bool:
-    import re
-
     return re.fullmatch(_PIN, text) is not None
 
 
-def _process(r: _Reader, doc: dict, base: Path) -> Process:
+def _process(r: _Reader, doc: dict[str, Any], base: Path) -> Process:
     models: list[ModelFile] = []
     entries = doc.get("models")
     if not isinstance(entries, list) or not entries:
@@ -599,15 +613,17 @@ def _corners(r: _Reader, docs: Any, process: Process) -> tuple[Corner, ...]:
     return tuple(corners)
 
 
-def _thresholds(r: _Reader, doc: dict) -> Thresholds:
-    values = {}
-    for key, default in Thresholds.__dataclass_fields__.items():
+def _thresholds(r: _Reader, doc: dict[str, Any]) -> Thresholds:
+    values: dict[str, float] = {}
+    defaults = Thresholds()
+    for key in Thresholds.__dataclass_fields__:
+        default: float = getattr(defaults, key)
         if key == "slew_derate":
-            v = r.number(doc, key, "thresholds", default.default, low=0.0, high=1.0)
-            values[key] = default.default if v is None else v
+            v = r.number(doc, key, "thresholds", default, low=0.0, high=1.0)
+            values[key] = default if v is None else v
         else:
-            v = r.number(doc, key, "thresholds", default.default * 100, low=0.0, high=100.0)
-            values[key] = default.default if v is None else v / 100.0
+            v = r.number(doc, key, "thresholds", default * 100, low=0.0, high=100.0)
+            values[key] = default if v is None else v / 100.0
     t = Thresholds(**values)
     for edge in ("rise", "fall"):
         lo, hi = t.slew_band(edge)
@@ -619,7 +635,7 @@ def _thresholds(r: _Reader, doc: dict) -> Thresholds:
     return t
 
 
-def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
+def _simulation(r: _Reader, doc: dict[str, Any], tscale: float) -> Simulation:
     d = Simulation()
     backend = r.get(doc, "backend", str, "simulation", d.backend)
     if backend not in ("shared", "subprocess"):
@@ -645,7 +661,7 @@ def _simulation(r: _Reader, doc: dict, tscale: float) -> Simulation:
     )
 
 
-def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
+def _fidelity(r: _Reader, doc: dict[str, Any], tscale: float) -> Fidelity:
     d = Fidelity()
     count = r.get(doc, "random_points", int, "fidelity", d.random_points)
     if count is not None and count < 0:
@@ -663,7 +679,7 @@ def _fidelity(r: _Reader, doc: dict, tscale: float) -> Fidelity:
     )
 
 
-def _liberty(r: _Reader, doc: dict, cscale: float) -> LibertyOptions:
+def _liberty(r: _Reader, doc: dict[str, Any], cscale: float) -> LibertyOptions:
     d = LibertyOptions()
     rule = r.get(doc, "other_load", (str, float), "liberty", d.other_load)
     if isinstance(rule, float):
@@ -818,7 +834,9 @@ def _cell(
     )
 
 
-def _body(r: _Reader, doc: dict, key: str, name: str, taken: set[str]) -> tuple[BodyPin, ...]:
+def _body(
+    r: _Reader, doc: dict[str, Any], key: str, name: str, taken: set[str]
+) -> tuple[BodyPin, ...]:
     """The cell's body pins: ``nwell``/``pwell`` = "PIN" (tied to the cell's power / ground)
     or { pin = "PIN", voltage = V } (its own voltage, for body bias)."""
     found = []
@@ -846,7 +864,9 @@ def _body(r: _Reader, doc: dict, key: str, name: str, taken: set[str]) -> tuple[
     return tuple(found)
 
 
-def _flop(r: _Reader, doc: dict, key: str, name: str, inputs: list[str]) -> FlopSpec | None:
+def _flop(
+    r: _Reader, doc: dict[str, Any], key: str, name: str, inputs: list[str]
+) -> FlopSpec | None:
     fdoc = r.get(doc, "flop", dict, key, None, name)
     if fdoc is None:
         return None

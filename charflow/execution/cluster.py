@@ -11,13 +11,14 @@ from __future__ import annotations
 import logging
 import os
 import threading
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Generator, Mapping, Sequence
 
 from charflow.config.library import LibraryConfig
 from charflow.execution.workers import EXIT_HUNG, run_alone
 from charflow.measurement import registry
 from charflow.records.errors import CharflowError, ClusterError, SimulatorHungError
-from charflow.records.points import TimingPoint
+from charflow.records.outcomes import Outcome
+from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -28,7 +29,7 @@ CONNECT_TIMEOUT = 30.0  # s to reach the scheduler
 _SIMULATOR = threading.Lock()
 
 
-def _measure(config: LibraryConfig, deck: Deck, points: tuple[TimingPoint, ...]) -> list:
+def _measure(config: LibraryConfig, deck: Deck, points: tuple[Work, ...]) -> list[Outcome]:
     with _SIMULATOR:
         try:
             return registry.measure_chunk(config, deck, points)
@@ -42,8 +43,8 @@ def map_chunks(
     address: str,
     config: LibraryConfig,
     decks: Mapping[str, Deck],
-    tasks: Sequence[tuple[TimingPoint, ...]],
-) -> Iterator[list]:
+    tasks: Sequence[tuple[Work, ...]],
+) -> Generator[list[Outcome], None, None]:
     """Outcomes of every chunk, in completion order, computed on the cluster at ``address``."""
     try:
         from distributed import Client, as_completed

@@ -26,6 +26,7 @@ import typing
 from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from charflow import __version__
 from charflow.config.library import LibraryConfig
@@ -36,13 +37,16 @@ from charflow.records.outcomes import (
     FunctionChecked,
     LeakageResult,
     Measurement,
+    Outcome,
     SearchResult,
     ToggleMeasurement,
 )
-from charflow.records.points import Point
+from charflow.records.points import Work
 from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
+# What a row holds: any outcome but a Failure.
+Result = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
     cls.__name__: cls
@@ -85,10 +89,10 @@ class Keyring:
     library: str
     cells: dict[str, CellInputs]
 
-    def key(self, point: Point) -> str:
+    def key(self, point: Work) -> str:
         return _hash([self.cells[point.cell].digest, _point_fields(point)])
 
-    def slot(self, point: Point) -> str:
+    def slot(self, point: Work) -> str:
         return _hash([self.library, _point_fields(point)])
 
 
@@ -96,7 +100,7 @@ class Keyring:
 class Stale:
     """A point served from a row whose inputs are not the current ones."""
 
-    point: Point
+    point: Work
     models: tuple[str, ...]  # names of the model files changed since; () if something else did
 
     @property
@@ -191,10 +195,10 @@ class Store:
     def count(self) -> int:
         return self._query("SELECT count(*) FROM point").fetchone()[0]
 
-    def lookup(self, ring: Keyring, points: Iterable[Point]) -> dict[Point, object]:
+    def lookup(self, ring: Keyring, points: Iterable[Work]) -> dict[Work, Outcome]:
         """The stored results of those ``points`` whose key is stored."""
         by_key = {ring.key(p): p for p in points}
-        found = {}
+        found: dict[Work, Outcome] = {}
         query = "SELECT key, record, result FROM point WHERE key IN"
         for key, record, text in self._rows(query, by_key):
             m = _decode(record, by_key[key], text)
@@ -203,14 +207,14 @@ class Store:
         return found
 
     def latest(
-        self, ring: Keyring, points: Iterable[Point]
-    ) -> tuple[dict[Point, object], dict[Point, Stale]]:
+        self, ring: Keyring, points: Iterable[Work]
+    ) -> tuple[dict[Work, Outcome], dict[Work, Stale]]:
         """Every point's result, from its current key or else from the newest row of its slot;
         the second mapping says which came from older inputs and why."""
         points = list(points)
         found = self.lookup(ring, points)
         by_slot = {ring.slot(p): p for p in points if p not in found}
-        stale = {}
+        stale: dict[Work, Stale] = {}
         query = "SELECT slot, models, record, result FROM point WHERE slot IN"
         for slot, models, record, text in self._rows(query, by_slot, order="rowid"):
             point = by_slot[slot]
@@ -220,7 +224,7 @@ class Store:
                 stale[point] = _why(point, json.loads(models), ring.cells[point.cell].models)
         return found, stale
 
-    def put(self, ring: Keyring, m: object) -> None:
+    def put(self, ring: Keyring, m: Result) -> None:
         """Store one result (a record of ``RECORDS``), committed at once."""
         p = m.point
         row = (
@@ -249,10 +253,12 @@ class Store:
         except sqlite3.Error as exc:
             raise StoreError(f"cannot read the result store: {exc}", file=self.path) from exc
 
-    def _rows(self, sql: str, keys: Mapping[str, object], order: str | None = None) -> Iterator:
-        keys = list(keys)
-        for i in range(0, len(keys), BATCH):
-            part = keys[i : i + BATCH]
+    def _rows(
+        self, sql: str, keys: Mapping[str, object], order: str | None = None
+    ) -> Iterator[Any]:
+        ordered = list(keys)
+        for i in range(0, len(ordered), BATCH):
+            part = ordered[i : i + BATCH]
             text = f"{sql} ({', '.join('?' * len(part))})"
             yield from self._query(text + (f" ORDER BY {order}" if order else ""), tuple(part))
 
@@ -270,7 +276,7 @@ class Store:
             ) from exc
 
 
-def _why(point: Point, stored: list, current: tuple[tuple[str, str | None], ...]) -> Stale:
+def _why(point: Work, stored: list, current: tuple[tuple[str, str | None], ...]) -> Stale:
     then = {path: digest for path, digest in stored}
     now = dict(current)
     changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
@@ -281,7 +287,7 @@ def _hash(value: object) -> str:
     return hashlib.sha256(json.dumps(value, sort_keys=True).encode()).hexdigest()
 
 
-def _point_fields(point: Point) -> list:
+def _point_fields(point: Work) -> list:
     # json writes floats with repr, which round-trips: the key holds the exact slew and load.
     return [type(point).__name__, _plain(point)]
 
@@ -295,13 +301,13 @@ def _plain(value: object) -> object:
     return value
 
 
-def _encode(m: object) -> str:
+def _encode(m: Result) -> str:
     fields = {f.name: _plain(getattr(m, f.name)) for f in dataclasses.fields(m)}
     del fields["point"]  # the key already names it
     return json.dumps(fields)
 
 
-def _decode(record: str, point: Point, text: str) -> object | None:
+def _decode(record: str, point: Work, text: str) -> Outcome | None:
     """The result a row holds; None when the row does not fit its record as it is now."""
     try:
         cls = RECORDS[record]
@@ -312,7 +318,7 @@ def _decode(record: str, point: Point, text: str) -> object | None:
         return None
 
 
-def _typed(hint: object, value: object) -> object:
+def _typed(hint: object, value: Any) -> object:  # value: what JSON gave
     """``value`` read back from JSON as the type ``hint`` names (tuples, records, optionals)."""
     if value is None:
         return None

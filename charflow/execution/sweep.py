@@ -10,7 +10,7 @@ store it simulates only the points the store does not hold.
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Callable, Iterable, Iterator, Mapping
+from collections.abc import Callable, Generator, Iterable, Iterator, Mapping
 
 from charflow.config.library import LibraryConfig
 from charflow.execution.cluster import map_chunks
@@ -18,14 +18,14 @@ from charflow.execution.store import Store, keyring
 from charflow.execution.workers import default_jobs, run_chunks
 from charflow.measurement import registry
 from charflow.records.outcomes import Failure, Outcome
-from charflow.records.points import Point, TimingPoint, TogglePoint, Work
+from charflow.records.points import TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
 
 CHUNK = 25  # points per worker task: large enough to amortise the deck load
 
 
-def work(points: Iterable[Point]) -> int:
+def work(points: Iterable[Work]) -> int:
     """The simulations ``points`` take, roughly (the sum of their ``cost``): the unit of
     progress."""
     return sum(p.cost for p in points)
@@ -38,10 +38,10 @@ def _weight(p: Work) -> float:
     return p.cost * (1.0 + p.load * 1e12 + p.slew * 1e9)
 
 
-def chunks(points: Iterable[Point], size: int = CHUNK) -> list[tuple[Point, ...]]:
+def chunks(points: Iterable[Work], size: int = CHUNK) -> list[tuple[Work, ...]]:
     """Consecutive points of one cell and kind, about ``size`` simulations each; the costliest
     first so the longest tasks start early and the short ones fill in at the end."""
-    groups: dict[tuple[str, type], list[Point]] = {}
+    groups: dict[tuple[str, type], list[Work]] = {}
     for p in points:
         groups.setdefault((p.cell, type(p)), []).append(p)
     out = []
@@ -93,7 +93,7 @@ def run(
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if scheduler is not None:
-        results: Iterable[list] = map_chunks(scheduler, config, built, tasks)
+        results: Generator[list[Outcome], None, None] = map_chunks(scheduler, config, built, tasks)
     elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
         # Each run is its own ngspice process already: a crash cannot take this one down.
         results = (registry.measure_chunk(config, built[t[0].cell], t) for t in tasks)
@@ -106,7 +106,7 @@ def run(
     with contextlib.closing(results):
         for batch in results:
             for outcome in batch:
-                if ring is not None and not isinstance(outcome, Failure):
+                if store is not None and ring is not None and not isinstance(outcome, Failure):
                     store.put(ring, outcome)
                 if on_result is not None:
                     on_result(outcome)

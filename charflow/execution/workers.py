@@ -19,7 +19,7 @@ import logging
 import os
 import pickle
 import tempfile
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Generator, Mapping, Sequence
 from concurrent.futures import as_completed
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
@@ -27,7 +27,8 @@ from dataclasses import replace
 from charflow.config.library import LibraryConfig
 from charflow.measurement import registry
 from charflow.records.errors import OutputError, SimulatorError, SimulatorHungError
-from charflow.records.outcomes import Failure
+from charflow.records.outcomes import Failure, Outcome
+from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 
 log = logging.getLogger("charflow")
@@ -38,14 +39,16 @@ EXIT_HUNG = 70  # exit status of a worker whose simulator did not stop when halt
 FRUITLESS_ROUNDS = 2
 
 
-def _work(config: LibraryConfig, deck: Deck, points: tuple, journal: str) -> list:
+def _work(
+    config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str
+) -> list[Outcome]:
     """A worker's task: measure ``points``, writing each outcome to ``journal`` at once."""
     try:
         fh = open(journal, "wb")  # noqa: SIM115 - closed below
     except OSError:
         fh = None  # no journal (a full temporary folder): a death then costs the whole chunk
 
-    def done(outcome: object) -> None:
+    def done(outcome: Outcome) -> None:
         if fh is not None:
             pickle.dump(outcome, fh)
             fh.flush()  # into the kernel: it survives this process, whatever kills it
@@ -61,9 +64,9 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple, journal: str) -> lis
             fh.close()
 
 
-def read_journal(path: str) -> list | None:
+def read_journal(path: str) -> list[Outcome] | None:
     """The outcomes a worker wrote to ``path``; None if it never started that task."""
-    outcomes: list = []
+    outcomes: list[Outcome] = []
     try:
         fh = open(path, "rb")  # noqa: SIM115 - closed below; a missing file means "not started"
     except FileNotFoundError:
@@ -79,10 +82,12 @@ def read_journal(path: str) -> list | None:
     return outcomes
 
 
-def run_alone(config: LibraryConfig, decks: Mapping[str, Deck], points: Sequence) -> list:
+def run_alone(
+    config: LibraryConfig, decks: Mapping[str, Deck], points: Sequence[Work]
+) -> list[Outcome]:
     """Measure each point on its own through the subprocess backend, in this process."""
     alone = replace(config, simulation=replace(config.simulation, backend="subprocess"))
-    out = []
+    out: list[Outcome] = []
     for point in points:
         (outcome,) = registry.measure_chunk(alone, decks[point.cell], (point,))
         if isinstance(outcome, Failure):
@@ -96,8 +101,8 @@ def run_alone(config: LibraryConfig, decks: Mapping[str, Deck], points: Sequence
 
 
 def run_chunks(
-    config: LibraryConfig, decks: Mapping[str, Deck], tasks: Sequence[tuple], jobs: int
-) -> Iterator[list]:
+    config: LibraryConfig, decks: Mapping[str, Deck], tasks: Sequence[tuple[Work, ...]], jobs: int
+) -> Generator[list[Outcome], None, None]:
     """Outcomes of every chunk on ``jobs`` worker processes, in completion order; every point
     gets one outcome even when workers die (see the module's description)."""
     # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the

@@ -16,6 +16,7 @@ import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from charflow import __version__
 from charflow.config.library import FlopSpec, LibraryConfig
@@ -50,7 +51,6 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     Plan,
-    Point,
     PulsePoint,
     State,
     TimingPoint,
@@ -72,7 +72,7 @@ class RunResult:
     cells: tuple[CellTables, ...]  # empty when any point failed
     wall_seconds: float
     provenance: provenance.Provenance  # what made the library: programs, files, settings
-    reused: frozenset[Point] = frozenset()  # from the store, not simulated now
+    reused: frozenset[Work] = frozenset()  # from the store, not simulated now
     stale: tuple[Stale, ...] = ()  # from stored rows older than the current inputs
     left_out: tuple[str, ...] = ()  # cells with points never stored: not in plan or tables
     toggles: tuple[ToggleMeasurement, ...] = ()
@@ -93,7 +93,7 @@ class RunResult:
     def faults(self) -> tuple[Failure, ...]:
         """Every point that gave no measurement, filled or not, in the plan's order; then the
         toggles."""
-        order = {p: i for i, p in enumerate(self.plan.points)}
+        order: dict[Work, int] = {p: i for i, p in enumerate(self.plan.points)}
         timing = sorted(
             (*self.failures, *(f.failure for f in self.filled)),
             key=lambda f: order.get(f.point, len(order)),  # per-cell work after the grid
@@ -259,7 +259,7 @@ def characterize(
         elif isinstance(outcome, Failure):
             toggle = isinstance(outcome.point, TogglePoint)
             (unmeasured if toggle else failures).append(outcome)
-        else:
+        elif isinstance(outcome, Measurement | SearchResult):  # function checks: ``verify``
             measurements.append(outcome)
 
     def stored(found: tuple) -> None:
@@ -278,7 +278,8 @@ def characterize(
         decks=decks,
     ):
         keep(outcome)
-    whole, stale = chosen, {}
+    whole = chosen
+    stale: dict[Work, Stale] = {}
     all_toggles = toggle_points
     if store is not None and cells is not None:
         whole = planning.plan(config)
@@ -297,13 +298,15 @@ def characterize(
             keep(m)
         reused.update(found)
     have = {m.point for m in measurements} | {f.point for f in failures}
-    names = dict.fromkeys(p.cell for p in whole.points)
-    left_out = tuple(c for c in names if not all(p in have for p in whole.for_cell(c)))
+    in_plan = dict.fromkeys(p.cell for p in whole.points)
+    left_out = tuple(c for c in in_plan if not all(p in have for p in whole.for_cell(c)))
     the_plan = Plan(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
-    order = {p: i for i, p in enumerate((*whole.points, *all_toggles, *cell_points))}
+    order: dict[Work, int] = {
+        p: i for i, p in enumerate((*whole.points, *all_toggles, *cell_points))
+    }
     for outcomes in (measurements, failures, toggles, unmeasured):
         outcomes.sort(key=lambda m: order[m.point])
     report = None
@@ -311,7 +314,8 @@ def characterize(
         # After the sweep, which has stored what it measured: filled values are never stored.
         report = gaps.fill_gaps(the_plan, measurements, failures, allow_gaps)
         failures = list(report.remaining)
-    tables, cell_power = (), ()
+    tables: tuple[CellTables, ...] = ()
+    cell_power: tuple[power_tables.CellPower, ...] = ()
     if not failures:
         done = [*measurements, *report.records] if report is not None else measurements
         tables = tabulate(config, the_plan, done)
@@ -472,13 +476,17 @@ def _cell_power_record(cell: power_tables.CellPower | None) -> dict:
     }
 
 
-def _point_record(m: Measurement | SearchResult) -> dict:
-    p = m.point
+def _point_record(m: Measurement | SearchResult) -> dict[str, Any]:
     if isinstance(m, SearchResult):
-        record = {"search": p.label, "value_s": m.value, "simulations": m.runs}
-        if isinstance(p, PulsePoint):
+        record: dict[str, Any] = {
+            "search": m.point.label,
+            "value_s": m.value,
+            "simulations": m.runs,
+        }
+        if isinstance(m.point, PulsePoint):
             record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
         return record
+    p = m.point
     return {
         "related_pin": p.related,
         "output": p.output,
@@ -567,33 +575,40 @@ NOTE_POINTS = 4  # filled points a table's note lists
 def fill_notes(config: LibraryConfig, result: RunResult) -> tuple[tuple[str, ...], dict[str, str]]:
     """The Liberty comments on filled values: the library header's lines, and a note per table
     or pin capacitance holding one (by the name ``charflow diff`` gives it)."""
-    if not result.filled:
+    report = result.gap_report
+    if report is None or not report.filled:
         return (), {}
     places: dict[str, list[str]] = {}
-    for f in result.filled:
+    for f in report.filled:
         p = f.failure.point
+        assert isinstance(p, TimingPoint | ConstraintPoint)  # the kinds gap filling fills
         where = _where(config, p)
         names = _tables_of(result.plan, p)
-        if isinstance(p, TimingPoint) and p.load == min(config.cell(p.cell).grid.load):
+        record = f.record
+        if (
+            isinstance(p, TimingPoint)
+            and isinstance(record, Measurement)  # as a timing point's always is
+            and p.load == min(config.cell(p.cell).grid.load)
+        ):
             # Pin capacitance comes from the charges at the smallest load.
-            pins = [p.related, *(pin for pin, _, _ in f.record.side_charges)]
+            pins = [p.related, *(pin for pin, _, _ in record.side_charges)]
             names += [pin_name(p.cell, pin, "capacitance") for pin in dict.fromkeys(pins)]
         for name in names:
             places.setdefault(name, []).append(where)
     header = (
-        f"gaps: the values of {len(result.filled)} failed point(s) were filled by "
-        f'{result.gap_report.method}, not simulated; they are listed under "filled" in '
+        f"gaps: the values of {len(report.filled)} failed point(s) were filled by "
+        f'{report.method}, not simulated; they are listed under "filled" in '
         f"{config.name}.json",
     )
     notes = {}
-    method = result.gap_report.method
-    for name, where in places.items():
-        shown = "; ".join(where[:NOTE_POINTS]) + ("; ..." if len(where) > NOTE_POINTS else "")
-        notes[name] = f"{len(where)} value(s) filled by {method}, not simulated, at {shown}"
+    method = report.method
+    for name, spots in places.items():
+        shown = "; ".join(spots[:NOTE_POINTS]) + ("; ..." if len(spots) > NOTE_POINTS else "")
+        notes[name] = f"{len(spots)} value(s) filled by {method}, not simulated, at {shown}"
     return header, notes
 
 
-def _where(config: LibraryConfig, p: Point) -> str:
+def _where(config: LibraryConfig, p: TimingPoint | ConstraintPoint) -> str:
     """A point's place in its table, in library units."""
     t, c = config.time_scale, config.cap_scale
     tu, cu = config.time_unit, config.cap_unit

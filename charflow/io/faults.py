@@ -22,7 +22,7 @@ from charflow.config.library import LibraryConfig
 from charflow.io.atomic import write_atomic
 from charflow.records import logic
 from charflow.records.errors import OutputError
-from charflow.records.outcomes import Failure
+from charflow.records.outcomes import Failure, Waveform
 from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
@@ -105,8 +105,7 @@ def describe(p: Work) -> list[tuple[str, str]]:
     raise TypeError(f"not a sweep point: {p!r}")
 
 
-def csv_text(config: LibraryConfig, failure: Failure) -> str:
-    w = failure.waveform
+def csv_text(config: LibraryConfig, failure: Failure, w: Waveform) -> str:
     names = [name for name, _ in w.nodes]
     lines = [
         "# charflow: the simulation of a point that gave no measurement",
@@ -140,8 +139,7 @@ def _levels(config: LibraryConfig) -> dict[float, list[str]]:
     return uses
 
 
-def png_bytes(config: LibraryConfig, failure: Failure) -> bytes:
-    w = failure.waveform
+def png_bytes(config: LibraryConfig, failure: Failure, w: Waveform) -> bytes:
     fig = Figure(figsize=(8.0, 4.8))
     FigureCanvasAgg(fig)
     ax = fig.add_subplot()
@@ -189,10 +187,10 @@ def write(
     written = []
     where = paths(failures)
     for f in failures:
-        if f.point not in where:
+        if f.point not in where or f.waveform is None:  # ``paths`` left it out: no waveform
             continue
         csv_path, png_path = (out_dir / p for p in where[f.point])
-        write_atomic(csv_path, csv_text(config, f))
-        write_atomic(png_path, png_bytes(config, f))
+        write_atomic(csv_path, csv_text(config, f, f.waveform))
+        write_atomic(png_path, png_bytes(config, f, f.waveform))
         written += [csv_path, png_path]
     return written

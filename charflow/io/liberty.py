@@ -22,6 +22,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 
@@ -319,14 +320,18 @@ def _value_scale(config: LibraryConfig, table: Table) -> float:
     return {"s": config.time_scale, "F": config.cap_scale, "J": config.cap_scale}[table.unit]
 
 
-def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[tuple, str]:
+# A table template's key: its axes' names and index values.
+TemplateKey = tuple[tuple[str, tuple[float, ...]], ...]
+
+
+def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[TemplateKey, str]:
     """Template name per distinct (axis names, index values)."""
     tables = [t for cell in cells for arc in cell.arcs for t in arc.default]
     tables += [t for cell in cells for c in cell.constraints for t in c.tables]
     return _template_names(tables, "grid")
 
 
-def power_templates(cells: Iterable[CellPower]) -> dict[tuple, str]:
+def power_templates(cells: Iterable[CellPower]) -> dict[TemplateKey, str]:
     """Power template name per distinct (axis names, index values)."""
     tables = [t for cell in cells for a in cell.arcs for t in a.default]
     tables += [t for cell in cells for a in cell.arcs for _, ts in a.states for t in ts]
@@ -334,9 +339,9 @@ def power_templates(cells: Iterable[CellPower]) -> dict[tuple, str]:
     return _template_names(tables, "energy")
 
 
-def _template_names(tables: Iterable[Table], prefix: str) -> dict[tuple, str]:
+def _template_names(tables: Iterable[Table], prefix: str) -> dict[TemplateKey, str]:
     """One template name per distinct (axis names, index values), in order of first use."""
-    names: dict[tuple, str] = {}
+    names: dict[TemplateKey, str] = {}
     for table in tables:
         key = tuple((a.name, a.values) for a in table.axes)
         if key not in names:
@@ -345,7 +350,7 @@ def _template_names(tables: Iterable[Table], prefix: str) -> dict[tuple, str]:
     return names
 
 
-def _template_of(names: dict[tuple, str], table: Table) -> str:
+def _template_of(names: dict[TemplateKey, str], table: Table) -> str:
     return names[tuple((a.name, a.values) for a in table.axes)]
 
 
@@ -374,7 +379,7 @@ def _timing_type(config: LibraryConfig, arc: ArcTables) -> str:
 def _timing_group(
     w: _Writer,
     config: LibraryConfig,
-    names: dict[tuple, str],
+    names: dict[TemplateKey, str],
     arc: ArcTables,
     tables: tuple[Table, ...],
     state: State | None = None,
@@ -389,7 +394,7 @@ def _timing_group(
         w.attr("related_output_pin", f'"{spec.other}"')
     w.attr("timing_sense", state.sense if state is not None else spec.sense)
     w.attr("timing_type", _timing_type(config, arc))
-    if when:
+    if state is not None and when:
         w.attr("when", f'"{when}"')
         w.attr("sdf_cond", f'"{logic.sdf_condition(state.side)}"')
     by_quantity = {t.quantity: t for t in tables}
@@ -404,7 +409,7 @@ def _timing_group(
 def _internal_power(
     w: _Writer,
     config: LibraryConfig,
-    names: dict[tuple, str],
+    names: dict[TemplateKey, str],
     tables: Iterable[Table],
     related: str = "",
     when: str = "",
@@ -494,7 +499,9 @@ def _library_attributes(w: _Writer, config: LibraryConfig, limit: Limits) -> Non
         w.attr("default_max_capacitance", _fmt(limit.default_max_capacitance / config.cap_scale))
 
 
-def _templates(w: _Writer, config: LibraryConfig, group: str, names: dict[tuple, str]) -> None:
+def _templates(
+    w: _Writer, config: LibraryConfig, group: str, names: dict[TemplateKey, str]
+) -> None:
     for key, name in names.items():
         w.open(group, name)
         for k, (axis_name, _) in enumerate(key, 1):
@@ -509,8 +516,8 @@ class _Context:
     """What every cell's groups are written with."""
 
     config: LibraryConfig
-    names: dict[tuple, str]
-    energy_names: dict[tuple, str]
+    names: dict[TemplateKey, str]
+    energy_names: dict[TemplateKey, str]
     limits: Limits
 
 
@@ -543,8 +550,10 @@ def _input_pin(
     for h in (h for h in (energy.hidden if energy else ()) if h.pin == pin.pin):
         _internal_power(w, config, ctx.energy_names, h.tables, when=h.when)
     # A pulse no width failed has no minimum: left out (``tabulate`` warns).
-    for pulse in (p for p in cell.pulses if p.pin == pin.pin and p.width is not None):
-        w.attr(f"min_pulse_width_{pulse.level}", _fmt(pulse.width / config.time_scale))
+    for level, width in (
+        (p.level, p.width) for p in cell.pulses if p.pin == pin.pin and p.width is not None
+    ):
+        w.attr(f"min_pulse_width_{level}", _fmt(width / config.time_scale))
     for c in (c for c in cell.constraints if c.pin == pin.pin):
         w.open("timing")
         w.attr("related_pin", f'"{c.related}"')
@@ -568,12 +577,14 @@ def _output_pin(
         if len(arc.states) > 1:
             for st in arc.states:
                 _timing_group(w, config, ctx.names, arc, st.tables, st.state)
-    for arc in (a for a in (energy.arcs if energy else ()) if a.arc.output == out):
-        related, other = arc.arc.related, arc.arc.other
+    for power in (a for a in (energy.arcs if energy else ()) if a.arc.output == out):
+        related, other = power.arc.related, power.arc.other
         owner = (spec.name, out)
-        _internal_power(w, config, ctx.energy_names, arc.default, related, other=other, owner=owner)
-        if len(arc.states) > 1:
-            for state, tables in arc.states:
+        _internal_power(
+            w, config, ctx.energy_names, power.default, related, other=other, owner=owner
+        )
+        if len(power.states) > 1:
+            for state, tables in power.states:
                 _internal_power(
                     w, config, ctx.energy_names, tables, related, state.when, other, owner
                 )
@@ -642,7 +653,7 @@ def render(
 
 def describe(
     config: LibraryConfig, cells: tuple[CellTables, ...], powers: Iterable[CellPower] = ()
-) -> dict:
+) -> dict[str, Any]:
     """For the JSON: the Liberty files, the reduction of the default file and the limits (SI)."""
     default, full = file_names(config)
     limit = limits(config, cells, powers)

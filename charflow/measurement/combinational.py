@@ -17,7 +17,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from charflow.config.library import CellSpec, LibraryConfig
+from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
 from charflow.measurement import stepsize
 from charflow.measurement.waves import (
     KeepWaveform,
@@ -51,7 +51,7 @@ from charflow.simulation.backends import (
     SubprocessBackend,
 )
 from charflow.simulation.netlist import PARKED_LOAD, Deck
-from charflow.simulation.session import SESSION
+from charflow.simulation.session import SESSION, BoundedCache
 
 log = logging.getLogger("charflow")
 
@@ -165,7 +165,10 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     raise SimulatorError(reason, cell=request.deck.cell)
 
 
-_STATIC = SESSION.cache("static current")  # by testbench and input vector
+# by testbench and input vector
+_STATIC: BoundedCache[tuple[str, tuple[tuple[str, bool], ...]], float] = SESSION.cache(
+    "static current"
+)
 
 
 def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -> float:
@@ -327,10 +330,13 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
 
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
 # calibrated once per process (``stepsize``).
-_SERIES = SESSION.cache("edge models")
+_Calibrated = tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]
+_SERIES: BoundedCache[tuple[str, TimingPoint, Grid, Thresholds, Simulation], _Calibrated] = (
+    SESSION.cache("edge models")
+)
 
 
-def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple:
+def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> _Calibrated:
     # Everything the probes depend on: the testbench, the grid's corners, how points are run.
     key = (
         deck.key,
@@ -361,9 +367,7 @@ def first_step(config: LibraryConfig, deck: Deck, point: TimingPoint) -> float:
     return stepsize.step_for(config, model_for(config, deck, point), point)
 
 
-def _calibrate(
-    config: LibraryConfig, deck: Deck, point: TimingPoint
-) -> tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]:
+def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> _Calibrated:
     grid = config.cell(point.cell).grid
     thr = config.thresholds
     vdd = config.process.vdd

@@ -34,7 +34,7 @@ from charflow.records.outcomes import EventEnergy, LeakageState
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request, Result
 from charflow.simulation.netlist import PARKED_LOAD, Deck
-from charflow.simulation.session import SESSION
+from charflow.simulation.session import SESSION, BoundedCache
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
 
@@ -67,7 +67,7 @@ def _hold_waves(
     """Waves that store ``state`` with one active clock edge (the grid's sharpest slew) and
     then move every input to ``vector`` with no active edge; and the time the inputs start to
     move (sharpest-slew ramps), a quarter period after the clock's last edge: no hold risk."""
-    cell, flop = bench.cell, bench.cell.flop
+    cell, flop = bench.cell, bench.cell.flip_flop
     small = min(cell.grid.slew)
     active = stimulus.ramp(small, flop.edge, bench.thr, bench.vdd)
     v_inactive, v_active = active.levels
@@ -85,7 +85,9 @@ def _hold_waves(
     return waves, move
 
 
-_STATIC = SESSION.cache("flip-flop static current")
+_STATIC: BoundedCache[tuple[str, bool, tuple[tuple[str, bool], ...]], float] = SESSION.cache(
+    "flip-flop static current"
+)
 
 
 def _hold_request(

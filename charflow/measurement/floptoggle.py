@@ -71,7 +71,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
             first = stimulus.ramp(min(cell.grid.slew), "rise" if before else "fall", thr, vdd)
             flat = event.start - move - first.duration
             waves[point.related] = stimulus.pulse_vector(
-                *reversed(event.levels), move, first.duration, event.duration, flat, 2.0
+                *event.levels[::-1], move, first.duration, event.duration, flat, 2.0
             )
     stop = event.end + bench.window
     outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}

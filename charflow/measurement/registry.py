@@ -29,6 +29,7 @@ from charflow.records.outcomes import (
     LeakageResult,
     LeakageState,
     Outcome,
+    waveform_of,
 )
 from charflow.records.points import (
     ConstraintPoint,
@@ -110,7 +111,7 @@ def measure_chunk(
         except SimulatorHungError:
             raise
         except (MeasurementError, SimulatorError, FunctionalMismatchError) as exc:
-            wave = exc.waveform if isinstance(exc, MeasurementError) else None
+            wave = waveform_of(exc) if isinstance(exc, MeasurementError) else None
             told = explain(config, point, exc)
             cut = isinstance(exc, CutOffError)
             context = tuple((k, str(v)) for k, v in told.context.items())

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from charflow.config.library import CellSpec, LibraryConfig, Thresholds
+from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
 from charflow.measurement import ffpower
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
@@ -38,12 +38,20 @@ from charflow.measurement.waves import (
 )
 from charflow.plan.arcs import capture_values, inactive_controls, plan, stored_output
 from charflow.records.errors import FunctionalMismatchError, MeasurementError
-from charflow.records.outcomes import FULL, RUNT, EventEnergy, Measurement, SearchResult
+from charflow.records.outcomes import (
+    FULL,
+    RUNT,
+    EventEnergy,
+    Measurement,
+    SearchResult,
+    Waveform,
+    waveform_of,
+)
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
-from charflow.simulation.session import SESSION
+from charflow.simulation.session import SESSION, BoundedCache
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
 
@@ -73,7 +81,9 @@ class Outcome:
         return self.t_out - self.t_event
 
 
-_WINDOWS = SESSION.cache("settle windows")
+_WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation], float] = SESSION.cache(
+    "settle windows"
+)
 
 
 def _bench(config: LibraryConfig, deck: Deck, window: float | None = None) -> Timeline:
@@ -277,6 +287,7 @@ def measure_clocked(
     )
     (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
+    assert energy is not None and outcome.stopped is not None  # run_event with states gives both
     return Measurement(
         point=point,
         delay=outcome.delay,
@@ -301,7 +312,7 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
     the data moves (the latch that captures is open: the pins' load as a driver sees it while
     setting up); then the measured edge. Charge windows: each data pin over its edge, the clock
     over its inactive edge (until the data moves) and over its measured edge."""
-    cell, flop = bench.cell, bench.cell.flop
+    cell, flop = bench.cell, bench.cell.flip_flop
     new, old = dict(point.side), capture_values(cell, not stored)
     clock, event = bench.clock(point.slew, edges=2)
     change = event.start - bench.half / 2
@@ -326,7 +337,7 @@ def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
     (its currents have died down and stay out of the event's energy window) the control is
     asserted again: the measured event. Charge windows: the release until the clock edge, the
     assertion until the run's end."""
-    cell, flop, thr, vdd = bench.cell, bench.cell.flop, bench.thr, bench.vdd
+    cell, flop, thr, vdd = bench.cell, bench.cell.flip_flop, bench.thr, bench.vdd
     waves = {
         p: stimulus.constant(bench.level(v)) for p, v in capture_values(cell, not stored).items()
     }
@@ -390,14 +401,14 @@ class _Trials:
         self.config, self.deck = config, deck
         self.runs, self.seconds = 0, 0.0
         self.reference: float | None = None
-        self.failed = None  # the waveform of the last trial that gave no measurement
+        self.failed: Waveform | None = None  # the waveform of the last failed trial
 
     def __call__(self, waves, loads, **kw) -> Outcome | None:
         try:
             outcome, runs, seconds = run_event(self.config, self.deck, waves, loads, **kw)
         except MeasurementError as exc:
             self.runs += 1
-            self.failed = exc.waveform
+            self.failed = waveform_of(exc)
             return None
         self.runs, self.seconds = self.runs + runs, self.seconds + seconds
         return outcome
@@ -611,7 +622,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
 def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
     """The pass test of a clock pulse by its width (full swing: a flat top of the width less
     the edges'), and a relaxed width: two writes, the second must capture in time."""
-    cell, flop = bench.cell, bench.cell.flop
+    cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     stored = True
@@ -643,7 +654,7 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
 def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
     """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
     relaxed width: with the other value stored, the pulse must force the control's value."""
-    cell, flop = bench.cell, bench.cell.flop
+    cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     stored = flop.preset is not None and point.pin in flop.preset.variables()

@@ -9,6 +9,7 @@ than once, or has not settled by the end is a MeasurementError, never a number.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from typing import Literal
 
 import numpy as np
 
@@ -31,7 +32,7 @@ class KeepWaveform:
     def __enter__(self) -> None:
         return None
 
-    def __exit__(self, kind: object, exc: BaseException | None, tb: object) -> bool:
+    def __exit__(self, kind: object, exc: BaseException | None, tb: object) -> Literal[False]:
         if isinstance(exc, MeasurementError) and exc.waveform is None:
             exc.waveform = self.capture()
         return False

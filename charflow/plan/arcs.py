@@ -112,6 +112,7 @@ def _flop_arcs(cell: CellSpec) -> tuple[Arc, ...]:
 def control_edge(cell: CellSpec, arc: Arc) -> str:
     """The edge of an asynchronous control pin that asserts it."""
     expr = cell.flip_flop.clear if arc.kind == "clear" else cell.flip_flop.preset
+    assert expr is not None  # a clear or preset arc comes from the cell's clear or preset
     return "rise" if expr.evaluate({arc.related: True}) else "fall"
 
 

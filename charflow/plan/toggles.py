@@ -34,7 +34,7 @@ def _chosen(config: LibraryConfig, cells: list[str] | None) -> list[CellSpec]:
 def plan_toggles(config: LibraryConfig, cells: list[str] | None = None) -> tuple[TogglePoint, ...]:
     """Every hidden toggle of the chosen cells: pin × side state × input edge × slew (and for a
     flip-flop × stored value, ``flop_toggles``)."""
-    points = []
+    points: list[TogglePoint] = []
     for cell in _chosen(config, cells):
         if cell.flop is not None:
             points.extend(flop_toggles(cell))

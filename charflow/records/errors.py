@@ -8,6 +8,7 @@ Raise with ``from`` when wrapping a lower-level exception.
 from __future__ import annotations
 
 import copy
+from collections.abc import Mapping
 
 _CONTEXT_ORDER = ("file", "line", "key", "cell", "pin", "arc", "state", "point", "vector")
 
@@ -42,7 +43,7 @@ class CharflowError(Exception):
         return other
 
 
-def place(context: dict[str, object]) -> str:
+def place(context: Mapping[str, object]) -> str:
     """Where a message is about, as errors say it: ``cell QINV_P1, arc A->Y (...), point ...``."""
     return ", ".join(f"{k} {context[k]}" for k in _CONTEXT_ORDER if k in context)
 
@@ -54,7 +55,9 @@ class ConfigError(CharflowError):
 class ConfigProblemsError(ConfigError):
     """Several problems in one config file; ``problems`` holds each as its own ConfigError."""
 
-    def __init__(self, problems: list[ConfigError] | tuple[ConfigError, ...], **context) -> None:
+    def __init__(
+        self, problems: list[ConfigError] | tuple[ConfigError, ...], **context: object
+    ) -> None:
         self.problems = tuple(problems)
         listed = "\n  ".join(map(str, self.problems))
         super().__init__(f"{len(self.problems)} problems in the config:\n  {listed}", **context)
@@ -88,8 +91,9 @@ class SimulatorHungError(SimulatorError):
 class MeasurementError(CharflowError):
     """A waveform does not give a measurement: no crossing, a glitch, or not settled.
 
-    ``waveform`` (a ``measure.Waveform``) holds the simulated vectors that failed, once a
-    simulation ran, so the point can be inspected.
+    ``waveform`` (a ``records.outcomes.Waveform``; ``outcomes.waveform_of`` reads it typed:
+    outcomes imports this module, which cannot name the type) holds the simulated vectors that
+    failed, once a simulation ran, so the point can be inspected.
     """
 
     def __init__(self, message: str, *, waveform: object = None, **context: object) -> None:

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from charflow.records.errors import MeasurementError
 from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
@@ -35,6 +36,11 @@ class Waveform:
 
     time: np.ndarray  # s
     nodes: tuple[tuple[str, np.ndarray], ...]  # (name, V), e.g. the pin a node belongs to
+
+
+def waveform_of(exc: MeasurementError) -> Waveform | None:
+    """The waveform ``exc`` carries, if one was kept."""
+    return exc.waveform if isinstance(exc.waveform, Waveform) else None
 
 
 @dataclass(frozen=True, slots=True)

@@ -96,7 +96,7 @@ class TimingPoint:
     FILLABLE: ClassVar[bool] = True  # gap filling may fill it from its table's neighbours
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         """The table row the point belongs to: the arc, its state and edges, without the grid
         coordinates."""
         return (
@@ -163,7 +163,7 @@ class ConstraintPoint:
     FILLABLE: ClassVar[bool] = True  # gap filling may fill it from its table's neighbours
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         return (
             "constraint",
             self.cell,
@@ -211,7 +211,7 @@ class PulsePoint:
     FILLABLE: ClassVar[bool] = False
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         return ("pulse", self.cell, self.pin, self.level)
 
     @property
@@ -257,7 +257,7 @@ class TogglePoint:
     FILLABLE: ClassVar[bool] = False
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         return ("toggle", self.cell, self.related, self.side, self.state, self.input_edge)
 
     @property
@@ -291,7 +291,7 @@ class LeakagePoint:
     FILLABLE: ClassVar[bool] = False
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         return ("leakage", self.cell)
 
     @property
@@ -322,7 +322,7 @@ class FunctionPoint:
     FILLABLE: ClassVar[bool] = False
 
     @property
-    def series(self) -> tuple:
+    def series(self) -> tuple[object, ...]:
         return ("function", self.cell)
 
     @property

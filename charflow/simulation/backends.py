@@ -19,6 +19,7 @@ import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -85,7 +86,7 @@ class Result:
     seconds: float  # wall time of the analysis
 
 
-def _simulator_class() -> type:
+def _simulator_class() -> type[Any]:
     """PySpice's simulator, told when a run in ngspice's background thread ends."""
     from PySpice.Spice.NgSpice.Shared import NgSpiceShared, ffi
 
@@ -327,11 +328,12 @@ class SubprocessBackend:
     name = "subprocess"
 
     def __init__(self, timeout: float = 60.0, executable: str | None = None) -> None:
-        self._exe = executable or shutil.which("ngspice")
-        if self._exe is None:
+        exe = executable or shutil.which("ngspice")
+        if exe is None:
             raise SimulatorError(
                 "ngspice is not on PATH; install it (Debian: apt-get install ngspice)"
             )
+        self._exe = exe
         self.timeout = timeout
         self._version: str | None = None
 

@@ -11,26 +11,30 @@ from __future__ import annotations
 
 from collections import OrderedDict
 from collections.abc import Hashable
+from typing import Any, TypeVar
 
 from charflow.config.library import Simulation
 from charflow.simulation.backends import SharedBackend, SubprocessBackend, make_backend
 
 CACHE_LIMIT = 4096  # entries per cache
 
+K = TypeVar("K", bound=Hashable)
+V = TypeVar("V")
 
-class BoundedCache(OrderedDict):
+
+class BoundedCache(OrderedDict[K, V]):
     """A dict that keeps its ``limit`` most recently used entries."""
 
     def __init__(self, limit: int) -> None:
         super().__init__()
         self.limit = limit
 
-    def __getitem__(self, key: Hashable) -> object:
+    def __getitem__(self, key: K) -> V:
         value = super().__getitem__(key)
         self.move_to_end(key)
         return value
 
-    def __setitem__(self, key: Hashable, value: object) -> None:
+    def __setitem__(self, key: K, value: V) -> None:
         super().__setitem__(key, value)
         self.move_to_end(key)
         while len(self) > self.limit:
@@ -43,7 +47,7 @@ class Session:
     def __init__(self, limit: int = CACHE_LIMIT) -> None:
         self.limit = limit
         self._backends: dict[str, SharedBackend | SubprocessBackend] = {}
-        self._caches: dict[str, BoundedCache] = {}
+        self._caches: dict[str, BoundedCache[Any, Any]] = {}
 
     def backend(self, sim: Simulation) -> SharedBackend | SubprocessBackend:
         """The process's simulator of ``sim.backend``, made on first use and kept."""
@@ -53,7 +57,8 @@ class Session:
         backend.timeout = sim.timeout  # one simulator serves every config the process meets
         return backend
 
-    def cache(self, name: str) -> BoundedCache:
+    def cache(self, name: str) -> BoundedCache[Any, Any]:
+        """The cache ``name``; its user declares what it keeps (``BoundedCache[K, V]``)."""
         if name not in self._caches:
             self._caches[name] = BoundedCache(self.limit)
         return self._caches[name]

@@ -38,7 +38,7 @@ class Timeline:
         ``start`` (``lead`` by default); ``high`` and ``low`` set the flat time of the active
         and of the inactive phase (pulse widths). Returns the vector and the ramp of the last
         active edge."""
-        flop = self.cell.flop
+        flop = self.cell.flip_flop
         active = stimulus.ramp(slew, flop.edge, self.thr, self.vdd)
         back = stimulus.ramp(slew, "fall" if flop.edge == "rise" else "rise", self.thr, self.vdd)
         v1, v2 = active.levels

@@ -26,9 +26,10 @@ from dataclasses import dataclass
 
 from charflow.records.errors import ConfigError
 from charflow.records.outcomes import INTERNAL, Failure, Measurement, SearchResult
-from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, Work
+from charflow.records.points import ConstraintPoint, Plan, Point, PulsePoint, TimingPoint, Work
 
 METHODS = ("linear", "nearest")
+Record = Measurement | SearchResult  # what a measured (or filled) fillable point has
 ROW, COLUMN = 1, 0  # the axes ``linear`` goes along, first and as a fallback
 
 
@@ -62,7 +63,7 @@ class GapReport:
         return tuple(u.failure for u in self.unfilled)
 
 
-def _place(p: Work) -> tuple[tuple, tuple[float, ...], tuple[str, ...]] | None:
+def _place(p: Work) -> tuple[tuple[object, ...], tuple[float, ...], tuple[str, ...]] | None:
     """(table key, coordinates, axis names) of a point that sits on a fillable grid."""
     if not p.FILLABLE:
         return None
@@ -74,18 +75,18 @@ class _Grid:
 
     def __init__(self, names: tuple[str, ...]) -> None:
         self.names = names
-        self.values: list[set] = [set() for _ in names]
-        self.measured: dict[tuple, Measurement | SearchResult] = {}
-        self._positions: list[dict] | None = None
+        self.values: list[set[float]] = [set() for _ in names]
+        self.measured: dict[tuple[float, ...], Record] = {}
+        self._positions: list[dict[float, int]] | None = None
 
-    def index(self, coords: tuple) -> tuple[int, ...]:
+    def index(self, coords: tuple[float, ...]) -> tuple[int, ...]:
         if self._positions is None:
             self._positions = [{v: i for i, v in enumerate(sorted(vs))} for vs in self.values]
         return tuple(pos[c] for pos, c in zip(self._positions, coords, strict=True))
 
 
-def _grids(plan: Plan, measurements: Sequence[Measurement | SearchResult]) -> dict[tuple, _Grid]:
-    grids: dict[tuple, _Grid] = {}
+def _grids(plan: Plan, measurements: Sequence[Record]) -> dict[tuple[object, ...], _Grid]:
+    grids: dict[tuple[object, ...], _Grid] = {}
     for p in plan.points:
         place = _place(p)
         if place is not None:
@@ -100,7 +101,7 @@ def _grids(plan: Plan, measurements: Sequence[Measurement | SearchResult]) -> di
     return grids
 
 
-def _linear(grid: _Grid, coords: tuple) -> tuple[list, list[float], str] | None:
+def _linear(grid: _Grid, coords: tuple[float, ...]) -> tuple[list[Record], list[float], str] | None:
     """Sources and weights along the row, else the column; None when neither has two."""
     for axis in (ROW, COLUMN):
         line = sorted(
@@ -127,12 +128,14 @@ def _linear(grid: _Grid, coords: tuple) -> tuple[list, list[float], str] | None:
     return None
 
 
-def _nearest(grid: _Grid, coords: tuple) -> tuple[list, list[float], str] | None:
+def _nearest(
+    grid: _Grid, coords: tuple[float, ...]
+) -> tuple[list[Record], list[float], str] | None:
     if not grid.measured:
         return None
     here = grid.index(coords)
 
-    def rank(item) -> tuple:
+    def rank(item: tuple[tuple[float, ...], Record]) -> tuple[int, bool, tuple[int, ...]]:
         there = grid.index(item[0])
         distance = sum(abs(a - b) for a, b in zip(here, there, strict=True))
         same_row = all(a == b for k, (a, b) in enumerate(zip(here, there, strict=True)) if k != ROW)
@@ -142,28 +145,36 @@ def _nearest(grid: _Grid, coords: tuple) -> tuple[list, list[float], str] | None
     return [m], [1.0], "grid"
 
 
-def _mix(values: Sequence[float | None], weights: Sequence[float]) -> float | None:
-    if any(v is None for v in values):
-        return None
+def _mix(values: Sequence[float], weights: Sequence[float]) -> float:
     return float(sum(w * v for w, v in zip(weights, values, strict=True)))
 
 
-def _record(point: Point, sources: list, weights: list[float]) -> Measurement | SearchResult:
+def _mix_known(values: Sequence[float | None], weights: Sequence[float]) -> float | None:
+    """The mix where every source has the value, else None."""
+    known = [v for v in values if v is not None]
+    return _mix(known, weights) if len(known) == len(values) else None
+
+
+def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
+    # A grid holds one kind of point (its key starts with the kind): its sources are alike.
     if isinstance(point, ConstraintPoint):
-        return SearchResult(point, _mix([s.value for s in sources], weights), 0, 0.0)
+        values = [s.value for s in sources if isinstance(s, SearchResult)]
+        return SearchResult(point, _mix_known(values, weights), 0, 0.0)
+    assert isinstance(point, TimingPoint)  # the only other FILLABLE kind
+    measured = [s for s in sources if isinstance(s, Measurement)]
     side = []
-    for k, (pin, edge, _) in enumerate(sources[0].side_charges):
-        side.append((pin, edge, _mix([s.side_charges[k][2] for s in sources], weights)))
+    for k, (pin, edge, _) in enumerate(measured[0].side_charges):
+        side.append((pin, edge, _mix([s.side_charges[k][2] for s in measured], weights)))
     return Measurement(
         point=point,
-        delay=_mix([s.delay for s in sources], weights),
-        transition=_mix([s.transition for s in sources], weights),
-        input_charge=_mix([s.input_charge for s in sources], weights),
+        delay=_mix([s.delay for s in measured], weights),
+        transition=_mix([s.transition for s in measured], weights),
+        input_charge=_mix([s.input_charge for s in measured], weights),
         runs=0,
         sim_seconds=0.0,
         stopped=0.0,  # never written: a filled record gives its values only
-        supply_energy=_mix([s.supply_energy for s in sources], weights),
-        internal_energy=_mix([s.internal_energy for s in sources], weights),
+        supply_energy=_mix_known([s.supply_energy for s in measured], weights),
+        internal_energy=_mix_known([s.internal_energy for s in measured], weights),
         side_charges=tuple(side),
     )
 

@@ -3,15 +3,17 @@ side state, and leakage per state, from the sweep's measurements."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+import numpy.typing as npt
 
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.plan.toggles import _chosen, flop_toggles, hidden_states
 from charflow.records import logic
 from charflow.records.names import power_quantity
-from charflow.records.outcomes import LeakageState, Measurement, ToggleMeasurement
+from charflow.records.outcomes import LeakageState, Measurement, Outcome, ToggleMeasurement
 from charflow.records.points import EDGES, Arc, Plan, State
 from charflow.tables.table import Axis, Table
 from charflow.tables.tabulate import arc_axes, grid_table
@@ -98,18 +100,24 @@ def _hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tuple[Pi
         for side in hidden_states(cell, pin):
             tables = []
             for edge in EDGES:
-                row = [energy.get((pin, side, edge, s)) for s in cell.grid.slew]
-                if all(e is not None for e in row):
+                row = _full_row([energy.get((pin, side, edge, s)) for s in cell.grid.slew])
+                if row is not None:
                     tables.append(Table(axes, row, power_quantity(edge), "J"))
             if tables:
                 out.append(PinPower(pin, logic.when_condition(side), tuple(tables)))
     return tuple(out)
 
 
+def _full_row(row: list[float | None]) -> npt.NDArray[np.float64] | None:
+    """The energies of a row where it has one at every slew, else None."""
+    known = [e for e in row if e is not None]
+    return np.array(known, dtype=np.float64) if len(known) == len(row) else None
+
+
 def tabulate(
     config: LibraryConfig,
     plan: Plan,
-    results: list,
+    results: Sequence[Outcome],
     toggles: list[ToggleMeasurement],
     leakage_states: dict[str, tuple[LeakageState, ...]],
 ) -> tuple[CellPower, ...]:
@@ -143,8 +151,8 @@ def _flop_hidden_tables(cell: CellSpec, toggles: list[ToggleMeasurement]) -> tup
     for key in dict.fromkeys((p.related, p.side, p.state) for p in flop_toggles(cell)):
         tables = []
         for edge in EDGES:
-            row = [energy.get((*key, edge, s)) for s in cell.grid.slew]
-            if all(e is not None for e in row):
+            row = _full_row([energy.get((*key, edge, s)) for s in cell.grid.slew])
+            if row is not None:
                 tables.append(Table(axes, row, power_quantity(edge), "J"))
         if tables:
             when = logic.when_condition((*key[1], *key[2]))

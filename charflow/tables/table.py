@@ -114,7 +114,8 @@ class Table:
             and bool(np.array_equal(self.values, other.values))
         )
 
-    # Equal tables would have to hash equal, and an ndarray has no hash.
+    # Equal tables would have to hash equal, and an ndarray has no hash. (typeshed types
+    # __hash__ as a method; None is the language's way to make instances unhashable.)
     __hash__ = None  # type: ignore[assignment]
 
     @property
@@ -228,7 +229,8 @@ def interpolate(table: Table, points: npt.ArrayLike) -> npt.NDArray[np.float64]:
     corners = np.empty((n,) + (2,) * ndim, dtype=np.float64)
     for bits in itertools.product((0, 1), repeat=ndim):
         index = tuple(hi if bit else lo for (lo, hi, _), bit in zip(brackets, bits, strict=True))
-        corners[(slice(None), *bits)] = table.values[index]
+        corner: tuple[slice | int, ...] = (slice(None), *bits)
+        corners[corner] = table.values[index]
     # Collapse one axis at a time, last first. (1 - t) * a + t * b rather than a + t * (b - a):
     # at t = 0 or t = 1 it returns a grid value exactly.
     for k in reversed(range(ndim)):

@@ -8,6 +8,7 @@ by point, the largest value over its sensitizing states.
 from __future__ import annotations
 
 import logging
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,7 +17,7 @@ from charflow.config.library import CellSpec, LibraryConfig
 from charflow.measurement.combinational import pin_capacitance
 from charflow.records.errors import TableError
 from charflow.records.names import delay_quantity, transition_quantity
-from charflow.records.outcomes import Measurement, SearchResult
+from charflow.records.outcomes import Measurement, Outcome, SearchResult
 from charflow.records.points import Arc, ConstraintPoint, Plan, PulsePoint, State
 from charflow.tables.table import Axis, Table
 
@@ -113,7 +114,8 @@ def grid_table(
     cell: CellSpec,
     axes: tuple[Axis, ...],
     quantity: str,
-    values: dict[tuple, float],
+    # None (a point measured without the quantity) becomes NaN, which Table rejects by index
+    values: Mapping[tuple[float, ...], float | None],
     unit: str,
     arc: str | None = None,
 ) -> Table:
@@ -159,22 +161,20 @@ def _state_tables(
 
 def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[ConstraintTables, ...]:
     out = []
-    groups: dict[tuple[str, str], list[SearchResult]] = {}
+    groups: dict[tuple[str, str], list[tuple[ConstraintPoint, float | None]]] = {}
     for r in results:
         if isinstance(r.point, ConstraintPoint):
-            groups.setdefault((r.point.constrained, r.point.kind), []).append(r)
+            groups.setdefault((r.point.constrained, r.point.kind), []).append((r.point, r.value))
     slews = cell.grid.constraint_slew or cell.grid.slew
     axes = (Axis(CONSTRAINED_AXIS, slews), Axis(RELATED_AXIS, slews))
     for (pin, kind), group in groups.items():
         tables = []
         # A control's recovery and removal are for its releasing edge alone.
-        for edge in (e for e in ("rise", "fall") if any(r.point.data_edge == e for r in group)):
-            values = {r.point.coordinates: r.value for r in group if r.point.data_edge == edge}
+        for edge in (e for e in ("rise", "fall") if any(p.data_edge == e for p, _ in group)):
+            values = {p.coordinates: v for p, v in group if p.data_edge == edge}
             tables.append(grid_table(cell, axes, f"{edge}_constraint", values, "s"))
         out.append(
-            ConstraintTables(
-                pin, cell.flip_flop.clock, kind, group[0].point.clock_edge, tuple(tables)
-            )
+            ConstraintTables(pin, cell.flip_flop.clock, kind, group[0][0].clock_edge, tuple(tables))
         )
     return tuple(out)
 
@@ -193,10 +193,11 @@ def _pin_cap(cell: str, pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
     return found
 
 
-def _pulse_width(config: LibraryConfig, r: SearchResult) -> PulseWidth:
-    """A pulse search's result; one with no value is left out of the library, with a warning."""
-    p = r.point
+def _pulse_width(config: LibraryConfig, p: PulsePoint, r: SearchResult) -> PulseWidth:
+    """A pulse search's result (``r``, of point ``p``); one with no value is left out of the
+    library, with a warning."""
     if r.value is None:
+        assert r.bracket is not None  # a search with no value brackets the widths it tried
         tried = r.bracket[1] / config.time_scale
         log.warning(
             "cell %s, pin %s: min_pulse_width_%s left out: %s (%s pulse %.4g %s wide at the "
@@ -214,7 +215,9 @@ def _pulse_width(config: LibraryConfig, r: SearchResult) -> PulseWidth:
     return PulseWidth(p.pin, p.level, r.value, r.stimulus, r.bracket, r.note)
 
 
-def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTables, ...]:
+def tabulate(
+    config: LibraryConfig, plan: Plan, results: Sequence[Outcome]
+) -> tuple[CellTables, ...]:
     """Tables for every cell of the plan; every point of the plan must have a result."""
     cells = []
     for cell_name in dict.fromkeys(a.cell for a in plan.arcs):
@@ -227,7 +230,9 @@ def tabulate(config: LibraryConfig, plan: Plan, results: list) -> tuple[CellTabl
             arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
         caps = pin_capacitance(measured, config.process.vdd)
         pins = tuple(_pin_cap(cell_name, p, caps) for p in cell.inputs)
-        pulses = tuple(_pulse_width(config, r) for r in searches if isinstance(r.point, PulsePoint))
+        pulses = tuple(
+            _pulse_width(config, r.point, r) for r in searches if isinstance(r.point, PulsePoint)
+        )
         cells.append(
             CellTables(cell, tuple(arc_tables), pins, _constraints(cell, searches), pulses)
         )
