@@ -14,7 +14,7 @@ from __future__ import annotations
 import json
 import time
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -207,6 +207,33 @@ def select(
     return Plan(arcs, points)
 
 
+@dataclass
+class _Collected:
+    """What a run's sweep and store gave, sorted by kind as it arrives."""
+
+    measurements: list[Measurement | SearchResult] = field(default_factory=list)
+    failures: list[Failure] = field(default_factory=list)
+    toggles: list[ToggleMeasurement] = field(default_factory=list)
+    unmeasured: list[Failure] = field(default_factory=list)  # toggles that failed
+    leaks: dict[str, LeakageResult] = field(default_factory=dict)
+    reused: set[Work] = field(default_factory=set)
+
+    def keep(self, outcome: Outcome) -> None:
+        if isinstance(outcome, ToggleMeasurement):
+            self.toggles.append(outcome)
+        elif isinstance(outcome, LeakageResult):
+            self.leaks[outcome.point.cell] = outcome
+        elif isinstance(outcome, Failure):
+            toggle = isinstance(outcome.point, TogglePoint)
+            (self.unmeasured if toggle else self.failures).append(outcome)
+        elif isinstance(outcome, Measurement | SearchResult):  # function checks: ``verify``
+            self.measurements.append(outcome)
+
+    def sort(self, order: dict[Work, int]) -> None:
+        for outcomes in (self.measurements, self.failures, self.toggles, self.unmeasured):
+            outcomes.sort(key=lambda m: order[m.point])
+
+
 def characterize(
     config: LibraryConfig,
     *,
@@ -226,7 +253,8 @@ def characterize(
     Only the chosen ``cells`` (or ``arc``, see ``select``) are simulated. Without a store the
     library holds just those. With one it holds every cell of the config: points not chosen
     come from the store, from rows with the current inputs or else the newest row of their
-    slot (listed in ``stale``); a cell with a point the store never held is left out.
+    slot (listed in ``stale``); a cell with a point (or its leakage) the store never held is
+    left out.
     """
     start = time.perf_counter()
     if allow_gaps is not None:
@@ -241,35 +269,19 @@ def characterize(
     plausible.announce(config, names)  # before the first simulation
     decks = {n: build_deck(config, config.cell(n)) for n in names}
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
-    cell_points = leakage_points(config, names)
+    work = (*chosen.points, *toggle_points, *leakage_points(config, names))
     if on_start is not None:
-        on_start(sweep.work((*chosen.points, *toggle_points, *cell_points)))
-    measurements: list[Measurement | SearchResult] = []
-    failures: list[Failure] = []
-    toggles: list[ToggleMeasurement] = []
-    unmeasured: list[Failure] = []
-    leaks: dict[str, LeakageResult] = {}
-    reused: set[Work] = set()
-
-    def keep(outcome: Outcome) -> None:
-        if isinstance(outcome, ToggleMeasurement):
-            toggles.append(outcome)
-        elif isinstance(outcome, LeakageResult):
-            leaks[outcome.point.cell] = outcome
-        elif isinstance(outcome, Failure):
-            toggle = isinstance(outcome.point, TogglePoint)
-            (unmeasured if toggle else failures).append(outcome)
-        elif isinstance(outcome, Measurement | SearchResult):  # function checks: ``verify``
-            measurements.append(outcome)
+        on_start(sweep.work(work))
+    got = _Collected()
 
     def stored(found: tuple) -> None:
-        reused.update(m.point for m in found)
+        got.reused.update(m.point for m in found)
         if on_stored is not None:
             on_stored(found)
 
     for outcome in sweep.run(
         config,
-        (*chosen.points, *toggle_points, *cell_points),
+        work,
         jobs=jobs,
         on_result=on_result,
         store=store,
@@ -277,66 +289,89 @@ def characterize(
         scheduler=scheduler,
         decks=decks,
     ):
-        keep(outcome)
-    whole = chosen
+        got.keep(outcome)
+    whole, others = chosen, toggle_points
     stale: dict[Work, Stale] = {}
-    all_toggles = toggle_points
     if store is not None and cells is not None:
-        whole = planning.plan(config)
-        all_toggles = plan_toggles(config)
-        picked = {*chosen.points, *toggle_points, *cell_points}
-        every = (
-            *whole.points,
-            *all_toggles,
-            *leakage_points(config, [c.name for c in config.cells]),
-        )
-        rest = [p for p in every if p not in picked]
-        for c in {p.cell for p in rest} - set(decks):
-            decks[c] = build_deck(config, config.cell(c))
-        found, stale = store.latest(keyring(config, decks), rest)
-        for m in found.values():
-            keep(m)
-        reused.update(found)
-    have = {m.point for m in measurements} | {f.point for f in failures}
+        whole, others, stale = _the_rest(config, store, work, decks, got)
+    the_plan, left_out = _complete(whole, got)
+    got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
+    report = None
+    if got.failures and allow_gaps is not None:
+        # After the sweep, which has stored what it measured: filled values are never stored.
+        report = gaps.fill_gaps(the_plan, got.measurements, got.failures, allow_gaps)
+        got.failures = list(report.remaining)
+    tables, cell_power = _tabulate(config, the_plan, got, report)
+    return RunResult(
+        plan=the_plan,
+        measurements=tuple(got.measurements),
+        failures=tuple(got.failures),
+        cells=tables,
+        wall_seconds=time.perf_counter() - start,
+        provenance=made_by,
+        reused=frozenset(got.reused),
+        stale=tuple(s for p, s in stale.items() if p.cell not in left_out),
+        left_out=left_out,
+        toggles=tuple(got.toggles),
+        leakage=tuple(got.leaks[c] for c in names_in(the_plan) if c in got.leaks),
+        unmeasured=tuple(got.unmeasured),
+        cell_power=cell_power,
+        gap_report=report,
+    )
+
+
+def _the_rest(
+    config: LibraryConfig,
+    store: Store,
+    done: tuple[Work, ...],
+    decks: dict[str, Deck],
+    got: _Collected,
+) -> tuple[Plan, tuple[TogglePoint, ...], dict[Work, Stale]]:
+    """The whole library's plan and toggles, with the points this run did not simulate taken
+    from the store (``got`` keeps them; the newest row of a slot whose inputs changed is
+    listed as stale)."""
+    whole = planning.plan(config)
+    toggles = plan_toggles(config)
+    leakage = leakage_points(config, [c.name for c in config.cells])
+    picked = set(done)
+    rest = [p for p in (*whole.points, *toggles, *leakage) if p not in picked]
+    for c in {p.cell for p in rest} - set(decks):
+        decks[c] = build_deck(config, config.cell(c))
+    found, stale = store.latest(keyring(config, decks), rest)
+    for m in found.values():
+        got.keep(m)
+    got.reused.update(found)
+    return whole, toggles, stale
+
+
+def _complete(whole: Plan, got: _Collected) -> tuple[Plan, tuple[str, ...]]:
+    """The plan without the cells that miss a point (measured or failed) or their leakage."""
+    have = {m.point for m in got.measurements} | {f.point for f in got.failures}
     in_plan = dict.fromkeys(p.cell for p in whole.points)
-    left_out = tuple(c for c in in_plan if not all(p in have for p in whole.for_cell(c)))
+    left_out = tuple(
+        c
+        for c in in_plan
+        if c not in got.leaks
+        and not any(f.point.cell == c for f in got.failures)
+        or not all(p in have for p in whole.for_cell(c))
+    )
     the_plan = Plan(
         tuple(a for a in whole.arcs if a.cell not in left_out),
         tuple(p for p in whole.points if p.cell not in left_out),
     )
-    order: dict[Work, int] = {
-        p: i for i, p in enumerate((*whole.points, *all_toggles, *cell_points))
-    }
-    for outcomes in (measurements, failures, toggles, unmeasured):
-        outcomes.sort(key=lambda m: order[m.point])
-    report = None
-    if failures and allow_gaps is not None:
-        # After the sweep, which has stored what it measured: filled values are never stored.
-        report = gaps.fill_gaps(the_plan, measurements, failures, allow_gaps)
-        failures = list(report.remaining)
-    tables: tuple[CellTables, ...] = ()
-    cell_power: tuple[power_tables.CellPower, ...] = ()
-    if not failures:
-        done = [*measurements, *report.records] if report is not None else measurements
-        tables = tabulate(config, the_plan, done)
-        leaked = {c: r.states for c, r in leaks.items()}
-        cell_power = power_tables.tabulate(config, the_plan, done, toggles, leaked)
-    return RunResult(
-        plan=the_plan,
-        measurements=tuple(measurements),
-        failures=tuple(failures),
-        cells=tables,
-        wall_seconds=time.perf_counter() - start,
-        provenance=made_by,
-        reused=frozenset(reused),
-        stale=tuple(s for p, s in stale.items() if p.cell not in left_out),
-        left_out=left_out,
-        toggles=tuple(toggles),
-        leakage=tuple(leaks[c] for c in names_in(the_plan) if c in leaks),
-        unmeasured=tuple(unmeasured),
-        cell_power=cell_power,
-        gap_report=report,
-    )
+    return the_plan, left_out
+
+
+def _tabulate(
+    config: LibraryConfig, plan: Plan, got: _Collected, report: gaps.GapReport | None
+) -> tuple[tuple[CellTables, ...], tuple[power_tables.CellPower, ...]]:
+    """Timing and power tables of the plan's cells; none while any point failed."""
+    if got.failures:
+        return (), ()
+    done = [*got.measurements, *report.records] if report is not None else got.measurements
+    tables = tabulate(config, plan, done)
+    leaked = {c: r.states for c, r in got.leaks.items()}
+    return tables, power_tables.tabulate(config, plan, done, got.toggles, leaked)
 
 
 # The layout of the JSON document (charflow/bundled/schema/charflow-library.schema.json);
