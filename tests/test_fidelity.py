@@ -349,7 +349,7 @@ def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> N
                 assert axis.values[0] < x < axis.values[-1]
     check = next(c for c in report.checks if c.related == "CLK")
     probe = check.points[0]
-    series = fidelity.templates(cfg, check.cell)
+    series = fidelity.row_points(cfg, check.cell)
     arc = next(a.arc for a in result.cells[1].arcs if (a.arc.related, a.arc.output) == ("CLK", "Q"))
     template = fidelity.template_of(series, arc, arc.states[0], check.table.quantity)
     point = fidelity.timing_point(template, check.table.axes, probe.coords)

@@ -194,7 +194,7 @@ def output_edge(quantity: str) -> str:
     return quantity.removeprefix("cell_").removesuffix("_transition")
 
 
-def templates(config: LibraryConfig, cell: str) -> dict[tuple, TimingPoint]:
+def row_points(config: LibraryConfig, cell: str) -> dict[tuple, TimingPoint]:
     """A plan point of every (related pin, output, state, output edge) of ``cell``: what a
     point off the grid shares with it (side inputs, input edge, kind, a flip-flop's captured
     data; for a 3D table the other output's load, unless its axis is given)."""
@@ -205,21 +205,17 @@ def templates(config: LibraryConfig, cell: str) -> dict[tuple, TimingPoint]:
     return out
 
 
-def timing_point(
-    template: TimingPoint, axes: Sequence[Axis], coords: Sequence[float]
-) -> TimingPoint:
-    """The point of ``template``'s series at ``coords`` on ``axes``."""
+def timing_point(row: TimingPoint, axes: Sequence[Axis], coords: Sequence[float]) -> TimingPoint:
+    """The point of ``row``'s series at ``coords`` on ``axes``."""
     fields: dict[str, Any] = {}  # TimingPoint's coordinate fields
     for axis, value in zip(axes, coords, strict=True):
         if axis.name not in POINT_FIELDS:
-            raise TableError(
-                f"no sweep coordinate for table axis {axis.name!r}", cell=template.cell
-            )
+            raise TableError(f"no sweep coordinate for table axis {axis.name!r}", cell=row.cell)
         fields[POINT_FIELDS[axis.name]] = float(value)
-    return replace(template, **fields)
+    return replace(row, **fields)
 
 
-def template_of(
+def row_point_of(
     points: dict[tuple, TimingPoint], arc: Arc, state: State, quantity: str
 ) -> TimingPoint:
     side = state.side if arc.kind == "combinational" else ()
@@ -247,7 +243,7 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
     work = []
     for cell in cells:
         name = cell.cell.name
-        series = templates(config, name)
+        series = row_points(config, name)
         for arc in cell.arcs:
             # (table, states it is the worst of, when, default)
             targets: list[tuple[Table, tuple[State, ...], str, bool]] = [
@@ -266,7 +262,7 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
                 points = tuple(
                     tuple(
                         timing_point(
-                            template_of(series, arc.arc, s, table.quantity), table.axes, p.coords
+                            row_point_of(series, arc.arc, s, table.quantity), table.axes, p.coords
                         )
                         for s in states
                     )

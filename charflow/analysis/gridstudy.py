@@ -30,7 +30,7 @@ import numpy as np
 from scipy.interpolate import make_interp_spline
 from scipy.optimize import brentq
 
-from charflow.analysis.fidelity import measured, template_of, templates, timing_point
+from charflow.analysis.fidelity import measured, row_point_of, row_points, timing_point
 from charflow.analysis.reporting import axis_unit, head, library_units, pct
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
@@ -310,7 +310,7 @@ def table_label(key: tuple[str, str]) -> str:
 
 def _grid_points(series: dict, arc: Arc, axes: Sequence[Axis]) -> dict:
     """(key, index tuple) → the sweep point that measures it; ``series`` as
-    ``fidelity.templates`` gives it."""
+    ``fidelity.row_points`` gives it."""
     out = {}
     shape = [range(len(a)) for a in axes]
     for state in arc.states:
@@ -318,10 +318,10 @@ def _grid_points(series: dict, arc: Arc, axes: Sequence[Axis]) -> dict:
         edges = [state.output_edge(e) for e in EDGES]
         for out_edge in (e for e in edges if e in arc.output_edges):
             for quantity in (delay_quantity(out_edge), transition_quantity(out_edge)):
-                template = template_of(series, arc, state, quantity)
+                row = row_point_of(series, arc, state, quantity)
                 for index in itertools.product(*shape):
                     coords = [a.values[i] for a, i in zip(axes, index, strict=True)]
-                    point = timing_point(template, axes, coords)
+                    point = timing_point(row, axes, coords)
                     out[((state.when, quantity), index)] = point
     return out
 
@@ -536,7 +536,7 @@ def study(
     )
     grids = _fixed_grids(config, span, sizes)
 
-    series = templates(config, cell_name)
+    series = row_points(config, cell_name)
 
     def maps_of(axes: Sequence[Axis]) -> tuple[dict, dict]:
         """The points of a grid and of its cell centres."""
