@@ -50,7 +50,7 @@ if TYPE_CHECKING:
 
 WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew, at least
 WINDOW_DOUBLINGS = 5  # ... doubled up to this many times until the cell settles in it
-WINDOW_STEPS = 200  # first-run samples across a window, before refinement
+RAMP_STEPS = 2.0  # largest time step: the run's sharpest input ramp over this (see run_step)
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
 
@@ -155,6 +155,17 @@ class _Bench:
         return vector, go, back
 
 
+def run_step(config: LibraryConfig, *slews: float) -> float:
+    """The largest time step of a flop experiment whose edges have these slews: the sharpest
+    ramp among them over RAMP_STEPS, never a share of the window (which is sized from the
+    grid's largest slew). At window / 200 a 0.01 ns clock-to-output of seq_l1's QDFFR_P1 read
+    1.35 ps (1.5 %) late on a [0.01, 1.5] ns grid against a 0.2 ps-step run; with this step
+    (and the refinement's breakpoints from the event on) within 0.05 ps of it on either grid."""
+    thr, vdd = config.thresholds, config.process.vdd
+    ramps = (stimulus.ramp(s, e, thr, vdd) for s in slews for e in ("rise", "fall"))
+    return min(r.duration for r in ramps) / RAMP_STEPS
+
+
 _WINDOWS: dict[tuple, float] = {}
 
 
@@ -217,6 +228,7 @@ def run_event(
     loads: dict[str, float],
     *,
     event: Ramp,
+    step: float,
     output: str,
     before: bool,
     after: bool,
@@ -225,8 +237,9 @@ def run_event(
     states: tuple[bool, bool] | None = None,
     window: float | None = None,
 ) -> tuple[Outcome, int, float]:
-    """Simulate one experiment; the output must hold ``before`` until the event and settle at
-    ``after`` (a bool level) once it, within ``window`` (``settle_window`` unless given).
+    """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
+    ``before`` until the event and settle at ``after`` (a bool level) once it, within
+    ``window`` (``settle_window`` unless given).
     Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
     the charge the pin draws from its ramp's start. With
     ``states`` (the flop's state before and after the event) the event's energy is measured
@@ -253,7 +266,7 @@ def run_event(
         recorded = tuple(dict.fromkeys((*recorded, *ffpower.event_vectors(cell, deck))))
         stop_when = None
     stop = arm + window
-    max_step = window / WINDOW_STEPS
+    max_step = step
     grid = PARKED_GRID
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
     if states is not None:
@@ -299,9 +312,12 @@ def run_event(
         coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
         if coarse <= REFINE_SLACK * wanted or refine == REFINEMENTS:
             break
-        # Dense samples only around the output edge: the rest of the run keeps its step.
+        # Dense samples from the event through the output edge (the cell's nodes answer the
+        # event in between): the rest of the run keeps its step.
         margin = coarse + raw
-        grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted, inside)
+        grid = breakpoints(
+            min(event.start, band[0] - margin), band[1] + margin, GRID_SPACING * wanted, inside
+        )
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
         (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
@@ -345,6 +361,7 @@ def measure_clocked(
         waves,
         point_loads(cell, point),
         event=event,
+        step=run_step(config, point.slew, min(cell.grid.slew)),
         output=point.output,
         before=stored_output(cell, point.output, not stored),
         after=out_after,
@@ -537,10 +554,19 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
         waves[pin] = vector
         return waves, quiet
 
+    step = run_step(config, point.data_slew, point.clock_slew)
+
     def passes(offset: float) -> bool:
         waves, quiet = waves_at(offset)
         outcome = trials(
-            waves, loads, event=event, output=out, before=before, after=after, quiet_until=quiet
+            waves,
+            loads,
+            event=event,
+            step=step,
+            output=out,
+            before=before,
+            after=after,
+            quiet_until=quiet,
         )
         return trials.in_time(outcome)
 
@@ -576,6 +602,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
+    step = run_step(config, point.data_slew, point.clock_slew)
 
     def passes(offset: float) -> bool:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
@@ -587,7 +614,14 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
         after = stored_output(cell, out, not forced) if recovery else held
         quiet = go.end if recovery else go.end + bench.window / 4
         outcome = trials(
-            waves, loads, event=event, output=out, before=held, after=after, quiet_until=quiet
+            waves,
+            loads,
+            event=event,
+            step=step,
+            output=out,
+            before=held,
+            after=after,
+            quiet_until=quiet,
         )
         # Recovery is judged like setup (captured, and in time); removal by the flop staying.
         return trials.in_time(outcome) if recovery else outcome is not None
@@ -694,6 +728,7 @@ def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _
     stored = True
     new, old = capture_values(cell, stored), capture_values(cell, not stored)
     active_level = "high" if flop.edge == "rise" else "low"
+    step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         if point.level == active_level:
@@ -708,6 +743,7 @@ def _clock_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials: _
             waves,
             loads,
             event=event,
+            step=step,
             output=out,
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
@@ -727,6 +763,7 @@ def _control_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials:
     old = capture_values(cell, not stored)
     clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
     start = first_edge.end + bench.half
+    step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
@@ -737,6 +774,7 @@ def _control_pulse_test(bench: _Bench, point: PulsePoint, shape: _Pulse, trials:
             waves,
             loads,
             event=event,
+            step=step,
             output=out,
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
@@ -773,6 +811,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
                         waves,
                         loads,
                         event=event,
+                        step=run_step(config, slew),
                         output=out.pin,
                         before=stored_output(cell, out.pin, previous),
                         after=stored_output(cell, out.pin, stored),

@@ -16,6 +16,14 @@ from charflow.errors import MeasurementError
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
 CELL = "QDFFR_P1"
 SHARP = (0.01e-9, 0.02e-9)  # s: the grid's slews
+WIDE = (0.01e-9, 1.5e-9)  # s: a grid whose largest slew sizes a 15 ns window
+# A point's value must not depend on the other slews of its grid, and must match the same point
+# at a much smaller step: a transient converges as its time step shrinks (common practice).
+DELAY_RTOL = 0.002  # clock-to-output, either grid against the other and against the reference
+DELAY_ATOL = 0.2e-12  # s, ... or this close
+SEARCH_SLACK = 0.25e-12  # s, beyond the bisection tolerance: two searches that start from
+# different brackets land anywhere in their final bracket (measured: 0.55 ps apart)
+REFERENCE_RAMP_STEPS = 80.0  # the reference's step: 0.2 ps for the 0.01 ns ramp, 1/40 of ours
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -80,3 +88,50 @@ def test_a_window_set_in_the_config_is_kept_and_named_when_too_short(monkeypatch
     supply = [r for r in failed if r.startswith("supply current has not settled")]
     assert supply, failed
     assert all("after the event, the end of the run ([simulation] window)" in r for r in supply)
+
+
+def _on_grid(slews):
+    cfg = config.load(SEQ)
+    cell = cfg.cell(CELL)
+    cell = dataclasses.replace(cell, grid=dataclasses.replace(cell.grid, slew=slews))
+    cfg = dataclasses.replace(cfg, cells=(cell,))
+    return cfg, netlist.build_deck(cfg, cell), sweep.plan(cfg).points
+
+
+def _sharp_values(slews) -> dict[str, float]:
+    """Q rising from CLK at the sharpest slew and the smallest loads; D's rising setup and hold."""
+    cfg, deck, points = _on_grid(slews)
+    cell = cfg.cell(CELL)
+    clocked = next(
+        p
+        for p in points
+        if isinstance(p, sweep.TimingPoint)
+        and (p.kind, p.output, p.output_edge, p.slew, p.load)
+        == ("clock", "Q", "rise", slews[0], min(cell.grid.load))
+        and p.other_load in (None, min(cell.grid.related_load))
+    )
+    values = {"clock->Q": sequential.measure_clocked(cfg, deck, clocked).delay}
+    for p in points:
+        if isinstance(p, sweep.ConstraintPoint) and (p.constrained, p.data_edge) == ("D", "rise"):
+            values[p.kind] = sequential.measure_constraint(cfg, deck, p).value
+    return values, cfg.simulation.bisect_tolerance
+
+
+def _agree(a: dict[str, float], b: dict[str, float], tol: float) -> None:
+    assert a.keys() == b.keys() == {"clock->Q", "setup", "hold"}  # seq_l1 has no recovery on D
+    assert a["clock->Q"] == pytest.approx(b["clock->Q"], rel=DELAY_RTOL, abs=DELAY_ATOL)
+    for kind in ("setup", "hold"):
+        assert abs(a[kind] - b[kind]) <= tol + SEARCH_SLACK, (kind, a[kind], b[kind])
+
+
+def test_a_sharp_point_reads_the_same_whatever_the_grids_largest_slew(monkeypatch):
+    # The time step follows the point's own edges (sequential.run_step), not the window the
+    # grid's largest slew sizes: 0.8 ns on the sharp grid, 15 ns on the wide one.
+    monkeypatch.setattr(sequential, "_WINDOWS", {})
+    sharp, tol = _sharp_values(SHARP)
+    wide, _ = _sharp_values(WIDE)
+    _agree(sharp, wide, tol)
+    monkeypatch.setattr(sequential, "RAMP_STEPS", REFERENCE_RAMP_STEPS)
+    reference, _ = _sharp_values(SHARP)
+    _agree(sharp, reference, tol)
+    _agree(wide, reference, tol)
