@@ -707,11 +707,24 @@ def _bench(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+class _Stderr(logging.StreamHandler):
+    """Writes to the ``sys.stderr`` of the moment: a caller (a test, an embedding program) may
+    replace it after the first command set the handler up."""
+
+    @property  # type: ignore[override]
+    def stream(self):
+        return sys.stderr
+
+    @stream.setter
+    def stream(self, value) -> None:
+        pass
+
+
 def _show_warnings() -> None:
     """charflow's warnings (a worker that died, points re-run alone) go to stderr as lines."""
     log = logging.getLogger("charflow")
     if not log.handlers:
-        handler = logging.StreamHandler(sys.stderr)
+        handler = _Stderr()
         handler.setFormatter(logging.Formatter("charflow: %(message)s"))
         log.addHandler(handler)
 

@@ -30,6 +30,38 @@ _TIED = {"nwell": "cf_vdd", "pwell": "0"}
 
 
 @dataclass(frozen=True, slots=True)
+class Card:
+    """One SPICE card: its physical lines joined (continuations start with ``+``), runs of
+    white space made one, ``$`` comments cut."""
+
+    text: str
+    lines: tuple[tuple[int, int], ...]  # (offset in ``text``, 1-based physical line) per part
+
+    @property
+    def line(self) -> int:
+        return self.lines[0][1]
+
+    def line_at(self, offset: int) -> int:
+        """The physical line holding ``text[offset]``."""
+        return max(n for start, n in self.lines if start <= offset)
+
+
+def spice_cards(text: str) -> list[Card]:
+    """Every card of a SPICE text, comment lines and blank lines left out: the one reading of
+    continuation lines the netlist check, the plausibility bounds and the error locator share."""
+    cards: list[Card] = []
+    for number, raw in enumerate(text.splitlines(), 1):
+        body = " ".join(raw.split("$")[0].split())
+        if body.startswith("+") and cards:
+            last = cards[-1]
+            part = body[1:].strip()
+            cards[-1] = Card(f"{last.text} {part}", (*last.lines, (len(last.text) + 1, number)))
+        elif body and not body.startswith("*"):
+            cards.append(Card(body, ((0, number),)))
+    return cards
+
+
+@dataclass(frozen=True, slots=True)
 class Subckt:
     name: str
     ports: tuple[str, ...]
@@ -153,27 +185,19 @@ def render_cell(cell: CellSpec) -> str:
 
 def find_subckt(text: str, name: str, *, source: Path | None = None) -> Subckt:
     """The ``.subckt`` named ``name`` (case-insensitive, as in SPICE), continuation lines joined."""
-    lines = text.splitlines()
-    i = 0
     found = []
-    while i < len(lines):
-        if lines[i].strip().lower().startswith(".subckt"):
-            start = i
-            card = lines[i].split("$")[0]
-            while i + 1 < len(lines) and lines[i + 1].lstrip().startswith("+"):
-                i += 1
-                card += " " + lines[i].lstrip()[1:].split("$")[0]
-            tokens = card.split()
-            if len(tokens) >= 2:
-                found.append(tokens[1])
-                if tokens[1].lower() == name.lower():
-                    ports = []
-                    for tok in tokens[2:]:
-                        if tok.lower().startswith("params:") or "=" in tok:
-                            break
-                        ports.append(tok)
-                    return Subckt(tokens[1], tuple(ports), start + 1)
-        i += 1
+    for card in spice_cards(text):
+        tokens = card.text.split()
+        if tokens[0].lower() != ".subckt" or len(tokens) < 2:
+            continue
+        found.append(tokens[1])
+        if tokens[1].lower() == name.lower():
+            ports = []
+            for tok in tokens[2:]:
+                if tok.lower().startswith("params:") or "=" in tok:
+                    break
+                ports.append(tok)
+            return Subckt(tokens[1], tuple(ports), card.line)
     have = f"; it defines {', '.join(found)}" if found else "; it defines no .subckt"
     raise NetlistError(f"no .subckt named {name}{have}", file=source, cell=name)
 

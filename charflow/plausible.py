@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 from .config import CellSpec, LibraryConfig
 from .errors import CharflowError, place
-from .netlist import find_subckt, render_cell
+from .netlist import find_subckt, render_cell, spice_cards
 from .units import show_cap, show_time
 
 log = logging.getLogger("charflow")
@@ -68,19 +68,14 @@ def spice_number(text: str) -> float | None:
 
 
 def _cards(text: str, line: int) -> list[str]:
-    """The cards of the ``.subckt`` starting at ``line`` (1-based), continuations joined."""
+    """The device cards of the ``.subckt`` whose card starts at ``line`` (1-based)."""
     cards: list[str] = []
-    for raw in text.splitlines()[line:]:
-        card = raw.split("$")[0].strip()
-        if not card or card.startswith("*"):
+    for card in spice_cards(text):
+        if card.line <= line:
             continue
-        if card.startswith("+"):
-            if cards:  # the .subckt card's own continuation is not a device's
-                cards[-1] += " " + card[1:]
-            continue
-        if card.lower().startswith(".ends"):
+        if card.text.lower().startswith(".ends"):
             break
-        cards.append(card)
+        cards.append(card.text)
     return cards
 
 

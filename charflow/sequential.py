@@ -19,7 +19,7 @@ from . import stimulus
 from .config import CellSpec, LibraryConfig, Thresholds
 from .errors import FunctionalMismatchError, MeasurementError
 from .measure import KeepWaveform, check_settled, integral, single_crossing, step_at, waveform
-from .netlist import Deck, build_deck
+from .netlist import Deck
 from .simulate import Request
 from .stimulus import Ramp
 from .sweep import (
@@ -98,12 +98,13 @@ class Outcome:
 class _Bench:
     """The waveform timeline shared by every experiment on one cell."""
 
-    def __init__(self, config: LibraryConfig, cell: CellSpec, window: float | None = None) -> None:
+    def __init__(self, config: LibraryConfig, deck: Deck, window: float | None = None) -> None:
+        cell = config.cell(deck.cell)
         self.config, self.cell = config, cell
         self.vdd = config.process.vdd
         self.thr = config.thresholds
         largest = max(cell.grid.slew)
-        self.window = window or settle_window(config, cell)
+        self.window = window or settle_window(config, deck)
         ramp = stimulus.ramp(largest, "rise", self.thr, self.vdd)
         # Half a period holds the slowest edge and its settling, with room for a data edge.
         self.half = 2.0 * ramp.duration + self.window
@@ -169,17 +170,17 @@ def run_step(config: LibraryConfig, *slews: float) -> float:
 _WINDOWS: dict[tuple, float] = {}
 
 
-def settle_window(config: LibraryConfig, cell: CellSpec) -> float:
+def settle_window(config: LibraryConfig, deck: Deck) -> float:
     """How long a flop experiment runs past its event, and the clock's phases hold:
     ``simulation.window`` when set; else WINDOW_SLEWS × the grid's largest slew, doubled up to
     WINDOW_DOUBLINGS times until the cell's slowest events (its clock and control arcs to the
     first output at the sharpest slew and the largest loads; the other output moving draws
     supply current, which must settle too) measure cleanly in it: a window follows the cell,
     not only the grid. A cell that measures in none keeps the shortest, and its points report
-    why. Probed once per worker and cell."""
+    why. Probed once per worker and testbench."""
     if config.simulation.window:
         return config.simulation.window
-    deck = build_deck(config, cell)
+    cell = config.cell(deck.cell)
     key = (deck.key, cell.grid, config.thresholds, config.simulation)
     if key not in _WINDOWS:
         base = WINDOW_SLEWS * max(cell.grid.slew)
@@ -249,7 +250,7 @@ def run_event(
     out_node = deck.output_node(output)
     edge = "rise" if after else "fall"
     tol = sim.settle * vdd
-    window = window or settle_window(config, cell)
+    window = window or settle_window(config, deck)
     # Stop once the output has settled after the event, and after any late data edge.
     arm = max(event.end, quiet_until)
     level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
@@ -347,7 +348,7 @@ def measure_clocked(
     input that moves in the run is asked for its charge on each of its edges (``_clock_run``,
     ``_control_run``)."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, cell, window)
+    bench = _Bench(config, deck, window)
     out_after = point.output_edge == "rise"
     if point.kind == "clock":
         stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
@@ -521,7 +522,7 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
     if point.kind in ("recovery", "removal"):
         return _release_setup(config, deck, point)
     cell = config.cell(point.cell)
-    bench, flop = _Bench(config, cell), cell.flop
+    bench, flop = _Bench(config, deck), cell.flop
     out = cell.outputs[0].pin
     others = _sensitized_data(cell, point.constrained)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
@@ -587,7 +588,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     offset for which the edge captures nothing, the control still holding the flop (either may
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
-    bench, flop = _Bench(config, cell), cell.flop
+    bench, flop = _Bench(config, deck), cell.flop
     out = cell.outputs[0].pin
     pin = point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
@@ -691,7 +692,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
     result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, cell)
+    bench = _Bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flop.clock
@@ -789,8 +790,10 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     """Every data vector is captured from either stored value, and every asynchronous control
     forces its value: simulated with relaxed timing; raise naming the vector."""
     cell = config.cell(deck.cell)
-    # The shortest window: a cell that does not work should not be probed for one first.
-    bench, flop = _Bench(config, cell, WINDOW_SLEWS * max(cell.grid.slew)), cell.flop
+    # The configured window, else the shortest: a cell that does not work should not be
+    # probed for a window first.
+    shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
+    bench, flop = _Bench(config, deck, shortest), cell.flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
@@ -841,7 +844,7 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
     relaxed reference is simulated first."""
     cell = config.cell(point.cell)
-    bench = _Bench(config, cell)
+    bench = _Bench(config, deck)
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flop.clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, _Trials(config, deck))

@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import DeckReadError, SimulatorError, SimulatorHungError, SimulatorTimeoutError
-from .netlist import Deck, model_files
+from .netlist import Card, Deck, model_files, spice_cards
 
 # Fallback ladder for runs that do not converge: each rung adds options to the previous one.
 RETRY_LADDER: tuple[tuple[str, ...], ...] = (
@@ -490,19 +490,9 @@ def read_cause(output: str) -> str:
     return "; ".join(dict.fromkeys(parts)) or "no message"
 
 
-def _cards(text: str) -> list[tuple[str, list[tuple[int, int]]]]:
-    """Each card of a SPICE text: continuation lines joined, in lower case with single spaces
-    (as ngspice quotes cards), with the offset in it and the number of each physical line."""
-    cards: list[tuple[str, list[tuple[int, int]]]] = []
-    for number, raw in enumerate(text.splitlines(), 1):
-        body = " ".join(raw.split()).lower()
-        if body.startswith("+") and cards:
-            card, starts = cards[-1]
-            starts.append((len(card) + 1, number))
-            cards[-1] = (f"{card} {body[1:].strip()}", starts)
-        elif body and not body.startswith("*"):
-            cards.append((body, [(0, number)]))
-    return cards
+def _cards(text: str) -> list[Card]:
+    """Each card of a SPICE text in lower case, as ngspice quotes cards."""
+    return [Card(c.text.lower(), c.lines) for c in spice_cards(text)]
 
 
 def locate(cause: str, deck: Deck) -> tuple[Path, int | None] | None:
@@ -522,15 +512,14 @@ def locate(cause: str, deck: Deck) -> tuple[Path, int | None] | None:
             text = path.read_text(encoding="utf-8", errors="replace")
         except OSError:
             continue
-        for card, starts in _cards(text):
-            for at in (card.find(q) for q in quoted):
+        for card in _cards(text):
+            for at in (card.text.find(q) for q in quoted):
                 if at >= 0:
-                    line = max(n for offset, n in starts if offset <= at)
-                    found.append((starts[0][1] not in numbers, path, line))
+                    found.append((card.line not in numbers, path, card.line_at(at)))
     if found:
         _, path, line = min(found, key=lambda f: f[0])
         return path, line
-    in_cell = any(card.find(q) >= 0 for card, _ in _cards(deck.cell_text) for q in quoted)
+    in_cell = any(card.text.find(q) >= 0 for card in _cards(deck.cell_text) for q in quoted)
     return (deck.source, None) if in_cell and deck.source is not None else None
 
 

@@ -496,3 +496,19 @@ def test_liberty_limit_factor_not_positive(cfg_path: Path) -> None:
     doc = _doc()
     doc["liberty"] = {"slew_limit_factor": 0}
     _one_problem(doc, cfg_path, "liberty.slew_limit_factor")
+
+
+def test_spice_cards_join_continuations_and_cut_comments():
+    # SPICE card syntax as the ngspice manual states it (ngspice User's Manual, "Input file
+    # format"): a line starting with "+" continues the card before it, a line starting with "*"
+    # is a comment, and "$" starts a comment at the end of a line.
+    text = "* a cell\n.subckt C A\n+ Y VDD  VSS $ ports\nM1 Y A VSS VSS nch\n+ w=1u l=0.1u\n.ends\n"
+    cards = netlist.spice_cards(text)
+    assert [c.text for c in cards] == [
+        ".subckt C A Y VDD VSS",
+        "M1 Y A VSS VSS nch w=1u l=0.1u",
+        ".ends",
+    ]
+    assert [c.line for c in cards] == [2, 4, 6]
+    assert cards[1].line_at(cards[1].text.index("w=1u")) == 5
+    assert netlist.find_subckt(text, "c").ports == ("A", "Y", "VDD", "VSS")

@@ -1,6 +1,8 @@
 """A testbench ngspice cannot read: the error carries ngspice's whole cause and names the file
 and line at fault (a cell netlist naming a model no file defines, a model card ngspice cannot
-take); needs ngspice (fails without it)."""
+take); needs ngspice (fails without it). The outside reference is the simulator itself: each
+expected text is what ngspice 39 (Debian's package) prints for the fault, checked in the test
+against the real program, and each file and line against the file the test wrote."""
 
 from __future__ import annotations
 

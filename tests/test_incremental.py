@@ -232,17 +232,19 @@ def test_one_arc_rerun_after_a_model_change(tmp_path: Path) -> None:
         assert op in ("equal", "replace"), (op, old_lines[i1:i2])
         if op == "replace":
             changed |= set(where[i1:i2])
-            # Outside the timing groups: the input pin's capacitances, and the output pin's
-            # max_transition (the largest transition of its tables, the re-run arc's among them).
+            # Outside the timing groups: the input pin's capacitances, the output pin's
+            # max_transition (the largest transition of its tables, the re-run arc's among them),
+            # and the re-run cell's leakage, which is measured anew with its cell (the level-1
+            # cards' junction leakage follows the changed card).
             block = zip(old_lines[i1:i2], where[i1:i2], strict=True)
             outside = [ln for ln, w in block if w[2] == ""]
-            assert all(
-                ln.split()[0] in diff.PIN_QUANTITIES + ("max_transition",) for ln in outside
-            ), outside
+            allowed = diff.PIN_QUANTITIES + ("max_transition", "cell_leakage_power", "value")
+            assert all(ln.split()[0] in allowed for ln in outside), outside
     assert changed == {
         ("QNAND2_P1", "Y", "IA"),
         ("QNAND2_P1", "IA", ""),
         ("QNAND2_P1", "Y", ""),
+        ("QNAND2_P1", "", ""),  # its leakage
     }
 
     # charflow diff finds the same: the arc's four tables and its pin's capacitance.

@@ -33,6 +33,7 @@ from pathlib import Path
 import pytest
 
 from charflow import cli, config, flow, netlist, sweep
+from charflow import store as store_module
 from charflow.errors import OutputError, StoreError
 from charflow.lock import LOCK_NAME, FolderLock, read_holder
 from charflow.store import FILE_NAME, Store, keyring
@@ -295,7 +296,7 @@ def test_a_full_store_exits_3_and_says_a_re_run_resumes(
     out = tmp_path / "out"
     args = ["run", str(SMALL), "--out", str(out), "--jobs", "1", "--quiet"]
     with monkeypatch.context() as m:
-        m.setattr(cli, "Store", _FullStore)
+        m.setattr(store_module, "Store", _FullStore)  # the class cli's run opens
         assert cli.main(args) == EXIT_TROUBLE
     err = capsys.readouterr().err
     assert err.startswith(f"charflow: file {out / FILE_NAME}: cannot write the result store")
