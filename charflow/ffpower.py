@@ -138,7 +138,7 @@ def _hold_request(
             f"the flop cannot hold {int(state)} under {when}: a clear "
             "or preset it asserts forces the state"
         )
-    waves, move = _hold_waves(_Bench(config, deck), state, vector)
+    waves, move = _hold_waves(_Bench(config, deck, min(cell.grid.slew)), state, vector)
     max_step = hold / HOLD_STEPS
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     return Request(
@@ -387,7 +387,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     moves no output; its supply energy from the edge until the current is quiet again."""
     cell = config.cell(point.cell)
     flop = cell.flop
-    bench = _Bench(config, deck)
+    bench = _Bench(config, deck, point.slew, min(cell.grid.slew))
     vdd, thr = bench.vdd, bench.thr
     side = dict(point.side)
     state = stored_value(cell, point)

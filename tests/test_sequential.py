@@ -253,13 +253,16 @@ def test_each_pin_edge_capacitance_is_that_edges_charge(cfg, run):
     slews = cfg.cell("QDFFR_P1").grid.slew
     runs = [_reference_charges(cfg, s) for s in slews]
     vdd = cfg.process.vdd
+    wants = {}
     for pin, edge in runs[0]:
         # The clock's last two edges each way: after (or capturing) a 0 and a 1.
-        want = float(np.mean([r[pin, edge][-2:] for r in runs])) / vdd
+        want = wants[pin, edge] = float(np.mean([r[pin, edge][-2:] for r in runs])) / vdd
         got = getattr(pins[pin], edge)
         assert got == pytest.approx(want, rel=PIN_CAP_RTOL, abs=0), (pin, edge, got, want)
-    rn = pins["RSTB"]
-    assert abs(rn.rise / rn.fall - 1.0) > EDGES_APART, (rn.rise, rn.fall)
+    # The reference's two RSTB edges differ (3.9 % measured), and charflow's the same way.
+    rn, ratio = pins["RSTB"], wants["RSTB", "rise"] / wants["RSTB", "fall"]
+    assert abs(ratio - 1.0) > EDGES_APART, ratio
+    assert rn.rise / rn.fall == pytest.approx(ratio, rel=PIN_CAP_RTOL), (rn.rise, rn.fall)
 
 
 def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):

@@ -1,5 +1,5 @@
 """A flip-flop's settle window follows the cell, not only the grid: tests/data/seq_l1.toml's
-QDFFR_P1 on a two-slew grid of sharp slews, whose grid-sized window (10 × 0.02 ns) is shorter
+QDFFR_P1 on a two-slew grid of sharp slews, whose grid-sized window (10 × 0.01 ns) is shorter
 than the cell takes to settle; needs ngspice (fails without it). "Settled" is the
 measurement's own criterion (output within `settle` of its rail and supply current quiet;
 a transient must settle before it is measured: common practice)."""
@@ -18,7 +18,7 @@ from charflow.errors import MeasurementError
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
 CELL = "QDFFR_P1"
 SHARP = (0.01e-9, 0.02e-9)  # s: the grid's slews
-WIDE = (0.01e-9, 1.5e-9)  # s: a grid whose largest slew sizes a 15 ns window
+WIDE = (0.01e-9, 1.5e-9)  # s: a grid whose largest slew once sized a 15 ns window
 # A point's value must not depend on the other slews of its grid, and must match the same point
 # at a much smaller step: a transient converges as its time step shrinks (common practice).
 DELAY_RTOL = 0.002  # clock-to-output, either grid against the other and against the reference
@@ -61,7 +61,7 @@ def test_the_grid_sized_window_cuts_the_cell_off(monkeypatch, sharp):
     cfg, deck, points = sharp
     monkeypatch.setattr(sequential, "WINDOW_DOUBLINGS", 0)
     monkeypatch.setattr(sequential, "_WINDOWS", {})
-    assert sequential.settle_window(cfg, deck) == sequential.WINDOW_SLEWS * SHARP[-1]
+    assert sequential.settle_window(cfg, deck) == sequential.WINDOW_SLEWS * SHARP[0]
     failed = _failures(cfg, deck, points)
     assert len(failed) == len(points)
     assert all("not settled" in reason for reason in failed), failed  # the output or the supply current
@@ -71,7 +71,7 @@ def test_the_window_grows_until_the_cell_settles(monkeypatch, sharp):
     cfg, deck, points = sharp
     monkeypatch.setattr(sequential, "_WINDOWS", {})
     window = sequential.settle_window(cfg, deck)
-    base = sequential.WINDOW_SLEWS * SHARP[-1]
+    base = sequential.WINDOW_SLEWS * SHARP[0]
     assert window in [base * 2**k for k in range(1, sequential.WINDOW_DOUBLINGS + 1)]
     assert _failures(cfg, deck, points) == []
     toggles = power.plan_toggles(cfg)
@@ -81,7 +81,7 @@ def test_the_window_grows_until_the_cell_settles(monkeypatch, sharp):
 
 def test_a_window_set_in_the_config_is_kept_and_named_when_too_short(monkeypatch, sharp):
     cfg, deck, points = sharp
-    short = sequential.WINDOW_SLEWS * SHARP[-1]
+    short = sequential.WINDOW_SLEWS * SHARP[0]
     cfg = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, window=short))
     monkeypatch.setattr(sequential, "_WINDOWS", {})
     assert sequential.settle_window(cfg, deck) == short
@@ -127,8 +127,8 @@ def _agree(a: dict[str, float], b: dict[str, float], tol: float) -> None:
 
 
 def test_a_sharp_point_reads_the_same_whatever_the_grids_largest_slew(monkeypatch):
-    # The time step follows the point's own edges (sequential.run_step), not the window the
-    # grid's largest slew sizes: 0.8 ns on the sharp grid, 15 ns on the wide one.
+    # The time step and the timeline follow the point's own edges (sequential.run_step,
+    # sequential._Bench), not the grid's largest slew (once a 15 ns window on the wide grid).
     monkeypatch.setattr(sequential, "_WINDOWS", {})
     sharp, tol = _sharp_values(SHARP)
     wide, _ = _sharp_values(WIDE)
