@@ -64,7 +64,8 @@ def test_the_grid_sized_window_cuts_the_cell_off(monkeypatch, sharp):
     assert sequential.settle_window(cfg, deck) == sequential.WINDOW_SLEWS * SHARP[0]
     failed = _failures(cfg, deck, points)
     assert len(failed) == len(points)
-    assert all("not settled" in reason for reason in failed), failed  # the output or the supply current
+    # The output or the supply current.
+    assert all("not settled" in reason for reason in failed), failed
 
 
 def test_the_window_grows_until_the_cell_settles(monkeypatch, sharp):
