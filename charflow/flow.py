@@ -418,6 +418,8 @@ def _point_record(m: Measurement | SearchResult) -> dict:
         record = {"search": p.label, "value_s": m.value, "simulations": m.runs}
         if isinstance(p, sweep.PulsePoint):
             record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
+        else:  # the bracket that held at tightened settings, and what moved (sequential)
+            record.update(bracket_s=m.bracket, note=m.note)
         return record
     return {
         "related_pin": p.related,
