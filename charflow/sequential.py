@@ -1000,8 +1000,9 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
 
 def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint search as a function of the offset, for re-checking a
-    result: a fresh relaxed reference is simulated first."""
-    passes, _, relaxed, _ = _constraint_setup(config, deck, point)
+    result: at the tightened settings its final bracket holds at (``_confirm``), a fresh
+    relaxed reference simulated first."""
+    passes, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes

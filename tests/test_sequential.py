@@ -108,8 +108,8 @@ def test_clear_arc_only_moves_its_output_the_way_the_reset_forces(run):
 @pytest.mark.parametrize("kind", ["setup", "hold", "recovery", "removal"])
 def test_constraint_is_the_edge_between_pass_and_fail(cfg, run, kind):
     # The bisection's answer passes, and one tolerance step tighter fails, each re-simulated
-    # from scratch (the pass test: right value, clock-to-Q at most 10 % over relaxed;
-    # common practice).
+    # from scratch at the tightened settings the result is confirmed at (the pass test: right
+    # value, clock-to-Q at most 10 % over relaxed; common practice).
     result, _ = run
     found = next(
         m
@@ -123,7 +123,7 @@ def test_constraint_is_the_edge_between_pass_and_fail(cfg, run, kind):
     probe = sequential.constraint_probe(cfg, deck, found.point)
     assert probe(found.value)
     assert not probe(found.value - tol)
-    assert 2 < found.runs < 40
+    assert 2 < found.runs < 50  # the search and its re-check at tightened settings
 
 
 def test_liberty_with_3d_and_sequential_groups_reads_back(cfg, run):
