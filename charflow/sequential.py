@@ -661,22 +661,23 @@ def _confirm(
         if passes(passing):
             if not passes(failing):
                 return bracket, trials
-            passing, failing = failing, _step_out(passes, failing, -tol, lo, point.label)
+            passing, failing = _step_out(passes, failing, -tol, lo, point.label)
         else:
-            failing, passing = passing, _step_out(passes, passing, tol, hi, point.label)
+            failing, passing = _step_out(passes, passing, tol, hi, point.label)
         return _bisect(passes, failing, passing, tol), trials
 
 
-def _step_out(passes, start: float, step: float, limit: float, what: str) -> float:
-    """From ``start`` in steps of ``step`` that double, up to ``limit``, the first offset
-    whose verdict differs from ``start``'s: a passing one going up, a failing one going down."""
+def _step_out(passes, start: float, step: float, limit: float, what: str) -> tuple[float, float]:
+    """From ``start`` in steps of ``step`` that double, up to ``limit``: the last offset with
+    ``start``'s verdict and the first with the other (a passing one going up, ``step`` > 0; a
+    failing one going down)."""
     want = step > 0
-    at = start
+    last = at = start
     while (at - limit) * (1 if want else -1) < 0:
         at = min(at + step, limit) if want else max(at + step, limit)
         if passes(at) == want:
-            return at
-        step *= 2
+            return last, at
+        last, step = at, step * 2
     raise MeasurementError(f"{what}: the tightened re-check does not bracket at {limit:.4g} s")
 
 

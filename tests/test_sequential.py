@@ -16,7 +16,7 @@ import pytest
 from liberty.parser import parse_liberty
 
 from charflow import config, flow, logic, resources, sequential
-from charflow.errors import FunctionalMismatchError
+from charflow.errors import FunctionalMismatchError, MeasurementError
 from charflow.netlist import build_deck, render_cell
 from charflow.sweep import ConstraintPoint, PulsePoint
 from charflow.tabulate import tabulate
@@ -336,3 +336,18 @@ def test_the_demo_reset_clears_the_flop_with_any_pulse_past_the_thresholds():
     assert m.value is None and m.stimulus == sequential.RUNT
     probe = sequential.pulse_probe(demo, deck, point)
     assert probe(m.bracket[1])
+
+
+def test_a_bracket_that_does_not_hold_is_searched_on_outwards():
+    # The re-check's search past a bracket end (sequential._step_out): steps doubling outwards
+    # from the end that failed its verdict, then bisection (a root-bracketing search: Press et
+    # al., Numerical Recipes, 3rd ed., 2007, sec. 9.1). The edge at 3.3 lies in the result.
+    def passes(x: float) -> bool:
+        return x >= 3.3
+
+    assert sequential._step_out(passes, 2.0, 0.5, 10.0, "up") == (2.5, 3.5)
+    assert sequential._step_out(passes, 5.0, -0.5, -10.0, "down") == (3.5, 1.5)
+    failing, passing = sequential._bisect(passes, 1.5, 3.5, 0.01)
+    assert failing < 3.3 <= passing and passing - failing <= 0.01
+    with pytest.raises(MeasurementError):
+        sequential._step_out(passes, 5.0, -0.5, 4.0, "down")

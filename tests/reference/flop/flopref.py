@@ -13,8 +13,9 @@ charflow. What it measures (definitions are common practice; thresholds 50 % for
   of its relaxed value; hold: the old value is captured, in time, and the output crosses once;
   removal: the flop, held by its clear through the clock edge, stays cleared.
 
-Every run steps at most STEP with reltol RELTOL; each clock->Q and clear->Q value is also run
-at COARSE settings and the two must agree within AGREE, or the script stops: the reference is
+Every run steps at most its target's fine step at its reltol (0.1 ps and 1e-5 on the level-1
+models, 0.4 ps and 1e-4 on BSIM); each clock->Q and clear->Q value is also run at coarser
+settings and the two must agree within AGREE, or the script stops: the reference is
 converged. A search's result passes and result - SEARCH_TOL fails at the fine settings (the
 bisection's own last bracket).
 
@@ -25,6 +26,7 @@ bisection's own last bracket).
 
 from __future__ import annotations
 
+import os
 import re
 import subprocess
 import sys
@@ -35,9 +37,9 @@ import jinja2
 
 ROOT = Path(__file__).resolve().parents[3]
 BUNDLED = ROOT / "charflow" / "bundled"
-STEP = 0.1e-12  # s, largest time step of a reference run
-RELTOL = 1e-5
-COARSE = (0.4e-12, 1e-4)  # (step, reltol) of the convergence cross-check
+# Each target's (largest step s, reltol) of its runs, and of the convergence cross-check.
+L1_SETTINGS = ((0.1e-12, 1e-5), (0.4e-12, 1e-4))
+BSIM_SETTINGS = ((0.4e-12, 1e-4), (1e-12, 1e-3))  # a BSIM run at 0.1 ps takes 40 s here
 AGREE = 0.001  # clock->Q at the two settings, relative
 SEARCH_TOL = 0.05e-12  # s, final bracket of a bisection
 PUSHOUT = 0.1  # setup/hold pass: clock->Q at most 10 % over its relaxed value (charflow's default)
@@ -56,6 +58,7 @@ TARGETS = {
         "loads": ((2e-15, 1e-15), (10e-15, 1e-15)),  # (Q, QB)
         "constraint_slews": (0.02e-9,),
         "constraint_load": 2e-15,  # every output, as charflow's searches load them
+        "settings": L1_SETTINGS,
     },
     "vellum90": {
         "models": (BUNDLED / "models" / "vellum90_bsim.lib", "tt"),
@@ -69,6 +72,7 @@ TARGETS = {
         "loads": ((0.5e-15, 0.5e-15), (10e-15, 0.5e-15)),
         "constraint_slews": (0.012e-9,),
         "constraint_load": 0.5e-15,
+        "settings": BSIM_SETTINGS,
     },
 }
 
@@ -109,12 +113,12 @@ def run(
     loads: tuple,
     stop: float,
     meas: list[str],
-    settings=(STEP, RELTOL),
+    settings=None,
 ) -> dict[str, float]:
     """Simulate one experiment; the `.meas` results that did not fail."""
     params = target["cells"][cell]
     path, section = target["models"]
-    step, reltol = settings
+    step, reltol = settings or target["settings"][0]
     pins = "D CLK RSTB" if params["reset"] else "D CLK"
     lines = [
         f"* flopref: {cell}",
@@ -134,7 +138,9 @@ def run(
     with tempfile.TemporaryDirectory() as tmp:
         deck = Path(tmp) / "ref.cir"
         deck.write_text("\n".join(lines) + "\n", encoding="utf-8")
-        done = subprocess.run(["ngspice", "-b", str(deck)], capture_output=True, text=True)
+        # One thread: BSIM's OpenMP threads only slow a cell this small down.
+        env = {**os.environ, "OMP_NUM_THREADS": "1"}
+        done = subprocess.run(["ngspice", "-b", str(deck)], capture_output=True, text=True, env=env)
     found = re.findall(r"^(\w+)\s*=\s*([-+0-9.eE]+)", done.stdout, re.MULTILINE)
     return {k.lower(): float(v) for k, v in found}
 
@@ -159,7 +165,7 @@ def _levels(vdd: float, edge: str, out_node: str, after: float) -> list[str]:
     ]
 
 
-def clock_to_q(target, cell, slew, q_edge, loads, settings=(STEP, RELTOL)):
+def clock_to_q(target, cell, slew, q_edge, loads, settings=None):
     """CLK rise -> Q ``q_edge``: (delay, transition 20-80 %)."""
     vdd, new = target["vdd"], q_edge == "rise"
     clk, t_clk = _clocks(target, slew)
@@ -175,7 +181,7 @@ def clock_to_q(target, cell, slew, q_edge, loads, settings=(STEP, RELTOL)):
     return got["tout"] - t_clk, got["tb"] - got["ta"]
 
 
-def clear_to_q(target, cell, slew, loads, settings=(STEP, RELTOL)):
+def clear_to_q(target, cell, slew, loads, settings=None):
     """RSTB fall -> Q fall, a 1 stored: (delay, transition)."""
     vdd = target["vdd"]
     clk = Wave(vdd, False).edge(PHASE, SHARP).edge(2 * PHASE, SHARP)
@@ -270,7 +276,7 @@ def reference_rows(name: str):
                 arcs += [("clear", "RSTB", "fall")] if params["reset"] else []
                 for kind, related, edge in arcs:
                     args = (target, cell, kind, slew, edge, loads)
-                    fine, coarse = arc_value(*args, (STEP, RELTOL)), arc_value(*args, COARSE)
+                    fine, coarse = (arc_value(*args, s) for s in target["settings"])
                     if abs(coarse[0] / fine[0] - 1) > AGREE:
                         raise SystemExit(f"{cell} {kind} {edge}: not converged {fine} {coarse}")
                     check = f"coarse {coarse[0]:.6g}"
@@ -301,7 +307,11 @@ def main(argv: list[str]) -> None:
         print(passes(target, cell, kind, edge, ds, cs, float(offset), reference))
         return
     print(f"# made by: python3 tests/reference/flop/flopref.py {argv[0]}")
-    print(f"# settings: step {STEP:g} s, reltol {RELTOL:g}; bisection to {SEARCH_TOL:g} s")
+    (step, reltol), (coarse_step, coarse_reltol) = TARGETS[argv[0]]["settings"]
+    print(
+        f"# settings: step {step:g} s, reltol {reltol:g} (cross-checked at {coarse_step:g} s, "
+        f"{coarse_reltol:g}); bisection to {SEARCH_TOL:g} s"
+    )
     for row in reference_rows(argv[0]):
         print(row, flush=True)
 
