@@ -18,7 +18,12 @@ import numpy as np
 
 from . import stimulus
 from .config import CellSpec, LibraryConfig, Thresholds
-from .errors import FunctionalMismatchError, MeasurementError
+from .errors import (
+    FunctionalMismatchError,
+    MeasurementError,
+    SimulatorError,
+    SimulatorHungError,
+)
 from .measure import KeepWaveform, check_settled, integral, single_crossing, step_at, waveform
 from .netlist import Deck
 from .simulate import RESETTABLE, Request, deck_options
@@ -413,6 +418,27 @@ def measure_clocked(
 _ARCS: dict[tuple, bool] = {}
 
 
+def arc_of(point: TimingPoint) -> tuple:
+    """What a clock or control point shares with the rest of its arc: all but slew and loads."""
+    p = point
+    return (p.kind, p.related, p.side, p.input_edge, p.output, p.output_edge)
+
+
+def _sample(config: LibraryConfig, point: TimingPoint) -> TimingPoint:
+    """The point of ``point``'s arc its convergence check simulates (``_arc_check``)."""
+    grid = config.cell(point.cell).grid
+    other = None if point.other_load is None else min(grid.related_load)
+    return replace(point, slew=min(grid.slew), load=min(grid.load), other_load=other)
+
+
+def check_arc(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple[int, float]:
+    """The convergence check of ``point``'s arc (``_arc_check``), run now as when its sample
+    is the arc's first point in this worker: the simulations and seconds it costs beyond the
+    sample's own run (none once the arc is checked here)."""
+    _, _, runs, seconds = _arc_check(config, deck, _sample(config, point))
+    return runs, seconds
+
+
 def _arc_check(
     config: LibraryConfig, deck: Deck, point: TimingPoint
 ) -> tuple[bool, Measurement | None, int, float]:
@@ -420,21 +446,23 @@ def _arc_check(
     worker, the arc's sample (the sharpest slew and the smallest loads: the shortest edges
     against the step) is measured at the usual settings and at tightened ones; where its delay
     moves by more than SAMPLE_RTOL or its transition SAMPLE_TRANSITION_RTOL the arc takes the
-    tightened settings, with a warning. Returns that, the sample's measurement when ``point``
-    is the sample, and the simulations and seconds the check cost beyond it."""
+    tightened settings, with a warning (a sample that does not measure leaves the arc at the
+    usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
+    the simulations and seconds the check cost beyond it."""
     cell = config.cell(point.cell)
-    arc = (point.kind, point.related, point.side, point.input_edge, point.output, point.output_edge)
-    key = (deck.key, cell.grid, config.thresholds, config.simulation, arc)
-    sample = replace(
-        point,
-        slew=min(cell.grid.slew),
-        load=min(cell.grid.load),
-        other_load=None if point.other_load is None else min(cell.grid.related_load),
-    )
+    key = (deck.key, cell.grid, config.thresholds, config.simulation, arc_of(point))
+    sample = _sample(config, point)
     if key in _ARCS:
         return _ARCS[key], None, 0, 0.0
-    usual = _clocked(config, deck, sample)
-    tightened = _clocked(config, deck, sample, tight=True)
+    try:
+        usual = _clocked(config, deck, sample)
+        tightened = _clocked(config, deck, sample, tight=True)
+    except SimulatorHungError:
+        raise
+    except (MeasurementError, SimulatorError):
+        # A sample that does not measure fails as its own point, not every point of its arc.
+        _ARCS[key] = False
+        return False, None, 0, 0.0
     delay = abs(tightened.delay / usual.delay - 1.0)
     transition = abs(tightened.transition / usual.transition - 1.0)
     _ARCS[key] = tight = delay > SAMPLE_RTOL or transition > SAMPLE_TRANSITION_RTOL
