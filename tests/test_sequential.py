@@ -21,7 +21,7 @@ from charflow.config import resources
 from charflow.flow import characterize as flow
 from charflow.measurement import sequential
 from charflow.records import logic
-from charflow.records.errors import FunctionalMismatchError
+from charflow.records.errors import FunctionalMismatchError, MeasurementError
 from charflow.records.outcomes import RUNT
 from charflow.records.points import ConstraintPoint, PulsePoint
 from charflow.simulation.netlist import build_deck, render_cell
@@ -148,7 +148,7 @@ def test_constraint_is_the_edge_between_pass_and_fail(run, kind, data_edge):
     passing, failing = constraint.judge(lib, kind, data_edge, slews, [at, tighter])
     assert passing.passed, (found.point.label, found.value, passing)
     assert not failing.passed, (found.point.label, found.value, failing)
-    assert 2 < found.runs < 40
+    assert 2 < found.runs < 50  # the search and its re-check at tightened settings
 
 
 def test_liberty_with_3d_and_sequential_groups_reads_back(cfg, run):
@@ -278,13 +278,16 @@ def test_each_pin_edge_capacitance_is_that_edges_charge(cfg, run):
     slews = cfg.cell("QDFFR_P1").grid.slew
     runs = [_reference_charges(cfg, s) for s in slews]
     vdd = cfg.process.vdd
+    wants = {}
     for pin, edge in runs[0]:
         # The clock's last two edges each way: after (or capturing) a 0 and a 1.
-        want = float(np.mean([r[pin, edge][-2:] for r in runs])) / vdd
+        want = wants[pin, edge] = float(np.mean([r[pin, edge][-2:] for r in runs])) / vdd
         got = getattr(pins[pin], edge)
         assert got == pytest.approx(want, rel=PIN_CAP_RTOL, abs=0), (pin, edge, got, want)
-    rn = pins["RSTB"]
-    assert abs(rn.rise / rn.fall - 1.0) > EDGES_APART, (rn.rise, rn.fall)
+    # The reference's two RSTB edges differ (3.9 % measured), and charflow's the same way.
+    rn, ratio = pins["RSTB"], wants["RSTB", "rise"] / wants["RSTB", "fall"]
+    assert abs(ratio - 1.0) > EDGES_APART, ratio
+    assert rn.rise / rn.fall == pytest.approx(ratio, rel=PIN_CAP_RTOL), (rn.rise, rn.fall)
 
 
 def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
@@ -358,3 +361,18 @@ def test_the_demo_reset_clears_the_flop_with_any_pulse_past_the_thresholds():
     assert m.value is None and m.stimulus == RUNT
     probe = sequential.pulse_probe(demo, deck, point)
     assert probe(m.bracket[1])
+
+
+def test_a_bracket_that_does_not_hold_is_searched_on_outwards():
+    # The re-check's search past a bracket end (sequential._step_out): steps doubling outwards
+    # from the end that failed its verdict, then bisection (a root-bracketing search: Press et
+    # al., Numerical Recipes, 3rd ed., 2007, sec. 9.1). The edge at 3.3 lies in the result.
+    def passes(x: float) -> bool:
+        return x >= 3.3
+
+    assert sequential._step_out(passes, 2.0, 0.5, 10.0, "up") == (2.5, 3.5)
+    assert sequential._step_out(passes, 5.0, -0.5, -10.0, "down") == (3.5, 1.5)
+    failing, passing = sequential._bisect(passes, 1.5, 3.5, 0.01)
+    assert failing < 3.3 <= passing and passing - failing <= 0.01
+    with pytest.raises(MeasurementError):
+        sequential._step_out(passes, 5.0, -0.5, 4.0, "down")

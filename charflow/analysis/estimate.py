@@ -28,7 +28,7 @@ from collections import Counter
 from dataclasses import dataclass, replace
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import combinational, registry
+from charflow.measurement import combinational, registry, sequential
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
 from charflow.plan.cellwork import function_point, leakage_point
@@ -169,10 +169,15 @@ def _measured(config: LibraryConfig, deck: Deck, points) -> list:
     return outcomes
 
 
-def _sampled(config: LibraryConfig, deck: Deck, kind: str, group, count: int) -> GroupCost:
-    """A group's cost from ``count`` samples spread over it (the first, ..., the last)."""
+def _picks(group, count: int) -> list:
+    """``count`` points spread over ``group``: the first, ..., the last."""
     count = min(count, len(group))
-    picks = [group[i * (len(group) - 1) // max(1, count - 1)] for i in range(count)]
+    return [group[i * (len(group) - 1) // max(1, count - 1)] for i in range(count)]
+
+
+def _sampled(config: LibraryConfig, deck: Deck, kind: str, group, count: int) -> GroupCost:
+    """A group's cost from ``count`` samples spread over it (``_picks``)."""
+    picks = _picks(group, count)
     start = time.perf_counter()
     outcomes = _measured(config, deck, picks)
     seconds = (time.perf_counter() - start) / len(picks)
@@ -231,7 +236,12 @@ def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, 
     """A flip-flop's points by how they are measured: clock and control arcs from a few
     samples, each kind of search from one."""
     clocked = [p for p in points if isinstance(p, TimingPoint)]
-    groups = [_sampled(config, deck, CLOCKED, clocked, SAMPLES)] if clocked else []
+    groups = []
+    if clocked:
+        groups += [
+            _arc_checks(config, deck, clocked),
+            _sampled(config, deck, CLOCKED, clocked, SAMPLES),
+        ]
     for kind in _SEARCHES:
         group = [p for p in points if isinstance(p, ConstraintPoint) and p.kind == kind]
         if group:
@@ -240,6 +250,18 @@ def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, 
     if pulses:
         groups.append(_sampled(config, deck, "pulse-width searches", pulses, 1))
     return tuple(groups)
+
+
+def _arc_checks(config: LibraryConfig, deck: Deck, clocked) -> GroupCost:
+    """The convergence checks of the clock and control arcs (``sequential.check_arc``), once
+    per arc in a worker: measured on the arcs of the clocked samples, first, so that those
+    samples are charged their own runs only."""
+    arcs = {sequential.arc_of(p) for p in clocked}
+    checked = list({sequential.arc_of(p): p for p in _picks(clocked, SAMPLES)}.values())
+    start = time.perf_counter()
+    runs = sum(sequential.check_arc(config, deck, p)[0] for p in checked)
+    seconds = (time.perf_counter() - start) / len(checked)
+    return GroupCost("arc checks", len(arcs), seconds, runs / len(checked), len(checked))
 
 
 def render(est: Estimate) -> str:

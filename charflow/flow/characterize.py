@@ -520,6 +520,8 @@ def _point_record(m: Measurement | SearchResult) -> dict[str, Any]:
         }
         if isinstance(m.point, PulsePoint):
             record.update(stimulus=m.stimulus, bracket_s=m.bracket, note=m.note)
+        else:  # the bracket that held at tightened settings, and what moved (sequential)
+            record.update(bracket_s=m.bracket, note=m.note)
         return record
     p = m.point
     return {

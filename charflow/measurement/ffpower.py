@@ -109,7 +109,7 @@ def _hold_request(
             f"the flop cannot hold {int(state)} under {when}: a clear "
             "or preset it asserts forces the state"
         )
-    waves, move = _hold_waves(Timeline(config, cell, window), state, vector)
+    waves, move = _hold_waves(Timeline(config, cell, window, (min(cell.grid.slew),)), state, vector)
     max_step = hold / HOLD_STEPS
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     return Request(

@@ -9,7 +9,6 @@ import numpy as np
 from charflow.config.library import LibraryConfig
 from charflow.measurement import ffpower, sequential
 from charflow.measurement.combinational import LOGIC_MARGIN, alters, backend_for, simulate
-from charflow.measurement.sequential import WINDOW_STEPS
 from charflow.measurement.waves import integral, single_crossing
 from charflow.plan.arcs import capture_values, stored_output
 from charflow.plan.toggles import stored_value
@@ -29,7 +28,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     cell = config.cell(point.cell)
     flop = cell.flip_flop
     window = sequential.settle_window(config, deck)
-    bench = Timeline(config, cell, window)
+    bench = Timeline(config, cell, window, (point.slew, min(cell.grid.slew)))
     vdd, thr = bench.vdd, bench.thr
     side = dict(point.side)
     state = stored_value(cell, point)
@@ -78,7 +77,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     supply = f"{deck.supply}#branch"
     in_branch = f"{deck.input_source(point.related)}#branch"
     grid = ffpower.event_grid(event, bench.window)
-    max_step = bench.window / WINDOW_STEPS
+    max_step = sequential.run_step(config, point.slew, min(cell.grid.slew))
     request = Request(
         deck,
         alters(deck, cell, waves, {o: point.load for o in outputs}, grid),

@@ -10,7 +10,8 @@ clock-to-output has pushed out by no more than ``simulation.pushout`` over its r
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
+import logging
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -18,6 +19,7 @@ from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, T
 from charflow.measurement import ffpower
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
+    GRID_POINTS,
     LOGIC_MARGIN,
     PARKED_GRID,
     REFINE_SLACK,
@@ -37,7 +39,12 @@ from charflow.measurement.waves import (
     waveform,
 )
 from charflow.plan.arcs import capture_values, inactive_controls, plan, stored_output
-from charflow.records.errors import FunctionalMismatchError, MeasurementError
+from charflow.records.errors import (
+    FunctionalMismatchError,
+    MeasurementError,
+    SimulatorError,
+    SimulatorHungError,
+)
 from charflow.records.outcomes import (
     FULL,
     RUNT,
@@ -48,18 +55,37 @@ from charflow.records.outcomes import (
     waveform_of,
 )
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
+from charflow.records.units import show_time
 from charflow.simulation import stimulus
-from charflow.simulation.backends import Request
+from charflow.simulation.backends import RESETTABLE, Request, deck_options
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION, BoundedCache
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
 
-WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's largest slew, at least
-WINDOW_DOUBLINGS = 5  # ... doubled up to this many times until the cell settles in it
-WINDOW_STEPS = 200  # first-run samples across a window, before refinement
+log = logging.getLogger("charflow")
+
+WINDOW_SLEWS = 10.0  # settle window after an edge, in the grid's sharpest slew, at least
+WINDOW_DOUBLINGS = 9  # ... doubled up to this many times until the cell settles in it
+RAMP_STEPS = 2.0  # largest time step: the run's sharpest input ramp over this (see run_step)
 GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps after each one
+# Of the breakpoints between a slow event and its output edge (_edge_grid), and where along the
+# event's ramp they start: the cell's first gate switches near the ramp's middle. Measured on
+# seq_l1's QDFFR_P1 clock and clear arcs, 0.01-1.5 ns: within 0.08 % of a 40x finer step, where
+# 12 points from the ramp's start left up to 0.43 %.
+LEAD_POINTS = 20
+LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
+# A convergence check re-simulates at the run's step over TIGHT_STEPS and reltol over
+# TIGHT_RELTOL (a converged transient no longer moves as both shrink: common practice): every
+# constraint search's final bracket (_confirm), and each clock or control arc's sample, whose
+# delay may move by SAMPLE_RTOL and transition by SAMPLE_TRANSITION_RTOL before the whole arc
+# takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
+# rise's transition 0.52 % and the rest within 0.13 %).
+TIGHT_STEPS = 4.0
+TIGHT_RELTOL = 10.0
+SAMPLE_RTOL = 0.002
+SAMPLE_TRANSITION_RTOL = 0.01
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,30 +107,59 @@ class Outcome:
         return self.t_out - self.t_event
 
 
+def _bench(
+    config: LibraryConfig, deck: Deck, *slews: float, window: float | None = None
+) -> Timeline:
+    """The timeline of one experiment, sized from the slews of the edges it makes (not the
+    grid's largest: a sharp point's run stays short) and the cell's settle window."""
+    cell = config.cell(deck.cell)
+    return Timeline(config, cell, window or settle_window(config, deck), slews)
+
+
+def run_step(config: LibraryConfig, *slews: float) -> float:
+    """The largest time step of a flop experiment whose edges have these slews: the sharpest
+    ramp among them over RAMP_STEPS, never a share of the window (which is sized from the
+    grid's largest slew). At window / 200 a 0.01 ns clock-to-output of seq_l1's QDFFR_P1 read
+    1.35 ps (1.5 %) late on a [0.01, 1.5] ns grid against a 0.2 ps-step run; with this step
+    (and the refinement's breakpoints from the event on) within 0.05 ps of it on either grid."""
+    thr, vdd = config.thresholds, config.process.vdd
+    ramps = (stimulus.ramp(s, e, thr, vdd) for s in slews for e in ("rise", "fall"))
+    return min(r.duration for r in ramps) / RAMP_STEPS
+
+
+def run_settings(
+    config: LibraryConfig, deck: Deck, tight: bool, *slews: float
+) -> tuple[float, tuple[str, ...]]:
+    """The largest step (``run_step``) and the simulator options of a flop experiment; with
+    ``tight``, of its convergence check: the step over TIGHT_STEPS and reltol (the deck's, else
+    ngspice's default) over TIGHT_RELTOL."""
+    step = run_step(config, *slews)
+    if not tight:
+        return step, ()
+    reltol = float(deck_options(deck.text).get("reltol", RESETTABLE["reltol"]))
+    return step / TIGHT_STEPS, (f"reltol={reltol / TIGHT_RELTOL:.3g}",)
+
+
 _WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation], float] = SESSION.cache(
     "settle windows"
 )
 
 
-def _bench(config: LibraryConfig, deck: Deck, window: float | None = None) -> Timeline:
-    """The cell's timeline with ``window``, or the cell's own settle window."""
-    return Timeline(config, config.cell(deck.cell), window or settle_window(config, deck))
-
-
 def settle_window(config: LibraryConfig, deck: Deck) -> float:
     """How long a flop experiment runs past its event, and the clock's phases hold:
-    ``simulation.window`` when set; else WINDOW_SLEWS × the grid's largest slew, doubled up to
-    WINDOW_DOUBLINGS times until the cell's slowest events (its clock and control arcs to the
-    first output at the sharpest slew and the largest loads; the other output moving draws
+    ``simulation.window`` when set; else WINDOW_SLEWS × the grid's sharpest slew, doubled up
+    to WINDOW_DOUBLINGS times until the cell's slowest events (its clock and control arcs to
+    the first output at the sharpest slew and the largest loads; the other output moving draws
     supply current, which must settle too) measure cleanly in it: a window follows the cell,
-    not only the grid. A cell that measures in none keeps the shortest, and its points report
+    not the grid's largest slew (it starts once the event's ramp is over, so a slow ramp needs
+    no more of it). A cell that measures in none keeps the shortest, and its points report
     why. Probed once per worker and testbench."""
     if config.simulation.window:
         return config.simulation.window
     cell = config.cell(deck.cell)
     key = (deck.key, cell.grid, config.thresholds, config.simulation)
     if key not in _WINDOWS:
-        base = WINDOW_SLEWS * max(cell.grid.slew)
+        base = WINDOW_SLEWS * min(cell.grid.slew)
         slowest = [
             p
             for p in plan(config, [cell.name]).points
@@ -143,6 +198,25 @@ def _settle_samples(ramps: tuple[Ramp, ...], event: Ramp, window: float) -> tupl
     return tuple(float(x) for span in spans for x in span)
 
 
+def _edge_grid(
+    event: Ramp, edge: tuple[float, float], wanted: float, inside: tuple[float, ...]
+) -> str:
+    """Breakpoints from the event through the output ``edge`` (with its margins), every
+    GRID_SPACING wanted samples: the cell's nodes answer the event in between (a sharp
+    clock-to-output read 1.5 % late with the edge alone sampled). Where that takes more than
+    the breakpoint source's GRID_POINTS, the edge keeps its spacing and LEAD_POINTS spread from
+    LEAD_FROM of the event's ramp on: over a slow ramp the spacing would miss the edge (a 1.5 ns
+    clock ramp's QB transition read 16 % long). The rest of the run keeps its step."""
+    spacing = GRID_SPACING * wanted
+    start, last = edge
+    if last - min(event.start, start) <= GRID_POINTS * spacing:
+        return breakpoints(min(event.start, start), last, spacing, inside)
+    first = min(event.start + LEAD_FROM * event.duration, start)
+    dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
+    lead = (start - first) / LEAD_POINTS
+    return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
+
+
 def run_event(
     config: LibraryConfig,
     deck: Deck,
@@ -150,6 +224,7 @@ def run_event(
     loads: dict[str, float],
     *,
     event: Ramp,
+    step: float,
     output: str,
     before: bool,
     after: bool,
@@ -157,13 +232,16 @@ def run_event(
     charge_windows: tuple[tuple[str, Ramp, float | None], ...] = (),
     states: tuple[bool, bool] | None = None,
     window: float | None = None,
+    options: tuple[str, ...] = (),
 ) -> tuple[Outcome, int, float]:
-    """Simulate one experiment; the output must hold ``before`` until the event and settle at
-    ``after`` (a bool level) once it, within ``window`` (``settle_window`` unless given).
+    """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
+    ``before`` until the event and settle at ``after`` (a bool level) once it, within
+    ``window`` (``settle_window`` unless given).
     Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
     the charge the pin draws from its ramp's start. With
     ``states`` (the flop's state before and after the event) the event's energy is measured
-    too (``ffpower.event_energy``). Returns the outcome, simulations and simulator seconds."""
+    too (``ffpower.event_energy``). ``options``: simulator options of the run (``tightened``).
+    Returns the outcome, simulations and simulator seconds."""
     cell = config.cell(deck.cell)
     vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
     out_node = deck.output_node(output)
@@ -184,7 +262,7 @@ def run_event(
         recorded = tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
         stop_when = None
     stop = arm + window
-    max_step = window / WINDOW_STEPS
+    max_step = step
     grid = PARKED_GRID
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
     if states is not None:
@@ -199,6 +277,7 @@ def run_event(
             alters(deck, cell, waves, loads, grid),
             f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
             recorded,
+            options,
             stop_when=stop_when,
         )
         result, attempts = simulate(backend, request)
@@ -230,9 +309,7 @@ def run_event(
         coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
         if coarse <= REFINE_SLACK * wanted or refine == REFINEMENTS:
             break
-        # Dense samples only around the output edge: the rest of the run keeps its step.
-        margin = coarse + raw
-        grid = breakpoints(band[0] - margin, band[1] + margin, GRID_SPACING * wanted, inside)
+        grid = _edge_grid(event, (band[0] - coarse - raw, band[1] + coarse + raw), wanted, inside)
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
         (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
@@ -260,11 +337,95 @@ def measure_clocked(
     config: LibraryConfig, deck: Deck, point: TimingPoint, window: float | None = None
 ) -> Measurement:
     """A clock arc (second active edge after writing the opposite value) or an asynchronous
-    control arc (after writing the value it changes); ``window`` as in ``run_event``. Every
-    input that moves in the run is asked for its charge on each of its edges (``_clock_run``,
-    ``_control_run``)."""
+    control arc (after writing the value it changes); ``window`` as in ``run_event`` (a window
+    probe: the arc's convergence is not checked). Every input that moves in the run is asked
+    for its charge on each of its edges (``_clock_run``, ``_control_run``). The arc is measured
+    at tightened settings where its sample moved there (``_arc_check``)."""
+    if window is not None:
+        return _clocked(config, deck, point, window)
+    tight, sample, runs, seconds = _arc_check(config, deck, point)
+    measured = sample if sample is not None else _clocked(config, deck, point, tight=tight)
+    return replace(measured, runs=measured.runs + runs, sim_seconds=measured.sim_seconds + seconds)
+
+
+# (deck, grid, settings, arc) -> whether the arc is measured at tightened settings
+_ARCS: BoundedCache[tuple, bool] = SESSION.cache("arc checks")
+
+
+def arc_of(point: TimingPoint) -> tuple:
+    """What a clock or control point shares with the rest of its arc: all but slew and loads."""
+    p = point
+    return (p.kind, p.related, p.side, p.input_edge, p.output, p.output_edge)
+
+
+def _sample(config: LibraryConfig, point: TimingPoint) -> TimingPoint:
+    """The point of ``point``'s arc its convergence check simulates (``_arc_check``)."""
+    grid = config.cell(point.cell).grid
+    other = None if point.other_load is None else min(grid.related_load)
+    return replace(point, slew=min(grid.slew), load=min(grid.load), other_load=other)
+
+
+def check_arc(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple[int, float]:
+    """The convergence check of ``point``'s arc (``_arc_check``), run now as when its sample
+    is the arc's first point in this worker: the simulations and seconds it costs beyond the
+    sample's own run (none once the arc is checked here)."""
+    _, _, runs, seconds = _arc_check(config, deck, _sample(config, point))
+    return runs, seconds
+
+
+def _arc_check(
+    config: LibraryConfig, deck: Deck, point: TimingPoint
+) -> tuple[bool, Measurement | None, int, float]:
+    """Whether ``point``'s arc is measured at tightened settings (``run_settings``): once per
+    worker, the arc's sample (the sharpest slew and the smallest loads: the shortest edges
+    against the step) is measured at the usual settings and at tightened ones; where its delay
+    moves by more than SAMPLE_RTOL or its transition SAMPLE_TRANSITION_RTOL the arc takes the
+    tightened settings, with a warning (a sample that does not measure leaves the arc at the
+    usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
+    the simulations and seconds the check cost beyond it."""
     cell = config.cell(point.cell)
-    bench = _bench(config, deck, window)
+    key = (deck.key, cell.grid, config.thresholds, config.simulation, arc_of(point))
+    sample = _sample(config, point)
+    if key in _ARCS:
+        return _ARCS[key], None, 0, 0.0
+    try:
+        usual = _clocked(config, deck, sample)
+        tightened = _clocked(config, deck, sample, tight=True)
+    except SimulatorHungError:
+        raise
+    except (MeasurementError, SimulatorError):
+        # A sample that does not measure fails as its own point, not every point of its arc.
+        _ARCS[key] = False
+        return False, None, 0, 0.0
+    delay = abs(tightened.delay / usual.delay - 1.0)
+    transition = abs(tightened.transition / usual.transition - 1.0)
+    _ARCS[key] = tight = delay > SAMPLE_RTOL or transition > SAMPLE_TRANSITION_RTOL
+    if tight:
+        log.warning(
+            "cell %s, %s: its sample %s moved at tightened simulator settings (delay %.2g %%, "
+            "transition %.2g %%): the arc is measured at them",
+            cell.name,
+            point.label,
+            sample.label,
+            100 * delay,
+            100 * transition,
+        )
+    kept, spare = (tightened, usual) if tight else (usual, tightened)
+    if point == sample:
+        return tight, kept, spare.runs, spare.sim_seconds
+    return tight, None, usual.runs + tightened.runs, usual.sim_seconds + tightened.sim_seconds
+
+
+def _clocked(
+    config: LibraryConfig,
+    deck: Deck,
+    point: TimingPoint,
+    window: float | None = None,
+    tight: bool = False,
+) -> Measurement:
+    """``measure_clocked`` at the usual settings or, with ``tight``, the tightened ones."""
+    cell = config.cell(point.cell)
+    bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
     out_after = point.output_edge == "rise"
     if point.kind == "clock":
         stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
@@ -272,18 +433,21 @@ def measure_clocked(
     else:
         stored = point.kind == "preset"
         waves, event, windows = _control_run(bench, point, stored)
+    step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
     outcome, runs, seconds = run_event(
         config,
         deck,
         waves,
         point_loads(cell, point),
         event=event,
+        step=step,
         output=point.output,
         before=stored_output(cell, point.output, not stored),
         after=out_after,
         charge_windows=windows,
         states=(not stored, stored),
         window=bench.window,
+        options=options,
     )
     (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
@@ -430,15 +594,65 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
         bracket = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
-    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
+    checked, check = _confirm(config, deck, point, bracket)
+    note = ""
+    if checked != bracket:
+        unit = config.time_unit
+        note = (
+            f"moved from {show_time(bracket[1], unit)} to {show_time(checked[1], unit)} when "
+            "its bracket was re-simulated at tightened settings: searched on at them"
+        )
+        log.warning("cell %s, %s: %s", point.cell, point.label, note)
+    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
+    return SearchResult(point, checked[1], runs, seconds, checked, note=note)
 
 
-def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
-    """The pass test of a constraint point, its failing and its relaxed (passing) offset."""
+def _confirm(
+    config: LibraryConfig, deck: Deck, point: ConstraintPoint, bracket: tuple[float, float]
+) -> tuple[tuple[float, float], _Trials]:
+    """A search's final (failing, passing) bracket re-simulated at tightened settings
+    (``run_settings``, with its own relaxed reference): the passing end must pass and the
+    failing end fail there too. Where one does not, the search goes on at those settings,
+    outwards from that end in steps that double from the tolerance, then by bisection. Returns
+    the bracket that holds at tightened settings and the check's trials."""
+    passes, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
+    tol = config.simulation.bisect_tolerance
+    failing, passing = bracket
+    with KeepWaveform(lambda: trials.failed):
+        if not passes(hi):
+            raise MeasurementError(f"{point.label}: fails even with relaxed timing ({hi:.4g} s)")
+        if passes(passing):
+            if not passes(failing):
+                return bracket, trials
+            passing, failing = _step_out(passes, failing, -tol, lo, point.label)
+        else:
+            failing, passing = _step_out(passes, passing, tol, hi, point.label)
+        return _bisect(passes, failing, passing, tol), trials
+
+
+def _step_out(passes, start: float, step: float, limit: float, what: str) -> tuple[float, float]:
+    """From ``start`` in steps of ``step`` that double, up to ``limit``: the last offset with
+    ``start``'s verdict and the first with the other (a passing one going up, ``step`` > 0; a
+    failing one going down)."""
+    want = step > 0
+    last = at = start
+    while (at - limit) * (1 if want else -1) < 0:
+        at = min(at + step, limit) if want else max(at + step, limit)
+        if passes(at) == want:
+            return last, at
+        last, step = at, step * 2
+    raise MeasurementError(f"{what}: the tightened re-check does not bracket at {limit:.4g} s")
+
+
+def _constraint_setup(
+    config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool = False
+):
+    """The pass test of a constraint point, its failing and its relaxed (passing) offset; with
+    ``tight``, at the tightened settings of a convergence check (``run_settings``)."""
     if point.kind in ("recovery", "removal"):
-        return _release_setup(config, deck, point)
+        return _release_setup(config, deck, point, tight)
     cell = config.cell(point.cell)
-    bench, flop = _bench(config, deck), cell.flip_flop
+    bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
     out = cell.outputs[0].pin
     others = _sensitized_data(cell, point.constrained)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
@@ -471,10 +685,20 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
         waves[pin] = vector
         return waves, quiet
 
+    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
+
     def passes(offset: float) -> bool:
         waves, quiet = waves_at(offset)
         outcome = trials(
-            waves, loads, event=event, output=out, before=before, after=after, quiet_until=quiet
+            waves,
+            loads,
+            event=event,
+            step=step,
+            output=out,
+            before=before,
+            after=after,
+            quiet_until=quiet,
+            options=options,
         )
         return trials.in_time(outcome)
 
@@ -489,13 +713,13 @@ def _constraint_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint)
     return passes, lo, relaxed, trials
 
 
-def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool):
     """Recovery: the least release-before-clock offset of a clear or preset after which the
     clock edge still captures the other value in time. Removal: the least clock-to-release
     offset for which the edge captures nothing, the control still holding the flop (either may
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
-    bench, flop = _bench(config, deck), cell.flip_flop
+    bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
     out = cell.outputs[0].pin
     pin = point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
@@ -510,6 +734,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
+    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
 
     def passes(offset: float) -> bool:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
@@ -521,7 +746,15 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
         after = stored_output(cell, out, not forced) if recovery else held
         quiet = go.end if recovery else go.end + bench.window / 4
         outcome = trials(
-            waves, loads, event=event, output=out, before=held, after=after, quiet_until=quiet
+            waves,
+            loads,
+            event=event,
+            step=step,
+            output=out,
+            before=held,
+            after=after,
+            quiet_until=quiet,
+            options=options,
         )
         # Recovery is judged like setup (captured, and in time); removal by the flop staying.
         return trials.in_time(outcome) if recovery else outcome is not None
@@ -591,7 +824,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
     result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
     cell = config.cell(point.cell)
-    bench = _bench(config, deck)
+    bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
@@ -628,6 +861,7 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
     stored = True
     new, old = capture_values(cell, stored), capture_values(cell, not stored)
     active_level = "high" if flop.edge == "rise" else "low"
+    step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         if point.level == active_level:
@@ -642,6 +876,7 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
             waves,
             loads,
             event=event,
+            step=step,
             output=out,
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
@@ -661,6 +896,7 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
     old = capture_values(cell, not stored)
     clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
     start = first_edge.end + bench.half
+    step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
@@ -671,6 +907,7 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
             waves,
             loads,
             event=event,
+            step=step,
             output=out,
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
@@ -688,7 +925,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
     # The configured window, else the shortest: a cell that does not work should not be
     # probed for a window first.
     shortest = config.simulation.window or WINDOW_SLEWS * max(cell.grid.slew)
-    bench, flop = _bench(config, deck, shortest), cell.flip_flop
+    bench, flop = _bench(config, deck, *cell.grid.slew, window=shortest), cell.flip_flop
     slew = cell.grid.slew[len(cell.grid.slew) // 2]
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     fixed = inactive_controls(cell)
@@ -709,6 +946,7 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
                         waves,
                         loads,
                         event=event,
+                        step=run_step(config, slew),
                         output=out.pin,
                         before=stored_output(cell, out.pin, previous),
                         after=stored_output(cell, out.pin, stored),
@@ -724,12 +962,22 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
                     ) from exc
 
 
+def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
+    """The pass test of a constraint search as a function of the offset, for re-checking a
+    result: at the tightened settings its final bracket holds at (``_confirm``), a fresh
+    relaxed reference simulated first."""
+    passes, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
+    if not passes(relaxed):
+        raise MeasurementError(f"{point.label}: fails even with relaxed timing")
+    return passes
+
+
 def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
     swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
     relaxed reference is simulated first."""
     cell = config.cell(point.cell)
-    bench = _bench(config, deck)
+    bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, _Trials(config, deck))

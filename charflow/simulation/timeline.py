@@ -9,16 +9,18 @@ from charflow.simulation.stimulus import Ramp
 
 class Timeline:
     """The waveform timeline shared by every experiment on one flip-flop: clock and data
-    pulses placed half a period apart, a period long enough for the grid's slowest edge and
+    pulses placed half a period apart, a period long enough for the slowest of ``slews`` and
     the settling ``window`` after it."""
 
-    def __init__(self, config: LibraryConfig, cell: CellSpec, window: float) -> None:
+    def __init__(
+        self, config: LibraryConfig, cell: CellSpec, window: float, slews: tuple[float, ...]
+    ) -> None:
         self.config, self.cell = config, cell
         self.vdd = config.process.vdd
         self.thr = config.thresholds
-        largest = max(cell.grid.slew)
         self.window = window
-        ramp = stimulus.ramp(largest, "rise", self.thr, self.vdd)
+        # Sized from the slews of the edges the experiment makes, not the grid's largest.
+        ramp = stimulus.ramp(max(slews), "rise", self.thr, self.vdd)
         # Half a period holds the slowest edge and its settling, with room for a data edge.
         self.half = 2.0 * ramp.duration + self.window
         self.lead = ramp.start
