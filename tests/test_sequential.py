@@ -34,13 +34,11 @@ FLAT_MAX = 0.02  # an output not driven through the other: < 2 %
 PIN_CAP_RTOL = 0.02  # a pin's capacitance on one edge against a plain-ngspice charge ÷ vdd
 EDGES_APART = 0.03  # RSTB's two edges move different nodes: their charges differ by more
 SETTLE = 2e-9  # s each event of the reference run is given: twice charflow's settle window
-# s: how far the reference's pass/fail boundary may lie outside charflow's final bracket.
-# Bisected to 0.02 ps with tests/reference/constraint.py, five of QDFFR_P1's six boundaries lie
-# inside charflow's bracket; hold rise lies 0.33 ps above charflow's answer (19.53 against
-# 19.21 ps). charflow's flop runs step at up to window / 200 (5 ps here) away from the output
-# edge: plain ngspice at that step also gives 92.7 ps clock-to-Q there, at 1 ps 93.6 ps
-# (measured, December 2026). Set this to 0 once the flop step resolves it.
-BOUNDARY_MARGIN = 0.5e-12
+# s: how far the reference's pass/fail boundary may lie outside charflow's final bracket: none.
+# Before the flip-flop step followed the point's own edges (window / 200, 5 ps here), hold rise
+# lay 0.33 ps above charflow's answer (19.53 against 19.21 ps, measured December 2026); with the
+# step and the bracket's re-check at tightened settings every boundary is inside.
+BOUNDARY_MARGIN = 0.0
 REFERENCE_STEP = 1e-12  # s, the reference run's largest time step
 
 
