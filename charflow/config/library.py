@@ -69,7 +69,18 @@ class Grid:
     slew: tuple[float, ...]  # s
     load: tuple[float, ...]  # F
     related_load: tuple[float, ...] = ()  # F, the other output's load of a two-output cell
-    constraint_slew: tuple[float, ...] = ()  # s, setup/hold indexes (default: slew)
+    constraint_slew: tuple[float, ...] = ()  # s, the constrained pin's slews (default: slew)
+    clock_slew: tuple[float, ...] = ()  # s, the clock's slews of those tables (default: above)
+
+    @property
+    def data_slews(self) -> tuple[float, ...]:
+        """The constrained (data or control) pin's slews of setup, hold, recovery and removal."""
+        return self.constraint_slew or self.slew
+
+    @property
+    def clock_slews(self) -> tuple[float, ...]:
+        """The clock's slews of those tables: its own list, else the data pin's."""
+        return self.clock_slew or self.data_slews
 
 
 @dataclass(frozen=True, slots=True)
@@ -402,7 +413,7 @@ class _Reader:
 _LIBRARY_KEYS = {"name", "time_unit", "cap_unit"}
 _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
-_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew"}
+_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew", "clock_slew"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
 _FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
 _CELL_KEYS = {
@@ -477,12 +488,11 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
         if "related_load" in grid_doc
         else ()
     )
-    constraint = (
-        r.axis(grid_doc, "constraint_slew", "grid", tscale, None)
-        if "constraint_slew" in grid_doc
-        else ()
+    constraint, clock = (
+        r.axis(grid_doc, key, "grid", tscale, None) if key in grid_doc else ()
+        for key in ("constraint_slew", "clock_slew")
     )
-    grid = Grid(slew or (), load_ or (), related or (), constraint or ())
+    grid = Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
     fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
 
@@ -807,6 +817,11 @@ def _cell(
         if "constraint_slew" in grid_doc
         else grid.constraint_slew
     )
+    clock = (
+        r.axis(grid_doc, "clock_slew", f"{key}.grid", tscale, name)
+        if "clock_slew" in grid_doc
+        else grid.clock_slew
+    )
     axis3 = r.get(doc, "other_output_axis", bool, key, len(outputs) == 2, name)
     if axis3 and len(outputs) != 2:
         r.problem(f"{key}.other_output_axis", "needs a cell with exactly two outputs", name)
@@ -821,7 +836,7 @@ def _cell(
         name=name,
         inputs=tuple(inputs),
         outputs=tuple(outputs),
-        grid=Grid(slew or (), load_ or (), related or (), constraint or ()),
+        grid=Grid(slew or (), load_ or (), related or (), constraint or (), clock or ()),
         template=source if template is not None else None,
         netlist=source if netlist is not None else None,
         params=tuple(sorted(params.items())),

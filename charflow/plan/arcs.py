@@ -159,12 +159,12 @@ def _timing_points(cell: CellSpec, arc: Arc) -> list[TimingPoint]:
 def _flop_points(cell: CellSpec) -> list[Point]:
     flop = cell.flip_flop
     points: list[Point] = []
-    slews = cell.grid.constraint_slew or cell.grid.slew
+    data_slews, clock_slews = cell.grid.data_slews, cell.grid.clock_slews
     for data in cell.data_inputs:
         for kind in ("setup", "hold"):
             for edge in EDGES:
-                for ds in slews:
-                    for cs in slews:
+                for ds in data_slews:
+                    for cs in clock_slews:
                         points.append(
                             ConstraintPoint(
                                 cell.name, data, flop.clock, kind, edge, flop.edge, ds, cs
@@ -179,8 +179,8 @@ def _flop_points(cell: CellSpec) -> list[Point]:
             # Recovery and removal: the control's releasing edge against the clock.
             release = "fall" if active_high else "rise"
             for kind in ("recovery", "removal"):
-                for ds in slews:
-                    for cs in slews:
+                for ds in data_slews:
+                    for cs in clock_slews:
                         points.append(
                             ConstraintPoint(
                                 cell.name, pin, flop.clock, kind, release, flop.edge, ds, cs

@@ -165,8 +165,10 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
     for r in results:
         if isinstance(r.point, ConstraintPoint):
             groups.setdefault((r.point.constrained, r.point.kind), []).append((r.point, r.value))
-    slews = cell.grid.constraint_slew or cell.grid.slew
-    axes = (Axis(CONSTRAINED_AXIS, slews), Axis(RELATED_AXIS, slews))
+    axes = (
+        Axis(CONSTRAINED_AXIS, cell.grid.data_slews),
+        Axis(RELATED_AXIS, cell.grid.clock_slews),
+    )
     for (pin, kind), group in groups.items():
         tables = []
         # A control's recovery and removal are for its releasing edge alone.
