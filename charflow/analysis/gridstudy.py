@@ -537,34 +537,17 @@ def study(
     grids = _fixed_grids(config, span, sizes)
 
     series = row_points(config, cell_name)
-
-    def maps_of(axes: Sequence[Axis]) -> tuple[dict, dict]:
-        """The points of a grid and of its cell centres."""
-        return (
-            _grid_points(series, the_arc, axes),
-            _grid_points(series, the_arc, centres(axes)),
-        )
-
     outcomes: dict = {}
-
-    def simulate(maps: Iterable[dict]) -> None:
-        """Add the outcomes of the points of ``maps`` not yet simulated in this study."""
-        requested = dict.fromkeys(p for m in maps for p in m.values())
-        unique = [p for p in requested if p not in outcomes]
-        if on_start is not None:
-            on_start(sweep.work(unique))
-        outcomes.update(
-            (o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result)
-        )
-
     ref_points = _grid_points(series, the_arc, reference)
-    point_maps = {key: maps_of(axes) for key, axes in grids.items()}
-    simulate([ref_points, *(m for pair in point_maps.values() for m in pair)])
+    point_maps = {key: _maps_of(series, the_arc, axes) for key, axes in grids.items()}
+    maps = [ref_points, *(m for pair in point_maps.values() for m in pair)]
+    _simulate(config, maps, outcomes, jobs, on_start, on_result)
     ref = _whole(_surface(reference, ref_points, outcomes), cell_name, the_arc)
     optimized, predicted = _optimized_grids(config, span, ref, sizes, floor)
     grids.update(optimized)
-    point_maps.update((key, maps_of(axes)) for key, axes in optimized.items())
-    simulate([m for key in optimized for m in point_maps[key]])
+    point_maps.update((key, _maps_of(series, the_arc, axes)) for key, axes in optimized.items())
+    maps = [m for key in optimized for m in point_maps[key]]
+    _simulate(config, maps, outcomes, jobs, on_start, on_result)
     candidates = _candidates(grids, point_maps, outcomes, ref, floor, predicted)
     return Study(
         cell=cell_name,
@@ -577,6 +560,31 @@ def study(
         points=len(outcomes),
         wall_seconds=time.perf_counter() - start,
     )
+
+
+def _maps_of(series: dict, the_arc: Arc, axes: Sequence[Axis]) -> tuple[dict, dict]:
+    """The points of a grid and of its cell centres."""
+    return (
+        _grid_points(series, the_arc, axes),
+        _grid_points(series, the_arc, centres(axes)),
+    )
+
+
+def _simulate(
+    config: LibraryConfig,
+    maps: Iterable[dict],
+    outcomes: dict,
+    jobs: int | None,
+    on_start: Callable[[int], None] | None,
+    on_result: Callable[[object], None] | None,
+) -> None:
+    """Add to ``outcomes`` the outcomes of the points of ``maps`` not yet simulated in this
+    study (a point shared by several grids is simulated once)."""
+    requested = dict.fromkeys(p for m in maps for p in m.values())
+    unique = [p for p in requested if p not in outcomes]
+    if on_start is not None:
+        on_start(sweep.work(unique))
+    outcomes.update((o.point, o) for o in sweep.run(config, unique, jobs=jobs, on_result=on_result))
 
 
 def library_values(config: LibraryConfig, axis: Axis) -> list[float]:

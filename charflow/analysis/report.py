@@ -16,6 +16,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
+from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
@@ -97,21 +98,57 @@ def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes
     cax = fig.add_axes((0.79, 0.12, 0.03, 0.74))
     mesh = ax.pcolormesh(x, y, cells.T, cmap=CMAP, norm=norm, shading="flat")
     if len(x) - 1 <= ANNOTATE_CELLS and len(y) - 1 <= ANNOTATE_CELLS:
-        for i in range(len(x) - 1):
-            for j in range(len(y) - 1):
-                if not math.isnan(cells[i, j]):
-                    cx = _between(x, i, 0.5)
-                    cy = _between(y, j, 0.25)  # below the centre probe's marker
-                    dark = norm(cells[i, j]) > 0.6
-                    ax.text(
-                        cx,
-                        cy,
-                        f"{cells[i, j]:.2g}",
-                        ha="center",
-                        va="center",
-                        fontsize=6.5,
-                        color="white" if dark else "black",
-                    )
+        _annotate_cells(ax, x, y, cells, norm)
+    _mark_points(ax, check, (x, xs), (y, ys), norm)
+    if _log_scale(x):
+        ax.set_xscale("log")
+    if _log_scale(y):
+        ax.set_yscale("log")
+    ax.set_xlabel(f"{xl} ({xu})")
+    ax.set_ylabel(f"{yl} ({yu})")
+    st = check.stats
+    stats = "no probe simulated" if st is None else f"max {pct(st.max_rel)}"
+    if check.table.ndim == 3:
+        stats += ", worst over the other output's load"
+    ax.set_title(f"{check.label}\n{stats}", fontsize=8.5)
+    ax.tick_params(labelsize=7)
+    bar = fig.colorbar(mesh, cax=cax)
+    bar.set_label("relative error, % (cell: its worst probe)", fontsize=7)
+    bar.ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+def _annotate_cells(
+    ax: Axes, x: np.ndarray, y: np.ndarray, cells: np.ndarray, norm: Normalize
+) -> None:
+    """Write each grid cell's worst error (percent) in it, white on the dark colours."""
+    for i in range(len(x) - 1):
+        for j in range(len(y) - 1):
+            if not math.isnan(cells[i, j]):
+                cx = _between(x, i, 0.5)
+                cy = _between(y, j, 0.25)  # below the centre probe's marker
+                dark = norm(cells[i, j]) > 0.6
+                ax.text(
+                    cx,
+                    cy,
+                    f"{cells[i, j]:.2g}",
+                    ha="center",
+                    va="center",
+                    fontsize=6.5,
+                    color="white" if dark else "black",
+                )
+
+
+def _mark_points(
+    ax: Axes,
+    check: TableCheck,
+    xaxis: tuple[np.ndarray, float],
+    yaxis: tuple[np.ndarray, float],
+    norm: Normalize,
+) -> None:
+    """The probes (coloured by their error), the grid points and the failed probes; each axis
+    comes as its values in library units and the scale of those units."""
+    (x, xs), (y, ys) = xaxis, yaxis
     for kind, marker in ((CENTRE, "o"), ("random", "^")):
         pts = [p for p in check.points if p.kind == kind]
         if pts:
@@ -131,22 +168,6 @@ def heat_map_png(config: LibraryConfig, check: TableCheck, vmax: float) -> bytes
     ax.plot(gx.ravel(), gy.ravel(), "k+", markersize=6, markeredgewidth=1.1, zorder=4)
     for fails in check.failures:
         ax.plot(fails[0][0] / xs, fails[0][1] / ys, "bx", markersize=6, zorder=5)
-    if _log_scale(x):
-        ax.set_xscale("log")
-    if _log_scale(y):
-        ax.set_yscale("log")
-    ax.set_xlabel(f"{xl} ({xu})")
-    ax.set_ylabel(f"{yl} ({yu})")
-    st = check.stats
-    stats = "no probe simulated" if st is None else f"max {pct(st.max_rel)}"
-    if check.table.ndim == 3:
-        stats += ", worst over the other output's load"
-    ax.set_title(f"{check.label}\n{stats}", fontsize=8.5)
-    ax.tick_params(labelsize=7)
-    bar = fig.colorbar(mesh, cax=cax)
-    bar.set_label("relative error, % (cell: its worst probe)", fontsize=7)
-    bar.ax.tick_params(labelsize=7)
-    return _png(fig)
 
 
 _STYLE = """

@@ -469,59 +469,23 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
     r.unknown(doc, _TOP_KEYS, "", None)
     base = path.parent
 
-    lib = r.section(doc, "library", _LIBRARY_KEYS, required=True)
-    name = r.get(lib, "name", str, "library")
-    if name is not None and not _is_identifier(name):
-        r.problem("library.name", f"must be a name of letters, digits and _, got {name!r}")
-    time_unit = _unit(r, lib, "time_unit", "ns", TIME_UNITS)
-    cap_unit = _unit(r, lib, "cap_unit", "pf", CAP_UNITS)
+    name, time_unit, cap_unit = _library(r, doc)
     tscale = time_scale(time_unit) if time_unit else 1.0
     cscale = cap_scale(cap_unit) if cap_unit else 1.0
 
     process = _process(r, r.section(doc, "process", _PROCESS_KEYS, required=True), base)
     thresholds = _thresholds(r, r.section(doc, "thresholds", _THRESHOLD_KEYS, required=False))
-    grid_doc = r.section(doc, "grid", _GRID_KEYS, required=True)
-    slew = r.axis(grid_doc, "slew", "grid", tscale, None)
-    load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
-    related = (
-        r.axis(grid_doc, "related_load", "grid", cscale, None, zero_ok=True)
-        if "related_load" in grid_doc
-        else ()
-    )
-    constraint, clock = (
-        r.axis(grid_doc, key, "grid", tscale, None) if key in grid_doc else ()
-        for key in ("constraint_slew", "clock_slew")
-    )
-    grid = Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
+    grid = _library_grid(r, r.section(doc, "grid", _GRID_KEYS, required=True), tscale, cscale)
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
     fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
-
-    cells_doc = doc.get("cell", [])
-    if not isinstance(cells_doc, list) or not cells_doc:
-        r.problem("cell", "the config must declare at least one [[cell]]")
-        cells_doc = []
-    cells = []
-    seen: set[str] = set()
-    for i, cell_doc in enumerate(cells_doc):
-        cell = _cell(r, cell_doc, i, base, grid, tscale, cscale)
-        if cell is None:
-            continue
-        if cell.name in seen:
-            r.problem(f"cell[{i}].name", "a cell of this name is declared twice", cell.name)
-        seen.add(cell.name)
-        cells.append(cell)
-
+    cells = _cells(r, doc, base, grid, tscale, cscale)
     corners = _corners(r, doc.get("corner", []), process)
     options = _liberty(r, r.section(doc, "liberty", _LIBERTY_KEYS, required=False), cscale)
     _check_other_load(r, options, cells, cap_unit)
 
-    # One problem keeps its own key and cell (and its one-line message); several are listed.
-    if len(r.problems) == 1:
-        raise r.problems[0]
-    if r.problems:
-        raise ConfigProblemsError(r.problems, file=path)
-    # A unit that did not read is a problem, raised above.
-    assert time_unit is not None and cap_unit is not None
+    _raise_problems(r, path)
+    # A name or unit that did not read is a problem, raised above.
+    assert name is not None and time_unit is not None and cap_unit is not None
     return LibraryConfig(
         path=path,
         name=name,
@@ -536,6 +500,62 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
         corners=corners,
         liberty=options,
     )
+
+
+def _library(r: _Reader, doc: dict[str, Any]) -> tuple[str | None, str | None, str | None]:
+    """The ``[library]`` section: the library's name, time unit and capacitance unit."""
+    lib = r.section(doc, "library", _LIBRARY_KEYS, required=True)
+    name = r.get(lib, "name", str, "library")
+    if name is not None and not _is_identifier(name):
+        r.problem("library.name", f"must be a name of letters, digits and _, got {name!r}")
+    time_unit = _unit(r, lib, "time_unit", "ns", TIME_UNITS)
+    cap_unit = _unit(r, lib, "cap_unit", "pf", CAP_UNITS)
+    return name, time_unit, cap_unit
+
+
+def _library_grid(r: _Reader, grid_doc: dict[str, Any], tscale: float, cscale: float) -> Grid:
+    """The library's ``[grid]``: slew and load are required, the other axes optional."""
+    slew = r.axis(grid_doc, "slew", "grid", tscale, None)
+    load_ = r.axis(grid_doc, "load", "grid", cscale, None, zero_ok=True)
+    related = (
+        r.axis(grid_doc, "related_load", "grid", cscale, None, zero_ok=True)
+        if "related_load" in grid_doc
+        else ()
+    )
+    constraint, clock = (
+        r.axis(grid_doc, key, "grid", tscale, None) if key in grid_doc else ()
+        for key in ("constraint_slew", "clock_slew")
+    )
+    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
+
+
+def _cells(
+    r: _Reader, doc: dict[str, Any], base: Path, grid: Grid, tscale: float, cscale: float
+) -> list[CellSpec]:
+    """Every valid ``[[cell]]``, in the config's order; a name declared twice is a problem."""
+    cells_doc = doc.get("cell", [])
+    if not isinstance(cells_doc, list) or not cells_doc:
+        r.problem("cell", "the config must declare at least one [[cell]]")
+        cells_doc = []
+    cells = []
+    seen: set[str] = set()
+    for i, cell_doc in enumerate(cells_doc):
+        cell = _cell(r, cell_doc, i, base, grid, tscale, cscale)
+        if cell is None:
+            continue
+        if cell.name in seen:
+            r.problem(f"cell[{i}].name", "a cell of this name is declared twice", cell.name)
+        seen.add(cell.name)
+        cells.append(cell)
+    return cells
+
+
+def _raise_problems(r: _Reader, path: Path) -> None:
+    """One problem keeps its own key and cell (and its one-line message); several are listed."""
+    if len(r.problems) == 1:
+        raise r.problems[0]
+    if r.problems:
+        raise ConfigProblemsError(r.problems, file=path)
 
 
 def _unit(
@@ -748,6 +768,42 @@ def _cell(
     if name is None:
         return None
     r.unknown(doc, _CELL_KEYS, key, name)
+    template, netlist, source = _cell_source(r, doc, key, name, base)
+    params = r.get(doc, "params", dict, key, {}, name) or {}
+    inputs = _cell_inputs(r, doc, key, name)
+    flop = _flop(r, doc, key, name, inputs)
+    known = set(inputs) | (set(flop.state) if flop else set())
+    outputs_doc, outputs = _cell_outputs(r, doc, key, name, inputs, known)
+    power = r.get(doc, "power", str, key, "VDD", name)
+    ground = r.get(doc, "ground", str, key, "VSS", name)
+    taken = {*inputs, *outputs_doc, power or "VDD", ground or "VSS"}
+    body = _body(r, doc, key, name, taken)
+    area = r.number(doc, "area", key, 0.0, name)
+    cell_grid = _cell_grid(r, doc, key, name, grid, tscale, cscale)
+    axis3 = r.get(doc, "other_output_axis", bool, key, len(outputs) == 2, name)
+    _check_other_output_axis(r, key, name, axis3, len(outputs), cell_grid.related_load)
+    return CellSpec(
+        name=name,
+        inputs=tuple(inputs),
+        outputs=tuple(outputs),
+        grid=cell_grid,
+        template=source if template is not None else None,
+        netlist=source if netlist is not None else None,
+        params=tuple(sorted(params.items())),
+        power=power or "VDD",
+        ground=ground or "VSS",
+        area=area or 0.0,
+        flop=flop,
+        other_output_axis=bool(axis3) and len(outputs) == 2,
+        body=body,
+    )
+
+
+def _cell_source(
+    r: _Reader, doc: dict[str, Any], key: str, name: str, base: Path
+) -> tuple[str | None, str | None, Path | None]:
+    """The cell's ``template`` and ``netlist`` as given, and the one file they name
+    (None when neither or both are given, or the given one is empty)."""
     template = r.get(doc, "template", str, key, None, name)
     netlist = r.get(doc, "netlist", str, key, None, name)
     source: Path | None = None
@@ -759,7 +815,11 @@ def _cell(
             r.problem(f"{key}.{which}", "must be a file path, got an empty string", name)
         elif not (source := (base / given).resolve()).is_file():
             r.problem(f"{key}.{which}", f"file not found: {source}", name)
-    params = r.get(doc, "params", dict, key, {}, name) or {}
+    return template, netlist, source
+
+
+def _cell_inputs(r: _Reader, doc: dict[str, Any], key: str, name: str) -> list[str]:
+    """The cell's input pin names; entries that are not strings are reported and dropped."""
     inputs = r.get(doc, "inputs", list, key, None, name) or []
     for j, pin in enumerate(inputs):
         if not isinstance(pin, str) or not _is_identifier(pin):
@@ -767,8 +827,14 @@ def _cell(
     inputs = [p for p in inputs if isinstance(p, str)]
     if len(set(inputs)) != len(inputs):
         r.problem(f"{key}.inputs", f"names a pin twice: {inputs}", name)
-    flop = _flop(r, doc, key, name, inputs)
-    known = set(inputs) | (set(flop.state) if flop else set())
+    return inputs
+
+
+def _cell_outputs(
+    r: _Reader, doc: dict[str, Any], key: str, name: str, inputs: list[str], known: set[str]
+) -> tuple[dict[str, Any], list[OutputSpec]]:
+    """The ``outputs`` table as given (its pins count as taken names even when their
+    function is bad) and the outputs whose function parses over the ``known`` pins."""
     outputs_doc = r.get(doc, "outputs", dict, key, None, name) or {}
     if not outputs_doc:
         r.problem(f"{key}.outputs", "must map at least one output pin to its function", name)
@@ -792,11 +858,13 @@ def _cell(
             )
             continue
         outputs.append(OutputSpec(pin, expr))
-    power = r.get(doc, "power", str, key, "VDD", name)
-    ground = r.get(doc, "ground", str, key, "VSS", name)
-    taken = {*inputs, *outputs_doc, power or "VDD", ground or "VSS"}
-    body = _body(r, doc, key, name, taken)
-    area = r.number(doc, "area", key, 0.0, name)
+    return outputs_doc, outputs
+
+
+def _cell_grid(
+    r: _Reader, doc: dict[str, Any], key: str, name: str, grid: Grid, tscale: float, cscale: float
+) -> Grid:
+    """The cell's own ``grid`` table; each axis it leaves out is the library's."""
     grid_doc = r.get(doc, "grid", dict, key, {}, name) or {}
     r.unknown(grid_doc, _GRID_KEYS, f"{key}.grid", name)
     slew = (
@@ -822,31 +890,22 @@ def _cell(
         if "clock_slew" in grid_doc
         else grid.clock_slew
     )
-    axis3 = r.get(doc, "other_output_axis", bool, key, len(outputs) == 2, name)
-    if axis3 and len(outputs) != 2:
+    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
+
+
+def _check_other_output_axis(
+    r: _Reader, key: str, name: str, axis3: bool | None, n_outputs: int, related: tuple[float, ...]
+) -> None:
+    """``other_output_axis`` asks for a two-output cell with a related_load axis."""
+    if axis3 and n_outputs != 2:
         r.problem(f"{key}.other_output_axis", "needs a cell with exactly two outputs", name)
-    if axis3 and len(outputs) == 2 and not related:
+    if axis3 and n_outputs == 2 and not related:
         r.problem(
             f"{key}.grid.related_load",
             "a two-output cell with other_output_axis needs [grid] related_load "
             "(or set other_output_axis = false)",
             name,
         )
-    return CellSpec(
-        name=name,
-        inputs=tuple(inputs),
-        outputs=tuple(outputs),
-        grid=Grid(slew or (), load_ or (), related or (), constraint or (), clock or ()),
-        template=source if template is not None else None,
-        netlist=source if netlist is not None else None,
-        params=tuple(sorted(params.items())),
-        power=power or "VDD",
-        ground=ground or "VSS",
-        area=area or 0.0,
-        flop=flop,
-        other_output_axis=bool(axis3) and len(outputs) == 2,
-        body=body,
-    )
 
 
 def _body(

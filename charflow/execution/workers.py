@@ -20,7 +20,7 @@ import os
 import pickle
 import tempfile
 from collections.abc import Generator, Mapping, Sequence
-from concurrent.futures import as_completed
+from concurrent.futures import Executor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 
@@ -111,55 +111,15 @@ def run_chunks(
 
     pending = list(tasks)
     fruitless = 0
-    try:
-        scratch_folder = tempfile.TemporaryDirectory(prefix="charflow-journal-")
-    except OSError as exc:
-        raise OutputError(
-            f"cannot make the workers' journal folder in {tempfile.gettempdir()}: {exc}"
-        ) from exc
-    with scratch_folder as scratch:
+    with _journal_folder() as scratch:
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = get_memmapping_executor(jobs)
-            futures = {}
-            for i, task in enumerate(pending):
-                path = os.path.join(scratch, f"{round_}-{i}.pickle")
-                future = executor.submit(_work, config, decks[task[0].cell], task, path)
-                futures[future] = (task, path)
-            lost, death = [], None
-            try:
-                for future in as_completed(futures):
-                    task, path = futures[future]
-                    try:
-                        batch = future.result()
-                    except BrokenProcessPool as exc:
-                        lost.append((task, path))
-                        death = exc
-                        continue
-                    with contextlib.suppress(FileNotFoundError):  # a worker without one
-                        os.unlink(path)
-                    yield batch
-            finally:
-                # Closed early (the caller stopped): chunks not yet started are not started.
-                for future in futures:
-                    future.cancel()
+            lost, death = yield from _run_round(executor, config, decks, pending, scratch, round_)
             if death is None:
                 return
-            pending, in_flight, kept = [], [], 0
-            for task, path in lost:
-                outcomes = read_journal(path)
-                if outcomes is None:
-                    pending.append(task)
-                    continue
-                if outcomes:
-                    kept += len(outcomes)
-                    yield outcomes
-                rest = task[len(outcomes) :]
-                if rest:
-                    in_flight.append(rest[0])
-                if rest[1:]:
-                    pending.append(rest[1:])
+            pending, in_flight, kept = yield from _salvage(lost)
             fruitless = fruitless + 1 if not (kept or in_flight) else 0
             if fruitless >= FRUITLESS_ROUNDS:
                 raise SimulatorError(
@@ -176,6 +136,73 @@ def run_chunks(
             if in_flight:
                 yield run_alone(config, decks, in_flight)
             round_ += 1
+
+
+def _journal_folder() -> tempfile.TemporaryDirectory[str]:
+    """A temporary folder for the workers' journals (removed when the sweep ends)."""
+    try:
+        return tempfile.TemporaryDirectory(prefix="charflow-journal-")
+    except OSError as exc:
+        raise OutputError(
+            f"cannot make the workers' journal folder in {tempfile.gettempdir()}: {exc}"
+        ) from exc
+
+
+def _run_round(
+    executor: Executor,
+    config: LibraryConfig,
+    decks: Mapping[str, Deck],
+    pending: Sequence[tuple],
+    scratch: str,
+    round_: int,
+) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
+    """Yield the outcomes of each chunk of ``pending`` that finished; return the chunks lost
+    to a dead worker (each with its journal) and the pool's account of the death."""
+    futures = {}
+    for i, task in enumerate(pending):
+        path = os.path.join(scratch, f"{round_}-{i}.pickle")
+        future = executor.submit(_work, config, decks[task[0].cell], task, path)
+        futures[future] = (task, path)
+    lost, death = [], None
+    try:
+        for future in as_completed(futures):
+            task, path = futures[future]
+            try:
+                batch = future.result()
+            except BrokenProcessPool as exc:
+                lost.append((task, path))
+                death = exc
+                continue
+            with contextlib.suppress(FileNotFoundError):  # a worker without one
+                os.unlink(path)
+            yield batch
+    finally:
+        # Closed early (the caller stopped): chunks not yet started are not started.
+        for future in futures:
+            future.cancel()
+    return lost, death
+
+
+def _salvage(
+    lost: Sequence[tuple[tuple, str]],
+) -> Generator[list, None, tuple[list[tuple], list, int]]:
+    """Yield what the journals of the lost chunks hold; return the chunks to send to fresh
+    workers, the points that were in flight (to re-run alone) and how many outcomes were kept."""
+    pending, in_flight, kept = [], [], 0
+    for task, path in lost:
+        outcomes = read_journal(path)
+        if outcomes is None:
+            pending.append(task)
+            continue
+        if outcomes:
+            kept += len(outcomes)
+            yield outcomes
+        rest = task[len(outcomes) :]
+        if rest:
+            in_flight.append(rest[0])
+        if rest[1:]:
+            pending.append(rest[1:])
+    return pending, in_flight, kept
 
 
 def _why(death: BaseException) -> str:

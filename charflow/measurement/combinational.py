@@ -12,8 +12,9 @@ from __future__ import annotations
 
 import itertools
 import logging
-from collections.abc import Sequence
-from dataclasses import replace
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, replace
+from functools import partial
 
 import numpy as np
 
@@ -210,78 +211,147 @@ def measure_point(
     in_branch = f"{deck.input_source(point.related)}#branch"
     supply = f"{deck.supply}#branch"
     vectors = (*out_nodes, in_node, in_branch, supply)
-    target = vdd if point.output_edge == "rise" else 0.0
-    start_level = vdd - target
+    before = {**dict(point.side), point.related: point.input_edge == "fall"}
+    after = {**before, point.related: point.input_edge == "rise"}
+    stop_when = _stop_when(config, cell, point, out_node, out_nodes, ramp.end, before, after)
+    window = sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew))
+    stop = ramp.end + window
+    nodes = {o.pin: node for o, node in zip(cell.outputs, out_nodes, strict=True)}
+    nodes[point.related] = in_node
+    tran = partial(Request, deck, commands, vectors=vectors, stop_when=stop_when)
+    edge = _measure_edge(config, point, tran, step, stop, window, out_node, nodes)
+    result = edge.result
+    t = result.vectors["time"]
+    vin = result.vectors[in_node]
+    with edge.saved:
+        level = thr.delay_input(point.input_edge) * vdd
+        t_in = single_crossing(t, vin, level, point.input_edge, f"input {point.related}")
+    # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
+    charge = -integral(t, result.vectors[in_branch], ramp.start)
+    current = -result.vectors[supply]
+    static = (float(current[0]), static_current(config, deck, after))
+    energy = supply_energy(t, current, vdd, t_in, static)
+    taken, switched = _load_energy(cell, point, result, out_nodes, vdd)
+    return Measurement(
+        point=point,
+        delay=edge.t_out - t_in,
+        transition=edge.raw_transition / thr.slew_derate,
+        input_charge=charge,
+        supply_energy=energy,
+        internal_energy=(energy - taken) / switched,
+        static_current=static,
+        runs=edge.runs,
+        sim_seconds=edge.seconds,
+        stopped=float(t[-1]),
+        stop_cap=stop,
+    )
 
+
+@dataclass(frozen=True, slots=True)
+class _Edge:
+    """The run a point's output edge was measured on (the last, finest one) and what it gave."""
+
+    result: Result
+    t_out: float  # s, the output's delay-threshold crossing
+    raw_transition: float  # s, between the slew thresholds, before the slew derate
+    runs: int  # simulator attempts over every refinement
+    seconds: float  # their simulation wall time
+    saved: KeepWaveform  # leaves the last run's waveform on a later MeasurementError
+
+
+def _stop_when(
+    config: LibraryConfig,
+    cell: CellSpec,
+    point: TimingPoint,
+    out_node: str,
+    out_nodes: tuple[str, ...],
+    ramp_end: float,
+    before: dict[str, bool],
+    after: dict[str, bool],
+) -> str:
+    """The ngspice condition that ends the point's run; ``out_nodes`` are every output's
+    node in the cell's order, ``out_node`` the measured output's."""
     # The run ends once every output that switches is within the settle tolerance of its final
     # rail and the input ramp is over, so the input charge and the supply energy are whole (a
     # slow ramp can leave the output at its rail while the input still moves; a second output
     # driven from the first settles after it); the stop time is only a cap for outputs that
     # never get there.
-    tol = sim.settle * vdd
-    before = {**dict(point.side), point.related: point.input_edge == "fall"}
-    after = {**before, point.related: point.input_edge == "rise"}
+    vdd = config.process.vdd
+    tol = config.simulation.settle * vdd
     rising = point.output_edge == "rise"
     settled = [f"v({out_node}) > {vdd - tol:.6g}" if rising else f"v({out_node}) < {tol:.6g}"]
     for o, node in zip(cell.outputs, out_nodes, strict=True):
         final = o.function.evaluate(after)
         if o.pin != point.output and final != o.function.evaluate(before):
             settled.append(f"v({node}) > {vdd - tol:.6g}" if final else f"v({node}) < {tol:.6g}")
-    stop_when = " when ".join([*settled, f"time > {ramp.end:.12g}"])
-    window = sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew))
-    stop = ramp.end + window
+    return " when ".join([*settled, f"time > {ramp_end:.12g}"])
+
+
+def _measure_edge(
+    config: LibraryConfig,
+    point: TimingPoint,
+    tran: Callable[[str], Request],
+    step: float,
+    stop: float,
+    window: float,
+    out_node: str,
+    nodes: dict[str, str],
+) -> _Edge:
+    """Run the point (``tran`` makes its request from an analysis line) and measure its output
+    edge, refining the maximum step until the edge has ``simulation.samples_per_edge`` samples
+    or REFINEMENTS are spent, from the first maximum step ``step``; ``nodes`` are the nodes a
+    failure's waveform shows, by pin."""
+    sim = config.simulation
     max_step = step
     runs = 0
     seconds = 0.0
     backend = backend_for(config)
-    what = f"output {point.output}"
-    nodes = {o.pin: node for o, node in zip(cell.outputs, out_nodes, strict=True)}
-    nodes[point.related] = in_node
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refinement in range(REFINEMENTS + 1):
-        request = Request(
-            deck,
-            commands,
-            f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            vectors,
-            stop_when=stop_when,
-        )
+        request = tran(f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}")
         result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
         v = result.vectors[out_node]
         with saved:
-            if abs(v[0] - start_level) > LOGIC_MARGIN * vdd:
-                raise MeasurementError(
-                    f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs "
-                    f"do not hold it where the function says"
-                )
-            check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what, window)
-            t_out = single_crossing(
-                t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
-            )
-            band = thr.slew_band(point.output_edge)
-            raw_transition = transition(t, v, vdd, band, point.output_edge, what)
+            t_out, raw_transition = _output_edge(config, point, t, v, window)
         # Too few samples on the edge make the interpolated crossings coarse: refine the step.
         wanted = raw_transition / sim.samples_per_edge
         if step_at(t, t_out) <= REFINE_SLACK * wanted or refinement == REFINEMENTS:
             break
         max_step = wanted
-    vin = result.vectors[in_node]
-    with saved:
-        t_in = single_crossing(
-            t,
-            vin,
-            thr.delay_input(point.input_edge) * vdd,
-            point.input_edge,
-            f"input {point.related}",
+    return _Edge(result, t_out, raw_transition, runs, seconds, saved)
+
+
+def _output_edge(
+    config: LibraryConfig, point: TimingPoint, t: np.ndarray, v: np.ndarray, window: float
+) -> tuple[float, float]:
+    """The output's delay-threshold crossing and raw transition, once it is found to start at
+    the rail the function says and to settle at the other within the window."""
+    vdd = config.process.vdd
+    thr = config.thresholds
+    target = vdd if point.output_edge == "rise" else 0.0
+    start_level = vdd - target
+    tol = config.simulation.settle * vdd
+    what = f"output {point.output}"
+    if abs(v[0] - start_level) > LOGIC_MARGIN * vdd:
+        raise MeasurementError(
+            f"{what} starts at {v[0]:.4g} V, not at {start_level:.4g} V: the side inputs "
+            f"do not hold it where the function says"
         )
-    # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
-    charge = -integral(t, result.vectors[in_branch], ramp.start)
-    current = -result.vectors[supply]
-    static = (float(current[0]), static_current(config, deck, after))
-    energy = supply_energy(t, current, vdd, t_in, static)
+    check_settled(v, target, tol * (1 + 1e-6), point.output_edge, what, window)
+    t_out = single_crossing(
+        t, v, thr.delay_output(point.output_edge) * vdd, point.output_edge, what
+    )
+    band = thr.slew_band(point.output_edge)
+    return t_out, transition(t, v, vdd, band, point.output_edge, what)
+
+
+def _load_energy(
+    cell: CellSpec, point: TimingPoint, result: Result, out_nodes: tuple[str, ...], vdd: float
+) -> tuple[float, int]:
+    """The energy (J) the supply gave the outputs' loads and how many outputs switched."""
     # A load charging by dv took C·vdd·dv from the supply (C·V² once at the rail, half of it
     # stored); one discharging takes nothing from it. Counting the dv reached rather than the
     # full swing keeps the window's end from cutting off load energy as if it were the cell's.
@@ -291,19 +361,7 @@ def measure_point(
         dv = float(result.vectors[node][-1] - result.vectors[node][0])
         taken += loads.get(o.pin, PARKED_LOAD) * vdd * max(dv, 0.0)
         switched += abs(dv) > vdd / 2
-    return Measurement(
-        point=point,
-        delay=t_out - t_in,
-        transition=raw_transition / thr.slew_derate,
-        input_charge=charge,
-        supply_energy=energy,
-        internal_energy=(energy - taken) / switched,
-        static_current=static,
-        runs=runs,
-        sim_seconds=seconds,
-        stopped=float(t[-1]),
-        stop_cap=stop,
-    )
+    return taken, switched
 
 
 def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:

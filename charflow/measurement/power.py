@@ -33,7 +33,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from charflow.config.library import LibraryConfig
+from charflow.config.library import LibraryConfig, Thresholds
 from charflow.measurement.combinational import (
     LOGIC_MARGIN,
     alters,
@@ -107,28 +107,10 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
         seconds += result.seconds
         t = result.vectors["time"]
         with saved:
-            for pin, node in outputs.items():
-                v = result.vectors[node]
-                if abs(v[-1] - v[0]) > LOGIC_MARGIN * vdd:
-                    raise MeasurementError(
-                        f"output {pin} moves from {v[0]:.4g} V to {v[-1]:.4g} V: "
-                        f"not a toggle that leaves the outputs alone"
-                    )
-            t_in = single_crossing(
-                t,
-                result.vectors[in_node],
-                thr.delay_input(point.input_edge) * vdd,
-                point.input_edge,
-                f"input {point.related}",
-            )
+            t_in = _toggle_input_time(result, point, outputs, in_node, thr, vdd)
         current = -result.vectors[supply]
         static = (float(current[0]), after)
-        # Per step, the mean of its two samples: what the trapezoid integrates, and free of the
-        # sample-to-sample ringing trapezoidal integration leaves on a source's current.
-        excess = current - np.where(t < t_in, static[0], static[1])
-        excess = np.abs(excess[1:] + excess[:-1]) / 2
-        last_loud = np.flatnonzero(excess > config.simulation.settle * excess.max())[-1]
-        settled = max(ramp.end, float(t[last_loud + 1]))
+        settled, excess = _settle_time(config, t, current, t_in, static, ramp.end)
         if settled <= ramp.end + tail / 2:
             break
         if extension == TOGGLE_EXTENSIONS:
@@ -143,6 +125,52 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     return ToggleMeasurement(point, energy, charge, runs, seconds, settled)
+
+
+def _toggle_input_time(
+    result: Result,
+    point: TogglePoint,
+    outputs: dict[str, str],
+    in_node: str,
+    thr: Thresholds,
+    vdd: float,
+) -> float:
+    """When the toggling input crosses its delay threshold, once every output is found to
+    stay where it was (else it is not a toggle)."""
+    t = result.vectors["time"]
+    for pin, node in outputs.items():
+        v = result.vectors[node]
+        if abs(v[-1] - v[0]) > LOGIC_MARGIN * vdd:
+            raise MeasurementError(
+                f"output {pin} moves from {v[0]:.4g} V to {v[-1]:.4g} V: "
+                f"not a toggle that leaves the outputs alone"
+            )
+    return single_crossing(
+        t,
+        result.vectors[in_node],
+        thr.delay_input(point.input_edge) * vdd,
+        point.input_edge,
+        f"input {point.related}",
+    )
+
+
+def _settle_time(
+    config: LibraryConfig,
+    t: np.ndarray,
+    current: np.ndarray,
+    t_in: float,
+    static: tuple[float, float],
+    ramp_end: float,
+) -> tuple[float, np.ndarray]:
+    """When the supply current last strayed from its static value (before / after the input
+    crossing) by more than ``simulation.settle`` of its largest excursion, never before the
+    ramp ends; and the per-step excess that was judged."""
+    # Per step, the mean of its two samples: what the trapezoid integrates, and free of the
+    # sample-to-sample ringing trapezoidal integration leaves on a source's current.
+    excess = current - np.where(t < t_in, static[0], static[1])
+    excess = np.abs(excess[1:] + excess[:-1]) / 2
+    last_loud = np.flatnonzero(excess > config.simulation.settle * excess.max())[-1]
+    return max(ramp_end, float(t[last_loud + 1])), excess
 
 
 def leakage_run(config: LibraryConfig, request: Request, vector: str) -> tuple[Result, float]:

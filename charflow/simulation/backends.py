@@ -350,76 +350,94 @@ class SubprocessBackend:
         return self._version
 
     def run(self, request: Request) -> Result:
-        cell = request.deck.cell
+        names = (
+            ("time", *request.vectors) if request.analysis.startswith("tran") else request.vectors
+        )
         with tempfile.TemporaryDirectory(prefix="charflow-") as tmp:
             out = Path(tmp) / "vectors.txt"
-            names = (
-                ("time", *request.vectors)
-                if request.analysis.startswith("tran")
-                else request.vectors
-            )
-            control = [
-                ".control",
-                "set wr_singlescale",
-                "set wr_vecnames",
-                SINGLE_THREAD,
-                *request.alters,
-                *(f"option {o}" for o in request.options),
-                *([f"stop when {request.stop_when}"] if request.stop_when else []),
-                request.analysis,
-                f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
-                ".endc",
-            ]
-            text = re.sub(
-                r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M
-            )
-            deck_path = Path(tmp) / "deck.sp"
-            deck_path.write_text(text, encoding="utf-8")
-            if request.deck.compat:
-                # ngspice reads .spiceinit from its working folder before the deck.
-                (Path(tmp) / ".spiceinit").write_text(f"set ngbehavior={request.deck.compat}\n")
+            deck_path = _write_batch_deck(Path(tmp), request, out, names)
             start = time.perf_counter()
-            try:
-                proc = subprocess.run(
-                    [self._exe, "-b", str(deck_path)],
-                    capture_output=True,
-                    text=True,
-                    timeout=self.timeout,
-                    cwd=tmp,
-                    env={**os.environ, "LC_ALL": "C"},
-                )
-            except subprocess.TimeoutExpired as exc:
-                raise SimulatorTimeoutError(
-                    f"ngspice did not finish within the {self.timeout:g} s timeout and was killed",
-                    cell=cell,
-                ) from exc
+            proc = self._execute(deck_path, tmp, request.deck.cell)
             seconds = time.perf_counter() - start
-            if proc.returncode < 0:
-                raise SimulatorError(
-                    f"ngspice crashed ({_signal_name(-proc.returncode)}): "
-                    f"{_messages((proc.stdout + proc.stderr).splitlines())}",
-                    cell=cell,
-                )
-            if not out.is_file():
-                output = f"{proc.stdout}\n{proc.stderr}"
-                # ngspice ends with a fatal error when it cannot read the deck: options cannot
-                # help, so the fallback ladder is not tried.
-                if re.search(_UNREADABLE, output, re.IGNORECASE):
-                    what = f"ngspice cannot read the testbench (exit {proc.returncode})"
-                    raise deck_read_error(what, request.deck, output)
-                raise SimulatorError(
-                    f"ngspice wrote no results (exit {proc.returncode}): "
-                    f"{_messages(output.splitlines())}",
-                    cell=cell,
-                )
+            _check_batch_run(proc, out, request)
             table = np.loadtxt(out, skiprows=1, ndmin=2)
-        # wrdata writes the plot's scale column first (for tran too, where "time" is also
-        # asked for): the vectors asked for are the last columns.
-        offset = table.shape[1] - len(names)
-        vectors = {n: table[:, offset + i].copy() for i, n in enumerate(names)}
-        if not request.analysis.startswith("tran"):
-            vectors = {n: v[-1:] for n, v in vectors.items()}
-        return Result(vectors, seconds)
+        return Result(_batch_vectors(table, names, request.analysis), seconds)
+
+    def _execute(self, deck_path: Path, tmp: str, cell: str) -> subprocess.CompletedProcess[str]:
+        """One ``ngspice -b`` on ``deck_path`` in ``tmp``, killed past the timeout."""
+        try:
+            return subprocess.run(
+                [self._exe, "-b", str(deck_path)],
+                capture_output=True,
+                text=True,
+                timeout=self.timeout,
+                cwd=tmp,
+                env={**os.environ, "LC_ALL": "C"},
+            )
+        except subprocess.TimeoutExpired as exc:
+            raise SimulatorTimeoutError(
+                f"ngspice did not finish within the {self.timeout:g} s timeout and was killed",
+                cell=cell,
+            ) from exc
+
+
+def _write_batch_deck(tmp: Path, request: Request, out: Path, names: tuple[str, ...]) -> Path:
+    """The request's deck with a control block that runs it and writes ``names`` to ``out``,
+    written to ``tmp`` (with a .spiceinit for the deck's compatibility mode)."""
+    control = [
+        ".control",
+        "set wr_singlescale",
+        "set wr_vecnames",
+        SINGLE_THREAD,
+        *request.alters,
+        *(f"option {o}" for o in request.options),
+        *([f"stop when {request.stop_when}"] if request.stop_when else []),
+        request.analysis,
+        f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
+        ".endc",
+    ]
+    text = re.sub(r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M)
+    deck_path = tmp / "deck.sp"
+    deck_path.write_text(text, encoding="utf-8")
+    if request.deck.compat:
+        # ngspice reads .spiceinit from its working folder before the deck.
+        (tmp / ".spiceinit").write_text(f"set ngbehavior={request.deck.compat}\n")
+    return deck_path
+
+
+def _check_batch_run(proc: subprocess.CompletedProcess[str], out: Path, request: Request) -> None:
+    """Raise if ngspice crashed or wrote no results, saying why as well as its output can."""
+    cell = request.deck.cell
+    if proc.returncode < 0:
+        raise SimulatorError(
+            f"ngspice crashed ({_signal_name(-proc.returncode)}): "
+            f"{_messages((proc.stdout + proc.stderr).splitlines())}",
+            cell=cell,
+        )
+    if not out.is_file():
+        output = f"{proc.stdout}\n{proc.stderr}"
+        # ngspice ends with a fatal error when it cannot read the deck: options cannot
+        # help, so the fallback ladder is not tried.
+        if re.search(_UNREADABLE, output, re.IGNORECASE):
+            what = f"ngspice cannot read the testbench (exit {proc.returncode})"
+            raise deck_read_error(what, request.deck, output)
+        raise SimulatorError(
+            f"ngspice wrote no results (exit {proc.returncode}): {_messages(output.splitlines())}",
+            cell=cell,
+        )
+
+
+def _batch_vectors(
+    table: np.ndarray, names: tuple[str, ...], analysis: str
+) -> dict[str, np.ndarray]:
+    """The vectors asked for from wrdata's table; an operating point keeps its last row."""
+    # wrdata writes the plot's scale column first (for tran too, where "time" is also
+    # asked for): the vectors asked for are the last columns.
+    offset = table.shape[1] - len(names)
+    vectors = {n: table[:, offset + i].copy() for i, n in enumerate(names)}
+    if not analysis.startswith("tran"):
+        vectors = {n: v[-1:] for n, v in vectors.items()}
+    return vectors
 
 
 def _wrdata_name(name: str) -> str:
