@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import functools
 import json
+import shutil
 from pathlib import Path
 
 import jsonschema
@@ -40,6 +41,13 @@ def assert_valid_library(doc: object, where: str) -> None:
 def assert_valid_library_json(path: Path) -> None:
     """The library JSON file at ``path`` follows the package's schema."""
     assert_valid_library(json.loads(Path(path).read_text(encoding="utf-8")), str(path))
+
+
+@pytest.fixture(scope="session")
+def ngspice() -> None:
+    """A test that simulates asks for this: it fails, never skips, without ngspice."""
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not installed; this test needs it (apt-get install ngspice)")
 
 
 @pytest.fixture(scope="session")

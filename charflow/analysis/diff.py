@@ -18,6 +18,7 @@ import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -106,7 +107,7 @@ def _read_json(text: str, path: Path) -> dict[str, Entry]:
                     name = pin_name(cell["name"], pin["pin"], quantity)
                     if value is not None:  # an edge left out of the library
                         entries[name] = Entry(name, (), np.array(float(value)), "F")
-            for pulse in (p for p in cell.get("min_pulse_widths", []) if p["width_s"] is not None):
+            for pulse in _sharpest_pulses(cell.get("min_pulse_widths", [])):
                 name = pin_name(cell["name"], pulse["pin"], f"min_pulse_width_{pulse['level']}")
                 entries[name] = Entry(name, (), np.array(float(pulse["width_s"])), "s")
             groups = []
@@ -126,6 +127,17 @@ def _read_json(text: str, path: Path) -> dict[str, Entry]:
     except (ValueError, KeyError, TypeError) as exc:
         raise DiffError(f"not a charflow JSON library: {exc!r}", file=path) from exc
     return entries
+
+
+def _sharpest_pulses(pulses: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The measured pulse widths at each pin and level's sharpest slew: the Liberty file's
+    min_pulse_width_high/low (a document without slews holds one per pin and level)."""
+    measured = [p for p in pulses if p["width_s"] is not None]
+    sharpest: dict[tuple[str, str], float] = {}
+    for p in measured:
+        key = (p["pin"], p["level"])
+        sharpest[key] = min(sharpest.get(key, math.inf), p.get("slew_s", 0.0))
+    return [p for p in measured if p.get("slew_s", 0.0) == sharpest[(p["pin"], p["level"])]]
 
 
 def _text(value: object) -> str:

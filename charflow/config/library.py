@@ -71,6 +71,7 @@ class Grid:
     related_load: tuple[float, ...] = ()  # F, the other output's load of a two-output cell
     constraint_slew: tuple[float, ...] = ()  # s, the constrained pin's slews (default: slew)
     clock_slew: tuple[float, ...] = ()  # s, the clock's slews of those tables (default: above)
+    pulse_slew: tuple[float, ...] = ()  # s, minimum pulse widths' slews (default: sharpest)
 
     @property
     def data_slews(self) -> tuple[float, ...]:
@@ -81,6 +82,12 @@ class Grid:
     def clock_slews(self) -> tuple[float, ...]:
         """The clock's slews of those tables: its own list, else the data pin's."""
         return self.clock_slew or self.data_slews
+
+    @property
+    def pulse_slews(self) -> tuple[float, ...]:
+        """The slews minimum pulse widths are searched at: one (the sharpest, a number per pin
+        and level in Liberty) unless ``pulse_slew`` asks for a table over the pin's slew."""
+        return self.pulse_slew or (min(self.slew),)
 
 
 @dataclass(frozen=True, slots=True)
@@ -413,7 +420,7 @@ class _Reader:
 _LIBRARY_KEYS = {"name", "time_unit", "cap_unit"}
 _PROCESS_KEYS = {"models", "vdd", "temperature", "options", "compat", "scale"}
 _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
-_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew", "clock_slew"}
+_GRID_KEYS = {"slew", "load", "related_load", "constraint_slew", "clock_slew", "pulse_slew"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
 _FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
 _CELL_KEYS = {
@@ -522,11 +529,11 @@ def _library_grid(r: _Reader, grid_doc: dict[str, Any], tscale: float, cscale: f
         if "related_load" in grid_doc
         else ()
     )
-    constraint, clock = (
+    constraint, clock, pulse = (
         r.axis(grid_doc, key, "grid", tscale, None) if key in grid_doc else ()
-        for key in ("constraint_slew", "clock_slew")
+        for key in ("constraint_slew", "clock_slew", "pulse_slew")
     )
-    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
+    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or (), pulse or ())
 
 
 def _cells(
@@ -885,12 +892,11 @@ def _cell_grid(
         if "constraint_slew" in grid_doc
         else grid.constraint_slew
     )
-    clock = (
-        r.axis(grid_doc, "clock_slew", f"{key}.grid", tscale, name)
-        if "clock_slew" in grid_doc
-        else grid.clock_slew
+    clock, pulse = (
+        r.axis(grid_doc, axis, f"{key}.grid", tscale, name) if axis in grid_doc else default
+        for axis, default in (("clock_slew", grid.clock_slew), ("pulse_slew", grid.pulse_slew))
     )
-    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or ())
+    return Grid(slew or (), load_ or (), related or (), constraint or (), clock or (), pulse or ())
 
 
 def _check_other_output_axis(

@@ -443,6 +443,7 @@ def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) ->
             {
                 "pin": p.pin,
                 "level": p.level,
+                "slew_s": p.slew,
                 "width_s": p.width,  # null: left out of the library (note)
                 "stimulus": p.stimulus,
                 "bracket_s": p.bracket,

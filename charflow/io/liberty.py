@@ -328,6 +328,7 @@ def templates(config: LibraryConfig, cells: Iterable[CellTables]) -> dict[Templa
     """Template name per distinct (axis names, index values)."""
     tables = [t for cell in cells for arc in cell.arcs for t in arc.default]
     tables += [t for cell in cells for c in cell.constraints for t in c.tables]
+    tables += [t for cell in cells for c in cell.pulse_tables for t in c.tables]
     return _template_names(tables, "grid")
 
 
@@ -549,12 +550,16 @@ def _input_pin(
             w.attr(f"{name}capacitance", _fmt(cap / config.cap_scale))
     for h in (h for h in (energy.hidden if energy else ()) if h.pin == pin.pin):
         _internal_power(w, config, ctx.energy_names, h.tables, when=h.when)
-    # A pulse no width failed has no minimum: left out (``tabulate`` warns).
+    # A pulse no width failed has no minimum: left out (``tabulate`` warns). The attributes are
+    # the sharpest slew's; a table over the pin's slew follows with the constraints.
+    sharpest = min(spec.grid.pulse_slews)
     for level, width in (
-        (p.level, p.width) for p in cell.pulses if p.pin == pin.pin and p.width is not None
+        (p.level, p.width)
+        for p in cell.pulses
+        if p.pin == pin.pin and p.width is not None and p.slew == sharpest
     ):
         w.attr(f"min_pulse_width_{level}", _fmt(width / config.time_scale))
-    for c in (c for c in cell.constraints if c.pin == pin.pin):
+    for c in (c for c in (*cell.constraints, *cell.pulse_tables) if c.pin == pin.pin):
         w.open("timing")
         w.attr("related_pin", f'"{c.related}"')
         w.attr("timing_type", c.timing_type)

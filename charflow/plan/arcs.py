@@ -186,9 +186,11 @@ def _flop_points(cell: CellSpec) -> list[Point]:
                                 cell.name, pin, flop.clock, kind, release, flop.edge, ds, cs
                             )
                         )
-    # Liberty's min_pulse_width is one number per pin and level: searched at the sharpest slew.
+    # Liberty's min_pulse_width_high/low is one number per pin and level (searched at the
+    # sharpest slew); with pulse_slew, a table over the pin's slew besides.
     for pin, level in pulse_pins:
-        points.append(PulsePoint(cell.name, pin, level, min(cell.grid.slew)))
+        for slew in cell.grid.pulse_slews:
+            points.append(PulsePoint(cell.name, pin, level, slew))
     return points
 
 

@@ -142,7 +142,8 @@ def _heavy(config: LibraryConfig, loads, bound: InputBound) -> str | None:
 
 def _axes(cell: CellSpec) -> tuple[tuple[str, ...], tuple[str, ...]]:
     """The slew axes and the load axes the cell's points use."""
-    slews = ("slew", "constraint_slew", "clock_slew") if cell.flop is not None else ("slew",)
+    flop_slews = ("slew", "constraint_slew", "clock_slew", "pulse_slew")
+    slews = flop_slews if cell.flop is not None else ("slew",)
     loads = ("load", "related_load") if cell.other_output_axis else ("load",)
     return slews, loads
 

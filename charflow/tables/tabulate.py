@@ -26,6 +26,7 @@ LOAD_AXIS = "total_output_net_capacitance"
 OTHER_LOAD_AXIS = "related_out_total_output_net_capacitance"
 CONSTRAINED_AXIS = "constrained_pin_transition"
 RELATED_AXIS = "related_pin_transition"
+PULSE_KIND = "min_pulse_width"  # the timing type of a pulse-width table
 
 log = logging.getLogger("charflow")
 
@@ -68,12 +69,14 @@ class ConstraintTables:
 
     pin: str
     related: str
-    kind: str  # setup | hold | recovery | removal
+    kind: str  # setup | hold | recovery | removal | min_pulse_width
     clock_edge: str
     tables: tuple[Table, ...]
 
     @property
     def timing_type(self) -> str:
+        if self.kind == PULSE_KIND:
+            return PULSE_KIND
         return f"{self.kind}_{'rising' if self.clock_edge == 'rise' else 'falling'}"
 
 
@@ -81,6 +84,7 @@ class ConstraintTables:
 class PulseWidth:
     pin: str
     level: str  # high | low
+    slew: float  # s, the pulse's edges
     width: float | None  # s; None: no width the search could shape failed (``note``)
     stimulus: str  # the pulse shape that found it (sequential.FULL or RUNT)
     bracket: tuple[float | None, float] | None  # s, the search's last failing, passing width
@@ -94,6 +98,8 @@ class CellTables:
     pins: tuple[PinCap, ...]
     constraints: tuple[ConstraintTables, ...] = ()
     pulses: tuple[PulseWidth, ...] = ()
+    # With more than one pulse slew: minimum pulse widths as tables over the pin's slew.
+    pulse_tables: tuple[ConstraintTables, ...] = ()
 
 
 TIMING_AXES = (SLEW_AXIS, LOAD_AXIS, OTHER_LOAD_AXIS)
@@ -214,7 +220,31 @@ def _pulse_width(config: LibraryConfig, p: PulsePoint, r: SearchResult) -> Pulse
             p.slew / config.time_scale,
             config.time_unit,
         )
-    return PulseWidth(p.pin, p.level, r.value, r.stimulus, r.bracket, r.note)
+    return PulseWidth(p.pin, p.level, p.slew, r.value, r.stimulus, r.bracket, r.note)
+
+
+def _pulse_tables(cell: CellSpec, pulses: tuple[PulseWidth, ...]) -> tuple[ConstraintTables, ...]:
+    """Each pin's minimum pulse widths over its slew (``pulse_slew`` with more than one value):
+    rise_constraint for the high pulse, fall_constraint for the low one (Liberty's
+    min_pulse_width timing type; from memory), a level left out where a width is missing."""
+    slews = cell.grid.pulse_slews
+    if len(slews) < 2:
+        return ()
+    axes = (Axis(RELATED_AXIS, slews),)
+    out = []
+    for pin in dict.fromkeys(p.pin for p in pulses):
+        tables = []
+        for level, quantity in (("high", "rise_constraint"), ("low", "fall_constraint")):
+            widths: dict[tuple[float, ...], float | None] = {
+                (p.slew,): p.width
+                for p in pulses
+                if (p.pin, p.level) == (pin, level) and p.width is not None
+            }
+            if len(widths) == len(slews):
+                tables.append(grid_table(cell, axes, quantity, widths, "s"))
+        if tables:
+            out.append(ConstraintTables(pin, pin, PULSE_KIND, "rise", tuple(tables)))
+    return tuple(out)
 
 
 def tabulate(
@@ -235,8 +265,11 @@ def tabulate(
         pulses = tuple(
             _pulse_width(config, r.point, r) for r in searches if isinstance(r.point, PulsePoint)
         )
+        constraints = _constraints(cell, searches)
         cells.append(
-            CellTables(cell, tuple(arc_tables), pins, _constraints(cell, searches), pulses)
+            CellTables(
+                cell, tuple(arc_tables), pins, constraints, pulses, _pulse_tables(cell, pulses)
+            )
         )
     return tuple(cells)
 
