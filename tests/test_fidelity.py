@@ -351,8 +351,8 @@ def test_three_axis_and_flip_flop_tables_are_checked_too(ngspice, tmp_path) -> N
     probe = check.points[0]
     series = fidelity.row_points(cfg, check.cell)
     arc = next(a.arc for a in result.cells[1].arcs if (a.arc.related, a.arc.output) == ("CLK", "Q"))
-    template = fidelity.template_of(series, arc, arc.states[0], check.table.quantity)
-    point = fidelity.timing_point(template, check.table.axes, probe.coords)
+    row = fidelity.row_point_of(series, arc, arc.states[0], check.table.quantity)
+    point = fidelity.timing_point(row, check.table.axes, probe.coords)
     assert point.kind == "clock" and point.other_load == probe.coords[2]
     deck = netlist.build_deck(cfg, cfg.cell(check.cell))
     (again,) = registry.measure_chunk(cfg, deck, (point,))
