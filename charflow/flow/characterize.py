@@ -229,6 +229,16 @@ class _Collected:
         elif isinstance(outcome, Measurement | SearchResult):  # function checks: ``verify``
             self.measurements.append(outcome)
 
+    def served(self, then: Callable[[tuple], None] | None) -> Callable[[tuple], None]:
+        """A hook for ``sweep.run``'s ``on_stored``: what the store served is reused."""
+
+        def hook(found: tuple) -> None:
+            self.reused.update(m.point for m in found)
+            if then is not None:
+                then(found)
+
+        return hook
+
     def sort(self, order: dict[Work, int]) -> None:
         for outcomes in (self.measurements, self.failures, self.toggles, self.unmeasured):
             outcomes.sort(key=lambda m: order[m.point])
@@ -262,30 +272,20 @@ def characterize(
     # Before the sweep: the version is asked of the sweep's worker pool, and the store's keys
     # hold it.
     made_by = provenance.build(config, provenance.simulator(config, jobs))
-    chosen = select(config, cells, arc)
-    # Hidden-power toggles belong to input pins, not to arcs: they come with whole cells.
-    toggle_points = plan_toggles(config, cells) if arc is None else ()
-    names = list(dict.fromkeys(p.cell for p in chosen.points))
+    chosen, toggle_points, names, work = _work(config, cells, arc)
     plausible.announce(config, names)  # before the first simulation
     decks = {n: build_deck(config, config.cell(n)) for n in names}
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
-    work = (*chosen.points, *toggle_points, *leakage_points(config, names))
     if on_start is not None:
         on_start(sweep.work(work))
     got = _Collected()
-
-    def stored(found: tuple) -> None:
-        got.reused.update(m.point for m in found)
-        if on_stored is not None:
-            on_stored(found)
-
     for outcome in sweep.run(
         config,
         work,
         jobs=jobs,
         on_result=on_result,
         store=store,
-        on_stored=stored,
+        on_stored=got.served(on_stored),
         scheduler=scheduler,
         decks=decks,
     ):
@@ -296,11 +296,7 @@ def characterize(
         whole, others, stale = _the_rest(config, store, work, decks, got)
     the_plan, left_out = _complete(whole, got)
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
-    report = None
-    if got.failures and allow_gaps is not None:
-        # After the sweep, which has stored what it measured: filled values are never stored.
-        report = gaps.fill_gaps(the_plan, got.measurements, got.failures, allow_gaps)
-        got.failures = list(report.remaining)
+    report = _fill(the_plan, got, allow_gaps)
     tables, cell_power = _tabulate(config, the_plan, got, report)
     return RunResult(
         plan=the_plan,
@@ -318,6 +314,27 @@ def characterize(
         cell_power=cell_power,
         gap_report=report,
     )
+
+
+def _work(
+    config: LibraryConfig, cells: list[str] | None, arc: tuple[str, str] | None
+) -> tuple[Plan, tuple[TogglePoint, ...], list[str], tuple[Work, ...]]:
+    """The chosen plan, its toggles, its cells and every point the run's sweep gets. Hidden
+    power belongs to input pins, not to arcs: toggles come with whole cells."""
+    chosen = select(config, cells, arc)
+    toggles = plan_toggles(config, cells) if arc is None else ()
+    names = list(dict.fromkeys(p.cell for p in chosen.points))
+    return chosen, toggles, names, (*chosen.points, *toggles, *leakage_points(config, names))
+
+
+def _fill(plan: Plan, got: _Collected, method: str | None) -> gaps.GapReport | None:
+    """With a gap-filling method, the failed points filled where they can be. After the
+    sweep, which has stored what it measured: filled values are never stored."""
+    if not got.failures or method is None:
+        return None
+    report = gaps.fill_gaps(plan, got.measurements, got.failures, method)
+    got.failures = list(report.remaining)
+    return report
 
 
 def _the_rest(
