@@ -57,11 +57,11 @@ QUIET_FRACTION = 0.5  # an event's current must be quiet over the last half of i
 GRID_SPAN = 0.1  # of the settle window: see event_grid
 
 
-def _level(config: LibraryConfig, value: bool) -> float:
+def level(config: LibraryConfig, value: bool) -> float:
     return config.process.vdd if value else 0.0
 
 
-def _hold_waves(
+def hold_waves(
     bench: Timeline, state: bool, vector: dict[str, bool]
 ) -> tuple[dict[str, str], float]:
     """Waves that store ``state`` with one active clock edge (the grid's sharpest slew) and
@@ -109,7 +109,7 @@ def _hold_request(
             f"the flop cannot hold {int(state)} under {when}: a clear "
             "or preset it asserts forces the state"
         )
-    waves, move = _hold_waves(Timeline(config, cell, window, (min(cell.grid.slew),)), state, vector)
+    waves, move = hold_waves(Timeline(config, cell, window, (min(cell.grid.slew),)), state, vector)
     max_step = hold / HOLD_STEPS
     outputs = tuple(deck.output_node(o.pin) for o in cell.outputs)
     return Request(
@@ -129,7 +129,7 @@ def _held(
     for o in cell.outputs:
         want = stored_output(cell, o.pin, state)
         end = result.vectors[deck.output_node(o.pin)][-1]
-        if abs(end - _level(config, want)) > LOGIC_MARGIN * config.process.vdd:
+        if abs(end - level(config, want)) > LOGIC_MARGIN * config.process.vdd:
             raise MeasurementError(
                 f"output {o.pin} ends at {end:.4g} V holding state {int(state)}, "
                 f"{int(want)} expected",
@@ -208,7 +208,7 @@ def leakage(config: LibraryConfig, deck: Deck, window: float) -> tuple[LeakageSt
     )
 
 
-def _quiet_end(
+def quiet_end(
     config: LibraryConfig,
     t: np.ndarray,
     current: np.ndarray,
@@ -238,7 +238,7 @@ def _quiet_end(
     return settled
 
 
-def _window_energy(
+def window_energy(
     vdd: float,
     t: np.ndarray,
     current: np.ndarray,
@@ -287,8 +287,8 @@ def event_energy(
         ),
         state_current(config, deck, states[1], _levels(config, deck, vectors_, t[-1]), window),
     )
-    settled = _quiet_end(config, t, current, event, switch, static, "the event")
-    supplied = _window_energy(vdd, t, current, event.start, switch, static, settled)
+    settled = quiet_end(config, t, current, event, switch, static, "the event")
+    supplied = window_energy(vdd, t, current, event.start, switch, static, settled)
     # A load charging by dv took C·vdd·dv from the supply; one discharging takes nothing.
     taken, switched = 0.0, 0
     for o in cell.outputs:

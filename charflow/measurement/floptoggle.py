@@ -4,6 +4,8 @@ not captured; the energy measured like an event's (``ffpower``), on the flip-flo
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
 
 from charflow.config.library import LibraryConfig
@@ -16,7 +18,7 @@ from charflow.records.errors import MeasurementError
 from charflow.records.outcomes import ToggleMeasurement
 from charflow.records.points import TogglePoint
 from charflow.simulation import stimulus
-from charflow.simulation.backends import Request
+from charflow.simulation.backends import Request, Result
 from charflow.simulation.netlist import Deck
 from charflow.simulation.stimulus import Ramp
 from charflow.simulation.timeline import Timeline
@@ -26,93 +28,136 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     """One hidden event of a flop: the stored value is written first, the pin's edge then
     moves no output; its supply energy from the edge until the current is quiet again."""
     cell = config.cell(point.cell)
-    flop = cell.flip_flop
     window = sequential.settle_window(config, deck)
     bench = Timeline(config, cell, window, (point.slew, min(cell.grid.slew)))
-    vdd, thr = bench.vdd, bench.thr
-    side = dict(point.side)
     state = stored_value(cell, point)
+    waves, event = _waves(bench, point, state)
+    result, runs = _run(config, deck, bench, point, waves, event)
+    t = result.vectors["time"]
+    during = t >= event.start
+    _outputs_held(config, deck, result.vectors, during, state)
+    switch = single_crossing(
+        t[during],
+        result.vectors[deck.input_node(point.related)][during],
+        bench.thr.delay_input(point.input_edge) * bench.vdd,
+        point.input_edge,
+        f"input {point.related}",
+    )
+    side = dict(point.side)
+    after = {**side, point.related: point.input_edge == "rise"}
+    before = {**side, point.related: point.input_edge != "rise"}
+    static = (
+        ffpower.state_current(config, deck, state, before, window),
+        ffpower.state_current(config, deck, state, after, window),
+    )
+    current = -result.vectors[f"{deck.supply}#branch"]
+    what = f"the {point.related} edge"
+    settled = ffpower.quiet_end(config, t, current, event, switch, static, what)
+    energy = ffpower.window_energy(bench.vdd, t, current, event.start, switch, static, settled)
+    in_branch = result.vectors[f"{deck.input_source(point.related)}#branch"]
+    charge = -integral(t, in_branch, event.start, settled)
+    return ToggleMeasurement(point, energy, charge, runs, result.seconds, settled)
+
+
+def _waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, str], Ramp]:
+    """The inputs' waves of the hidden event and the ramp of the edge under test."""
+    cell, flop = bench.cell, bench.cell.flip_flop
+    side = dict(point.side)
     inactive = point.input_edge != flop.edge
     if point.related == flop.clock and inactive and side != capture_values(cell, state):
-        # The data opposite the stored value: it moves there while the clock is still active
-        # after writing the state, then the inactive edge under test.
-        active = flop.edge == "rise"
-        waves, move = ffpower._hold_waves(bench, state, {**side, flop.clock: active})
-        back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-        event = Ramp(back.edge, move + bench.half, back.duration, vdd)
-        first = stimulus.ramp(min(cell.grid.slew), flop.edge, thr, vdd)
-        waves[flop.clock] = stimulus.pulse_vector(
-            *first.levels,
-            bench.lead,
-            first.duration,
-            event.duration,
-            event.start - bench.lead - first.duration,
-            2.0,
-        )
-    elif point.related == flop.clock:
+        return _inactive_clock_waves(bench, point, state)
+    if point.related == flop.clock:
         clock, second = bench.clock(point.slew, edges=2)
-        waves = {p: stimulus.constant(ffpower._level(config, v)) for p, v in side.items()}
+        waves = {p: stimulus.constant(ffpower.level(bench.config, v)) for p, v in side.items()}
         waves[flop.clock] = clock
         if point.input_edge == flop.edge:
-            event = second
-        else:  # the first inactive edge: half a period after the edge that wrote the state
-            back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-            event = Ramp(back.edge, bench.lead + bench.half, back.duration, vdd)
-    else:
-        before = point.input_edge == "fall"
-        waves, move = ffpower._hold_waves(bench, state, {**side, point.related: before})
-        go = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-        event = Ramp(go.edge, move + bench.half, go.duration, vdd)
-        written = capture_values(cell, state)[point.related]
-        if written == before:
-            waves[point.related] = event.pulse()
-        else:  # to ``before`` with the other data, then the edge under test back again
-            first = stimulus.ramp(min(cell.grid.slew), "rise" if before else "fall", thr, vdd)
-            flat = event.start - move - first.duration
-            waves[point.related] = stimulus.pulse_vector(
-                *event.levels[::-1], move, first.duration, event.duration, flat, 2.0
-            )
+            return waves, second
+        # The first inactive edge: half a period after the edge that wrote the state.
+        back = stimulus.ramp(point.slew, point.input_edge, bench.thr, bench.vdd)
+        return waves, Ramp(back.edge, bench.lead + bench.half, back.duration, bench.vdd)
+    return _data_waves(bench, point, state)
+
+
+def _inactive_clock_waves(
+    bench: Timeline, point: TogglePoint, state: bool
+) -> tuple[dict[str, str], Ramp]:
+    """The data opposite the stored value: it moves there while the clock is still active
+    after writing the state, then the inactive edge under test."""
+    cell, flop, thr, vdd = bench.cell, bench.cell.flip_flop, bench.thr, bench.vdd
+    active = flop.edge == "rise"
+    waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), flop.clock: active})
+    back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    event = Ramp(back.edge, move + bench.half, back.duration, vdd)
+    first = stimulus.ramp(min(cell.grid.slew), flop.edge, thr, vdd)
+    waves[flop.clock] = stimulus.pulse_vector(
+        *first.levels,
+        bench.lead,
+        first.duration,
+        event.duration,
+        event.start - bench.lead - first.duration,
+        2.0,
+    )
+    return waves, event
+
+
+def _data_waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, str], Ramp]:
+    """A data pin's edge that the clock does not capture."""
+    cell, thr, vdd = bench.cell, bench.thr, bench.vdd
+    before = point.input_edge == "fall"
+    waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), point.related: before})
+    go = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    event = Ramp(go.edge, move + bench.half, go.duration, vdd)
+    written = capture_values(cell, state)[point.related]
+    if written == before:
+        waves[point.related] = event.pulse()
+    else:  # to ``before`` with the other data, then the edge under test back again
+        first = stimulus.ramp(min(cell.grid.slew), "rise" if before else "fall", thr, vdd)
+        flat = event.start - move - first.duration
+        waves[point.related] = stimulus.pulse_vector(
+            *event.levels[::-1], move, first.duration, event.duration, flat, 2.0
+        )
+    return waves, event
+
+
+def _run(
+    config: LibraryConfig,
+    deck: Deck,
+    bench: Timeline,
+    point: TogglePoint,
+    waves: dict[str, str],
+    event: Ramp,
+) -> tuple[Result, int]:
+    """The transient of the hidden event, run past it by the settle window."""
+    cell = bench.cell
     stop = event.end + bench.window
-    outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}
-    supply = f"{deck.supply}#branch"
+    outputs = [deck.output_node(o.pin) for o in cell.outputs]
     in_branch = f"{deck.input_source(point.related)}#branch"
     grid = ffpower.event_grid(event, bench.window)
     max_step = sequential.run_step(config, point.slew, min(cell.grid.slew))
     request = Request(
         deck,
-        alters(deck, cell, waves, {o: point.load for o in outputs}, grid),
+        alters(deck, cell, waves, {o.pin: point.load for o in cell.outputs}, grid),
         f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-        (*outputs.values(), deck.input_node(point.related), in_branch, supply),
+        (*outputs, deck.input_node(point.related), in_branch, f"{deck.supply}#branch"),
     )
-    result, runs = simulate(backend_for(config), request)
-    t = result.vectors["time"]
-    during = t >= event.start
-    for pin, node in outputs.items():
-        v = result.vectors[node]
-        want = ffpower._level(config, stored_output(cell, pin, state))
+    return simulate(backend_for(config), request)
+
+
+def _outputs_held(
+    config: LibraryConfig,
+    deck: Deck,
+    vectors: Mapping[str, np.ndarray],
+    during: np.ndarray,
+    state: bool,
+) -> None:
+    """Raise when an output leaves the stored value's level after the event starts."""
+    cell = config.cell(deck.cell)
+    for o in cell.outputs:
+        v = vectors[deck.output_node(o.pin)]
+        want = ffpower.level(config, stored_output(cell, o.pin, state))
         moved = float(np.max(np.abs(v[during] - want)))
-        if moved > LOGIC_MARGIN * vdd:
+        if moved > LOGIC_MARGIN * config.process.vdd:
             raise MeasurementError(
-                f"output {pin} leaves its stored level {want:.4g} V by {moved:.4g} V: not an "
+                f"output {o.pin} leaves its stored level {want:.4g} V by {moved:.4g} V: not an "
                 "event that leaves the outputs alone"
             )
-    switch = single_crossing(
-        t[during],
-        result.vectors[deck.input_node(point.related)][during],
-        thr.delay_input(point.input_edge) * vdd,
-        point.input_edge,
-        f"input {point.related}",
-    )
-    after = {**side, point.related: point.input_edge == "rise"}
-    before_vector = {**side, point.related: point.input_edge != "rise"}
-    static = (
-        ffpower.state_current(config, deck, state, before_vector, window),
-        ffpower.state_current(config, deck, state, after, window),
-    )
-    current = -result.vectors[supply]
-    settled = ffpower._quiet_end(
-        config, t, current, event, switch, static, f"the {point.related} edge"
-    )
-    energy = ffpower._window_energy(vdd, t, current, event.start, switch, static, settled)
-    charge = -integral(t, result.vectors[in_branch], event.start, settled)
-    return ToggleMeasurement(point, energy, charge, runs, result.seconds, settled)
