@@ -290,7 +290,8 @@ def test_each_pin_edge_capacitance_is_that_edges_charge(cfg, run):
 
 def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
     # A minimum pulse width is the edge between pass and fail (common practice): the width
-    # found passes and the bracket's lower end fails, each re-simulated from scratch. RSTB's
+    # found passes and the bracket's lower end fails, each re-simulated from scratch (at the
+    # tightened settings the width is confirmed at). RSTB's
     # narrowest full-swing pulse at the sharpest slew still clears the flop: its minimum is
     # found with pulses at that edge rate that turn back before the rail, below that width.
     result, out = run

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import itertools
 import logging
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -595,16 +596,27 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     with KeepWaveform(lambda: trials.failed):
         bracket = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
     checked, check = _confirm(config, deck, point, bracket)
-    note = ""
-    if checked != bracket:
-        unit = config.time_unit
-        note = (
-            f"moved from {show_time(bracket[1], unit)} to {show_time(checked[1], unit)} when "
-            "its bracket was re-simulated at tightened settings: searched on at them"
-        )
-        log.warning("cell %s, %s: %s", point.cell, point.label, note)
+    note = _moved(config, point, bracket, checked)
     runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
     return SearchResult(point, checked[1], runs, seconds, checked, note=note)
+
+
+def _moved(
+    config: LibraryConfig,
+    point: ConstraintPoint | PulsePoint,
+    bracket: tuple[float, float],
+    checked: tuple[float, float],
+) -> str:
+    """The note (and warning) of a search whose bracket did not hold at tightened settings."""
+    if checked == bracket:
+        return ""
+    unit = config.time_unit
+    note = (
+        f"moved from {show_time(bracket[1], unit)} to {show_time(checked[1], unit)} when "
+        "its bracket was re-simulated at tightened settings: searched on at them"
+    )
+    log.warning("cell %s, %s: %s", point.cell, point.label, note)
+    return note
 
 
 def _confirm(
@@ -822,7 +834,8 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     first; when the narrowest of them (no flat top) still works, a control's pulses keep the
     slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
-    result says why (a clock's pulses are full-swing only: one PULSE source shapes both)."""
+    result says why (a clock's pulses are full-swing only: one PULSE source shapes both). A
+    width found is re-checked at tightened settings like a constraint (``_confirm_pulse``)."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
@@ -830,29 +843,77 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
     passes, relaxed = test(bench, point, shape, trials)
-    tol = config.simulation.bisect_tolerance
+    with KeepWaveform(lambda: trials.failed):
+        found = _pulse_search(passes, point, shape, relaxed, clock, config.simulation)
+    bracket, stimulus_, note = found
+    if bracket[0] is None:  # no width failed: nothing to confirm
+        return SearchResult(point, None, trials.runs, trials.seconds, bracket, stimulus_, note)
+    known = (bracket[0], bracket[1])
+    lowest = shape.narrowest if stimulus_ == FULL else shape.floor
+    checked, check = _confirm_pulse(deck, bench, point, shape, test, known, lowest)
+    note = _moved(config, point, known, checked)
+    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
+    return SearchResult(point, checked[1], runs, seconds, checked, stimulus_, note)
+
+
+def _pulse_search(
+    passes: Callable[[float], bool],
+    point: PulsePoint,
+    shape: _Pulse,
+    relaxed: float,
+    clock: bool,
+    sim: Simulation,
+) -> tuple[tuple[float | None, float], str, str]:
+    """The (failing, passing) widths, the pulse shape and a note: full-swing pulses, then for a
+    control runt pulses; a failing width None when no width the search could shape fails."""
+    tol = sim.bisect_tolerance
+    if not passes(relaxed):
+        raise MeasurementError(f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)")
+    if not passes(shape.narrowest):
+        return _bisect(passes, shape.narrowest, relaxed, tol), FULL, ""
+    if clock:
+        note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
+        return (None, shape.narrowest), FULL, note
+    floor = min(shape.floor + tol, shape.narrowest)
+    if passes(floor):
+        note = "works even as a pulse that turns back just past the thresholds: no width fails"
+        return (None, floor), RUNT, note
+    return _bisect(passes, floor, shape.narrowest, tol), RUNT, ""
+
+
+def _confirm_pulse(
+    deck: Deck,
+    bench: Timeline,
+    point: PulsePoint,
+    shape: _Pulse,
+    test: Callable[..., tuple[Callable[[float], bool], float]],
+    bracket: tuple[float, float],
+    lowest: float,
+) -> tuple[tuple[float, float], _Trials]:
+    """A pulse search's (failing, passing) widths re-simulated at tightened settings, searched
+    on there where one does not hold (as ``_confirm`` does for a constraint), no narrower than
+    ``lowest`` (the narrowest pulse of the search's shape)."""
+    trials = _Trials(bench.config, deck)
+    passes, relaxed = test(bench, point, shape, trials, tight=True)
+    tol = bench.config.simulation.bisect_tolerance
+    failing, passing = bracket
     with KeepWaveform(lambda: trials.failed):
         if not passes(relaxed):
             raise MeasurementError(
                 f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
             )
-        if not passes(shape.narrowest):
-            bracket = _bisect(passes, shape.narrowest, relaxed, tol)
-            return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
-        if clock:
-            note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
-            return SearchResult(
-                point, None, trials.runs, trials.seconds, (None, shape.narrowest), FULL, note
-            )
-        floor = min(shape.floor + tol, shape.narrowest)
-        if passes(floor):
-            note = "works even as a pulse that turns back just past the thresholds: no width fails"
-            return SearchResult(point, None, trials.runs, trials.seconds, (None, floor), RUNT, note)
-        bracket = _bisect(passes, floor, shape.narrowest, tol)
-    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket, RUNT)
+        if passes(passing):
+            if not passes(failing):
+                return bracket, trials
+            passing, failing = _step_out(passes, failing, -tol, lowest, point.label)
+        else:
+            failing, passing = _step_out(passes, passing, tol, relaxed, point.label)
+        return _bisect(passes, failing, passing, tol), trials
 
 
-def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
+def _clock_pulse_test(
+    bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials, tight: bool = False
+):
     """The pass test of a clock pulse by its width (full swing: a flat top of the width less
     the edges'), and a relaxed width: two writes, the second must capture in time."""
     cell, flop = bench.cell, bench.cell.flip_flop
@@ -861,7 +922,7 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
     stored = True
     new, old = capture_values(cell, stored), capture_values(cell, not stored)
     active_level = "high" if flop.edge == "rise" else "low"
-    step = run_step(bench.config, point.slew, min(cell.grid.slew))
+    step, options = run_settings(bench.config, trials.deck, tight, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         if point.level == active_level:
@@ -880,13 +941,16 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
             output=out,
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
+            options=options,
         )
         return trials.in_time(outcome)
 
     return passes, bench.half - shape.first.duration
 
 
-def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
+def _control_pulse_test(
+    bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials, tight: bool = False
+):
     """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
     relaxed width: with the other value stored, the pulse must force the control's value."""
     cell, flop = bench.cell, bench.cell.flip_flop
@@ -896,7 +960,7 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
     old = capture_values(cell, not stored)
     clock, first_edge = bench.clock(min(cell.grid.slew), edges=1)
     start = first_edge.end + bench.half
-    step = run_step(bench.config, point.slew, min(cell.grid.slew))
+    step, options = run_settings(bench.config, trials.deck, tight, point.slew, min(cell.grid.slew))
 
     def passes(width: float) -> bool:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
@@ -912,6 +976,7 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
             quiet_until=end,
+            options=options,
         )
         return outcome is not None
 
@@ -974,13 +1039,14 @@ def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
 
 def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
-    swing at and above the narrowest, turned back below it), for re-checking a result: a fresh
-    relaxed reference is simulated first."""
+    swing at and above the narrowest, turned back below it), for re-checking a result at the
+    tightened settings it is confirmed at (``_confirm_pulse``): a fresh relaxed reference is
+    simulated first."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
-    passes, relaxed = test(bench, point, shape, _Trials(config, deck))
+    passes, relaxed = test(bench, point, shape, _Trials(config, deck), tight=True)
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes
