@@ -214,7 +214,8 @@ def _edge_grid(
         return breakpoints(min(event.start, start), last, spacing, inside)
     first = min(event.start + LEAD_FROM * event.duration, start)
     dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
-    lead = (start - first) / LEAD_POINTS
+    # No lead-in where the output's edge (with its margin) starts before LEAD_FROM of the ramp.
+    lead = (start - first) / LEAD_POINTS or spacing
     return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
 
 
