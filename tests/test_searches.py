@@ -16,7 +16,7 @@ from charflow.config import library as config
 from charflow.measurement import sequential
 from charflow.plan.arcs import plan
 from charflow.records.errors import MeasurementError
-from charflow.records.points import ConstraintPoint
+from charflow.records.points import ConstraintPoint, PulsePoint
 from charflow.simulation.netlist import build_deck
 
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
@@ -117,3 +117,26 @@ def test_the_flop_s_constraints_match_bisection_in_fewer_simulations(flop):
     old_mean, new_mean = sum(old_runs) / len(points), sum(new_runs) / len(points)
     print(f"simulations per search: bisection {old_mean:.1f}, search {new_mean:.1f}")
     assert new_mean < old_mean
+
+
+def test_the_flop_s_clock_pulses_match_bisection(flop):
+    # A clock pulse's margin narrows the same way, up from the narrowest full-swing pulse.
+    cfg, deck = flop
+    tol = cfg.simulation.bisect_tolerance
+    cell = cfg.cell(CELL)
+    points = [p for p in plan(cfg, [CELL]).points if isinstance(p, PulsePoint) and p.pin == "CLK"]
+    assert {p.level for p in points} == {"high", "low"}
+    for point in points:
+        new = sequential.measure_pulse(cfg, deck, point)
+        bench = sequential._bench(cfg, deck, point.slew, min(cell.grid.slew))
+        shape = sequential._Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+        trials = sequential._Trials(cfg, deck)
+        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, trials)
+        passes = sequential._passing(measure)
+        assert passes(relaxed) and not passes(shape.narrowest)
+        old = sequential._bisect(passes, shape.narrowest, relaxed, tol)
+        print(
+            f"{point.label}: bisection {old} in {trials.runs}, search {new.bracket} in {new.runs}"
+        )
+        assert new.value is not None and abs(new.value - old[1]) <= AGREE, point.label
+        assert new.runs < trials.runs

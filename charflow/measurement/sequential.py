@@ -563,18 +563,24 @@ def _search(measure, lo: float, hi: float, tol: float, what: str) -> tuple[float
     high = measure(hi)  # the relaxed trial first: it sets the reference clock-to-output
     if high > 0:
         raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
-    failing, passing = _bracket(measure, lo, (hi, high), tol, what)
+    # Constraints lie near offset 0 (the data's threshold at the clock's): the walk starts there.
+    failing, passing = _bracket(measure, lo, (0.0, measure(0.0)), (hi, high), tol, what)
     return _falsi(measure, failing, passing, tol)
 
 
 def _bracket(
-    measure, lo: float, high: tuple[float, float], tol: float, what: str
+    measure,
+    lo: float,
+    start: tuple[float, float],
+    high: tuple[float, float],
+    tol: float,
+    what: str,
 ) -> tuple[tuple[float, float], tuple[float, float]]:
-    """A first (failing, passing) bracket, each end an (offset, margin) pair: constraints lie
-    near offset 0 (the data's threshold at the clock's), so from there in steps that double
-    from BRACKET_STEP × ``tol``, down while the trials pass, up while they fail, no further
-    than ``lo`` (which must fail) or ``high``'s offset (which passed)."""
-    at, g = 0.0, measure(0.0)
+    """A first (failing, passing) bracket, each end an (offset, margin) pair: from ``start``
+    (measured) in steps that double from BRACKET_STEP × ``tol``, down while the trials pass,
+    up while they fail, no further than ``lo`` (which must fail) or ``high``'s offset (which
+    passed)."""
+    at, g = start
     down = g <= 0  # passing: walk down to a failing offset; failing: up to a passing one
     step = BRACKET_STEP * tol
     while True:
@@ -912,15 +918,20 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
-    passes, relaxed = test(bench, point, shape, trials)
+    measure, relaxed = test(bench, point, shape, trials)
+    passes = _passing(measure)
     tol = config.simulation.bisect_tolerance
     with KeepWaveform(lambda: trials.failed):
-        if not passes(relaxed):
+        high = measure(relaxed)
+        if high > 0:
             raise MeasurementError(
                 f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
             )
-        if not passes(shape.narrowest):
-            bracket = _bisect(passes, shape.narrowest, relaxed, tol)
+        narrowest = (shape.narrowest, measure(shape.narrowest))
+        if narrowest[1] > 0:
+            # Up from the narrowest full-swing pulse, as a constraint search from offset 0.
+            ends = _bracket(measure, shape.narrowest, narrowest, (relaxed, high), tol, point.label)
+            bracket = _falsi(measure, *ends, tol)
             return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
         if clock:
             note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
@@ -936,8 +947,9 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
 
 
 def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
-    """The pass test of a clock pulse by its width (full swing: a flat top of the width less
-    the edges'), and a relaxed width: two writes, the second must capture in time."""
+    """The margin (``_Trials.margin``) of a clock pulse by its width (full swing: a flat top
+    of the width less the edges'), and a relaxed width: two writes, the second must capture
+    in time."""
     cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
@@ -946,7 +958,7 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
     active_level = "high" if flop.edge == "rise" else "low"
     step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
-    def passes(width: float) -> bool:
+    def measure(width: float) -> float:
         if point.level == active_level:
             clock, event = bench.clock(point.slew, edges=2, high=shape.flat(width))
             change = event.start - bench.half / 2
@@ -964,14 +976,15 @@ def _clock_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials:
             before=stored_output(cell, out, not stored),
             after=stored_output(cell, out, stored),
         )
-        return trials.in_time(outcome)
+        return trials.margin(outcome)
 
-    return passes, bench.half - shape.first.duration
+    return measure, bench.half - shape.first.duration
 
 
 def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials):
-    """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
-    relaxed width: with the other value stored, the pulse must force the control's value."""
+    """The margin (0 passing, +inf failing) of a clear or preset pulse by its width
+    (``_Pulse.vector``), and a relaxed width: with the other value stored, the pulse must
+    force the control's value."""
     cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
@@ -981,7 +994,7 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
     start = first_edge.end + bench.half
     step = run_step(bench.config, point.slew, min(cell.grid.slew))
 
-    def passes(width: float) -> bool:
+    def measure(width: float) -> float:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
         waves[point.pin], end = shape.vector(start, width)
@@ -996,9 +1009,9 @@ def _control_pulse_test(bench: Timeline, point: PulsePoint, shape: _Pulse, trial
             after=stored_output(cell, out, stored),
             quiet_until=end,
         )
-        return outcome is not None
+        return 0.0 if outcome is not None else float("inf")  # forced or not: no slope
 
-    return passes, bench.half
+    return measure, bench.half
 
 
 def check_flop(config: LibraryConfig, deck: Deck) -> None:
@@ -1064,7 +1077,8 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
-    passes, relaxed = test(bench, point, shape, _Trials(config, deck))
+    measure, relaxed = test(bench, point, shape, _Trials(config, deck))
+    passes = _passing(measure)
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes
