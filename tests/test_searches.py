@@ -18,6 +18,7 @@ from charflow.plan.arcs import plan
 from charflow.records.errors import MeasurementError
 from charflow.records.points import ConstraintPoint, PulsePoint
 from charflow.simulation.netlist import build_deck
+from charflow.simulation.stimulus import Ramp
 
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
 CELL = "QDFFR_P1"
@@ -140,3 +141,13 @@ def test_the_flop_s_clock_pulses_match_bisection(flop):
         )
         assert new.value is not None and abs(new.value - old[1]) <= AGREE, point.label
         assert new.runs < trials.runs
+
+
+def test_an_output_edge_that_starts_early_in_a_slow_event_gets_its_grid():
+    # A search's trial at offset 0 with 0.2 ns slews (the demo's flops) moved the output before
+    # LEAD_FROM of the clock's ramp: the refinement's grid had no lead to spread (it divided by
+    # zero). The grid must still be a PWL vector whose times increase (SPICE requires it).
+    event = Ramp("rise", 0.0, 200e-12, 1.2)
+    grid = sequential._edge_grid(event, (50e-12, 500e-12), 1e-12, ())
+    times = [float(x) for x in grid.strip("[] ").split()[::2]]
+    assert times == sorted(set(times)) and len(times) > 10

@@ -221,7 +221,8 @@ def _edge_grid(
         return breakpoints(min(event.start, start), last, spacing, inside)
     first = min(event.start + LEAD_FROM * event.duration, start)
     dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
-    lead = (start - first) / LEAD_POINTS
+    # An edge that starts before LEAD_FROM of the event's ramp has no lead to spread.
+    lead = (start - first) / LEAD_POINTS if start > first else spacing
     return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
 
 
