@@ -30,7 +30,7 @@ from charflow.plan import arcs as planning
 from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import ConfigError, CutOffError
 from charflow.records.outcomes import Failure
-from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
+from charflow.records.points import SEARCH_RUNS, ConstraintPoint, PulsePoint, TimingPoint
 from charflow.simulation import plausible
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -299,7 +299,7 @@ def test_the_progress_bar_counts_each_point_by_its_cost(seq, capsys):
     kinds = {(type(p).__name__, getattr(p, "kind", "")): p.cost for p in points}
     assert kinds[("TimingPoint", "combinational")] == 1
     assert kinds[("TimingPoint", "clock")] == kinds[("TimingPoint", "clear")] == 2
-    assert kinds[("ConstraintPoint", "setup")] == kinds[("PulsePoint", "")] == 30
+    assert kinds[("ConstraintPoint", "setup")] == kinds[("PulsePoint", "")] == SEARCH_RUNS
     progress = cli_shared.Progress(quiet=False, name="seq_l1")
     progress.enabled = True  # as on a terminal
     progress.start(sweep.work(points))

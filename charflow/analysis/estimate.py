@@ -11,8 +11,8 @@ step, retries and the length of a search are counted as the run will meet them:
   the cell's first arc;
 - a flip-flop's clock and control arcs: the first, middle and last of them;
 - searches: one of each kind (setup, hold, recovery, removal, pulse width), since a search's
-  runs are set by its bracket and tolerance, about log2(bracket / tolerance) trials and its
-  two bracket checks, alike for every search of a kind in a cell;
+  runs are set by its tolerance and by how far its answer lies from where its bracketing walk
+  starts (``sequential._bracket``), alike enough for every search of a kind in a cell;
 - toggles: the first of the cell's.
 
 Each group of points is charged the mean of its samples. The simulations counted are those the

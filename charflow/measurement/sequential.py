@@ -2,9 +2,10 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state. Constraints are found by
-bisection on the data-to-clock offset; a point passes when the right value is captured and
-clock-to-output has pushed out by no more than ``simulation.pushout`` over its relaxed value.
+each output edge is measured from a properly initialised state. Constraints are found on the
+data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
+passes when the right value is captured and clock-to-output has pushed out by no more than
+``simulation.pushout`` over its relaxed value.
 """
 
 from __future__ import annotations
@@ -87,6 +88,13 @@ TIGHT_STEPS = 4.0
 TIGHT_RELTOL = 10.0
 SAMPLE_RTOL = 0.002
 SAMPLE_TRANSITION_RTOL = 0.01
+# A constraint search's trials (_falsi) stay this share of the tolerance inside the bracket: a
+# root estimate at an end would move that end by a hair; this far in, the next verdict either
+# way leaves a bracket within the tolerance or moves the end by almost half of it.
+FALSI_EDGE = 0.45
+# The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
+# tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
+BRACKET_STEP = 4.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -214,8 +222,8 @@ def _edge_grid(
         return breakpoints(min(event.start, start), last, spacing, inside)
     first = min(event.start + LEAD_FROM * event.duration, start)
     dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
-    # No lead-in where the output's edge (with its margin) starts before LEAD_FROM of the ramp.
-    lead = (start - first) / LEAD_POINTS or spacing
+    # An edge that starts before LEAD_FROM of the event's ramp has no lead to spread.
+    lead = (start - first) / LEAD_POINTS if start > first else spacing
     return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
 
 
@@ -550,14 +558,76 @@ def _bisect(passes, lo: float, hi: float, tol: float) -> tuple[float, float]:
     return lo, hi
 
 
-def _search(passes, lo: float, hi: float, tol: float, what: str) -> tuple[float, float]:
-    """Bisection for the smallest passing value between ``lo`` (must fail) and ``hi`` (must
-    pass); returns the final (failing, passing) bracket."""
-    if not passes(hi):
+def _search(measure, lo: float, hi: float, tol: float, what: str) -> tuple[float, float]:
+    """The smallest passing offset between ``lo`` (must fail) and ``hi`` (must pass), found on
+    the trials' margin (``_Trials.margin``: passing at or below 0): bracketed near offset 0
+    (``_bracket``), then narrowed (``_falsi``); returns the final (failing, passing) bracket."""
+    high = measure(hi)  # the relaxed trial first: it sets the reference clock-to-output
+    if high > 0:
         raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
-    if passes(lo):
-        raise MeasurementError(f"{what}: passes even at {lo:.4g} s; the search does not bracket")
-    return _bisect(passes, lo, hi, tol)
+    # Constraints lie near offset 0 (the data's threshold at the clock's): the walk starts there.
+    failing, passing = _bracket(measure, lo, (0.0, measure(0.0)), (hi, high), tol, what)
+    return _falsi(measure, failing, passing, tol)
+
+
+def _bracket(
+    measure,
+    lo: float,
+    start: tuple[float, float],
+    high: tuple[float, float],
+    tol: float,
+    what: str,
+) -> tuple[tuple[float, float], tuple[float, float]]:
+    """A first (failing, passing) bracket, each end an (offset, margin) pair: from ``start``
+    (measured) in steps that double from BRACKET_STEP × ``tol``, down while the trials pass,
+    up while they fail, no further than ``lo`` (which must fail) or ``high``'s offset (which
+    passed)."""
+    at, g = start
+    down = g <= 0  # passing: walk down to a failing offset; failing: up to a passing one
+    step = BRACKET_STEP * tol
+    while True:
+        nxt = max(at - step, lo) if down else min(at + step, high[0])
+        g_nxt = high[1] if nxt == high[0] else measure(nxt)
+        if (g_nxt > 0) == down:
+            return ((nxt, g_nxt), (at, g)) if down else ((at, g), (nxt, g_nxt))
+        if nxt == lo:
+            raise MeasurementError(
+                f"{what}: passes even at {lo:.4g} s; the search does not bracket"
+            )
+        at, g, step = nxt, g_nxt, 2 * step
+
+
+def _falsi(
+    measure, failing: tuple[float, float], passing: tuple[float, float], tol: float
+) -> tuple[float, float]:
+    """Narrow the bracket between ``failing`` and ``passing`` (each an (offset, margin) pair,
+    margin > 0 failing, <= 0 passing) to ``tol``; the final (failing, passing) offsets.
+    The Illinois variant of regula falsi (M. Dowell and P. Jarratt, "A modified regula falsi
+    method for computing the root of an equation", BIT 11, 1971): the secant through the ends,
+    the margin of an end kept twice in a row halved. Safeguarded as Brent's method is (R. P.
+    Brent, "Algorithms for Minimization without Derivatives", 1973, ch. 4): a bisection step
+    where the failing end's margin is not finite (the capture failed), or the bracket has not
+    halved over the last two steps; a trial at least FALSI_EDGE × ``tol`` inside either end,
+    so that the bracket closes to ``tol`` from either side."""
+    (lo, g_lo), (hi, g_hi) = failing, passing
+    widths = [np.inf, np.inf]  # the bracket's width before each step
+    kept = 0  # +1: the passing end moved last; -1: the failing end did
+    while hi - lo > tol:
+        x = 0.5 * (lo + hi)
+        if np.isfinite(g_lo) and hi - lo <= 0.5 * widths[-2]:
+            x = hi - g_hi * (hi - lo) / (g_hi - g_lo)
+            x = min(max(x, lo + FALSI_EDGE * tol), hi - FALSI_EDGE * tol)
+        widths.append(hi - lo)
+        g = measure(x)
+        if g <= 0:
+            hi, g_hi = x, g
+            g_lo = g_lo / 2 if kept == 1 else g_lo
+            kept = 1
+        else:
+            lo, g_lo = x, g
+            g_hi = g_hi / 2 if kept == -1 else g_hi
+            kept = -1
+    return lo, hi
 
 
 class _Trials:
@@ -579,23 +649,28 @@ class _Trials:
         self.runs, self.seconds = self.runs + runs, self.seconds + seconds
         return outcome
 
-    def in_time(self, outcome: Outcome | None) -> bool:
+    def margin(self, outcome: Outcome | None) -> float:
+        """How far clock-to-output is past the pass limit (the relaxed value, the first
+        outcome's, plus ``simulation.pushout``): at or below 0 the trial passes; it grows
+        smoothly as the offset shrinks, then is infinite where the capture fails."""
         if outcome is None:
-            return False
+            return float("inf")
         if self.reference is None:
             self.reference = outcome.delay
-            return True
-        return outcome.delay <= (1.0 + self.config.simulation.pushout) * self.reference
+        return outcome.delay - (1.0 + self.config.simulation.pushout) * self.reference
+
+    def in_time(self, outcome: Outcome | None) -> bool:
+        return self.margin(outcome) <= 0
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
     clock-to-data-change offset that keeps the captured value (either may be negative).
     Recovery and removal: the same for a clear or preset's release (``_release_setup``)."""
-    passes, lo, hi, trials = _constraint_setup(config, deck, point)
+    measure, lo, hi, trials = _constraint_setup(config, deck, point)
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
-        bracket = _search(passes, lo, hi, config.simulation.bisect_tolerance, point.label)
+        bracket = _search(measure, lo, hi, config.simulation.bisect_tolerance, point.label)
     checked, check = _confirm(config, deck, point, bracket)
     note = _moved(config, point, bracket, checked)
     runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
@@ -628,7 +703,8 @@ def _confirm(
     failing end fail there too. Where one does not, the search goes on at those settings,
     outwards from that end in steps that double from the tolerance, then by bisection. Returns
     the bracket that holds at tightened settings and the check's trials."""
-    passes, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
+    measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
+    passes = _passing(measure)
     tol = config.simulation.bisect_tolerance
     failing, passing = bracket
     with KeepWaveform(lambda: trials.failed):
@@ -641,6 +717,15 @@ def _confirm(
         else:
             failing, passing = _step_out(passes, passing, tol, hi, point.label)
         return _bisect(passes, failing, passing, tol), trials
+
+
+def _passing(measure):
+    """The pass test of a trial's margin (``_Trials.margin``)."""
+
+    def passes(offset: float) -> bool:
+        return measure(offset) <= 0
+
+    return passes
 
 
 def _step_out(passes, start: float, step: float, limit: float, what: str) -> tuple[float, float]:
@@ -660,7 +745,8 @@ def _step_out(passes, start: float, step: float, limit: float, what: str) -> tup
 def _constraint_setup(
     config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool = False
 ):
-    """The pass test of a constraint point, its failing and its relaxed (passing) offset; with
+    """The margin of a constraint point's trial by its offset (``_Trials.margin``: passing at
+    or below 0), its failing and its relaxed (passing) offset; with
     ``tight``, at the tightened settings of a convergence check (``run_settings``)."""
     if point.kind in ("recovery", "removal"):
         return _release_setup(config, deck, point, tight)
@@ -700,7 +786,7 @@ def _constraint_setup(
 
     step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
 
-    def passes(offset: float) -> bool:
+    def measure(offset: float) -> float:
         waves, quiet = waves_at(offset)
         outcome = trials(
             waves,
@@ -713,7 +799,7 @@ def _constraint_setup(
             quiet_until=quiet,
             options=options,
         )
-        return trials.in_time(outcome)
+        return trials.margin(outcome)
 
     relaxed = bench.half / 2
     if point.kind == "setup":
@@ -723,7 +809,7 @@ def _constraint_setup(
         )
     else:
         lo = -relaxed / 2
-    return passes, lo, relaxed, trials
+    return measure, lo, relaxed, trials
 
 
 def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool):
@@ -749,7 +835,7 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, ti
     values = capture_values(cell, not forced)
     step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
 
-    def passes(offset: float) -> bool:
+    def measure(offset: float) -> float:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
         waves[flop.clock] = clock
         release_at = t_clk - offset if recovery else t_clk + offset
@@ -769,14 +855,17 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, ti
             quiet_until=quiet,
             options=options,
         )
-        # Recovery is judged like setup (captured, and in time); removal by the flop staying.
-        return trials.in_time(outcome) if recovery else outcome is not None
+        # Recovery is judged like setup (captured, and in time); removal by the flop staying,
+        # which has no measure that grows towards failing.
+        if recovery:
+            return trials.margin(outcome)
+        return 0.0 if outcome is not None else float("inf")
 
     relaxed = bench.half / 2
     # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
     # edge captures nothing, or captures.
     lo = -(probe[1].duration + event.duration) if recovery else -relaxed
-    return passes, lo, relaxed, trials
+    return measure, lo, relaxed, trials
 
 
 @dataclass(frozen=True, slots=True)
@@ -843,9 +932,9 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
-    passes, relaxed = test(bench, point, shape, trials)
+    measure, relaxed = test(bench, point, shape, trials)
     with KeepWaveform(lambda: trials.failed):
-        found = _pulse_search(passes, point, shape, relaxed, clock, config.simulation)
+        found = _pulse_search(measure, point, shape, relaxed, clock, config.simulation)
     bracket, stimulus_, note = found
     if bracket[0] is None:  # no width failed: nothing to confirm
         return SearchResult(point, None, trials.runs, trials.seconds, bracket, stimulus_, note)
@@ -858,20 +947,26 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
 
 
 def _pulse_search(
-    passes: Callable[[float], bool],
+    measure: Callable[[float], float],
     point: PulsePoint,
     shape: _Pulse,
     relaxed: float,
     clock: bool,
     sim: Simulation,
 ) -> tuple[tuple[float | None, float], str, str]:
-    """The (failing, passing) widths, the pulse shape and a note: full-swing pulses, then for a
-    control runt pulses; a failing width None when no width the search could shape fails."""
+    """The (failing, passing) widths, the pulse shape and a note: full-swing pulses up from the
+    narrowest, narrowed on the margin as a constraint search is (``_falsi``); then for a
+    control, runt pulses by bisection (pass or fail only); a failing width None when no width
+    the search could shape fails."""
     tol = sim.bisect_tolerance
-    if not passes(relaxed):
+    passes = _passing(measure)
+    high = measure(relaxed)
+    if high > 0:
         raise MeasurementError(f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)")
-    if not passes(shape.narrowest):
-        return _bisect(passes, shape.narrowest, relaxed, tol), FULL, ""
+    narrowest = (shape.narrowest, measure(shape.narrowest))
+    if narrowest[1] > 0:
+        ends = _bracket(measure, shape.narrowest, narrowest, (relaxed, high), tol, point.label)
+        return _falsi(measure, *ends, tol), FULL, ""
     if clock:
         note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
         return (None, shape.narrowest), FULL, note
@@ -895,11 +990,13 @@ def _confirm_pulse(
     on there where one does not hold (as ``_confirm`` does for a constraint), no narrower than
     ``lowest`` (the narrowest pulse of the search's shape)."""
     trials = _Trials(bench.config, deck)
-    passes, relaxed = test(bench, point, shape, trials, tight=True)
+    measure, relaxed = test(bench, point, shape, trials, tight=True)
+    passes = _passing(measure)
     tol = bench.config.simulation.bisect_tolerance
     failing, passing = bracket
     with KeepWaveform(lambda: trials.failed):
-        if not passes(relaxed):
+        high = measure(relaxed)
+        if high > 0:
             raise MeasurementError(
                 f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
             )
@@ -915,8 +1012,9 @@ def _confirm_pulse(
 def _clock_pulse_test(
     bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials, tight: bool = False
 ):
-    """The pass test of a clock pulse by its width (full swing: a flat top of the width less
-    the edges'), and a relaxed width: two writes, the second must capture in time."""
+    """The margin (``_Trials.margin``) of a clock pulse by its width (full swing: a flat top
+    of the width less the edges'), and a relaxed width: two writes, the second must capture
+    in time; ``tight``: at the settings a result is confirmed at."""
     cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
@@ -925,7 +1023,7 @@ def _clock_pulse_test(
     active_level = "high" if flop.edge == "rise" else "low"
     step, options = run_settings(bench.config, trials.deck, tight, point.slew, min(cell.grid.slew))
 
-    def passes(width: float) -> bool:
+    def measure(width: float) -> float:
         if point.level == active_level:
             clock, event = bench.clock(point.slew, edges=2, high=shape.flat(width))
             change = event.start - bench.half / 2
@@ -944,16 +1042,17 @@ def _clock_pulse_test(
             after=stored_output(cell, out, stored),
             options=options,
         )
-        return trials.in_time(outcome)
+        return trials.margin(outcome)
 
-    return passes, bench.half - shape.first.duration
+    return measure, bench.half - shape.first.duration
 
 
 def _control_pulse_test(
     bench: Timeline, point: PulsePoint, shape: _Pulse, trials: _Trials, tight: bool = False
 ):
-    """The pass test of a clear or preset pulse by its width (``_Pulse.vector``), and a
-    relaxed width: with the other value stored, the pulse must force the control's value."""
+    """The margin (0 passing, +inf failing) of a clear or preset pulse by its width
+    (``_Pulse.vector``), and a relaxed width: with the other value stored, the pulse must
+    force the control's value; ``tight``: at the settings a result is confirmed at."""
     cell, flop = bench.cell, bench.cell.flip_flop
     out = cell.outputs[0].pin
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
@@ -963,7 +1062,7 @@ def _control_pulse_test(
     start = first_edge.end + bench.half
     step, options = run_settings(bench.config, trials.deck, tight, point.slew, min(cell.grid.slew))
 
-    def passes(width: float) -> bool:
+    def measure(width: float) -> float:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
         waves[point.pin], end = shape.vector(start, width)
@@ -979,9 +1078,9 @@ def _control_pulse_test(
             quiet_until=end,
             options=options,
         )
-        return outcome is not None
+        return 0.0 if outcome is not None else float("inf")  # forced or not: no slope
 
-    return passes, bench.half
+    return measure, bench.half
 
 
 def check_flop(config: LibraryConfig, deck: Deck) -> None:
@@ -1032,7 +1131,8 @@ def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint search as a function of the offset, for re-checking a
     result: at the tightened settings its final bracket holds at (``_confirm``), a fresh
     relaxed reference simulated first."""
-    passes, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
+    measure, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
+    passes = _passing(measure)
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes
@@ -1047,7 +1147,8 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
-    passes, relaxed = test(bench, point, shape, _Trials(config, deck), tight=True)
+    measure, relaxed = test(bench, point, shape, _Trials(config, deck), tight=True)
+    passes = _passing(measure)
     if not passes(relaxed):
         raise MeasurementError(f"{point.label}: fails even with relaxed timing")
     return passes

@@ -21,12 +21,12 @@ EDGES = ("rise", "fall")
 # chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
 # point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's QBUFC_P1); a flip-flop
 # experiment writes a value first and is refined more often (2.4 a clock point there); a search
-# bisects log2(bracket / tolerance) trials, each a run or more, plus its two bracket checks
-# (13 to 25 runs a search there at 1 ps, 4 when the narrowest pulse already passes; 15 to 37
-# in the demo plan's samples).
+# walks to a bracket and narrows it (``sequential._search``), each trial a run or more, then
+# re-checks its bracket at tightened settings (7 to 45 runs a search, 26.3 on average, over the
+# demo flip-flops' 95 searches at 1 ps, measured December 2026).
 POINT_RUNS = 1
 FLOP_POINT_RUNS = 2
-SEARCH_RUNS = 30
+SEARCH_RUNS = 26
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,0 +1,154 @@
+"""Constraint searches on the continuous clock-to-output margin (sequential._search, _falsi)
+against plain bisection on pass/fail: an analytic margin with a capture cliff past its root
+(the root from scipy's brentq), and tests/data/seq_l1.toml's QDFFR_P1 constraint points, each
+searched both ways (needs ngspice: fails without it)."""
+
+from __future__ import annotations
+
+import math
+import shutil
+from pathlib import Path
+
+import pytest
+from scipy.optimize import brentq
+
+from charflow.config import library as config
+from charflow.measurement import sequential
+from charflow.plan.arcs import plan
+from charflow.records.errors import MeasurementError
+from charflow.records.points import ConstraintPoint, PulsePoint
+from charflow.simulation.netlist import build_deck
+from charflow.simulation.stimulus import Ramp
+
+SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
+CELL = "QDFFR_P1"
+# The analytic margin: clock-to-output d0 + A / (x - C) (it grows without bound as the offset x
+# nears C, the shape of a flop's delay near its capture window: Weste and Harris, "CMOS VLSI
+# Design", 4th ed., 2011, sec. 10.2.2, from memory), pushed out by 10 % over its relaxed value
+# d0; capture fails (margin +inf) at and below CLIFF, past the root.
+D0, A, C, PUSHOUT, CLIFF = 80e-12, 100e-24, -10e-12, 0.1, -5e-12
+TOL = 1e-12  # s, the search's tolerance (the default simulation.bisect_tolerance)
+LO, HI = -200e-12, 400e-12  # s, the failing and relaxed ends, as wide as a flop's search
+BRENT_XTOL = 1e-18  # s, scipy's root: far inside the search's tolerance
+# On the flop both searches end within the tolerance above one pass/fail boundary, so their
+# answers lie within it of each other (measured: 0.88 ps apart at most, December 2026).
+AGREE = 1e-12  # s
+
+
+def _margin(x: float) -> float:
+    if x <= CLIFF:
+        return math.inf
+    return D0 + A / (x - C) - (1.0 + PUSHOUT) * D0
+
+
+class _Counted:
+    """A margin that counts its evaluations."""
+
+    def __init__(self, margin) -> None:
+        self.margin, self.calls = margin, 0
+
+    def __call__(self, x: float) -> float:
+        self.calls += 1
+        return self.margin(x)
+
+
+def test_falsi_brackets_the_analytic_root_in_fewer_trials_than_bisection():
+    root = brentq(lambda x: A / (x - C) - PUSHOUT * D0, CLIFF + 1e-15, HI, xtol=BRENT_XTOL)
+    assert root > CLIFF  # the cliff lies past the root, on the failing side
+    new = _Counted(_margin)
+    failing, passing = sequential._search(new, LO, HI, TOL, "analytic")
+    assert failing < root <= passing and passing - failing <= TOL
+    # The loop twin: plain bisection on the verdict alone, from the same ends.
+    old = _Counted(_margin)
+    passes = sequential._passing(old)
+    assert passes(HI) and not passes(LO)
+    b_failing, b_passing = sequential._bisect(passes, LO, HI, TOL)
+    assert b_failing < root <= b_passing
+    print(f"analytic: {new.calls} trials against bisection's {old.calls}")
+    assert new.calls < old.calls
+
+
+def test_a_margin_without_a_slope_is_searched_by_bisection():
+    # Removal's margin is 0 (passes) or +inf (fails): the search falls back to halving.
+    def margin(x: float) -> float:
+        return 0.0 if x >= 17.3e-12 else math.inf
+
+    failing, passing = sequential._search(margin, LO, HI, TOL, "step")
+    assert failing < 17.3e-12 <= passing and passing - failing <= TOL
+
+
+def test_a_search_that_does_not_bracket_is_refused():
+    with pytest.raises(MeasurementError, match="passes even at"):
+        sequential._search(lambda x: -1.0, LO, HI, TOL, "always")
+    with pytest.raises(MeasurementError, match="fails even with relaxed timing"):
+        sequential._search(lambda x: 1.0, LO, HI, TOL, "never")
+
+
+@pytest.fixture(scope="module")
+def flop():
+    if shutil.which("ngspice") is None:
+        pytest.fail("ngspice is not installed; this test needs it (apt-get install ngspice)")
+    cfg = config.load(SEQ)
+    return cfg, build_deck(cfg, cfg.cell(CELL))
+
+
+def _bisected(cfg, deck, point) -> tuple[tuple[float, float], int]:
+    """The search as it was: pass/fail bisection over the whole [failing, relaxed] range."""
+    measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point)
+    passes = sequential._passing(measure)
+    assert passes(hi) and not passes(lo)
+    return sequential._bisect(passes, lo, hi, cfg.simulation.bisect_tolerance), trials.runs
+
+
+def test_the_flop_s_constraints_match_bisection_in_fewer_simulations(flop):
+    cfg, deck = flop
+    tol = cfg.simulation.bisect_tolerance
+    points = [p for p in plan(cfg, [CELL]).points if isinstance(p, ConstraintPoint)]
+    assert {p.kind for p in points} == {"setup", "hold", "recovery", "removal"}
+    old_runs, new_runs = [], []
+    for point in points:
+        old, runs = _bisected(cfg, deck, point)
+        old_runs.append(runs)
+        measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point)
+        new = sequential._search(measure, lo, hi, tol, point.label)
+        new_runs.append(trials.runs)
+        print(f"{point.label}: bisection {old} in {runs}, search {new} in {trials.runs}")
+        assert new[1] - new[0] <= tol
+        assert abs(new[1] - old[1]) <= AGREE, point.label
+    old_mean, new_mean = sum(old_runs) / len(points), sum(new_runs) / len(points)
+    print(f"simulations per search: bisection {old_mean:.1f}, search {new_mean:.1f}")
+    assert new_mean < old_mean
+
+
+def test_the_flop_s_clock_pulses_match_bisection(flop):
+    # A clock pulse's margin narrows the same way, up from the narrowest full-swing pulse (the
+    # search alone: measure_pulse re-checks its bracket at tightened settings after it).
+    cfg, deck = flop
+    tol = cfg.simulation.bisect_tolerance
+    cell = cfg.cell(CELL)
+    points = [p for p in plan(cfg, [CELL]).points if isinstance(p, PulsePoint) and p.pin == "CLK"]
+    assert {p.level for p in points} == {"high", "low"}
+    for point in points:
+        bench = sequential._bench(cfg, deck, point.slew, min(cell.grid.slew))
+        shape = sequential._Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+        searched = sequential._Trials(cfg, deck)
+        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, searched)
+        new, _, _ = sequential._pulse_search(measure, point, shape, relaxed, True, cfg.simulation)
+        trials = sequential._Trials(cfg, deck)
+        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, trials)
+        passes = sequential._passing(measure)
+        assert passes(relaxed) and not passes(shape.narrowest)
+        old = sequential._bisect(passes, shape.narrowest, relaxed, tol)
+        print(f"{point.label}: bisection {old} in {trials.runs}, search {new} in {searched.runs}")
+        assert abs(new[1] - old[1]) <= AGREE, point.label
+        assert searched.runs < trials.runs
+
+
+def test_an_output_edge_that_starts_early_in_a_slow_event_gets_its_grid():
+    # A search's trial at offset 0 with 0.2 ns slews (the demo's flops) moved the output before
+    # LEAD_FROM of the clock's ramp: the refinement's grid had no lead to spread (it divided by
+    # zero). The grid must still be a PWL vector whose times increase (SPICE requires it).
+    event = Ramp("rise", 0.0, 200e-12, 1.2)
+    grid = sequential._edge_grid(event, (50e-12, 500e-12), 1e-12, ())
+    times = [float(x) for x in grid.strip("[] ").split()[::2]]
+    assert times == sorted(set(times)) and len(times) > 10
