@@ -19,7 +19,6 @@ from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import MeasurementError
 from charflow.records.points import ConstraintPoint, TimingPoint
 from charflow.simulation import netlist
-from charflow.simulation.stimulus import Ramp
 
 SEQ = Path(__file__).resolve().parent / "data" / "seq_l1.toml"
 CELL = "QDFFR_P1"
@@ -144,14 +143,3 @@ def test_a_sharp_point_reads_the_same_whatever_the_grids_largest_slew(monkeypatc
     reference, _ = _sharp_values(SHARP)
     _agree(sharp, reference, tol)
     _agree(wide, reference, tol)
-
-
-def test_an_output_edge_that_starts_early_in_a_slow_ramp_gets_its_breakpoints():
-    # A 0.2 ns clock ramp whose output edge (with its margin) starts before LEAD_FROM of the
-    # ramp: no lead-in, the edge's own breakpoints (the demo's QDFF_P1 setup at 0.2 ns slews
-    # divided by a zero lead-in spacing before).
-    event = Ramp("rise", 1e-9, 0.25e-9, 1.2)
-    start = event.start + 0.1 * event.duration  # before LEAD_FROM (0.45) of the ramp
-    grid = sequential._edge_grid(event, (start, start + 2e-9), 1e-13, ())
-    times = [float(x) for x in grid.strip("[] ").split()[::2]]
-    assert times == sorted(times) and times[1] <= start + 1e-15 and times[-2] >= start + 1.9e-9

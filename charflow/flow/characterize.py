@@ -57,7 +57,6 @@ from charflow.records.points import (
     TogglePoint,
     Work,
 )
-from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
@@ -273,7 +272,6 @@ def characterize(
     # hold it.
     made_by = provenance.build(config, provenance.simulator(config, jobs))
     chosen, toggle_points, names, work = _work(config, cells, arc)
-    plausible.announce(config, names)  # before the first simulation
     decks = {n: build_deck(config, config.cell(n)) for n in names}
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
     if on_start is not None:
