@@ -47,6 +47,8 @@ from charflow.records.outcomes import (
     ToggleMeasurement,
 )
 from charflow.records.points import (
+    TIGHT_RELTOL,
+    TIGHT_STEPS,
     Arc,
     ConstraintPoint,
     FunctionPoint,
@@ -453,6 +455,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             for name in toggled
         },
         **_fault_records(result),
+        **_error_bar_settings(config, result),
         "liberty": liberty.describe(config, result.cells, result.cell_power),
         # Tables served from stored results whose inputs were not the ones named above.
         "stale_tables": [
@@ -540,6 +543,33 @@ def _arc_record(arc: ArcTables, cell_power: power_tables.CellPower | None) -> di
             for st in arc.states
         ],
         **_arc_power_record(cell_power, arc.arc),
+    }
+
+
+# How an error bar is computed, as the JSON says it (``TightMeasurement.bar``).
+BAR_RULE = (
+    "|value - tightened| * tight_steps / (tight_steps - 1) + reltol of the tightened run * "
+    "|tightened|: the error falls at least linearly with the step; what does not shrink with it "
+    "is bounded by the tightened run's tolerance"
+)
+
+
+def _error_bar_settings(config: LibraryConfig, result: RunResult) -> dict:
+    """How the error bars were measured, when they were (``[error_bars]``)."""
+    if config.error_bars.points == "none":
+        return {}
+    unbarred = [
+        {"cell": f.point.cell, "point": f.point.label, "reason": f.reason} for f in result.unbarred
+    ]
+    return {
+        "error_bars": {
+            "points": config.error_bars.points,
+            "warn_above": config.error_bars.warn_above,
+            "tight_steps": TIGHT_STEPS,
+            "tight_reltol": TIGHT_RELTOL,
+            "bar": BAR_RULE,
+            "unbarred": unbarred,
+        }
     }
 
 
