@@ -15,6 +15,7 @@ import pytest
 from scipy.optimize import brentq
 
 from charflow.analysis import fidelity
+from charflow.analysis import report as report_html
 from charflow.config import library as config
 from charflow.execution.store import FILE_NAME, Store
 from charflow.flow import characterize as flow
@@ -213,3 +214,19 @@ def test_config_errors_name_the_key(section, key, says):
 
 def test_warn_above_is_a_percentage():
     assert _rc(error_bars={"warn_above": 0.5}).error_bars.warn_above == pytest.approx(0.005)
+
+
+def test_fidelity_report_summarises_each_tables_error_bars(rc_run):
+    cfg, result = rc_run
+    report = fidelity.check(cfg, result.cells, jobs=1)
+    barred = [c for c in report.checks if c.error_bars is not None]
+    assert len(barred) == len(report.checks) == 4
+    largest, median, over = report.bar_spread() or (0.0, 0.0, -1)
+    assert 0 < median <= largest < RC_LARGEST_BAR and over >= 0
+    doc = fidelity.to_json(cfg, report)
+    assert doc["summary"]["error_bars"]["worst_max_rel"] == largest
+    table = doc["cells"][0]["arcs"][0]["states"][0]["tables"][0]
+    assert table["error_bars"]["max_rel"] >= table["error_bars"]["median_rel"] > 0
+    lines = "\n".join(fidelity.summary_lines(cfg, report))
+    assert "error bars" in lines and "RCCELL A->Y cell_rise" in lines
+    assert "median error bar" in report_html.fidelity_html(cfg, report, jobs=1)
