@@ -37,7 +37,14 @@ from charflow.records.outcomes import Failure, Measurement
 from charflow.records.points import Arc, State, TimingPoint
 from charflow.records.units import show_time
 from charflow.tables.table import Axis, Table, interpolate
-from charflow.tables.tabulate import LOAD_AXIS, OTHER_LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
+from charflow.tables.tabulate import (
+    LOAD_AXIS,
+    OTHER_LOAD_AXIS,
+    SLEW_AXIS,
+    ArcTables,
+    CellTables,
+    relative_bars,
+)
 
 CENTRE, RANDOM = "centre", "random"
 # The TimingPoint field each table axis sweeps (its name in reports: reporting.AXIS_LABELS).
@@ -89,7 +96,7 @@ class ErrorBarStats:
 
 def error_bar_stats(table: Table, errors: Table, floor: float, limit: float) -> ErrorBarStats:
     """Relative error bars: each divided by max(|value|, floor), as interpolation errors are."""
-    rel = errors.values / np.maximum(np.abs(table.values), floor)
+    rel = relative_bars(table, errors, floor)
     worst = np.unravel_index(int(np.argmax(rel)), rel.shape)
     return ErrorBarStats(
         max_rel=float(rel.max()),

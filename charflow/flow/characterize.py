@@ -435,7 +435,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     powers = {c.cell: c for c in result.cell_power}
     cells = dict.fromkeys(p.cell for p in result.plan.points)
     toggled = dict.fromkeys(m.point.cell for m in result.toggles)
-    bars = {m.point.base: m for m in result.tight}
+    bars: dict[Work, TightMeasurement] = {m.point.base: m for m in result.tight}
     return {
         "schema_version": JSON_SCHEMA_VERSION,
         "library": config.name,
@@ -444,7 +444,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         "cells": [_cell_record(cell, powers.get(cell.cell.name)) for cell in result.cells],
         "points": {
             name: [
-                _point_record(m, bars.get(m.point))  # type: ignore[arg-type]
+                _point_record(m, bars.get(m.point))
                 for m in result.measurements
                 if m.point.cell == name
             ]

@@ -178,8 +178,7 @@ def _state_tables(
                     for m in edge
                 }
                 errors.append(grid_table(cell, axes, quantity, bar, "s"))
-                table = tables[-1]
-                _flag(config, table, errors[-1], {m.point.coordinates: m.point for m in edge})
+                _flag(config, tables[-1], errors[-1], {m.point.coordinates: m.point for m in edge})
     return StateTables(state, tuple(tables), tuple(errors))
 
 
@@ -191,6 +190,12 @@ def _transition(m: Measurement | TightMeasurement) -> float:
     return m.transition
 
 
+def relative_bars(table: Table, error: Table, floor: float) -> np.ndarray:
+    """``table``'s error bars relative to its values, each over max(|value|, ``floor``) (as the
+    fidelity check's errors): a delay near zero must not make every bar look large."""
+    return error.values / np.maximum(np.abs(table.values), floor)
+
+
 def _flag(
     config: LibraryConfig,
     table: Table,
@@ -199,8 +204,7 @@ def _flag(
 ) -> None:
     """A warning where ``table``'s error bars exceed ``[error_bars] warn_above`` of the values:
     how many do, and where the largest is, in the library's units."""
-    floor = config.fidelity.rel_floor  # a delay near zero must not make every bar too large
-    rel = error.values / np.maximum(np.abs(table.values), floor)
+    rel = relative_bars(table, error, config.fidelity.rel_floor)
     limit = config.error_bars.warn_above
     over = int(np.count_nonzero(rel > limit))
     if not over:
