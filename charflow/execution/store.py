@@ -42,7 +42,7 @@ from charflow.records.outcomes import (
     TightMeasurement,
     ToggleMeasurement,
 )
-from charflow.records.points import Work
+from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, Work
 from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
@@ -135,6 +135,8 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         "thresholds": dataclasses.asdict(config.thresholds),
         "simulation": sim,
         "vdd": config.process.vdd,
+        # The tightened settings flip-flop checks and error bars are measured at.
+        "tightened": [TIGHT_STEPS, TIGHT_RELTOL],
         # A schema change of a record (new fields) makes every stored row stale.
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
