@@ -31,7 +31,7 @@ from charflow.config.library import LibraryConfig
 from charflow.measurement import combinational, registry, sequential
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
-from charflow.plan.cellwork import function_point, leakage_point
+from charflow.plan.cellwork import function_point, leakage_point, tight_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import CharflowError, MeasurementError
 from charflow.records.outcomes import Failure
@@ -153,6 +153,9 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         toggles = plan_toggles(config, [name])
         if toggles:
             groups += (_sampled(config, deck, "hidden-power toggles", toggles, 1),)
+        tight = tight_points(config, points)
+        if tight:
+            groups += (_sampled(config, deck, "error bars", tight, SAMPLES),)
         costs.append(
             CellCost(name, groups, load, function_point(cell).cost, leakage_point(cell).cost)
         )

@@ -9,6 +9,10 @@ of the tables uses.
 
 Relative errors divide by max(|simulated|, rel_floor): a delay near zero must not turn a small
 absolute error into a huge relative one.
+
+Where the tables carry error bars (``[error_bars]``), each table's largest and median error
+bar, relative to its values the same way, are reported beside its interpolation error: the
+simulator's own numerical error, against which an interpolation error can be read.
 """
 
 from __future__ import annotations
@@ -33,7 +37,14 @@ from charflow.records.outcomes import Failure, Measurement
 from charflow.records.points import Arc, State, TimingPoint
 from charflow.records.units import show_time
 from charflow.tables.table import Axis, Table, interpolate
-from charflow.tables.tabulate import LOAD_AXIS, OTHER_LOAD_AXIS, SLEW_AXIS, ArcTables, CellTables
+from charflow.tables.tabulate import (
+    LOAD_AXIS,
+    OTHER_LOAD_AXIS,
+    SLEW_AXIS,
+    ArcTables,
+    CellTables,
+    relative_bars,
+)
 
 CENTRE, RANDOM = "centre", "random"
 # The TimingPoint field each table axis sweeps (its name in reports: reporting.AXIS_LABELS).
@@ -74,6 +85,28 @@ class ErrorStats:
 
 
 @dataclass(frozen=True, slots=True)
+class ErrorBarStats:
+    """A table's error bars relative to its values (``[error_bars]``)."""
+
+    max_rel: float
+    median_rel: float
+    over: int  # values whose bar is over ``[error_bars] warn_above``
+    worst: tuple[float, ...]  # the coordinates of the largest
+
+
+def error_bar_stats(table: Table, errors: Table, floor: float, limit: float) -> ErrorBarStats:
+    """Relative error bars: each divided by max(|value|, floor), as interpolation errors are."""
+    rel = relative_bars(table, errors, floor)
+    worst = np.unravel_index(int(np.argmax(rel)), rel.shape)
+    return ErrorBarStats(
+        max_rel=float(rel.max()),
+        median_rel=float(np.median(rel)),
+        over=int(np.count_nonzero(rel > limit)),
+        worst=tuple(a.values[i] for a, i in zip(table.axes, worst, strict=True)),
+    )
+
+
+@dataclass(frozen=True, slots=True)
 class TableCheck:
     cell: str
     related: str
@@ -84,6 +117,7 @@ class TableCheck:
     points: tuple[Compared, ...]
     failures: tuple[tuple[tuple[float, ...], str], ...]  # probes that did not simulate, and why
     stats: ErrorStats | None  # None when no probe simulated
+    error_bars: ErrorBarStats | None = None  # None: the table has no error bars
 
     @property
     def arc(self) -> str:
@@ -130,6 +164,15 @@ class FidelityReport:
         simulated."""
         errors = self.max_rel_errors()
         return (float(errors.max()), float(np.median(errors))) if errors.size else None
+
+    def bar_spread(self) -> tuple[float, float, int] | None:
+        """The largest error bar of any table, the median of the tables' median error bars
+        (both relative) and the values over ``warn_above``; None without error bars."""
+        bars = [c.error_bars for c in self.checks if c.error_bars is not None]
+        if not bars:
+            return None
+        worst = max(b.max_rel for b in bars)
+        return worst, float(np.median([b.median_rel for b in bars])), sum(b.over for b in bars)
 
 
 def severity(check: TableCheck) -> float:
@@ -237,6 +280,7 @@ class _Work:
     table: Table
     probes: tuple[Probe, ...]
     points: tuple[tuple[TimingPoint, ...], ...]
+    errors: Table | None  # the table's error bars, when it has them
 
 
 def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity) -> list[_Work]:
@@ -245,9 +289,11 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
         name = cell.cell.name
         series = row_points(config, name)
         for arc in cell.arcs:
-            # (table, states it is the worst of, when, default)
-            targets: list[tuple[Table, tuple[State, ...], str, bool]] = [
-                (t, (st.state,), st.state.when, False) for st in arc.states for t in st.tables
+            # (table, states it is the worst of, when, default, its error bars)
+            targets: list[tuple[Table, tuple[State, ...], str, bool, Table | None]] = [
+                (t, (st.state,), st.state.when, False, _errors_of(st.errors, t))
+                for st in arc.states
+                for t in st.tables
             ]
             if len(arc.states) > 1:
                 for t in arc.default:
@@ -256,8 +302,8 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
                         for st in arc.states
                         if any(s.quantity == t.quantity for s in st.tables)
                     )
-                    targets.append((t, having, "", True))
-            for table, states, when, default in targets:
+                    targets.append((t, having, "", True, _errors_of(arc.default_errors, t)))
+            for table, states, when, default, errors in targets:
                 at = probes(table.axes, settings.random_points, settings.seed)
                 points = tuple(
                     tuple(
@@ -268,11 +314,16 @@ def _work(config: LibraryConfig, cells: Iterable[CellTables], settings: Fidelity
                     )
                     for p in at
                 )
-                work.append(_Work(name, arc, when, default, table, at, points))
+                work.append(_Work(name, arc, when, default, table, at, points, errors))
     return work
 
 
-def _check(w: _Work, outcomes: dict, floor: float) -> TableCheck:
+def _errors_of(errors: tuple[Table, ...], table: Table) -> Table | None:
+    return next((e for e in errors if e.quantity == table.quantity), None)
+
+
+def _check(config: LibraryConfig, w: _Work, outcomes: dict) -> TableCheck:
+    floor = config.fidelity.rel_floor
     kept, values, failures = [], [], []
     for probe, points in zip(w.probes, w.points, strict=True):
         outs = [outcomes[p] for p in points]
@@ -293,6 +344,9 @@ def _check(w: _Work, outcomes: dict, floor: float) -> TableCheck:
         points=compared,
         failures=tuple(failures),
         stats=statistics(compared) if compared else None,
+        error_bars=None
+        if w.errors is None
+        else error_bar_stats(w.table, w.errors, floor, config.error_bars.warn_above),
     )
 
 
@@ -320,7 +374,7 @@ def check(
             config, unique, jobs=jobs, store=store, on_stored=on_stored, on_result=on_result
         )
     }
-    checks = tuple(_check(w, outcomes, settings.rel_floor) for w in work)
+    checks = tuple(_check(config, w, outcomes) for w in work)
     runs = sum(o.runs for o in outcomes.values() if isinstance(o, Measurement))
     return FidelityReport(settings, checks, len(unique), runs, time.perf_counter() - start)
 
@@ -345,6 +399,14 @@ def _table_record(c: TableCheck) -> dict:
         "unit": c.table.unit,
         "axes": [{"name": a.name, "values": list(a.values)} for a in c.table.axes],
         "statistics": _stats_record(c.stats, c),
+        "error_bars": None
+        if c.error_bars is None
+        else {
+            "max_rel": c.error_bars.max_rel,
+            "median_rel": c.error_bars.median_rel,
+            "over_warn_above": c.error_bars.over,
+            "worst": {"index": list(c.error_bars.worst)},
+        },
         "compared": [
             {
                 "kind": p.kind,
@@ -388,6 +450,7 @@ def to_json(config: LibraryConfig, report: FidelityReport) -> dict:
             "worst_max_rel_error": None if spread is None else spread[0],
             "median_max_rel_error": None if spread is None else spread[1],
             "wall_seconds": round(report.wall_seconds, 3),
+            **_bar_summary(report),
         },
         "cells": [
             {
@@ -406,6 +469,19 @@ def to_json(config: LibraryConfig, report: FidelityReport) -> dict:
             }
             for cell, arcs in cells.items()
         ],
+    }
+
+
+def _bar_summary(report: FidelityReport) -> dict:
+    spread = report.bar_spread()
+    if spread is None:
+        return {}
+    return {
+        "error_bars": {
+            "worst_max_rel": spread[0],
+            "median_median_rel": spread[1],
+            "over_warn_above": spread[2],
+        }
     }
 
 
@@ -437,6 +513,31 @@ def summary_lines(config: LibraryConfig, report: FidelityReport, count: int = 10
             f"  {pct(st.max_rel):>9} {pct(st.rms_rel):>9} {pct(st.p95_rel):>9} "
             f"{st.max_abs / t:>11.4g}  {check.label}, at {at}"
         )
+    lines += bar_lines(config, report, count)
     if report.failures:
         lines.append(f"{report.failures} probe(s) failed to simulate; see the JSON for reasons")
+    return lines
+
+
+def bar_lines(config: LibraryConfig, report: FidelityReport, count: int = 10) -> list[str]:
+    """The error bars' summary: the spread over tables, the tables with the largest."""
+    spread = report.bar_spread()
+    if spread is None:
+        return []
+    limit = config.error_bars.warn_above
+    lines = [
+        f"error bars (simulator's numerical error, [error_bars]): largest {pct(spread[0])}, "
+        f"median of the tables' medians {pct(spread[1])}; {spread[2]} value(s) over "
+        f"{pct(limit)}",
+        f"  {'max bar':>9} {'median':>9} {'over':>5}  table, largest at",
+    ]
+    barred = [c for c in report.checks if c.error_bars is not None]
+    barred.sort(key=lambda c: c.error_bars.max_rel if c.error_bars else 0.0, reverse=True)
+    for check in barred[:count]:
+        b = check.error_bars
+        assert b is not None  # kept above
+        at = where(config, check.table.axes, b.worst)
+        lines.append(
+            f"  {pct(b.max_rel):>9} {pct(b.median_rel):>9} {b.over:>5}  {check.label}, at {at}"
+        )
     return lines

@@ -231,6 +231,14 @@ def _summary_row(config: LibraryConfig, n: int, c: TableCheck) -> str:
             _num(st.max_abs, show_time(st.max_abs, config.time_unit)),
             f"<td>{html.escape(where(config, c.table.axes, c.points[st.worst].coords))}</td>",
         ]
+    bars = c.error_bars
+    if bars is None:
+        cells += ["<td>-</td>"] * 2
+    else:
+        cells += [
+            _num(bars.max_rel, pct(bars.max_rel)),
+            _num(bars.median_rel, pct(bars.median_rel)),
+        ]
     return "<tr>" + "".join(cells) + "</tr>"
 
 
@@ -256,7 +264,7 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
     head = (
         "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
         "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
-        "<th>worst at</th></tr>"
+        "<th>worst at</th><th>max error bar</th><th>median error bar</th></tr>"
     )
     checks = report.checks
     ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
@@ -279,6 +287,14 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
         if spread is None
         else f"Largest relative error per table: worst {pct(spread[0])}, median {pct(spread[1])}."
     )
+    bar_spread = report.bar_spread()
+    if bar_spread is not None:
+        spread_text += (
+            " Error bars (the simulator's numerical error of each grid value, re-measured at "
+            f"tightened settings): largest {pct(bar_spread[0])}, median of the tables' medians "
+            f"{pct(bar_spread[1])}; {bar_spread[2]} value(s) over "
+            f"{pct(config.error_bars.warn_above)}."
+        )
     name = html.escape(config.name)
     floor = html.escape(show_time(s.rel_floor, config.time_unit))
     return f"""<!DOCTYPE html>

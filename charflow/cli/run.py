@@ -245,6 +245,14 @@ def _summary(name: str, result: RunResult, *, selective: bool) -> None:
         print(f"{name}: run without --cell to bring every table up to date")
     for f in result.unmeasured[:20]:
         print(f"{name}: no hidden power: {f.message}")
+    if result.tight or result.unbarred:
+        fresh = sum(1 for m in result.tight if m.point not in result.reused)
+        print(
+            f"{name}: error bars on {len(result.tight)} points ({fresh} re-measured now at "
+            f"tightened settings), {len(result.unbarred)} re-measure(s) failed"
+        )
+    for f in result.unbarred[:20]:
+        print(f"{name}: no error bar: {f.message}")
     if result.left_out:
         print(
             f"{name}: left out {', '.join(result.left_out)}: the store does not hold all their "

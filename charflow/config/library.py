@@ -195,6 +195,17 @@ class Fidelity:
     rel_floor: float = 1e-12  # s; relative errors divide by max(|simulated|, rel_floor)
 
 
+ERROR_BAR_POINTS = ("none", "all")  # the grid points an error bar is measured at
+
+
+@dataclass(frozen=True, slots=True)
+class ErrorBars:
+    """Which values get an error bar and when one is warned about (``[error_bars]``)."""
+
+    points: str = "none"  # of ERROR_BAR_POINTS: every combinational grid point, or none
+    warn_above: float = 0.001  # fraction of a value its error bar may reach without a warning
+
+
 # How the default Liberty file reduces a two-output cell's tables to the two axes every
 # consumer reads: the largest or smallest value over the other output's loads, point by point.
 OTHER_LOAD_RULES = ("largest", "smallest")
@@ -233,6 +244,7 @@ class LibraryConfig:
     cells: tuple[CellSpec, ...]
     simulation: Simulation = field(default_factory=Simulation)
     fidelity: Fidelity = field(default_factory=Fidelity)
+    error_bars: ErrorBars = field(default_factory=ErrorBars)
     corners: tuple[Corner, ...] = ()
     liberty: LibertyOptions = field(default_factory=LibertyOptions)
     corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
@@ -423,6 +435,7 @@ _THRESHOLD_KEYS = set(Thresholds.__dataclass_fields__)
 _GRID_KEYS = {"slew", "load", "related_load", "constraint_slew", "clock_slew", "pulse_slew"}
 _SIM_KEYS = set(Simulation.__dataclass_fields__)
 _FIDELITY_KEYS = set(Fidelity.__dataclass_fields__)
+_ERROR_BAR_KEYS = set(ErrorBars.__dataclass_fields__)
 _CELL_KEYS = {
     "name",
     "template",
@@ -449,6 +462,7 @@ _TOP_KEYS = {
     "cell",
     "simulation",
     "fidelity",
+    "error_bars",
     "corner",
     "liberty",
 }
@@ -485,6 +499,7 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
     grid = _library_grid(r, r.section(doc, "grid", _GRID_KEYS, required=True), tscale, cscale)
     simulation = _simulation(r, r.section(doc, "simulation", _SIM_KEYS, required=False), tscale)
     fidelity = _fidelity(r, r.section(doc, "fidelity", _FIDELITY_KEYS, required=False), tscale)
+    error_bars = _error_bars(r, r.section(doc, "error_bars", _ERROR_BAR_KEYS, required=False))
     cells = _cells(r, doc, base, grid, tscale, cscale)
     corners = _corners(r, doc.get("corner", []), process)
     options = _liberty(r, r.section(doc, "liberty", _LIBERTY_KEYS, required=False), cscale)
@@ -504,6 +519,7 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
         cells=tuple(cells),
         simulation=simulation,
         fidelity=fidelity,
+        error_bars=error_bars,
         corners=corners,
         liberty=options,
     )
@@ -713,6 +729,21 @@ def _fidelity(r: _Reader, doc: dict[str, Any], tscale: float) -> Fidelity:
         random_points=d.random_points if count is None else count,
         seed=d.seed if seed is None else seed,
         rel_floor=d.rel_floor if floor is None else floor * tscale,
+    )
+
+
+def _error_bars(r: _Reader, doc: dict[str, Any]) -> ErrorBars:
+    d = ErrorBars()
+    points = r.get(doc, "points", str, "error_bars", d.points)
+    if points is not None and points not in ERROR_BAR_POINTS:
+        choices = " or ".join(repr(p) for p in ERROR_BAR_POINTS)
+        r.problem("error_bars.points", f"must be {choices}, got {points!r}")
+        points = None
+    # In percent of the value, as the thresholds are.
+    warn = r.number(doc, "warn_above", "error_bars", None, low=0.0, high=100.0)
+    return ErrorBars(
+        points=points or d.points,
+        warn_above=d.warn_above if warn is None else warn / 100.0,
     )
 
 

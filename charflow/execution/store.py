@@ -39,18 +39,33 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    TightMeasurement,
     ToggleMeasurement,
 )
-from charflow.records.points import Work
+from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, Work
 from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
 # What a row holds: any outcome but a Failure.
-Result = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked
+Result = (
+    Measurement
+    | SearchResult
+    | ToggleMeasurement
+    | LeakageResult
+    | FunctionChecked
+    | TightMeasurement
+)
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
     cls.__name__: cls
-    for cls in (Measurement, SearchResult, ToggleMeasurement, LeakageResult, FunctionChecked)
+    for cls in (
+        Measurement,
+        SearchResult,
+        ToggleMeasurement,
+        LeakageResult,
+        FunctionChecked,
+        TightMeasurement,
+    )
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
@@ -120,6 +135,8 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         "thresholds": dataclasses.asdict(config.thresholds),
         "simulation": sim,
         "vdd": config.process.vdd,
+        # The tightened settings flip-flop checks and error bars are measured at.
+        "tightened": [TIGHT_STEPS, TIGHT_RELTOL],
         # A schema change of a record (new fields) makes every stored row stale.
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }

@@ -25,7 +25,7 @@ from charflow.execution.store import Stale, Store, keyring
 from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
 from charflow.plan import arcs as planning
-from charflow.plan.cellwork import function_points, leakage_points
+from charflow.plan.cellwork import function_points, leakage_points, tight_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records import errors
 from charflow.records.errors import ConfigError, OutputError
@@ -43,9 +43,12 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    TightMeasurement,
     ToggleMeasurement,
 )
 from charflow.records.points import (
+    TIGHT_RELTOL,
+    TIGHT_STEPS,
     Arc,
     ConstraintPoint,
     FunctionPoint,
@@ -53,6 +56,7 @@ from charflow.records.points import (
     Plan,
     PulsePoint,
     State,
+    TightPoint,
     TimingPoint,
     TogglePoint,
     Work,
@@ -60,6 +64,7 @@ from charflow.records.points import (
 from charflow.simulation.netlist import Deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
+from charflow.tables.table import Table
 from charflow.tables.tabulate import ArcTables, CellTables, tabulate
 
 
@@ -83,6 +88,10 @@ class RunResult:
     # With a gap-filling method: the failed points it filled (in the tables, never stored) and
     # those it could not (still in ``failures``).
     gap_report: gaps.GapReport | None = None
+    # The grid points measured again at tightened settings (``[error_bars]``), and those whose
+    # re-measure failed (their values have no error bar; the library is written all the same).
+    tight: tuple[TightMeasurement, ...] = ()
+    unbarred: tuple[Failure, ...] = ()
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -107,13 +116,13 @@ class RunResult:
     @property
     def simulations(self) -> int:
         """Simulator runs of this run, refinements and retries included."""
-        done = (*self.measurements, *self.toggles, *self.leakage)
+        done = (*self.measurements, *self.toggles, *self.leakage, *self.tight)
         return sum(m.runs for m in done if m.point not in self.reused)
 
     @property
     def sim_seconds(self) -> float:
         """Simulator time of this run, summed over workers."""
-        done = (*self.measurements, *self.toggles, *self.leakage)
+        done = (*self.measurements, *self.toggles, *self.leakage, *self.tight)
         return sum(m.sim_seconds for m in done if m.point not in self.reused)
 
     def stale_tables(self) -> dict[tuple[str, ...], list[str]]:
@@ -131,7 +140,7 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
     if isinstance(p, LeakagePoint):
         return [f"{p.cell} leakage"]
-    if isinstance(p, FunctionPoint):
+    if isinstance(p, FunctionPoint | TightPoint):  # a tightened value is in no Liberty table
         return []
     if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
@@ -214,14 +223,20 @@ class _Collected:
     failures: list[Failure] = field(default_factory=list)
     toggles: list[ToggleMeasurement] = field(default_factory=list)
     unmeasured: list[Failure] = field(default_factory=list)  # toggles that failed
+    tight: list[TightMeasurement] = field(default_factory=list)
+    unbarred: list[Failure] = field(default_factory=list)  # tightened re-measures that failed
     leaks: dict[str, LeakageResult] = field(default_factory=dict)
     reused: set[Work] = field(default_factory=set)
 
     def keep(self, outcome: Outcome) -> None:
         if isinstance(outcome, ToggleMeasurement):
             self.toggles.append(outcome)
+        elif isinstance(outcome, TightMeasurement):
+            self.tight.append(outcome)
         elif isinstance(outcome, LeakageResult):
             self.leaks[outcome.point.cell] = outcome
+        elif isinstance(outcome, Failure) and isinstance(outcome.point, TightPoint):
+            self.unbarred.append(outcome)
         elif isinstance(outcome, Failure):
             toggle = isinstance(outcome.point, TogglePoint)
             (self.unmeasured if toggle else self.failures).append(outcome)
@@ -241,6 +256,8 @@ class _Collected:
     def sort(self, order: dict[Work, int]) -> None:
         for outcomes in (self.measurements, self.failures, self.toggles, self.unmeasured):
             outcomes.sort(key=lambda m: order[m.point])
+        self.tight.sort(key=lambda m: order[m.point.base])
+        self.unbarred.sort(key=lambda f: order[f.point])  # sweep work: in ``order``
 
 
 def characterize(
@@ -311,6 +328,8 @@ def characterize(
         unmeasured=tuple(got.unmeasured),
         cell_power=cell_power,
         gap_report=report,
+        tight=tuple(m for m in got.tight if m.point.cell not in left_out),
+        unbarred=tuple(got.unbarred),
     )
 
 
@@ -322,7 +341,12 @@ def _work(
     chosen = select(config, cells, arc)
     toggles = plan_toggles(config, cells) if arc is None else ()
     names = list(dict.fromkeys(p.cell for p in chosen.points))
-    return chosen, toggles, names, (*chosen.points, *toggles, *leakage_points(config, names))
+    per_cell: tuple[Work, ...] = (
+        *toggles,
+        *leakage_points(config, names),
+        *tight_points(config, chosen.points),
+    )
+    return chosen, toggles, names, (*chosen.points, *per_cell)
 
 
 def _fill(plan: Plan, got: _Collected, method: str | None) -> gaps.GapReport | None:
@@ -349,7 +373,8 @@ def _the_rest(
     toggles = plan_toggles(config)
     leakage = leakage_points(config, [c.name for c in config.cells])
     picked = set(done)
-    rest = [p for p in (*whole.points, *toggles, *leakage) if p not in picked]
+    bars = tight_points(config, whole.points)
+    rest = [p for p in (*whole.points, *toggles, *leakage, *bars) if p not in picked]
     for c in {p.cell for p in rest} - set(decks):
         decks[c] = build_deck(config, config.cell(c))
     found, stale = store.latest(keyring(config, decks), rest)
@@ -384,7 +409,7 @@ def _tabulate(
     if got.failures:
         return (), ()
     done = [*got.measurements, *report.records] if report is not None else got.measurements
-    tables = tabulate(config, plan, done)
+    tables = tabulate(config, plan, [*done, *got.tight])
     leaked = {c: r.states for c, r in got.leaks.items()}
     return tables, power_tables.tabulate(config, plan, done, got.toggles, leaked)
 
@@ -410,6 +435,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
     powers = {c.cell: c for c in result.cell_power}
     cells = dict.fromkeys(p.cell for p in result.plan.points)
     toggled = dict.fromkeys(m.point.cell for m in result.toggles)
+    bars: dict[Work, TightMeasurement] = {m.point.base: m for m in result.tight}
     return {
         "schema_version": JSON_SCHEMA_VERSION,
         "library": config.name,
@@ -417,7 +443,11 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         **provenance.to_json(result.provenance),
         "cells": [_cell_record(cell, powers.get(cell.cell.name)) for cell in result.cells],
         "points": {
-            name: [_point_record(m) for m in result.measurements if m.point.cell == name]
+            name: [
+                _point_record(m, bars.get(m.point))
+                for m in result.measurements
+                if m.point.cell == name
+            ]
             for name in cells
         },
         "toggles": {
@@ -425,6 +455,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             for name in toggled
         },
         **_fault_records(result),
+        **_error_bar_settings(config, result),
         "liberty": liberty.describe(config, result.cells, result.cell_power),
         # Tables served from stored results whose inputs were not the ones named above.
         "stale_tables": [
@@ -439,7 +470,14 @@ def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) ->
         "name": cell.cell.name,
         "area": cell.cell.area,
         "inputs": [
-            {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+            {
+                "pin": p.pin,
+                "rise_capacitance_F": p.rise,
+                "fall_capacitance_F": p.fall,
+                **_bars(
+                    rise_capacitance_error_F=p.rise_error, fall_capacitance_error_F=p.fall_error
+                ),
+            }
             for p in cell.pins
         ],
         "outputs": {o.pin: o.function.to_liberty() for o in cell.cell.outputs},
@@ -494,16 +532,55 @@ def _arc_record(arc: ArcTables, cell_power: power_tables.CellPower | None) -> di
         "related_output": arc.arc.other,
         "timing_sense": arc.arc.sense,
         "tables": [t.to_dict() for t in arc.default],
+        **_error_tables(arc.default_errors),
         "states": [
             {
                 "when": st.state.when,
                 "timing_sense": st.state.sense,
                 "tables": [t.to_dict() for t in st.tables],
+                **_error_tables(st.errors),
             }
             for st in arc.states
         ],
         **_arc_power_record(cell_power, arc.arc),
     }
+
+
+# How an error bar is computed, as the JSON says it (``TightMeasurement.bar``).
+BAR_RULE = (
+    "|value - tightened| * tight_steps / (tight_steps - 1) + reltol of the tightened run * "
+    "|tightened|: the error falls at least linearly with the step; what does not shrink with it "
+    "is bounded by the tightened run's tolerance"
+)
+
+
+def _error_bar_settings(config: LibraryConfig, result: RunResult) -> dict:
+    """How the error bars were measured, when they were (``[error_bars]``)."""
+    if config.error_bars.points == "none":
+        return {}
+    unbarred = [
+        {"cell": f.point.cell, "point": f.point.label, "reason": f.reason} for f in result.unbarred
+    ]
+    return {
+        "error_bars": {
+            "points": config.error_bars.points,
+            "warn_above": config.error_bars.warn_above,
+            "tight_steps": TIGHT_STEPS,
+            "tight_reltol": TIGHT_RELTOL,
+            "bar": BAR_RULE,
+            "unbarred": unbarred,
+        }
+    }
+
+
+def _error_tables(errors: tuple[Table, ...]) -> dict:
+    """The error bars of an arc's or state's tables (``[error_bars]``), when measured."""
+    return {"error_tables": [t.to_dict() for t in errors]} if errors else {}
+
+
+def _bars(**errors: float | None) -> dict[str, float]:
+    """The error bars measured (``[error_bars]``), by their JSON keys."""
+    return {k: v for k, v in errors.items() if v is not None}
 
 
 def _arc_power_record(cell: power_tables.CellPower | None, arc: Arc) -> dict:
@@ -527,7 +604,9 @@ def _cell_power_record(cell: power_tables.CellPower | None) -> dict:
     }
 
 
-def _point_record(m: Measurement | SearchResult) -> dict[str, Any]:
+def _point_record(
+    m: Measurement | SearchResult, tight: TightMeasurement | None = None
+) -> dict[str, Any]:
     if isinstance(m, SearchResult):
         record: dict[str, Any] = {
             "search": m.point.label,
@@ -558,7 +637,22 @@ def _point_record(m: Measurement | SearchResult) -> dict[str, Any]:
         "simulations": m.runs,
         "stopped_s": m.stopped,
         "stop_cap_s": m.stop_cap,
+        **(_point_bars(m, tight) if tight is not None else {}),
     }
+
+
+def _point_bars(m: Measurement, t: TightMeasurement) -> dict[str, float]:
+    """A point's error bars (``TightMeasurement.bar``), each beside its value's key."""
+    energy = None
+    if m.internal_energy is not None and t.internal_energy is not None:
+        energy = t.bar(m.internal_energy, t.internal_energy)
+    return _bars(
+        delay_error_s=t.bar(m.delay, t.delay),
+        transition_error_s=t.bar(m.transition, t.transition),
+        input_charge_error_C=t.bar(m.input_charge, t.input_charge),
+        internal_energy_error_J=energy,
+        tightened_simulations=t.runs,
+    )
 
 
 def _toggle_record(m: ToggleMeasurement) -> dict:

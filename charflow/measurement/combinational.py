@@ -40,8 +40,8 @@ from charflow.records.errors import (
     SimulatorHungError,
     SimulatorTimeoutError,
 )
-from charflow.records.outcomes import Measurement
-from charflow.records.points import TimingPoint
+from charflow.records.outcomes import Measurement, TightMeasurement
+from charflow.records.points import TightPoint, TimingPoint
 from charflow.records.units import show_time
 from charflow.simulation import plausible, stimulus
 from charflow.simulation.backends import (
@@ -188,15 +188,25 @@ def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -
 
 
 def measure_point(
-    config: LibraryConfig, deck: Deck, point: TimingPoint, *, step: float | None = None
+    config: LibraryConfig,
+    deck: Deck,
+    point: TimingPoint,
+    *,
+    step: float | None = None,
+    tight: bool = False,
 ) -> Measurement:
     """Simulate and measure one point; ``step`` overrides the first maximum step, which is
-    otherwise estimated from the point's series (``stepsize``)."""
+    otherwise estimated from the point's series (``stepsize``). With ``tight`` the point is
+    measured at tightened settings (``stepsize.tightened``): every step it would take, first
+    or refined, over TIGHT_STEPS, and reltol over TIGHT_RELTOL."""
+    options: tuple[str, ...] = ()
     if step is None:
-        known = probed(config, deck, point)
+        known = None if tight else probed(config, deck, point)
         if known is not None:
             return known
         step = first_step(config, deck, point)
+    if tight:
+        step, options = stepsize.tightened(deck, step)
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
@@ -218,8 +228,9 @@ def measure_point(
     stop = ramp.end + window
     nodes = {o.pin: node for o, node in zip(cell.outputs, out_nodes, strict=True)}
     nodes[point.related] = in_node
-    tran = partial(Request, deck, commands, vectors=vectors, stop_when=stop_when)
-    edge = _measure_edge(config, point, tran, step, stop, window, out_node, nodes)
+    tran = partial(Request, deck, commands, vectors=vectors, options=options, stop_when=stop_when)
+    samples = sim.samples_per_edge * (stepsize.TIGHT_STEPS if tight else 1.0)
+    edge = _measure_edge(config, point, tran, (step, samples), stop, window, out_node, nodes)
     result = edge.result
     t = result.vectors["time"]
     vin = result.vectors[in_node]
@@ -244,6 +255,21 @@ def measure_point(
         sim_seconds=edge.seconds,
         stopped=float(t[-1]),
         stop_cap=stop,
+    )
+
+
+def measure_tight(config: LibraryConfig, deck: Deck, point: TightPoint) -> TightMeasurement:
+    """``point``'s grid point measured at tightened settings: its values' error bars."""
+    m = measure_point(config, deck, point.base, tight=True)
+    return TightMeasurement(
+        point=point,
+        delay=m.delay,
+        transition=m.transition,
+        input_charge=m.input_charge,
+        internal_energy=m.internal_energy,
+        reltol=stepsize.tight_reltol(deck),
+        runs=m.runs,
+        sim_seconds=m.sim_seconds,
     )
 
 
@@ -291,18 +317,17 @@ def _measure_edge(
     config: LibraryConfig,
     point: TimingPoint,
     tran: Callable[[str], Request],
-    step: float,
+    steps: tuple[float, float],
     stop: float,
     window: float,
     out_node: str,
     nodes: dict[str, str],
 ) -> _Edge:
     """Run the point (``tran`` makes its request from an analysis line) and measure its output
-    edge, refining the maximum step until the edge has ``simulation.samples_per_edge`` samples
-    or REFINEMENTS are spent, from the first maximum step ``step``; ``nodes`` are the nodes a
-    failure's waveform shows, by pin."""
-    sim = config.simulation
-    max_step = step
+    edge from the first maximum step, refining the step until the edge has the samples wanted
+    (``steps``: both) or REFINEMENTS are spent; ``nodes`` are the nodes a failure's waveform
+    shows, by pin."""
+    max_step, samples = steps
     runs = 0
     seconds = 0.0
     backend = backend_for(config)
@@ -317,7 +342,7 @@ def _measure_edge(
         with saved:
             t_out, raw_transition = _output_edge(config, point, t, v, window)
         # Too few samples on the edge make the interpolated crossings coarse: refine the step.
-        wanted = raw_transition / sim.samples_per_edge
+        wanted = raw_transition / samples
         if step_at(t, t_out) <= REFINE_SLACK * wanted or refinement == REFINEMENTS:
             break
         max_step = wanted

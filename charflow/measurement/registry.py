@@ -36,6 +36,7 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    TightPoint,
     TogglePoint,
     Work,
 )
@@ -55,6 +56,8 @@ def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
         return sequential.measure_constraint(config, deck, point)
     if isinstance(point, PulsePoint):
         return sequential.measure_pulse(config, deck, point)
+    if isinstance(point, TightPoint):
+        return combinational.measure_tight(config, deck, point)
     if point.kind != "combinational":
         return sequential.measure_clocked(config, deck, point)
     return combinational.measure_point(config, deck, point)

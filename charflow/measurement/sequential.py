@@ -18,7 +18,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
-from charflow.measurement import ffpower
+from charflow.measurement import ffpower, stepsize
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
     GRID_POINTS,
@@ -59,7 +59,7 @@ from charflow.records.outcomes import (
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
 from charflow.records.units import show_time
 from charflow.simulation import stimulus
-from charflow.simulation.backends import RESETTABLE, Request, deck_options
+from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION, BoundedCache
 from charflow.simulation.stimulus import Ramp
@@ -78,14 +78,11 @@ GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps a
 LEAD_POINTS = 20
 LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-# A convergence check re-simulates at the run's step over TIGHT_STEPS and reltol over
-# TIGHT_RELTOL (a converged transient no longer moves as both shrink: common practice): every
+# A convergence check re-simulates at tightened settings (``stepsize.tightened``): every
 # constraint search's final bracket (_confirm), and each clock or control arc's sample, whose
 # delay may move by SAMPLE_RTOL and transition by SAMPLE_TRANSITION_RTOL before the whole arc
 # takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
 # rise's transition 0.52 % and the rest within 0.13 %).
-TIGHT_STEPS = 4.0
-TIGHT_RELTOL = 10.0
 SAMPLE_RTOL = 0.002
 SAMPLE_TRANSITION_RTOL = 0.01
 # A constraint search's trials (_falsi) stay this share of the tolerance inside the bracket: a
@@ -140,13 +137,9 @@ def run_settings(
     config: LibraryConfig, deck: Deck, tight: bool, *slews: float
 ) -> tuple[float, tuple[str, ...]]:
     """The largest step (``run_step``) and the simulator options of a flop experiment; with
-    ``tight``, of its convergence check: the step over TIGHT_STEPS and reltol (the deck's, else
-    ngspice's default) over TIGHT_RELTOL."""
+    ``tight``, of its convergence check (``stepsize.tightened``)."""
     step = run_step(config, *slews)
-    if not tight:
-        return step, ()
-    reltol = float(deck_options(deck.text).get("reltol", RESETTABLE["reltol"]))
-    return step / TIGHT_STEPS, (f"reltol={reltol / TIGHT_RELTOL:.3g}",)
+    return stepsize.tightened(deck, step) if tight else (step, ())
 
 
 _WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation], float] = SESSION.cache(

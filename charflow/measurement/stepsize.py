@@ -18,6 +18,9 @@ the estimate decides the cost of a point, not its accuracy; and since the probes
 series alone, every point's value still depends on the point alone, whatever the chunking or
 the worker count. The probes are measurements of the corner points themselves and stand as
 their results.
+
+This module also holds charflow's one definition of *tightened* settings, the ones a value is
+re-measured at to see how far the time step and tolerances move it (``tightened``).
 """
 
 from __future__ import annotations
@@ -25,8 +28,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from charflow.config.library import LibraryConfig
-from charflow.records.points import TimingPoint
+from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, TimingPoint
 from charflow.simulation import stimulus
+from charflow.simulation.backends import RESETTABLE, deck_options
+from charflow.simulation.netlist import Deck
 
 RAMP_SAMPLES = 20  # samples across the input ramp, before any refinement
 PROBE_SAMPLES = 2.0  # first step of the later probes: the first probe's transition / this
@@ -65,3 +70,16 @@ def step_for(config: LibraryConfig, model: EdgeModel | None, point: TimingPoint)
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, config.process.vdd).duration
     # The estimate is in raw (underated) seconds, as the simulator sees the edge.
     return model.transition(ramp, point.load) / config.simulation.samples_per_edge
+
+
+def tightened(deck: Deck, step: float) -> tuple[float, tuple[str, ...]]:
+    """The tightened form (``records.points.TIGHT_STEPS``: the flip-flop convergence checks
+    and every error bar use it) of a run with largest step ``step`` on ``deck``: the step over
+    TIGHT_STEPS, and reltol (the deck's, else ngspice's default) over TIGHT_RELTOL as a
+    simulator option."""
+    return step / TIGHT_STEPS, (f"reltol={tight_reltol(deck):.3g}",)
+
+
+def tight_reltol(deck: Deck) -> float:
+    """The relative tolerance of a tightened run on ``deck``."""
+    return float(deck_options(deck.text).get("reltol", RESETTABLE["reltol"])) / TIGHT_RELTOL

@@ -1,4 +1,5 @@
-"""Planning the work done once per cell: the function check and the leakage runs. They are
+"""Planning the work done once per cell (the function check and the leakage runs) and the
+tightened re-measures of the grid's points that give their values' error bars. They are
 points like any other, so workers run them, the store keeps them, and a run served wholly
 from the store simulates nothing."""
 
@@ -8,7 +9,7 @@ from collections.abc import Iterable
 
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.plan.toggles import vectors
-from charflow.records.points import FunctionPoint, LeakagePoint
+from charflow.records.points import FunctionPoint, LeakagePoint, TightPoint, TimingPoint, Work
 
 
 def function_point(cell: CellSpec) -> FunctionPoint:
@@ -29,3 +30,14 @@ def function_points(config: LibraryConfig, cells: Iterable[str]) -> tuple[Functi
 
 def leakage_points(config: LibraryConfig, cells: Iterable[str]) -> tuple[LeakagePoint, ...]:
     return tuple(leakage_point(config.cell(c)) for c in cells)
+
+
+def tight_points(config: LibraryConfig, points: Iterable[Work]) -> tuple[TightPoint, ...]:
+    """The error-bar re-measures of ``points``' combinational grid points, as
+    ``[error_bars] points`` asks (a flip-flop arc is checked at tightened settings on its own
+    sample: ``measurement.sequential``)."""
+    if config.error_bars.points == "none":
+        return ()
+    return tuple(
+        TightPoint(p) for p in points if isinstance(p, TimingPoint) and p.kind == "combinational"
+    )

@@ -11,10 +11,12 @@ import numpy as np
 
 from charflow.records.errors import MeasurementError
 from charflow.records.points import (
+    TIGHT_STEPS,
     ConstraintPoint,
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    TightPoint,
     TimingPoint,
     TogglePoint,
     Work,
@@ -145,5 +147,37 @@ class FunctionChecked:
     sim_seconds: float  # wall time of the check in the worker
 
 
+@dataclass(frozen=True, slots=True)
+class TightMeasurement:
+    """A grid point's values measured again at tightened settings (``TightPoint``)."""
+
+    point: TightPoint
+    delay: float  # s
+    transition: float  # s, derated
+    input_charge: float  # C
+    internal_energy: float | None  # J
+    reltol: float  # the tightened run's relative tolerance
+    runs: int
+    sim_seconds: float
+
+    def bar(self, value: float, tightened: float) -> float:
+        """The error bar of ``value`` (measured at the usual settings) from the same quantity
+        at tightened settings. If the error falls at least linearly with the step (the
+        trapezoidal rule and the crossings' linear interpolation are second order; refinement
+        breakpoints and tolerances can make it less), value's error e and the tightened one's
+        e / TIGHT_STEPS differ by |value - tightened| >= e (1 - 1 / TIGHT_STEPS); what does not
+        shrink with the step is bounded by the tightened run's relative tolerance."""
+        shrinking = abs(value - tightened) * TIGHT_STEPS / (TIGHT_STEPS - 1.0)
+        return shrinking + self.reltol * abs(tightened)
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
-Outcome = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked | Failure
+Outcome = (
+    Measurement
+    | SearchResult
+    | ToggleMeasurement
+    | LeakageResult
+    | FunctionChecked
+    | TightMeasurement
+    | Failure
+)

@@ -9,16 +9,16 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.measurement.combinational import pin_capacitance
-from charflow.records.errors import TableError
+from charflow.records.errors import TableError, place
 from charflow.records.names import delay_quantity, transition_quantity
-from charflow.records.outcomes import Measurement, Outcome, SearchResult
-from charflow.records.points import Arc, ConstraintPoint, Plan, PulsePoint, State
+from charflow.records.outcomes import Measurement, Outcome, SearchResult, TightMeasurement
+from charflow.records.points import Arc, ConstraintPoint, Plan, PulsePoint, State, TimingPoint
 from charflow.tables.table import Axis, Table
 
 SLEW_AXIS = "input_net_transition"
@@ -35,6 +35,9 @@ log = logging.getLogger("charflow")
 class StateTables:
     state: State
     tables: tuple[Table, ...]
+    # Error bars of the tables' values (``TightMeasurement.bar``), a table of the same quantity
+    # each; none for a table with a point not measured at tightened settings (``[error_bars]``)
+    errors: tuple[Table, ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,6 +45,7 @@ class ArcTables:
     arc: Arc
     default: tuple[Table, ...]  # worst case over states
     states: tuple[StateTables, ...]
+    default_errors: tuple[Table, ...] = ()  # the largest error bar over the states
 
     def table(self, quantity: str) -> Table | None:
         return next((t for t in self.default if t.quantity == quantity), None)
@@ -55,6 +59,8 @@ class PinCap:
     pin: str
     rise: float | None  # F
     fall: float | None  # F
+    rise_error: float | None = None  # F, error bars (``[error_bars]``); None: not measured
+    fall_error: float | None = None
 
     @property
     def capacitance(self) -> float | None:
@@ -141,8 +147,13 @@ def grid_table(
 
 
 def _state_tables(
-    cell: CellSpec, arc: Arc, state: State, measured: list[Measurement]
+    config: LibraryConfig,
+    arc: Arc,
+    state: State,
+    measured: list[Measurement],
+    bars: Mapping[TimingPoint, TightMeasurement],
 ) -> StateTables:
+    cell = config.cell(arc.cell)
     axes = arc_axes(cell, arc)
     mine = [
         m
@@ -152,17 +163,64 @@ def _state_tables(
         and m.point.kind == arc.kind
         and m.point.state_side == state.side
     ]
-    tables = []
+    tables, errors = [], []
     for out_edge in arc.output_edges:
-        delays, transitions = {}, {}
-        for m in mine:
-            if m.point.output_edge != out_edge:
-                continue
-            delays[m.point.coordinates] = m.delay
-            transitions[m.point.coordinates] = m.transition
-        tables.append(grid_table(cell, axes, delay_quantity(out_edge), delays, "s"))
-        tables.append(grid_table(cell, axes, transition_quantity(out_edge), transitions, "s"))
-    return StateTables(state, tuple(tables))
+        edge = [m for m in mine if m.point.output_edge == out_edge]
+        for quantity, value in (
+            (delay_quantity(out_edge), _delay),
+            (transition_quantity(out_edge), _transition),
+        ):
+            values = {m.point.coordinates: value(m) for m in edge}
+            tables.append(grid_table(cell, axes, quantity, values, "s"))
+            if edge and all(m.point in bars for m in edge):
+                bar = {
+                    m.point.coordinates: bars[m.point].bar(value(m), value(bars[m.point]))
+                    for m in edge
+                }
+                errors.append(grid_table(cell, axes, quantity, bar, "s"))
+                _flag(config, tables[-1], errors[-1], {m.point.coordinates: m.point for m in edge})
+    return StateTables(state, tuple(tables), tuple(errors))
+
+
+def _delay(m: Measurement | TightMeasurement) -> float:
+    return m.delay
+
+
+def _transition(m: Measurement | TightMeasurement) -> float:
+    return m.transition
+
+
+def relative_bars(table: Table, error: Table, floor: float) -> np.ndarray:
+    """``table``'s error bars relative to its values, each over max(|value|, ``floor``) (as the
+    fidelity check's errors): a delay near zero must not make every bar look large."""
+    return error.values / np.maximum(np.abs(table.values), floor)
+
+
+def _flag(
+    config: LibraryConfig,
+    table: Table,
+    error: Table,
+    points: Mapping[tuple[float, ...], TimingPoint],
+) -> None:
+    """A warning where ``table``'s error bars exceed ``[error_bars] warn_above`` of the values:
+    how many do, and where the largest is, in the library's units."""
+    rel = relative_bars(table, error, config.fidelity.rel_floor)
+    limit = config.error_bars.warn_above
+    over = int(np.count_nonzero(rel > limit))
+    if not over:
+        return
+    worst = np.unravel_index(int(np.argmax(rel)), rel.shape)
+    at = tuple(a.values[i] for a, i in zip(table.axes, worst, strict=True))
+    log.warning(
+        "%s: %s's error bar is over %.3g %% of the value ([error_bars] warn_above) at %d of "
+        "%d points; the largest, %.3g %%, is here",
+        place({k: v for k, v in points[at].where(config).items() if v is not None}),
+        table.quantity,
+        100 * limit,
+        over,
+        rel.size,
+        100 * float(rel[worst]),
+    )
 
 
 def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[ConstraintTables, ...]:
@@ -185,6 +243,29 @@ def _constraints(cell: CellSpec, results: list[SearchResult]) -> tuple[Constrain
             ConstraintTables(pin, cell.flip_flop.clock, kind, group[0][0].clock_edge, tuple(tables))
         )
     return tuple(out)
+
+
+def _pin_caps(
+    config: LibraryConfig,
+    cell: CellSpec,
+    measured: list[Measurement],
+    bars: Mapping[TimingPoint, TightMeasurement],
+) -> tuple[PinCap, ...]:
+    """Every input's capacitance; with the error bars of its values where every point it
+    comes from was measured at tightened settings too."""
+    vdd = config.process.vdd
+    caps = pin_capacitance(measured, vdd)
+    pins = tuple(_pin_cap(cell.name, p, caps) for p in cell.inputs)
+    if not measured or not all(m.point in bars for m in measured):
+        return pins
+    tight = [replace(m, input_charge=bars[m.point].input_charge) for m in measured]
+    tight_caps = pin_capacitance(tight, vdd)
+    bar = next(iter(bars.values())).bar  # each bar alike but for the value
+    errors = {k: bar(c, tight_caps[k]) for k, c in caps.items()}
+    return tuple(
+        replace(p, rise_error=errors.get((p.pin, "rise")), fall_error=errors.get((p.pin, "fall")))
+        for p in pins
+    )
 
 
 def _pin_cap(cell: str, pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
@@ -255,13 +336,21 @@ def tabulate(
     for cell_name in dict.fromkeys(a.cell for a in plan.arcs):
         cell = config.cell(cell_name)
         measured = [m for m in results if isinstance(m, Measurement) and m.point.cell == cell_name]
+        bars = {
+            r.point.base: r
+            for r in results
+            if isinstance(r, TightMeasurement) and r.point.cell == cell_name
+        }
         searches = [r for r in results if isinstance(r, SearchResult) and r.point.cell == cell_name]
         arc_tables = []
         for arc in (a for a in plan.arcs if a.cell == cell_name):
-            states = [_state_tables(cell, arc, st, measured) for st in arc.states]
-            arc_tables.append(ArcTables(arc, _worst(states), tuple(states)))
-        caps = pin_capacitance(measured, config.process.vdd)
-        pins = tuple(_pin_cap(cell_name, p, caps) for p in cell.inputs)
+            states = [_state_tables(config, arc, st, measured, bars) for st in arc.states]
+            whole = all(len(st.errors) == len(st.tables) for st in states)
+            errors = _worst([st.errors for st in states]) if whole else ()
+            arc_tables.append(
+                ArcTables(arc, _worst([st.tables for st in states]), tuple(states), errors)
+            )
+        pins = _pin_caps(config, cell, measured, bars)
         pulses = tuple(
             _pulse_width(config, r.point, r) for r in searches if isinstance(r.point, PulsePoint)
         )
@@ -274,12 +363,12 @@ def tabulate(
     return tuple(cells)
 
 
-def _worst(states: list[StateTables]) -> tuple[Table, ...]:
-    """Per quantity, the point-wise maximum over the states that have it (non-unate arcs
-    reach one output edge from both input edges, in different states)."""
+def _worst(states: list[tuple[Table, ...]]) -> tuple[Table, ...]:
+    """Per quantity, the point-wise maximum over the states' tables that have it (non-unate
+    arcs reach one output edge from both input edges, in different states)."""
     by_quantity: dict[str, list[Table]] = {}
-    for st in states:
-        for t in st.tables:
+    for tables in states:
+        for t in tables:
             by_quantity.setdefault(t.quantity, []).append(t)
     worst = []
     for quantity in ("cell_rise", "rise_transition", "cell_fall", "fall_transition"):
