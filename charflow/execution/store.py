@@ -39,6 +39,7 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    ShapeResult,
     ToggleMeasurement,
 )
 from charflow.records.points import Work
@@ -46,11 +47,20 @@ from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
 # What a row holds: any outcome but a Failure.
-Result = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked
+Result = (
+    Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked | ShapeResult
+)
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
     cls.__name__: cls
-    for cls in (Measurement, SearchResult, ToggleMeasurement, LeakageResult, FunctionChecked)
+    for cls in (
+        Measurement,
+        SearchResult,
+        ToggleMeasurement,
+        LeakageResult,
+        FunctionChecked,
+        ShapeResult,
+    )
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
@@ -123,6 +133,10 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         # A schema change of a record (new fields) makes every stored row stale.
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
+    shape = config.input_shape
+    if not shape.linear:
+        # Every input's waveform: results of one shape never serve another (nor the ramp).
+        settings["input_shape"] = [shape.kind, _plain(shape.rise), _plain(shape.fall)]
     digests: dict[Path, str | None] = {}
     cells = {}
     for name, deck in decks.items():

@@ -15,6 +15,7 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    ShapePoint,
     TimingPoint,
     TogglePoint,
     Work,
@@ -145,5 +146,24 @@ class FunctionChecked:
     sim_seconds: float  # wall time of the check in the worker
 
 
+@dataclass(frozen=True, slots=True)
+class ShapeResult:
+    """The driver's output edges, normalised (``config.shapes``): (τ, fraction of the swing)."""
+
+    point: ShapePoint
+    rise: tuple[tuple[float, float], ...]
+    fall: tuple[tuple[float, float], ...]
+    runs: int
+    sim_seconds: float
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
-Outcome = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked | Failure
+Outcome = (
+    Measurement
+    | SearchResult
+    | ToggleMeasurement
+    | LeakageResult
+    | FunctionChecked
+    | ShapeResult
+    | Failure
+)
