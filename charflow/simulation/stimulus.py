@@ -163,5 +163,6 @@ def _pwl_values(corners: Sequence[tuple[float, float]]) -> list[str]:
         if q <= last:
             continue
         last = q
-        out += [f"{q:.12g}", f"{v:.9g}"]
+        # All the digits: a corner far out (a pulse's return after 1 s) is 1 fs from the next.
+        out += [f"{q:.17g}", f"{v:.9g}"]
     return out
