@@ -252,3 +252,24 @@ def test_liberty_and_json_name_the_shape_and_parse(driven):
     doc = flow.to_json(cfg, result)
     assert doc["input_shape"]["kind"] == "driver"
     assert doc["input_shape"]["rise"] == [list(c) for c in cfg.input_shape.rise]
+
+
+@pytest.mark.parametrize(
+    ("section", "key"),
+    [
+        ('kind = "spline"', "input_shape.kind"),
+        ('kind = "driver"', "input_shape.driver"),
+        ('kind = "driver"\ndriver = ["QNOPE"]', "input_shape.driver"),
+        (
+            'kind = "driver"\ndriver = ["QINV_P1"]\nfanout_pin = "QINV_P1.Z"',
+            "input_shape.fanout_pin",
+        ),
+        ('kind = "driver"\ndriver = ["QINV_P1"]\nfanout = 0', "input_shape.fanout"),
+        ('kind = "file"', "input_shape.file"),
+        ('kind = "linear"\ncurve = 2', "input_shape.curve"),
+    ],
+)
+def test_a_bad_input_shape_section_names_its_key(tmp_path, section, key):
+    with pytest.raises(ConfigError) as err:
+        _config(tmp_path, DATA / "small_l1.toml", f"[input_shape]\n{section}\n")
+    assert err.value.context["key"] == key

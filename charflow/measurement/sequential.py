@@ -878,7 +878,12 @@ class _Pulse:
 
     @classmethod
     def at(
-        cls, slew: float, level: str, thr: Thresholds, vdd: float, shape: InputShape | None
+        cls,
+        slew: float,
+        level: str,
+        thr: Thresholds,
+        vdd: float,
+        shape: InputShape | None = None,
     ) -> _Pulse:
         up = stimulus.ramp(slew, "rise", thr, vdd, shape)
         down = stimulus.ramp(slew, "fall", thr, vdd, shape)
