@@ -273,3 +273,22 @@ def test_a_bad_input_shape_section_names_its_key(tmp_path, section, key):
     with pytest.raises(ConfigError) as err:
         _config(tmp_path, DATA / "small_l1.toml", f"[input_shape]\n{section}\n")
     assert err.value.context["key"] == key
+
+
+BACKEND_RTOL = 1e-3  # shared against subprocess ngspice on the same point (as test_timing)
+
+
+def test_a_shaped_point_is_alike_on_both_backends_and_never_the_ramps(driven):
+    # The same point and waveform through libngspice and through `ngspice -b` (the PWL's
+    # vector composed in a .control block) agree; the ramp's result measured first in this
+    # process (its grid corner is a cached probe) does not serve the shaped point.
+    cfg, _ = driven
+    deck = netlist.build_deck(cfg, cfg.cell("QINV_P1"))
+    point = next(p for p in flow.select(cfg, ["QINV_P1"]).points if p.input_edge == "rise")
+    ramp = combinational.measure_point(replace(cfg, input_shape=InputShape()), deck, point)
+    shaped = combinational.measure_point(cfg, deck, point)
+    batch = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
+    alone = combinational.measure_point(batch, deck, point)
+    assert alone.delay == pytest.approx(shaped.delay, rel=BACKEND_RTOL)
+    assert alone.transition == pytest.approx(shaped.transition, rel=BACKEND_RTOL)
+    assert abs(shaped.delay / ramp.delay - 1) > BACKEND_RTOL

@@ -19,6 +19,7 @@ from functools import partial
 import numpy as np
 
 from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
+from charflow.config.shapes import InputShape
 from charflow.measurement import stepsize
 from charflow.measurement.waves import (
     KeepWaveform,
@@ -393,19 +394,21 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
 # calibrated once per process (``stepsize``).
 _Calibrated = tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]
-_SERIES: BoundedCache[tuple[str, TimingPoint, Grid, Thresholds, Simulation], _Calibrated] = (
-    SESSION.cache("edge models")
-)
+_SERIES: BoundedCache[
+    tuple[str, TimingPoint, Grid, Thresholds, Simulation, InputShape], _Calibrated
+] = SESSION.cache("edge models")
 
 
 def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> _Calibrated:
-    # Everything the probes depend on: the testbench, the grid's corners, how points are run.
+    # Everything the probes depend on: the testbench, the grid's corners, how points are run,
+    # the inputs' shape (a probe is a measurement: another shape's never serves).
     key = (
         deck.key,
         replace(point, slew=0.0, load=0.0),  # a series per other output's load too
         config.cell(point.cell).grid,
         config.thresholds,
         config.simulation,
+        config.input_shape,
     )
     if key not in _SERIES:
         _SERIES[key] = _calibrate(config, deck, point)

@@ -151,7 +151,7 @@ def run_settings(
     return step / TIGHT_STEPS, (f"reltol={reltol / TIGHT_RELTOL:.3g}",)
 
 
-_WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation], float] = SESSION.cache(
+_WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation, InputShape], float] = SESSION.cache(
     "settle windows"
 )
 
@@ -168,7 +168,7 @@ def settle_window(config: LibraryConfig, deck: Deck) -> float:
     if config.simulation.window:
         return config.simulation.window
     cell = config.cell(deck.cell)
-    key = (deck.key, cell.grid, config.thresholds, config.simulation)
+    key = (deck.key, cell.grid, config.thresholds, config.simulation, config.input_shape)
     if key not in _WINDOWS:
         base = WINDOW_SLEWS * min(cell.grid.slew)
         slowest = [
@@ -396,7 +396,8 @@ def _arc_check(
     usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
     the simulations and seconds the check cost beyond it."""
     cell = config.cell(point.cell)
-    key = (deck.key, cell.grid, config.thresholds, config.simulation, arc_of(point))
+    settings = (config.thresholds, config.simulation, config.input_shape)
+    key = (deck.key, cell.grid, *settings, arc_of(point))
     sample = _sample(config, point)
     if key in _ARCS:
         return _ARCS[key], None, 0, 0.0
