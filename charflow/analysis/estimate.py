@@ -28,6 +28,7 @@ from collections import Counter
 from dataclasses import dataclass, replace
 
 from charflow.config.library import LibraryConfig
+from charflow.config.shapes import InputShape
 from charflow.measurement import combinational, registry, sequential
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
@@ -126,7 +127,10 @@ class Estimate:
 
 
 def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 1) -> Estimate:
-    """Count the points of the chosen cells and measure a few of each."""
+    """Count the points of the chosen cells and measure a few of each. A driver's input shape
+    is not measured for the estimate: its samples are timed with the linear ramp."""
+    if config.input_shape.kind == "driver" and not config.input_shape.rise:
+        config = replace(config, input_shape=InputShape())
     plan = planning.plan(config, cells)
     plausible.announce(config, {a.cell for a in plan.arcs})
     timing = [p for p in plan.points if isinstance(p, TimingPoint)]

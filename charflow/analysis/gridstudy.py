@@ -34,6 +34,7 @@ from charflow.analysis.fidelity import measured, row_point_of, row_points, timin
 from charflow.analysis.reporting import axis_unit, head, library_units, pct
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
+from charflow.flow.characterize import shaped
 from charflow.plan.arcs import arcs_of
 from charflow.records.errors import ConfigError, MeasurementError
 from charflow.records.names import delay_quantity, transition_quantity
@@ -527,6 +528,7 @@ def study(
     candidates, whose placement needs the reference.
     """
     start = time.perf_counter()
+    config = shaped(config, jobs=jobs)  # a driver's input shape, measured once for the study
     the_arc = choose_arc(config, cell_name, arc)
     floor = config.fidelity.rel_floor
     span = _span(config, cell_name)

@@ -67,7 +67,8 @@ def command(args: argparse.Namespace) -> int:
             return EXIT_FAILED_POINTS
         # With a store the library holds every stored cell; the check is for the chosen ones.
         cells = [c for c in result.cells if args.cell is None or c.cell.name in args.cell]
-        return check_tables(cfg, cells, out, args, store)
+        # The probes get the input shape the tables were measured with.
+        return check_tables(flow.with_shape(cfg, result), cells, out, args, store)
 
 
 def check_tables(

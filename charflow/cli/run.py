@@ -158,7 +158,8 @@ def _library(
         _failed(lib.name, result, out, args)
         return EXIT_FAILED_POINTS
     if args.fidelity:
-        return fidelity_command.check_tables(lib, result.cells, out, args, store)
+        shaped = flow.with_shape(lib, result)  # the probes get the tables' input shape
+        return fidelity_command.check_tables(shaped, result.cells, out, args, store)
     return EXIT_OK
 
 

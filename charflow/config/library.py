@@ -16,6 +16,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+from charflow.config.shapes import KINDS, InputShape, read_file
 from charflow.records import logic
 from charflow.records.errors import ConfigError, ConfigProblemsError, FunctionSyntaxError
 from charflow.records.units import CAP_UNITS, TIME_UNITS, cap_scale, time_scale, unit_name
@@ -248,6 +249,7 @@ class LibraryConfig:
     corners: tuple[Corner, ...] = ()
     liberty: LibertyOptions = field(default_factory=LibertyOptions)
     corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
+    input_shape: InputShape = field(default_factory=InputShape)  # ``[input_shape]``
     digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
     # The cells by name, for ``cell``: built with the record, never compared or shown.
     _by_name: dict[str, CellSpec] = field(init=False, repr=False, compare=False, hash=False)
@@ -465,7 +467,9 @@ _TOP_KEYS = {
     "error_bars",
     "corner",
     "liberty",
+    "input_shape",
 }
+_SHAPE_KEYS = {"kind", "driver", "driver_slew", "fanout_pin", "fanout", "load", "file"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -504,8 +508,12 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
     corners = _corners(r, doc.get("corner", []), process)
     options = _liberty(r, r.section(doc, "liberty", _LIBERTY_KEYS, required=False), cscale)
     _check_other_load(r, options, cells, cap_unit)
+    shape_doc = r.section(doc, "input_shape", _SHAPE_KEYS, required=False)
+    shape = _input_shape(r, shape_doc, base, cells, tscale, cscale)
 
     _raise_problems(r, path)
+    if shape.kind == "file" and shape.file is not None:
+        shape = _shape_file(shape, thresholds)
     # A name or unit that did not read is a problem, raised above.
     assert name is not None and time_unit is not None and cap_unit is not None
     return LibraryConfig(
@@ -522,6 +530,7 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
         error_bars=error_bars,
         corners=corners,
         liberty=options,
+        input_shape=shape,
     )
 
 
@@ -1022,3 +1031,68 @@ def _flop(
         preset=exprs.get("preset"),
         state=(state[0], state[1]),
     )
+
+
+def _input_shape(
+    r: _Reader,
+    doc: dict[str, Any],
+    base: Path,
+    cells: list[CellSpec],
+    tscale: float,
+    cscale: float,
+) -> InputShape:
+    """The ``[input_shape]`` section: which waveform every input gets (``config.shapes``)."""
+    d = InputShape()
+    kind = r.get(doc, "kind", str, "input_shape", d.kind)
+    if kind not in KINDS:
+        r.problem("input_shape.kind", f"must be one of {', '.join(KINDS)}, got {kind!r}")
+        return d
+    by_name = {c.name: c for c in cells}
+    driver = tuple(r.get(doc, "driver", list, "input_shape", []) or [])
+    for name in driver:
+        cell = by_name.get(name) if isinstance(name, str) else None
+        if cell is None or cell.flop is not None or not cell.inputs:
+            r.problem(
+                "input_shape.driver",
+                f"{name!r} is not a combinational cell of this config; the driver is a list "
+                "of the config's cells, each driving the next through its first input",
+            )
+    if kind == "driver" and not driver:
+        r.problem("input_shape.driver", "kind 'driver' needs a driver: a list of cell names")
+    pin = r.get(doc, "fanout_pin", str, "input_shape", None)
+    if pin is not None:
+        name, _, port = pin.partition(".")
+        if name not in by_name or port not in by_name[name].inputs:
+            r.problem(
+                "input_shape.fanout_pin", f"must be 'CELL.PIN', an input of a cell; got {pin!r}"
+            )
+    fanout = r.get(doc, "fanout", int, "input_shape", d.fanout)
+    if fanout is not None and fanout < 1:
+        r.problem("input_shape.fanout", f"must be at least 1, got {fanout}")
+    slew = r.number(doc, "driver_slew", "input_shape", None, low=0.0)
+    load = r.get(doc, "load", float, "input_shape", 0.0)
+    if load is not None and (not math.isfinite(load) or load < 0):
+        r.problem("input_shape.load", f"must be a load in cap_unit, not negative; got {load!r}")
+        load = 0.0
+    file = r.get(doc, "file", str, "input_shape", None)
+    path = None if file is None else (base / file).resolve()
+    if kind == "file" and path is None:
+        r.problem("input_shape.file", "kind 'file' needs a file of normalised corners")
+    return InputShape(
+        kind=kind,
+        driver=tuple(n for n in driver if isinstance(n, str)),
+        driver_slew=None if slew is None else slew * tscale,
+        fanout_pin=pin,
+        fanout=fanout or d.fanout,
+        load=(load or 0.0) * cscale,
+        file=path,
+    )
+
+
+def _shape_file(shape: InputShape, thr: Thresholds) -> InputShape:
+    """The shape with its file's normalised edges (errors name the file and line)."""
+    assert shape.file is not None  # kind "file" requires it (``_input_shape``)
+    band = {e: thr.slew_band(e) for e in ("rise", "fall")}
+    delay = {e: thr.delay_input(e) for e in ("rise", "fall")}
+    rise, fall = read_file(shape.file, band, delay)
+    return replace(shape, rise=rise, fall=fall)

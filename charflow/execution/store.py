@@ -39,6 +39,7 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    ShapeResult,
     TightMeasurement,
     ToggleMeasurement,
 )
@@ -54,6 +55,7 @@ Result = (
     | LeakageResult
     | FunctionChecked
     | TightMeasurement
+    | ShapeResult
 )
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
@@ -65,6 +67,7 @@ RECORDS: dict[str, type] = {
         LeakageResult,
         FunctionChecked,
         TightMeasurement,
+        ShapeResult,
     )
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
@@ -140,6 +143,10 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         # A schema change of a record (new fields) makes every stored row stale.
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
+    shape = config.input_shape
+    if not shape.linear:
+        # Every input's waveform: results of one shape never serve another (nor the ramp).
+        settings["input_shape"] = [shape.kind, _plain(shape.rise), _plain(shape.fall)]
     digests: dict[Path, str | None] = {}
     cells = {}
     for name, deck in decks.items():

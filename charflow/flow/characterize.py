@@ -14,12 +14,13 @@ from __future__ import annotations
 import json
 import time
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 from charflow import __version__
 from charflow.config.library import FlopSpec, LibraryConfig
+from charflow.config.shapes import InputShape
 from charflow.execution import provenance, sweep
 from charflow.execution.store import Stale, Store, keyring
 from charflow.io import faults, liberty
@@ -43,6 +44,7 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    ShapeResult,
     TightMeasurement,
     ToggleMeasurement,
 )
@@ -55,13 +57,14 @@ from charflow.records.points import (
     LeakagePoint,
     Plan,
     PulsePoint,
+    ShapePoint,
     State,
     TightPoint,
     TimingPoint,
     TogglePoint,
     Work,
 )
-from charflow.simulation.netlist import Deck, build_deck
+from charflow.simulation.netlist import Deck, build_chain_deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
 from charflow.tables.table import Table
@@ -92,6 +95,8 @@ class RunResult:
     # re-measure failed (their values have no error bar; the library is written all the same).
     tight: tuple[TightMeasurement, ...] = ()
     unbarred: tuple[Failure, ...] = ()
+    # The input waveform every point had: the config's, with the driver's edges measured.
+    input_shape: InputShape = field(default_factory=InputShape)
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -140,7 +145,8 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
     if isinstance(p, LeakagePoint):
         return [f"{p.cell} leakage"]
-    if isinstance(p, FunctionPoint | TightPoint):  # a tightened value is in no Liberty table
+    # A tightened value and the driver's shape are in no Liberty table.
+    if isinstance(p, FunctionPoint | TightPoint | ShapePoint):
         return []
     if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
@@ -188,6 +194,38 @@ def verify(
         first = min(failed, key=lambda f: names.index(f.point.cell))
         raise errors.again(first.error, first.reason, dict(first.context))
     return tuple(o for o in outcomes if isinstance(o, FunctionChecked))
+
+
+def shape_point(config: LibraryConfig) -> ShapePoint:
+    """The driver stage's point: the chain of ``[input_shape] driver``, driven at its
+    ``driver_slew`` or else the middle of the first cell's slew grid."""
+    shape = config.input_shape
+    slews = config.cell(shape.driver[0]).grid.slew
+    slew = shape.driver_slew if shape.driver_slew is not None else slews[len(slews) // 2]
+    return ShapePoint(shape.driver[-1], shape.driver, slew)
+
+
+def shaped(
+    config: LibraryConfig,
+    *,
+    store: Store | None = None,
+    jobs: int | None = None,
+    scheduler: str | None = None,
+) -> LibraryConfig:
+    """The config with the input shape every point gets: a driver's edges measured in the
+    sweep's workers (the driver stage; with a store, once per set of inputs) and kept in
+    ``config.input_shape``, which every point is handed. Other shapes are returned as read."""
+    shape = config.input_shape
+    if shape.kind != "driver" or shape.rise:
+        return config
+    point = shape_point(config)
+    decks = {point.cell: build_chain_deck(config, shape)}
+    runs = sweep.run(config, [point], jobs=jobs, store=store, scheduler=scheduler, decks=decks)
+    outcome = next(iter(runs))
+    if isinstance(outcome, Failure):
+        raise errors.again(outcome.error, outcome.reason, dict(outcome.context))
+    assert isinstance(outcome, ShapeResult)  # a ShapePoint's measurer gives one
+    return replace(config, input_shape=replace(shape, rise=outcome.rise, fall=outcome.fall))
 
 
 def select(
@@ -288,6 +326,7 @@ def characterize(
     # Before the sweep: the version is asked of the sweep's worker pool, and the store's keys
     # hold it.
     made_by = provenance.build(config, provenance.simulator(config, jobs))
+    config = shaped(config, store=store, jobs=jobs, scheduler=scheduler)
     chosen, toggle_points, names, work = _work(config, cells, arc)
     decks = {n: build_deck(config, config.cell(n)) for n in names}
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
@@ -330,6 +369,7 @@ def characterize(
         gap_report=report,
         tight=tuple(m for m in got.tight if m.point.cell not in left_out),
         unbarred=tuple(got.unbarred),
+        input_shape=config.input_shape,
     )
 
 
@@ -441,6 +481,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         "library": config.name,
         "generator": f"charflow {__version__}",
         **provenance.to_json(result.provenance),
+        "input_shape": shape_record(config, result.input_shape),
         "cells": [_cell_record(cell, powers.get(cell.cell.name)) for cell in result.cells],
         "points": {
             name: [
@@ -463,6 +504,29 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
             for models, names in result.stale_tables().items()
         ],
     }
+
+
+def shape_record(config: LibraryConfig, shape: InputShape) -> dict[str, Any]:
+    """The input waveform in the JSON: its kind, its description and its normalised edges
+    (τ in units of the time between the slew thresholds, fraction of the swing travelled)."""
+    return {
+        "kind": shape.kind,
+        "description": shape.describe(config.cap_unit, config.cap_scale),
+        "driver": list(shape.driver),
+        "rise": [list(c) for c in shape.rise],
+        "fall": [list(c) for c in shape.fall],
+    }
+
+
+def shape_header(config: LibraryConfig, shape: InputShape) -> tuple[str, ...]:
+    """The Liberty header line naming the input waveform the tables were measured with."""
+    return (f"input waveform: {shape.describe(config.cap_unit, config.cap_scale)}",)
+
+
+def with_shape(config: LibraryConfig, result: RunResult) -> LibraryConfig:
+    """``config`` with the input shape ``result`` was measured with (a driver's edges): what a
+    later re-simulation of its points (the fidelity check) must use."""
+    return replace(config, input_shape=result.input_shape)
 
 
 def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) -> dict:
@@ -779,7 +843,12 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     written.append(json_path)
     if not result.failures:
         header, notes = fill_notes(config, result)
-        header = (*provenance.liberty_header(result.provenance), *stale_notes(result), *header)
+        header = (
+            *provenance.liberty_header(result.provenance),
+            *shape_header(config, result.input_shape),
+            *stale_notes(result),
+            *header,
+        )
         # The default file has two-axis tables only; the three-axis form goes beside it.
         forms = (False, True) if liberty.has_three_axes(result.cells) else (False,)
         for three_axes, name in zip(forms, liberty.file_names(config), strict=False):

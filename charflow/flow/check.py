@@ -13,7 +13,9 @@ from pathlib import Path
 
 from charflow.config import library as config_mod
 from charflow.config.library import LibraryConfig
+from charflow.config.shapes import InputShape
 from charflow.execution import sweep
+from charflow.flow.characterize import shaped
 from charflow.plan.cellwork import function_points
 from charflow.records import errors
 from charflow.records.errors import (
@@ -49,6 +51,7 @@ def check(path: str | Path) -> CheckReport:
         return CheckReport(0, (str(exc),))
     index = {c.name: i for i, c in enumerate(cfg.cells)}
     problems: dict[int, str] = {}
+    cfg, driver = _driver_stage(cfg)
     decks: dict[str, Deck] = {}
     for cell in cfg.cells:
         try:
@@ -64,8 +67,18 @@ def check(path: str | Path) -> CheckReport:
     for f in failed:
         error = errors.again(f.error, f.reason, dict(f.context))
         problems[index[f.point.cell]] = str(_located(cfg, index[f.point.cell], error))
-    listed = tuple(problems[i] for i in sorted(problems))
+    listed = (*driver, *(problems[i] for i in sorted(problems)))
     return CheckReport(len(cfg.cells), listed, plausible.warnings(cfg))
+
+
+def _driver_stage(cfg: LibraryConfig) -> tuple[LibraryConfig, tuple[str, ...]]:
+    """The config with its driver's input shape measured, and the driver stage's problem if
+    it fails (the cells are then checked with the linear ramp)."""
+    try:
+        return shaped(cfg, jobs=1), ()
+    except CharflowError as exc:
+        told = exc.located(file=cfg.path, key="input_shape")
+        return replace(cfg, input_shape=InputShape()), (str(told),)
 
 
 def _failures(cfg: LibraryConfig, decks: dict[str, Deck]) -> list[Failure]:

@@ -12,13 +12,14 @@ from __future__ import annotations
 
 import itertools
 import logging
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from functools import partial
 
 import numpy as np
 
 from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
+from charflow.config.shapes import InputShape
 from charflow.measurement import stepsize
 from charflow.measurement.waves import (
     KeepWaveform,
@@ -116,13 +117,16 @@ PARKED_GRID = "[ 0 0 1 0 ]"
 def alters(
     deck: Deck,
     cell: CellSpec,
-    values: dict[str, str],
+    values: Mapping[str, stimulus.Wave],
     loads: dict[str, float],
     grid: str = PARKED_GRID,
 ) -> tuple[str, ...]:
-    """``alter`` commands setting every input's PULSE, every output's load (unlisted outputs
-    stay parked at a negligible load) and the breakpoint source."""
-    commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
+    """``alter`` commands setting every input's wave (a PULSE, or a shaped edge's PWL), every
+    output's load (unlisted outputs stay parked at a negligible load) and the breakpoint
+    source."""
+    commands = [
+        c for p in cell.inputs for c in stimulus.set_source(deck.input_source(p), values[p])
+    ]
     commands.append(f"alter @vgrid[pwl] = {grid}")
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
@@ -211,7 +215,8 @@ def measure_point(
     vdd = config.process.vdd
     thr = config.thresholds
     sim = config.simulation
-    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd, config.input_shape)
+    values: dict[str, stimulus.Wave]
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
     commands = alters(deck, cell, values, point_loads(cell, point))
@@ -414,19 +419,21 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
 # calibrated once per process (``stepsize``).
 _Calibrated = tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]
-_SERIES: BoundedCache[tuple[str, TimingPoint, Grid, Thresholds, Simulation], _Calibrated] = (
-    SESSION.cache("edge models")
-)
+_SERIES: BoundedCache[
+    tuple[str, TimingPoint, Grid, Thresholds, Simulation, InputShape], _Calibrated
+] = SESSION.cache("edge models")
 
 
 def _series(config: LibraryConfig, deck: Deck, point: TimingPoint) -> _Calibrated:
-    # Everything the probes depend on: the testbench, the grid's corners, how points are run.
+    # Everything the probes depend on: the testbench, the grid's corners, how points are run,
+    # the inputs' shape (a probe is a measurement: another shape's never serves).
     key = (
         deck.key,
         replace(point, slew=0.0, load=0.0),  # a series per other output's load too
         config.cell(point.cell).grid,
         config.thresholds,
         config.simulation,
+        config.input_shape,
     )
     if key not in _SERIES:
         _SERIES[key] = _calibrate(config, deck, point)
@@ -474,7 +481,8 @@ def _calibrate(config: LibraryConfig, deck: Deck, point: TimingPoint) -> _Calibr
     except (MeasurementError, SimulatorError):
         # The points themselves will report what is wrong; their first step stays plain.
         return None, {}
-    r0, r1 = (stimulus.ramp(s, point.input_edge, thr, vdd).duration for s in (s0, s1))
+    shape = config.input_shape
+    r0, r1 = (stimulus.ramp(s, point.input_edge, thr, vdd, shape).duration for s in (s0, s1))
     per_farad = max(t_load - t0, 0.0) / (c1 - c0) if c1 > c0 else 0.0
     per_ramp = max(t_slew - t0, 0.0) / (r1 - r0) if s1 > s0 else 0.0
     return stepsize.EdgeModel(t0, r0, c0, per_farad, per_ramp), probes

@@ -31,11 +31,10 @@ from charflow.plan.toggles import rests, state_term, vectors
 from charflow.records import logic
 from charflow.records.errors import MeasurementError
 from charflow.records.outcomes import EventEnergy, LeakageState
-from charflow.simulation import stimulus
 from charflow.simulation.backends import Request, Result
 from charflow.simulation.netlist import PARKED_LOAD, Deck
 from charflow.simulation.session import SESSION, BoundedCache
-from charflow.simulation.stimulus import Ramp
+from charflow.simulation.stimulus import Ramp, Wave
 from charflow.simulation.timeline import Timeline
 
 # A static run holds its vector long against the slowest relaxation of a node left floating
@@ -63,18 +62,18 @@ def level(config: LibraryConfig, value: bool) -> float:
 
 def hold_waves(
     bench: Timeline, state: bool, vector: dict[str, bool]
-) -> tuple[dict[str, str], float]:
+) -> tuple[dict[str, Wave], float]:
     """Waves that store ``state`` with one active clock edge (the grid's sharpest slew) and
     then move every input to ``vector`` with no active edge; and the time the inputs start to
     move (sharpest-slew ramps), a quarter period after the clock's last edge: no hold risk."""
     cell, flop = bench.cell, bench.cell.flip_flop
     small = min(cell.grid.slew)
-    active = stimulus.ramp(small, flop.edge, bench.thr, bench.vdd)
+    active = bench.ramp(small, flop.edge)
     v_inactive, v_active = active.levels
     stay = vector[flop.clock] == (flop.edge == "rise")
     width = 1.0 if stay else bench.half - active.duration
     waves = {
-        flop.clock: stimulus.pulse_vector(
+        flop.clock: bench.pulse(
             v_inactive, v_active, bench.lead, active.duration, active.duration, width, 2.0
         )
     }

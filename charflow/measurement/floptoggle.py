@@ -20,7 +20,7 @@ from charflow.records.points import TogglePoint
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request, Result
 from charflow.simulation.netlist import Deck
-from charflow.simulation.stimulus import Ramp
+from charflow.simulation.stimulus import Ramp, Wave
 from charflow.simulation.timeline import Timeline
 
 
@@ -59,7 +59,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     return ToggleMeasurement(point, energy, charge, runs, result.seconds, settled)
 
 
-def _waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, str], Ramp]:
+def _waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, Wave], Ramp]:
     """The inputs' waves of the hidden event and the ramp of the edge under test."""
     cell, flop = bench.cell, bench.cell.flip_flop
     side = dict(point.side)
@@ -73,23 +73,22 @@ def _waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, 
         if point.input_edge == flop.edge:
             return waves, second
         # The first inactive edge: half a period after the edge that wrote the state.
-        back = stimulus.ramp(point.slew, point.input_edge, bench.thr, bench.vdd)
-        return waves, Ramp(back.edge, bench.lead + bench.half, back.duration, bench.vdd)
+        back = bench.ramp(point.slew, point.input_edge)
+        return waves, back.moved(bench.lead + bench.half)
     return _data_waves(bench, point, state)
 
 
 def _inactive_clock_waves(
     bench: Timeline, point: TogglePoint, state: bool
-) -> tuple[dict[str, str], Ramp]:
+) -> tuple[dict[str, Wave], Ramp]:
     """The data opposite the stored value: it moves there while the clock is still active
     after writing the state, then the inactive edge under test."""
-    cell, flop, thr, vdd = bench.cell, bench.cell.flip_flop, bench.thr, bench.vdd
+    cell, flop = bench.cell, bench.cell.flip_flop
     active = flop.edge == "rise"
     waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), flop.clock: active})
-    back = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-    event = Ramp(back.edge, move + bench.half, back.duration, vdd)
-    first = stimulus.ramp(min(cell.grid.slew), flop.edge, thr, vdd)
-    waves[flop.clock] = stimulus.pulse_vector(
+    event = bench.ramp(point.slew, point.input_edge).moved(move + bench.half)
+    first = bench.ramp(min(cell.grid.slew), flop.edge)
+    waves[flop.clock] = bench.pulse(
         *first.levels,
         bench.lead,
         first.duration,
@@ -100,20 +99,19 @@ def _inactive_clock_waves(
     return waves, event
 
 
-def _data_waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, str], Ramp]:
+def _data_waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, Wave], Ramp]:
     """A data pin's edge that the clock does not capture."""
-    cell, thr, vdd = bench.cell, bench.thr, bench.vdd
+    cell = bench.cell
     before = point.input_edge == "fall"
     waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), point.related: before})
-    go = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-    event = Ramp(go.edge, move + bench.half, go.duration, vdd)
+    event = bench.ramp(point.slew, point.input_edge).moved(move + bench.half)
     written = capture_values(cell, state)[point.related]
     if written == before:
         waves[point.related] = event.pulse()
     else:  # to ``before`` with the other data, then the edge under test back again
-        first = stimulus.ramp(min(cell.grid.slew), "rise" if before else "fall", thr, vdd)
+        first = bench.ramp(min(cell.grid.slew), "rise" if before else "fall")
         flat = event.start - move - first.duration
-        waves[point.related] = stimulus.pulse_vector(
+        waves[point.related] = bench.pulse(
             *event.levels[::-1], move, first.duration, event.duration, flat, 2.0
         )
     return waves, event
@@ -124,7 +122,7 @@ def _run(
     deck: Deck,
     bench: Timeline,
     point: TogglePoint,
-    waves: dict[str, str],
+    waves: dict[str, Wave],
     event: Ramp,
 ) -> tuple[Result, int]:
     """The transient of the hidden event, run past it by the settle window."""

@@ -78,7 +78,8 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
-    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd, config.input_shape)
+    values: dict[str, stimulus.Wave]
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
     commands = alters(deck, cell, values, {o.pin: point.load for o in cell.outputs})

@@ -12,7 +12,7 @@ import time
 from collections.abc import Callable, Sequence
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import combinational, ffpower, floptoggle, power, sequential
+from charflow.measurement import combinational, driver, ffpower, floptoggle, power, sequential
 from charflow.measurement.combinational import explain, window_advice
 from charflow.records.errors import (
     CutOffError,
@@ -36,6 +36,7 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    ShapePoint,
     TightPoint,
     TogglePoint,
     Work,
@@ -47,6 +48,8 @@ log = logging.getLogger("charflow")
 
 def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
     """One point measured by the measurer of its kind (and of its cell's kind)."""
+    if isinstance(point, ShapePoint):
+        return driver.measure_shape(config, deck, point)
     flop = config.cell(point.cell).flop is not None
     if isinstance(point, LeakagePoint | FunctionPoint):
         return _per_cell(config, deck, point)

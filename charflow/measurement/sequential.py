@@ -18,6 +18,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
+from charflow.config.shapes import InputShape
 from charflow.measurement import ffpower, stepsize
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
@@ -62,7 +63,7 @@ from charflow.simulation import stimulus
 from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION, BoundedCache
-from charflow.simulation.stimulus import Ramp
+from charflow.simulation.stimulus import Ramp, Wave
 from charflow.simulation.timeline import Timeline
 
 log = logging.getLogger("charflow")
@@ -129,7 +130,8 @@ def run_step(config: LibraryConfig, *slews: float) -> float:
     1.35 ps (1.5 %) late on a [0.01, 1.5] ns grid against a 0.2 ps-step run; with this step
     (and the refinement's breakpoints from the event on) within 0.05 ps of it on either grid."""
     thr, vdd = config.thresholds, config.process.vdd
-    ramps = (stimulus.ramp(s, e, thr, vdd) for s in slews for e in ("rise", "fall"))
+    shape = config.input_shape
+    ramps = (stimulus.ramp(s, e, thr, vdd, shape) for s in slews for e in ("rise", "fall"))
     return min(r.duration for r in ramps) / RAMP_STEPS
 
 
@@ -142,7 +144,7 @@ def run_settings(
     return stepsize.tightened(deck, step) if tight else (step, ())
 
 
-_WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation], float] = SESSION.cache(
+_WINDOWS: BoundedCache[tuple[str, Grid, Thresholds, Simulation, InputShape], float] = SESSION.cache(
     "settle windows"
 )
 
@@ -159,7 +161,7 @@ def settle_window(config: LibraryConfig, deck: Deck) -> float:
     if config.simulation.window:
         return config.simulation.window
     cell = config.cell(deck.cell)
-    key = (deck.key, cell.grid, config.thresholds, config.simulation)
+    key = (deck.key, cell.grid, config.thresholds, config.simulation, config.input_shape)
     if key not in _WINDOWS:
         base = WINDOW_SLEWS * min(cell.grid.slew)
         slowest = [
@@ -223,7 +225,7 @@ def _edge_grid(
 def run_event(
     config: LibraryConfig,
     deck: Deck,
-    waves: dict[str, str],
+    waves: dict[str, Wave],
     loads: dict[str, float],
     *,
     event: Ramp,
@@ -331,7 +333,7 @@ def run_event(
 
 def _capture_waves(
     bench: Timeline, old: dict[str, bool], new: dict[str, bool], slew: float, start: float
-) -> dict[str, str]:
+) -> dict[str, Wave]:
     """Every non-clock input moving from ``old`` to ``new`` at ``start``."""
     return {p: bench.data(p, old[p], new[p], start, slew)[0] for p in new}
 
@@ -387,7 +389,8 @@ def _arc_check(
     usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
     the simulations and seconds the check cost beyond it."""
     cell = config.cell(point.cell)
-    key = (deck.key, cell.grid, config.thresholds, config.simulation, arc_of(point))
+    settings = (config.thresholds, config.simulation, config.input_shape)
+    key = (deck.key, cell.grid, *settings, arc_of(point))
     sample = _sample(config, point)
     if key in _ARCS:
         return _ARCS[key], None, 0, 0.0
@@ -486,12 +489,10 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
     moves = {p: bench.data(p, old[p], new[p], change, min(cell.grid.slew)) for p in new}
     waves = {p: vector for p, (vector, _, _) in moves.items()}
     waves[flop.clock] = clock
-    back = stimulus.ramp(
-        point.slew, "fall" if flop.edge == "rise" else "rise", bench.thr, bench.vdd
-    )
+    back = bench.ramp(point.slew, "fall" if flop.edge == "rise" else "rise")
     windows = (
         *((p, go, event.start) for p, (_, go, _) in moves.items() if new[p] != old[p]),
-        (flop.clock, Ramp(back.edge, event.start - bench.half, back.duration, bench.vdd), change),
+        (flop.clock, back.moved(event.start - bench.half), change),
         (flop.clock, event, None),
     )
     return waves, event, windows
@@ -504,22 +505,21 @@ def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
     (its currents have died down and stay out of the event's energy window) the control is
     asserted again: the measured event. Charge windows: the release until the clock edge, the
     assertion until the run's end."""
-    cell, flop, thr, vdd = bench.cell, bench.cell.flip_flop, bench.thr, bench.vdd
-    waves = {
+    cell, flop = bench.cell, bench.cell.flip_flop
+    waves: dict[str, Wave] = {
         p: stimulus.constant(bench.level(v)) for p, v in capture_values(cell, not stored).items()
     }
     clock, first = bench.clock(min(cell.grid.slew), edges=1, start=bench.lead + bench.half)
     waves[flop.clock] = clock
     release = "fall" if point.input_edge == "rise" else "rise"
-    up = stimulus.ramp(point.slew, release, thr, vdd)
-    event = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
-    event = Ramp(event.edge, first.end + 1.5 * bench.half, event.duration, vdd)
+    up = bench.ramp(point.slew, release)
+    event = bench.ramp(point.slew, point.input_edge).moved(first.end + 1.5 * bench.half)
     held = event.start - bench.lead - up.duration
-    waves[point.related] = stimulus.pulse_vector(
+    waves[point.related] = bench.pulse(
         *up.levels, bench.lead, up.duration, event.duration, held, 1.0
     )
     windows = (
-        (point.related, Ramp(release, bench.lead, up.duration, vdd), first.start),
+        (point.related, up.moved(bench.lead), first.start),
         (point.related, event, None),
     )
     return waves, event, windows
@@ -796,10 +796,7 @@ def _constraint_setup(
 
     relaxed = bench.half / 2
     if point.kind == "setup":
-        lo = -(
-            stimulus.ramp(point.data_slew, point.data_edge, config.thresholds, bench.vdd).duration
-            + event.duration
-        )
+        lo = -(bench.ramp(point.data_slew, point.data_edge).duration + event.duration)
     else:
         lo = -relaxed / 2
     return measure, lo, relaxed, trials
@@ -869,15 +866,26 @@ class _Pulse:
     second: Ramp  # comes back
     along_in: float  # fraction of the swing the first edge has made at its threshold
     along_out: float  # the same for the second edge
+    # The library's input shape; a runt pulse of a shaped edge is the edge scaled to its depth
+    # (the depth itself from the times at the thresholds, as for the ramp).
+    shape: InputShape | None = None
 
     @classmethod
-    def at(cls, slew: float, level: str, thr: Thresholds, vdd: float) -> _Pulse:
-        up, down = stimulus.ramp(slew, "rise", thr, vdd), stimulus.ramp(slew, "fall", thr, vdd)
+    def at(
+        cls,
+        slew: float,
+        level: str,
+        thr: Thresholds,
+        vdd: float,
+        shape: InputShape | None = None,
+    ) -> _Pulse:
+        up = stimulus.ramp(slew, "rise", thr, vdd, shape)
+        down = stimulus.ramp(slew, "fall", thr, vdd, shape)
         first, second = (up, down) if level == "high" else (down, up)
         along = [
             (r.time_at(thr.delay_input(r.edge)) - r.start) / r.duration for r in (first, second)
         ]
-        return cls(first, second, *along)
+        return cls(first, second, along[0], along[1], shape)
 
     @property
     def narrowest(self) -> float:
@@ -902,12 +910,14 @@ class _Pulse:
         d1, d2 = self.first.duration, self.second.duration
         return (width + self.along_in * d1 + (1.0 - self.along_out) * d2) / (d1 + d2)
 
-    def vector(self, start: float, width: float) -> tuple[str, float]:
+    def vector(self, start: float, width: float) -> tuple[Wave, float]:
         """The PULSE vector of a pulse ``width`` wide starting at ``start``, and its end."""
         depth, flat = self.depth(width), self.flat(width)
         v1, v2 = self.first.levels
         rise, fall = depth * self.first.duration, depth * self.second.duration
-        vector = stimulus.pulse_vector(v1, v1 + depth * (v2 - v1), start, rise, fall, flat, 1.0)
+        vector = stimulus.pulse_vector(
+            v1, v1 + depth * (v2 - v1), start, rise, fall, flat, 1.0, shape=self.shape
+        )
         return vector, start + rise + flat + fall
 
 
@@ -921,7 +931,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     width found is re-checked at tightened settings like a constraint (``_confirm_pulse``)."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
-    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
@@ -1059,7 +1069,7 @@ def _control_pulse_test(
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
         waves[point.pin], end = shape.vector(start, width)
-        event = Ramp(shape.first.edge, start, shape.first.duration, bench.vdd)
+        event = shape.first.moved(start)
         outcome = trials(
             waves,
             loads,
@@ -1138,7 +1148,7 @@ def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     simulated first."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
-    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
+    shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)
     test = _clock_pulse_test if point.pin == cell.flip_flop.clock else _control_pulse_test
     measure, relaxed = test(bench, point, shape, _Trials(config, deck), tight=True)
     passes = _passing(measure)

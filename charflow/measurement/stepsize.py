@@ -57,7 +57,8 @@ class EdgeModel:
 
 def plain_step(config: LibraryConfig, point: TimingPoint) -> float:
     """The step the input ramp alone suggests; the reference rule, and the fallback."""
-    ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, config.process.vdd)
+    thr, vdd, shape = config.thresholds, config.process.vdd, config.input_shape
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd, shape)
     return ramp.duration / RAMP_SAMPLES
 
 
@@ -67,7 +68,8 @@ def step_for(config: LibraryConfig, model: EdgeModel | None, point: TimingPoint)
     if model is None:
         return plain_step(config, point)
     thr = config.thresholds
-    ramp = stimulus.ramp(point.slew, point.input_edge, thr, config.process.vdd).duration
+    shape = config.input_shape
+    ramp = stimulus.ramp(point.slew, point.input_edge, thr, config.process.vdd, shape).duration
     # The estimate is in raw (underated) seconds, as the simulator sees the edge.
     return model.transition(ramp, point.load) / config.simulation.samples_per_edge
 

@@ -16,6 +16,7 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    ShapePoint,
     TightPoint,
     TimingPoint,
     TogglePoint,
@@ -171,6 +172,17 @@ class TightMeasurement:
         return shrinking + self.reltol * abs(tightened)
 
 
+@dataclass(frozen=True, slots=True)
+class ShapeResult:
+    """The driver's output edges, normalised (``config.shapes``): (τ, fraction of the swing)."""
+
+    point: ShapePoint
+    rise: tuple[tuple[float, float], ...]
+    fall: tuple[tuple[float, float], ...]
+    runs: int
+    sim_seconds: float
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
 Outcome = (
     Measurement
@@ -179,5 +191,6 @@ Outcome = (
     | LeakageResult
     | FunctionChecked
     | TightMeasurement
+    | ShapeResult
     | Failure
 )

@@ -384,9 +384,51 @@ class TightPoint:
         return {**self.base.where(units), "check": "tightened settings"}
 
 
+# Runs of the driver stage: each input edge simulated coarse and then fine.
+SHAPE_RUNS = 4
+
+
+@dataclass(frozen=True, slots=True)
+class ShapePoint:
+    """The driver stage: the library's driver chain simulated once per run, its output edges
+    normalised into the input shape every other point uses. ``cell`` is the chain's last
+    cell; its testbench is the chain's (``netlist.build_chain_deck``)."""
+
+    cell: str
+    chain: tuple[str, ...]  # the driver's cells, first to last
+    slew: float  # s, the linear ramp into the first cell
+
+    AXES: ClassVar[tuple[str, ...]] = ()
+    FILLABLE: ClassVar[bool] = False
+
+    @property
+    def series(self) -> tuple[object, ...]:
+        return ("shape", self.chain)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return ()
+
+    @property
+    def label(self) -> str:
+        return f"input shape from driver {' > '.join(self.chain)}, slew {self.slew:.4g} s"
+
+    @property
+    def cost(self) -> int:
+        return SHAPE_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        slew = show_time(self.slew, units.time_unit)
+        return {
+            "key": "input_shape.driver",
+            "cell": self.cell,
+            "point": f"driver {' > '.join(self.chain)}, input slew {slew}",
+        }
+
+
 # The points of a plan's tables; with the toggles, all the work a sweep hands to workers.
 Point = TimingPoint | ConstraintPoint | PulsePoint
-Work = Point | TogglePoint | LeakagePoint | FunctionPoint | TightPoint
+Work = Point | TogglePoint | LeakagePoint | FunctionPoint | TightPoint | ShapePoint
 
 
 @dataclass(frozen=True, slots=True)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import functools
 import hashlib
+import itertools
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,6 +20,7 @@ import jinja2
 
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.config.resources import TEMPLATE_DIR
+from charflow.config.shapes import InputShape
 from charflow.records.errors import NetlistError
 
 TESTBENCH = "testbench.sp.j2"
@@ -263,3 +265,118 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     )
     key = hashlib.sha256(f"{process.compat}\n{text}".encode()).hexdigest()
     return Deck(cell.name, text, key, "vsupply", process.compat, cell.source, cell_text)
+
+
+# The driver chain's testbench (``build_chain_deck``): its input source and its output node.
+CHAIN_SOURCE = "vin_drv"
+CHAIN_OUTPUT = "cf_drv_out"
+
+
+@dataclass(frozen=True, slots=True)
+class Stage:
+    """One cell of the driver chain or of its load: the input it is driven on, the output it
+    drives, the other inputs held where that output follows the input."""
+
+    cell: CellSpec
+    pin: str
+    output: str
+    side: tuple[tuple[str, bool], ...]
+    inverting: bool
+
+
+def sensitized(cell: CellSpec, pin: str) -> Stage:
+    """The cell driven on ``pin``: its first output that depends on it, under the first side
+    assignment (in counting order) that makes it do so."""
+    others = [p for p in cell.inputs if p != pin]
+    for o in cell.outputs:
+        for bits in itertools.product((False, True), repeat=len(others)):
+            side = dict(zip(others, bits, strict=True))
+            low = o.function.evaluate({**side, pin: False})
+            if low != o.function.evaluate({**side, pin: True}):
+                return Stage(cell, pin, o.pin, tuple(side.items()), inverting=low)
+    raise NetlistError(
+        f"no output of the cell follows input {pin}: it cannot drive or load the driver chain",
+        cell=cell.name,
+        pin=pin,
+        key="input_shape",
+    )
+
+
+def chain_stages(config: LibraryConfig, shape: InputShape) -> tuple[Stage, ...]:
+    """The driver chain of ``[input_shape]``, each cell driven on its first input."""
+    return tuple(sensitized(config.cell(n), config.cell(n).inputs[0]) for n in shape.driver)
+
+
+def build_chain_deck(config: LibraryConfig, shape: InputShape) -> Deck:
+    """The testbench of the driver chain: a PULSE source into the first cell, each cell's
+    output into the next, the last one's into ``fanout`` copies of ``fanout_pin`` and the
+    wire load; side inputs tied to the rails that sensitize them. Named after the last cell."""
+    stages = chain_stages(config, shape)
+    loads: tuple[Stage, ...] = ()
+    if shape.fanout_pin is not None:
+        name, _, pin = shape.fanout_pin.partition(".")
+        loads = (sensitized(config.cell(name), pin),) * shape.fanout
+    cells = {s.cell.name: s.cell for s in (*stages, *loads)}
+    texts = {n: render_cell(c) for n, c in cells.items()}
+    subs = {n: find_subckt(texts[n], n, source=c.source) for n, c in cells.items()}
+    nodes = [f"cf_drv_{i}" for i in range(len(stages))] + [CHAIN_OUTPUT]
+    lines: list[str] = []
+    biases: dict[str, float] = {}
+    placed = [(s, nodes[i], nodes[i + 1], f"xs{i}") for i, s in enumerate(stages)]
+    placed += [(s, CHAIN_OUTPUT, f"cf_ld_{i}", f"xl{i}") for i, s in enumerate(loads)]
+    for stage, node_in, node_out, instance in placed:
+        ports = _stage_ports(stage, node_in, node_out, instance, biases)
+        lines.append(
+            f"{instance} {' '.join(ports[p.upper()] for p in subs[stage.cell.name].ports)} "
+            f"{subs[stage.cell.name].name}"
+        )
+    load = max(shape.load, PARKED_LOAD)
+    text = "\n".join(
+        [
+            f"* charflow driver chain {' > '.join(shape.driver)}",
+            *_header(config),
+            *(texts[n].rstrip("\n") for n in cells),
+            f"vsupply cf_vdd 0 dc {config.process.vdd}",
+            *(f"v{kind} {Deck.body_node(kind)} 0 dc {v}" for kind, v in biases.items()),
+            f"{CHAIN_SOURCE} {nodes[0]} 0 pulse(0 0 0 1e-12 1e-12 1 2)",
+            *lines,
+            f"cload_drv {CHAIN_OUTPUT} 0 {load!r}",
+            ".end",
+            "",
+        ]
+    )
+    key = hashlib.sha256(f"{config.process.compat}\n{text}".encode()).hexdigest()
+    last = stages[-1].cell
+    return Deck(
+        last.name, text, key, "vsupply", config.process.compat, last.source, texts[last.name]
+    )
+
+
+def _stage_ports(
+    stage: Stage, node_in: str, node_out: str, instance: str, biases: dict[str, float]
+) -> dict[str, str]:
+    """Each port of a stage's cell (upper case) to its node in the chain."""
+    cell = stage.cell
+    ports = {cell.power.upper(): "cf_vdd", cell.ground.upper(): "0"}
+    for b in cell.body:
+        if b.voltage is not None:
+            biases.setdefault(b.kind, b.voltage)
+        ports[b.pin.upper()] = _TIED[b.kind] if b.voltage is None else Deck.body_node(b.kind)
+    ports.update({p.upper(): "cf_vdd" if v else "0" for p, v in stage.side})
+    ports[stage.pin.upper()] = node_in
+    for o in cell.outputs:
+        ports[o.pin.upper()] = node_out if o.pin == stage.output else f"{instance}_{o.pin}"
+    return ports
+
+
+def _header(config: LibraryConfig) -> list[str]:
+    """The model, option and temperature lines a testbench starts with."""
+    process = config.process
+    lines = [
+        f'.lib "{m.path}" {m.section}' if m.section else f'.include "{m.path}"'
+        for m in process.models
+    ]
+    if process.scale:
+        lines.append(f".option scale={process.scale}")
+    lines += [f".option {name}={value}" for name, value in process.options]
+    return [*lines, f".temp {process.temperature}"]
