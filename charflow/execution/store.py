@@ -20,6 +20,7 @@ import dataclasses
 import functools
 import hashlib
 import json
+import os
 import sqlite3
 import types
 import typing
@@ -42,7 +43,7 @@ from charflow.records.outcomes import (
     ToggleMeasurement,
 )
 from charflow.records.points import Work
-from charflow.simulation.netlist import Deck, model_files
+from charflow.simulation.netlist import Deck, model_files, repoint_reads
 
 FILE_NAME = "store.sqlite"
 # What a row holds: any outcome but a Failure.
@@ -65,7 +66,7 @@ CREATE TABLE IF NOT EXISTS point (
     library TEXT NOT NULL,
     cell TEXT NOT NULL,
     label TEXT NOT NULL,        -- the point in words, for people reading the database
-    models TEXT NOT NULL,       -- JSON [[path, sha256], ...] of the model files read
+    models TEXT NOT NULL,       -- JSON [[name, sha256], ...] of the model files read
     record TEXT NOT NULL,       -- the result's record type: Measurement, SearchResult
     result TEXT NOT NULL        -- JSON of the record's fields but its point
 );
@@ -79,7 +80,8 @@ class CellInputs:
     """What a cell's results depend on, apart from the point."""
 
     digest: str  # hash of the testbench, models, simulator and settings together
-    models: tuple[tuple[str, str | None], ...]  # (path, sha256) of every model file read
+    # (name relative to the config's folder, sha256) of every model file read
+    models: tuple[tuple[str, str | None], ...]
 
 
 @dataclass(frozen=True, slots=True)
@@ -110,9 +112,16 @@ class Stale:
         return "the testbench or the settings changed"
 
 
-def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
-    """Keys for the points of ``decks``' cells, from the files and settings as they are now."""
-    simulator = provenance.simulator(config)  # asked once per process
+def keyring(
+    config: LibraryConfig, decks: Mapping[str, Deck], scheduler: str | None = None
+) -> Keyring:
+    """Keys for the points of ``decks``' cells, from the files and settings as they are now.
+
+    A key holds no path: the testbench enters with each file it reads named relative to the
+    config's folder, and the files by content, so the same library in another folder, or run
+    on a cluster (``scheduler``), meets the same rows.
+    """
+    simulator = provenance.simulator(config, scheduler=scheduler)  # asked once per process
     sim = dataclasses.asdict(config.simulation)
     del sim["timeout"]  # how long a run may take does not change what it measures
     settings = {
@@ -130,11 +139,18 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         for path in files:
             if path not in digests:
                 digests[path] = file_digest(path)
-        models = tuple((str(p), digests[p]) for p in files)
+        names = {p: Path(os.path.relpath(p, config.path.parent)).as_posix() for p in files}
+        models = tuple((names[p], digests[p]) for p in files)
+        testbench = _hash([deck.compat, _named(deck.text, names)])
         context = _cell_context(config, name)
-        digest = _hash([deck.key, models, simulator.key, settings, context])
+        digest = _hash([testbench, models, simulator.key, settings, context])
         cells[name] = CellInputs(digest, models)
     return Keyring(config.name, cells)
+
+
+def _named(text: str, names: Mapping[Path, str]) -> str:
+    """``text`` with each file it reads given by its name in ``names`` (its path otherwise)."""
+    return repoint_reads(text, Path.cwd(), lambda _, path: names.get(path))
 
 
 def _cell_context(config: LibraryConfig, name: str) -> object:

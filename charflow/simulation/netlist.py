@@ -12,6 +12,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -145,6 +146,24 @@ def model_files(text: str, base: Path) -> tuple[Path, ...]:
             except OSError:
                 continue  # a missing file is a simulator error, reported when the deck runs
     return tuple(found)
+
+
+def repoint_reads(text: str, base: Path, to: Callable[[str, Path], str | None]) -> str:
+    """``text`` with the file name of each ``.include`` / ``.lib`` read replaced by ``to(name,
+    path)`` (the name as written, the file it names from ``base``, as ``model_files`` reads it);
+    a read for which ``to`` gives None is left as it is."""
+
+    def swap(match: re.Match[str]) -> str:
+        group = "inc" if match.group("inc") is not None else "lib"
+        name = match.group(group).strip("\"'")
+        new = to(name, (base / name).resolve())
+        if new is None:
+            return match.group(0)
+        start, end = match.start(group) - match.start(), match.end(group) - match.start()
+        whole = match.group(0)
+        return f'{whole[:start]}"{new}"{whole[end:]}'
+
+    return _READS.sub(swap, text)
 
 
 def render_cell(cell: CellSpec) -> str:
