@@ -69,7 +69,7 @@ def test_a_changed_file_is_a_new_folder_and_a_new_deck_key(tmp_path):
 
 def test_repoint_reads_changes_only_the_file_names_of_reads():
     text = ".include 'a.inc'\n.lib b.lib ff\n.lib ff\n* .include c.inc\n.endl ff\n"
-    moved = repoint_reads(text, Path("/base"), lambda name, path: f"/new/{name}")
+    moved = repoint_reads(text, lambda name: f"/new/{name}")
     assert (
         moved
         == '.include "/new/a.inc"\n.lib "/new/b.lib" ff\n.lib ff\n* .include c.inc\n.endl ff\n'

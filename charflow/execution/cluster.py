@@ -115,6 +115,15 @@ def simulator_banner(address: str, config: LibraryConfig) -> str:
     starts the one its runs use); an error names a worker that has none, or a cluster whose
     workers run different versions, whose results would differ from worker to worker."""
     with _connect(address) as client:
+        try:
+            # Python, Dask and the packages behind the numbers, alike on this machine and each
+            # worker (the scheduler's table names what differs where).
+            client.get_versions(check=True, packages=["charflow", "PySpice", "numpy", "scipy"])
+        except ValueError as exc:
+            raise ClusterError(
+                f"the Dask cluster at {address} runs other versions than this machine: {exc}"
+                f"; {INSTALL}"
+            ) from exc
         workers = sorted(client.scheduler_info(n_workers=-1)["workers"])
         if not workers:
             raise ClusterError(

@@ -92,13 +92,13 @@ def unpack(parcel: Parcel, folder: Path) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     partial = Path(tempfile.mkdtemp(prefix=f".{parcel.tree[:16]}-", dir=folder))
     local = _local_paths(parcel, target)
-    for (origin, name), (_, digest) in zip(parcel.origins, parcel.files, strict=True):
+    for name, digest in parcel.files:
         data = parcel.blobs[digest]
         dest = partial / name
         dest.parent.mkdir(parents=True, exist_ok=True)
         # Latin-1 maps every byte to one character and back: the bytes are kept exactly.
         text = data.decode("latin-1")
-        moved = repoint_reads(text, Path(origin).parent, _absolute_only(local))
+        moved = repoint_reads(text, _absolute_only(local))
         dest.write_bytes(moved.encode("latin-1") if moved != text else data)
     try:
         partial.rename(target)
@@ -113,10 +113,11 @@ def localize(deck: Deck, parcel: Parcel, target: Path) -> Deck:
     again."""
     local = _local_paths(parcel, target)
 
-    def to(name: str, path: Path) -> str | None:
+    def to(name: str) -> str | None:
+        path = (Path(parcel.base) / name).resolve()
         return str(local[path]) if path in local else None
 
-    text = repoint_reads(deck.text, Path(parcel.base), to)
+    text = repoint_reads(deck.text, to)
     key = hashlib.sha256(f"{deck.key}\n{parcel.tree}".encode()).hexdigest()
     return dataclasses.replace(deck, text=text, key=key)
 
@@ -125,8 +126,11 @@ def _local_paths(parcel: Parcel, target: Path) -> dict[Path, Path]:
     return {Path(origin): target / name for origin, name in parcel.origins}
 
 
-def _absolute_only(local: dict[Path, Path]) -> Callable[[str, Path], str | None]:
-    def to(name: str, path: Path) -> str | None:
-        return str(local[path]) if Path(name).is_absolute() and path in local else None
+def _absolute_only(local: dict[Path, Path]) -> Callable[[str], str | None]:
+    def to(name: str) -> str | None:
+        if not Path(name).is_absolute():
+            return None  # a relative read finds the copy beside its own
+        path = Path(name).resolve()
+        return str(local[path]) if path in local else None
 
     return to

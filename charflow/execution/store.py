@@ -133,24 +133,33 @@ def keyring(
         "records": {n: [f.name for f in dataclasses.fields(c)] for n, c in RECORDS.items()},
     }
     digests: dict[Path, str | None] = {}
+    names: dict[Path, str] = {}  # each file's name relative to the config's folder
+    written: dict[str, str | None] = {}  # the same by the name a deck gives it
     cells = {}
     for name, deck in decks.items():
         files = model_files(deck.text, Path.cwd())
         for path in files:
             if path not in digests:
                 digests[path] = file_digest(path)
-        names = {p: Path(os.path.relpath(p, config.path.parent)).as_posix() for p in files}
+                names[path] = Path(os.path.relpath(path, config.path.parent)).as_posix()
         models = tuple((names[p], digests[p]) for p in files)
-        testbench = _hash([deck.compat, _named(deck.text, names)])
+        testbench = _hash([deck.compat, _named(deck.text, names, written)])
         context = _cell_context(config, name)
         digest = _hash([testbench, models, simulator.key, settings, context])
         cells[name] = CellInputs(digest, models)
     return Keyring(config.name, cells)
 
 
-def _named(text: str, names: Mapping[Path, str]) -> str:
-    """``text`` with each file it reads given by its name in ``names`` (its path otherwise)."""
-    return repoint_reads(text, Path.cwd(), lambda _, path: names.get(path))
+def _named(text: str, names: Mapping[Path, str], written: dict[str, str | None]) -> str:
+    """``text`` with each file it reads given by its name in ``names`` (its path otherwise);
+    ``written`` keeps what each name as written resolved to, for the next deck."""
+
+    def to(name: str) -> str | None:
+        if name not in written:
+            written[name] = names.get((Path.cwd() / name).resolve())
+        return written[name]
+
+    return repoint_reads(text, to)
 
 
 def _cell_context(config: LibraryConfig, name: str) -> object:

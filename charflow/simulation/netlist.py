@@ -148,15 +148,14 @@ def model_files(text: str, base: Path) -> tuple[Path, ...]:
     return tuple(found)
 
 
-def repoint_reads(text: str, base: Path, to: Callable[[str, Path], str | None]) -> str:
-    """``text`` with the file name of each ``.include`` / ``.lib`` read replaced by ``to(name,
-    path)`` (the name as written, the file it names from ``base``, as ``model_files`` reads it);
-    a read for which ``to`` gives None is left as it is."""
+def repoint_reads(text: str, to: Callable[[str], str | None]) -> str:
+    """``text`` with the file name of each ``.include`` / ``.lib`` read replaced by ``to(name)``
+    (``name`` as written, quotes taken off); a read for which ``to`` gives None is left as it
+    is."""
 
     def swap(match: re.Match[str]) -> str:
         group = "inc" if match.group("inc") is not None else "lib"
-        name = match.group(group).strip("\"'")
-        new = to(name, (base / name).resolve())
+        new = to(match.group(group).strip("\"'"))
         if new is None:
             return match.group(0)
         start, end = match.start(group) - match.start(), match.end(group) - match.start()
