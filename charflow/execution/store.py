@@ -304,7 +304,7 @@ class Store:
 def _why(point: Work, stored: list, current: tuple[tuple[str, str | None], ...]) -> Stale:
     then = {path: digest for path, digest in stored}
     now = dict(current)
-    changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
+    changed = sorted({Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p)})
     return Stale(point, tuple(changed))
 
 
