@@ -234,3 +234,21 @@ def test_an_unreachable_scheduler_names_its_address_and_what_to_change(tmp_path,
     message = str(caught.value)
     assert f"cannot reach the Dask scheduler at {address}" in message
     assert "dask scheduler" in message and "--scheduler" in message
+
+
+def test_workers_with_other_versions_are_named():
+    # Client.get_versions' layout (distributed.versions); a micro release of Python may differ.
+    here = {n: "1.0" for n in cluster_module.ALIKE} | {"python": "3.11.7.final.0", "pandas": "2"}
+    same = here | {"python": "3.11.2.final.0", "pandas": None}  # pandas is no concern of ours
+    other = here | {"python": "3.12.1.final.0", "numpy": "0.9"}
+    versions = {
+        "client": {"packages": here},
+        "workers": {
+            "tcp://10.0.0.2:1": {"packages": same},
+            "tcp://10.0.0.3:1": {"packages": other},
+        },
+    }
+    assert cluster_module._differences(versions) == [
+        "worker tcp://10.0.0.3:1 has python 3.12, this machine 3.11",
+        "worker tcp://10.0.0.3:1 has numpy 0.9, this machine 1.0",
+    ]

@@ -40,6 +40,10 @@ INSTALL = (
     "and the driver's Python version"
 )
 
+# Packages whose versions must be alike on the driver and every worker: Dask's own (it sends
+# charflow's tasks between them) and those behind the numbers.
+ALIKE = ("dask", "distributed", "cloudpickle", "charflow", "PySpice", "numpy", "scipy")
+
 # One simulator per process: worker threads of one process must not drive it at once.
 _SIMULATOR = threading.Lock()
 
@@ -110,20 +114,33 @@ def _connect(address: str) -> Iterator[Any]:  # Any: distributed is an optional 
         yield client
 
 
+def _differences(versions: dict[str, Any]) -> list[str]:
+    """Where a worker's Python (major.minor) or one of ``ALIKE`` differs from this machine's,
+    in words; ``versions`` as ``Client.get_versions`` gives them."""
+    here = versions["client"]["packages"]
+    found = []
+    for worker, info in sorted(versions["workers"].items()):
+        there = info["packages"]
+        for name in ("python", *ALIKE):
+            mine, theirs = here.get(name), there.get(name)
+            if name == "python":
+                mine, theirs = (".".join(str(v).split(".")[:2]) for v in (mine, theirs))
+            if mine != theirs:
+                found.append(f"worker {worker} has {name} {theirs}, this machine {mine}")
+    return found
+
+
 def simulator_banner(address: str, config: LibraryConfig) -> str:
     """The version every worker of the cluster at ``address`` reports for its simulator (each
     starts the one its runs use); an error names a worker that has none, or a cluster whose
     workers run different versions, whose results would differ from worker to worker."""
     with _connect(address) as client:
-        try:
-            # Python, Dask and the packages behind the numbers, alike on this machine and each
-            # worker (the scheduler's table names what differs where).
-            client.get_versions(check=True, packages=["charflow", "PySpice", "numpy", "scipy"])
-        except ValueError as exc:
+        differ = _differences(client.get_versions(packages=list(ALIKE)))
+        if differ:
             raise ClusterError(
-                f"the Dask cluster at {address} runs other versions than this machine: {exc}"
-                f"; {INSTALL}"
-            ) from exc
+                f"the Dask cluster at {address} runs other versions than this machine: "
+                f"{'; '.join(differ)}; {INSTALL}"
+            )
         workers = sorted(client.scheduler_info(n_workers=-1)["workers"])
         if not workers:
             raise ClusterError(
