@@ -25,6 +25,7 @@ from pathlib import Path
 
 from charflow import __version__
 from charflow.config.library import LibraryConfig, Simulation, Thresholds
+from charflow.execution.cluster import simulator_banner
 from charflow.execution.workers import default_jobs
 from charflow.measurement.combinational import backend_for
 from charflow.records.errors import SimulatorError
@@ -103,18 +104,26 @@ class Provenance:
     scale: float | None  # .option scale
 
 
-_ASKED: dict[tuple[str, str | None], str] = {}  # banners met in this process, by program
+# Banners met in this process, by backend and program (the ngspice executable, or the Dask
+# scheduler whose workers run the simulator).
+_ASKED: dict[tuple[str, str | None], str] = {}
 
 
-def simulator(config: LibraryConfig, jobs: int | None = None) -> Simulator:
+def simulator(
+    config: LibraryConfig, jobs: int | None = None, scheduler: str | None = None
+) -> Simulator:
     """The simulator the runs of ``config`` use, with its version (see the module's note); a
-    worker pool of ``jobs`` processes (the sweep's) answers for the shared backend. Asked once
-    per process and program."""
+    worker pool of ``jobs`` processes (the sweep's) answers for the shared backend, and every
+    worker of the Dask cluster at ``scheduler`` for a run there. Asked once per process and
+    program."""
     sim = config.simulation
     # The executable is looked up as the subprocess backend does: PATH may change.
-    program = (sim.backend, shutil.which("ngspice") if sim.backend == "subprocess" else None)
+    where = shutil.which("ngspice") if sim.backend == "subprocess" else None
+    program = (sim.backend, scheduler or where)
     if program not in _ASKED:
-        if sim.backend == "subprocess":
+        if scheduler is not None:
+            _ASKED[program] = simulator_banner(scheduler, config)
+        elif sim.backend == "subprocess":
             _ASKED[program] = make_backend(sim.backend, sim.timeout).version()
         else:
             _ASKED[program] = _ask_a_worker(config, jobs or default_jobs())

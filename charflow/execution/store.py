@@ -20,6 +20,7 @@ import dataclasses
 import functools
 import hashlib
 import json
+import os
 import sqlite3
 import types
 import typing
@@ -44,7 +45,7 @@ from charflow.records.outcomes import (
     ToggleMeasurement,
 )
 from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, Work
-from charflow.simulation.netlist import Deck, model_files
+from charflow.simulation.netlist import Deck, model_files, repoint_reads
 
 FILE_NAME = "store.sqlite"
 # What a row holds: any outcome but a Failure.
@@ -83,7 +84,7 @@ CREATE TABLE IF NOT EXISTS point (
     library TEXT NOT NULL,
     cell TEXT NOT NULL,
     label TEXT NOT NULL,        -- the point in words, for people reading the database
-    models TEXT NOT NULL,       -- JSON [[path, sha256], ...] of the model files read
+    models TEXT NOT NULL,       -- JSON [[name, sha256], ...] of the model files read
     record TEXT NOT NULL,       -- the result's record type: Measurement, SearchResult
     result TEXT NOT NULL        -- JSON of the record's fields but its point
 );
@@ -97,7 +98,8 @@ class CellInputs:
     """What a cell's results depend on, apart from the point."""
 
     digest: str  # hash of the testbench, models, simulator and settings together
-    models: tuple[tuple[str, str | None], ...]  # (path, sha256) of every model file read
+    # (name relative to the config's folder, sha256) of every model file read
+    models: tuple[tuple[str, str | None], ...]
 
 
 @dataclass(frozen=True, slots=True)
@@ -128,9 +130,16 @@ class Stale:
         return "the testbench or the settings changed"
 
 
-def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
-    """Keys for the points of ``decks``' cells, from the files and settings as they are now."""
-    simulator = provenance.simulator(config)  # asked once per process
+def keyring(
+    config: LibraryConfig, decks: Mapping[str, Deck], scheduler: str | None = None
+) -> Keyring:
+    """Keys for the points of ``decks``' cells, from the files and settings as they are now.
+
+    A key holds no path: the testbench enters with each file it reads named relative to the
+    config's folder, and the files by content, so the same library in another folder, or run
+    on a cluster (``scheduler``), meets the same rows.
+    """
+    simulator = provenance.simulator(config, scheduler=scheduler)  # asked once per process
     sim = dataclasses.asdict(config.simulation)
     del sim["timeout"]  # how long a run may take does not change what it measures
     settings = {
@@ -148,17 +157,33 @@ def keyring(config: LibraryConfig, decks: Mapping[str, Deck]) -> Keyring:
         # Every input's waveform: results of one shape never serve another (nor the ramp).
         settings["input_shape"] = [shape.kind, _plain(shape.rise), _plain(shape.fall)]
     digests: dict[Path, str | None] = {}
+    names: dict[Path, str] = {}  # each file's name relative to the config's folder
+    written: dict[str, str | None] = {}  # the same by the name a deck gives it
     cells = {}
     for name, deck in decks.items():
         files = model_files(deck.text, Path.cwd())
         for path in files:
             if path not in digests:
                 digests[path] = file_digest(path)
-        models = tuple((str(p), digests[p]) for p in files)
+                names[path] = Path(os.path.relpath(path, config.path.parent)).as_posix()
+        models = tuple((names[p], digests[p]) for p in files)
+        testbench = _hash([deck.compat, _named(deck.text, names, written)])
         context = _cell_context(config, name)
-        digest = _hash([deck.key, models, simulator.key, settings, context])
+        digest = _hash([testbench, models, simulator.key, settings, context])
         cells[name] = CellInputs(digest, models)
     return Keyring(config.name, cells)
+
+
+def _named(text: str, names: Mapping[Path, str], written: dict[str, str | None]) -> str:
+    """``text`` with each file it reads given by its name in ``names`` (its path otherwise);
+    ``written`` keeps what each name as written resolved to, for the next deck."""
+
+    def to(name: str) -> str | None:
+        if name not in written:
+            written[name] = names.get((Path.cwd() / name).resolve())
+        return written[name]
+
+    return repoint_reads(text, to)
 
 
 def _cell_context(config: LibraryConfig, name: str) -> object:
@@ -303,7 +328,7 @@ class Store:
 def _why(point: Work, stored: list, current: tuple[tuple[str, str | None], ...]) -> Stale:
     then = {path: digest for path, digest in stored}
     now = dict(current)
-    changed = sorted(Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p))
+    changed = sorted({Path(p).name for p in then.keys() | now.keys() if then.get(p) != now.get(p)})
     return Stale(point, tuple(changed))
 
 

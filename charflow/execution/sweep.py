@@ -81,7 +81,7 @@ def run(
     plausible.announce(config, built)
     ring = None
     if store is not None:
-        ring = keyring(config, built)
+        ring = keyring(config, built, scheduler)
         found = store.lookup(ring, points)
         if on_stored is not None:
             on_stored(tuple(found.values()))

@@ -325,7 +325,7 @@ def characterize(
         gaps.check_method(allow_gaps)  # before the sweep, not after it
     # Before the sweep: the version is asked of the sweep's worker pool, and the store's keys
     # hold it.
-    made_by = provenance.build(config, provenance.simulator(config, jobs))
+    made_by = provenance.build(config, provenance.simulator(config, jobs, scheduler))
     config = shaped(config, store=store, jobs=jobs, scheduler=scheduler)
     chosen, toggle_points, names, work = _work(config, cells, arc)
     decks = {n: build_deck(config, config.cell(n)) for n in names}
@@ -347,7 +347,7 @@ def characterize(
     whole, others = chosen, toggle_points
     stale: dict[Work, Stale] = {}
     if store is not None and cells is not None:
-        whole, others, stale = _the_rest(config, store, work, decks, got)
+        whole, others, stale = _the_rest(config, store, work, decks, got, scheduler)
     the_plan, left_out = _complete(whole, got)
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
@@ -405,6 +405,7 @@ def _the_rest(
     done: tuple[Work, ...],
     decks: dict[str, Deck],
     got: _Collected,
+    scheduler: str | None,
 ) -> tuple[Plan, tuple[TogglePoint, ...], dict[Work, Stale]]:
     """The whole library's plan and toggles, with the points this run did not simulate taken
     from the store (``got`` keeps them; the newest row of a slot whose inputs changed is
@@ -417,7 +418,7 @@ def _the_rest(
     rest = [p for p in (*whole.points, *toggles, *leakage, *bars) if p not in picked]
     for c in {p.cell for p in rest} - set(decks):
         decks[c] = build_deck(config, config.cell(c))
-    found, stale = store.latest(keyring(config, decks), rest)
+    found, stale = store.latest(keyring(config, decks, scheduler), rest)
     for m in found.values():
         got.keep(m)
     got.reused.update(found)

@@ -13,6 +13,7 @@ import functools
 import hashlib
 import itertools
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -147,6 +148,23 @@ def model_files(text: str, base: Path) -> tuple[Path, ...]:
             except OSError:
                 continue  # a missing file is a simulator error, reported when the deck runs
     return tuple(found)
+
+
+def repoint_reads(text: str, to: Callable[[str], str | None]) -> str:
+    """``text`` with the file name of each ``.include`` / ``.lib`` read replaced by ``to(name)``
+    (``name`` as written, quotes taken off); a read for which ``to`` gives None is left as it
+    is."""
+
+    def swap(match: re.Match[str]) -> str:
+        group = "inc" if match.group("inc") is not None else "lib"
+        new = to(match.group(group).strip("\"'"))
+        if new is None:
+            return match.group(0)
+        start, end = match.start(group) - match.start(), match.end(group) - match.start()
+        whole = match.group(0)
+        return f'{whole[:start]}"{new}"{whole[end:]}'
+
+    return _READS.sub(swap, text)
 
 
 def render_cell(cell: CellSpec) -> str:
