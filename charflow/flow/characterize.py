@@ -50,6 +50,7 @@ from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
     LeakagePoint,
+    PathPoint,
     Plan,
     PulsePoint,
     State,
@@ -131,7 +132,7 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
     if isinstance(p, LeakagePoint):
         return [f"{p.cell} leakage"]
-    if isinstance(p, FunctionPoint):
+    if isinstance(p, FunctionPoint | PathPoint):
         return []
     if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]
