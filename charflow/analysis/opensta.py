@@ -54,7 +54,10 @@ def script(
     wire, port = loads
     t, c = config.time_scale, config.cap_scale
     lines = [f"read_liberty {liberty}", f"read_verilog {netlist}", f"link_design {circuit.name}"]
-    lines += [f"set_load {cap / c:.9g} [get_ports {p}]" for p, cap in port.items()]
+    # An output port's net: its wire with the port's load, one number on the port.
+    lines += [
+        f"set_load {(cap + wire.get(p, 0.0)) / c:.9g} [get_ports {p}]" for p, cap in port.items()
+    ]
     lines += [f"set_load {cap / c:.9g} [get_nets {n}]" for n, cap in wire.items() if n not in port]
     for i, slew in enumerate(slews):
         lines.append(f"set_input_transition {slew / t:.9g} [get_ports {circuit.start}]")

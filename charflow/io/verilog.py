@@ -144,7 +144,7 @@ def _instance(r: _Reader, config: LibraryConfig) -> tuple[Gate, int]:
             raise r.error(f"instance {inst}: pin {pin.text} connected twice", pin.line)
         if net:
             pins[pin.text] = net
-        if r.peek() == ",":
+        if r.peek() != ")":
             r.take(",")
     r.take(")")
     r.take(";")
