@@ -432,12 +432,12 @@ def paths_png(config: LibraryConfig, corr: paths.Correlation) -> bytes:
     if sim.size:
         span = np.array([sim.min(), sim.max()])
         ax.plot(span, span, "k-", lw=0.8, label="equal")
-        for frac in (0.01, 0.02):
-            ax.plot(span, span * (1 - frac), ":", lw=0.7, color="grey")
+        for frac in (-0.02, -0.01, 0.01, 0.02):
+            ax.plot(span, span * (1 + frac), ":", lw=0.7, color="grey")
     ax.set_xlabel(f"simulated path delay ({config.time_unit})")
     ax.set_ylabel(f"predicted path delay ({config.time_unit})")
     ax.set_title(
-        f"{config.name}: paths, predicted against simulated (dotted: -1 %, -2 %)", fontsize=9
+        f"{config.name}: paths, predicted against simulated (dotted: ±1 %, ±2 %)", fontsize=9
     )
     ax.grid(True, alpha=0.3)
     ax.legend(fontsize=8)
