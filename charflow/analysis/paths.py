@@ -44,10 +44,6 @@ SAMPLES_PER_EDGE = 40  # the maximum step: the sharpest predicted edge over this
 SINGLE, PER_EDGE = "one number", "per edge"  # how a pin's capacitance is taken
 
 
-def other(edge: str) -> str:
-    return "fall" if edge == "rise" else "rise"
-
-
 # --- the circuit: its paths and its loads -----------------------------------------------
 
 
@@ -181,6 +177,16 @@ def stage_tables(cell: CellTables, stage: Stage, output_edge: str) -> tuple[Tabl
         ) from exc
 
 
+def walk(path: Path, cells: Mapping[str, CellTables], edge: str) -> list[tuple[str, str]]:
+    """Each stage's input and output edge when ``edge`` enters the path."""
+    out = []
+    for stage in path.stages:
+        _, st = _state(cells[stage.cell], stage.pin, stage.output, dict(stage.side))
+        out.append((edge, st.output_edge(edge)))
+        edge = out[-1][1]
+    return out
+
+
 def predict(
     path: Path,
     cells: Mapping[str, CellTables],
@@ -190,11 +196,9 @@ def predict(
     mode: str = PER_EDGE,
 ) -> tuple[StageTiming, ...]:
     """The path timed from the tables, slew propagated stage by stage."""
-    out, arrival, edge_in = [], 0.0, edge
-    for stage in path.stages:
+    out, arrival = [], 0.0
+    for stage, (edge_in, edge_out) in zip(path.stages, walk(path, cells, edge), strict=True):
         cell = cells[stage.cell]
-        _, st = _state(cell, stage.pin, stage.output, dict(stage.side))
-        edge_out = st.output_edge(edge_in)
         delay_t, slew_t = stage_tables(cell, stage, edge_out)
         load = net_loads.total(stage.net_out, edge_out, cells, mode)
         at = [(slew, load)]
@@ -205,7 +209,7 @@ def predict(
         )
         arrival += d
         out.append(StageTiming(edge_in, edge_out, load, slew, d, s, arrival, inside))
-        slew, edge_in = s, edge_out
+        slew = s
     return tuple(out)
 
 
@@ -233,15 +237,16 @@ class _Circuit:
 def _replicas(
     paths: Sequence[Path], cells: Mapping[str, CellTables], net_loads: Loads, edges: Sequence[str]
 ) -> dict[tuple[str, str], Replica]:
+    """A replica of every stage for each edge that can arrive at its input, loaded with the
+    pins' capacitance of the edge it then makes (and the wire and port loads)."""
     out = {}
     for path in paths:
         for edge in edges:
-            for stage, timing in zip(
-                path.stages, predict(path, cells, net_loads, 1e-12, edge), strict=True
+            for stage, (edge_in, edge_out) in zip(
+                path.stages, walk(path, cells, edge), strict=True
             ):
-                key = (stage.gate, timing.input_edge)
-                load = net_loads.total(stage.net_out, timing.output_edge, cells, PER_EDGE)
-                out[key] = Replica(f"{stage.gate}_{timing.input_edge}", stage, load)
+                load = net_loads.total(stage.net_out, edge_out, cells, PER_EDGE)
+                out[(stage.gate, edge_in)] = Replica(f"{stage.gate}_{edge_in}", stage, load)
     return out
 
 

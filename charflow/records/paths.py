@@ -23,9 +23,6 @@ class Gate:
     cell: str
     pins: tuple[tuple[str, str], ...]  # (pin, net), outputs included
 
-    def net(self, pin: str) -> str | None:
-        return next((n for p, n in self.pins if p == pin), None)
-
 
 @dataclass(frozen=True, slots=True)
 class Circuit:
