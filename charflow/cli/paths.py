@@ -5,11 +5,21 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow.cli import shared
 from charflow.cli.shared import EXIT_FAILED_POINTS, EXIT_OK
 from charflow.records.errors import ConfigError
+
+# For the type checker only: at run time these modules load on first use (``deferred``).
+if TYPE_CHECKING:
+    from charflow.analysis.paths import Setup
+    from charflow.config.library import LibraryConfig
+    from charflow.flow.characterize import RunResult
+    from charflow.records.paths import Circuit
+    from charflow.tables.tabulate import CellTables
 
 config = shared.deferred("charflow.config.library")
 flow = shared.deferred("charflow.flow.characterize")
@@ -79,7 +89,7 @@ def _stages(text: str) -> tuple[int, int]:
         raise ConfigError(f"--stages takes LO-HI (e.g. 5-8), got {text!r}") from exc
 
 
-def _setup(cfg, args: argparse.Namespace):
+def _setup(cfg: LibraryConfig, args: argparse.Namespace) -> Setup:
     grid = cfg.grid
     slews = (
         tuple(s * cfg.time_scale for s in args.slew)
@@ -131,7 +141,16 @@ def command(args: argparse.Namespace) -> int:
         return _check(cfg, result, cells, circuits, setup, out, args)
 
 
-def _check(cfg, result, cells, circuits, setup, out: Path, args: argparse.Namespace) -> int:
+def _check(
+    cfg: LibraryConfig,
+    result: RunResult,
+    cells: Mapping[str, CellTables],
+    circuits: Sequence[Circuit],
+    setup: Setup,
+    out: Path,
+    args: argparse.Namespace,
+) -> int:
+    """Simulate and time the circuits, OpenSTA's column when it is installed, the reports."""
     progress = shared.Progress(args.quiet)
     try:
         corr = paths.correlate(
