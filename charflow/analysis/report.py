@@ -23,7 +23,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FixedLocator, FormatStrFormatter, NullLocator
 
 from charflow import __version__
-from charflow.analysis import fidelity, gridstudy
+from charflow.analysis import fidelity, gridstudy, paths
 from charflow.analysis.fidelity import CENTRE, FidelityReport, TableCheck, severity
 from charflow.analysis.gridstudy import PLACEMENTS, Study
 from charflow.analysis.reporting import axis_unit, pct, where, write_pair
@@ -427,3 +427,131 @@ def write_study(config: LibraryConfig, s: Study, out_dir: Path) -> list[Path]:
     """``<library>.<cell>.<from>-<to>.gridstudy.json`` and ``.png`` (error against points)."""
     stem = f"{config.name}.{s.cell}.{s.related}-{s.output}.gridstudy"
     return write_pair(out_dir, stem, gridstudy.to_json(config, s), ".png", study_figure(config, s))
+
+
+def paths_png(config: LibraryConfig, corr: paths.Correlation) -> bytes:
+    """Each measured path's predicted (and OpenSTA's) arrival against the simulated one."""
+    t = config.time_scale
+    done = [r for r in corr.results if r.failure is None]
+    sim = np.array([r.simulated or 0.0 for r in done]) / t
+    fig = _figure(5.5, 5.0)
+    ax = fig.add_subplot()
+    ax.scatter(sim, [r.predicted / t for r in done], s=18, label="tables (charflow)")
+    sta = [
+        (s, r.stages[-1].sta_arrival / t)
+        for s, r in zip(sim, done, strict=True)
+        if r.stages[-1].sta_arrival is not None
+    ]
+    if sta:
+        xs, ys = zip(*sta, strict=True)
+        ax.scatter(xs, ys, s=40, marker="x", label="OpenSTA")
+    if sim.size:
+        span = np.array([sim.min(), sim.max()])
+        ax.plot(span, span, "k-", lw=0.8, label="equal")
+        for frac in (-0.02, -0.01, 0.01, 0.02):
+            ax.plot(span, span * (1 + frac), ":", lw=0.7, color="grey")
+    ax.set_xlabel(f"simulated path delay ({config.time_unit})")
+    ax.set_ylabel(f"predicted path delay ({config.time_unit})")
+    ax.set_title(
+        f"{config.name}: paths, predicted against simulated (dotted: ±1 %, ±2 %)", fontsize=9
+    )
+    ax.grid(True, alpha=0.3)
+    ax.legend(fontsize=8)
+    return _png(fig)
+
+
+def _path_rows(config: LibraryConfig, corr: paths.Correlation) -> list[str]:
+    t = config.time_scale
+    rows = []
+    for n, r in enumerate(corr.results, 1):
+        if r.failure is not None:
+            rows.append(
+                f"<tr><td>{n}</td><td>{html.escape(r.path.name)}</td>"
+                f"<td colspan=8>failed: {html.escape(r.failure)}</td></tr>"
+            )
+            continue
+        sta = r.stages[-1].sta_arrival
+        e, es = r.error(r.predicted), r.error(sta)
+        cells = "/".join(s.stage.cell for s in r.stages)
+        rows.append(
+            f"<tr><td>{n}</td><td>{html.escape(r.path.name)}</td><td class=n>{len(r.stages)}"
+            f"</td><td class=n>{r.slew / t:.4g}</td><td>{r.edge}</td>"
+            f"{_num(r.simulated, f'{(r.simulated or 0) / t:.5g}')}"
+            f"{_num(r.predicted, f'{r.predicted / t:.5g}')}"
+            f"{_num(sta, '-' if sta is None else f'{sta / t:.5g}')}"
+            f"{_num(e, '-' if e is None else f'{e * 100:+.2f} %')}"
+            f"{_num(es, '-' if es is None else f'{es * 100:+.2f} %')}"
+            f"<td>{html.escape(cells)}</td></tr>"
+        )
+    return rows
+
+
+def _stage_rows(config: LibraryConfig, r: paths.PathResult) -> str:
+    t = config.time_scale
+    out = []
+    for s in r.stages:
+        p = s.predicted
+        sta = "-" if s.sta_delay is None else f"{s.sta_delay / t:.5g}"
+        out.append(
+            f"<tr><td>{s.stage.gate} {s.stage.cell} {s.stage.pin}->{s.stage.output}</td>"
+            f"<td>{p.input_edge}/{p.output_edge}</td>"
+            f"<td class=n>{p.load / config.cap_scale:.4g}</td>"
+            f"<td class=n>{s.sim_delay / t:.5g}</td><td class=n>{p.delay / t:.5g}</td>"
+            f"<td class=n>{sta}</td>"
+            f"<td class=n>{(p.delay / s.sim_delay - 1) * 100:+.2f} %</td>"
+            f"<td class=n>{s.sim_slew_out / t:.4g}</td><td class=n>{p.slew_out / t:.4g}</td>"
+            f"<td class=n>{(p.slew_out / s.sim_slew_out - 1) * 100:+.2f} %</td></tr>"
+        )
+    return "".join(out)
+
+
+def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
+    """The path check as one self-contained page: the plot, the paths, every stage."""
+    tu, cu = config.time_unit, config.cap_unit
+    spread = "".join(
+        f"<li>{name}: median |error| {s['median_abs_error'] * 100:.2f} %, worst "
+        f"{s['worst_abs_error'] * 100:.2f} %, mean {s['mean_error'] * 100:+.2f} %</li>"
+        for name, s in paths.summary(corr).items()
+        if s is not None
+    )
+    effects = "".join(
+        f"<li>{k}: {'-' if v is None else f'{v * 100:+.2f} %'}</li>"
+        for k, v in paths.decomposition(corr).items()
+    )
+    stages = "".join(
+        f"<h3>{html.escape(r.path.name)}, {r.edge}, slew {r.slew / config.time_scale:.4g} {tu}"
+        f"</h3><table class=summary><thead><tr><th>stage</th><th>edges</th><th>load {cu}</th>"
+        f"<th>sim delay</th><th>predicted</th><th>OpenSTA</th><th>error</th><th>sim slew</th>"
+        f"<th>predicted slew</th><th>slew error</th></tr></thead><tbody>"
+        f"{_stage_rows(config, r)}</tbody></table>"
+        for r in corr.results
+        if r.failure is None
+    )
+    head = (
+        "<tr><th>#</th><th>path</th><th>stages</th><th>slew</th><th>edge</th><th>simulated</th>"
+        "<th>predicted</th><th>OpenSTA</th><th>error</th><th>OpenSTA error</th><th>cells</th></tr>"
+    )
+    return (
+        f"<!doctype html><html><head><meta charset=utf-8><title>{html.escape(config.name)} "
+        f"paths</title><style>{_STYLE}</style></head><body><h1>{html.escape(config.name)}: "
+        f"paths simulated against the tables</h1><p class=note>charflow {__version__}; times in "
+        f"{tu}. Error = (value - simulated) / simulated: negative where the value is too fast. "
+        "Stage effects: mean per-stage delay difference, as a fraction of the simulated "
+        "delay: load = lumped pin capacitance against the real gates, shape = linear ramp "
+        "against the real waveform, interpolation = tables against the ramp point.</p>"
+        f"<ul>{spread}</ul><ul>{effects}</ul>{_img(paths_png(config, corr), 'paths')}"
+        f"<h2>Paths</h2><table class=summary><thead>{head}</thead><tbody>"
+        f"{''.join(_path_rows(config, corr))}</tbody></table><h2>Stages</h2>{stages}"
+        f"<script>{_SORT}</script></body></html>"
+    )
+
+
+def write_paths(config: LibraryConfig, corr: paths.Correlation, out_dir: Path) -> list[Path]:
+    """``<library>.paths.json`` and the self-contained ``<library>.paths.html``."""
+    return write_pair(
+        out_dir,
+        f"{config.name}.paths",
+        paths.to_json(config, corr),
+        ".html",
+        paths_html(config, corr),
+    )

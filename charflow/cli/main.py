@@ -13,7 +13,7 @@ import sys
 import types
 
 from charflow import __version__
-from charflow.cli import check, copy_demo, demo, diff, fidelity, grid_study, run, shared
+from charflow.cli import check, copy_demo, demo, diff, fidelity, grid_study, paths, run, shared
 
 DESCRIPTION = """\
 charflow characterizes standard cells. For each cell of a library it simulates the cell's
@@ -51,6 +51,7 @@ COMMANDS: dict[str, types.ModuleType] = {
     "copy-demo": copy_demo,
     "fidelity": fidelity,
     "grid-study": grid_study,
+    "paths": paths,
     "diff": diff,
 }
 

@@ -17,7 +17,7 @@ from charflow.execution.cluster import map_chunks
 from charflow.execution.store import Store, keyring
 from charflow.execution.workers import default_jobs, run_chunks
 from charflow.measurement import registry
-from charflow.records.outcomes import Failure, Outcome
+from charflow.records.outcomes import Failure, Outcome, PathMeasurement
 from charflow.records.points import TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
@@ -106,7 +106,12 @@ def run(
     with contextlib.closing(results):
         for batch in results:
             for outcome in batch:
-                if store is not None and ring is not None and not isinstance(outcome, Failure):
+                # A path run (``analysis.paths``) is not a library's result: never stored.
+                if (
+                    store is not None
+                    and ring is not None
+                    and not isinstance(outcome, Failure | PathMeasurement)
+                ):
                     store.put(ring, outcome)
                 if on_result is not None:
                     on_result(outcome)

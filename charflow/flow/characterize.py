@@ -55,6 +55,7 @@ from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
     LeakagePoint,
+    PathPoint,
     Plan,
     PulsePoint,
     ShapePoint,
@@ -145,8 +146,8 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
     """The tables (or pin values) of a library that a point's result goes into."""
     if isinstance(p, LeakagePoint):
         return [f"{p.cell} leakage"]
-    # A tightened value and the driver's shape are in no Liberty table.
-    if isinstance(p, FunctionPoint | TightPoint | ShapePoint):
+    # A tightened value, the driver's shape and a path run are in no Liberty table.
+    if isinstance(p, FunctionPoint | TightPoint | ShapePoint | PathPoint):
         return []
     if isinstance(p, PulsePoint):
         return [pin_name(p.cell, p.pin, f"min_pulse_width_{p.level}")]

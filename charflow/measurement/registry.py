@@ -12,7 +12,15 @@ import time
 from collections.abc import Callable, Sequence
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import combinational, driver, ffpower, floptoggle, power, sequential
+from charflow.measurement import (
+    combinational,
+    driver,
+    ffpower,
+    floptoggle,
+    paths,
+    power,
+    sequential,
+)
 from charflow.measurement.combinational import explain, window_advice
 from charflow.records.errors import (
     CutOffError,
@@ -35,6 +43,7 @@ from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
     LeakagePoint,
+    PathPoint,
     PulsePoint,
     ShapePoint,
     TightPoint,
@@ -50,6 +59,8 @@ def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
     """One point measured by the measurer of its kind (and of its cell's kind)."""
     if isinstance(point, ShapePoint):
         return driver.measure_shape(config, deck, point)
+    if isinstance(point, PathPoint):  # a circuit of cells, not one cell
+        return paths.measure_path(config, deck, point)
     flop = config.cell(point.cell).flop is not None
     if isinstance(point, LeakagePoint | FunctionPoint):
         return _per_cell(config, deck, point)

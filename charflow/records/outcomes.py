@@ -15,6 +15,7 @@ from charflow.records.points import (
     ConstraintPoint,
     FunctionPoint,
     LeakagePoint,
+    PathPoint,
     PulsePoint,
     ShapePoint,
     TightPoint,
@@ -183,6 +184,20 @@ class ShapeResult:
     sim_seconds: float
 
 
+@dataclass(frozen=True, slots=True)
+class PathMeasurement:
+    """Per node of a path run (``PathPoint.nodes``, in order): when it crossed the input and
+    the output delay threshold of its edge (a node is one stage's output and the next one's
+    input) and its transition (divided by the slew derate)."""
+
+    point: PathPoint
+    at_input: tuple[float, ...]  # s, crossing the input delay threshold
+    at_output: tuple[float, ...]  # s, crossing the output delay threshold
+    transitions: tuple[float, ...]  # s
+    runs: int
+    sim_seconds: float
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
 Outcome = (
     Measurement
@@ -192,5 +207,6 @@ Outcome = (
     | FunctionChecked
     | TightMeasurement
     | ShapeResult
+    | PathMeasurement
     | Failure
 )

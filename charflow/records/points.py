@@ -426,9 +426,50 @@ class ShapePoint:
         }
 
 
+@dataclass(frozen=True, slots=True)
+class PathPoint:
+    """One transistor-level run of a whole circuit of cells (``records.paths``): its input port
+    driven by the library's input ramp, the crossing time and transition of every ``nodes``
+    entry measured."""
+
+    cell: str  # the circuit's name: the key of its testbench in a sweep, as a cell's is
+    start: str  # the input port
+    input_edge: str
+    slew: float  # s, the input ramp's, as a table records it
+    nodes: tuple[tuple[str, str], ...]  # (simulator node, the edge expected there)
+    step: float  # s, the transient's maximum step
+    stop: float  # s, the transient's cap
+
+    @property
+    def label(self) -> str:
+        return f"path circuit {self.cell}: {self.start} {self.input_edge} slew {self.slew:.4g} s"
+
+    AXES: ClassVar[tuple[str, ...]] = ("slew",)
+    FILLABLE: ClassVar[bool] = False
+
+    @property
+    def series(self) -> tuple[object, ...]:
+        return ("path", self.cell, self.start, self.input_edge, self.nodes)
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return (self.slew,)
+
+    @property
+    def cost(self) -> int:
+        return POINT_RUNS
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        slew = show_time(self.slew, units.time_unit)
+        return {
+            "cell": f"path circuit {self.cell}",
+            "point": f"{self.start} {self.input_edge}, slew {slew}",
+        }
+
+
 # The points of a plan's tables; with the toggles, all the work a sweep hands to workers.
 Point = TimingPoint | ConstraintPoint | PulsePoint
-Work = Point | TogglePoint | LeakagePoint | FunctionPoint | TightPoint | ShapePoint
+Work = Point | TogglePoint | LeakagePoint | FunctionPoint | TightPoint | ShapePoint | PathPoint
 
 
 @dataclass(frozen=True, slots=True)

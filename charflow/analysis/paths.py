@@ -1,0 +1,617 @@
+"""Path correlation: short paths of a library's own cells simulated whole at transistor level,
+against the same paths timed from the library's tables the way a timing tool times them.
+
+A timing tool computes a path stage by stage (common practice; e.g. Bhasker & Chadha, *Static
+Timing Analysis for Nanometer Designs*, Springer, 2009, ch. 5): each stage's delay and output
+slew are interpolated in its arc's tables at the input slew the previous stage gave and at the
+stage's load, the sum of the capacitances of the pins on its output net (of the edge that
+arrives there: ``rise_capacitance`` or ``fall_capacitance``) and of the wire. The simulation
+runs the whole circuit in ngspice, each stage driven by the real previous gate and loaded by
+the real next gates, in workers like any sweep point (``measurement.paths``).
+
+To say where a difference comes from, every stage is also simulated twice more: its replica
+(``simulation.pathdeck.Replica``: the real input waveform, a lumped load of the pins'
+capacitance) and a table point (a linear ramp of the stage's simulated input slew, the same
+lumped load). Real against replica is the load a real gate presents beyond its pin
+capacitance; replica against ramp is the input's shape; the tables against the ramp point is
+interpolation.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from charflow.analysis.opensta import StaStage
+from charflow.config.library import LibraryConfig
+from charflow.execution import sweep
+from charflow.records.errors import NetlistError, TableError
+from charflow.records.outcomes import Failure, Measurement, Outcome, PathMeasurement
+from charflow.records.paths import CONSTANTS, Circuit, Path, Stage
+from charflow.records.points import PathPoint, State, TimingPoint, Work
+from charflow.simulation.netlist import Deck
+from charflow.simulation.pathdeck import Replica, build_path_deck, node, replica_node
+from charflow.tables.table import Table, interpolate
+from charflow.tables.tabulate import ArcTables, CellTables
+
+# The transient's cap, in multiples of the tables' prediction of the latest arrival (plus the
+# input ramp): a path the tables get wrong by this much is worth an error, not a number.
+STOP_MARGIN = 4.0
+SAMPLES_PER_EDGE = 40  # the maximum step: the sharpest predicted edge over this
+SINGLE, PER_EDGE = "one number", "per edge"  # how a pin's capacitance is taken
+
+
+# --- the circuit: its paths and its loads -----------------------------------------------
+
+
+def _state(
+    cell: CellTables, pin: str, output: str, side: dict[str, bool]
+) -> tuple[ArcTables, State]:
+    arc = next((a for a in cell.arcs if (a.arc.related, a.arc.output) == (pin, output)), None)
+    if arc is None or arc.arc.kind != "combinational" or arc.arc.other is not None:
+        raise NetlistError(
+            f"cell {cell.cell.name} has no two-axis combinational arc {pin}->{output}",
+            cell=cell.cell.name,
+        )
+    for st in arc.arc.states:
+        if all(side.get(p) == v for p, v in st.side):
+            return arc, st
+    held = " ".join(f"{p}={int(v)}" for p, v in sorted(side.items()))
+    raise NetlistError(
+        f"side inputs {held or '(none)'} do not let {pin} switch {output}: tie them to "
+        f"values of one of its states ({', '.join(s.when or '-' for s in arc.arc.states)})",
+        cell=cell.cell.name,
+    )
+
+
+def routes(circuit: Circuit, cells: Mapping[str, CellTables]) -> tuple[Path, ...]:
+    """One path per output port, from the input port through one input of each gate; raise
+    where a gate has two inputs in the input port's cone or a port is not reached."""
+    driver = {}
+    for g in circuit.gates:
+        outs = {o.pin for o in cells[g.cell].cell.outputs}
+        driver.update({net: (g, pin) for pin, net in g.pins if pin in outs})
+    paths = []
+    for end in circuit.outputs:
+        stages: list[Stage] = []
+        net = end
+        while net != circuit.start:
+            if net not in driver or len(stages) > len(circuit.gates):
+                raise NetlistError(
+                    f"output port {end} is not reached from input port {circuit.start} "
+                    "through the gates (or the gates make a loop)",
+                    file=circuit.origin,
+                )
+            gate, out = driver[net]
+            cell = cells[gate.cell].cell
+            moving = [(p, n) for p, n in gate.pins if p in cell.inputs and n not in CONSTANTS]
+            if len(moving) != 1:
+                raise NetlistError(
+                    f"instance {gate.name}: {len(moving)} inputs are not constants; a path "
+                    "circuit's gates have one input on the path and the others tied",
+                    file=circuit.origin,
+                )
+            pin, net_in = moving[0]
+            side = {p: CONSTANTS[n] for p, n in gate.pins if n in CONSTANTS and p in cell.inputs}
+            _, st = _state(cells[gate.cell], pin, out, side)
+            stages.append(Stage(gate.name, gate.cell, pin, out, net_in, net, st.side))
+            net = net_in
+        paths.append(Path(circuit.name, end, tuple(reversed(stages))))
+    return tuple(paths)
+
+
+@dataclass(frozen=True, slots=True)
+class Loads:
+    """What each net of a circuit drives: gate pins (gate, cell, pin), wire and port load."""
+
+    pins: dict[str, tuple[tuple[str, str, str], ...]]
+    wire: dict[str, float]  # F
+    port: dict[str, float]  # F
+
+    def total(self, net: str, edge: str, cells: Mapping[str, CellTables], mode: str) -> float:
+        """The capacitance on ``net`` when ``edge`` arrives there (F)."""
+        c = self.wire.get(net, 0.0) + self.port.get(net, 0.0)
+        for _, cell, pin in self.pins.get(net, ()):
+            c += pin_cap(cells[cell], pin, edge, mode)
+        return c
+
+
+def loads(circuit: Circuit, cells: Mapping[str, CellTables], wire: float, port: float) -> Loads:
+    """Every gate input on each net; ``wire`` (F) on every net a gate drives, ``port`` (F) on
+    every output port."""
+    pins: dict[str, list[tuple[str, str, str]]] = {}
+    driven = []
+    for g in circuit.gates:
+        inputs = cells[g.cell].cell.inputs
+        for pin, net in g.pins:
+            if pin in inputs:
+                pins.setdefault(net, []).append((g.name, g.cell, pin))
+            else:
+                driven.append(net)
+    return Loads(
+        {n: tuple(p) for n, p in pins.items()},
+        {n: wire for n in driven} if wire else {},
+        {o: port for o in circuit.outputs},
+    )
+
+
+def pin_cap(cell: CellTables, pin: str, edge: str, mode: str) -> float:
+    cap = next(p for p in cell.pins if p.pin == pin)
+    value = cap.capacitance if mode == SINGLE else getattr(cap, edge)
+    if value is None:
+        raise TableError(f"pin {pin} has no {edge} capacitance", cell=cell.cell.name, pin=pin)
+    return float(value)
+
+
+# --- the tables' prediction ---------------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class StageTiming:
+    """One stage timed: its edges, load, input and output slew, delay, arrival (SI)."""
+
+    input_edge: str
+    output_edge: str
+    load: float
+    slew_in: float
+    delay: float
+    slew_out: float
+    arrival: float
+    inside: bool  # slew and load within the table's grid (no extrapolation)
+
+
+def stage_tables(cell: CellTables, stage: Stage, output_edge: str) -> tuple[Table, Table]:
+    """The delay and transition tables of the stage's state (a timing tool reading the ``when``
+    of the side inputs' values would pick these)."""
+    arc, st = _state(cell, stage.pin, stage.output, dict(stage.side))
+    tables = next(s.tables for s in arc.states if s.state == st)
+    by = {t.quantity: t for t in tables}
+    try:
+        return by[f"cell_{output_edge}"], by[f"{output_edge}_transition"]
+    except KeyError as exc:
+        raise TableError(
+            f"arc {stage.pin}->{stage.output} has no {output_edge} tables", cell=cell.cell.name
+        ) from exc
+
+
+def walk(path: Path, cells: Mapping[str, CellTables], edge: str) -> list[tuple[str, str]]:
+    """Each stage's input and output edge when ``edge`` enters the path."""
+    out = []
+    for stage in path.stages:
+        _, st = _state(cells[stage.cell], stage.pin, stage.output, dict(stage.side))
+        out.append((edge, st.output_edge(edge)))
+        edge = out[-1][1]
+    return out
+
+
+def predict(
+    path: Path,
+    cells: Mapping[str, CellTables],
+    net_loads: Loads,
+    slew: float,
+    edge: str,
+    mode: str = PER_EDGE,
+) -> tuple[StageTiming, ...]:
+    """The path timed from the tables, slew propagated stage by stage."""
+    out, arrival = [], 0.0
+    for stage, (edge_in, edge_out) in zip(path.stages, walk(path, cells, edge), strict=True):
+        cell = cells[stage.cell]
+        delay_t, slew_t = stage_tables(cell, stage, edge_out)
+        load = net_loads.total(stage.net_out, edge_out, cells, mode)
+        at = [(slew, load)]
+        d = float(interpolate(delay_t, at)[0])
+        s = float(interpolate(slew_t, at)[0])
+        inside = all(
+            a.values[0] <= x <= a.values[-1] for a, x in zip(delay_t.axes, at[0], strict=True)
+        )
+        arrival += d
+        out.append(StageTiming(edge_in, edge_out, load, slew, d, s, arrival, inside))
+        slew = s
+    return tuple(out)
+
+
+# --- the simulations ------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class Setup:
+    slews: tuple[float, ...]  # s, the input port's
+    edges: tuple[str, ...]  # the input port's edges
+    wire: float  # F on every net a gate drives
+    port: float  # F on every output port
+
+
+@dataclass(frozen=True, slots=True)
+class _Circuit:
+    """A circuit ready to run: its paths, loads, replicas and testbench."""
+
+    circuit: Circuit
+    paths: tuple[Path, ...]
+    loads: Loads
+    replicas: dict[tuple[str, str], Replica]  # by (gate, edge arriving at its input)
+
+
+def _replicas(
+    paths: Sequence[Path], cells: Mapping[str, CellTables], net_loads: Loads, edges: Sequence[str]
+) -> dict[tuple[str, str], Replica]:
+    """A replica of every stage for each edge that can arrive at its input, loaded with the
+    pins' capacitance of the edge it then makes (and the wire and port loads)."""
+    out = {}
+    for path in paths:
+        for edge in edges:
+            for stage, (edge_in, edge_out) in zip(
+                path.stages, walk(path, cells, edge), strict=True
+            ):
+                load = net_loads.total(stage.net_out, edge_out, cells, PER_EDGE)
+                out[(stage.gate, edge_in)] = Replica(f"{stage.gate}_{edge_in}", stage, load)
+    return out
+
+
+def _prepare(
+    config: LibraryConfig, circuit: Circuit, cells: Mapping[str, CellTables], setup: Setup
+) -> tuple[_Circuit, Deck]:
+    paths = routes(circuit, cells)
+    net_loads = loads(circuit, cells, setup.wire, setup.port)
+    replicas = _replicas(paths, cells, net_loads, setup.edges)
+    deck = build_path_deck(
+        config, circuit, net_loads.wire, net_loads.port, tuple(replicas.values())
+    )
+    return _Circuit(circuit, paths, net_loads, replicas), deck
+
+
+def _point(c: _Circuit, cells: Mapping[str, CellTables], slew: float, edge: str) -> PathPoint:
+    """The circuit's run for one input slew and edge: every path's nets and replicas."""
+    nodes = {node(c.circuit.start): edge}
+    latest, sharpest = slew, slew
+    for path in c.paths:
+        timed = predict(path, cells, c.loads, slew, edge)
+        for stage, t in zip(path.stages, timed, strict=True):
+            nodes[node(stage.net_out)] = t.output_edge
+            nodes[replica_node(c.replicas[(stage.gate, t.input_edge)].name)] = t.output_edge
+            sharpest = min(sharpest, t.slew_out)
+        latest = max(latest, timed[-1].arrival + 2 * timed[-1].slew_out)
+    return PathPoint(
+        cell=c.circuit.name,
+        start=c.circuit.start,
+        input_edge=edge,
+        slew=slew,
+        nodes=tuple(nodes.items()),
+        step=sharpest / SAMPLES_PER_EDGE,
+        stop=STOP_MARGIN * (latest + 2 * slew),
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class StageResult:
+    """One stage of one path run: simulated, predicted (pin capacitance per edge and as one
+    number), and the three experiments at the stage's simulated input slew (SI, s)."""
+
+    stage: Stage
+    predicted: StageTiming
+    single: StageTiming  # the prediction with each pin's capacitance as one number
+    sim_delay: float
+    sim_slew_in: float
+    sim_slew_out: float
+    sim_arrival: float
+    replica_delay: float  # real input waveform, lumped load
+    ramp_delay: float | None  # linear ramp, lumped load (None: the point failed)
+    table_delay: float  # the tables at the simulated input slew and the lumped load
+    sta_delay: float | None = None
+    sta_slew: float | None = None
+    sta_arrival: float | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class PathResult:
+    path: Path
+    slew: float
+    edge: str
+    stages: tuple[StageResult, ...]
+    failure: str | None = None  # why the path run gave no measurement
+
+    @property
+    def simulated(self) -> float | None:
+        return self.stages[-1].sim_arrival if self.stages else None
+
+    @property
+    def predicted(self) -> float:
+        return self.stages[-1].predicted.arrival
+
+    def error(self, value: float | None) -> float | None:
+        """(value − simulated) / simulated: negative where ``value`` is too fast."""
+        sim = self.simulated
+        return None if value is None or sim is None else (value - sim) / sim
+
+
+@dataclass(frozen=True, slots=True)
+class Correlation:
+    setup: Setup
+    results: tuple[PathResult, ...]
+    circuits: tuple[Circuit, ...]
+    simulations: int
+    wall_seconds: float
+
+    def errors(self, which: Callable[[PathResult], float | None]) -> np.ndarray:
+        """The path-delay errors of every measured path, of the value ``which`` picks."""
+        found = [r.error(which(r)) for r in self.results if r.failure is None]
+        return np.array([e for e in found if e is not None])
+
+
+def _ramp_point(stage: Stage, t: StageTiming, slew: float) -> TimingPoint:
+    return TimingPoint(
+        stage.cell, stage.pin, stage.output, stage.side, t.input_edge, t.output_edge, slew, t.load
+    )
+
+
+def _stage_sims(m: PathMeasurement, c: _Circuit, path: Path) -> list[tuple[float, ...]]:
+    """(delay, slew in, slew out, arrival, replica delay) of each stage, from the path run."""
+    index = {n: i for i, (n, _) in enumerate(m.point.nodes)}
+    start = index[node(c.circuit.start)]
+    out: list[tuple[float, ...]] = []
+    edge = m.point.input_edge
+    for stage in path.stages:
+        i, o = index[node(stage.net_in)], index[node(stage.net_out)]
+        r = index[replica_node(c.replicas[(stage.gate, edge)].name)]
+        out.append(
+            (
+                m.at_output[o] - m.at_input[i],
+                m.transitions[i],
+                m.transitions[o],
+                m.at_output[o] - m.at_input[start],
+                m.at_output[r] - m.at_input[i],
+            )
+        )
+        edge = m.point.nodes[o][1]
+    return out
+
+
+def _result(
+    path: Path,
+    c: _Circuit,
+    cells: Mapping[str, CellTables],
+    p: PathPoint,
+    sims: Sequence[tuple[float, ...]],
+    ramps: Mapping[Work, Outcome],
+) -> PathResult:
+    pred = predict(path, cells, c.loads, p.slew, p.input_edge)
+    single = predict(path, cells, c.loads, p.slew, p.input_edge, SINGLE)
+    stages = []
+    for stage, t, one, sim in zip(path.stages, pred, single, sims, strict=True):
+        delay, slew_in, slew_out, arrival, replica = sim
+        ramp = ramps.get(_ramp_point(stage, t, slew_in))
+        delay_t, _ = stage_tables(cells[stage.cell], stage, t.output_edge)
+        at_sim = float(interpolate(delay_t, [(slew_in, t.load)])[0])
+        stages.append(
+            StageResult(
+                stage=stage,
+                predicted=t,
+                single=one,
+                sim_delay=delay,
+                sim_slew_in=slew_in,
+                sim_slew_out=slew_out,
+                sim_arrival=arrival,
+                replica_delay=replica,
+                ramp_delay=ramp.delay if isinstance(ramp, Measurement) else None,
+                table_delay=at_sim,
+            )
+        )
+    return PathResult(path, p.slew, p.input_edge, tuple(stages))
+
+
+def correlate(
+    config: LibraryConfig,
+    circuits: Sequence[Circuit],
+    cells: Mapping[str, CellTables],
+    setup: Setup,
+    *,
+    jobs: int | None = None,
+    on_start: Callable[[int], None] | None = None,
+    on_result: Callable[[object], None] | None = None,
+) -> Correlation:
+    """Every path of ``circuits`` at every input slew and edge of ``setup``: simulated whole,
+    timed from ``cells``' tables, each stage's experiments run (see the module's text)."""
+    begin = time.perf_counter()
+    prepared, decks = {}, {}
+    for circuit in circuits:
+        prepared[circuit.name], decks[circuit.name] = _prepare(config, circuit, cells, setup)
+    points = [
+        _point(c, cells, s, e) for c in prepared.values() for s in setup.slews for e in setup.edges
+    ]
+    if on_start is not None:
+        on_start(sweep.work(points))
+    runs = {
+        o.point: o for o in sweep.run(config, points, jobs=jobs, decks=decks, on_result=on_result)
+    }
+    measured, failed, ramp_points = [], [], []
+    for p in points:
+        c, o = prepared[p.cell], runs[p]
+        for path in c.paths:
+            if not isinstance(o, PathMeasurement):
+                reason = o.reason if isinstance(o, Failure) else "no measurement"
+                failed.append(PathResult(path, p.slew, p.input_edge, (), reason))
+                continue
+            sims = _stage_sims(o, c, path)
+            pred = predict(path, cells, c.loads, p.slew, p.input_edge)
+            ramp_points += [
+                _ramp_point(st, t, s[1]) for st, t, s in zip(path.stages, pred, sims, strict=True)
+            ]
+            measured.append((path, c, p, sims))
+    unique = list(dict.fromkeys(ramp_points))
+    ramps = {o.point: o for o in sweep.run(config, unique, jobs=jobs)}
+    results = [_result(path, c, cells, p, sims, ramps) for path, c, p, sims in measured]
+    simulations = sum(
+        o.runs for o in (*runs.values(), *ramps.values()) if not isinstance(o, Failure)
+    )
+    return Correlation(
+        setup,
+        (*results, *failed),
+        tuple(circuits),
+        simulations,
+        time.perf_counter() - begin,
+    )
+
+
+def with_sta(
+    corr: Correlation, timed: Mapping[str, Mapping[tuple[str, str, int], Sequence[StaStage]]]
+) -> Correlation:
+    """``corr`` with OpenSTA's delay, slew and arrival of every stage (by circuit, then by
+    output port, input edge and slew index, as ``opensta.parse`` gives them)."""
+    out = []
+    for r in corr.results:
+        rows = timed.get(r.path.circuit, {}).get(
+            (r.path.end, r.edge, corr.setup.slews.index(r.slew)), ()
+        )
+        by_gate = {row.gate: row for row in rows}
+        stages = tuple(
+            replace(s, sta_delay=g.delay, sta_slew=g.slew, sta_arrival=g.arrival)
+            if (g := by_gate.get(s.stage.gate)) is not None
+            else s
+            for s in r.stages
+        )
+        out.append(replace(r, stages=stages))
+    return replace(corr, results=tuple(out))
+
+
+def summary(corr: Correlation) -> dict[str, dict[str, float | int] | None]:
+    """Median and worst |error| of the path delay, per column and experiment."""
+    columns: dict[str, Callable[[PathResult], float | None]] = {
+        "predicted": lambda r: r.predicted,
+        "predicted_one_number_capacitance": lambda r: r.stages[-1].single.arrival,
+        "opensta": lambda r: r.stages[-1].sta_arrival,
+    }
+    out: dict[str, dict[str, float | int] | None] = {}
+    for name, pick in columns.items():
+        e = corr.errors(pick)
+        out[name] = (
+            None
+            if e.size == 0
+            else {
+                "paths": int(e.size),
+                "median_abs_error": float(np.median(np.abs(e))),
+                "worst_abs_error": float(np.max(np.abs(e))),
+                "mean_error": float(np.mean(e)),
+            }
+        )
+    return out
+
+
+def decomposition(corr: Correlation) -> dict[str, float | None]:
+    """Mean per-stage delay difference of each effect, as a fraction of the simulated stage
+    delay (positive: makes the tables slower than the simulation)."""
+    parts: dict[str, list[float]] = {"load": [], "shape": [], "interpolation": [], "local": []}
+    for r in corr.results:
+        for s in r.stages:
+            d = s.sim_delay
+            parts["load"].append((s.replica_delay - s.sim_delay) / d)
+            parts["local"].append((s.table_delay - s.sim_delay) / d)
+            if s.ramp_delay is not None:
+                parts["shape"].append((s.ramp_delay - s.replica_delay) / d)
+                parts["interpolation"].append((s.table_delay - s.ramp_delay) / d)
+    return {k: float(np.mean(v)) if v else None for k, v in parts.items()}
+
+
+def _stage_record(s: StageResult) -> dict:
+    p = s.predicted
+    return {
+        "gate": s.stage.gate,
+        "cell": s.stage.cell,
+        "arc": f"{s.stage.pin}->{s.stage.output}",
+        "side_inputs": {pin: int(v) for pin, v in s.stage.side},
+        "input_edge": p.input_edge,
+        "output_edge": p.output_edge,
+        "load_F": p.load,
+        "inside_grid": p.inside,
+        "delay_s": {
+            "simulated": s.sim_delay,
+            "predicted": p.delay,
+            "opensta": s.sta_delay,
+            "predicted_one_number_capacitance": s.single.delay,
+            "replica_lumped_load": s.replica_delay,
+            "ramp_lumped_load": s.ramp_delay,
+            "tables_at_simulated_slew": s.table_delay,
+        },
+        "slew_in_s": {"simulated": s.sim_slew_in, "predicted": p.slew_in},
+        "slew_out_s": {"simulated": s.sim_slew_out, "predicted": p.slew_out, "opensta": s.sta_slew},
+        "arrival_s": {"simulated": s.sim_arrival, "predicted": p.arrival, "opensta": s.sta_arrival},
+        "delay_error": (p.delay - s.sim_delay) / s.sim_delay,
+        "slew_error": (p.slew_out - s.sim_slew_out) / s.sim_slew_out,
+    }
+
+
+def to_json(config: LibraryConfig, corr: Correlation) -> dict:
+    """Per path run and stage: simulated, predicted and OpenSTA values (SI) and errors."""
+    st = corr.setup
+    return {
+        "library": config.name,
+        "units": {"time": "s", "capacitance": "F", "error": "fraction of the simulated value"},
+        "settings": {
+            "input_slews_s": list(st.slews),
+            "input_edges": list(st.edges),
+            "wire_capacitance_F": st.wire,
+            "port_load_F": st.port,
+            "error": "(value - simulated) / simulated; negative: too fast",
+        },
+        "summary": summary(corr),
+        "stage_effects": decomposition(corr),
+        "simulations": corr.simulations,
+        "wall_seconds": round(corr.wall_seconds, 3),
+        "circuits": [{"name": c.name, "origin": c.origin} for c in corr.circuits],
+        "paths": [
+            {
+                "path": r.path.name,
+                "stages": len(r.path.stages),
+                "input_slew_s": r.slew,
+                "input_edge": r.edge,
+                "failure": r.failure,
+                "arrival_s": {
+                    "simulated": r.simulated,
+                    "predicted": r.predicted if r.stages else None,
+                    "opensta": r.stages[-1].sta_arrival if r.stages else None,
+                },
+                "error": {
+                    "predicted": r.error(r.predicted) if r.stages else None,
+                    "opensta": r.error(r.stages[-1].sta_arrival) if r.stages else None,
+                },
+                "per_stage": [_stage_record(s) for s in r.stages],
+            }
+            for r in corr.results
+        ],
+    }
+
+
+def _pct(x: float | None) -> str:
+    return "-" if x is None else f"{x * 100:+.2f} %"
+
+
+def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
+    """The terminal table: one line per path run, then the spread and the stage effects."""
+    t, tu = config.time_scale, config.time_unit
+    lines = [
+        f"paths of {config.name}: {len(corr.results)} path runs in {corr.wall_seconds:.1f} s",
+        f"  {'path':<14} {'st':>2} {'slew':>7} {'edge':<4} {'simulated':>10} {'predicted':>10} "
+        f"{'OpenSTA':>10} {'err pred':>9} {'err sta':>9}  ({tu})",
+    ]
+    for r in corr.results:
+        if r.failure is not None:
+            lines.append(f"  {r.path.name:<14} failed: {r.failure}")
+            continue
+        sta = r.stages[-1].sta_arrival
+        lines.append(
+            f"  {r.path.name:<14} {len(r.stages):>2} {r.slew / t:>7.4g} {r.edge:<4} "
+            f"{(r.simulated or 0) / t:>10.5g} {r.predicted / t:>10.5g} "
+            f"{'-' if sta is None else f'{sta / t:.5g}':>10} {_pct(r.error(r.predicted)):>9} "
+            f"{_pct(r.error(sta)):>9}"
+        )
+    for name, s in summary(corr).items():
+        if s is not None:
+            lines.append(
+                f"{name}: median |error| {s['median_abs_error'] * 100:.2f} %, worst "
+                f"{s['worst_abs_error'] * 100:.2f} %, mean {s['mean_error'] * 100:+.2f} % "
+                f"({s['paths']} paths)"
+            )
+    effects = ", ".join(f"{k} {_pct(v)}" for k, v in decomposition(corr).items())
+    lines.append(f"mean per-stage delay effects (tables minus simulation): {effects}")
+    return lines

@@ -1,0 +1,69 @@
+"""Simulating a whole circuit of cells (``records.paths``) at transistor level, and measuring
+when every node of interest crossed its thresholds.
+
+The circuit's input port gets the same input ramp a table point gets (``stimulus.ramp``); every
+other node is driven by the cells themselves, so each stage sees the waveform and the load a
+real gate makes. The run is as long as the driver asks (``PathPoint.stop``, from the tables'
+prediction with a margin); a node that has not settled by then is an error, never a number.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from charflow.config.library import LibraryConfig
+from charflow.measurement.combinational import LOGIC_MARGIN, backend_for, simulate
+from charflow.measurement.waves import KeepWaveform, single_crossing, transition, waveform
+from charflow.records.errors import MeasurementError
+from charflow.records.outcomes import PathMeasurement
+from charflow.records.points import PathPoint
+from charflow.simulation import stimulus
+from charflow.simulation.backends import Request
+from charflow.simulation.netlist import Deck
+
+
+def measure_path(config: LibraryConfig, deck: Deck, point: PathPoint) -> PathMeasurement:
+    """Run the circuit once with its input port ramped; measure every node of ``point``."""
+    vdd = config.process.vdd
+    ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, vdd)
+    commands = (f"alter @{deck.input_source(point.start)}[pulse] = {ramp.pulse()}",)
+    nodes = tuple(dict.fromkeys(node for node, _ in point.nodes))
+    analysis = f"tran {point.step:.6g} {max(point.stop, ramp.end):.6g} 0 {point.step:.6g}"
+    result, runs = simulate(backend_for(config), Request(deck, commands, analysis, nodes))
+    t = result.vectors["time"]
+    saved = KeepWaveform(lambda: waveform(result.vectors, {n: n for n in nodes}))
+    at_input, at_output, slews = [], [], []
+    with saved:
+        for node, edge in point.nodes:
+            t_in, t_out, slew = _node_edge(config, t, result.vectors[node], node, edge)
+            at_input.append(t_in)
+            at_output.append(t_out)
+            slews.append(slew)
+    return PathMeasurement(
+        point, tuple(at_input), tuple(at_output), tuple(slews), runs, result.seconds
+    )
+
+
+def _node_edge(
+    config: LibraryConfig, t: np.ndarray, v: np.ndarray, node: str, edge: str
+) -> tuple[float, float, float]:
+    """A node's input- and output-threshold crossings and its transition, once it is found
+    to leave the right rail and to settle at the other."""
+    vdd = config.process.vdd
+    thr = config.thresholds
+    final = vdd if edge == "rise" else 0.0
+    what = f"node {node}"
+    if abs(v[0] - (vdd - final)) > LOGIC_MARGIN * vdd:
+        raise MeasurementError(
+            f"{what} starts at {v[0]:.4g} V, not at {vdd - final:.4g} V: the circuit's side "
+            "inputs do not hold it where the functions say"
+        )
+    if abs(v[-1] - final) > config.simulation.settle * vdd * (1 + 1e-6):
+        raise MeasurementError(
+            f"{what} is at {v[-1]:.4g} V when the run ends at {t[-1]:.4g} s, not settled at "
+            f"{final:.4g} V"
+        )
+    t_in = single_crossing(t, v, thr.delay_input(edge) * vdd, edge, what)
+    t_out = single_crossing(t, v, thr.delay_output(edge) * vdd, edge, what)
+    raw = transition(t, v, vdd, thr.slew_band(edge), edge, what)
+    return t_in, t_out, raw / thr.slew_derate
