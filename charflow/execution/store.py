@@ -39,6 +39,7 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    SpreadMeasurement,
     ToggleMeasurement,
 )
 from charflow.records.points import Work
@@ -46,11 +47,25 @@ from charflow.simulation.netlist import Deck, model_files
 
 FILE_NAME = "store.sqlite"
 # What a row holds: any outcome but a Failure.
-Result = Measurement | SearchResult | ToggleMeasurement | LeakageResult | FunctionChecked
+Result = (
+    Measurement
+    | SearchResult
+    | ToggleMeasurement
+    | LeakageResult
+    | FunctionChecked
+    | SpreadMeasurement
+)
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
     cls.__name__: cls
-    for cls in (Measurement, SearchResult, ToggleMeasurement, LeakageResult, FunctionChecked)
+    for cls in (
+        Measurement,
+        SearchResult,
+        ToggleMeasurement,
+        LeakageResult,
+        FunctionChecked,
+        SpreadMeasurement,
+    )
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters

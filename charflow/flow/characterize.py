@@ -26,6 +26,7 @@ from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
 from charflow.plan import arcs as planning
 from charflow.plan.cellwork import function_points, leakage_points
+from charflow.plan.spread import spread_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records import errors
 from charflow.records.errors import ConfigError, OutputError
@@ -43,6 +44,7 @@ from charflow.records.outcomes import (
     Measurement,
     Outcome,
     SearchResult,
+    SpreadMeasurement,
     ToggleMeasurement,
 )
 from charflow.records.points import (
@@ -52,6 +54,7 @@ from charflow.records.points import (
     LeakagePoint,
     Plan,
     PulsePoint,
+    SpreadPoint,
     State,
     TimingPoint,
     TogglePoint,
@@ -60,6 +63,7 @@ from charflow.records.points import (
 from charflow.simulation.netlist import Deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
+from charflow.tables import spread as spread_tables
 from charflow.tables.tabulate import ArcTables, CellTables, tabulate
 
 
@@ -83,6 +87,12 @@ class RunResult:
     # With a gap-filling method: the failed points it filled (in the tables, never stored) and
     # those it could not (still in ``failures``).
     gap_report: gaps.GapReport | None = None
+    # With [mismatch] method set: the spread points measured, those that failed (reported;
+    # they leave their arc without sigma tables, never stop the nominal library) and the
+    # sigma tables.
+    spreads: tuple[SpreadMeasurement, ...] = ()
+    spread_failures: tuple[Failure, ...] = ()
+    spread: tuple[spread_tables.ArcSpread, ...] = ()
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -107,8 +117,22 @@ class RunResult:
     @property
     def simulations(self) -> int:
         """Simulator runs of this run, refinements and retries included."""
-        done = (*self.measurements, *self.toggles, *self.leakage)
+        done = (*self.measurements, *self.toggles, *self.leakage, *self.spreads)
         return sum(m.runs for m in done if m.point not in self.reused)
+
+    def spread_cost(self) -> tuple[int, int, int]:
+        """Simulations of the sigma tables, of the Monte Carlo checks beside them, and of the
+        nominal combinational points they are for (measured or stored: the ratio is the
+        method's, not this run's)."""
+        method = self.spreads[0].point.samples > 0 if self.spreads else False
+        tables = sum(m.runs for m in self.spreads if (m.point.samples > 0) == method)
+        checks = sum(m.runs for m in self.spreads if (m.point.samples > 0) != method)
+        nominal = sum(
+            m.runs
+            for m in self.measurements
+            if isinstance(m, Measurement) and m.point.kind == "combinational"
+        )
+        return tables, checks, nominal
 
     @property
     def sim_seconds(self) -> float:
@@ -141,6 +165,8 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
         kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
         quantity = f"{p.data_edge}_constraint"
         return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
+    if isinstance(p, SpreadPoint):  # the sigma tables beside the point's timing tables
+        return [f"{name} (sigma)" for name in _tables_of(plan, p.timing)]
     arc = next(
         a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
     )
@@ -216,9 +242,15 @@ class _Collected:
     unmeasured: list[Failure] = field(default_factory=list)  # toggles that failed
     leaks: dict[str, LeakageResult] = field(default_factory=dict)
     reused: set[Work] = field(default_factory=set)
+    spreads: list[SpreadMeasurement] = field(default_factory=list)
+    spread_failures: list[Failure] = field(default_factory=list)
 
     def keep(self, outcome: Outcome) -> None:
-        if isinstance(outcome, ToggleMeasurement):
+        if isinstance(outcome, SpreadMeasurement):
+            self.spreads.append(outcome)
+        elif isinstance(outcome, Failure) and isinstance(outcome.point, SpreadPoint):
+            self.spread_failures.append(outcome)
+        elif isinstance(outcome, ToggleMeasurement):
             self.toggles.append(outcome)
         elif isinstance(outcome, LeakageResult):
             self.leaks[outcome.point.cell] = outcome
@@ -241,6 +273,8 @@ class _Collected:
     def sort(self, order: dict[Work, int]) -> None:
         for outcomes in (self.measurements, self.failures, self.toggles, self.unmeasured):
             outcomes.sort(key=lambda m: order[m.point])
+        for spread in (self.spreads, self.spread_failures):
+            spread.sort(key=lambda m: order[m.point])
 
 
 def characterize(
@@ -273,6 +307,8 @@ def characterize(
     made_by = provenance.build(config, provenance.simulator(config, jobs))
     chosen, toggle_points, names, work = _work(config, cells, arc)
     decks = {n: build_deck(config, config.cell(n)) for n in names}
+    spread = spread_points(config, chosen, {n: len(d.devices) for n, d in decks.items()})
+    work = (*work, *spread)
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
     if on_start is not None:
         on_start(sweep.work(work))
@@ -296,6 +332,7 @@ def characterize(
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
     tables, cell_power = _tabulate(config, the_plan, got, report)
+    sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
     return RunResult(
         plan=the_plan,
         measurements=tuple(got.measurements),
@@ -311,6 +348,9 @@ def characterize(
         unmeasured=tuple(got.unmeasured),
         cell_power=cell_power,
         gap_report=report,
+        spreads=tuple(got.spreads),
+        spread_failures=tuple(got.spread_failures),
+        spread=sigma,
     )
 
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import itertools
 import logging
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from functools import partial
 
@@ -119,14 +119,18 @@ def alters(
     values: dict[str, str],
     loads: dict[str, float],
     grid: str = PARKED_GRID,
+    shifts: Mapping[str, float] | None = None,
 ) -> tuple[str, ...]:
     """``alter`` commands setting every input's PULSE, every output's load (unlisted outputs
-    stay parked at a negligible load) and the breakpoint source."""
+    stay parked at a negligible load), the breakpoint source and every transistor's threshold
+    shift (V, by device name; unlisted devices at 0: no run inherits another's)."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
     commands.append(f"alter @vgrid[pwl] = {grid}")
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
     ]
+    shift = shifts or {}
+    commands += [f"alter @{d.path}[dc] = {shift.get(d.name, 0.0):.9g}" for d in deck.devices]
     return tuple(commands)
 
 
@@ -188,10 +192,16 @@ def static_current(config: LibraryConfig, deck: Deck, assign: dict[str, bool]) -
 
 
 def measure_point(
-    config: LibraryConfig, deck: Deck, point: TimingPoint, *, step: float | None = None
+    config: LibraryConfig,
+    deck: Deck,
+    point: TimingPoint,
+    *,
+    step: float | None = None,
+    shifts: Mapping[str, float] | None = None,
 ) -> Measurement:
     """Simulate and measure one point; ``step`` overrides the first maximum step, which is
-    otherwise estimated from the point's series (``stepsize``)."""
+    otherwise estimated from the point's series (``stepsize``); ``shifts`` are threshold
+    shifts (V) by transistor (``mismatch``), none by default."""
     if step is None:
         known = probed(config, deck, point)
         if known is not None:
@@ -204,7 +214,7 @@ def measure_point(
     ramp = stimulus.ramp(point.slew, point.input_edge, thr, vdd)
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    commands = alters(deck, cell, values, point_loads(cell, point))
+    commands = alters(deck, cell, values, point_loads(cell, point), shifts=shifts)
     out_node = deck.output_node(point.output)
     out_nodes = tuple(deck.output_node(o.pin) for o in cell.outputs)
     in_node = deck.input_node(point.related)

@@ -12,7 +12,14 @@ import time
 from collections.abc import Callable, Sequence
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import combinational, ffpower, floptoggle, power, sequential
+from charflow.measurement import (
+    combinational,
+    ffpower,
+    floptoggle,
+    power,
+    sequential,
+    variation,
+)
 from charflow.measurement.combinational import explain, window_advice
 from charflow.records.errors import (
     CutOffError,
@@ -36,6 +43,7 @@ from charflow.records.points import (
     FunctionPoint,
     LeakagePoint,
     PulsePoint,
+    SpreadPoint,
     TogglePoint,
     Work,
 )
@@ -55,6 +63,8 @@ def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
         return sequential.measure_constraint(config, deck, point)
     if isinstance(point, PulsePoint):
         return sequential.measure_pulse(config, deck, point)
+    if isinstance(point, SpreadPoint):
+        return variation.measure_spread(config, deck, point)
     if point.kind != "combinational":
         return sequential.measure_clocked(config, deck, point)
     return combinational.measure_point(config, deck, point)
