@@ -124,7 +124,7 @@ class RunResult:
         """Simulations of the sigma tables, of the Monte Carlo checks beside them, and of the
         nominal combinational points they are for (measured or stored: the ratio is the
         method's, not this run's)."""
-        method = self.spreads[0].point.samples > 0 if self.spreads else False
+        method = all(m.point.samples > 0 for m in self.spreads)  # the sampled method
         tables = sum(m.runs for m in self.spreads if (m.point.samples > 0) == method)
         checks = sum(m.runs for m in self.spreads if (m.point.samples > 0) != method)
         nominal = sum(
@@ -466,12 +466,87 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         },
         **_fault_records(result),
         "liberty": liberty.describe(config, result.cells, result.cell_power),
+        **({"spread": _spread_record(config, result)} if result.spreads else {}),
         # Tables served from stored results whose inputs were not the ones named above.
         "stale_tables": [
             {"changed_models": list(models), "tables": names}
             for models, names in result.stale_tables().items()
         ],
     }
+
+
+def _spread_record(config: LibraryConfig, result: RunResult) -> dict[str, Any]:
+    """The sigma tables, the transistor that dominates each arc edge's delay spread (the
+    largest share of σ² summed over the arc's sensitivity points), and every spread point
+    with its sensitivities per transistor or its samples' statistics."""
+    tables, checks, nominal = result.spread_cost()
+    shares: dict[tuple[str, str, str, str], dict[str, float]] = {}
+    for m in (m for m in result.spreads if not m.point.samples):
+        p = m.point.timing
+        arc = shares.setdefault((p.cell, p.related, p.output, p.output_edge), {})
+        for device, share in spread_tables.contributions(m.shifts, "delay").items():
+            arc[device] = arc.get(device, 0.0) + share
+    return {
+        "method": config.mismatch.method,
+        "simulations": {"sigma_tables": tables, "checks": checks, "nominal": nominal},
+        "dominant": [
+            {
+                "cell": c,
+                "related": r,
+                "output": o,
+                "output_edge": e,
+                "transistor": max(d, key=d.__getitem__),
+            }
+            for (c, r, o, e), d in shares.items()
+        ],
+        "tables": [
+            {
+                "cell": a.cell,
+                "related": a.related,
+                "output": a.output,
+                "when": a.when,
+                "tables": [{**t.table.to_dict(), "sigma_type": t.sigma_type} for t in a.tables],
+            }
+            for a in result.spread
+        ],
+        "points": [_spread_point(m) for m in result.spreads],
+        "failures": [f.message for f in result.spread_failures],
+    }
+
+
+def _spread_point(m: SpreadMeasurement) -> dict[str, Any]:
+    record: dict[str, Any] = {
+        "cell": m.point.cell,
+        "point": m.point.timing.label,
+        "delay_s": m.delay,
+        "transition_s": m.transition,
+        "simulations": m.runs,
+    }
+    if m.point.samples:
+        delay, transition = (
+            spread_tables.sampled(v) for v in (m.sampled_delays, m.sampled_transitions)
+        )
+        n = len(m.sampled_delays)
+        record["samples"] = {
+            "count": n,
+            "failed": m.failed_samples,
+            "delay_sigma_s": delay.sigma,
+            "delay_sigma_interval_s": list(spread_tables.interval(delay.sigma, n)),
+            "transition_sigma_s": transition.sigma,
+            "transition_sigma_interval_s": list(spread_tables.interval(transition.sigma, n)),
+        }
+        return record
+    record["sensitivities"] = [
+        {
+            "transistor": s.device,
+            "sigma_vt_V": s.sigma,
+            "delay_at_plus_minus_sigma_s": list(s.delay),
+            "transition_at_plus_minus_sigma_s": list(s.transition),
+            "delay_per_volt_s_per_V": (s.delay[0] - s.delay[1]) / (2 * s.sigma),
+        }
+        for s in m.shifts
+    ]
+    return record
 
 
 def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) -> dict:
@@ -736,6 +811,7 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
                 header=header,
                 notes=notes,
                 three_axes=three_axes,
+                spread=result.spread,
             )
             write_atomic(out_dir / name, text)
             written.append(out_dir / name)
