@@ -308,3 +308,28 @@ def test_a_model_without_a_coefficient_names_the_transistor(tmp_path):
     )
     with pytest.raises(NetlistError, match=r"cell QINV_P1, device MP.*model pch.*vt_coefficient"):
         build_deck(cfg, cfg.cell("QINV_P1"))
+
+
+def test_sampled_method_tabulates_the_monte_carlo_sigma(tmp_path, ngspice):
+    # method = "sampled": every table point is a Monte Carlo run, its tables the samples'
+    # one-sigma percentiles about the median (a normal distribution's ±1σ: common practice).
+    path = _config(
+        tmp_path,
+        '[mismatch]\nmethod = "sampled"\nsamples = 20\n'
+        'device = [{ model = "nch", polarity = "n", vt_coefficient = 3.5 },'
+        ' { model = "pch", polarity = "p", vt_coefficient = 4.0 }]',
+    )
+    cfg = config.load(path)
+    result = flow.characterize(cfg, cells=["QINV_P1"], jobs=1)
+    assert all(m.point.samples == 20 for m in result.spreads)
+    assert len(result.spreads) == len(result.measurements)
+    arc = result.spread[0]
+    table = next(t for t in arc.tables if t.table.quantity == "ocv_sigma_cell_fall")
+    m = next(
+        m
+        for m in result.spreads
+        if m.point.timing.output_edge == "fall"
+        and m.point.coordinates == (table.table.axes[0].values[1], table.table.axes[1].values[2])
+    )
+    expected = spread.sampled(m.sampled_delays).of(table.sigma_type)
+    assert table.table.values[1, 2] == pytest.approx(expected, rel=1e-12)

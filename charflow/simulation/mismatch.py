@@ -67,29 +67,32 @@ def insert_sources(
     its geometry cannot be read."""
     lines = text.splitlines()
     devices: list[Device] = []
+    sources: list[str] = []
     inside = False
     for card in spice_cards(text):
         tokens = card.text.split()
         head = tokens[0].lower()
         if head == ".subckt":
             inside = len(tokens) > 1 and tokens[1].lower() == subckt.lower()
-            continue
-        if head.startswith(".ends"):
+        elif head.startswith(".ends") and inside:
+            # The sources go last, so every card keeps its line for the simulator's messages;
+            # the sigmas are said in the text, so the deck's key (and the store's) follows them.
+            said = ", ".join(f"{d.name} {d.sigma * 1e3:.6g} mV" for d in devices)
+            sources.append(f"* threshold sigma per transistor: {said}")
+            lines[card.line - 1] = "\n".join([*sources, lines[card.line - 1]])
             inside = False
-            continue
-        if not inside or head[0] not in "mx":
-            continue
-        found = _device(config, cell, card.text, card.line)
-        if found is None:
-            continue
-        device, gate_at = found
-        gate = tokens[gate_at]
-        tokens[gate_at] = f"cf_gate_{device.name}".lower()
-        plus, minus = (gate, tokens[gate_at]) if device.polarity == "n" else (tokens[gate_at], gate)
-        lines[card.line - 1] = f"{' '.join(tokens)}\n{device.source} {plus} {minus} dc 0"
-        for _, number in card.lines[1:]:
-            lines[number - 1] = "*"  # the continuation, now on the card's first line
-        devices.append(device)
+        elif inside and head[0] in "mx":
+            found = _device(config, cell, card.text, card.line)
+            if found is None:
+                continue
+            device, gate_at = found
+            gate, tokens[gate_at] = tokens[gate_at], f"cf_gate_{device.name}".lower()
+            ends = (gate, tokens[gate_at]) if device.polarity == "n" else (tokens[gate_at], gate)
+            sources.append(f"{device.source} {ends[0]} {ends[1]} dc 0")
+            lines[card.line - 1] = " ".join(tokens)
+            for _, number in card.lines[1:]:
+                lines[number - 1] = "*"  # the continuation, now on the card's first line
+            devices.append(device)
     return "\n".join(lines) + "\n", tuple(devices)
 
 
