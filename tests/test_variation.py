@@ -333,3 +333,21 @@ def test_sampled_method_tabulates_the_monte_carlo_sigma(tmp_path, ngspice):
     )
     expected = spread.sampled(m.sampled_delays).of(table.sigma_type)
     assert table.table.values[1, 2] == pytest.approx(expected, rel=1e-12)
+
+
+def test_a_cell_of_unnamed_subcircuits_says_what_to_declare(tmp_path):
+    wrapped_only = """
+.subckt nwrap d g s b
+M1 d g s b nt W=1u L=1u
+.ends nwrap
+.subckt pwrap d g s b
+M1 d g s b pt W=2u L=1u
+.ends pwrap
+.subckt INVT A Y VDD VSS
+XP Y A VDD VDD pwrap
+XN Y A VSS VSS nwrap
+.ends INVT
+"""
+    cfg = config.load(_library(tmp_path, wrapped_only, MISMATCH, SQUARE_LAW, 0.05))
+    with pytest.raises(NetlistError, match=r"cell INVT.*no M card.*\[\[mismatch.wrapped\]\]"):
+        build_deck(cfg, cfg.cell("INVT"))

@@ -93,6 +93,14 @@ def insert_sources(
             for _, number in card.lines[1:]:
                 lines[number - 1] = "*"  # the continuation, now on the card's first line
             devices.append(device)
+    if not devices:
+        raise NetlistError(
+            f".subckt {subckt} has no M card and no instance of a [[mismatch.wrapped]] "
+            "subcircuit: name the subcircuits that stand for transistors there, or set "
+            '[mismatch] method = "off"',
+            file=cell.source,
+            cell=cell.name,
+        )
     return "\n".join(lines) + "\n", tuple(devices)
 
 
