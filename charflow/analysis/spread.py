@@ -15,6 +15,7 @@ from pathlib import Path
 from charflow.analysis.reporting import head, library_units, write_pair
 from charflow.config.library import LibraryConfig
 from charflow.flow.characterize import RunResult
+from charflow.records.errors import place
 from charflow.records.outcomes import SpreadMeasurement
 from charflow.records.units import show_time
 from charflow.tables import spread as st
@@ -27,7 +28,7 @@ QUANTITIES = ("delay", "transition")
 class Check:
     """One Monte Carlo check of one quantity at one point."""
 
-    label: str  # cell, arc, edges, state and point
+    label: str  # cell, arc, edges, state and point, in the library's units
     quantity: str  # delay | transition
     nominal: float  # s
     sampled: st.Sigmas  # s, from the samples
@@ -44,7 +45,7 @@ class Check:
         return (self.table.sigma - self.sampled.sigma) / self.sampled.sigma
 
 
-def checks(result: RunResult) -> tuple[Check, ...]:
+def checks(config: LibraryConfig, result: RunResult) -> tuple[Check, ...]:
     """Every sampled point of a linear-method run against the tables at that point."""
     linear = {m.point.timing: m for m in result.spreads if not m.point.samples}
     out = []
@@ -56,7 +57,7 @@ def checks(result: RunResult) -> tuple[Check, ...]:
             share = st.contributions(near.shifts, quantity) if near is not None else {}
             out.append(
                 Check(
-                    f"{m.point.cell} {m.point.timing.label}",
+                    place(m.point.timing.where(config)),
                     quantity,
                     m.delay if quantity == "delay" else m.transition,
                     mc,
@@ -98,7 +99,7 @@ def _tabled(result: RunResult, m: SpreadMeasurement, quantity: str) -> st.Sigmas
 
 def to_json(config: LibraryConfig, result: RunResult) -> dict:
     rows = []
-    for c in checks(result):
+    for c in checks(config, result):
         rows.append(
             {
                 "point": c.label,
@@ -160,5 +161,5 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
     """``<library>.spread.json`` and ``.html`` beside the library."""
     doc = to_json(config, result)
     return write_pair(
-        out_dir, f"{config.name}.spread", doc, ".html", to_html(config, checks(result))
+        out_dir, f"{config.name}.spread", doc, ".html", to_html(config, checks(config, result))
     )
