@@ -6,6 +6,7 @@ yosys and OpenSTA, and the errors a bad mismatch config gives.
 
 from __future__ import annotations
 
+import json
 import math
 import subprocess
 from pathlib import Path
@@ -15,6 +16,7 @@ import pytest
 from consumer_tools import sta, sta_complaints, tool
 from liberty.parser import parse_liberty
 
+from charflow.analysis import spread as spread_report
 from charflow.config import library as config
 from charflow.flow import characterize as flow
 from charflow.measurement import variation
@@ -218,7 +220,7 @@ def characterized(tmp_path_factory, ngspice):
 
 
 def test_linear_sigma_against_monte_carlo(characterized):
-    cfg, result, _ = characterized
+    cfg, result, out = characterized
     linear = {m.point.timing: m for m in result.spreads if not m.point.samples}
     checked = 0
     for m in (m for m in result.spreads if m.point.samples):
@@ -228,6 +230,12 @@ def test_linear_sigma_against_monte_carlo(characterized):
         assert low * (1 - LINEAR_VS_MC) <= lin <= high * (1 + LINEAR_VS_MC)
         checked += 1
     assert checked == 2  # one check per output edge
+    # The report: each check's delay and transition, the tables' sigma beside Monte Carlo's.
+    paths = spread_report.write(cfg, result, out)
+    rows = json.loads(paths[0].read_text(encoding="utf-8"))["checks"]
+    assert len(rows) == 4
+    assert all(r["table_sigma_s"] is not None for r in rows)
+    assert "tables vs MC" in paths[1].read_text(encoding="utf-8")
 
 
 def test_sigma_groups_in_liberty_and_consumers(characterized):
