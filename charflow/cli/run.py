@@ -23,6 +23,7 @@ estimate = shared.deferred("charflow.analysis.estimate")
 faults = shared.deferred("charflow.io.faults")
 flow = shared.deferred("charflow.flow.characterize")
 gaps = shared.deferred("charflow.tables.gaps")
+spread_report = shared.deferred("charflow.analysis.spread")
 store_mod = shared.deferred("charflow.execution.store")
 workers = shared.deferred("charflow.execution.workers")
 
@@ -151,6 +152,8 @@ def _library(
     finally:
         progress.close()
     written = flow.write(lib, result, out)
+    if result.spreads:
+        written += spread_report.write(lib, result, out)
     _summary(lib.name, result, selective=cells is not None)
     _written(written, out)
     _gaps(lib.name, result, out)
@@ -240,6 +243,8 @@ def _summary(name: str, result: RunResult, *, selective: bool) -> None:
         f"{len(result.reused)} reused from the store; simulator time {result.sim_seconds:.2f} s "
         f"(all workers), wall time {result.wall_seconds:.2f} s"
     )
+    if result.spreads:
+        _spread_summary(name, result)
     for models, tables in result.stale_tables().items():
         print(f"{name}: {len(tables)} tables are {_why_stale(models)}: {_by_arc(tables)}")
     if result.stale and selective:
@@ -259,6 +264,24 @@ def _summary(name: str, result: RunResult, *, selective: bool) -> None:
             f"{name}: left out {', '.join(result.left_out)}: the store does not hold all their "
             "points; run them once in full"
         )
+
+
+def _spread_summary(name: str, result: RunResult) -> None:
+    """What the sigma tables cost beside the nominal combinational points they are for."""
+    tables, checks, nominal = result.spread_cost()
+    sampled = all(m.point.samples for m in result.spreads)
+    points = [m for m in result.spreads if bool(m.point.samples) == sampled]
+    per_point = tables / len(points) if points else 0.0
+    ratio = (
+        f"{tables / nominal:.2f}x the nominal combinational points' {nominal}" if nominal else "-"
+    )
+    print(
+        f"{name}: sigma tables: {len(points)} spread points, {tables} simulations "
+        f"({per_point:.1f} a point; {ratio}); Monte Carlo checks: {checks} simulations; "
+        f"{len(result.spread_failures)} spread point(s) failed"
+    )
+    for f in result.spread_failures[:LISTED]:
+        print(f"  {f.message}", file=sys.stderr)
 
 
 def _why_stale(models: tuple[str, ...]) -> str:

@@ -233,6 +233,56 @@ class Corner:
     temperature: float  # degrees C
 
 
+# How the spread of delays and transitions is found (``[mismatch] method``): not at all, by
+# first-order sensitivities to each transistor's threshold, or by sampling (Monte Carlo).
+SPREAD_METHODS = ("off", "linear", "sampled")
+# Where the linear method measures sensitivities (``[mismatch] linear_grid``): at the first,
+# middle and last value of each axis, interpolated between (``sparse``), or at every point.
+LINEAR_GRIDS = ("sparse", "full")
+
+
+@dataclass(frozen=True, slots=True)
+class DeviceMismatch:
+    """The threshold mismatch of one device type (SPICE model name): Pelgrom's area
+    coefficient A_Vt, σ(ΔVt) = A_Vt / √(W·L) (Pelgrom, Duinmaijer & Welbers, IEEE JSSC
+    24(5), 1989)."""
+
+    model: str  # as the netlist names it (case-insensitive, like SPICE)
+    polarity: str  # "n" | "p": which way a higher |Vt| moves the gate
+    vt_coefficient: float  # V·m (the config's mV·µm × 1e-9)
+
+
+@dataclass(frozen=True, slots=True)
+class WrappedDevice:
+    """A subcircuit that stands for one transistor (a foundry kit's wrapped device): which of
+    its parameters are the width and length, which port is the gate, and its model's name."""
+
+    subckt: str
+    model: str  # a DeviceMismatch's model
+    width: str  # instance parameter holding W (m)
+    length: str  # instance parameter holding L (m)
+    gate: int  # 1-based position of the gate among the instance's nodes
+
+
+@dataclass(frozen=True, slots=True)
+class Mismatch:
+    """``[mismatch]``: per-transistor threshold variation and how its spread is found."""
+
+    method: str = "off"  # SPREAD_METHODS
+    devices: tuple[DeviceMismatch, ...] = ()
+    wrapped: tuple[WrappedDevice, ...] = ()
+    linear_grid: str = "sparse"  # LINEAR_GRIDS
+    samples: int = 500  # Monte Carlo samples per sampled point
+    checks: int = 1  # Monte Carlo reference points per arc edge and state (linear method)
+    seed: int = 1
+
+    def device(self, model: str) -> DeviceMismatch | None:
+        return next((d for d in self.devices if d.model.lower() == model.lower()), None)
+
+    def wrapper(self, subckt: str) -> WrappedDevice | None:
+        return next((w for w in self.wrapped if w.subckt.lower() == subckt.lower()), None)
+
+
 @dataclass(frozen=True, slots=True)
 class LibraryConfig:
     path: Path
@@ -248,6 +298,7 @@ class LibraryConfig:
     error_bars: ErrorBars = field(default_factory=ErrorBars)
     corners: tuple[Corner, ...] = ()
     liberty: LibertyOptions = field(default_factory=LibertyOptions)
+    mismatch: Mismatch = field(default_factory=Mismatch)
     corner: Corner | None = None  # the corner this library is at (``at``); None: the process's
     input_shape: InputShape = field(default_factory=InputShape)  # ``[input_shape]``
     digest: str | None = None  # sha256 of the file's bytes ``load`` read; None: not from a file
@@ -468,8 +519,12 @@ _TOP_KEYS = {
     "corner",
     "liberty",
     "input_shape",
+    "mismatch",
 }
 _SHAPE_KEYS = {"kind", "driver", "driver_slew", "fanout_pin", "fanout", "load", "file"}
+_MISMATCH_KEYS = {"method", "device", "wrapped", "linear_grid", "samples", "checks", "seed"}
+_DEVICE_KEYS = {"model", "polarity", "vt_coefficient"}
+_WRAPPED_KEYS = {"subckt", "model", "width", "length", "gate"}
 _PIN = r"[A-Za-z_][A-Za-z0-9_]*"
 
 
@@ -510,6 +565,7 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
     _check_other_load(r, options, cells, cap_unit)
     shape_doc = r.section(doc, "input_shape", _SHAPE_KEYS, required=False)
     shape = _input_shape(r, shape_doc, base, cells, tscale, cscale)
+    mismatch = _mismatch(r, r.section(doc, "mismatch", _MISMATCH_KEYS, required=False))
 
     _raise_problems(r, path)
     if shape.kind == "file" and shape.file is not None:
@@ -531,6 +587,7 @@ def parse(doc: dict[str, Any], path: Path) -> LibraryConfig:
         corners=corners,
         liberty=options,
         input_shape=shape,
+        mismatch=mismatch,
     )
 
 
@@ -781,6 +838,87 @@ def _liberty(r: _Reader, doc: dict[str, Any], cscale: float) -> LibertyOptions:
         load_limit_factor=factors["load_limit_factor"] or d.load_limit_factor,
         slew_limit_factor=factors["slew_limit_factor"] or d.slew_limit_factor,
     )
+
+
+def _mismatch(r: _Reader, doc: dict[str, Any]) -> Mismatch:
+    d = Mismatch()
+    method = r.get(doc, "method", str, "mismatch", d.method)
+    if method is not None and method not in SPREAD_METHODS:
+        r.problem("mismatch.method", f"must be one of {', '.join(SPREAD_METHODS)}, got {method!r}")
+    grid = r.get(doc, "linear_grid", str, "mismatch", d.linear_grid)
+    if grid is not None and grid not in LINEAR_GRIDS:
+        r.problem("mismatch.linear_grid", f"must be one of {', '.join(LINEAR_GRIDS)}, got {grid!r}")
+    counts = {}
+    for key, least in (("samples", 2), ("checks", 0), ("seed", 0)):
+        value = r.get(doc, key, int, "mismatch", getattr(d, key))
+        if value is not None and value < least:
+            r.problem(f"mismatch.{key}", f"must be at least {least}, got {value}")
+            value = None
+        counts[key] = getattr(d, key) if value is None else value
+    devices = _mismatch_devices(r, doc.get("device", []))
+    wrapped = _wrapped_devices(r, doc.get("wrapped", []), devices)
+    if method not in (None, "off") and not devices:
+        r.problem(
+            "mismatch.device",
+            f"method {method!r} needs at least one [[mismatch.device]] with a model's "
+            "vt_coefficient (mV·µm)",
+        )
+    return Mismatch(method or d.method, devices, wrapped, grid or d.linear_grid, **counts)
+
+
+def _mismatch_devices(r: _Reader, docs: Any) -> tuple[DeviceMismatch, ...]:
+    if not isinstance(docs, list):
+        r.problem("mismatch.device", "must be an array of tables: [[mismatch.device]]")
+        return ()
+    out: list[DeviceMismatch] = []
+    for i, doc in enumerate(docs):
+        key = f"mismatch.device[{i}]"
+        if not isinstance(doc, dict):
+            r.problem(key, "must be a table")
+            continue
+        r.unknown(doc, _DEVICE_KEYS, key, None)
+        model = r.get(doc, "model", str, key)
+        polarity = r.get(doc, "polarity", str, key)
+        if polarity is not None and polarity not in ("n", "p"):
+            r.problem(f"{key}.polarity", f'must be "n" or "p", got {polarity!r}')
+            polarity = None
+        # mV·µm in the config: 1e-3 V × 1e-6 m.
+        coefficient = r.number(doc, "vt_coefficient", key, low=0.0)
+        if model is not None and any(d.model.lower() == model.lower() for d in out):
+            r.problem(f"{key}.model", f"model {model!r} is given twice")
+        elif model is not None and polarity is not None and coefficient is not None:
+            out.append(DeviceMismatch(model, polarity, coefficient * 1e-9))
+    return tuple(out)
+
+
+def _wrapped_devices(
+    r: _Reader, docs: Any, devices: tuple[DeviceMismatch, ...]
+) -> tuple[WrappedDevice, ...]:
+    if not isinstance(docs, list):
+        r.problem("mismatch.wrapped", "must be an array of tables: [[mismatch.wrapped]]")
+        return ()
+    out: list[WrappedDevice] = []
+    models = {d.model.lower() for d in devices}
+    for i, doc in enumerate(docs):
+        key = f"mismatch.wrapped[{i}]"
+        if not isinstance(doc, dict):
+            r.problem(key, "must be a table")
+            continue
+        r.unknown(doc, _WRAPPED_KEYS, key, None)
+        subckt = r.get(doc, "subckt", str, key)
+        model = r.get(doc, "model", str, key)
+        width = r.get(doc, "width", str, key, "w")
+        length = r.get(doc, "length", str, key, "l")
+        gate = r.get(doc, "gate", int, key, 2)
+        if gate is not None and gate < 1:
+            r.problem(f"{key}.gate", f"must be a node position from 1, got {gate}")
+            gate = None
+        if model is not None and model.lower() not in models:
+            r.problem(f"{key}.model", f"no [[mismatch.device]] has model {model!r}")
+            model = None
+        if None not in (subckt, model, width, length, gate):
+            out.append(WrappedDevice(subckt, model, width, length, gate))
+    return tuple(out)
 
 
 def _check_other_load(

@@ -41,6 +41,7 @@ from charflow.records.outcomes import (
     Outcome,
     SearchResult,
     ShapeResult,
+    SpreadMeasurement,
     TightMeasurement,
     ToggleMeasurement,
 )
@@ -57,6 +58,7 @@ Result = (
     | FunctionChecked
     | TightMeasurement
     | ShapeResult
+    | SpreadMeasurement
 )
 # The result records a row may hold, by name; any point type and any of these records work.
 RECORDS: dict[str, type] = {
@@ -69,6 +71,7 @@ RECORDS: dict[str, type] = {
         FunctionChecked,
         TightMeasurement,
         ShapeResult,
+        SpreadMeasurement,
     )
 }
 SCHEMA = 1  # PRAGMA user_version of a database this module writes

@@ -27,6 +27,7 @@ from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
 from charflow.plan import arcs as planning
 from charflow.plan.cellwork import function_points, leakage_points, tight_points
+from charflow.plan.spread import spread_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records import errors
 from charflow.records.errors import ConfigError, OutputError
@@ -45,6 +46,7 @@ from charflow.records.outcomes import (
     Outcome,
     SearchResult,
     ShapeResult,
+    SpreadMeasurement,
     TightMeasurement,
     ToggleMeasurement,
 )
@@ -59,6 +61,7 @@ from charflow.records.points import (
     Plan,
     PulsePoint,
     ShapePoint,
+    SpreadPoint,
     State,
     TightPoint,
     TimingPoint,
@@ -68,6 +71,7 @@ from charflow.records.points import (
 from charflow.simulation.netlist import Deck, build_chain_deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
+from charflow.tables import spread as spread_tables
 from charflow.tables.table import Table
 from charflow.tables.tabulate import ArcTables, CellTables, tabulate
 
@@ -98,6 +102,12 @@ class RunResult:
     unbarred: tuple[Failure, ...] = ()
     # The input waveform every point had: the config's, with the driver's edges measured.
     input_shape: InputShape = field(default_factory=InputShape)
+    # With [mismatch] method set: the spread points measured, those that failed (reported;
+    # they leave their arc without sigma tables, never stop the nominal library) and the
+    # sigma tables.
+    spreads: tuple[SpreadMeasurement, ...] = ()
+    spread_failures: tuple[Failure, ...] = ()
+    spread: tuple[spread_tables.ArcSpread, ...] = ()
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -122,8 +132,22 @@ class RunResult:
     @property
     def simulations(self) -> int:
         """Simulator runs of this run, refinements and retries included."""
-        done = (*self.measurements, *self.toggles, *self.leakage, *self.tight)
+        done = (*self.measurements, *self.toggles, *self.leakage, *self.tight, *self.spreads)
         return sum(m.runs for m in done if m.point not in self.reused)
+
+    def spread_cost(self) -> tuple[int, int, int]:
+        """Simulations of the sigma tables, of the Monte Carlo checks beside them, and of the
+        nominal combinational points they are for (measured or stored: the ratio is the
+        method's, not this run's)."""
+        method = all(m.point.samples > 0 for m in self.spreads)  # the sampled method
+        tables = sum(m.runs for m in self.spreads if (m.point.samples > 0) == method)
+        checks = sum(m.runs for m in self.spreads if (m.point.samples > 0) != method)
+        nominal = sum(
+            m.runs
+            for m in self.measurements
+            if isinstance(m, Measurement) and m.point.kind == "combinational"
+        )
+        return tables, checks, nominal
 
     @property
     def sim_seconds(self) -> float:
@@ -157,6 +181,8 @@ def _tables_of(plan: Plan, p: Work) -> list[str]:
         kind = f"{p.kind}_{'rising' if p.clock_edge == 'rise' else 'falling'}"
         quantity = f"{p.data_edge}_constraint"
         return [table_name(p.cell, p.related, p.constrained, "", quantity, kind)]
+    if isinstance(p, SpreadPoint):  # the sigma tables beside the point's timing tables
+        return [f"{name} (sigma)" for name in _tables_of(plan, p.timing)]
     arc = next(
         a for a in plan.arcs if (a.cell, a.related, a.output) == (p.cell, p.related, p.output)
     )
@@ -266,9 +292,15 @@ class _Collected:
     unbarred: list[Failure] = field(default_factory=list)  # tightened re-measures that failed
     leaks: dict[str, LeakageResult] = field(default_factory=dict)
     reused: set[Work] = field(default_factory=set)
+    spreads: list[SpreadMeasurement] = field(default_factory=list)
+    spread_failures: list[Failure] = field(default_factory=list)
 
     def keep(self, outcome: Outcome) -> None:
-        if isinstance(outcome, ToggleMeasurement):
+        if isinstance(outcome, SpreadMeasurement):
+            self.spreads.append(outcome)
+        elif isinstance(outcome, Failure) and isinstance(outcome.point, SpreadPoint):
+            self.spread_failures.append(outcome)
+        elif isinstance(outcome, ToggleMeasurement):
             self.toggles.append(outcome)
         elif isinstance(outcome, TightMeasurement):
             self.tight.append(outcome)
@@ -297,6 +329,8 @@ class _Collected:
             outcomes.sort(key=lambda m: order[m.point])
         self.tight.sort(key=lambda m: order[m.point.base])
         self.unbarred.sort(key=lambda f: order[f.point])  # sweep work: in ``order``
+        for spread in (self.spreads, self.spread_failures):
+            spread.sort(key=lambda m: order[m.point])
 
 
 def characterize(
@@ -330,6 +364,8 @@ def characterize(
     config = shaped(config, store=store, jobs=jobs, scheduler=scheduler)
     chosen, toggle_points, names, work = _work(config, cells, arc)
     decks = {n: build_deck(config, config.cell(n)) for n in names}
+    spread = spread_points(config, chosen, {n: len(d.devices) for n, d in decks.items()})
+    work = (*work, *spread)
     verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
     if on_start is not None:
         on_start(sweep.work(work))
@@ -353,6 +389,7 @@ def characterize(
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
     tables, cell_power = _tabulate(config, the_plan, got, report)
+    sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
     return RunResult(
         plan=the_plan,
         measurements=tuple(got.measurements),
@@ -371,6 +408,9 @@ def characterize(
         tight=tuple(m for m in got.tight if m.point.cell not in left_out),
         unbarred=tuple(got.unbarred),
         input_shape=config.input_shape,
+        spreads=tuple(got.spreads),
+        spread_failures=tuple(got.spread_failures),
+        spread=sigma,
     )
 
 
@@ -500,6 +540,7 @@ def to_json(config: LibraryConfig, result: RunResult) -> dict:
         **_fault_records(result),
         **_error_bar_settings(config, result),
         "liberty": liberty.describe(config, result.cells, result.cell_power),
+        **({"spread": _spread_record(config, result)} if result.spreads else {}),
         # Tables served from stored results whose inputs were not the ones named above.
         "stale_tables": [
             {"changed_models": list(models), "tables": names}
@@ -529,6 +570,80 @@ def with_shape(config: LibraryConfig, result: RunResult) -> LibraryConfig:
     """``config`` with the input shape ``result`` was measured with (a driver's edges): what a
     later re-simulation of its points (the fidelity check) must use."""
     return replace(config, input_shape=result.input_shape)
+
+
+def _spread_record(config: LibraryConfig, result: RunResult) -> dict[str, Any]:
+    """The sigma tables, the transistor that dominates each arc edge's delay spread (the
+    largest share of σ² summed over the arc's sensitivity points), and every spread point
+    with its sensitivities per transistor or its samples' statistics."""
+    tables, checks, nominal = result.spread_cost()
+    shares: dict[tuple[str, str, str, str], dict[str, float]] = {}
+    for m in (m for m in result.spreads if not m.point.samples):
+        p = m.point.timing
+        arc = shares.setdefault((p.cell, p.related, p.output, p.output_edge), {})
+        for device, share in spread_tables.contributions(m.shifts, "delay").items():
+            arc[device] = arc.get(device, 0.0) + share
+    return {
+        "method": config.mismatch.method,
+        "simulations": {"sigma_tables": tables, "checks": checks, "nominal": nominal},
+        "dominant": [
+            {
+                "cell": c,
+                "related": r,
+                "output": o,
+                "output_edge": e,
+                "transistor": max(d, key=d.__getitem__),
+            }
+            for (c, r, o, e), d in shares.items()
+        ],
+        "tables": [
+            {
+                "cell": a.cell,
+                "related": a.related,
+                "output": a.output,
+                "when": a.when,
+                "tables": [{**t.table.to_dict(), "sigma_type": t.sigma_type} for t in a.tables],
+            }
+            for a in result.spread
+        ],
+        "points": [_spread_point(m) for m in result.spreads],
+        "failures": [f.message for f in result.spread_failures],
+    }
+
+
+def _spread_point(m: SpreadMeasurement) -> dict[str, Any]:
+    record: dict[str, Any] = {
+        "cell": m.point.cell,
+        "point": m.point.timing.label,
+        "delay_s": m.delay,
+        "transition_s": m.transition,
+        "simulations": m.runs,
+    }
+    if m.point.samples:
+        delay, transition = (
+            spread_tables.sampled(v) for v in (m.sampled_delays, m.sampled_transitions)
+        )
+        n = len(m.sampled_delays)
+        record["samples"] = {
+            "count": n,
+            "failed": m.failed_samples,
+            "delay_sigma_s": delay.sigma,
+            "delay_sigma_interval_s": list(spread_tables.interval(delay.sigma, n)),
+            "transition_sigma_s": transition.sigma,
+            "transition_sigma_interval_s": list(spread_tables.interval(transition.sigma, n)),
+        }
+        return record
+    record["sensitivities"] = [
+        {
+            "transistor": s.device,
+            "sigma_vt_V": s.sigma,
+            "delay_at_plus_minus_sigma_s": list(s.delay),
+            "transition_at_plus_minus_sigma_s": list(s.transition),
+            "delay_per_volt_s_per_V": (s.delay[0] - s.delay[1]) / (2 * s.sigma),
+        }
+        for s in m.shifts
+    ]
+    return record
 
 
 def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) -> dict:
@@ -861,6 +976,7 @@ def write(config: LibraryConfig, result: RunResult, out_dir: Path) -> list[Path]
                 header=header,
                 notes=notes,
                 three_axes=three_axes,
+                spread=result.spread,
             )
             write_atomic(out_dir / name, text)
             written.append(out_dir / name)

@@ -21,7 +21,7 @@ table constant along it and sets no limit. Beyond them a tool extrapolates the t
 from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -35,6 +35,7 @@ from charflow.records.units import energy_unit, power_unit
 from charflow.tables import power as power_tables
 from charflow.tables import tabulate
 from charflow.tables.power import ArcPower, CellPower
+from charflow.tables.spread import ArcSpread, SigmaTable
 from charflow.tables.table import Axis, Table, drop_axis
 from charflow.tables.tabulate import ArcTables, CellTables
 
@@ -134,6 +135,11 @@ def _flat_tables(tables: Iterable[Table], rule: str | float) -> tuple[Table, ...
 def _flat_arc(arc: ArcTables, rule: str | float) -> ArcTables:
     states = tuple(replace(st, tables=_flat_tables(st.tables, rule)) for st in arc.states)
     return ArcTables(replace(arc.arc, other=None), _flat_tables(arc.default, rule), states)
+
+
+def _flat_sigma(tables: tuple[SigmaTable, ...], rule: str | float) -> tuple[SigmaTable, ...]:
+    flat = _flat_tables((s.table for s in tables), rule)
+    return tuple(replace(s, table=t) for s, t in zip(tables, flat, strict=True))
 
 
 def _flat_energy(arc: ArcPower, rule: str | float) -> ArcPower:
@@ -355,8 +361,12 @@ def _template_of(names: dict[TemplateKey, str], table: Table) -> str:
     return names[tuple((a.name, a.values) for a in table.axes)]
 
 
-def write_table(w: _Writer, config: LibraryConfig, table: Table, template: str) -> None:
+def write_table(
+    w: _Writer, config: LibraryConfig, table: Table, template: str, sigma_type: str = ""
+) -> None:
     w.open(table.quantity, template)
+    if sigma_type:  # a variation group (ocv_sigma_*): which side of the spread it is
+        w.attr("sigma_type", sigma_type)
     for k, (axis, scale) in enumerate(zip(table.axes, _scales(config, table), strict=True), 1):
         w.complex(f"index_{k}", _index(axis.values, scale))
     scaled = np.asarray(table.values) / _value_scale(config, table)
@@ -384,9 +394,10 @@ def _timing_group(
     arc: ArcTables,
     tables: tuple[Table, ...],
     state: State | None = None,
+    sigma: tuple[SigmaTable, ...] = (),
 ) -> None:
     """One timing group: the arc's default tables, or one sensitizing state's (``when`` and
-    the same condition in SDF's syntax, ``sdf_cond``)."""
+    the same condition in SDF's syntax, ``sdf_cond``), with their ``sigma`` tables after."""
     spec = arc.arc
     when = state.when if state is not None else ""
     w.open("timing")
@@ -404,6 +415,8 @@ def _timing_group(
         if table is not None:
             w.note(table_name(spec.cell, spec.related, spec.output, when, quantity, spec.kind))
             write_table(w, config, table, _template_of(names, table))
+    for s in sigma:
+        write_table(w, config, s.table, _template_of(names, s.table), s.sigma_type)
     w.close()
 
 
@@ -520,6 +533,11 @@ class _Context:
     names: dict[TemplateKey, str]
     energy_names: dict[TemplateKey, str]
     limits: Limits
+    # The sigma tables of each timing group, by (cell, related pin, output, when or None for
+    # the arc's default group).
+    spread: Mapping[tuple[str, str, str, str | None], tuple[SigmaTable, ...]] = field(
+        default_factory=dict
+    )
 
 
 def _signal_pin(w: _Writer, ctx: _Context, cell: CellSpec, pin: str, direction: str) -> None:
@@ -578,10 +596,13 @@ def _output_pin(
     function = next(o.function for o in spec.outputs if o.pin == out)
     w.attr("function", f'"{function.to_liberty()}"')
     for arc in (a for a in cell.arcs if a.arc.output == out):
-        _timing_group(w, config, ctx.names, arc, arc.default)
+        key = (spec.name, arc.arc.related, out)
+        sigma = ctx.spread.get((*key, None), ())
+        _timing_group(w, config, ctx.names, arc, arc.default, sigma=sigma)
         if len(arc.states) > 1:
             for st in arc.states:
-                _timing_group(w, config, ctx.names, arc, st.tables, st.state)
+                sigma = ctx.spread.get((*key, st.state.when), ())
+                _timing_group(w, config, ctx.names, arc, st.tables, st.state, sigma)
     for power in (a for a in (energy.arcs if energy else ()) if a.arc.output == out):
         related, other = power.arc.related, power.arc.other
         owner = (spec.name, out)
@@ -632,11 +653,13 @@ def render(
     header: Sequence[str] = (),
     notes: Mapping[str, str] | None = None,
     three_axes: bool = False,
+    spread: Iterable[ArcSpread] = (),
 ) -> str:
     """The whole library as Liberty text; ``powers`` adds each named cell's power groups.
     ``header`` lines become comments at the top, ``notes`` comments beside the tables and pin
     values they name (``diff.table_name``, ``diff.pin_name``). Two-output cells' tables are
-    reduced to two axes (``flatten``) unless ``three_axes``."""
+    reduced to two axes (``flatten``) unless ``three_axes``; ``spread`` adds the sigma tables
+    (Liberty's ocv_sigma groups) to the timing groups they name."""
     powers = tuple(powers)
     limit = limits(config, cells, powers)
     has_3d = has_three_axes(cells)
@@ -647,7 +670,11 @@ def render(
     _header(w, config, header, three_axes if has_3d else None)
     w.open("library", config.name)
     _library_attributes(w, config, limit)
-    ctx = _Context(config, templates(config, cells), power_templates(powers), limit)
+    sigma = {(a.cell, a.related, a.output, a.when): a.tables for a in spread}
+    if not three_axes:
+        sigma = {k: _flat_sigma(v, config.liberty.other_load) for k, v in sigma.items()}
+    names = templates(config, cells)
+    ctx = _Context(config, names, power_templates(powers), limit, sigma)
     _templates(w, config, "lu_table_template", ctx.names)
     _templates(w, config, "power_lut_template", ctx.energy_names)
     for cell in cells:

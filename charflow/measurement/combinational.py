@@ -120,10 +120,12 @@ def alters(
     values: Mapping[str, stimulus.Wave],
     loads: dict[str, float],
     grid: str = PARKED_GRID,
+    shifts: Mapping[str, float] | None = None,
 ) -> tuple[str, ...]:
     """``alter`` commands setting every input's wave (a PULSE, or a shaped edge's PWL), every
-    output's load (unlisted outputs stay parked at a negligible load) and the breakpoint
-    source."""
+    output's load (unlisted outputs stay parked at a negligible load), the breakpoint source
+    and every transistor's threshold shift (V, by device name; unlisted devices at 0: no run
+    inherits another's)."""
     commands = [
         c for p in cell.inputs for c in stimulus.set_source(deck.input_source(p), values[p])
     ]
@@ -131,6 +133,8 @@ def alters(
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
     ]
+    shift = shifts or {}
+    commands += [f"alter @{d.path}[dc] = {shift.get(d.name, 0.0):.9g}" for d in deck.devices]
     return tuple(commands)
 
 
@@ -198,11 +202,13 @@ def measure_point(
     *,
     step: float | None = None,
     tight: bool = False,
+    shifts: Mapping[str, float] | None = None,
 ) -> Measurement:
     """Simulate and measure one point; ``step`` overrides the first maximum step, which is
     otherwise estimated from the point's series (``stepsize``). With ``tight`` the point is
     measured at tightened settings (``stepsize.tightened``): every step it would take, first
-    or refined, over TIGHT_STEPS, and reltol over TIGHT_RELTOL."""
+    or refined, over TIGHT_STEPS, and reltol over TIGHT_RELTOL. ``shifts`` are threshold
+    shifts (V) by transistor (``mismatch``), none by default."""
     options: tuple[str, ...] = ()
     if step is None:
         known = None if tight else probed(config, deck, point)
@@ -219,7 +225,7 @@ def measure_point(
     values: dict[str, stimulus.Wave]
     values = {p: stimulus.constant(vdd if v else 0.0) for p, v in point.side}
     values[point.related] = ramp.pulse()
-    commands = alters(deck, cell, values, point_loads(cell, point))
+    commands = alters(deck, cell, values, point_loads(cell, point), shifts=shifts)
     out_node = deck.output_node(point.output)
     out_nodes = tuple(deck.output_node(o.pin) for o in cell.outputs)
     in_node = deck.input_node(point.related)

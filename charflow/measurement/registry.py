@@ -20,6 +20,7 @@ from charflow.measurement import (
     paths,
     power,
     sequential,
+    variation,
 )
 from charflow.measurement.combinational import explain, window_advice
 from charflow.records.errors import (
@@ -46,6 +47,7 @@ from charflow.records.points import (
     PathPoint,
     PulsePoint,
     ShapePoint,
+    SpreadPoint,
     TightPoint,
     TogglePoint,
     Work,
@@ -72,6 +74,8 @@ def measure(config: LibraryConfig, deck: Deck, point: Work) -> Outcome:
         return sequential.measure_pulse(config, deck, point)
     if isinstance(point, TightPoint):
         return combinational.measure_tight(config, deck, point)
+    if isinstance(point, SpreadPoint):
+        return variation.measure_spread(config, deck, point)
     if point.kind != "combinational":
         return sequential.measure_clocked(config, deck, point)
     return combinational.measure_point(config, deck, point)

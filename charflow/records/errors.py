@@ -10,7 +10,7 @@ from __future__ import annotations
 import copy
 from collections.abc import Mapping
 
-_CONTEXT_ORDER = ("file", "line", "key", "cell", "pin", "arc", "state", "point", "vector")
+_CONTEXT_ORDER = ("file", "line", "key", "cell", "device", "pin", "arc", "state", "point", "vector")
 
 
 class CharflowError(Exception):

@@ -18,6 +18,7 @@ from charflow.records.points import (
     PathPoint,
     PulsePoint,
     ShapePoint,
+    SpreadPoint,
     TightPoint,
     TimingPoint,
     TogglePoint,
@@ -198,6 +199,32 @@ class PathMeasurement:
     sim_seconds: float
 
 
+@dataclass(frozen=True, slots=True)
+class DeviceShift:
+    """What one transistor's threshold, moved by ±σ, does to a point (sensitivity method)."""
+
+    device: str  # the instance name in the cell's netlist
+    sigma: float  # V, σ(ΔVt)
+    delay: tuple[float, float]  # s: delay at +σ and at −σ, less the nominal delay
+    transition: tuple[float, float]  # s: the same for the transition (slew derate applied)
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadMeasurement:
+    """A point's delay and transition under mismatch: the nominal values and either each
+    transistor's ±σ shifts or the Monte Carlo samples."""
+
+    point: SpreadPoint
+    delay: float  # s, nominal
+    transition: float  # s, nominal
+    shifts: tuple[DeviceShift, ...]  # sensitivity method; () for samples
+    sampled_delays: tuple[float, ...]  # s, one per Monte Carlo sample
+    sampled_transitions: tuple[float, ...]  # s
+    runs: int
+    sim_seconds: float
+    failed_samples: int = 0  # samples whose run gave no measurement (left out, counted)
+
+
 # One outcome of a sweep point: what ``execution.sweep.run`` yields.
 Outcome = (
     Measurement
@@ -208,5 +235,6 @@ Outcome = (
     | TightMeasurement
     | ShapeResult
     | PathMeasurement
+    | SpreadMeasurement
     | Failure
 )

@@ -467,9 +467,60 @@ class PathPoint:
         }
 
 
+@dataclass(frozen=True, slots=True)
+class SpreadPoint:
+    """The spread of a combinational point's delay and transition under transistor mismatch:
+    with ``samples`` 0, its sensitivities (the point at +σ and −σ of each transistor's
+    threshold in turn); otherwise that many Monte Carlo samples of every threshold at once,
+    drawn from ``seed``."""
+
+    timing: TimingPoint
+    devices: int  # transistors with a threshold of their own
+    samples: int = 0
+    seed: int = 0
+
+    AXES: ClassVar[tuple[str, ...]] = TimingPoint.AXES
+    FILLABLE: ClassVar[bool] = False
+
+    @property
+    def cell(self) -> str:
+        return self.timing.cell
+
+    @property
+    def label(self) -> str:
+        how = f"{self.samples} samples" if self.samples else f"{self.devices} transistors"
+        return f"spread ({how}) of {self.timing.label}"
+
+    @property
+    def series(self) -> tuple[object, ...]:
+        return ("spread", self.samples > 0, *self.timing.series[1:])
+
+    @property
+    def coordinates(self) -> tuple[float, ...]:
+        return self.timing.coordinates
+
+    @property
+    def cost(self) -> int:
+        return 1 + (self.samples or 2 * self.devices)
+
+    def where(self, units: LibraryUnits) -> dict[str, str | None]:
+        where = self.timing.where(units)
+        how = f"Monte Carlo, {self.samples} samples" if self.samples else "sensitivities"
+        return {**where, "point": f"{where['point']} (spread: {how})"}
+
+
 # The points of a plan's tables; with the toggles, all the work a sweep hands to workers.
 Point = TimingPoint | ConstraintPoint | PulsePoint
-Work = Point | TogglePoint | LeakagePoint | FunctionPoint | TightPoint | ShapePoint | PathPoint
+Work = (
+    Point
+    | TogglePoint
+    | LeakagePoint
+    | FunctionPoint
+    | TightPoint
+    | ShapePoint
+    | PathPoint
+    | SpreadPoint
+)
 
 
 @dataclass(frozen=True, slots=True)

@@ -29,7 +29,8 @@ from charflow.records.errors import (
     SimulatorHungError,
     SimulatorTimeoutError,
 )
-from charflow.simulation.netlist import Card, Deck, model_files, spice_cards
+from charflow.simulation.cards import Card
+from charflow.simulation.netlist import Deck, model_files, spice_cards
 
 # Fallback ladder for runs that do not converge: each rung adds options to the previous one.
 RETRY_LADDER: tuple[tuple[str, ...], ...] = (

@@ -23,6 +23,8 @@ from charflow.config.library import CellSpec, LibraryConfig
 from charflow.config.resources import TEMPLATE_DIR
 from charflow.config.shapes import InputShape
 from charflow.records.errors import NetlistError
+from charflow.simulation.cards import spice_cards
+from charflow.simulation.mismatch import Device, insert_sources
 
 TESTBENCH = "testbench.sp.j2"
 
@@ -30,38 +32,6 @@ TESTBENCH = "testbench.sp.j2"
 PARKED_LOAD = 1e-18
 # The node a body pin with no voltage of its own is tied to: the supply of its kind.
 _TIED = {"nwell": "cf_vdd", "pwell": "0"}
-
-
-@dataclass(frozen=True, slots=True)
-class Card:
-    """One SPICE card: its physical lines joined (continuations start with ``+``), runs of
-    white space made one, ``$`` comments cut."""
-
-    text: str
-    lines: tuple[tuple[int, int], ...]  # (offset in ``text``, 1-based physical line) per part
-
-    @property
-    def line(self) -> int:
-        return self.lines[0][1]
-
-    def line_at(self, offset: int) -> int:
-        """The physical line holding ``text[offset]``."""
-        return max(n for start, n in self.lines if start <= offset)
-
-
-def spice_cards(text: str) -> list[Card]:
-    """Every card of a SPICE text, comment lines and blank lines left out: the one reading of
-    continuation lines the netlist check, the plausibility bounds and the error locator share."""
-    cards: list[Card] = []
-    for number, raw in enumerate(text.splitlines(), 1):
-        body = " ".join(raw.split("$")[0].split())
-        if body.startswith("+") and cards:
-            last = cards[-1]
-            part = body[1:].strip()
-            cards[-1] = Card(f"{last.text} {part}", (*last.lines, (len(last.text) + 1, number)))
-        elif body and not body.startswith("*"):
-            cards.append(Card(body, ((0, number),)))
-    return cards
 
 
 @dataclass(frozen=True, slots=True)
@@ -83,6 +53,9 @@ class Deck:
     # The cell's netlist or template, and its text as rendered: for locating simulator errors.
     source: Path | None = None
     cell_text: str = ""
+    # The transistors with a gate source of their own (``mismatch``); none unless the library
+    # asks for the spread of its delays.
+    devices: tuple[Device, ...] = ()
 
     @staticmethod
     def input_source(pin: str) -> str:
@@ -255,6 +228,9 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     cell_text = render_cell(cell)
     sub = find_subckt(cell_text, cell.name, source=cell.source)
     check_ports(cell, sub)
+    deck_text, devices = cell_text, tuple[Device, ...]()
+    if config.mismatch.method != "off":
+        deck_text, devices = insert_sources(config, cell, cell_text, sub.name)
     nodes = {cell.power.upper(): "cf_vdd", cell.ground.upper(): "0"}
     for b in cell.body:
         nodes[b.pin.upper()] = _TIED[b.kind] if b.voltage is None else Deck.body_node(b.kind)
@@ -269,7 +245,7 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
     text = _compiled((TEMPLATE_DIR / TESTBENCH).read_text(encoding="utf-8")).render(
         cell=cell.name,
         models=process.models,
-        cell_text=cell_text.rstrip("\n"),
+        cell_text=deck_text.rstrip("\n"),
         subckt=sub.name,
         port_nodes=[nodes[p.upper()] for p in sub.ports],
         inputs=[(Deck.input_source(p), Deck.input_node(p)) for p in cell.inputs],
@@ -282,7 +258,7 @@ def build_deck(config: LibraryConfig, cell: CellSpec) -> Deck:
         scale=process.scale,
     )
     key = hashlib.sha256(f"{process.compat}\n{text}".encode()).hexdigest()
-    return Deck(cell.name, text, key, "vsupply", process.compat, cell.source, cell_text)
+    return Deck(cell.name, text, key, "vsupply", process.compat, cell.source, cell_text, devices)
 
 
 # The driver chain's testbench (``build_chain_deck``): its input source and its output node.
