@@ -57,7 +57,6 @@ from charflow.records.outcomes import (
     waveform_of,
 )
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
-from charflow.records.units import show_time
 from charflow.simulation import stimulus
 from charflow.simulation.backends import RESETTABLE, Request, deck_options
 from charflow.simulation.netlist import Deck
@@ -95,6 +94,16 @@ FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
 # tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
 BRACKET_STEP = 4.0
+# Where a search's trials after its relaxed one expect their output edge (_Trials.expect): from
+# EXPECT_EDGES transitions before the relaxed edge to EXPECT_EDGES transitions after the relaxed
+# delay pushed out by EXPECT_PUSHOUTS x simulation.pushout (a trial near the pass limit is
+# pushed out by one; the refinement's own span is the band +- a transition and a step), at
+# EXPECT_SPACING x the spacing the relaxed edge wants: between breakpoints GRID_SPACING apart
+# ngspice steps about half of it, right at REFINE_SLACK (seq_l1's QDFFR_P1: 1.9 ps steps where
+# 1.82 were allowed).
+EXPECT_EDGES = 1.5
+EXPECT_PUSHOUTS = 1.5
+EXPECT_SPACING = 0.8
 
 
 @dataclass(frozen=True, slots=True)
@@ -110,6 +119,8 @@ class Outcome:
     energy: EventEnergy | None = None  # asked for with ``run_event``'s states
     stopped: float | None = None  # s, simulated time at which the run ended
     stop_cap: float | None = None  # s, the time the run could not go past
+    # (pin, t_out, transition) of each other output timed in the same run (``run_event``'s also)
+    others: tuple[tuple[str, float, float], ...] = ()
 
     @property
     def delay(self) -> float:
@@ -213,18 +224,34 @@ def _edge_grid(
     """Breakpoints from the event through the output ``edge`` (with its margins), every
     GRID_SPACING wanted samples: the cell's nodes answer the event in between (a sharp
     clock-to-output read 1.5 % late with the edge alone sampled). Where that takes more than
-    the breakpoint source's GRID_POINTS, the edge keeps its spacing and LEAD_POINTS spread from
-    LEAD_FROM of the event's ramp on: over a slow ramp the spacing would miss the edge (a 1.5 ns
-    clock ramp's QB transition read 16 % long). The rest of the run keeps its step."""
+    the breakpoint source holds (GRID_POINTS + EXTRA_POINTS, less the ``inside`` samples), the
+    edge keeps its spacing and LEAD_POINTS spread from LEAD_FROM of the event's ramp on: over
+    a slow ramp the spacing would miss the edge (a 1.5 ns clock ramp's QB transition read 16 %
+    long). The rest of the run keeps its step."""
     spacing = GRID_SPACING * wanted
     start, last = edge
-    if last - min(event.start, start) <= GRID_POINTS * spacing:
-        return breakpoints(min(event.start, start), last, spacing, inside)
+    room = GRID_POINTS + EXTRA_POINTS - len(inside)
+    begin = min(event.start, start)
+    if last - begin <= room * spacing:
+        every = np.linspace(begin, last, max(2, int((last - begin) / spacing)))
+        return breakpoints(begin, last, last - begin, (*inside, *(float(x) for x in every)))
     first = min(event.start + LEAD_FROM * event.duration, start)
-    dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
+    dense = np.linspace(start, last, int(min(room - LEAD_POINTS, (last - start) / spacing)))
     # An edge that starts before LEAD_FROM of the event's ramp has no lead to spread.
     lead = (start - first) / LEAD_POINTS if start > first else spacing
     return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
+
+
+@dataclass(frozen=True, slots=True)
+class _Edge:
+    """One output's edge in a run: its delay-threshold crossing and its slew band (s)."""
+
+    t_out: float
+    band: tuple[float, float]
+
+    @property
+    def raw(self) -> float:
+        return self.band[1] - self.band[0]
 
 
 def run_event(
@@ -243,83 +270,56 @@ def run_event(
     states: tuple[bool, bool] | None = None,
     window: float | None = None,
     options: tuple[str, ...] = (),
+    expect: tuple[float, float, float] | None = None,
+    also: tuple[tuple[str, bool, bool], ...] = (),
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
     ``before`` until the event and settle at ``after`` (a bool level) once it, within
-    ``window`` (``settle_window`` unless given).
+    ``window`` (``settle_window`` unless given). ``also``: more outputs (pin, before, after)
+    measured in the same run (``Outcome.others``); every output's edge is refined.
     Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
     the charge the pin draws from its ramp's start. With
     ``states`` (the flop's state before and after the event) the event's energy is measured
     too (``ffpower.event_energy``). ``options``: simulator options of the run (``tightened``).
-    Returns the outcome, simulations and simulator seconds."""
+    ``expect``: where the output edges are expected, from the event's threshold crossing
+    (start, end), and the sample spacing they want there: the first run's breakpoints, so
+    that it needs no refinement (``_edge_grid``). Returns the outcome, simulations and
+    simulator seconds."""
     cell = config.cell(deck.cell)
-    vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
-    out_node = deck.output_node(output)
-    edge = "rise" if after else "fall"
-    tol = sim.settle * vdd
     window = window or settle_window(config, deck)
-    # Stop once the output has settled after the event, and after any late data edge.
-    arm = max(event.end, quiet_until)
-    level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
-    stop_when = f"time > {arm:.6g} when {level}" if before != after else None
-    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
-    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
-    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
-    recorded = (*nodes.values(), *branches)
-    if states is not None:
-        # The energy window ends when the supply current is quiet, some time after the
-        # outputs settle: the run goes on to its cap.
-        recorded = tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
-        stop_when = None
-    stop = arm + window
-    max_step = step
-    grid = PARKED_GRID
+    moves = ((output, before, after), *also)
+    nodes = {o: deck.output_node(o) for o, _, _ in moves}
+    nodes.update({p: deck.input_node(p) for p in waves})
+    stop, stop_when = _stop(config, nodes[output], event, quiet_until, moves, states, window)
+    t_ev = event.time_at(config.thresholds.delay_input(event.edge))
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
-    if states is not None:
+    grid = PARKED_GRID
+    if expect is not None:
+        grid = _edge_grid(event, (t_ev + expect[0], t_ev + expect[1]), expect[2], inside)
+    elif states is not None:
         grid = ffpower.event_grid(event, window, inside)
+    recorded = _recorded(cell, deck, nodes, charge_windows, states)
     runs, seconds = 0, 0.0
-    backend = backend_for(config)
-    what = f"output {output}"
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
-        request = Request(
-            deck,
-            alters(deck, cell, waves, loads, grid),
-            f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            recorded,
-            options,
-            stop_when=stop_when,
-        )
-        result, attempts = simulate(backend, request)
+        tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
+        alter = alters(deck, cell, waves, loads, grid)
+        request = Request(deck, alter, tran, recorded, options, stop_when=stop_when)
+        result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
-        t, v = result.vectors["time"], result.vectors[out_node]
-        held = v[t <= event.start]
+        t = result.vectors["time"]
         with saved:
-            if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
-                raise MeasurementError(
-                    f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
-                    "flop was not initialised"
-                )
-            # Overshooting the rail as it arrives is settled; stopping short of it is not.
-            after_level = vdd if after else 0.0
-            check_settled(
-                v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what, window
-            )
-            if before == after:
-                nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
-                return nothing, runs, seconds
-            # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
-            t_ev = event.time_at(thr.delay_input(event.edge))
-            t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
-            band = sorted(
-                _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
-            )
-        raw = band[1] - band[0]
-        wanted = raw / sim.samples_per_edge
-        coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
-        if coarse <= REFINE_SLACK * wanted or refine == REFINEMENTS:
+            edges = [
+                _edge(config, result.vectors, o, b, a, nodes, event, window) for o, b, a in moves
+            ]
+        if edges[0] is None:  # the output holds: nothing to time
+            nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
+            return nothing, runs, seconds
+        timed = [e for e in edges if e is not None]
+        span, wanted, fine = _sampled(t, timed, config.simulation.samples_per_edge)
+        if fine or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
-        grid = _edge_grid(event, (band[0] - coarse - raw, band[1] + coarse + raw), wanted, inside)
+        grid = _edge_grid(event, span, wanted, inside)
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
         (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
@@ -327,13 +327,110 @@ def run_event(
     )
     energy = None
     if states is not None:
-        energy = ffpower.event_energy(
-            config, deck, result.vectors, event, states, loads, settle_window(config, deck)
-        )
-    outcome = Outcome(
-        t_ev, t_out, raw / thr.slew_derate, charges, energy, stopped=float(t[-1]), stop_cap=stop
+        settle = settle_window(config, deck)
+        energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads, settle)
+    derate = config.thresholds.slew_derate
+    others = tuple(
+        (o, e.t_out, e.raw / derate) for (o, _, _), e in zip(also, edges[1:], strict=True) if e
     )
-    return outcome, runs, seconds
+    first = timed[0]
+    outcome = Outcome(t_ev, first.t_out, first.raw / derate, charges, energy, float(t[-1]), stop)
+    return replace(outcome, others=others), runs, seconds
+
+
+def _unexpected(edge: _Edge, t_ev: float, expect: tuple[float, float, float] | None) -> bool:
+    """Whether the output edge lies outside where it was ``expect``-ed: a search's trial that
+    far from its pass limit is judged clearly either way, and its run is not refined."""
+    return expect is not None and not expect[0] <= edge.t_out - t_ev <= expect[1]
+
+
+def _stop(
+    config: LibraryConfig,
+    node: str,
+    event: Ramp,
+    quiet_until: float,
+    moves: tuple[tuple[str, bool, bool], ...],
+    states: tuple[bool, bool] | None,
+    window: float,
+) -> tuple[float, str | None]:
+    """A run's stop-time cap and its ngspice stop condition: once the output (at ``node``) has
+    settled after the event and after any late data edge (``quiet_until``). A run that
+    measures energy (``states``: the window ends when the supply current is quiet, some time
+    after the outputs settle) or more than one output goes on to its cap."""
+    tol, vdd = config.simulation.settle * config.process.vdd, config.process.vdd
+    arm = max(event.end, quiet_until)
+    _, before, after = moves[0]
+    level = f"v({node}) > {vdd - tol:.6g}" if after else f"v({node}) < {tol:.6g}"
+    timed = before != after and states is None and len(moves) == 1
+    return arm + window, f"time > {arm:.6g} when {level}" if timed else None
+
+
+def _recorded(
+    cell: CellSpec,
+    deck: Deck,
+    nodes: dict[str, str],
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...],
+    states: tuple[bool, bool] | None,
+) -> tuple[str, ...]:
+    """The vectors a run records: the outputs and the inputs that move (a failed run is saved
+    with the clock and data that drove it), the branches whose charge is asked for, and with
+    ``states`` what the event's energy needs (``event_vectors``)."""
+    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
+    recorded = (*nodes.values(), *branches)
+    if states is None:
+        return recorded
+    return tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
+
+
+def _edge(
+    config: LibraryConfig,
+    vectors: dict[str, np.ndarray],
+    output: str,
+    before: bool,
+    after: bool,
+    nodes: dict[str, str],
+    event: Ramp,
+    window: float,
+) -> _Edge | None:
+    """The edge of ``output`` in a run: it must hold ``before`` until the event and settle at
+    ``after``; None when the two are the same (nothing to time)."""
+    vdd, thr = config.process.vdd, config.thresholds
+    tol = config.simulation.settle * vdd
+    t, v = vectors["time"], vectors[nodes[output]]
+    what = f"output {output}"
+    held = v[t <= event.start]
+    if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
+        raise MeasurementError(
+            f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
+            "flop was not initialised"
+        )
+    edge = "rise" if after else "fall"
+    # Overshooting the rail as it arrives is settled; stopping short of it is not.
+    check_settled(v, vdd if after else 0.0, tol * (1 + 1e-6), edge, what, window)
+    if before == after:
+        return None
+    # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
+    t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
+    low, high = sorted(
+        _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
+    )
+    return _Edge(t_out, (low, high))
+
+
+def _sampled(
+    t: np.ndarray, edges: list[_Edge], samples: int
+) -> tuple[tuple[float, float], float, bool]:
+    """Whether every edge has samples_per_edge samples (with REFINE_SLACK), and where the
+    refinement's breakpoints go otherwise: the span of every edge with its margins (a
+    transition and the simulator's step at it either side) and the spacing the sharpest
+    wants."""
+    fine, starts, ends = True, [], []
+    for e in edges:
+        coarse = max(step_at(t, x) for x in (e.t_out, *e.band))
+        fine = fine and coarse <= REFINE_SLACK * e.raw / samples
+        starts.append(e.band[0] - coarse - e.raw)
+        ends.append(e.band[1] + coarse + e.raw)
+    return (min(starts), max(ends)), min(e.raw for e in edges) / samples, fine
 
 
 def _capture_waves(
@@ -631,17 +728,22 @@ def _falsi(
 
 
 class _Trials:
-    """Counts simulations and keeps the relaxed clock-to-output delay for the pass test."""
+    """Counts simulations and keeps the relaxed clock-to-output delay for the pass test; once
+    it has one, every later trial's first run samples the output edge where the relaxed edge
+    and the pass limit put it (``expect``): a trial is one run, not a coarse run refined."""
 
     def __init__(self, config: LibraryConfig, deck: Deck) -> None:
         self.config, self.deck = config, deck
         self.runs, self.seconds = 0, 0.0
         self.reference: float | None = None
+        self.expect: tuple[float, float, float] | None = None
         self.failed: Waveform | None = None  # the waveform of the last failed trial
 
     def __call__(self, waves, loads, **kw) -> Outcome | None:
         try:
-            outcome, runs, seconds = run_event(self.config, self.deck, waves, loads, **kw)
+            outcome, runs, seconds = run_event(
+                self.config, self.deck, waves, loads, expect=self.expect, **kw
+            )
         except MeasurementError as exc:
             self.runs += 1
             self.failed = waveform_of(exc)
@@ -655,68 +757,86 @@ class _Trials:
         smoothly as the offset shrinks, then is infinite where the capture fails."""
         if outcome is None:
             return float("inf")
+        sim = self.config.simulation
         if self.reference is None:
-            self.reference = outcome.delay
-        return outcome.delay - (1.0 + self.config.simulation.pushout) * self.reference
+            self.reference = delay = outcome.delay
+            raw = outcome.transition * self.config.thresholds.slew_derate
+            # A trial near the limit moves its edge out by up to pushout × the relaxed delay.
+            late = (1.0 + EXPECT_PUSHOUTS * sim.pushout) * delay
+            self.expect = (
+                delay - EXPECT_EDGES * raw,
+                late + EXPECT_EDGES * raw,
+                EXPECT_SPACING * raw / sim.samples_per_edge,
+            )
+        return outcome.delay - (1.0 + sim.pushout) * self.reference
 
-    def in_time(self, outcome: Outcome | None) -> bool:
-        return self.margin(outcome) <= 0
+
+@dataclass(frozen=True, slots=True)
+class _Experiment:
+    """What every trial of one constraint search shares: the outputs' loads, the measured clock
+    edge, the run's settings, and the output watched with its level before and after."""
+
+    loads: dict[str, float]
+    event: Ramp
+    step: float
+    options: tuple[str, ...]
+    output: str
+    before: bool
+    after: bool
+
+
+def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
+    """The margin of a constraint search's trial by its offset (``_Trials.margin``), from
+    ``waves_at`` (offset -> the waves and when the last input edge is over); not ``judged``
+    (removal: the flop stays or not, nothing grows towards failing), 0 or +inf."""
+
+    def measure(offset: float) -> float:
+        waves, quiet = waves_at(offset)
+        outcome = trials(
+            waves,
+            run.loads,
+            event=run.event,
+            step=run.step,
+            output=run.output,
+            before=run.before,
+            after=run.after,
+            quiet_until=quiet,
+            options=run.options,
+        )
+        if judged:
+            return trials.margin(outcome)
+        return 0.0 if outcome is not None else float("inf")
+
+    return measure
+
+
+def _experiment(
+    bench: Timeline,
+    deck: Deck,
+    point: ConstraintPoint,
+    event: Ramp,
+    levels: tuple[bool, bool],
+    tight: bool,
+) -> _Experiment:
+    """A constraint point's ``_Experiment``: the first output watched at the grid's smallest
+    loads, with the levels (before, after) given."""
+    cell = bench.cell
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    step, options = run_settings(bench.config, deck, tight, point.data_slew, point.clock_slew)
+    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels)
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
     clock-to-data-change offset that keeps the captured value (either may be negative).
-    Recovery and removal: the same for a clear or preset's release (``_release_setup``)."""
-    measure, lo, hi, trials = _constraint_setup(config, deck, point)
+    Recovery and removal: the same for a clear or preset's release (``_release_setup``).
+    Searched at the tightened settings of a convergence check (``run_settings``) from the
+    start: the bracket found holds at them, with no second search to confirm it."""
+    measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
         bracket = _search(measure, lo, hi, config.simulation.bisect_tolerance, point.label)
-    checked, check = _confirm(config, deck, point, bracket)
-    note = _moved(config, point, bracket, checked)
-    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
-    return SearchResult(point, checked[1], runs, seconds, checked, note=note)
-
-
-def _moved(
-    config: LibraryConfig,
-    point: ConstraintPoint | PulsePoint,
-    bracket: tuple[float, float],
-    checked: tuple[float, float],
-) -> str:
-    """The note (and warning) of a search whose bracket did not hold at tightened settings."""
-    if checked == bracket:
-        return ""
-    unit = config.time_unit
-    note = (
-        f"moved from {show_time(bracket[1], unit)} to {show_time(checked[1], unit)} when "
-        "its bracket was re-simulated at tightened settings: searched on at them"
-    )
-    log.warning("cell %s, %s: %s", point.cell, point.label, note)
-    return note
-
-
-def _confirm(
-    config: LibraryConfig, deck: Deck, point: ConstraintPoint, bracket: tuple[float, float]
-) -> tuple[tuple[float, float], _Trials]:
-    """A search's final (failing, passing) bracket re-simulated at tightened settings
-    (``run_settings``, with its own relaxed reference): the passing end must pass and the
-    failing end fail there too. Where one does not, the search goes on at those settings,
-    outwards from that end in steps that double from the tolerance, then by bisection. Returns
-    the bracket that holds at tightened settings and the check's trials."""
-    measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
-    passes = _passing(measure)
-    tol = config.simulation.bisect_tolerance
-    failing, passing = bracket
-    with KeepWaveform(lambda: trials.failed):
-        if not passes(hi):
-            raise MeasurementError(f"{point.label}: fails even with relaxed timing ({hi:.4g} s)")
-        if passes(passing):
-            if not passes(failing):
-                return bracket, trials
-            passing, failing = _step_out(passes, failing, -tol, lo, point.label)
-        else:
-            failing, passing = _step_out(passes, passing, tol, hi, point.label)
-        return _bisect(passes, failing, passing, tol), trials
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
 
 
 def _passing(measure):
@@ -726,20 +846,6 @@ def _passing(measure):
         return measure(offset) <= 0
 
     return passes
-
-
-def _step_out(passes, start: float, step: float, limit: float, what: str) -> tuple[float, float]:
-    """From ``start`` in steps of ``step`` that double, up to ``limit``: the last offset with
-    ``start``'s verdict and the first with the other (a passing one going up, ``step`` > 0; a
-    failing one going down)."""
-    want = step > 0
-    last = at = start
-    while (at - limit) * (1 if want else -1) < 0:
-        at = min(at + step, limit) if want else max(at + step, limit)
-        if passes(at) == want:
-            return last, at
-        last, step = at, step * 2
-    raise MeasurementError(f"{what}: the tightened re-check does not bracket at {limit:.4g} s")
 
 
 def _constraint_setup(
@@ -752,64 +858,49 @@ def _constraint_setup(
         return _release_setup(config, deck, point, tight)
     cell = config.cell(point.cell)
     bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
-    out = cell.outputs[0].pin
-    others = _sensitized_data(cell, point.constrained)
+    out, pin = cell.outputs[0].pin, point.constrained
+    others = _sensitized_data(cell, pin)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
     captured = final if point.kind == "setup" else not final
-    stored = flop.next_state.evaluate({**others, point.constrained: captured})
-    old = {**others, point.constrained: not captured}
+    stored = flop.next_state.evaluate({**others, pin: captured})
     clock, event = bench.clock(point.clock_slew, edges=2)
-    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
-    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
+    run = _experiment(bench, deck, point, event, levels, tight)
+    waves_at = _data_waves(bench, point, {**others, pin: not captured}, clock, event)
     trials = _Trials(config, deck)
-    before, after = stored_output(cell, out, not stored), stored_output(cell, out, stored)
-    pin = point.constrained
+    relaxed = bench.half / 2
+    lo = -relaxed / 2
+    if point.kind == "setup":
+        data = stimulus.ramp(point.data_slew, point.data_edge, config.thresholds, bench.vdd)
+        lo = -(data.duration + event.duration)
+    return _offset_margin(trials, run, waves_at, judged=True), lo, relaxed, trials
 
-    def waves_at(offset: float):
+
+def _data_waves(bench: Timeline, point: ConstraintPoint, old: dict[str, bool], clock, event):
+    """Setup or hold: the waves of a trial by its offset, and when its last data edge is over.
+    The other data pins hold their ``old`` values; the constrained pin moves to the value
+    captured ``offset`` before the clock's threshold (setup), or has moved to it half a phase
+    before and moves back ``offset`` after (hold)."""
+    thr, flop, pin = bench.thr, bench.cell.flip_flop, point.constrained
+    captured = not old[pin]
+    t_clk = event.time_at(thr.delay_input(event.edge))
+    probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
+    go_along = probe[1].time_at(thr.delay_input(probe[1].edge))
+    back_along = probe[2].time_at(thr.delay_input(probe[2].edge)) - probe[2].start
+
+    def waves_at(offset: float) -> tuple[dict[str, str], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
-        probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
-        go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
-        back_along = probe[2].time_at(config.thresholds.delay_input(probe[2].edge)) - probe[2].start
         if point.kind == "setup":
-            vector, go, _ = bench.data(
-                pin, not captured, captured, t_clk - offset - go_along, point.data_slew
-            )
-            quiet = go.end
-        else:
-            start = t_clk - bench.half / 2 - go_along
-            hold = t_clk + offset - back_along - start - probe[1].duration
-            vector, _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
-            quiet = back.end + bench.window / 4
-        waves[pin] = vector
-        return waves, quiet
+            start = t_clk - offset - go_along
+            waves[pin], go, _ = bench.data(pin, not captured, captured, start, point.data_slew)
+            return waves, go.end
+        start = t_clk - bench.half / 2 - go_along
+        hold = t_clk + offset - back_along - start - probe[1].duration
+        waves[pin], _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
+        return waves, back.end + bench.window / 4
 
-    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
-
-    def measure(offset: float) -> float:
-        waves, quiet = waves_at(offset)
-        outcome = trials(
-            waves,
-            loads,
-            event=event,
-            step=step,
-            output=out,
-            before=before,
-            after=after,
-            quiet_until=quiet,
-            options=options,
-        )
-        return trials.margin(outcome)
-
-    relaxed = bench.half / 2
-    if point.kind == "setup":
-        lo = -(
-            stimulus.ramp(point.data_slew, point.data_edge, config.thresholds, bench.vdd).duration
-            + event.duration
-        )
-    else:
-        lo = -relaxed / 2
-    return measure, lo, relaxed, trials
+    return waves_at
 
 
 def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool):
@@ -819,53 +910,36 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, ti
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
     bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
-    out = cell.outputs[0].pin
-    pin = point.constrained
+    out, pin = cell.outputs[0].pin, point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
     forced = not clear  # the state the control holds
     released = point.data_edge == "rise"  # the pin's value once released
     clock, event = bench.clock(point.clock_slew, edges=2)
     t_clk = event.time_at(config.thresholds.delay_input(event.edge))
-    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
-    trials = _Trials(config, deck)
-    held = stored_output(cell, out, forced)
     recovery = point.kind == "recovery"
+    held = stored_output(cell, out, forced)
+    # Recovery is judged like setup (captured, and in time); removal by the flop staying.
+    after = stored_output(cell, out, not forced) if recovery else held
+    run = _experiment(bench, deck, point, event, (held, after), tight)
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
-    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
 
-    def measure(offset: float) -> float:
+    def waves_at(offset: float) -> tuple[dict[str, str], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
         waves[flop.clock] = clock
         release_at = t_clk - offset if recovery else t_clk + offset
         waves[pin], go, _ = bench.data(
             pin, not released, released, release_at - go_along, point.data_slew
         )
-        after = stored_output(cell, out, not forced) if recovery else held
-        quiet = go.end if recovery else go.end + bench.window / 4
-        outcome = trials(
-            waves,
-            loads,
-            event=event,
-            step=step,
-            output=out,
-            before=held,
-            after=after,
-            quiet_until=quiet,
-            options=options,
-        )
-        # Recovery is judged like setup (captured, and in time); removal by the flop staying,
-        # which has no measure that grows towards failing.
-        if recovery:
-            return trials.margin(outcome)
-        return 0.0 if outcome is not None else float("inf")
+        return waves, go.end if recovery else go.end + bench.window / 4
 
     relaxed = bench.half / 2
     # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
     # edge captures nothing, or captures.
     lo = -(probe[1].duration + event.duration) if recovery else -relaxed
-    return measure, lo, relaxed, trials
+    trials = _Trials(config, deck)
+    return _offset_margin(trials, run, waves_at, judged=recovery), lo, relaxed, trials
 
 
 @dataclass(frozen=True, slots=True)
@@ -924,26 +998,21 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     first; when the narrowest of them (no flat top) still works, a control's pulses keep the
     slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
-    result says why (a clock's pulses are full-swing only: one PULSE source shapes both). A
-    width found is re-checked at tightened settings like a constraint (``_confirm_pulse``)."""
+    result says why (a clock's pulses are full-swing only: one PULSE source shapes both).
+    Searched at tightened settings from the start, as a constraint is (``measure_constraint``)."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
-    measure, relaxed = test(bench, point, shape, trials)
+    measure, relaxed = test(bench, point, shape, trials, tight=True)
     with KeepWaveform(lambda: trials.failed):
-        found = _pulse_search(measure, point, shape, relaxed, clock, config.simulation)
-    bracket, stimulus_, note = found
-    if bracket[0] is None:  # no width failed: nothing to confirm
-        return SearchResult(point, None, trials.runs, trials.seconds, bracket, stimulus_, note)
-    known = (bracket[0], bracket[1])
-    lowest = shape.narrowest if stimulus_ == FULL else shape.floor
-    checked, check = _confirm_pulse(deck, bench, point, shape, test, known, lowest)
-    note = _moved(config, point, known, checked)
-    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
-    return SearchResult(point, checked[1], runs, seconds, checked, stimulus_, note)
+        bracket, stimulus_, note = _pulse_search(
+            measure, point, shape, relaxed, clock, config.simulation
+        )
+    value = None if bracket[0] is None else bracket[1]
+    return SearchResult(point, value, trials.runs, trials.seconds, bracket, stimulus_, note)
 
 
 def _pulse_search(
@@ -975,38 +1044,6 @@ def _pulse_search(
         note = "works even as a pulse that turns back just past the thresholds: no width fails"
         return (None, floor), RUNT, note
     return _bisect(passes, floor, shape.narrowest, tol), RUNT, ""
-
-
-def _confirm_pulse(
-    deck: Deck,
-    bench: Timeline,
-    point: PulsePoint,
-    shape: _Pulse,
-    test: Callable[..., tuple[Callable[[float], bool], float]],
-    bracket: tuple[float, float],
-    lowest: float,
-) -> tuple[tuple[float, float], _Trials]:
-    """A pulse search's (failing, passing) widths re-simulated at tightened settings, searched
-    on there where one does not hold (as ``_confirm`` does for a constraint), no narrower than
-    ``lowest`` (the narrowest pulse of the search's shape)."""
-    trials = _Trials(bench.config, deck)
-    measure, relaxed = test(bench, point, shape, trials, tight=True)
-    passes = _passing(measure)
-    tol = bench.config.simulation.bisect_tolerance
-    failing, passing = bracket
-    with KeepWaveform(lambda: trials.failed):
-        high = measure(relaxed)
-        if high > 0:
-            raise MeasurementError(
-                f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
-            )
-        if passes(passing):
-            if not passes(failing):
-                return bracket, trials
-            passing, failing = _step_out(passes, failing, -tol, lowest, point.label)
-        else:
-            failing, passing = _step_out(passes, passing, tol, relaxed, point.label)
-        return _bisect(passes, failing, passing, tol), trials
 
 
 def _clock_pulse_test(
