@@ -678,12 +678,19 @@ def _bracket(
     """A first (failing, passing) bracket, each end an (offset, margin) pair: from ``start``
     (measured) in steps that double from BRACKET_STEP × ``tol``, down while the trials pass,
     up while they fail, no further than ``lo`` (which must fail) or ``high``'s offset (which
-    passed)."""
+    passed). Where the last two margins are finite and nearing 0, a secant step (Brent 1973,
+    ch. 3: the secant through two samples, extrapolated) goes to just past the root it
+    estimates, when that is nearer than the doubling step: the margin steepens towards the
+    capture's failure, so the estimate lies past the root and the bracket closes tight."""
     at, g = start
     down = g <= 0  # passing: walk down to a failing offset; failing: up to a passing one
     step = BRACKET_STEP * tol
+    last: tuple[float, float] | None = None
     while True:
         nxt = max(at - step, lo) if down else min(at + step, high[0])
+        guess = _secant_past(last, (at, g), tol if down else -tol)
+        if guess is not None and abs(guess - at) < abs(nxt - at):
+            nxt = guess
         g_nxt = high[1] if nxt == high[0] else measure(nxt)
         if (g_nxt > 0) == down:
             return ((nxt, g_nxt), (at, g)) if down else ((at, g), (nxt, g_nxt))
@@ -691,7 +698,21 @@ def _bracket(
             raise MeasurementError(
                 f"{what}: passes even at {lo:.4g} s; the search does not bracket"
             )
-        at, g, step = nxt, g_nxt, 2 * step
+        last, (at, g), step = (at, g), (nxt, g_nxt), 2 * step
+
+
+def _secant_past(
+    last: tuple[float, float] | None, at: tuple[float, float], tol: float
+) -> float | None:
+    """The root of the secant through ``last`` and ``at`` (offset, margin), FALSI_EDGE ×
+    ``tol`` further on (below it for ``tol`` > 0), or None where the two margins are not
+    finite or do not near 0 from ``last`` to ``at``."""
+    if last is None or not (np.isfinite(last[1]) and np.isfinite(at[1])):
+        return None
+    (x0, g0), (x1, g1) = last, at
+    if abs(g1) >= abs(g0) or g0 * g1 <= 0:
+        return None
+    return x1 - g1 * (x1 - x0) / (g1 - g0) - FALSI_EDGE * tol
 
 
 def _falsi(
@@ -705,19 +726,30 @@ def _falsi(
     Brent, "Algorithms for Minimization without Derivatives", 1973, ch. 4): a bisection step
     where the failing end's margin is not finite (the capture failed), or the bracket has not
     halved over the last two steps; a trial at least FALSI_EDGE × ``tol`` inside either end,
-    so that the bracket closes to ``tol`` from either side."""
+    so that the bracket closes to ``tol`` from either side. Where the failing end's margin is
+    not finite but the last two passing ones are, the secant through those (``_secant_past``)
+    instead of the bisection step when it falls inside the bracket. A bracket within twice
+    ``tol`` takes the trial nearest that step's estimate that leaves it within ``tol`` either
+    way."""
     (lo, g_lo), (hi, g_hi) = failing, passing
     widths = [np.inf, np.inf]  # the bracket's width before each step
     kept = 0  # +1: the passing end moved last; -1: the failing end did
+    passed: tuple[float, float] | None = None  # the passing end before the last one
     while hi - lo > tol:
         x = 0.5 * (lo + hi)
+        inside = (lo + FALSI_EDGE * tol, hi - FALSI_EDGE * tol)
+        guess = _secant_past(passed, (hi, g_hi), tol)
         if np.isfinite(g_lo) and hi - lo <= 0.5 * widths[-2]:
             x = hi - g_hi * (hi - lo) / (g_hi - g_lo)
-            x = min(max(x, lo + FALSI_EDGE * tol), hi - FALSI_EDGE * tol)
+            x = min(max(x, inside[0]), inside[1])
+        elif not np.isfinite(g_lo) and guess is not None and inside[0] <= guess <= inside[1]:
+            x = guess
+        if hi - lo <= 2 * tol:  # one trial closes it either way: the one nearest the estimate
+            x = min(max(x, hi - tol), lo + tol)
         widths.append(hi - lo)
         g = measure(x)
         if g <= 0:
-            hi, g_hi = x, g
+            passed, (hi, g_hi) = (hi, g_hi), (x, g)
             g_lo = g_lo / 2 if kept == 1 else g_lo
             kept = 1
         else:
