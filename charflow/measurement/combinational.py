@@ -119,11 +119,16 @@ def alters(
     values: dict[str, str],
     loads: dict[str, float],
     grid: str = PARKED_GRID,
+    train: str | None = None,
 ) -> tuple[str, ...]:
     """``alter`` commands setting every input's PULSE, every output's load (unlisted outputs
-    stay parked at a negligible load) and the breakpoint source."""
+    stay parked at a negligible load) and the breakpoint sources: ``grid``'s corners, and a
+    ``train`` of evenly spaced ones (a PULSE vector, ``sequential.edge_train``) or none."""
     commands = [f"alter @{deck.input_source(p)}[pulse] = {values[p]}" for p in cell.inputs]
     commands.append(f"alter @vgrid[pwl] = {grid}")
+    commands.append(
+        f"alter @vedge[pwl] = {PARKED_GRID}" if train is None else f"alter @vedge[pulse] = {train}"
+    )
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
     ]

@@ -94,6 +94,13 @@ FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
 # tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
 BRACKET_STEP = 4.0
+# A clock or control point's guessed edges (_Guess) are widened by GUESS_SLACK of the guessed
+# delay either side (linear between probes, the guess is off most between them), sampled at
+# GUESS_SPACING of the spacing the guessed transition wants; a guessed transition is taken as
+# at least GUESS_FLOOR of the smallest the probes measured.
+GUESS_SLACK = 0.25
+GUESS_SPACING = 0.7
+GUESS_FLOOR = 0.5
 # Where a search's trials after its relaxed one expect their output edge (_Trials.expect): from
 # EXPECT_EDGES transitions before the relaxed edge to EXPECT_EDGES transitions after the relaxed
 # delay pushed out by EXPECT_PUSHOUTS x simulation.pushout (a trial near the pass limit is
@@ -104,6 +111,34 @@ BRACKET_STEP = 4.0
 EXPECT_EDGES = 1.5
 EXPECT_PUSHOUTS = 1.5
 EXPECT_SPACING = 0.8
+
+
+@dataclass(frozen=True, slots=True)
+class Expect:
+    """Where a run's output edges are expected, from the event's threshold crossing (s), and
+    the sample spacing they want there: its first run's breakpoints (``run_event``)."""
+
+    start: float
+    end: float
+    wanted: float
+    # An edge outside [start, end] is judged clearly without refining (a search's trial far
+    # from its pass limit, ``_Trials``).
+    settles: bool = False
+    # The corners go in an evenly spaced train (``edge_train``) beside the run's own grid
+    # (a clock or control point's guess, ``_Guess``), not in that grid (``_edge_grid``).
+    train: bool = False
+
+
+def edge_train(start: float, stop: float, spacing: float) -> str:
+    """The PULSE vector (0 V throughout) of the breakpoint train: corners every ``spacing``
+    (at most; rounded to stimulus.TIME_QUANTUM) over [start, stop]: four per period, for a
+    count of periods (ngspice's PULSE takes one as its eighth value)."""
+    q = stimulus.TIME_QUANTUM
+    spacing = max(q, np.floor(spacing / q) * q)
+    start = max(q, round(start / q) * q)
+    count = max(1, int(np.ceil((stop - start) / (4 * spacing))))
+    s = f"{spacing:.9g}"
+    return f"[ 0 0 {start:.9g} {s} {s} {s} {4 * spacing:.9g} {count} ]"
 
 
 @dataclass(frozen=True, slots=True)
@@ -270,7 +305,7 @@ def run_event(
     states: tuple[bool, bool] | None = None,
     window: float | None = None,
     options: tuple[str, ...] = (),
-    expect: tuple[float, float, float] | None = None,
+    expect: Expect | None = None,
     also: tuple[tuple[str, bool, bool], ...] = (),
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
@@ -281,9 +316,8 @@ def run_event(
     the charge the pin draws from its ramp's start. With
     ``states`` (the flop's state before and after the event) the event's energy is measured
     too (``ffpower.event_energy``). ``options``: simulator options of the run (``tightened``).
-    ``expect``: where the output edges are expected, from the event's threshold crossing
-    (start, end), and the sample spacing they want there: the first run's breakpoints, so
-    that it needs no refinement (``_edge_grid``). Returns the outcome, simulations and
+    ``expect``: where the output edges are expected (``Expect``): the first run's breakpoints,
+    so that it needs no refinement (``_edge_grid``). Returns the outcome, simulations and
     simulator seconds."""
     cell = config.cell(deck.cell)
     window = window or settle_window(config, deck)
@@ -293,17 +327,19 @@ def run_event(
     stop, stop_when = _stop(config, nodes[output], event, quiet_until, moves, states, window)
     t_ev = event.time_at(config.thresholds.delay_input(event.edge))
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
-    grid = PARKED_GRID
-    if expect is not None:
-        grid = _edge_grid(event, (t_ev + expect[0], t_ev + expect[1]), expect[2], inside)
+    grid, train = PARKED_GRID, None
+    if expect is not None and not expect.train:
+        grid = _edge_grid(event, (t_ev + expect.start, t_ev + expect.end), expect.wanted, inside)
     elif states is not None:
         grid = ffpower.event_grid(event, window, inside)
+    if expect is not None and expect.train:
+        train = edge_train(t_ev + expect.start, t_ev + expect.end, expect.wanted)
     recorded = _recorded(cell, deck, nodes, charge_windows, states)
     runs, seconds = 0, 0.0
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
         tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
-        alter = alters(deck, cell, waves, loads, grid)
+        alter = alters(deck, cell, waves, loads, grid, train)
         request = Request(deck, alter, tran, recorded, options, stop_when=stop_when)
         result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
@@ -319,7 +355,12 @@ def run_event(
         span, wanted, fine = _sampled(t, timed, config.simulation.samples_per_edge)
         if fine or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
-        grid = _edge_grid(event, span, wanted, inside)
+        # An energy run keeps its grid (the event and the settling after it) and samples the
+        # edges with a train at the spacing they want: the next run is fine.
+        if states is None:
+            grid = _edge_grid(event, span, wanted, inside)
+        else:
+            train = edge_train(*span, wanted)
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
         (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
@@ -338,10 +379,12 @@ def run_event(
     return replace(outcome, others=others), runs, seconds
 
 
-def _unexpected(edge: _Edge, t_ev: float, expect: tuple[float, float, float] | None) -> bool:
-    """Whether the output edge lies outside where it was ``expect``-ed: a search's trial that
-    far from its pass limit is judged clearly either way, and its run is not refined."""
-    return expect is not None and not expect[0] <= edge.t_out - t_ev <= expect[1]
+def _unexpected(edge: _Edge, t_ev: float, expect: Expect | None) -> bool:
+    """Whether the output edge lies outside where it was expected, where that ``settles`` it:
+    a search's trial that far from its pass limit is judged clearly, and not refined."""
+    if expect is None or not expect.settles:
+        return False
+    return not expect.start <= edge.t_out - t_ev <= expect.end
 
 
 def _stop(
@@ -445,82 +488,199 @@ def measure_clocked(
 ) -> Measurement:
     """A clock arc (second active edge after writing the opposite value) or an asynchronous
     control arc (after writing the value it changes); ``window`` as in ``run_event`` (a window
-    probe: the arc's convergence is not checked). Every input that moves in the run is asked
-    for its charge on each of its edges (``_clock_run``, ``_control_run``). The arc is measured
-    at tightened settings where its sample moved there (``_arc_check``)."""
+    probe: the event's convergence is not checked). Every input that moves in the run is
+    asked for its charge on each of its edges (``_clock_run``, ``_control_run``). Where the
+    grid has the other output's point with the same slew and the same load on each output
+    (``_partner``), one run times both: the partner is kept for this worker and comes from it,
+    unsimulated. The event is measured at tightened settings where its sample moved there
+    (``_event_check``)."""
     if window is not None:
-        return _clocked(config, deck, point, window)
-    tight, sample, runs, seconds = _arc_check(config, deck, point)
-    measured = sample if sample is not None else _clocked(config, deck, point, tight=tight)
+        return _clocked(config, deck, point, window)[0]
+    if point in _SHARED:
+        return _SHARED.pop(point)
+    tight, guess, runs, seconds = _event_check(config, deck, point)
+    guess = None if _is_probe(config, point) else guess
+    measured, outcome = _clocked(config, deck, point, tight=tight, guess=guess)
+    partner = _partner(config, point)
+    if partner is not None:
+        _SHARED[partner] = replace(_timed(partner, outcome, measured), runs=0, sim_seconds=0.0)
     return replace(measured, runs=measured.runs + runs, sim_seconds=measured.sim_seconds + seconds)
 
 
-# (deck, grid, settings, arc) -> whether the arc is measured at tightened settings
-_ARCS: BoundedCache[tuple, bool] = SESSION.cache("arc checks")
+# Points of the other output timed by a run already made in this worker (``measure_clocked``).
+_SHARED: BoundedCache[TimingPoint, Measurement] = SESSION.cache("shared clock runs")
+# (deck, grid, settings, event) -> whether the event is measured at tightened settings, its guess
+_EVENTS: BoundedCache[tuple, tuple[bool, _Guess | None]] = SESSION.cache("event checks")
 
 
 def arc_of(point: TimingPoint) -> tuple:
-    """What a clock or control point shares with the rest of its arc: all but slew and loads."""
-    p = point
-    return (p.kind, p.related, p.side, p.input_edge, p.output, p.output_edge)
+    """What a clock or control point shares with every point its event's runs time (each
+    output's arc): all but the output, its edge, the slew and the loads."""
+    return (point.kind, point.related, point.side, point.input_edge)
 
 
-def _sample(config: LibraryConfig, point: TimingPoint) -> TimingPoint:
-    """The point of ``point``'s arc its convergence check simulates (``_arc_check``)."""
-    grid = config.cell(point.cell).grid
-    other = None if point.other_load is None else min(grid.related_load)
-    return replace(point, slew=min(grid.slew), load=min(grid.load), other_load=other)
+def _stored(cell: CellSpec, point: TimingPoint) -> bool:
+    """The value a clock or control point's event leaves in the flop."""
+    if point.kind == "clock":
+        rises = point.output_edge == "rise"
+        return next(v for v in (False, True) if stored_output(cell, point.output, v) == rises)
+    return point.kind == "preset"
+
+
+def _partner(config: LibraryConfig, point: TimingPoint) -> TimingPoint | None:
+    """The point of the other output's arc that one run times with ``point`` (the same slew,
+    the same load on each output), where the grid has it; else None."""
+    cell = config.cell(point.cell)
+    if point.other_load is None or point.other_load not in cell.grid.load:
+        return None
+    if point.load not in cell.grid.related_load:
+        return None
+    other = next(o.pin for o in cell.outputs if o.pin != point.output)
+    edge = "rise" if stored_output(cell, other, _stored(cell, point)) else "fall"
+    return replace(
+        point, output=other, output_edge=edge, load=point.other_load, other_load=point.load
+    )
 
 
 def check_arc(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple[int, float]:
-    """The convergence check of ``point``'s arc (``_arc_check``), run now as when its sample
-    is the arc's first point in this worker: the simulations and seconds it costs beyond the
-    sample's own run (none once the arc is checked here)."""
-    _, _, runs, seconds = _arc_check(config, deck, _sample(config, point))
+    """The probes and convergence check of ``point``'s event (``_event_check``), run now as
+    when the event's first point comes to this worker: the simulations and seconds they cost
+    (none once the event is checked here)."""
+    _, _, runs, seconds = _event_check(config, deck, point)
     return runs, seconds
 
 
-def _arc_check(
+_Run = tuple[Measurement, Outcome]
+
+
+def _event_check(
     config: LibraryConfig, deck: Deck, point: TimingPoint
-) -> tuple[bool, Measurement | None, int, float]:
-    """Whether ``point``'s arc is measured at tightened settings (``run_settings``): once per
-    worker, the arc's sample (the sharpest slew and the smallest loads: the shortest edges
-    against the step) is measured at the usual settings and at tightened ones; where its delay
-    moves by more than SAMPLE_RTOL or its transition SAMPLE_TRANSITION_RTOL the arc takes the
-    tightened settings, with a warning (a sample that does not measure leaves the arc at the
-    usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
-    the simulations and seconds the check cost beyond it."""
+) -> tuple[bool, _Guess | None, int, float]:
+    """Once per worker and event (``arc_of``: both outputs' arcs, which may share runs): its
+    probes (``_probes``: where its edges fall, ``_Guess``) and its convergence check: the
+    first probe (the sharpest slew and the smallest loads: the shortest edges against the
+    step) again at tightened settings (``run_settings``); where any output's delay moves by
+    more than SAMPLE_RTOL or its transition by SAMPLE_TRANSITION_RTOL the event's points are
+    measured at them, with a warning. A probe that does not measure leaves the event at the
+    usual settings, unguessed (its points fail as their own). Returns that, the guess, and
+    the simulations and seconds spent here."""
     cell = config.cell(point.cell)
     key = (deck.key, cell.grid, config.thresholds, config.simulation, arc_of(point))
-    sample = _sample(config, point)
-    if key in _ARCS:
-        return _ARCS[key], None, 0, 0.0
+    if key in _EVENTS:
+        return (*_EVENTS[key], 0, 0.0)
+    probes = _probes(config, point)
     try:
-        usual = _clocked(config, deck, sample)
-        tightened = _clocked(config, deck, sample, tight=True)
+        runs = [_clocked(config, deck, p, every=True) for p in probes]
+        tightened = _clocked(config, deck, probes[0], tight=True, every=True)
     except SimulatorHungError:
         raise
     except (MeasurementError, SimulatorError):
-        # A sample that does not measure fails as its own point, not every point of its arc.
-        _ARCS[key] = False
+        _EVENTS[key] = (False, None)
         return False, None, 0, 0.0
-    delay = abs(tightened.delay / usual.delay - 1.0)
-    transition = abs(tightened.transition / usual.transition - 1.0)
-    _ARCS[key] = tight = delay > SAMPLE_RTOL or transition > SAMPLE_TRANSITION_RTOL
+    moved = _moved_by(runs[0][1], tightened[1])
+    tight = moved[0] > SAMPLE_RTOL or moved[1] > SAMPLE_TRANSITION_RTOL
     if tight:
         log.warning(
             "cell %s, %s: its sample %s moved at tightened simulator settings (delay %.2g %%, "
             "transition %.2g %%): the arc is measured at them",
-            cell.name,
-            point.label,
-            sample.label,
-            100 * delay,
-            100 * transition,
+            *(cell.name, point.label, probes[0].label, 100 * moved[0], 100 * moved[1]),
         )
-    kept, spare = (tightened, usual) if tight else (usual, tightened)
-    if point == sample:
-        return tight, kept, spare.runs, spare.sim_seconds
-    return tight, None, usual.runs + tightened.runs, usual.sim_seconds + tightened.sim_seconds
+    _EVENTS[key] = (tight, _Guess.fit(config, probes, [o for _, o in runs]))
+    spent = [m for m, _ in (*runs, tightened)]
+    return (*_EVENTS[key], sum(m.runs for m in spent), sum(m.sim_seconds for m in spent))
+
+
+def _probes(config: LibraryConfig, point: TimingPoint) -> tuple[TimingPoint, ...]:
+    """The runs an event's guess is made from, as points of ``point``'s arc, every output at
+    the same load: the sharpest slew at the smallest load and at the largest (of any output's
+    load axis), the slowest slew at the smallest."""
+    grid = config.cell(point.cell).grid
+    every = (*grid.load, *grid.related_load)
+
+    def at(slew: float, load: float) -> TimingPoint:
+        other = None if point.other_load is None else load
+        return replace(point, slew=slew, load=load, other_load=other)
+
+    sharp, slow = min(grid.slew), max(grid.slew)
+    return (at(sharp, min(every)), at(sharp, max(every)), at(slow, min(every)))
+
+
+def _is_probe(config: LibraryConfig, point: TimingPoint) -> bool:
+    """Whether ``point``'s run is one of its event's probe runs (the same slew and loads):
+    measured as a probe is, unguessed, whichever worker measures it."""
+    cell = config.cell(point.cell)
+    loads = point_loads(cell, point)
+    return any(
+        p.slew == point.slew and point_loads(cell, p) == loads for p in _probes(config, point)
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class _Guess:
+    """Where a clock or control event's output edges fall, from its probes (``_probes``):
+    each output's delay and raw transition, linear in the event's ramp and in the output's own
+    load between them (an output's delay and transition grow about linearly with the load it
+    drives and with the input's ramp: first-order, common practice)."""
+
+    ramps: tuple[float, float]  # s: the probes' sharpest and slowest event ramps
+    loads: tuple[float, float]  # F: the probes' smallest and largest load
+    base: dict[str, np.ndarray]  # output -> (delay, raw transition): sharpest, smallest
+    heavy: dict[str, np.ndarray]  # ... sharpest slew, largest load
+    slow: dict[str, np.ndarray]  # ... slowest slew, smallest load
+
+    @classmethod
+    def fit(cls, config: LibraryConfig, probes, outcomes: list[Outcome]) -> _Guess:
+        cell, thr, vdd = config.cell(probes[0].cell), config.thresholds, config.process.vdd
+        ramps = [stimulus.ramp(p.slew, p.input_edge, thr, vdd).duration for p in probes]
+        base, heavy, slow = (_values(config, cell, o) for o in outcomes)
+        return cls((ramps[0], ramps[2]), (probes[0].load, probes[1].load), base, heavy, slow)
+
+    def expect(self, ramp: float, loads: dict[str, float], samples: int) -> Expect:
+        """Where a run at the event's ``ramp`` and the outputs' ``loads`` moves them."""
+        (r0, r1), (c0, c1) = self.ramps, self.loads
+        x = (ramp - r0) / (r1 - r0) if r1 > r0 else 0.0
+        edges = []
+        for o in loads:
+            y = (loads[o] - c0) / (c1 - c0) if c1 > c0 else 0.0
+            b = self.base[o]
+            edges.append(b + (self.slow[o] - b) * x + (self.heavy[o] - b) * y)
+        delay = np.array([e[0] for e in edges])
+        least = min(self.base[o][1] for o in loads)
+        raw = np.maximum([e[1] for e in edges], GUESS_FLOOR * least)
+        slack = GUESS_SLACK * float(delay.max())
+        start = float((delay - EXPECT_EDGES * raw).min()) - slack
+        end = float((delay + EXPECT_EDGES * raw).max()) + slack
+        return Expect(start, end, GUESS_SPACING * float(raw.min()) / samples, train=True)
+
+
+def _values(config: LibraryConfig, cell: CellSpec, outcome: Outcome) -> dict[str, np.ndarray]:
+    """Each output's (delay, raw transition) in a run that timed every output."""
+    derate = config.thresholds.slew_derate
+    timed = [(cell.outputs[0].pin, outcome.t_out, outcome.transition), *outcome.others]
+    return {o: np.array([t - outcome.t_event, tr * derate]) for o, t, tr in timed}
+
+
+def _moved_by(usual: Outcome, tight: Outcome) -> tuple[float, float]:
+    """The most any output's delay and transition moved from ``usual`` to ``tight``."""
+
+    def timed(o: Outcome) -> list[tuple[float, float]]:
+        edges = [(o.t_out, o.transition), *((t, tr) for _, t, tr in o.others)]
+        return [(t - o.t_event, tr) for t, tr in edges]
+
+    moved = [
+        (abs(b[0] / a[0] - 1.0), abs(b[1] / a[1] - 1.0))
+        for a, b in zip(timed(usual), timed(tight), strict=True)
+    ]
+    return max(m[0] for m in moved), max(m[1] for m in moved)
+
+
+def _timed(point: TimingPoint, outcome: Outcome, measured: Measurement) -> Measurement:
+    """``measured`` with ``point``'s output's delay and transition in the run of ``outcome``."""
+    t_out, transition = outcome.t_out, outcome.transition
+    for o, t, tr in outcome.others:
+        if o == point.output:
+            t_out, transition = t, tr
+    return replace(measured, point=point, delay=t_out - outcome.t_event, transition=transition)
 
 
 def _clocked(
@@ -529,33 +689,49 @@ def _clocked(
     point: TimingPoint,
     window: float | None = None,
     tight: bool = False,
-) -> Measurement:
-    """``measure_clocked`` at the usual settings or, with ``tight``, the tightened ones."""
+    every: bool = False,
+    guess: _Guess | None = None,
+) -> _Run:
+    """``measure_clocked`` at the usual settings or, with ``tight``, the tightened ones: the
+    point's measurement and the run's outcome. A point with a partner (``_partner``) times
+    every output, in the cell's order (the partner's run is the same run), and so does
+    ``every``. Its first run's edges are sampled where ``guess`` puts them."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
-    out_after = point.output_edge == "rise"
-    if point.kind == "clock":
-        stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
-        waves, event, windows = _clock_run(bench, point, stored)
-    else:
-        stored = point.kind == "preset"
-        waves, event, windows = _control_run(bench, point, stored)
+    stored = _stored(cell, point)
+    run = _clock_run if point.kind == "clock" else _control_run
+    waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
+    every = every or _partner(config, point) is not None
+    timed = [o.pin for o in cell.outputs] if every else [point.output]
+    moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
+    loads = point_loads(cell, point)
+    samples = config.simulation.samples_per_edge
+    ramp = event.duration
+    expect = None if guess is None else guess.expect(ramp, {o: loads[o] for o in timed}, samples)
     outcome, runs, seconds = run_event(
         config,
         deck,
         waves,
-        point_loads(cell, point),
+        loads,
         event=event,
         step=step,
-        output=point.output,
-        before=stored_output(cell, point.output, not stored),
-        after=out_after,
+        output=moves[0][0],
+        before=moves[0][1],
+        after=moves[0][2],
+        also=tuple(moves[1:]),
         charge_windows=windows,
         states=(not stored, stored),
         window=bench.window,
         options=options,
+        expect=expect,
     )
+    return _timed(point, outcome, _measurement(point, outcome, runs, seconds)), outcome
+
+
+def _measurement(point: TimingPoint, outcome: Outcome, runs: int, seconds: float) -> Measurement:
+    """A clock or control point's measurement from its run (its first output's edge: see
+    ``_timed``)."""
     (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
     assert energy is not None and outcome.stopped is not None  # run_event with states gives both
@@ -768,7 +944,7 @@ class _Trials:
         self.config, self.deck = config, deck
         self.runs, self.seconds = 0, 0.0
         self.reference: float | None = None
-        self.expect: tuple[float, float, float] | None = None
+        self.expect: Expect | None = None
         self.failed: Waveform | None = None  # the waveform of the last failed trial
 
     def __call__(self, waves, loads, **kw) -> Outcome | None:
@@ -795,11 +971,9 @@ class _Trials:
             raw = outcome.transition * self.config.thresholds.slew_derate
             # A trial near the limit moves its edge out by up to pushout × the relaxed delay.
             late = (1.0 + EXPECT_PUSHOUTS * sim.pushout) * delay
-            self.expect = (
-                delay - EXPECT_EDGES * raw,
-                late + EXPECT_EDGES * raw,
-                EXPECT_SPACING * raw / sim.samples_per_edge,
-            )
+            wanted = EXPECT_SPACING * raw / sim.samples_per_edge
+            start, end = delay - EXPECT_EDGES * raw, late + EXPECT_EDGES * raw
+            self.expect = Expect(start, end, wanted, settles=True)
         return outcome.delay - (1.0 + sim.pushout) * self.reference
 
 
