@@ -308,17 +308,12 @@ def run_event(
     expect: Expect | None = None,
     also: tuple[tuple[str, bool, bool], ...] = (),
 ) -> tuple[Outcome, int, float]:
-    """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
-    ``before`` until the event and settle at ``after`` (a bool level) once it, within
-    ``window`` (``settle_window`` unless given). ``also``: more outputs (pin, before, after)
-    measured in the same run (``Outcome.others``); every output's edge is refined.
-    Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
-    the charge the pin draws from its ramp's start. With
-    ``states`` (the flop's state before and after the event) the event's energy is measured
-    too (``ffpower.event_energy``). ``options``: simulator options of the run (``tightened``).
-    ``expect``: where the output edges are expected (``Expect``): the first run's breakpoints,
-    so that it needs no refinement (``_edge_grid``). Returns the outcome, simulations and
-    simulator seconds."""
+    """Simulate one experiment at steps up to ``step`` (``run_step``) and ``options``
+    (``run_settings``): the output holds ``before`` until the event and settles at ``after``
+    within ``window`` (``settle_window``); ``also`` (pin, before, after): more outputs timed.
+    ``charge_windows`` (pin, its ramp, the end or None): charges asked for; with ``states``
+    (stored before, after) the event's energy too; ``expect``: the edges' first breakpoints
+    (``_first_grids``). Returns the outcome (``_outcome``), simulations, simulator seconds."""
     cell = config.cell(deck.cell)
     window = window or settle_window(config, deck)
     moves = ((output, before, after), *also)
@@ -327,13 +322,7 @@ def run_event(
     stop, stop_when = _stop(config, nodes[output], event, quiet_until, moves, states, window)
     t_ev = event.time_at(config.thresholds.delay_input(event.edge))
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
-    grid, train = PARKED_GRID, None
-    if expect is not None and not expect.train:
-        grid = _edge_grid(event, (t_ev + expect.start, t_ev + expect.end), expect.wanted, inside)
-    elif states is not None:
-        grid = ffpower.event_grid(event, window, inside)
-    if expect is not None and expect.train:
-        train = edge_train(t_ev + expect.start, t_ev + expect.end, expect.wanted)
+    grid, train = _first_grids(event, t_ev, window, inside, states, expect)
     recorded = _recorded(cell, deck, nodes, charge_windows, states)
     runs, seconds = 0, 0.0
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
@@ -345,9 +334,7 @@ def run_event(
         runs, seconds = runs + attempts, seconds + result.seconds
         t = result.vectors["time"]
         with saved:
-            edges = [
-                _edge(config, result.vectors, o, b, a, nodes, event, window) for o, b, a in moves
-            ]
+            edges = [_edge(config, result.vectors, *m, nodes, event, window) for m in moves]
         if edges[0] is None:  # the output holds: nothing to time
             nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
             return nothing, runs, seconds
@@ -357,26 +344,66 @@ def run_event(
             break
         # An energy run keeps its grid (the event and the settling after it) and samples the
         # edges with a train at the spacing they want: the next run is fine.
-        if states is None:
-            grid = _edge_grid(event, span, wanted, inside)
-        else:
-            train = edge_train(*span, wanted)
+        grid = _edge_grid(event, span, wanted, inside) if states is None else grid
+        train = edge_train(*span, wanted) if states is not None else train
+    measured = (event, t_ev, stop, charge_windows, states, loads)
+    return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
+
+
+def _first_grids(
+    event: Ramp,
+    t_ev: float,
+    window: float,
+    inside: tuple[float, ...],
+    states: tuple[bool, bool] | None,
+    expect: Expect | None,
+) -> tuple[str, str | None]:
+    """A run's first breakpoints (``run_event``): the grid (PWL) and the edge train (PULSE,
+    or None): where the edges are ``expect``-ed, else (an energy run) over the event and the
+    settling after it."""
+    if expect is None:
+        grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
+        return grid, None
+    span = (t_ev + expect.start, t_ev + expect.end)
+    if not expect.train:
+        return _edge_grid(event, span, expect.wanted, inside), None
+    grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
+    return grid, edge_train(*span, expect.wanted)
+
+
+def _outcome(
+    config: LibraryConfig,
+    deck: Deck,
+    vectors: dict[str, np.ndarray],
+    moves: tuple[tuple[str, bool, bool], ...],
+    edges: list[_Edge | None],
+    event: Ramp,
+    t_ev: float,
+    stop: float,
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...],
+    states: tuple[bool, bool] | None,
+    loads: dict[str, float],
+) -> Outcome:
+    """What ``run_event`` measured on its final run: every output's edge, each charge window's
+    charge and (with ``states``) the event's energy."""
+    t = vectors["time"]
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
-        (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
+        (p, r.edge, -integral(t, vectors[f"{deck.input_source(p)}#branch"], r.start, b))
         for p, r, b in charge_windows
     )
     energy = None
     if states is not None:
         settle = settle_window(config, deck)
-        energy = ffpower.event_energy(config, deck, result.vectors, event, states, loads, settle)
+        energy = ffpower.event_energy(config, deck, vectors, event, states, loads, settle)
     derate = config.thresholds.slew_derate
     others = tuple(
-        (o, e.t_out, e.raw / derate) for (o, _, _), e in zip(also, edges[1:], strict=True) if e
+        (o, e.t_out, e.raw / derate) for (o, _, _), e in zip(moves[1:], edges[1:], strict=True) if e
     )
-    first = timed[0]
+    first = edges[0]
+    assert first is not None  # run_event returns before this when its output holds
     outcome = Outcome(t_ev, first.t_out, first.raw / derate, charges, energy, float(t[-1]), stop)
-    return replace(outcome, others=others), runs, seconds
+    return replace(outcome, others=others)
 
 
 def _unexpected(edge: _Edge, t_ev: float, expect: Expect | None) -> bool:
