@@ -77,11 +77,11 @@ GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps a
 LEAD_POINTS = 20
 LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-# A convergence check re-simulates at the run's step over TIGHT_STEPS and reltol over
-# TIGHT_RELTOL (a converged transient no longer moves as both shrink: common practice): every
-# constraint search's final bracket (_confirm), and each clock or control arc's sample, whose
-# delay may move by SAMPLE_RTOL and transition by SAMPLE_TRANSITION_RTOL before the whole arc
-# takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
+# Tightened settings: the run's step over TIGHT_STEPS and reltol over TIGHT_RELTOL (a converged
+# transient no longer moves as both shrink: common practice). Every constraint and pulse-width
+# search runs at them from the start; each clock or control event's sample is re-simulated at
+# them, and its delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before
+# the whole event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
 # rise's transition 0.52 % and the rest within 0.13 %).
 TIGHT_STEPS = 4.0
 TIGHT_RELTOL = 10.0
@@ -1399,8 +1399,8 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
 
 def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint search as a function of the offset, for re-checking a
-    result: at the tightened settings its final bracket holds at (``_confirm``), a fresh
-    relaxed reference simulated first."""
+    result: at the tightened settings the search runs at, a fresh relaxed reference simulated
+    first."""
     measure, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
     passes = _passing(measure)
     if not passes(relaxed):
@@ -1411,8 +1411,7 @@ def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
 def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
     swing at and above the narrowest, turned back below it), for re-checking a result at the
-    tightened settings it is confirmed at (``_confirm_pulse``): a fresh relaxed reference is
-    simulated first."""
+    tightened settings it is searched at: a fresh relaxed reference is simulated first."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
