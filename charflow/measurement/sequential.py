@@ -81,8 +81,8 @@ CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
 # transient no longer moves as both shrink: common practice). Every constraint and pulse-width
 # search runs at them from the start; each clock or control event's sample is re-simulated at
 # them, and its delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before
-# the whole event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
-# rise's transition 0.52 % and the rest within 0.13 %).
+# the whole event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within
+# 0.02 %, CLK->Q rise's transition 0.52 % and the rest within 0.13 %).
 TIGHT_STEPS = 4.0
 TIGHT_RELTOL = 10.0
 SAMPLE_RTOL = 0.002
@@ -342,10 +342,11 @@ def run_event(
         span, wanted, fine = _sampled(t, timed, config.simulation.samples_per_edge)
         if fine or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
-        # An energy run keeps its grid (the event and the settling after it) and samples the
-        # edges with a train at the spacing they want: the next run is fine.
-        grid = _edge_grid(event, span, wanted, inside) if states is None else grid
-        train = edge_train(*span, wanted) if states is not None else train
+        # The edges sampled by a train at the spacing they want: the next run is fine. An
+        # energy run's grid samples the event and the settling after it; else the train starts
+        # LEAD_FROM into the event's ramp, where the cell's nodes start to answer it.
+        lead = span[0] if states is not None else event.start + LEAD_FROM * event.duration
+        train = edge_train(min(lead, span[0]), span[1], wanted)
     measured = (event, t_ev, stop, charge_windows, states, loads)
     return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
 
