@@ -23,7 +23,7 @@ EDGES = ("rise", "fall")
 # clock or control point is one run where its event's probes guess its edges, none where the
 # other output's point shared its run (0.96 a point over the demo flip-flops' 750, the event
 # probes included); a search walks to a bracket and narrows it (``sequential._search``) at
-# tightened settings, a trial a run once the relaxed one has placed the edge (10.3 runs a search
+# tightened settings, a trial a run once the relaxed one has placed the edge (9.5 runs a search
 # over the demo flip-flops' 95 searches at 1 ps; all measured December 2026, --jobs 1).
 POINT_RUNS = 1
 FLOP_POINT_RUNS = 1
