@@ -328,7 +328,7 @@ def run_event(
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
         tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
-        alter = alters(deck, cell, waves, loads, grid, train)
+        alter = alters(deck, cell, waves, loads, grid, train=train)
         request = Request(deck, alter, tran, recorded, options, stop_when=stop_when)
         result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
