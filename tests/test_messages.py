@@ -30,7 +30,13 @@ from charflow.plan import arcs as planning
 from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import ConfigError, CutOffError
 from charflow.records.outcomes import Failure
-from charflow.records.points import SEARCH_RUNS, ConstraintPoint, PulsePoint, TimingPoint
+from charflow.records.points import (
+    FLOP_POINT_RUNS,
+    SEARCH_RUNS,
+    ConstraintPoint,
+    PulsePoint,
+    TimingPoint,
+)
 from charflow.simulation import plausible
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -298,7 +304,7 @@ def test_the_progress_bar_counts_each_point_by_its_cost(seq, capsys):
     points = [*planning.plan(seq).points, *plan_toggles(seq)]
     kinds = {(type(p).__name__, getattr(p, "kind", "")): p.cost for p in points}
     assert kinds[("TimingPoint", "combinational")] == 1
-    assert kinds[("TimingPoint", "clock")] == kinds[("TimingPoint", "clear")] == 2
+    assert kinds[("TimingPoint", "clock")] == kinds[("TimingPoint", "clear")] == FLOP_POINT_RUNS
     assert kinds[("ConstraintPoint", "setup")] == kinds[("PulsePoint", "")] == SEARCH_RUNS
     progress = cli_shared.Progress(quiet=False, name="seq_l1")
     progress.enabled = True  # as on a terminal
@@ -322,9 +328,10 @@ def test_the_plan_counts_the_run_s_simulations_within_ten_percent(tmp_path):
     result = flow.characterize(cfg, jobs=1)
     assert not result.failures
     assert abs(planned.simulations - result.simulations) <= PLAN_RTOL * result.simulations
-    # The searches dominate (9 searches of about 20 runs on 1 ps).
+    # The six constraint searches take a good share (about 8 runs each on 1 ps: 45 of the
+    # run's 241 simulations, measured December 2026).
     searched = [m.runs for m in result.measurements if isinstance(m.point, ConstraintPoint)]
-    assert sum(searched) > 0.3 * result.simulations
+    assert sum(searched) > 0.1 * result.simulations
     text = estimate.render(planned)
     assert f"about {planned.simulations:,.0f} simulations in the sweep" in text
 

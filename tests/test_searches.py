@@ -1,7 +1,8 @@
 """Constraint searches on the continuous clock-to-output margin (sequential._search, _falsi)
 against plain bisection on pass/fail: an analytic margin with a capture cliff past its root
 (the root from scipy's brentq), and tests/data/seq_l1.toml's QDFFR_P1 constraint points, each
-searched both ways (needs ngspice: fails without it)."""
+searched both ways at the tightened settings the searches run at (needs ngspice: fails
+without it)."""
 
 from __future__ import annotations
 
@@ -33,6 +34,10 @@ BRENT_XTOL = 1e-18  # s, scipy's root: far inside the search's tolerance
 # On the flop both searches end within the tolerance above one pass/fail boundary, so their
 # answers lie within it of each other (measured: 0.88 ps apart at most, December 2026).
 AGREE = 1e-12  # s
+# Simulations per search, the tightened re-check included (it is the search's own setting
+# now): issue 14's goal for the demo's flops, held on the test flop (measured: 8.0 on its six
+# constraint points, December 2026).
+SEARCH_GOAL = 10.0
 
 
 def _margin(x: float) -> float:
@@ -93,8 +98,9 @@ def flop():
 
 
 def _bisected(cfg, deck, point) -> tuple[tuple[float, float], int]:
-    """The search as it was: pass/fail bisection over the whole [failing, relaxed] range."""
-    measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point)
+    """The search as it was: pass/fail bisection over the whole [failing, relaxed] range, at
+    the tightened settings the search runs at."""
+    measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point, tight=True)
     passes = sequential._passing(measure)
     assert passes(hi) and not passes(lo)
     return sequential._bisect(passes, lo, hi, cfg.simulation.bisect_tolerance), trials.runs
@@ -109,20 +115,22 @@ def test_the_flop_s_constraints_match_bisection_in_fewer_simulations(flop):
     for point in points:
         old, runs = _bisected(cfg, deck, point)
         old_runs.append(runs)
-        measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point)
-        new = sequential._search(measure, lo, hi, tol, point.label)
-        new_runs.append(trials.runs)
-        print(f"{point.label}: bisection {old} in {runs}, search {new} in {trials.runs}")
+        found = sequential.measure_constraint(cfg, deck, point)  # the search as a sweep runs it
+        new = found.bracket
+        assert new is not None and new[0] is not None and new[1] == found.value
+        new_runs.append(found.runs)
+        print(f"{point.label}: bisection {old} in {runs}, search {new} in {found.runs}")
         assert new[1] - new[0] <= tol
         assert abs(new[1] - old[1]) <= AGREE, point.label
     old_mean, new_mean = sum(old_runs) / len(points), sum(new_runs) / len(points)
     print(f"simulations per search: bisection {old_mean:.1f}, search {new_mean:.1f}")
     assert new_mean < old_mean
+    assert new_mean <= SEARCH_GOAL
 
 
 def test_the_flop_s_clock_pulses_match_bisection(flop):
-    # A clock pulse's margin narrows the same way, up from the narrowest full-swing pulse (the
-    # search alone: measure_pulse re-checks its bracket at tightened settings after it).
+    # A clock pulse's margin narrows the same way, up from the narrowest full-swing pulse, at
+    # the tightened settings measure_pulse searches at.
     cfg, deck = flop
     tol = cfg.simulation.bisect_tolerance
     cell = cfg.cell(CELL)
@@ -132,16 +140,18 @@ def test_the_flop_s_clock_pulses_match_bisection(flop):
         bench = sequential._bench(cfg, deck, point.slew, min(cell.grid.slew))
         shape = sequential._Pulse.at(point.slew, point.level, bench.thr, bench.vdd)
         searched = sequential._Trials(cfg, deck)
-        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, searched)
+        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, searched, True)
         new, _, _ = sequential._pulse_search(measure, point, shape, relaxed, True, cfg.simulation)
         trials = sequential._Trials(cfg, deck)
-        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, trials)
+        measure, relaxed = sequential._clock_pulse_test(bench, point, shape, trials, True)
         passes = sequential._passing(measure)
         assert passes(relaxed) and not passes(shape.narrowest)
         old = sequential._bisect(passes, shape.narrowest, relaxed, tol)
         print(f"{point.label}: bisection {old} in {trials.runs}, search {new} in {searched.runs}")
         assert abs(new[1] - old[1]) <= AGREE, point.label
-        assert searched.runs < trials.runs
+        # Past the narrowest pulse the capture fails outright (no finite margin to interpolate):
+        # with every trial one run, the search takes no more than bisection (13 and 13 here).
+        assert searched.runs <= trials.runs
 
 
 def test_an_output_edge_that_starts_early_in_a_slow_event_gets_its_grid():

@@ -260,9 +260,10 @@ def _flop_groups(config: LibraryConfig, deck: Deck, points) -> tuple[GroupCost, 
 
 
 def _arc_checks(config: LibraryConfig, deck: Deck, clocked) -> GroupCost:
-    """The convergence checks of the clock and control arcs (``sequential.check_arc``), once
-    per arc in a worker: measured on the arcs of the clocked samples, first, so that those
-    samples are charged their own runs only."""
+    """The probes and convergence checks of the clock and control events (``sequential.
+    check_arc``; an event's runs time both outputs' arcs), once per event in a worker: measured
+    on the events of the clocked samples, first, so that those samples are charged their own
+    runs only."""
     arcs = {sequential.arc_of(p) for p in clocked}
     checked = list({sequential.arc_of(p): p for p in _picks(clocked, SAMPLES)}.values())
     start = time.perf_counter()

@@ -58,7 +58,6 @@ from charflow.records.outcomes import (
     waveform_of,
 )
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
-from charflow.records.units import show_time
 from charflow.simulation import stimulus
 from charflow.simulation.backends import Request
 from charflow.simulation.netlist import Deck
@@ -79,11 +78,11 @@ GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps a
 LEAD_POINTS = 20
 LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-# A convergence check re-simulates at tightened settings (``stepsize.tightened``): every
-# constraint search's final bracket (_confirm), and each clock or control arc's sample, whose
-# delay may move by SAMPLE_RTOL and transition by SAMPLE_TRANSITION_RTOL before the whole arc
-# takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %, CLK->Q
-# rise's transition 0.52 % and the rest within 0.13 %).
+# Tightened settings (``stepsize.tightened``): every constraint and pulse-width search runs at
+# them from the start; each clock or control event's sample is re-simulated at them, and its
+# delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before the whole
+# event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %,
+# CLK->Q rise's transition 0.52 % and the rest within 0.13 %).
 SAMPLE_RTOL = 0.002
 SAMPLE_TRANSITION_RTOL = 0.01
 # A constraint search's trials (_falsi) stay this share of the tolerance inside the bracket: a
@@ -93,6 +92,51 @@ FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
 # tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
 BRACKET_STEP = 4.0
+# A clock or control point's guessed edges (_Guess) are widened by GUESS_SLACK of the guessed
+# delay either side (linear between probes, the guess is off most between them), sampled at
+# GUESS_SPACING of the spacing the guessed transition wants; a guessed transition is taken as
+# at least GUESS_FLOOR of the smallest the probes measured.
+GUESS_SLACK = 0.25
+GUESS_SPACING = 0.7
+GUESS_FLOOR = 0.5
+# Where a search's trials after its relaxed one expect their output edge (_Trials.expect): from
+# EXPECT_EDGES transitions before the relaxed edge to EXPECT_EDGES transitions after the relaxed
+# delay pushed out by EXPECT_PUSHOUTS x simulation.pushout (a trial near the pass limit is
+# pushed out by one; the refinement's own span is the band +- a transition and a step), at
+# EXPECT_SPACING x the spacing the relaxed edge wants: between breakpoints GRID_SPACING apart
+# ngspice steps about half of it, right at REFINE_SLACK (seq_l1's QDFFR_P1: 1.9 ps steps where
+# 1.82 were allowed).
+EXPECT_EDGES = 1.5
+EXPECT_PUSHOUTS = 1.5
+EXPECT_SPACING = 0.8
+
+
+@dataclass(frozen=True, slots=True)
+class Expect:
+    """Where a run's output edges are expected, from the event's threshold crossing (s), and
+    the sample spacing they want there: its first run's breakpoints (``run_event``)."""
+
+    start: float
+    end: float
+    wanted: float
+    # An edge outside [start, end] is judged clearly without refining (a search's trial far
+    # from its pass limit, ``_Trials``).
+    settles: bool = False
+    # The corners go in an evenly spaced train (``edge_train``) beside the run's own grid
+    # (a clock or control point's guess, ``_Guess``), not in that grid (``_edge_grid``).
+    train: bool = False
+
+
+def edge_train(start: float, stop: float, spacing: float) -> str:
+    """The PULSE vector (0 V throughout) of the breakpoint train: corners every ``spacing``
+    (at most; rounded to stimulus.TIME_QUANTUM) over [start, stop]: four per period, for a
+    count of periods (ngspice's PULSE takes one as its eighth value)."""
+    q = stimulus.TIME_QUANTUM
+    spacing = max(q, np.floor(spacing / q) * q)
+    start = max(q, round(start / q) * q)
+    count = max(1, int(np.ceil((stop - start) / (4 * spacing))))
+    s = f"{spacing:.9g}"
+    return f"[ 0 0 {start:.9g} {s} {s} {s} {4 * spacing:.9g} {count} ]"
 
 
 @dataclass(frozen=True, slots=True)
@@ -108,6 +152,8 @@ class Outcome:
     energy: EventEnergy | None = None  # asked for with ``run_event``'s states
     stopped: float | None = None  # s, simulated time at which the run ended
     stop_cap: float | None = None  # s, the time the run could not go past
+    # (pin, t_out, transition) of each other output timed in the same run (``run_event``'s also)
+    others: tuple[tuple[str, float, float], ...] = ()
 
     @property
     def delay(self) -> float:
@@ -208,18 +254,34 @@ def _edge_grid(
     """Breakpoints from the event through the output ``edge`` (with its margins), every
     GRID_SPACING wanted samples: the cell's nodes answer the event in between (a sharp
     clock-to-output read 1.5 % late with the edge alone sampled). Where that takes more than
-    the breakpoint source's GRID_POINTS, the edge keeps its spacing and LEAD_POINTS spread from
-    LEAD_FROM of the event's ramp on: over a slow ramp the spacing would miss the edge (a 1.5 ns
-    clock ramp's QB transition read 16 % long). The rest of the run keeps its step."""
+    the breakpoint source holds (GRID_POINTS + EXTRA_POINTS, less the ``inside`` samples), the
+    edge keeps its spacing and LEAD_POINTS spread from LEAD_FROM of the event's ramp on: over
+    a slow ramp the spacing would miss the edge (a 1.5 ns clock ramp's QB transition read 16 %
+    long). The rest of the run keeps its step."""
     spacing = GRID_SPACING * wanted
     start, last = edge
-    if last - min(event.start, start) <= GRID_POINTS * spacing:
-        return breakpoints(min(event.start, start), last, spacing, inside)
+    room = GRID_POINTS + EXTRA_POINTS - len(inside)
+    begin = min(event.start, start)
+    if last - begin <= room * spacing:
+        every = np.linspace(begin, last, max(2, int((last - begin) / spacing)))
+        return breakpoints(begin, last, last - begin, (*inside, *(float(x) for x in every)))
     first = min(event.start + LEAD_FROM * event.duration, start)
-    dense = np.linspace(start, last, int(min(GRID_POINTS - LEAD_POINTS, (last - start) / spacing)))
+    dense = np.linspace(start, last, int(min(room - LEAD_POINTS, (last - start) / spacing)))
     # An edge that starts before LEAD_FROM of the event's ramp has no lead to spread.
     lead = (start - first) / LEAD_POINTS if start > first else spacing
     return breakpoints(first, start, lead, (*inside, *(float(x) for x in dense)))
+
+
+@dataclass(frozen=True, slots=True)
+class _Edge:
+    """One output's edge in a run: its delay-threshold crossing and its slew band (s)."""
+
+    t_out: float
+    band: tuple[float, float]
+
+    @property
+    def raw(self) -> float:
+        return self.band[1] - self.band[0]
 
 
 def run_event(
@@ -238,97 +300,203 @@ def run_event(
     states: tuple[bool, bool] | None = None,
     window: float | None = None,
     options: tuple[str, ...] = (),
+    expect: Expect | None = None,
+    also: tuple[tuple[str, bool, bool], ...] = (),
 ) -> tuple[Outcome, int, float]:
-    """Simulate one experiment at time steps up to ``step`` (``run_step``); the output must hold
-    ``before`` until the event and settle at ``after`` (a bool level) once it, within
-    ``window`` (``settle_window`` unless given).
-    Each ``charge_windows`` entry (pin, its ramp, the end or None for the run's end) asks for
-    the charge the pin draws from its ramp's start. With
-    ``states`` (the flop's state before and after the event) the event's energy is measured
-    too (``ffpower.event_energy``). ``options``: simulator options of the run (``tightened``).
-    Returns the outcome, simulations and simulator seconds."""
+    """Simulate one experiment at steps up to ``step`` (``run_step``) and ``options``
+    (``run_settings``): the output holds ``before`` until the event and settles at ``after``
+    within ``window`` (``settle_window``); ``also`` (pin, before, after): more outputs timed.
+    ``charge_windows`` (pin, its ramp, the end or None): charges asked for; with ``states``
+    (stored before, after) the event's energy too; ``expect``: the edges' first breakpoints
+    (``_first_grids``). Returns the outcome (``_outcome``), simulations, simulator seconds."""
     cell = config.cell(deck.cell)
-    vdd, thr, sim = config.process.vdd, config.thresholds, config.simulation
-    out_node = deck.output_node(output)
-    edge = "rise" if after else "fall"
-    tol = sim.settle * vdd
     window = window or settle_window(config, deck)
-    # Stop once the output has settled after the event, and after any late data edge.
-    arm = max(event.end, quiet_until)
-    level = f"v({out_node}) > {vdd - tol:.6g}" if after else f"v({out_node}) < {tol:.6g}"
-    stop_when = f"time > {arm:.6g} when {level}" if before != after else None
-    # The inputs' nodes too: a failed run is saved with the clock and data that drove it.
-    nodes = {output: out_node, **{p: deck.input_node(p) for p in waves}}
-    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
-    recorded = (*nodes.values(), *branches)
-    if states is not None:
-        # The energy window ends when the supply current is quiet, some time after the
-        # outputs settle: the run goes on to its cap.
-        recorded = tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
-        stop_when = None
-    stop = arm + window
-    max_step = step
-    grid = PARKED_GRID
+    moves = ((output, before, after), *also)
+    nodes = {o: deck.output_node(o) for o, _, _ in moves}
+    nodes.update({p: deck.input_node(p) for p in waves})
+    stop, stop_when = _stop(config, nodes[output], event, quiet_until, moves, states, window)
+    t_ev = event.time_at(config.thresholds.delay_input(event.edge))
     inside = _settle_samples(tuple(ramp for _, ramp, _ in charge_windows), event, window)
-    if states is not None:
-        grid = ffpower.event_grid(event, window, inside)
+    grid, train = _first_grids(event, t_ev, window, inside, states, expect)
+    recorded = _recorded(cell, deck, nodes, charge_windows, states)
     runs, seconds = 0, 0.0
-    backend = backend_for(config)
-    what = f"output {output}"
     saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
     for refine in range(REFINEMENTS + 1):
-        request = Request(
-            deck,
-            alters(deck, cell, waves, loads, grid),
-            f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}",
-            recorded,
-            options,
-            stop_when=stop_when,
-        )
-        result, attempts = simulate(backend, request)
+        tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
+        alter = alters(deck, cell, waves, loads, grid, train=train)
+        request = Request(deck, alter, tran, recorded, options, stop_when=stop_when)
+        result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
-        t, v = result.vectors["time"], result.vectors[out_node]
-        held = v[t <= event.start]
+        t = result.vectors["time"]
         with saved:
-            if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
-                raise MeasurementError(
-                    f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
-                    "flop was not initialised"
-                )
-            # Overshooting the rail as it arrives is settled; stopping short of it is not.
-            after_level = vdd if after else 0.0
-            check_settled(
-                v, after_level, tol * (1 + 1e-6), "rise" if after else "fall", what, window
-            )
-            if before == after:
-                nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
-                return nothing, runs, seconds
-            # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
-            t_ev = event.time_at(thr.delay_input(event.edge))
-            t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
-            band = sorted(
-                _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
-            )
-        raw = band[1] - band[0]
-        wanted = raw / sim.samples_per_edge
-        coarse = max(step_at(t, t_out), step_at(t, band[0]), step_at(t, band[1]))
-        if coarse <= REFINE_SLACK * wanted or refine == REFINEMENTS:
+            edges = [_edge(config, result.vectors, *m, nodes, event, window) for m in moves]
+        if edges[0] is None:  # the output holds: nothing to time
+            nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
+            return nothing, runs, seconds
+        timed = [e for e in edges if e is not None]
+        span, wanted, fine = _sampled(t, timed, config.simulation.samples_per_edge)
+        if fine or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
-        grid = _edge_grid(event, (band[0] - coarse - raw, band[1] + coarse + raw), wanted, inside)
+        # The edges sampled by a train at the spacing they want: the next run is fine. An
+        # energy run's grid samples the event and the settling after it; else the train starts
+        # LEAD_FROM into the event's ramp, where the cell's nodes start to answer it.
+        lead = span[0] if states is not None else event.start + LEAD_FROM * event.duration
+        train = edge_train(min(lead, span[0]), span[1], wanted)
+    measured = (event, t_ev, stop, charge_windows, states, loads)
+    return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
+
+
+def _first_grids(
+    event: Ramp,
+    t_ev: float,
+    window: float,
+    inside: tuple[float, ...],
+    states: tuple[bool, bool] | None,
+    expect: Expect | None,
+) -> tuple[str, str | None]:
+    """A run's first breakpoints (``run_event``): the grid (PWL) and the edge train (PULSE,
+    or None): where the edges are ``expect``-ed, else (an energy run) over the event and the
+    settling after it."""
+    if expect is None:
+        grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
+        return grid, None
+    span = (t_ev + expect.start, t_ev + expect.end)
+    if not expect.train:
+        return _edge_grid(event, span, expect.wanted, inside), None
+    grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
+    return grid, edge_train(*span, expect.wanted)
+
+
+def _outcome(
+    config: LibraryConfig,
+    deck: Deck,
+    vectors: dict[str, np.ndarray],
+    moves: tuple[tuple[str, bool, bool], ...],
+    edges: list[_Edge | None],
+    event: Ramp,
+    t_ev: float,
+    stop: float,
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...],
+    states: tuple[bool, bool] | None,
+    loads: dict[str, float],
+) -> Outcome:
+    """What ``run_event`` measured on its final run: every output's edge, each charge window's
+    charge and (with ``states``) the event's energy."""
+    t = vectors["time"]
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
-        (p, r.edge, -integral(t, result.vectors[f"{deck.input_source(p)}#branch"], r.start, b))
+        (p, r.edge, -integral(t, vectors[f"{deck.input_source(p)}#branch"], r.start, b))
         for p, r, b in charge_windows
     )
     energy = None
     if states is not None:
-        energy = ffpower.event_energy(
-            config, deck, result.vectors, event, states, loads, settle_window(config, deck)
-        )
-    outcome = Outcome(
-        t_ev, t_out, raw / thr.slew_derate, charges, energy, stopped=float(t[-1]), stop_cap=stop
+        settle = settle_window(config, deck)
+        energy = ffpower.event_energy(config, deck, vectors, event, states, loads, settle)
+    derate = config.thresholds.slew_derate
+    others = tuple(
+        (o, e.t_out, e.raw / derate) for (o, _, _), e in zip(moves[1:], edges[1:], strict=True) if e
     )
-    return outcome, runs, seconds
+    first = edges[0]
+    assert first is not None  # run_event returns before this when its output holds
+    outcome = Outcome(t_ev, first.t_out, first.raw / derate, charges, energy, float(t[-1]), stop)
+    return replace(outcome, others=others)
+
+
+def _unexpected(edge: _Edge, t_ev: float, expect: Expect | None) -> bool:
+    """Whether the output edge lies outside where it was expected, where that ``settles`` it:
+    a search's trial that far from its pass limit is judged clearly, and not refined."""
+    if expect is None or not expect.settles:
+        return False
+    return not expect.start <= edge.t_out - t_ev <= expect.end
+
+
+def _stop(
+    config: LibraryConfig,
+    node: str,
+    event: Ramp,
+    quiet_until: float,
+    moves: tuple[tuple[str, bool, bool], ...],
+    states: tuple[bool, bool] | None,
+    window: float,
+) -> tuple[float, str | None]:
+    """A run's stop-time cap and its ngspice stop condition: once the output (at ``node``) has
+    settled after the event and after any late data edge (``quiet_until``). A run that
+    measures energy (``states``: the window ends when the supply current is quiet, some time
+    after the outputs settle) or more than one output goes on to its cap."""
+    tol, vdd = config.simulation.settle * config.process.vdd, config.process.vdd
+    arm = max(event.end, quiet_until)
+    _, before, after = moves[0]
+    level = f"v({node}) > {vdd - tol:.6g}" if after else f"v({node}) < {tol:.6g}"
+    timed = before != after and states is None and len(moves) == 1
+    return arm + window, f"time > {arm:.6g} when {level}" if timed else None
+
+
+def _recorded(
+    cell: CellSpec,
+    deck: Deck,
+    nodes: dict[str, str],
+    charge_windows: tuple[tuple[str, Ramp, float | None], ...],
+    states: tuple[bool, bool] | None,
+) -> tuple[str, ...]:
+    """The vectors a run records: the outputs and the inputs that move (a failed run is saved
+    with the clock and data that drove it), the branches whose charge is asked for, and with
+    ``states`` what the event's energy needs (``event_vectors``)."""
+    branches = dict.fromkeys(f"{deck.input_source(w[0])}#branch" for w in charge_windows)
+    recorded = (*nodes.values(), *branches)
+    if states is None:
+        return recorded
+    return tuple(dict.fromkeys((*recorded, *event_vectors(cell, deck))))
+
+
+def _edge(
+    config: LibraryConfig,
+    vectors: dict[str, np.ndarray],
+    output: str,
+    before: bool,
+    after: bool,
+    nodes: dict[str, str],
+    event: Ramp,
+    window: float,
+) -> _Edge | None:
+    """The edge of ``output`` in a run: it must hold ``before`` until the event and settle at
+    ``after``; None when the two are the same (nothing to time)."""
+    vdd, thr = config.process.vdd, config.thresholds
+    tol = config.simulation.settle * vdd
+    t, v = vectors["time"], vectors[nodes[output]]
+    what = f"output {output}"
+    held = v[t <= event.start]
+    if held.size and abs(held[-1] - (vdd if before else 0.0)) > LOGIC_MARGIN * vdd:
+        raise MeasurementError(
+            f"{what} is at {held[-1]:.4g} V before the event, not {int(before)}: the "
+            "flop was not initialised"
+        )
+    edge = "rise" if after else "fall"
+    # Overshooting the rail as it arrives is settled; stopping short of it is not.
+    check_settled(v, vdd if after else 0.0, tol * (1 + 1e-6), edge, what, window)
+    if before == after:
+        return None
+    # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
+    t_out = _crossing_after(t, v, thr.delay_output(edge) * vdd, edge, event.start, what)
+    low, high = sorted(
+        _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
+    )
+    return _Edge(t_out, (low, high))
+
+
+def _sampled(
+    t: np.ndarray, edges: list[_Edge], samples: int
+) -> tuple[tuple[float, float], float, bool]:
+    """Whether every edge has samples_per_edge samples (with REFINE_SLACK), and where the
+    refinement's breakpoints go otherwise: the span of every edge with its margins (a
+    transition and the simulator's step at it either side) and the spacing the sharpest
+    wants."""
+    fine, starts, ends = True, [], []
+    for e in edges:
+        coarse = max(step_at(t, x) for x in (e.t_out, *e.band))
+        fine = fine and coarse <= REFINE_SLACK * e.raw / samples
+        starts.append(e.band[0] - coarse - e.raw)
+        ends.append(e.band[1] + coarse + e.raw)
+    return (min(starts), max(ends)), min(e.raw for e in edges) / samples, fine
 
 
 def _capture_waves(
@@ -343,83 +511,203 @@ def measure_clocked(
 ) -> Measurement:
     """A clock arc (second active edge after writing the opposite value) or an asynchronous
     control arc (after writing the value it changes); ``window`` as in ``run_event`` (a window
-    probe: the arc's convergence is not checked). Every input that moves in the run is asked
-    for its charge on each of its edges (``_clock_run``, ``_control_run``). The arc is measured
-    at tightened settings where its sample moved there (``_arc_check``)."""
+    probe: the event's convergence is not checked). Every input that moves in the run is
+    asked for its charge on each of its edges (``_clock_run``, ``_control_run``). Where the
+    grid has the other output's point with the same slew and the same load on each output
+    (``_partner``), one run times both: the partner is kept for this worker and comes from it,
+    unsimulated. The event is measured at tightened settings where its sample moved there
+    (``_event_check``)."""
     if window is not None:
-        return _clocked(config, deck, point, window)
-    tight, sample, runs, seconds = _arc_check(config, deck, point)
-    measured = sample if sample is not None else _clocked(config, deck, point, tight=tight)
+        return _clocked(config, deck, point, window)[0]
+    if point in _SHARED:
+        return _SHARED.pop(point)
+    tight, guess, runs, seconds = _event_check(config, deck, point)
+    guess = None if _is_probe(config, point) else guess
+    measured, outcome = _clocked(config, deck, point, tight=tight, guess=guess)
+    partner = _partner(config, point)
+    if partner is not None:
+        _SHARED[partner] = replace(_timed(partner, outcome, measured), runs=0, sim_seconds=0.0)
     return replace(measured, runs=measured.runs + runs, sim_seconds=measured.sim_seconds + seconds)
 
 
-# (deck, grid, settings, arc) -> whether the arc is measured at tightened settings
-_ARCS: BoundedCache[tuple, bool] = SESSION.cache("arc checks")
+# Points of the other output timed by a run already made in this worker (``measure_clocked``).
+_SHARED: BoundedCache[TimingPoint, Measurement] = SESSION.cache("shared clock runs")
+# (deck, grid, settings, event) -> whether the event is measured at tightened settings, its guess
+_EVENTS: BoundedCache[tuple, tuple[bool, _Guess | None]] = SESSION.cache("event checks")
 
 
 def arc_of(point: TimingPoint) -> tuple:
-    """What a clock or control point shares with the rest of its arc: all but slew and loads."""
-    p = point
-    return (p.kind, p.related, p.side, p.input_edge, p.output, p.output_edge)
+    """What a clock or control point shares with every point its event's runs time (each
+    output's arc): all but the output, its edge, the slew and the loads."""
+    return (point.kind, point.related, point.side, point.input_edge)
 
 
-def _sample(config: LibraryConfig, point: TimingPoint) -> TimingPoint:
-    """The point of ``point``'s arc its convergence check simulates (``_arc_check``)."""
-    grid = config.cell(point.cell).grid
-    other = None if point.other_load is None else min(grid.related_load)
-    return replace(point, slew=min(grid.slew), load=min(grid.load), other_load=other)
+def _stored(cell: CellSpec, point: TimingPoint) -> bool:
+    """The value a clock or control point's event leaves in the flop."""
+    if point.kind == "clock":
+        rises = point.output_edge == "rise"
+        return next(v for v in (False, True) if stored_output(cell, point.output, v) == rises)
+    return point.kind == "preset"
+
+
+def _partner(config: LibraryConfig, point: TimingPoint) -> TimingPoint | None:
+    """The point of the other output's arc that one run times with ``point`` (the same slew,
+    the same load on each output), where the grid has it; else None."""
+    cell = config.cell(point.cell)
+    if point.other_load is None or point.other_load not in cell.grid.load:
+        return None
+    if point.load not in cell.grid.related_load:
+        return None
+    other = next(o.pin for o in cell.outputs if o.pin != point.output)
+    edge = "rise" if stored_output(cell, other, _stored(cell, point)) else "fall"
+    return replace(
+        point, output=other, output_edge=edge, load=point.other_load, other_load=point.load
+    )
 
 
 def check_arc(config: LibraryConfig, deck: Deck, point: TimingPoint) -> tuple[int, float]:
-    """The convergence check of ``point``'s arc (``_arc_check``), run now as when its sample
-    is the arc's first point in this worker: the simulations and seconds it costs beyond the
-    sample's own run (none once the arc is checked here)."""
-    _, _, runs, seconds = _arc_check(config, deck, _sample(config, point))
+    """The probes and convergence check of ``point``'s event (``_event_check``), run now as
+    when the event's first point comes to this worker: the simulations and seconds they cost
+    (none once the event is checked here)."""
+    _, _, runs, seconds = _event_check(config, deck, point)
     return runs, seconds
 
 
-def _arc_check(
+_Run = tuple[Measurement, Outcome]
+
+
+def _event_check(
     config: LibraryConfig, deck: Deck, point: TimingPoint
-) -> tuple[bool, Measurement | None, int, float]:
-    """Whether ``point``'s arc is measured at tightened settings (``run_settings``): once per
-    worker, the arc's sample (the sharpest slew and the smallest loads: the shortest edges
-    against the step) is measured at the usual settings and at tightened ones; where its delay
-    moves by more than SAMPLE_RTOL or its transition SAMPLE_TRANSITION_RTOL the arc takes the
-    tightened settings, with a warning (a sample that does not measure leaves the arc at the
-    usual settings). Returns that, the sample's measurement when ``point`` is the sample, and
-    the simulations and seconds the check cost beyond it."""
+) -> tuple[bool, _Guess | None, int, float]:
+    """Once per worker and event (``arc_of``: both outputs' arcs, which may share runs): its
+    probes (``_probes``: where its edges fall, ``_Guess``) and its convergence check: the
+    first probe (the sharpest slew and the smallest loads: the shortest edges against the
+    step) again at tightened settings (``run_settings``); where any output's delay moves by
+    more than SAMPLE_RTOL or its transition by SAMPLE_TRANSITION_RTOL the event's points are
+    measured at them, with a warning. A probe that does not measure leaves the event at the
+    usual settings, unguessed (its points fail as their own). Returns that, the guess, and
+    the simulations and seconds spent here."""
     cell = config.cell(point.cell)
     settings = (config.thresholds, config.simulation, config.input_shape)
     key = (deck.key, cell.grid, *settings, arc_of(point))
-    sample = _sample(config, point)
-    if key in _ARCS:
-        return _ARCS[key], None, 0, 0.0
+    if key in _EVENTS:
+        return (*_EVENTS[key], 0, 0.0)
+    probes = _probes(config, point)
     try:
-        usual = _clocked(config, deck, sample)
-        tightened = _clocked(config, deck, sample, tight=True)
+        runs = [_clocked(config, deck, p, every=True) for p in probes]
+        tightened = _clocked(config, deck, probes[0], tight=True, every=True)
     except SimulatorHungError:
         raise
     except (MeasurementError, SimulatorError):
-        # A sample that does not measure fails as its own point, not every point of its arc.
-        _ARCS[key] = False
+        _EVENTS[key] = (False, None)
         return False, None, 0, 0.0
-    delay = abs(tightened.delay / usual.delay - 1.0)
-    transition = abs(tightened.transition / usual.transition - 1.0)
-    _ARCS[key] = tight = delay > SAMPLE_RTOL or transition > SAMPLE_TRANSITION_RTOL
+    moved = _moved_by(runs[0][1], tightened[1])
+    tight = moved[0] > SAMPLE_RTOL or moved[1] > SAMPLE_TRANSITION_RTOL
     if tight:
         log.warning(
             "cell %s, %s: its sample %s moved at tightened simulator settings (delay %.2g %%, "
             "transition %.2g %%): the arc is measured at them",
-            cell.name,
-            point.label,
-            sample.label,
-            100 * delay,
-            100 * transition,
+            *(cell.name, point.label, probes[0].label, 100 * moved[0], 100 * moved[1]),
         )
-    kept, spare = (tightened, usual) if tight else (usual, tightened)
-    if point == sample:
-        return tight, kept, spare.runs, spare.sim_seconds
-    return tight, None, usual.runs + tightened.runs, usual.sim_seconds + tightened.sim_seconds
+    _EVENTS[key] = (tight, _Guess.fit(config, probes, [o for _, o in runs]))
+    spent = [m for m, _ in (*runs, tightened)]
+    return (*_EVENTS[key], sum(m.runs for m in spent), sum(m.sim_seconds for m in spent))
+
+
+def _probes(config: LibraryConfig, point: TimingPoint) -> tuple[TimingPoint, ...]:
+    """The runs an event's guess is made from, as points of ``point``'s arc, every output at
+    the same load: the sharpest slew at the smallest load and at the largest (of any output's
+    load axis), the slowest slew at the smallest."""
+    grid = config.cell(point.cell).grid
+    every = (*grid.load, *grid.related_load)
+
+    def at(slew: float, load: float) -> TimingPoint:
+        other = None if point.other_load is None else load
+        return replace(point, slew=slew, load=load, other_load=other)
+
+    sharp, slow = min(grid.slew), max(grid.slew)
+    return (at(sharp, min(every)), at(sharp, max(every)), at(slow, min(every)))
+
+
+def _is_probe(config: LibraryConfig, point: TimingPoint) -> bool:
+    """Whether ``point``'s run is one of its event's probe runs (the same slew and loads):
+    measured as a probe is, unguessed, whichever worker measures it."""
+    cell = config.cell(point.cell)
+    loads = point_loads(cell, point)
+    return any(
+        p.slew == point.slew and point_loads(cell, p) == loads for p in _probes(config, point)
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class _Guess:
+    """Where a clock or control event's output edges fall, from its probes (``_probes``):
+    each output's delay and raw transition, linear in the event's ramp and in the output's own
+    load between them (an output's delay and transition grow about linearly with the load it
+    drives and with the input's ramp: first-order, common practice)."""
+
+    ramps: tuple[float, float]  # s: the probes' sharpest and slowest event ramps
+    loads: tuple[float, float]  # F: the probes' smallest and largest load
+    base: dict[str, np.ndarray]  # output -> (delay, raw transition): sharpest, smallest
+    heavy: dict[str, np.ndarray]  # ... sharpest slew, largest load
+    slow: dict[str, np.ndarray]  # ... slowest slew, smallest load
+
+    @classmethod
+    def fit(cls, config: LibraryConfig, probes, outcomes: list[Outcome]) -> _Guess:
+        cell, thr, vdd = config.cell(probes[0].cell), config.thresholds, config.process.vdd
+        ramps = [
+            stimulus.ramp(p.slew, p.input_edge, thr, vdd, config.input_shape).duration
+            for p in probes
+        ]
+        base, heavy, slow = (_values(config, cell, o) for o in outcomes)
+        return cls((ramps[0], ramps[2]), (probes[0].load, probes[1].load), base, heavy, slow)
+
+    def expect(self, ramp: float, loads: dict[str, float], samples: int) -> Expect:
+        """Where a run at the event's ``ramp`` and the outputs' ``loads`` moves them."""
+        (r0, r1), (c0, c1) = self.ramps, self.loads
+        x = (ramp - r0) / (r1 - r0) if r1 > r0 else 0.0
+        edges = []
+        for o in loads:
+            y = (loads[o] - c0) / (c1 - c0) if c1 > c0 else 0.0
+            b = self.base[o]
+            edges.append(b + (self.slow[o] - b) * x + (self.heavy[o] - b) * y)
+        delay = np.array([e[0] for e in edges])
+        least = min(self.base[o][1] for o in loads)
+        raw = np.maximum([e[1] for e in edges], GUESS_FLOOR * least)
+        slack = GUESS_SLACK * float(delay.max())
+        start = float((delay - EXPECT_EDGES * raw).min()) - slack
+        end = float((delay + EXPECT_EDGES * raw).max()) + slack
+        return Expect(start, end, GUESS_SPACING * float(raw.min()) / samples, train=True)
+
+
+def _values(config: LibraryConfig, cell: CellSpec, outcome: Outcome) -> dict[str, np.ndarray]:
+    """Each output's (delay, raw transition) in a run that timed every output."""
+    derate = config.thresholds.slew_derate
+    timed = [(cell.outputs[0].pin, outcome.t_out, outcome.transition), *outcome.others]
+    return {o: np.array([t - outcome.t_event, tr * derate]) for o, t, tr in timed}
+
+
+def _moved_by(usual: Outcome, tight: Outcome) -> tuple[float, float]:
+    """The most any output's delay and transition moved from ``usual`` to ``tight``."""
+
+    def timed(o: Outcome) -> list[tuple[float, float]]:
+        edges = [(o.t_out, o.transition), *((t, tr) for _, t, tr in o.others)]
+        return [(t - o.t_event, tr) for t, tr in edges]
+
+    moved = [
+        (abs(b[0] / a[0] - 1.0), abs(b[1] / a[1] - 1.0))
+        for a, b in zip(timed(usual), timed(tight), strict=True)
+    ]
+    return max(m[0] for m in moved), max(m[1] for m in moved)
+
+
+def _timed(point: TimingPoint, outcome: Outcome, measured: Measurement) -> Measurement:
+    """``measured`` with ``point``'s output's delay and transition in the run of ``outcome``."""
+    t_out, transition = outcome.t_out, outcome.transition
+    for o, t, tr in outcome.others:
+        if o == point.output:
+            t_out, transition = t, tr
+    return replace(measured, point=point, delay=t_out - outcome.t_event, transition=transition)
 
 
 def _clocked(
@@ -428,33 +716,49 @@ def _clocked(
     point: TimingPoint,
     window: float | None = None,
     tight: bool = False,
-) -> Measurement:
-    """``measure_clocked`` at the usual settings or, with ``tight``, the tightened ones."""
+    every: bool = False,
+    guess: _Guess | None = None,
+) -> _Run:
+    """``measure_clocked`` at the usual settings or, with ``tight``, the tightened ones: the
+    point's measurement and the run's outcome. A point with a partner (``_partner``) times
+    every output, in the cell's order (the partner's run is the same run), and so does
+    ``every``. Its first run's edges are sampled where ``guess`` puts them."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
-    out_after = point.output_edge == "rise"
-    if point.kind == "clock":
-        stored = next(v for v in (False, True) if stored_output(cell, point.output, v) == out_after)
-        waves, event, windows = _clock_run(bench, point, stored)
-    else:
-        stored = point.kind == "preset"
-        waves, event, windows = _control_run(bench, point, stored)
+    stored = _stored(cell, point)
+    run = _clock_run if point.kind == "clock" else _control_run
+    waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
+    every = every or _partner(config, point) is not None
+    timed = [o.pin for o in cell.outputs] if every else [point.output]
+    moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
+    loads = point_loads(cell, point)
+    samples = config.simulation.samples_per_edge
+    ramp = event.duration
+    expect = None if guess is None else guess.expect(ramp, {o: loads[o] for o in timed}, samples)
     outcome, runs, seconds = run_event(
         config,
         deck,
         waves,
-        point_loads(cell, point),
+        loads,
         event=event,
         step=step,
-        output=point.output,
-        before=stored_output(cell, point.output, not stored),
-        after=out_after,
+        output=moves[0][0],
+        before=moves[0][1],
+        after=moves[0][2],
+        also=tuple(moves[1:]),
         charge_windows=windows,
         states=(not stored, stored),
         window=bench.window,
         options=options,
+        expect=expect,
     )
+    return _timed(point, outcome, _measurement(point, outcome, runs, seconds)), outcome
+
+
+def _measurement(point: TimingPoint, outcome: Outcome, runs: int, seconds: float) -> Measurement:
+    """A clock or control point's measurement from its run (its first output's edge: see
+    ``_timed``)."""
     (measured,) = (q for p, e, q in outcome.charges if (p, e) == (point.related, point.input_edge))
     energy = outcome.energy
     assert energy is not None and outcome.stopped is not None  # run_event with states gives both
@@ -574,12 +878,19 @@ def _bracket(
     """A first (failing, passing) bracket, each end an (offset, margin) pair: from ``start``
     (measured) in steps that double from BRACKET_STEP × ``tol``, down while the trials pass,
     up while they fail, no further than ``lo`` (which must fail) or ``high``'s offset (which
-    passed)."""
+    passed). Where the last two margins are finite and nearing 0, a secant step (Brent 1973,
+    ch. 3: the secant through two samples, extrapolated) goes to just past the root it
+    estimates, when that is nearer than the doubling step: the margin steepens towards the
+    capture's failure, so the estimate lies past the root and the bracket closes tight."""
     at, g = start
     down = g <= 0  # passing: walk down to a failing offset; failing: up to a passing one
     step = BRACKET_STEP * tol
+    last: tuple[float, float] | None = None
     while True:
         nxt = max(at - step, lo) if down else min(at + step, high[0])
+        guess = _secant_past(last, (at, g), tol if down else -tol)
+        if guess is not None and abs(guess - at) < abs(nxt - at):
+            nxt = guess
         g_nxt = high[1] if nxt == high[0] else measure(nxt)
         if (g_nxt > 0) == down:
             return ((nxt, g_nxt), (at, g)) if down else ((at, g), (nxt, g_nxt))
@@ -587,7 +898,21 @@ def _bracket(
             raise MeasurementError(
                 f"{what}: passes even at {lo:.4g} s; the search does not bracket"
             )
-        at, g, step = nxt, g_nxt, 2 * step
+        last, (at, g), step = (at, g), (nxt, g_nxt), 2 * step
+
+
+def _secant_past(
+    last: tuple[float, float] | None, at: tuple[float, float], tol: float
+) -> float | None:
+    """The root of the secant through ``last`` and ``at`` (offset, margin), FALSI_EDGE ×
+    ``tol`` further on (below it for ``tol`` > 0), or None where the two margins are not
+    finite or do not near 0 from ``last`` to ``at``."""
+    if last is None or not (np.isfinite(last[1]) and np.isfinite(at[1])):
+        return None
+    (x0, g0), (x1, g1) = last, at
+    if abs(g1) >= abs(g0) or g0 * g1 <= 0:
+        return None
+    return x1 - g1 * (x1 - x0) / (g1 - g0) - FALSI_EDGE * tol
 
 
 def _falsi(
@@ -601,19 +926,30 @@ def _falsi(
     Brent, "Algorithms for Minimization without Derivatives", 1973, ch. 4): a bisection step
     where the failing end's margin is not finite (the capture failed), or the bracket has not
     halved over the last two steps; a trial at least FALSI_EDGE × ``tol`` inside either end,
-    so that the bracket closes to ``tol`` from either side."""
+    so that the bracket closes to ``tol`` from either side. Where the failing end's margin is
+    not finite but the last two passing ones are, the secant through those (``_secant_past``)
+    instead of the bisection step when it falls inside the bracket. A bracket within twice
+    ``tol`` takes the trial nearest that step's estimate that leaves it within ``tol`` either
+    way."""
     (lo, g_lo), (hi, g_hi) = failing, passing
     widths = [np.inf, np.inf]  # the bracket's width before each step
     kept = 0  # +1: the passing end moved last; -1: the failing end did
+    passed: tuple[float, float] | None = None  # the passing end before the last one
     while hi - lo > tol:
         x = 0.5 * (lo + hi)
+        inside = (lo + FALSI_EDGE * tol, hi - FALSI_EDGE * tol)
+        guess = _secant_past(passed, (hi, g_hi), tol)
         if np.isfinite(g_lo) and hi - lo <= 0.5 * widths[-2]:
             x = hi - g_hi * (hi - lo) / (g_hi - g_lo)
-            x = min(max(x, lo + FALSI_EDGE * tol), hi - FALSI_EDGE * tol)
+            x = min(max(x, inside[0]), inside[1])
+        elif not np.isfinite(g_lo) and guess is not None and inside[0] <= guess <= inside[1]:
+            x = guess
+        if hi - lo <= 2 * tol:  # one trial closes it either way: the one nearest the estimate
+            x = min(max(x, hi - tol), lo + tol)
         widths.append(hi - lo)
         g = measure(x)
         if g <= 0:
-            hi, g_hi = x, g
+            passed, (hi, g_hi) = (hi, g_hi), (x, g)
             g_lo = g_lo / 2 if kept == 1 else g_lo
             kept = 1
         else:
@@ -624,17 +960,22 @@ def _falsi(
 
 
 class _Trials:
-    """Counts simulations and keeps the relaxed clock-to-output delay for the pass test."""
+    """Counts simulations and keeps the relaxed clock-to-output delay for the pass test; once
+    it has one, every later trial's first run samples the output edge where the relaxed edge
+    and the pass limit put it (``expect``): a trial is one run, not a coarse run refined."""
 
     def __init__(self, config: LibraryConfig, deck: Deck) -> None:
         self.config, self.deck = config, deck
         self.runs, self.seconds = 0, 0.0
         self.reference: float | None = None
+        self.expect: Expect | None = None
         self.failed: Waveform | None = None  # the waveform of the last failed trial
 
     def __call__(self, waves, loads, **kw) -> Outcome | None:
         try:
-            outcome, runs, seconds = run_event(self.config, self.deck, waves, loads, **kw)
+            outcome, runs, seconds = run_event(
+                self.config, self.deck, waves, loads, expect=self.expect, **kw
+            )
         except MeasurementError as exc:
             self.runs += 1
             self.failed = waveform_of(exc)
@@ -648,68 +989,84 @@ class _Trials:
         smoothly as the offset shrinks, then is infinite where the capture fails."""
         if outcome is None:
             return float("inf")
+        sim = self.config.simulation
         if self.reference is None:
-            self.reference = outcome.delay
-        return outcome.delay - (1.0 + self.config.simulation.pushout) * self.reference
+            self.reference = delay = outcome.delay
+            raw = outcome.transition * self.config.thresholds.slew_derate
+            # A trial near the limit moves its edge out by up to pushout × the relaxed delay.
+            late = (1.0 + EXPECT_PUSHOUTS * sim.pushout) * delay
+            wanted = EXPECT_SPACING * raw / sim.samples_per_edge
+            start, end = delay - EXPECT_EDGES * raw, late + EXPECT_EDGES * raw
+            self.expect = Expect(start, end, wanted, settles=True)
+        return outcome.delay - (1.0 + sim.pushout) * self.reference
 
-    def in_time(self, outcome: Outcome | None) -> bool:
-        return self.margin(outcome) <= 0
+
+@dataclass(frozen=True, slots=True)
+class _Experiment:
+    """What every trial of one constraint search shares: the outputs' loads, the measured clock
+    edge, the run's settings, and the output watched with its level before and after."""
+
+    loads: dict[str, float]
+    event: Ramp
+    step: float
+    options: tuple[str, ...]
+    output: str
+    before: bool
+    after: bool
+
+
+def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
+    """The margin of a constraint search's trial by its offset (``_Trials.margin``), from
+    ``waves_at`` (offset -> the waves and when the last input edge is over); not ``judged``
+    (removal: the flop stays or not, nothing grows towards failing), 0 or +inf."""
+
+    def measure(offset: float) -> float:
+        waves, quiet = waves_at(offset)
+        outcome = trials(
+            waves,
+            run.loads,
+            event=run.event,
+            step=run.step,
+            output=run.output,
+            before=run.before,
+            after=run.after,
+            quiet_until=quiet,
+            options=run.options,
+        )
+        if judged:
+            return trials.margin(outcome)
+        return 0.0 if outcome is not None else float("inf")
+
+    return measure
+
+
+def _experiment(
+    bench: Timeline,
+    deck: Deck,
+    point: ConstraintPoint,
+    event: Ramp,
+    levels: tuple[bool, bool],
+    tight: bool,
+) -> _Experiment:
+    """A constraint point's ``_Experiment``: the first output watched at the grid's smallest
+    loads, with the levels (before, after) given."""
+    cell = bench.cell
+    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    step, options = run_settings(bench.config, deck, tight, point.data_slew, point.clock_slew)
+    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels)
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
     clock-to-data-change offset that keeps the captured value (either may be negative).
-    Recovery and removal: the same for a clear or preset's release (``_release_setup``)."""
-    measure, lo, hi, trials = _constraint_setup(config, deck, point)
+    Recovery and removal: the same for a clear or preset's release (``_release_setup``).
+    Searched at the tightened settings of a convergence check (``run_settings``) from the
+    start: the bracket found holds at them, with no second search to confirm it."""
+    measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
         bracket = _search(measure, lo, hi, config.simulation.bisect_tolerance, point.label)
-    checked, check = _confirm(config, deck, point, bracket)
-    note = _moved(config, point, bracket, checked)
-    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
-    return SearchResult(point, checked[1], runs, seconds, checked, note=note)
-
-
-def _moved(
-    config: LibraryConfig,
-    point: ConstraintPoint | PulsePoint,
-    bracket: tuple[float, float],
-    checked: tuple[float, float],
-) -> str:
-    """The note (and warning) of a search whose bracket did not hold at tightened settings."""
-    if checked == bracket:
-        return ""
-    unit = config.time_unit
-    note = (
-        f"moved from {show_time(bracket[1], unit)} to {show_time(checked[1], unit)} when "
-        "its bracket was re-simulated at tightened settings: searched on at them"
-    )
-    log.warning("cell %s, %s: %s", point.cell, point.label, note)
-    return note
-
-
-def _confirm(
-    config: LibraryConfig, deck: Deck, point: ConstraintPoint, bracket: tuple[float, float]
-) -> tuple[tuple[float, float], _Trials]:
-    """A search's final (failing, passing) bracket re-simulated at tightened settings
-    (``run_settings``, with its own relaxed reference): the passing end must pass and the
-    failing end fail there too. Where one does not, the search goes on at those settings,
-    outwards from that end in steps that double from the tolerance, then by bisection. Returns
-    the bracket that holds at tightened settings and the check's trials."""
-    measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
-    passes = _passing(measure)
-    tol = config.simulation.bisect_tolerance
-    failing, passing = bracket
-    with KeepWaveform(lambda: trials.failed):
-        if not passes(hi):
-            raise MeasurementError(f"{point.label}: fails even with relaxed timing ({hi:.4g} s)")
-        if passes(passing):
-            if not passes(failing):
-                return bracket, trials
-            passing, failing = _step_out(passes, failing, -tol, lo, point.label)
-        else:
-            failing, passing = _step_out(passes, passing, tol, hi, point.label)
-        return _bisect(passes, failing, passing, tol), trials
+    return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
 
 
 def _passing(measure):
@@ -719,20 +1076,6 @@ def _passing(measure):
         return measure(offset) <= 0
 
     return passes
-
-
-def _step_out(passes, start: float, step: float, limit: float, what: str) -> tuple[float, float]:
-    """From ``start`` in steps of ``step`` that double, up to ``limit``: the last offset with
-    ``start``'s verdict and the first with the other (a passing one going up, ``step`` > 0; a
-    failing one going down)."""
-    want = step > 0
-    last = at = start
-    while (at - limit) * (1 if want else -1) < 0:
-        at = min(at + step, limit) if want else max(at + step, limit)
-        if passes(at) == want:
-            return last, at
-        last, step = at, step * 2
-    raise MeasurementError(f"{what}: the tightened re-check does not bracket at {limit:.4g} s")
 
 
 def _constraint_setup(
@@ -745,61 +1088,49 @@ def _constraint_setup(
         return _release_setup(config, deck, point, tight)
     cell = config.cell(point.cell)
     bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
-    out = cell.outputs[0].pin
-    others = _sensitized_data(cell, point.constrained)
+    out, pin = cell.outputs[0].pin, point.constrained
+    others = _sensitized_data(cell, pin)
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
     captured = final if point.kind == "setup" else not final
-    stored = flop.next_state.evaluate({**others, point.constrained: captured})
-    old = {**others, point.constrained: not captured}
+    stored = flop.next_state.evaluate({**others, pin: captured})
     clock, event = bench.clock(point.clock_slew, edges=2)
-    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
-    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
+    levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
+    run = _experiment(bench, deck, point, event, levels, tight)
+    waves_at = _data_waves(bench, point, {**others, pin: not captured}, clock, event)
     trials = _Trials(config, deck)
-    before, after = stored_output(cell, out, not stored), stored_output(cell, out, stored)
-    pin = point.constrained
+    relaxed = bench.half / 2
+    lo = -relaxed / 2
+    if point.kind == "setup":
+        data = bench.ramp(point.data_slew, point.data_edge)
+        lo = -(data.duration + event.duration)
+    return _offset_margin(trials, run, waves_at, judged=True), lo, relaxed, trials
 
-    def waves_at(offset: float):
+
+def _data_waves(bench: Timeline, point: ConstraintPoint, old: dict[str, bool], clock, event):
+    """Setup or hold: the waves of a trial by its offset, and when its last data edge is over.
+    The other data pins hold their ``old`` values; the constrained pin moves to the value
+    captured ``offset`` before the clock's threshold (setup), or has moved to it half a phase
+    before and moves back ``offset`` after (hold)."""
+    thr, flop, pin = bench.thr, bench.cell.flip_flop, point.constrained
+    captured = not old[pin]
+    t_clk = event.time_at(thr.delay_input(event.edge))
+    probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
+    go_along = probe[1].time_at(thr.delay_input(probe[1].edge))
+    back_along = probe[2].time_at(thr.delay_input(probe[2].edge)) - probe[2].start
+
+    def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
         waves[flop.clock] = clock
-        probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
-        go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
-        back_along = probe[2].time_at(config.thresholds.delay_input(probe[2].edge)) - probe[2].start
         if point.kind == "setup":
-            vector, go, _ = bench.data(
-                pin, not captured, captured, t_clk - offset - go_along, point.data_slew
-            )
-            quiet = go.end
-        else:
-            start = t_clk - bench.half / 2 - go_along
-            hold = t_clk + offset - back_along - start - probe[1].duration
-            vector, _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
-            quiet = back.end + bench.window / 4
-        waves[pin] = vector
-        return waves, quiet
+            start = t_clk - offset - go_along
+            waves[pin], go, _ = bench.data(pin, not captured, captured, start, point.data_slew)
+            return waves, go.end
+        start = t_clk - bench.half / 2 - go_along
+        hold = t_clk + offset - back_along - start - probe[1].duration
+        waves[pin], _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
+        return waves, back.end + bench.window / 4
 
-    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
-
-    def measure(offset: float) -> float:
-        waves, quiet = waves_at(offset)
-        outcome = trials(
-            waves,
-            loads,
-            event=event,
-            step=step,
-            output=out,
-            before=before,
-            after=after,
-            quiet_until=quiet,
-            options=options,
-        )
-        return trials.margin(outcome)
-
-    relaxed = bench.half / 2
-    if point.kind == "setup":
-        lo = -(bench.ramp(point.data_slew, point.data_edge).duration + event.duration)
-    else:
-        lo = -relaxed / 2
-    return measure, lo, relaxed, trials
+    return waves_at
 
 
 def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool):
@@ -809,53 +1140,36 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, ti
     be negative). The data asks for the value the control does not force."""
     cell = config.cell(point.cell)
     bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
-    out = cell.outputs[0].pin
-    pin = point.constrained
+    out, pin = cell.outputs[0].pin, point.constrained
     clear = flop.clear is not None and pin in flop.clear.variables()
     forced = not clear  # the state the control holds
     released = point.data_edge == "rise"  # the pin's value once released
     clock, event = bench.clock(point.clock_slew, edges=2)
     t_clk = event.time_at(config.thresholds.delay_input(event.edge))
-    loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
-    trials = _Trials(config, deck)
-    held = stored_output(cell, out, forced)
     recovery = point.kind == "recovery"
+    held = stored_output(cell, out, forced)
+    # Recovery is judged like setup (captured, and in time); removal by the flop staying.
+    after = stored_output(cell, out, not forced) if recovery else held
+    run = _experiment(bench, deck, point, event, (held, after), tight)
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
-    step, options = run_settings(config, deck, tight, point.data_slew, point.clock_slew)
 
-    def measure(offset: float) -> float:
+    def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
         waves[flop.clock] = clock
         release_at = t_clk - offset if recovery else t_clk + offset
         waves[pin], go, _ = bench.data(
             pin, not released, released, release_at - go_along, point.data_slew
         )
-        after = stored_output(cell, out, not forced) if recovery else held
-        quiet = go.end if recovery else go.end + bench.window / 4
-        outcome = trials(
-            waves,
-            loads,
-            event=event,
-            step=step,
-            output=out,
-            before=held,
-            after=after,
-            quiet_until=quiet,
-            options=options,
-        )
-        # Recovery is judged like setup (captured, and in time); removal by the flop staying,
-        # which has no measure that grows towards failing.
-        if recovery:
-            return trials.margin(outcome)
-        return 0.0 if outcome is not None else float("inf")
+        return waves, go.end if recovery else go.end + bench.window / 4
 
     relaxed = bench.half / 2
     # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
     # edge captures nothing, or captures.
     lo = -(probe[1].duration + event.duration) if recovery else -relaxed
-    return measure, lo, relaxed, trials
+    trials = _Trials(config, deck)
+    return _offset_margin(trials, run, waves_at, judged=recovery), lo, relaxed, trials
 
 
 @dataclass(frozen=True, slots=True)
@@ -927,26 +1241,21 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     first; when the narrowest of them (no flat top) still works, a control's pulses keep the
     slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
-    result says why (a clock's pulses are full-swing only: one PULSE source shapes both). A
-    width found is re-checked at tightened settings like a constraint (``_confirm_pulse``)."""
+    result says why (a clock's pulses are full-swing only: one PULSE source shapes both).
+    Searched at tightened settings from the start, as a constraint is (``measure_constraint``)."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)
     trials = _Trials(config, deck)
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
-    measure, relaxed = test(bench, point, shape, trials)
+    measure, relaxed = test(bench, point, shape, trials, tight=True)
     with KeepWaveform(lambda: trials.failed):
-        found = _pulse_search(measure, point, shape, relaxed, clock, config.simulation)
-    bracket, stimulus_, note = found
-    if bracket[0] is None:  # no width failed: nothing to confirm
-        return SearchResult(point, None, trials.runs, trials.seconds, bracket, stimulus_, note)
-    known = (bracket[0], bracket[1])
-    lowest = shape.narrowest if stimulus_ == FULL else shape.floor
-    checked, check = _confirm_pulse(deck, bench, point, shape, test, known, lowest)
-    note = _moved(config, point, known, checked)
-    runs, seconds = trials.runs + check.runs, trials.seconds + check.seconds
-    return SearchResult(point, checked[1], runs, seconds, checked, stimulus_, note)
+        bracket, stimulus_, note = _pulse_search(
+            measure, point, shape, relaxed, clock, config.simulation
+        )
+    value = None if bracket[0] is None else bracket[1]
+    return SearchResult(point, value, trials.runs, trials.seconds, bracket, stimulus_, note)
 
 
 def _pulse_search(
@@ -978,38 +1287,6 @@ def _pulse_search(
         note = "works even as a pulse that turns back just past the thresholds: no width fails"
         return (None, floor), RUNT, note
     return _bisect(passes, floor, shape.narrowest, tol), RUNT, ""
-
-
-def _confirm_pulse(
-    deck: Deck,
-    bench: Timeline,
-    point: PulsePoint,
-    shape: _Pulse,
-    test: Callable[..., tuple[Callable[[float], bool], float]],
-    bracket: tuple[float, float],
-    lowest: float,
-) -> tuple[tuple[float, float], _Trials]:
-    """A pulse search's (failing, passing) widths re-simulated at tightened settings, searched
-    on there where one does not hold (as ``_confirm`` does for a constraint), no narrower than
-    ``lowest`` (the narrowest pulse of the search's shape)."""
-    trials = _Trials(bench.config, deck)
-    measure, relaxed = test(bench, point, shape, trials, tight=True)
-    passes = _passing(measure)
-    tol = bench.config.simulation.bisect_tolerance
-    failing, passing = bracket
-    with KeepWaveform(lambda: trials.failed):
-        high = measure(relaxed)
-        if high > 0:
-            raise MeasurementError(
-                f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)"
-            )
-        if passes(passing):
-            if not passes(failing):
-                return bracket, trials
-            passing, failing = _step_out(passes, failing, -tol, lowest, point.label)
-        else:
-            failing, passing = _step_out(passes, passing, tol, relaxed, point.label)
-        return _bisect(passes, failing, passing, tol), trials
 
 
 def _clock_pulse_test(
@@ -1132,8 +1409,8 @@ def check_flop(config: LibraryConfig, deck: Deck) -> None:
 
 def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
     """The pass test of a constraint search as a function of the offset, for re-checking a
-    result: at the tightened settings its final bracket holds at (``_confirm``), a fresh
-    relaxed reference simulated first."""
+    result: at the tightened settings the search runs at, a fresh relaxed reference simulated
+    first."""
     measure, _, relaxed, _ = _constraint_setup(config, deck, point, tight=True)
     passes = _passing(measure)
     if not passes(relaxed):
@@ -1144,8 +1421,7 @@ def constraint_probe(config: LibraryConfig, deck: Deck, point: ConstraintPoint):
 def pulse_probe(config: LibraryConfig, deck: Deck, point: PulsePoint):
     """The pass test of a pulse-width search as a function of the width (``_Pulse``: full
     swing at and above the narrowest, turned back below it), for re-checking a result at the
-    tightened settings it is confirmed at (``_confirm_pulse``): a fresh relaxed reference is
-    simulated first."""
+    tightened settings it is searched at: a fresh relaxed reference is simulated first."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)

@@ -20,13 +20,14 @@ EDGES = ("rise", "fall")
 # Simulations a point of each kind takes, roughly: the weights of the progress bar and of the
 # chunks handed to workers (``estimate`` measures the real figures on samples). A combinational
 # point is one run, now and then refined (1.6 on tests/data/seq_l1.toml's QBUFC_P1); a flip-flop
-# experiment writes a value first and is refined more often (2.4 a clock point there); a search
-# walks to a bracket and narrows it (``sequential._search``), each trial a run or more, then
-# re-checks its bracket at tightened settings (7 to 45 runs a search, 26.3 on average, over the
-# demo flip-flops' 95 searches at 1 ps, measured December 2026).
+# clock or control point is one run where its event's probes guess its edges, none where the
+# other output's point shared its run (0.96 a point over the demo flip-flops' 750, the event
+# probes included); a search walks to a bracket and narrows it (``sequential._search``) at
+# tightened settings, a trial a run once the relaxed one has placed the edge (9.5 runs a search
+# over the demo flip-flops' 95 searches at 1 ps; all measured December 2026, --jobs 1).
 POINT_RUNS = 1
-FLOP_POINT_RUNS = 2
-SEARCH_RUNS = 26
+FLOP_POINT_RUNS = 1
+SEARCH_RUNS = 10
 # A tightened re-measure (``TightPoint``) is one run at a quarter of the step: 5.5 times a
 # grid point's simulator time on the demo's combinational cells (145.9 s against 26.5 s for
 # their 1764 points, measured December 2026), weighed as this many runs.
