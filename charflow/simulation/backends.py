@@ -586,6 +586,20 @@ def deck_read_error(what: str, deck: Deck, output: str) -> DeckReadError:
     return DeckReadError(f"{what}: {cause}{read}", cell=deck.cell)
 
 
+def loaded_library() -> str | None:
+    """The file of the ngspice shared library loaded in this process (Linux's account of the
+    process's mappings); None when none is, or the system keeps no such account."""
+    try:
+        with open("/proc/self/maps", encoding="utf-8") as maps:
+            for line in maps:
+                path = line.split(maxsplit=5)[-1].strip()
+                if os.path.basename(path).startswith("libngspice"):
+                    return path
+    except OSError:
+        pass
+    return None
+
+
 def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:
     """A new backend; the shared one exists once per process (``session.SESSION`` keeps it:
     PySpice hands every caller the same simulator, whose loaded circuits it tracks)."""
