@@ -10,6 +10,13 @@ the points not yet started to fresh workers.
 
 joblib's process pool (loky) stops every worker when one dies, so the points in flight on all
 of them are re-run alone: the pool cannot say which worker died first.
+
+Reading a cell's testbench parses its models, which takes seconds with a foundry's model file,
+and a worker keeps what it has read (``backends.MAX_CIRCUITS``). So the driver keeps one chunk
+in flight per worker and, when a worker returns one, hands it the next chunk of a cell it has
+read already; else of a cell no worker has started, the cell with the most work left first;
+only else of the cell with the most work left (``_Queue``). A cell is then read by a second
+worker only where the load balance needs it, and never more than once by any worker.
 """
 
 from __future__ import annotations
@@ -19,10 +26,11 @@ import logging
 import os
 import pickle
 import tempfile
-from collections.abc import Generator, Mapping, Sequence
-from concurrent.futures import Executor, as_completed
+from collections import deque
+from collections.abc import Generator, Iterable, Mapping, Sequence
+from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
 from concurrent.futures.process import BrokenProcessPool
-from dataclasses import replace
+from dataclasses import dataclass, field, replace
 
 from charflow.config.library import LibraryConfig
 from charflow.measurement import registry
@@ -30,6 +38,7 @@ from charflow.records.errors import OutputError, SimulatorError, SimulatorHungEr
 from charflow.records.outcomes import Failure, Outcome
 from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
+from charflow.simulation.session import SESSION
 
 log = logging.getLogger("charflow")
 
@@ -39,9 +48,42 @@ EXIT_HUNG = 70  # exit status of a worker whose simulator did not stop when halt
 FRUITLESS_ROUNDS = 2
 
 
-def _work(
-    config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str
-) -> list[Outcome]:
+@dataclass
+class Reads:
+    """The testbenches a sweep's simulators read (each read parses the cell's models), as the
+    chunks report them; one tally may serve several sweeps (a run's check and its sweep)."""
+
+    count: int = 0
+    seconds: float = 0.0  # wall time of the reads, summed over the workers
+    cells: dict[str, int] = field(default_factory=dict)  # reads per cell
+
+    def add(self, cell: str, count: int, seconds: float) -> None:
+        self.count += count
+        self.seconds += seconds
+        if count:
+            self.cells[cell] = self.cells.get(cell, 0) + count
+
+
+@dataclass(frozen=True, slots=True)
+class Done:
+    """A chunk measured by a worker: its outcomes, which process measured it and the
+    testbench reads it took."""
+
+    outcomes: list[Outcome]
+    pid: int
+    reads: int
+    read_seconds: float
+
+
+def measured(config: LibraryConfig, deck: Deck, points: tuple[Work, ...]) -> Done:
+    """``points`` measured in this process (``registry.measure_chunk``), its reads counted."""
+    before, before_s = SESSION.reads()
+    outcomes = registry.measure_chunk(config, deck, points)
+    after, after_s = SESSION.reads()
+    return Done(outcomes, os.getpid(), after - before, after_s - before_s)
+
+
+def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str) -> Done:
     """A worker's task: measure ``points``, writing each outcome to ``journal`` at once."""
     try:
         fh = open(journal, "wb")  # noqa: SIM115 - closed below
@@ -53,8 +95,11 @@ def _work(
             pickle.dump(outcome, fh)
             fh.flush()  # into the kernel: it survives this process, whatever kills it
 
+    before, before_s = SESSION.reads()
     try:
-        return registry.measure_chunk(config, deck, points, done)
+        outcomes = registry.measure_chunk(config, deck, points, done)
+        after, after_s = SESSION.reads()
+        return Done(outcomes, os.getpid(), after - before, after_s - before_s)
     except SimulatorHungError:
         # The simulator is still running in its thread and cannot be reset: end the process,
         # so the pool starts a fresh one and the driver re-runs the point alone.
@@ -101,25 +146,35 @@ def run_alone(
 
 
 def run_chunks(
-    config: LibraryConfig, decks: Mapping[str, Deck], tasks: Sequence[tuple[Work, ...]], jobs: int
+    config: LibraryConfig,
+    decks: Mapping[str, Deck],
+    tasks: Sequence[tuple[Work, ...]],
+    jobs: int,
+    reads: Reads | None = None,
 ) -> Generator[list[Outcome], None, None]:
     """Outcomes of every chunk on ``jobs`` worker processes, in completion order; every point
-    gets one outcome even when workers die (see the module's description)."""
+    gets one outcome even when workers die (see the module's description). ``reads`` tallies
+    the testbenches the workers read."""
     # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the
     # process (the report's plots) shares the pool rather than finding one it cannot use.
     from joblib.executor import get_memmapping_executor
 
     pending = list(tasks)
     fruitless = 0
+    tally = reads if reads is not None else Reads()
     with _journal_folder() as scratch:
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = get_memmapping_executor(jobs)
-            lost, death = yield from _run_round(executor, config, decks, pending, scratch, round_)
+            queue = _Queue(pending, decks)
+            lost, death = yield from _run_round(
+                executor, config, decks, queue, jobs, (scratch, round_), tally
+            )
             if death is None:
                 return
-            pending, in_flight, kept = yield from _salvage(lost)
+            salvaged, in_flight, kept = yield from _salvage(lost)
+            pending = [*salvaged, *queue.rest()]
             fruitless = fruitless + 1 if not (kept or in_flight) else 0
             if fruitless >= FRUITLESS_ROUNDS:
                 raise SimulatorError(
@@ -138,6 +193,43 @@ def run_chunks(
             round_ += 1
 
 
+# The testbenches (``Deck.key``) each worker process of this driver has read, by process id:
+# a pool's workers outlive a sweep (the function check's, then the run's).
+_HELD: dict[int, set[str]] = {}
+
+
+class _Queue:
+    """The chunks not yet started, by cell, each cell's in the order given (costliest first),
+    and which worker to give which (see the module's description)."""
+
+    def __init__(self, tasks: Iterable[tuple[Work, ...]], decks: Mapping[str, Deck]) -> None:
+        self.cells: dict[str, deque[tuple[Work, ...]]] = {}
+        for task in tasks:
+            self.cells.setdefault(task[0].cell, deque()).append(task)
+        self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
+        self.keys = {c: decks[c].key for c in self.cells}
+        self.started: set[str] = set()
+
+    def take(self, pid: int | None) -> tuple[Work, ...] | None:
+        """The next chunk for worker ``pid`` (None: a worker not known yet); None when no
+        chunk is left."""
+        held = _HELD.get(pid, set()) if pid is not None else set()
+        open_ = [c for c, q in self.cells.items() if q]
+        mine = [c for c in open_ if self.keys[c] in held]
+        fresh = [c for c in open_ if c not in self.started]
+        choice = mine or fresh or open_
+        if not choice:
+            return None
+        cell = max(choice, key=lambda c: self.left[c])
+        task = self.cells[cell].popleft()
+        self.left[cell] -= sum(p.cost for p in task)
+        self.started.add(cell)
+        return task
+
+    def rest(self) -> list[tuple[Work, ...]]:
+        return [t for q in self.cells.values() for t in q]
+
+
 def _journal_folder() -> tempfile.TemporaryDirectory[str]:
     """A temporary folder for the workers' journals (removed when the sweep ends)."""
     try:
@@ -152,30 +244,49 @@ def _run_round(
     executor: Executor,
     config: LibraryConfig,
     decks: Mapping[str, Deck],
-    pending: Sequence[tuple],
-    scratch: str,
-    round_: int,
+    queue: _Queue,
+    jobs: int,
+    journals: tuple[str, int],
+    reads: Reads,
 ) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
-    """Yield the outcomes of each chunk of ``pending`` that finished; return the chunks lost
-    to a dead worker (each with its journal) and the pool's account of the death."""
-    futures = {}
-    for i, task in enumerate(pending):
-        path = os.path.join(scratch, f"{round_}-{i}.pickle")
-        future = executor.submit(_work, config, decks[task[0].cell], task, path)
-        futures[future] = (task, path)
-    lost, death = [], None
+    """Yield the outcomes of each chunk of ``queue`` that finished, one chunk in flight per
+    worker; return the chunks lost to a dead worker (each with its journal) and the pool's
+    account of the death. Chunks never started stay in ``queue``."""
+    scratch, round_ = journals
+    futures: dict[Future[Done], tuple[tuple, str]] = {}
+    submitted = 0
+
+    def submit(pid: int | None) -> None:
+        nonlocal submitted
+        task = queue.take(pid)
+        if task is None:
+            return
+        path = os.path.join(scratch, f"{round_}-{submitted}.pickle")
+        submitted += 1
+        futures[executor.submit(_work, config, decks[task[0].cell], task, path)] = (task, path)
+
+    for _ in range(jobs):
+        submit(None)
+    lost: list[tuple[tuple, str]] = []
+    death = None
     try:
-        for future in as_completed(futures):
-            task, path = futures[future]
-            try:
-                batch = future.result()
-            except BrokenProcessPool as exc:
-                lost.append((task, path))
-                death = exc
-                continue
-            with contextlib.suppress(FileNotFoundError):  # a worker without one
-                os.unlink(path)
-            yield batch
+        while futures:
+            finished, _ = wait(futures, return_when=FIRST_COMPLETED)
+            for future in finished:
+                task, path = futures.pop(future)
+                try:
+                    done = future.result()
+                except BrokenProcessPool as exc:
+                    lost.append((task, path))
+                    death = exc
+                    continue
+                with contextlib.suppress(FileNotFoundError):  # a worker without one
+                    os.unlink(path)
+                _HELD.setdefault(done.pid, set()).add(decks[task[0].cell].key)
+                reads.add(task[0].cell, done.reads, done.read_seconds)
+                if death is None:
+                    submit(done.pid)  # the worker that is free now
+                yield done.outcomes
     finally:
         # Closed early (the caller stopped): chunks not yet started are not started.
         for future in futures:

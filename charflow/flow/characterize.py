@@ -22,6 +22,7 @@ from charflow import __version__
 from charflow.config.library import FlopSpec, LibraryConfig
 from charflow.execution import provenance, sweep
 from charflow.execution.store import Stale, Store, keyring
+from charflow.execution.workers import Reads
 from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
 from charflow.plan import arcs as planning
@@ -83,6 +84,10 @@ class RunResult:
     # With a gap-filling method: the failed points it filled (in the tables, never stored) and
     # those it could not (still in ``failures``).
     gap_report: gaps.GapReport | None = None
+    # Testbenches the simulators read for this run (function check and sweep), each a parse
+    # of the cell's models, and the seconds they took summed over the workers.
+    reads: int = 0
+    read_seconds: float = 0.0
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -165,14 +170,18 @@ def verify(
     decks: Mapping[str, Deck] | None = None,
     jobs: int | None = None,
     scheduler: str | None = None,
+    reads: Reads | None = None,
 ) -> tuple[FunctionChecked, ...]:
     """Simulate every input vector of every chosen cell against its declared function, in the
     sweep's workers; with a store, a cell whose check passed before with the same inputs is
-    not checked again. The first cell that fails stops the run with its error."""
+    not checked again. The first cell that fails stops the run with its error. ``reads``
+    tallies the testbenches read."""
     names = [c.name for c in config.cells if cells is None or c.name in cells]
     points = function_points(config, names)
     outcomes = list(
-        sweep.run(config, points, jobs=jobs, store=store, scheduler=scheduler, decks=decks)
+        sweep.run(
+            config, points, jobs=jobs, store=store, scheduler=scheduler, decks=decks, reads=reads
+        )
     )
     failed = [o for o in outcomes if isinstance(o, Failure)]
     if failed:
@@ -273,7 +282,8 @@ def characterize(
     made_by = provenance.build(config, provenance.simulator(config, jobs))
     chosen, toggle_points, names, work = _work(config, cells, arc)
     decks = {n: build_deck(config, config.cell(n)) for n in names}
-    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
+    reads = Reads()
+    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler, reads=reads)
     if on_start is not None:
         on_start(sweep.work(work))
     got = _Collected()
@@ -286,6 +296,7 @@ def characterize(
         on_stored=got.served(on_stored),
         scheduler=scheduler,
         decks=decks,
+        reads=reads,
     ):
         got.keep(outcome)
     whole, others = chosen, toggle_points
@@ -311,6 +322,8 @@ def characterize(
         unmeasured=tuple(got.unmeasured),
         cell_power=cell_power,
         gap_report=report,
+        reads=reads.count,
+        read_seconds=reads.seconds,
     )
 
 
