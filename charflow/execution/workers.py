@@ -167,7 +167,7 @@ def run_chunks(
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = get_memmapping_executor(jobs)
-            queue = _Queue(pending, decks)
+            queue = _Queue(pending, decks, _held_by(executor))
             lost, death = yield from _run_round(
                 executor, config, decks, queue, jobs, (scratch, round_), tally
             )
@@ -193,31 +193,47 @@ def run_chunks(
             round_ += 1
 
 
-# The testbenches (``Deck.key``) each worker process of this driver has read, by process id:
-# a pool's workers outlive a sweep (the function check's, then the run's).
+# The testbenches (``Deck.key``) each worker process of the pool has read, by process id: a
+# pool's workers outlive a sweep (the function check's, then the run's). Emptied for a new pool.
 _HELD: dict[int, set[str]] = {}
+_POOL: list[int] = [0]  # id() of the pool _HELD describes
+
+
+def _held_by(executor: Executor) -> dict[int, set[str]]:
+    if _POOL[0] != id(executor):
+        _HELD.clear()
+        _POOL[0] = id(executor)
+    return _HELD
 
 
 class _Queue:
     """The chunks not yet started, by cell, each cell's in the order given (costliest first),
     and which worker to give which (see the module's description)."""
 
-    def __init__(self, tasks: Iterable[tuple[Work, ...]], decks: Mapping[str, Deck]) -> None:
+    def __init__(
+        self,
+        tasks: Iterable[tuple[Work, ...]],
+        decks: Mapping[str, Deck],
+        held: dict[int, set[str]],
+    ) -> None:
         self.cells: dict[str, deque[tuple[Work, ...]]] = {}
         for task in tasks:
             self.cells.setdefault(task[0].cell, deque()).append(task)
         self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
         self.keys = {c: decks[c].key for c in self.cells}
+        self.held = held
         self.started: set[str] = set()
 
     def take(self, pid: int | None) -> tuple[Work, ...] | None:
-        """The next chunk for worker ``pid`` (None: a worker not known yet); None when no
-        chunk is left."""
-        held = _HELD.get(pid, set()) if pid is not None else set()
+        """The next chunk for worker ``pid`` (None: a worker not known yet): of a cell it has
+        read, else of one no worker has read or started, else of the cell with the most work
+        left; None when no chunk is left."""
+        mine = self.held.get(pid, set()) if pid is not None else set()
+        others = {k for p, keys in self.held.items() if p != pid for k in keys}
         open_ = [c for c, q in self.cells.items() if q]
-        mine = [c for c in open_ if self.keys[c] in held]
-        fresh = [c for c in open_ if c not in self.started]
-        choice = mine or fresh or open_
+        own = [c for c in open_ if self.keys[c] in mine]
+        fresh = [c for c in open_ if c not in self.started and self.keys[c] not in others]
+        choice = own or fresh or open_
         if not choice:
             return None
         cell = max(choice, key=lambda c: self.left[c])
@@ -225,6 +241,10 @@ class _Queue:
         self.left[cell] -= sum(p.cost for p in task)
         self.started.add(cell)
         return task
+
+    def read(self, pid: int, cell: str) -> None:
+        """Worker ``pid`` holds ``cell``'s testbench now."""
+        self.held.setdefault(pid, set()).add(self.keys[cell])
 
     def rest(self) -> list[tuple[Work, ...]]:
         return [t for q in self.cells.values() for t in q]
@@ -282,7 +302,7 @@ def _run_round(
                     continue
                 with contextlib.suppress(FileNotFoundError):  # a worker without one
                     os.unlink(path)
-                _HELD.setdefault(done.pid, set()).add(decks[task[0].cell].key)
+                queue.read(done.pid, task[0].cell)
                 reads.add(task[0].cell, done.reads, done.read_seconds)
                 if death is None:
                     submit(done.pid)  # the worker that is free now

@@ -88,6 +88,7 @@ class RunResult:
     # of the cell's models, and the seconds they took summed over the workers.
     reads: int = 0
     read_seconds: float = 0.0
+    cell_reads: tuple[tuple[str, int], ...] = ()  # (cell, reads) of each cell read
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -324,6 +325,7 @@ def characterize(
         gap_report=report,
         reads=reads.count,
         read_seconds=reads.seconds,
+        cell_reads=tuple(reads.cells.items()),
     )
 
 
