@@ -27,10 +27,11 @@ import os
 import pickle
 import tempfile
 from collections import deque
-from collections.abc import Generator, Iterable, Mapping, Sequence
+from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
+from typing import TypeVar
 
 from charflow.config.library import LibraryConfig
 from charflow.measurement import registry
@@ -41,6 +42,7 @@ from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION
 
 log = logging.getLogger("charflow")
+T = TypeVar("T")
 
 EXIT_HUNG = 70  # exit status of a worker whose simulator did not stop when halted
 # Rounds in a row in which workers died before finishing or starting a single point: the
@@ -107,6 +109,17 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: 
     finally:
         if fh is not None:
             fh.close()
+
+
+def in_worker(function: Callable[..., T], *args: object) -> T:
+    """``function(*args)`` in one of the sweep's worker processes: where the simulator may
+    run (the driver parses no model). A worker that dies is a SimulatorError."""
+    from joblib.executor import get_memmapping_executor
+
+    try:
+        return get_memmapping_executor(1).submit(function, *args).result()
+    except BrokenProcessPool as exc:
+        raise SimulatorError(f"the worker process died ({_why(exc)})") from exc
 
 
 def read_journal(path: str) -> list[Outcome] | None:
