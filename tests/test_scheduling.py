@@ -86,30 +86,56 @@ def _chunks(cell: str, count: int, cost: int) -> list[tuple[LeakagePoint, ...]]:
     return [(LeakagePoint(cell, states=cost),) for _ in range(count)]
 
 
+def _done(
+    queue: workers._Queue,
+    pid: int,
+    chunk,
+    reads: int = 1,
+    read_s: float = 0.0,
+    seconds: float = 0.0,
+) -> None:
+    queue.done(chunk[0].cell, chunk, workers.Done([], pid, reads, read_s, seconds))
+
+
 def test_a_free_worker_takes_its_own_cells_first_then_unread_ones_then_the_largest():
     decks = {c: _deck(c) for c in "ABCD"}
     tasks = [*_chunks("A", 3, 10), *_chunks("B", 2, 5), *_chunks("C", 1, 4), *_chunks("D", 1, 1)]
-    held: dict[int, set[str]] = {}
-    queue = workers._Queue(tasks, decks, held)
+    queue = workers._Queue(tasks, decks, {})
     # Unknown workers start the cells with the most work left, one cell each.
-    assert queue.take(None)[0].cell == "A"
-    assert queue.take(None)[0].cell == "B"
-    queue.read(1, "A")
-    queue.read(2, "B")
+    a, b = queue.take(None), queue.take(None)
+    assert (a[0].cell, b[0].cell) == ("A", "B")
+    _done(queue, 1, a)
+    _done(queue, 2, b)
     assert [queue.take(1)[0].cell for _ in range(2)] == ["A", "A"]
     assert queue.take(2)[0].cell == "B"
     # Worker 1's cell is done: a cell no worker has read (C, the larger of C and D).
-    assert queue.take(1)[0].cell == "C"
-    queue.read(1, "C")
+    c = queue.take(1)
+    assert c[0].cell == "C"
+    _done(queue, 1, c)
     assert queue.take(2)[0].cell == "D"
     assert queue.take(1) is None and queue.rest() == []
 
 
-def test_a_worker_steals_from_the_cell_with_the_most_work_left():
+def test_each_known_worker_is_offered_a_chunk_of_its_own_cell():
     decks = {c: _deck(c) for c in "AB"}
-    held = {1: {"key-A"}, 2: {"key-B"}}
-    queue = workers._Queue([*_chunks("A", 4, 10), *_chunks("B", 1, 1)], decks, held)
-    assert queue.take(2)[0].cell == "B"
-    # Worker 2 has nothing of its own left and no unread cell remains: it helps with A.
+    queue = workers._Queue([*_chunks("A", 3, 10), *_chunks("B", 3, 10)], decks, {})
+    _done(queue, 1, queue.take(None))
+    _done(queue, 2, queue.take(None))
+    offers = queue.offers()
+    assert [(pid, task[0].cell) for pid, _, task in offers] == [(1, "A"), (2, "B")]
+    # Worker 1 took its chunk; worker 2's goes back to the front of B's queue.
+    queue.give_back(offers[1][2])
+    assert queue.take(2) is offers[1][2]
+
+
+def test_a_worker_steals_only_where_the_read_costs_less_than_the_help_saves():
+    decks = {c: _deck(c) for c in "AB"}
+    queue = workers._Queue([*_chunks("A", 5, 10), *_chunks("B", 1, 1)], decks, {})
+    _done(queue, 1, queue.take(None), read_s=1.0, seconds=2.0)  # A: 1 s read, 0.1 s per unit
+    _done(queue, 2, queue.take(None), read_s=1.0, seconds=1.1)
+    # A has 40 units (4 s) left on worker 1: a second worker would save 2 s for a 1 s read.
     assert queue.take(2)[0].cell == "A"
-    assert len(queue.rest()) == 3
+    # 20 units (2 s) left after worker 1's next chunk: help would save 1 s for a 1 s read.
+    _done(queue, 1, queue.take(1), reads=0, seconds=1.0)
+    assert queue.take(2) is None
+    assert queue.take(2, force=True)[0].cell == "A"

@@ -26,6 +26,7 @@ import logging
 import os
 import pickle
 import tempfile
+import time
 from collections import deque
 from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
@@ -75,14 +76,36 @@ class Done:
     pid: int
     reads: int
     read_seconds: float
+    seconds: float = 0.0  # wall time of the chunk in the worker, its reads included
+    chosen: int | None = 0  # which of the offered chunks it is (``_offered``); None: none
 
 
 def measured(config: LibraryConfig, deck: Deck, points: tuple[Work, ...]) -> Done:
     """``points`` measured in this process (``registry.measure_chunk``), its reads counted."""
+    start = time.perf_counter()
     before, before_s = SESSION.reads()
     outcomes = registry.measure_chunk(config, deck, points)
     after, after_s = SESSION.reads()
-    return Done(outcomes, os.getpid(), after - before, after_s - before_s)
+    seconds = time.perf_counter() - start
+    return Done(outcomes, os.getpid(), after - before, after_s - before_s, seconds)
+
+
+# A chunk offered to one worker process (its id; None: any worker not known yet).
+Offer = tuple[int | None, Deck, tuple[Work, ...]]
+
+
+def _offered(
+    config: LibraryConfig, offers: tuple[Offer, ...], journals: list[str], known: frozenset[int]
+) -> Done:
+    """A worker's task: the chunk offered to this process, else, to a process the driver does
+    not know yet, the one offered to any (journalled in that offer's file). A known worker
+    offered nothing (no chunk worth its read) returns at once (``Done.chosen`` None)."""
+    pid = os.getpid()
+    for want in (pid, None) if pid not in known else (pid,):
+        for i, (to, deck, points) in enumerate(offers):
+            if to == want:
+                return replace(_work(config, deck, points, journals[i]), chosen=i)
+    return Done([], pid, 0, 0.0, 0.0, None)
 
 
 def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str) -> Done:
@@ -97,11 +120,13 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: 
             pickle.dump(outcome, fh)
             fh.flush()  # into the kernel: it survives this process, whatever kills it
 
+    start = time.perf_counter()
     before, before_s = SESSION.reads()
     try:
         outcomes = registry.measure_chunk(config, deck, points, done)
         after, after_s = SESSION.reads()
-        return Done(outcomes, os.getpid(), after - before, after_s - before_s)
+        seconds = time.perf_counter() - start
+        return Done(outcomes, os.getpid(), after - before, after_s - before_s, seconds)
     except SimulatorHungError:
         # The simulator is still running in its thread and cannot be reset: end the process,
         # so the pool starts a fresh one and the driver re-runs the point alone.
@@ -182,7 +207,7 @@ def run_chunks(
             executor = get_memmapping_executor(jobs)
             queue = _Queue(pending, decks, _held_by(executor))
             lost, death = yield from _run_round(
-                executor, config, decks, queue, jobs, (scratch, round_), tally
+                executor, config, queue, jobs, (scratch, round_), tally
             )
             if death is None:
                 return
@@ -221,7 +246,7 @@ def _held_by(executor: Executor) -> dict[int, set[str]]:
 
 class _Queue:
     """The chunks not yet started, by cell, each cell's in the order given (costliest first),
-    and which worker to give which (see the module's description)."""
+    and which worker to offer which (see the module's description)."""
 
     def __init__(
         self,
@@ -233,14 +258,19 @@ class _Queue:
         for task in tasks:
             self.cells.setdefault(task[0].cell, deque()).append(task)
         self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
+        self.decks = decks
         self.keys = {c: decks[c].key for c in self.cells}
         self.held = held
         self.started: set[str] = set()
+        # Per cell, measured: seconds of a testbench read, and of work per unit of cost.
+        self.read_time: dict[str, float] = {}
+        self.unit_time: dict[str, float] = {}
 
-    def take(self, pid: int | None) -> tuple[Work, ...] | None:
+    def take(self, pid: int | None, force: bool = False) -> tuple[Work, ...] | None:
         """The next chunk for worker ``pid`` (None: a worker not known yet): of a cell it has
         read, else of one no worker has read or started, else of the cell with the most work
-        left; None when no chunk is left."""
+        left, unless reading that cell costs more than the help saves (``force``: even so);
+        None when no chunk is (worth) taking."""
         mine = self.held.get(pid, set()) if pid is not None else set()
         others = {k for p, keys in self.held.items() if p != pid for k in keys}
         open_ = [c for c, q in self.cells.items() if q]
@@ -250,14 +280,47 @@ class _Queue:
         if not choice:
             return None
         cell = max(choice, key=lambda c: self.left[c])
+        if not (own or fresh or force or self._worth_reading(cell)):
+            return None
         task = self.cells[cell].popleft()
         self.left[cell] -= sum(p.cost for p in task)
         self.started.add(cell)
         return task
 
-    def read(self, pid: int, cell: str) -> None:
-        """Worker ``pid`` holds ``cell``'s testbench now."""
-        self.held.setdefault(pid, set()).add(self.keys[cell])
+    def _worth_reading(self, cell: str) -> bool:
+        """Whether one more worker on ``cell`` ends it sooner than its holders alone would,
+        its read of the testbench counted (unmeasured: yes)."""
+        if cell not in self.read_time or cell not in self.unit_time:
+            return True
+        holders = sum(1 for keys in self.held.values() if self.keys[cell] in keys)
+        alone = self.left[cell] * self.unit_time[cell] / max(1, holders)
+        return self.read_time[cell] + alone * holders / (holders + 1) < alone
+
+    def offers(self, force: bool = False) -> tuple[Offer, ...]:
+        """A chunk for each worker known (the one it should take next; a known worker offered
+        none takes none) and one for any other (a fresh worker of the pool); each chunk
+        offered once."""
+        offers: list[Offer] = []
+        for pid in (*self.held, None):
+            task = self.take(pid, force)
+            if task is not None:
+                offers.append((pid, self.decks[task[0].cell], task))
+        return tuple(offers)
+
+    def give_back(self, task: tuple[Work, ...]) -> None:
+        """A chunk offered but not taken goes back to the front of its cell's queue."""
+        cell = task[0].cell
+        self.cells[cell].appendleft(task)
+        self.left[cell] += sum(p.cost for p in task)
+
+    def done(self, cell: str, chunk: tuple[Work, ...], done: Done) -> None:
+        """Worker ``done.pid`` holds ``cell``'s testbench now; what its chunk took."""
+        self.held.setdefault(done.pid, set()).add(self.keys[cell])
+        if done.reads:
+            self.read_time[cell] = done.read_seconds / done.reads
+        cost = sum(p.cost for p in chunk)
+        if cost:
+            self.unit_time[cell] = max(0.0, done.seconds - done.read_seconds) / cost
 
     def rest(self) -> list[tuple[Work, ...]]:
         return [t for q in self.cells.values() for t in q]
@@ -276,50 +339,57 @@ def _journal_folder() -> tempfile.TemporaryDirectory[str]:
 def _run_round(
     executor: Executor,
     config: LibraryConfig,
-    decks: Mapping[str, Deck],
     queue: _Queue,
     jobs: int,
     journals: tuple[str, int],
     reads: Reads,
 ) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
-    """Yield the outcomes of each chunk of ``queue`` that finished, one chunk in flight per
+    """Yield the outcomes of each chunk of ``queue`` that finished, one task in flight per
     worker; return the chunks lost to a dead worker (each with its journal) and the pool's
     account of the death. Chunks never started stay in ``queue``."""
     scratch, round_ = journals
-    futures: dict[Future[Done], tuple[tuple, str]] = {}
-    submitted = 0
+    futures: dict[Future[Done], tuple[tuple[Offer, ...], list[str]]] = {}
 
-    def submit(pid: int | None) -> None:
-        nonlocal submitted
-        task = queue.take(pid)
-        if task is None:
-            return
-        path = os.path.join(scratch, f"{round_}-{submitted}.pickle")
-        submitted += 1
-        futures[executor.submit(_work, config, decks[task[0].cell], task, path)] = (task, path)
+    def submit(force: bool = False) -> None:
+        offers = queue.offers(force)
+        if offers:
+            # A journal per offer: the one written names the chunk the worker took.
+            paths = [
+                os.path.join(scratch, f"{round_}-{len(futures)}-{i}-{time.monotonic_ns()}")
+                for i in range(len(offers))
+            ]
+            known = frozenset(queue.held)
+            futures[executor.submit(_offered, config, offers, paths, known)] = (offers, paths)
 
     for _ in range(jobs):
-        submit(None)
+        submit(force=True)
     lost: list[tuple[tuple, str]] = []
     death = None
     try:
         while futures:
             finished, _ = wait(futures, return_when=FIRST_COMPLETED)
             for future in finished:
-                task, path = futures.pop(future)
+                offers, paths = futures.pop(future)
                 try:
                     done = future.result()
                 except BrokenProcessPool as exc:
-                    lost.append((task, path))
+                    lost += [(task, path) for (_, _, task), path in zip(offers, paths, strict=True)]
                     death = exc
                     continue
-                with contextlib.suppress(FileNotFoundError):  # a worker without one
-                    os.unlink(path)
-                queue.read(done.pid, task[0].cell)
-                reads.add(task[0].cell, done.reads, done.read_seconds)
-                if death is None:
-                    submit(done.pid)  # the worker that is free now
+                for i, (_, _, task) in enumerate(offers):
+                    if i != done.chosen:
+                        queue.give_back(task)
+                if done.chosen is not None:
+                    with contextlib.suppress(FileNotFoundError):  # a worker without one
+                        os.unlink(paths[done.chosen])
+                    task = offers[done.chosen][2]
+                    queue.done(task[0].cell, task, done)
+                    reads.add(task[0].cell, done.reads, done.read_seconds)
+                if death is None and done.chosen is not None:
+                    submit()  # for the worker that is free now (one that declined stays idle)
                 yield done.outcomes
+            if death is None and not futures and queue.rest():
+                submit(force=True)  # no worker would take what is left: the first free does
     finally:
         # Closed early (the caller stopped): chunks not yet started are not started.
         for future in futures:
