@@ -12,11 +12,13 @@ joblib's process pool (loky) stops every worker when one dies, so the points in 
 of them are re-run alone: the pool cannot say which worker died first.
 
 Reading a cell's testbench parses its models, which takes seconds with a foundry's model file,
-and a worker keeps what it has read (``backends.MAX_CIRCUITS``). So the driver keeps one chunk
-in flight per worker and, when a worker returns one, hands it the next chunk of a cell it has
-read already; else of a cell no worker has started, the cell with the most work left first;
-only else of the cell with the most work left (``_Queue``). A cell is then read by a second
-worker only where the load balance needs it, and never more than once by any worker.
+and a worker keeps what it has read (``backends.MAX_CIRCUITS``). So each task offers every
+worker the driver knows (by process id) the chunk it should take next, and one for a worker
+not known yet; the worker that takes the task runs its own and the rest go back (``_offered``).
+A worker's chunk is of a cell it has read already; else of a cell no worker has read, the cell
+with the most work left first; else of the cell with the most work left, if reading its
+testbench costs less than the help saves, measured on the chunks so far (``_Queue``). A cell
+is then read by a second worker only where the load balance needs it, never twice by one.
 """
 
 from __future__ import annotations
@@ -49,6 +51,10 @@ EXIT_HUNG = 70  # exit status of a worker whose simulator did not stop when halt
 # Rounds in a row in which workers died before finishing or starting a single point: the
 # workers cannot start (a broken installation), and more rounds would not help.
 FRUITLESS_ROUNDS = 2
+# Tasks in flight per worker: the next waits in the pool's queue while one runs, so a worker
+# does not idle while the driver takes its result and sends it more. Every task offers each
+# known worker its own chunk, so whichever worker takes it keeps to its cells.
+AHEAD = 2
 
 
 @dataclass
@@ -205,7 +211,7 @@ def run_chunks(
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = get_memmapping_executor(jobs)
-            queue = _Queue(pending, decks, _held_by(executor))
+            queue = _Queue(pending, decks, _pool(executor))
             lost, death = yield from _run_round(
                 executor, config, queue, jobs, (scratch, round_), tally
             )
@@ -231,17 +237,26 @@ def run_chunks(
             round_ += 1
 
 
-# The testbenches (``Deck.key``) each worker process of the pool has read, by process id: a
-# pool's workers outlive a sweep (the function check's, then the run's). Emptied for a new pool.
-_HELD: dict[int, set[str]] = {}
-_POOL: list[int] = [0]  # id() of the pool _HELD describes
+@dataclass
+class _Pool:
+    """What the driver knows of its pool's workers, which outlive a sweep (the function
+    check's, then the run's): the testbenches (``Deck.key``) each process has read, by process
+    id, and per testbench the seconds of a read and of work per unit of cost, measured."""
+
+    ident: int = 0  # id() of the pool described; a new pool starts afresh
+    held: dict[int, set[str]] = field(default_factory=dict)
+    read_time: dict[str, float] = field(default_factory=dict)
+    unit_time: dict[str, float] = field(default_factory=dict)
 
 
-def _held_by(executor: Executor) -> dict[int, set[str]]:
-    if _POOL[0] != id(executor):
-        _HELD.clear()
-        _POOL[0] = id(executor)
-    return _HELD
+_POOL = _Pool()
+
+
+def _pool(executor: Executor) -> _Pool:
+    global _POOL
+    if _POOL.ident != id(executor):
+        _POOL = _Pool(id(executor))
+    return _POOL
 
 
 class _Queue:
@@ -252,7 +267,7 @@ class _Queue:
         self,
         tasks: Iterable[tuple[Work, ...]],
         decks: Mapping[str, Deck],
-        held: dict[int, set[str]],
+        pool: _Pool,
     ) -> None:
         self.cells: dict[str, deque[tuple[Work, ...]]] = {}
         for task in tasks:
@@ -260,11 +275,9 @@ class _Queue:
         self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
         self.decks = decks
         self.keys = {c: decks[c].key for c in self.cells}
-        self.held = held
+        self.pool = pool
+        self.held = pool.held
         self.started: set[str] = set()
-        # Per cell, measured: seconds of a testbench read, and of work per unit of cost.
-        self.read_time: dict[str, float] = {}
-        self.unit_time: dict[str, float] = {}
 
     def take(self, pid: int | None, force: bool = False) -> tuple[Work, ...] | None:
         """The next chunk for worker ``pid`` (None: a worker not known yet): of a cell it has
@@ -290,11 +303,13 @@ class _Queue:
     def _worth_reading(self, cell: str) -> bool:
         """Whether one more worker on ``cell`` ends it sooner than its holders alone would,
         its read of the testbench counted (unmeasured: yes)."""
-        if cell not in self.read_time or cell not in self.unit_time:
+        key = self.keys[cell]
+        read, unit = self.pool.read_time.get(key), self.pool.unit_time.get(key)
+        if read is None or unit is None:
             return True
-        holders = sum(1 for keys in self.held.values() if self.keys[cell] in keys)
-        alone = self.left[cell] * self.unit_time[cell] / max(1, holders)
-        return self.read_time[cell] + alone * holders / (holders + 1) < alone
+        holders = sum(1 for keys in self.held.values() if key in keys)
+        alone = self.left[cell] * unit / max(1, holders)
+        return read + alone * holders / (holders + 1) < alone
 
     def offers(self, force: bool = False) -> tuple[Offer, ...]:
         """A chunk for each worker known (the one it should take next; a known worker offered
@@ -315,12 +330,13 @@ class _Queue:
 
     def done(self, cell: str, chunk: tuple[Work, ...], done: Done) -> None:
         """Worker ``done.pid`` holds ``cell``'s testbench now; what its chunk took."""
-        self.held.setdefault(done.pid, set()).add(self.keys[cell])
+        key = self.keys[cell]
+        self.held.setdefault(done.pid, set()).add(key)
         if done.reads:
-            self.read_time[cell] = done.read_seconds / done.reads
+            self.pool.read_time[key] = done.read_seconds / done.reads
         cost = sum(p.cost for p in chunk)
         if cost:
-            self.unit_time[cell] = max(0.0, done.seconds - done.read_seconds) / cost
+            self.pool.unit_time[key] = max(0.0, done.seconds - done.read_seconds) / cost
 
     def rest(self) -> list[tuple[Work, ...]]:
         return [t for q in self.cells.values() for t in q]
@@ -344,8 +360,8 @@ def _run_round(
     journals: tuple[str, int],
     reads: Reads,
 ) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
-    """Yield the outcomes of each chunk of ``queue`` that finished, one task in flight per
-    worker; return the chunks lost to a dead worker (each with its journal) and the pool's
+    """Yield the outcomes of each chunk of ``queue`` that finished, ``AHEAD`` tasks in flight
+    per worker; return the chunks lost to a dead worker (each with its journal) and the pool's
     account of the death. Chunks never started stay in ``queue``."""
     scratch, round_ = journals
     futures: dict[Future[Done], tuple[tuple[Offer, ...], list[str]]] = {}
@@ -361,8 +377,8 @@ def _run_round(
             known = frozenset(queue.held)
             futures[executor.submit(_offered, config, offers, paths, known)] = (offers, paths)
 
-    for _ in range(jobs):
-        submit(force=True)
+    for _ in range(AHEAD * jobs):
+        submit()
     lost: list[tuple[tuple, str]] = []
     death = None
     try:
