@@ -18,6 +18,30 @@ from pathlib import Path
 
 from charflow.config import library as config
 from charflow.flow import characterize as flow
+from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint, TogglePoint, Work
+
+
+def kind_of(point: Work) -> str:
+    """The kind of work a point is, as the benchmark's report counts it."""
+    if isinstance(point, TimingPoint):
+        return "combinational arcs" if point.kind == "combinational" else "clock and control arcs"
+    if isinstance(point, ConstraintPoint):
+        return f"{point.kind} searches"
+    if isinstance(point, PulsePoint):
+        return "pulse-width searches"
+    if isinstance(point, TogglePoint):
+        return "hidden-power toggles"
+    return "leakage"
+
+
+def by_kind(result: flow.RunResult) -> dict[str, list[int]]:
+    """Points and simulations of each kind of work the run simulated."""
+    counts: dict[str, list[int]] = {}
+    for m in (*result.measurements, *result.toggles, *result.leakage):
+        entry = counts.setdefault(kind_of(m.point), [0, 0])
+        entry[0] += 1
+        entry[1] += m.runs
+    return counts
 
 
 def main(argv: list[str]) -> int:
@@ -47,7 +71,14 @@ def main(argv: list[str]) -> int:
     stages["write"] = time.perf_counter() - done
     # The library's JSON carries no timings (a re-run from the store must reproduce it byte
     # for byte): the simulator's time travels beside the stages.
-    totals = {"simulations": result.simulations, "analysis": result.sim_seconds}
+    totals = {
+        "simulations": result.simulations,
+        "analysis": result.sim_seconds,
+        "reads": result.reads,
+        "read_seconds": result.read_seconds,
+        "cell_reads": dict(result.cell_reads),
+        "kinds": by_kind(result),
+    }
     timings.write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
     return 1 if result.failures else 0
 

@@ -45,7 +45,9 @@ def _tiny(tmp_path: Path) -> Path:
 def test_bench_library_on_a_tiny_grid(tmp_path):
     path = _tiny(tmp_path)
     result = speed.bench_library("tiny", path, jobs=2, naive_points=3, folder=tmp_path)
-    points = len(planning.plan(config.load(path)).points)
+    cfg = config.load(path)
+    points = len(planning.plan(cfg).points)
+    cells = len(cfg.cells)
     assert result.one.points == result.full.points == points
     assert result.naive.points == 3
     assert result.agreement < AGREE_RTOL
@@ -55,8 +57,15 @@ def test_bench_library_on_a_tiny_grid(tmp_path):
         assert stats.floor_ratio > 1.0
         assert stats.peak_rss > 0
         assert [name for name, _ in stats.stages][0] == "start and imports"
+        # Every cell's testbench read (function check and sweep), none by more than each
+        # worker once; the kinds of work count every point simulated.
+        assert cells <= stats.reads <= cells * stats.workers
+        assert 1 <= stats.most_reads <= stats.workers
+        assert sum(n for _, n, _ in stats.kinds) >= stats.points
+        assert sum(sims for _, _, sims in stats.kinds) == stats.simulations
     report = speed.render([result])
     assert "tiny" in report and "targets" in report
+    assert "testbench reads" in report and "simulated (charflow, 2 workers)" in report
 
 
 def test_level1_demo_is_the_demo_on_level1_models(tmp_path):
@@ -64,6 +73,13 @@ def test_level1_demo_is_the_demo_on_level1_models(tmp_path):
     demo = config.load(speed.DEMO)
     assert [c.name for c in cfg.cells] == [c.name for c in demo.cells]
     assert cfg.process.models[0].path == speed.LEVEL1_MODELS
+
+
+def test_combinational_demo_is_the_demo_without_its_flip_flops(tmp_path):
+    cfg = config.load(speed.combinational_demo(tmp_path))
+    demo = config.load(speed.DEMO)
+    assert [c.name for c in cfg.cells] == [c.name for c in demo.cells if c.flop is None]
+    assert cfg.process.models == demo.process.models
 
 
 def test_one_command_runs_it():

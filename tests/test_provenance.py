@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import re
 import shutil
 import socket
@@ -236,16 +237,29 @@ def test_the_simulator_version_is_read_without_loading_libngspice_here(tmp_path)
         "cfg = config.load(sys.argv[1])\n"
         "sim = provenance.simulator(cfg, 1)\n"
         "maps = open('/proc/self/maps').read()\n"
-        "print(sim.backend, sim.version, 'libngspice' in maps)\n"
+        "print(sim.backend, sim.version, 'libngspice' in maps, 'joblib' in sys.modules)\n"
     )
     path = tmp_path / "prov.toml"
     path.write_text(_config_text(), encoding="utf-8")
-    done = subprocess.run(
-        [sys.executable, "-c", code, str(path)], capture_output=True, text=True, timeout=120
-    )
-    assert done.returncode == 0, done.stderr
+    # A cache folder of the test's own: the first asks a worker, the second reads its answer.
+    env = {**os.environ, "XDG_CACHE_HOME": str(tmp_path / "cache")}
+
+    def ask() -> list[str]:
+        done = subprocess.run(
+            [sys.executable, "-c", code, str(path)],
+            capture_output=True,
+            text=True,
+            timeout=120,
+            env=env,
+        )
+        assert done.returncode == 0, done.stderr
+        return done.stdout.split()
+
     # The worker that answered loaded the shared library; this process did not.
-    assert done.stdout.split() == ["shared", _ngspice_release(), "False"]
+    assert ask() == ["shared", _ngspice_release(), "False", "True"]
+    assert (tmp_path / "cache" / "charflow" / "simulators.json").is_file()
+    # Kept with the identity of the library file: no worker is started for it again.
+    assert ask() == ["shared", _ngspice_release(), "False", "False"]
 
 
 def test_the_schema_is_strict_and_matches_the_writer(runs):

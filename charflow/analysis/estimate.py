@@ -3,7 +3,8 @@
 The points come from the sweep plan (every arc × sensitizing state × input edge × slew ×
 load; a flip-flop adds its setup, hold, recovery, removal and pulse-width searches; every cell
 its hidden-power toggles). What each costs, in simulations and in time, is measured here on a
-few sample points per cell, simulated and timed on one process, so that refinements of the
+few sample points per cell, simulated and timed on one worker process (this one parses no
+model), so that refinements of the
 step, retries and the length of a search are counted as the run will meet them:
 
 - combinational points: the probes of one series, which size its steps (``stepsize``) and
@@ -29,6 +30,7 @@ from dataclasses import dataclass, replace
 
 from charflow.config.library import LibraryConfig
 from charflow.config.shapes import InputShape
+from charflow.execution.workers import in_worker
 from charflow.measurement import combinational, registry, sequential
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
@@ -36,7 +38,7 @@ from charflow.plan.cellwork import function_point, leakage_point, tight_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import CharflowError, MeasurementError
 from charflow.records.outcomes import Failure
-from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
+from charflow.records.points import ConstraintPoint, Plan, PulsePoint, TimingPoint
 from charflow.simulation import plausible
 from charflow.simulation.backends import SharedBackend
 from charflow.simulation.netlist import Deck, build_deck
@@ -139,8 +141,16 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         ArcCount(a.cell, a.related, a.output, len(a.states), per_arc[(a.cell, a.related, a.output)])
         for a in plan.arcs
     )
+    names = list(dict.fromkeys(a.cell for a in plan.arcs))
+    # The samples run in a worker process, as the sweep's points do: this one parses no model.
+    costs = in_worker(_cell_costs, config, names, plan)
+    return Estimate(arcs, tuple(costs), jobs)
+
+
+def _cell_costs(config: LibraryConfig, names: list[str], plan: Plan) -> list[CellCost]:
+    """In a worker: each cell's testbench read and its sample points measured, timed."""
     costs = []
-    for name in dict.fromkeys(a.cell for a in plan.arcs):
+    for name in names:
         cell = config.cell(name)
         deck = build_deck(config, cell)
         start = time.perf_counter()
@@ -163,7 +173,7 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
         costs.append(
             CellCost(name, groups, load, function_point(cell).cost, leakage_point(cell).cost)
         )
-    return Estimate(arcs, tuple(costs), jobs)
+    return costs
 
 
 def _measured(config: LibraryConfig, deck: Deck, points) -> list:

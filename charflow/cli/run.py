@@ -243,6 +243,10 @@ def _summary(name: str, result: RunResult, *, selective: bool) -> None:
         f"{len(result.reused)} reused from the store; simulator time {result.sim_seconds:.2f} s "
         f"(all workers), wall time {result.wall_seconds:.2f} s"
     )
+    print(
+        f"{name}: {result.reads} testbench reads (each parses the cell's models), "
+        f"{result.read_seconds:.2f} s (all workers)"
+    )
     if result.spreads:
         _spread_summary(name, result)
     for models, tables in result.stale_tables().items():

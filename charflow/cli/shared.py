@@ -10,10 +10,8 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import importlib.util
 import logging
 import sys
-import types
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -25,21 +23,7 @@ from charflow.records.errors import (
     NetlistError,
     OutputError,
 )
-
-
-def deferred(name: str) -> types.ModuleType:
-    """The module ``name``, executed when one of its attributes is first used."""
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.find_spec(name)
-    if spec is None or spec.loader is None:
-        raise ModuleNotFoundError(f"no module named {name!r}", name=name)
-    spec.loader = importlib.util.LazyLoader(spec.loader)
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    spec.loader.exec_module(module)
-    return module
-
+from charflow.records.lazy import deferred
 
 # The modules the commands use pull in numpy, scipy, matplotlib, jinja2 and the simulator's
 # bindings: seconds of start-up that --help, --version and a mistyped option should not pay.

@@ -10,13 +10,18 @@ library differ between two checkouts.
 The simulator's version is read without loading libngspice in this process: the subprocess
 backend's runs start the ``ngspice`` executable, so ``ngspice -v`` here asks that program;
 the shared backend's runs load libngspice in worker processes, so one of those (the sweep's own
-pool, which stays up for the runs) loads it and answers.
+pool, which stays up for the runs) loads it and answers. Its answer is kept in the user's cache
+folder (``banner_cache``) with the identity of the library file the worker loaded, so a run
+served wholly from the store starts no worker at all while that file is unchanged.
 """
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
+import json
+import os
 import re
 import shutil
 from concurrent.futures.process import BrokenProcessPool
@@ -30,7 +35,7 @@ from charflow.execution.workers import default_jobs
 from charflow.measurement.combinational import backend_for
 from charflow.records.errors import SimulatorError
 from charflow.records.units import energy_unit, power_unit, time_scale
-from charflow.simulation.backends import make_backend
+from charflow.simulation.backends import loaded_library, make_backend
 from charflow.simulation.netlist import model_files
 
 # ngspice's banner: "ngspice-39, Creation Date: Sun Feb  5 13:44:35 UTC 2023" (``_version_of``).
@@ -113,9 +118,9 @@ def simulator(
     config: LibraryConfig, jobs: int | None = None, scheduler: str | None = None
 ) -> Simulator:
     """The simulator the runs of ``config`` use, with its version (see the module's note); a
-    worker pool of ``jobs`` processes (the sweep's) answers for the shared backend, and every
-    worker of the Dask cluster at ``scheduler`` for a run there. Asked once per process and
-    program."""
+    worker pool of ``jobs`` processes (the sweep's) answers for the shared backend unless the
+    cache knows the library file, and every worker of the Dask cluster at ``scheduler`` for a
+    run there. Asked once per process and program."""
     sim = config.simulation
     # The executable is looked up as the subprocess backend does: PATH may change.
     where = shutil.which("ngspice") if sim.backend == "subprocess" else None
@@ -126,7 +131,7 @@ def simulator(
         elif sim.backend == "subprocess":
             _ASKED[program] = make_backend(sim.backend, sim.timeout).version()
         else:
-            _ASKED[program] = _ask_a_worker(config, jobs or default_jobs())
+            _ASKED[program] = _cached_banner() or _ask_a_worker(config, jobs or default_jobs())
     return Simulator(sim.backend, _ASKED[program])
 
 
@@ -135,17 +140,71 @@ def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
     from joblib.executor import get_memmapping_executor
 
     try:
-        return get_memmapping_executor(jobs).submit(_banner_here, config).result()
+        banner, library = get_memmapping_executor(jobs).submit(_banner_here, config).result()
     except BrokenProcessPool as exc:
         raise SimulatorError(
             f"a worker process died while loading the ngspice shared library ({exc}); "
             "try backend 'subprocess' in [simulation]"
         ) from exc
+    if library is not None:
+        _keep_banner(library, banner)
+    return banner
 
 
-def _banner_here(config: LibraryConfig) -> str:
-    """In a worker: this process's simulator (kept for its runs) and its version."""
-    return backend_for(config).version()
+def _banner_here(config: LibraryConfig) -> tuple[str, str | None]:
+    """In a worker: this process's simulator (kept for its runs), its version and the file of
+    the shared library it loaded."""
+    return backend_for(config).version(), loaded_library()
+
+
+# What decides which libngspice a worker loads besides the file itself: PySpice's variable
+# and the dynamic linker's search path and cache (ldconfig rewrites it on every install).
+LINKER_CACHE = Path("/etc/ld.so.cache")
+SEARCH_VARIABLES = ("NGSPICE_LIBRARY_PATH", "LD_LIBRARY_PATH")
+
+
+def banner_cache() -> Path:
+    """The file that keeps the shared library's banner between runs (``XDG_CACHE_HOME``)."""
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "charflow" / "simulators.json"
+
+
+def _identity(library: str) -> list[object] | None:
+    """What must stay the same for a library file's banner to hold; None if it is gone."""
+    files = []
+    for path in (library, LINKER_CACHE):
+        try:
+            st = os.stat(path)
+        except OSError:
+            st = None
+        if st is None and path == library:
+            return None
+        files.append([str(path), *((st.st_size, st.st_mtime_ns, st.st_ino) if st else ())])
+    return [files, [os.environ.get(v) for v in SEARCH_VARIABLES]]
+
+
+def _cached_banner() -> str | None:
+    """The banner of the library file a worker loaded before, while nothing that decides
+    which file a worker loads, or what it holds, has changed; None otherwise."""
+    try:
+        entry = json.loads(banner_cache().read_text(encoding="utf-8"))
+        if _identity(entry["library"]) == entry["identity"]:
+            return str(entry["banner"])
+    except (OSError, ValueError, KeyError, TypeError):
+        pass  # no cache, or not one this version wrote: a worker answers
+    return None
+
+
+def _keep_banner(library: str, banner: str) -> None:
+    entry = {"library": library, "identity": _identity(library), "banner": banner}
+    path = banner_cache()
+    # A cache that cannot be written costs the next run a worker's start, nothing more.
+    with contextlib.suppress(OSError):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        # Renamed into place: a run reading it at the same time sees the old or the new one.
+        part = path.with_name(f"{path.name}.{os.getpid()}")
+        part.write_text(json.dumps(entry), encoding="utf-8")
+        os.replace(part, path)
 
 
 DIGESTS = 256  # file digests kept per process

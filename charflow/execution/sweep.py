@@ -3,8 +3,9 @@
 ``plan`` turns every cell into timing arcs (one per input → output pair the output depends
 on), every arc into its sensitizing side-input states, and every state into points over
 input edge × slew × load. ``run`` sends the points to workers in chunks of one cell each,
-so a worker's simulator reads each cell's testbench once per chunk at most; with a result
-store it simulates only the points the store does not hold.
+a worker kept on the cells it has read (``workers``), so a cell's testbench is read by as few
+workers as the load balance allows; with a result store it simulates only the points the
+store does not hold.
 """
 
 from __future__ import annotations
@@ -15,8 +16,7 @@ from collections.abc import Callable, Generator, Iterable, Iterator, Mapping
 from charflow.config.library import LibraryConfig
 from charflow.execution.cluster import map_chunks
 from charflow.execution.store import Store, keyring
-from charflow.execution.workers import default_jobs, run_chunks
-from charflow.measurement import registry
+from charflow.execution.workers import Reads, default_jobs, measured, run_chunks
 from charflow.records.outcomes import Failure, Outcome, PathMeasurement
 from charflow.records.points import TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
@@ -63,6 +63,7 @@ def run(
     on_stored: Callable[[tuple], None] | None = None,
     scheduler: str | None = None,
     decks: Mapping[str, Deck] | None = None,
+    reads: Reads | None = None,
 ) -> Iterator[Outcome]:
     """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point.
 
@@ -70,7 +71,8 @@ def run(
     ``store``, the points whose key is stored come from it first, unsimulated (``on_stored``
     gets them together, before ``on_result`` gets each), and every new measurement is stored
     as it arrives. With a Dask ``scheduler`` address the points run on that cluster, otherwise
-    on ``jobs`` local worker processes.
+    on ``jobs`` local worker processes. ``reads`` tallies the testbenches the simulators read
+    (local runs; a cluster's workers are not counted).
     """
     points = list(points)
     # The testbenches the caller built are used as they are (a stage passes on what it made).
@@ -96,11 +98,11 @@ def run(
         results: Generator[list[Outcome], None, None] = map_chunks(scheduler, config, built, tasks)
     elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
         # Each run is its own ngspice process already: a crash cannot take this one down.
-        results = (registry.measure_chunk(config, built[t[0].cell], t) for t in tasks)
+        results = _here(config, built, tasks, reads)
     else:
         # Worker processes, not this one, run the simulator: a crash of the shared library
         # then costs only the points in flight, which are re-run alone.
-        results = run_chunks(config, built, tasks, jobs)
+        results = run_chunks(config, built, tasks, jobs, reads)
     # Closed as soon as the loop ends early (a store that cannot take a row, an interrupt): the
     # workers stop and their journals go now, not when the garbage collector gets to them.
     with contextlib.closing(results):
@@ -116,3 +118,17 @@ def run(
                 if on_result is not None:
                     on_result(outcome)
                 yield outcome
+
+
+def _here(
+    config: LibraryConfig,
+    decks: Mapping[str, Deck],
+    tasks: Iterable[tuple[Work, ...]],
+    reads: Reads | None,
+) -> Generator[list[Outcome], None, None]:
+    """The chunks measured in this process (the subprocess backend: ngspice runs apart)."""
+    for task in tasks:
+        done = measured(config, decks[task[0].cell], task)
+        if reads is not None:
+            reads.add(task[0].cell, done.reads, done.read_seconds)
+        yield done.outcomes

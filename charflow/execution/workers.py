@@ -10,6 +10,15 @@ the points not yet started to fresh workers.
 
 joblib's process pool (loky) stops every worker when one dies, so the points in flight on all
 of them are re-run alone: the pool cannot say which worker died first.
+
+Reading a cell's testbench parses its models, which takes seconds with a foundry's model file,
+and a worker keeps what it has read (``backends.MAX_CIRCUITS``). So each task offers every
+worker the driver knows (by process id) the chunk it should take next, and one for a worker
+not known yet; the worker that takes the task runs its own and the rest go back (``_offered``).
+A worker's chunk is of a cell it has read already; else of a cell no worker has read, the cell
+with the most work left first; else of the cell with the most work left, if reading its
+testbench costs less than the help saves, measured on the chunks so far (``_Queue``). A cell
+is then read by a second worker only where the load balance needs it, never twice by one.
 """
 
 from __future__ import annotations
@@ -19,10 +28,13 @@ import logging
 import os
 import pickle
 import tempfile
-from collections.abc import Generator, Mapping, Sequence
-from concurrent.futures import Executor, as_completed
+import time
+from collections import deque
+from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
+from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
 from concurrent.futures.process import BrokenProcessPool
-from dataclasses import replace
+from dataclasses import dataclass, field, replace
+from typing import TypeVar
 
 from charflow.config.library import LibraryConfig
 from charflow.measurement import registry
@@ -30,18 +42,79 @@ from charflow.records.errors import OutputError, SimulatorError, SimulatorHungEr
 from charflow.records.outcomes import Failure, Outcome
 from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
+from charflow.simulation.session import SESSION
 
 log = logging.getLogger("charflow")
+T = TypeVar("T")
 
 EXIT_HUNG = 70  # exit status of a worker whose simulator did not stop when halted
 # Rounds in a row in which workers died before finishing or starting a single point: the
 # workers cannot start (a broken installation), and more rounds would not help.
 FRUITLESS_ROUNDS = 2
+# Tasks in flight per worker: the next waits in the pool's queue while one runs, so a worker
+# does not idle while the driver takes its result and sends it more. Every task offers each
+# known worker its own chunk, so whichever worker takes it keeps to its cells.
+AHEAD = 2
 
 
-def _work(
-    config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str
-) -> list[Outcome]:
+@dataclass
+class Reads:
+    """The testbenches a sweep's simulators read (each read parses the cell's models), as the
+    chunks report them; one tally may serve several sweeps (a run's check and its sweep)."""
+
+    count: int = 0
+    seconds: float = 0.0  # wall time of the reads, summed over the workers
+    cells: dict[str, int] = field(default_factory=dict)  # reads per cell
+
+    def add(self, cell: str, count: int, seconds: float) -> None:
+        self.count += count
+        self.seconds += seconds
+        if count:
+            self.cells[cell] = self.cells.get(cell, 0) + count
+
+
+@dataclass(frozen=True, slots=True)
+class Done:
+    """A chunk measured by a worker: its outcomes, which process measured it and the
+    testbench reads it took."""
+
+    outcomes: list[Outcome]
+    pid: int
+    reads: int
+    read_seconds: float
+    seconds: float = 0.0  # wall time of the chunk in the worker, its reads included
+    chosen: int | None = 0  # which of the offered chunks it is (``_offered``); None: none
+
+
+def measured(config: LibraryConfig, deck: Deck, points: tuple[Work, ...]) -> Done:
+    """``points`` measured in this process (``registry.measure_chunk``), its reads counted."""
+    start = time.perf_counter()
+    before, before_s = SESSION.reads()
+    outcomes = registry.measure_chunk(config, deck, points)
+    after, after_s = SESSION.reads()
+    seconds = time.perf_counter() - start
+    return Done(outcomes, os.getpid(), after - before, after_s - before_s, seconds)
+
+
+# A chunk offered to one worker process (its id; None: any worker not known yet).
+Offer = tuple[int | None, Deck, tuple[Work, ...]]
+
+
+def _offered(
+    config: LibraryConfig, offers: tuple[Offer, ...], journals: list[str], known: frozenset[int]
+) -> Done:
+    """A worker's task: the chunk offered to this process, else, to a process the driver does
+    not know yet, the one offered to any (journalled in that offer's file). A known worker
+    offered nothing (no chunk worth its read) returns at once (``Done.chosen`` None)."""
+    pid = os.getpid()
+    for want in (pid, None) if pid not in known else (pid,):
+        for i, (to, deck, points) in enumerate(offers):
+            if to == want:
+                return replace(_work(config, deck, points, journals[i]), chosen=i)
+    return Done([], pid, 0, 0.0, 0.0, None)
+
+
+def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: str) -> Done:
     """A worker's task: measure ``points``, writing each outcome to ``journal`` at once."""
     try:
         fh = open(journal, "wb")  # noqa: SIM115 - closed below
@@ -53,8 +126,13 @@ def _work(
             pickle.dump(outcome, fh)
             fh.flush()  # into the kernel: it survives this process, whatever kills it
 
+    start = time.perf_counter()
+    before, before_s = SESSION.reads()
     try:
-        return registry.measure_chunk(config, deck, points, done)
+        outcomes = registry.measure_chunk(config, deck, points, done)
+        after, after_s = SESSION.reads()
+        seconds = time.perf_counter() - start
+        return Done(outcomes, os.getpid(), after - before, after_s - before_s, seconds)
     except SimulatorHungError:
         # The simulator is still running in its thread and cannot be reset: end the process,
         # so the pool starts a fresh one and the driver re-runs the point alone.
@@ -62,6 +140,17 @@ def _work(
     finally:
         if fh is not None:
             fh.close()
+
+
+def in_worker(function: Callable[..., T], *args: object) -> T:
+    """``function(*args)`` in one of the sweep's worker processes: where the simulator may
+    run (the driver parses no model). A worker that dies is a SimulatorError."""
+    from joblib.executor import get_memmapping_executor
+
+    try:
+        return get_memmapping_executor(1).submit(function, *args).result()
+    except BrokenProcessPool as exc:
+        raise SimulatorError(f"the worker process died ({_why(exc)})") from exc
 
 
 def read_journal(path: str) -> list[Outcome] | None:
@@ -101,25 +190,35 @@ def run_alone(
 
 
 def run_chunks(
-    config: LibraryConfig, decks: Mapping[str, Deck], tasks: Sequence[tuple[Work, ...]], jobs: int
+    config: LibraryConfig,
+    decks: Mapping[str, Deck],
+    tasks: Sequence[tuple[Work, ...]],
+    jobs: int,
+    reads: Reads | None = None,
 ) -> Generator[list[Outcome], None, None]:
     """Outcomes of every chunk on ``jobs`` worker processes, in completion order; every point
-    gets one outcome even when workers die (see the module's description)."""
+    gets one outcome even when workers die (see the module's description). ``reads`` tallies
+    the testbenches the workers read."""
     # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the
     # process (the report's plots) shares the pool rather than finding one it cannot use.
     from joblib.executor import get_memmapping_executor
 
     pending = list(tasks)
     fruitless = 0
+    tally = reads if reads is not None else Reads()
     with _journal_folder() as scratch:
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = get_memmapping_executor(jobs)
-            lost, death = yield from _run_round(executor, config, decks, pending, scratch, round_)
+            queue = _Queue(pending, decks, _pool(executor))
+            lost, death = yield from _run_round(
+                executor, config, queue, jobs, (scratch, round_), tally
+            )
             if death is None:
                 return
-            pending, in_flight, kept = yield from _salvage(lost)
+            salvaged, in_flight, kept = yield from _salvage(lost)
+            pending = [*salvaged, *queue.rest()]
             fruitless = fruitless + 1 if not (kept or in_flight) else 0
             if fruitless >= FRUITLESS_ROUNDS:
                 raise SimulatorError(
@@ -138,6 +237,111 @@ def run_chunks(
             round_ += 1
 
 
+@dataclass
+class _Pool:
+    """What the driver knows of its pool's workers, which outlive a sweep (the function
+    check's, then the run's): the testbenches (``Deck.key``) each process has read, by process
+    id, and per testbench the seconds of a read and of work per unit of cost, measured."""
+
+    ident: int = 0  # id() of the pool described; a new pool starts afresh
+    held: dict[int, set[str]] = field(default_factory=dict)
+    read_time: dict[str, float] = field(default_factory=dict)
+    unit_time: dict[str, float] = field(default_factory=dict)
+
+
+_POOL = _Pool()
+
+
+def _pool(executor: Executor) -> _Pool:
+    global _POOL
+    if _POOL.ident != id(executor):
+        _POOL = _Pool(id(executor))
+    return _POOL
+
+
+class _Queue:
+    """The chunks not yet started, by cell, each cell's in the order given (costliest first),
+    and which worker to offer which (see the module's description)."""
+
+    def __init__(
+        self,
+        tasks: Iterable[tuple[Work, ...]],
+        decks: Mapping[str, Deck],
+        pool: _Pool,
+    ) -> None:
+        self.cells: dict[str, deque[tuple[Work, ...]]] = {}
+        for task in tasks:
+            self.cells.setdefault(task[0].cell, deque()).append(task)
+        self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
+        self.decks = decks
+        self.keys = {c: decks[c].key for c in self.cells}
+        self.pool = pool
+        self.held = pool.held
+        self.started: set[str] = set()
+
+    def take(self, pid: int | None, force: bool = False) -> tuple[Work, ...] | None:
+        """The next chunk for worker ``pid`` (None: a worker not known yet): of a cell it has
+        read, else of one no worker has read or started, else of the cell with the most work
+        left, unless reading that cell costs more than the help saves (``force``: even so);
+        None when no chunk is (worth) taking."""
+        mine = self.held.get(pid, set()) if pid is not None else set()
+        others = {k for p, keys in self.held.items() if p != pid for k in keys}
+        open_ = [c for c, q in self.cells.items() if q]
+        own = [c for c in open_ if self.keys[c] in mine]
+        fresh = [c for c in open_ if c not in self.started and self.keys[c] not in others]
+        choice = own or fresh or open_
+        if not choice:
+            return None
+        cell = max(choice, key=lambda c: self.left[c])
+        if not (own or fresh or force or self._worth_reading(cell)):
+            return None
+        task = self.cells[cell].popleft()
+        self.left[cell] -= sum(p.cost for p in task)
+        self.started.add(cell)
+        return task
+
+    def _worth_reading(self, cell: str) -> bool:
+        """Whether one more worker on ``cell`` ends it sooner than its holders alone would,
+        its read of the testbench counted (unmeasured: yes)."""
+        key = self.keys[cell]
+        read, unit = self.pool.read_time.get(key), self.pool.unit_time.get(key)
+        if read is None or unit is None:
+            return True
+        holders = sum(1 for keys in self.held.values() if key in keys)
+        alone = self.left[cell] * unit / max(1, holders)
+        return read + alone * holders / (holders + 1) < alone
+
+    def offers(self, force: bool = False) -> tuple[Offer, ...]:
+        """A chunk for each worker known (the one it should take next; a known worker offered
+        none takes none) and one for any other (a fresh worker of the pool); each chunk
+        offered once."""
+        offers: list[Offer] = []
+        for pid in (*self.held, None):
+            task = self.take(pid, force)
+            if task is not None:
+                offers.append((pid, self.decks[task[0].cell], task))
+        return tuple(offers)
+
+    def give_back(self, task: tuple[Work, ...]) -> None:
+        """A chunk offered but not taken goes back to the front of its cell's queue."""
+        cell = task[0].cell
+        self.cells[cell].appendleft(task)
+        self.left[cell] += sum(p.cost for p in task)
+
+    def done(self, cell: str, chunk: tuple[Work, ...], done: Done) -> None:
+        """Worker ``done.pid`` holds ``cell``'s testbench now; what its chunk took."""
+        key = self.keys[cell]
+        self.held.setdefault(done.pid, set()).add(key)
+        if done.reads:
+            self.pool.read_time[key] = done.read_seconds / done.reads
+        cost = sum(p.cost for p in chunk)
+        if cost:
+            self.pool.unit_time[key] = max(0.0, done.seconds - done.read_seconds) / cost
+
+    def rest(self) -> list[tuple[Work, ...]]:
+        return [t for q in self.cells.values() for t in q]
+
+
 def _journal_folder() -> tempfile.TemporaryDirectory[str]:
     """A temporary folder for the workers' journals (removed when the sweep ends)."""
     try:
@@ -151,31 +355,57 @@ def _journal_folder() -> tempfile.TemporaryDirectory[str]:
 def _run_round(
     executor: Executor,
     config: LibraryConfig,
-    decks: Mapping[str, Deck],
-    pending: Sequence[tuple],
-    scratch: str,
-    round_: int,
+    queue: _Queue,
+    jobs: int,
+    journals: tuple[str, int],
+    reads: Reads,
 ) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
-    """Yield the outcomes of each chunk of ``pending`` that finished; return the chunks lost
-    to a dead worker (each with its journal) and the pool's account of the death."""
-    futures = {}
-    for i, task in enumerate(pending):
-        path = os.path.join(scratch, f"{round_}-{i}.pickle")
-        future = executor.submit(_work, config, decks[task[0].cell], task, path)
-        futures[future] = (task, path)
-    lost, death = [], None
+    """Yield the outcomes of each chunk of ``queue`` that finished, ``AHEAD`` tasks in flight
+    per worker; return the chunks lost to a dead worker (each with its journal) and the pool's
+    account of the death. Chunks never started stay in ``queue``."""
+    scratch, round_ = journals
+    futures: dict[Future[Done], tuple[tuple[Offer, ...], list[str]]] = {}
+
+    def submit(force: bool = False) -> None:
+        offers = queue.offers(force)
+        if offers:
+            # A journal per offer: the one written names the chunk the worker took.
+            paths = [
+                os.path.join(scratch, f"{round_}-{len(futures)}-{i}-{time.monotonic_ns()}")
+                for i in range(len(offers))
+            ]
+            known = frozenset(queue.held)
+            futures[executor.submit(_offered, config, offers, paths, known)] = (offers, paths)
+
+    for _ in range(AHEAD * jobs):
+        submit()
+    lost: list[tuple[tuple, str]] = []
+    death = None
     try:
-        for future in as_completed(futures):
-            task, path = futures[future]
-            try:
-                batch = future.result()
-            except BrokenProcessPool as exc:
-                lost.append((task, path))
-                death = exc
-                continue
-            with contextlib.suppress(FileNotFoundError):  # a worker without one
-                os.unlink(path)
-            yield batch
+        while futures:
+            finished, _ = wait(futures, return_when=FIRST_COMPLETED)
+            for future in finished:
+                offers, paths = futures.pop(future)
+                try:
+                    done = future.result()
+                except BrokenProcessPool as exc:
+                    lost += [(task, path) for (_, _, task), path in zip(offers, paths, strict=True)]
+                    death = exc
+                    continue
+                for i, (_, _, task) in enumerate(offers):
+                    if i != done.chosen:
+                        queue.give_back(task)
+                if done.chosen is not None:
+                    with contextlib.suppress(FileNotFoundError):  # a worker without one
+                        os.unlink(paths[done.chosen])
+                    task = offers[done.chosen][2]
+                    queue.done(task[0].cell, task, done)
+                    reads.add(task[0].cell, done.reads, done.read_seconds)
+                if death is None and done.chosen is not None:
+                    submit()  # for the worker that is free now (one that declined stays idle)
+                yield done.outcomes
+            if death is None and not futures and queue.rest():
+                submit(force=True)  # no worker would take what is left: the first free does
     finally:
         # Closed early (the caller stopped): chunks not yet started are not started.
         for future in futures:

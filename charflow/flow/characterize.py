@@ -23,6 +23,7 @@ from charflow.config.library import FlopSpec, LibraryConfig
 from charflow.config.shapes import InputShape
 from charflow.execution import provenance, sweep
 from charflow.execution.store import Stale, Store, keyring
+from charflow.execution.workers import Reads
 from charflow.io import faults, liberty
 from charflow.io.atomic import write_atomic
 from charflow.plan import arcs as planning
@@ -108,6 +109,11 @@ class RunResult:
     spreads: tuple[SpreadMeasurement, ...] = ()
     spread_failures: tuple[Failure, ...] = ()
     spread: tuple[spread_tables.ArcSpread, ...] = ()
+    # Testbenches the simulators read for this run (function check and sweep), each a parse
+    # of the cell's models, and the seconds they took summed over the workers.
+    reads: int = 0
+    read_seconds: float = 0.0
+    cell_reads: tuple[tuple[str, int], ...] = ()  # (cell, reads) of each cell read
 
     @property
     def filled(self) -> tuple[gaps.Filled, ...]:
@@ -207,14 +213,18 @@ def verify(
     decks: Mapping[str, Deck] | None = None,
     jobs: int | None = None,
     scheduler: str | None = None,
+    reads: Reads | None = None,
 ) -> tuple[FunctionChecked, ...]:
     """Simulate every input vector of every chosen cell against its declared function, in the
     sweep's workers; with a store, a cell whose check passed before with the same inputs is
-    not checked again. The first cell that fails stops the run with its error."""
+    not checked again. The first cell that fails stops the run with its error. ``reads``
+    tallies the testbenches read."""
     names = [c.name for c in config.cells if cells is None or c.name in cells]
     points = function_points(config, names)
     outcomes = list(
-        sweep.run(config, points, jobs=jobs, store=store, scheduler=scheduler, decks=decks)
+        sweep.run(
+            config, points, jobs=jobs, store=store, scheduler=scheduler, decks=decks, reads=reads
+        )
     )
     failed = [o for o in outcomes if isinstance(o, Failure)]
     if failed:
@@ -366,7 +376,8 @@ def characterize(
     decks = {n: build_deck(config, config.cell(n)) for n in names}
     spread = spread_points(config, chosen, {n: len(d.devices) for n, d in decks.items()})
     work = (*work, *spread)
-    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler)
+    reads = Reads()
+    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler, reads=reads)
     if on_start is not None:
         on_start(sweep.work(work))
     got = _Collected()
@@ -379,6 +390,7 @@ def characterize(
         on_stored=got.served(on_stored),
         scheduler=scheduler,
         decks=decks,
+        reads=reads,
     ):
         got.keep(outcome)
     whole, others = chosen, toggle_points
@@ -411,6 +423,9 @@ def characterize(
         spreads=tuple(got.spreads),
         spread_failures=tuple(got.spread_failures),
         spread=sigma,
+        reads=reads.count,
+        read_seconds=reads.seconds,
+        cell_reads=tuple(reads.cells.items()),
     )
 
 

@@ -10,18 +10,15 @@ with the library's delay and slew thresholds as horizontal lines.
 
 from __future__ import annotations
 
-import io
 import re
 from collections.abc import Iterable, Sequence
 from pathlib import Path
-
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
 from charflow.config.library import LibraryConfig
 from charflow.io.atomic import write_atomic
 from charflow.records import logic
 from charflow.records.errors import OutputError
+from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Waveform
 from charflow.records.points import (
     ConstraintPoint,
@@ -33,9 +30,11 @@ from charflow.records.points import (
     Work,
 )
 
+# The drawing needs matplotlib, seconds of start-up that a run without failed points never pays.
+plot = deferred("charflow.io.faultplot")
+
 FOLDER = "failed"
 SLUG_LENGTH = 72
-DPI = 110
 
 
 def paths(failures: Iterable[Failure]) -> dict[Work, tuple[str, str]]:
@@ -122,53 +121,6 @@ def csv_text(config: LibraryConfig, failure: Failure, w: Waveform) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _levels(config: LibraryConfig) -> dict[float, list[str]]:
-    """Threshold (V) → what the library uses it for."""
-    thr, vdd = config.thresholds, config.process.vdd
-    uses: dict[float, list[str]] = {}
-    for edge in ("rise", "fall"):
-        named = [
-            (thr.delay_input(edge), f"input delay {edge}"),
-            (thr.delay_output(edge), f"output delay {edge}"),
-            *((x, f"slew {edge}") for x in thr.slew_band(edge)),
-        ]
-        for fraction, use in named:
-            entry = uses.setdefault(round(fraction * vdd, 12), [])
-            if use not in entry:
-                entry.append(use)
-    return uses
-
-
-def png_bytes(config: LibraryConfig, failure: Failure, w: Waveform) -> bytes:
-    fig = Figure(figsize=(8.0, 4.8))
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
-    scale = config.time_scale
-    for name, v in w.nodes:
-        ax.plot(w.time / scale, v, label=f"{name}", linewidth=1.2)
-    for level, uses in sorted(_levels(config).items()):
-        ax.axhline(level, color="0.6", linewidth=0.7, linestyle="--")
-        ax.annotate(
-            f"{level:.3g} V: {', '.join(uses)}",
-            (0.0, level),
-            xycoords=("axes fraction", "data"),
-            xytext=(3, 2),
-            textcoords="offset points",
-            fontsize=6,
-            color="0.4",
-        )
-    ax.set_xlabel(f"time ({config.time_unit})")
-    ax.set_ylabel("V")
-    ax.legend(loc="center right", fontsize=8)
-    reason = failure.reason if len(failure.reason) <= 110 else failure.reason[:107] + "..."
-    ax.set_title(f"{failure.point.cell} {failure.point.label}\n{reason}", fontsize=8)
-    # Fixed margins: tight_layout would cost more than the drawing (many failed points).
-    fig.subplots_adjust(left=0.08, right=0.98, top=0.9, bottom=0.1)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI)
-    return buf.getvalue()
-
-
 def write(
     config: LibraryConfig, failures: Sequence[Failure], out_dir: Path, cells: Iterable[str] = ()
 ) -> list[Path]:
@@ -191,6 +143,6 @@ def write(
             continue
         csv_path, png_path = (out_dir / p for p in where[f.point])
         write_atomic(csv_path, csv_text(config, f, f.waveform))
-        write_atomic(png_path, png_bytes(config, f, f.waveform))
+        write_atomic(png_path, plot.png_bytes(config, f, f.waveform))
         written += [csv_path, png_path]
     return written

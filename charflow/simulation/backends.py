@@ -136,6 +136,9 @@ class SharedBackend:
         self._ng.exec_command(QUIET)
         self._circuits: list[str] = []  # keys of the decks loaded, in ngspice's order
         self._runs = 0
+        # Testbenches read (their models parsed) by this process, and the wall time it took.
+        self.reads = 0
+        self.read_seconds = 0.0
         self._loaded: str | None = None
         self._version: str | None = None
         self._broken = ""  # ngspice's messages once it has given up on reading a deck
@@ -190,6 +193,7 @@ class SharedBackend:
             f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
         )
         listed = len(self._circuits)
+        start = time.perf_counter()
         try:
             self._ng.load_circuit(deck.text)
             failed = None
@@ -197,6 +201,8 @@ class SharedBackend:
         # parse), NgSpiceCircuitError when it read the deck but reported errors.
         except (NgSpiceCircuitError, NameError) as exc:
             failed = exc
+        self.reads += 1
+        self.read_seconds += time.perf_counter() - start
         output = f"{self._ng.stdout}\n{self._ng.stderr}"
         # ngspice may refuse a deck without a word to PySpice, or list one it read with errors:
         # either would shift the numbering of the others under them.
@@ -337,6 +343,9 @@ class SubprocessBackend:
         self._exe = exe
         self.timeout = timeout
         self._version: str | None = None
+        # Every run is a process that reads its testbench: counted, its reading not timed apart.
+        self.reads = 0
+        self.read_seconds = 0.0
 
     def version(self) -> str:
         """The executable's version and build date, as ``ngspice -v`` reports them."""
@@ -360,6 +369,7 @@ class SubprocessBackend:
             start = time.perf_counter()
             proc = self._execute(deck_path, tmp, request.deck.cell)
             seconds = time.perf_counter() - start
+            self.reads += 1
             _check_batch_run(proc, out, request)
             table = np.loadtxt(out, skiprows=1, ndmin=2)
         return Result(_batch_vectors(table, names, request.analysis), seconds)
@@ -585,6 +595,20 @@ def deck_read_error(what: str, deck: Deck, output: str) -> DeckReadError:
     files = ", ".join(map(str, model_files(deck.text, Path.cwd())))
     read = f" (not located; the testbench reads {files})" if files else ""
     return DeckReadError(f"{what}: {cause}{read}", cell=deck.cell)
+
+
+def loaded_library() -> str | None:
+    """The file of the ngspice shared library loaded in this process (Linux's account of the
+    process's mappings); None when none is, or the system keeps no such account."""
+    try:
+        with open("/proc/self/maps", encoding="utf-8") as maps:
+            for line in maps:
+                path = line.split(maxsplit=5)[-1].strip()
+                if os.path.basename(path).startswith("libngspice"):
+                    return path
+    except OSError:
+        pass
+    return None
 
 
 def make_backend(name: str, timeout: float) -> SharedBackend | SubprocessBackend:

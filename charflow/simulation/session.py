@@ -63,6 +63,11 @@ class Session:
             self._caches[name] = BoundedCache(self.limit)
         return self._caches[name]
 
+    def reads(self) -> tuple[int, float]:
+        """Testbenches this process's simulators have read so far, and the seconds it took."""
+        backends = self._backends.values()
+        return sum(b.reads for b in backends), sum(b.read_seconds for b in backends)
+
     def forget(self) -> None:
         """Empty every cache (the simulator stays)."""
         for cache in self._caches.values():
