@@ -38,7 +38,7 @@ LADDER_SLEW = 0.1e-9  # s, the input ramp's table slew
 LADDER_RTOL = 5e-3
 # The tables' path delay against the whole path simulated, small_l1 (3 x 3 grid): measured
 # -3.1 % to -4.4 % on CHAIN with the test's loads (December 2026; coarse-grid interpolation, the
-# input shape and the pins' load, see docs/notes-paths.md), so a tolerance of 6 %.
+# input shape and the pins' load, see docs/history/2026-12-paths.md), so a tolerance of 6 %.
 PATH_RTOL = 0.06
 # OpenSTA prints -digits 6 in ns: half a unit of the last digit, 0.5 fs, per printed value.
 PRINTED_S = 0.5e-15 * 1.01
