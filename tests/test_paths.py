@@ -27,7 +27,7 @@ from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR
 from charflow.flow import characterize as flow
 from charflow.io import liberty, verilog
-from charflow.records.errors import NetlistError
+from charflow.records.errors import ConfigError, NetlistError
 from charflow.simulation import stimulus
 
 DATA = Path(__file__).resolve().parent / "data"
@@ -301,6 +301,23 @@ load = 0.001
 SLEW_RTOL = 2e-3
 
 
+def _driver_config(tmp: Path) -> Path:
+    text = (DATA / "small_l1.toml").read_text(encoding="utf-8")
+    text = text.replace('"../../', f'"{DATA.parents[1].as_posix()}/')
+    path = tmp / "small_l1.toml"
+    path.write_text(text + DRIVER, encoding="utf-8")
+    return path
+
+
+def test_a_driver_shape_not_yet_measured_is_refused(tmp_path: Path) -> None:
+    """Timing paths with a driver-shaped config whose edges were never measured would drive
+    the paths with no edge at all: a clear error, not a failed point per path."""
+    cfg = config.load(_driver_config(tmp_path))
+    setup = paths.Setup((0.05e-9,), ("rise",), 0.0, 1e-15)
+    with pytest.raises(ConfigError, match=r"\[input_shape\] kind = 'driver'"):
+        paths.correlate(cfg, [], {}, setup, jobs=1)
+
+
 def test_paths_of_a_driver_shaped_library_get_its_edge(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
@@ -308,10 +325,7 @@ def test_paths_of_a_driver_shaped_library_get_its_edge(
     edge, as every table point does: the first stage's replica (an ideal copy of the port's
     wave, the lumped load) equals its ramp point (a table point of the shaped library) as in
     the linear case, and the report says which shape the tables used."""
-    text = (DATA / "small_l1.toml").read_text(encoding="utf-8")
-    text = text.replace('"../../', f'"{DATA.parents[1].as_posix()}/')
-    cfg_path = tmp_path / "small_l1.toml"
-    cfg_path.write_text(text + DRIVER, encoding="utf-8")
+    cfg_path = _driver_config(tmp_path)
     netlist = tmp_path / "short.v"
     netlist.write_text(SHORT, encoding="utf-8")
     out = tmp_path / "out"

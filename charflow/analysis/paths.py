@@ -33,7 +33,7 @@ import numpy as np
 from charflow.analysis.opensta import StaStage
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
-from charflow.records.errors import NetlistError, TableError
+from charflow.records.errors import ConfigError, NetlistError, TableError
 from charflow.records.outcomes import Failure, Measurement, Outcome, PathMeasurement
 from charflow.records.paths import CONSTANTS, Circuit, Path, Stage
 from charflow.records.points import PathPoint, State, TimingPoint, Work
@@ -418,6 +418,12 @@ def correlate(
 ) -> Correlation:
     """Every path of ``circuits`` at every input slew and edge of ``setup``: simulated whole,
     timed from ``cells``' tables, each stage's experiments run (see the module's text)."""
+    shape = config.input_shape
+    if not shape.linear and not (shape.rise and shape.fall):
+        raise ConfigError(
+            f"[input_shape] kind = {shape.kind!r}: its edges are not measured yet; time the "
+            "paths with the config the tables were measured with (flow.characterize.with_shape)"
+        )
     begin = time.perf_counter()
     prepared, decks = {}, {}
     for circuit in circuits:
