@@ -27,7 +27,7 @@ from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR
 from charflow.flow import characterize as flow
 from charflow.io import liberty, verilog
-from charflow.records.errors import NetlistError
+from charflow.records.errors import ConfigError, NetlistError
 from charflow.simulation import stimulus
 
 DATA = Path(__file__).resolve().parent / "data"
@@ -168,8 +168,9 @@ def test_replica_of_the_last_stage_is_the_stage(small, tmp_path: Path) -> None:
     corr = paths.correlate(cfg, [_circuit(tmp_path, CHAIN, cfg)], cells, setup, jobs=1)
     (run,) = corr.results
     last, first = run.stages[-1], run.stages[0]
-    assert last.replica_delay == pytest.approx(last.sim_delay, rel=1e-9)
-    assert first.ramp_delay == pytest.approx(first.replica_delay, rel=LADDER_RTOL)
+    # abs=0: pytest.approx's default absolute tolerance, 1e-12, is a tenth of these delays.
+    assert last.replica_delay == pytest.approx(last.sim_delay, rel=1e-9, abs=0)
+    assert first.ramp_delay == pytest.approx(first.replica_delay, rel=LADDER_RTOL, abs=0)
 
 
 BAD_NETLISTS = [
@@ -274,3 +275,72 @@ def test_paths_command_on_the_demo(tmp_path: Path, capsys: pytest.CaptureFixture
         assert run["failure"] is None and len(run["per_stage"]) == 5
         assert run["arrival_s"]["opensta"] is not None
     assert (out / "vellum90_tt.paths.html").read_text(encoding="utf-8").startswith("<!doctype")
+
+
+SHORT = """\
+// three stages, for the driver-shaped library
+module short (a, y);
+  input a;
+  output y;
+  wire n1, n2;
+  QINV_P1 u1 (.A(a), .Y(n1));
+  QNAND2_P1 u2 (.IA(n1), .IB(1'b1), .Y(n2));
+  QINV_P1 u3 (.A(n2), .Y(y));
+endmodule
+"""
+DRIVER = """
+[input_shape]
+kind = "driver"
+driver = ["QINV_P1", "QINV_P1"]
+fanout_pin = "QINV_P1.A"
+fanout = 2
+load = 0.001
+"""
+# The input port's simulated transition against the path's slew: the shaped edge's corners sit
+# on the slew thresholds (tests/test_shapes.py), the crossings are interpolated between samples.
+SLEW_RTOL = 2e-3
+
+
+def _driver_config(tmp: Path) -> Path:
+    text = (DATA / "small_l1.toml").read_text(encoding="utf-8")
+    text = text.replace('"../../', f'"{DATA.parents[1].as_posix()}/')
+    path = tmp / "small_l1.toml"
+    path.write_text(text + DRIVER, encoding="utf-8")
+    return path
+
+
+def test_a_driver_shape_not_yet_measured_is_refused(tmp_path: Path) -> None:
+    """Timing paths with a driver-shaped config whose edges were never measured would drive
+    the paths with no edge at all: a clear error, not a failed point per path."""
+    cfg = config.load(_driver_config(tmp_path))
+    setup = paths.Setup((0.05e-9,), ("rise",), 0.0, 1e-15)
+    with pytest.raises(ConfigError, match=r"\[input_shape\] kind = 'driver'"):
+        paths.correlate(cfg, [], {}, setup, jobs=1)
+
+
+def test_paths_of_a_driver_shaped_library_get_its_edge(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """With ``[input_shape] kind = "driver"`` the path's input port gets the driver's measured
+    edge, as every table point does: the first stage's replica (an ideal copy of the port's
+    wave, the lumped load) equals its ramp point (a table point of the shaped library) as in
+    the linear case, and the report says which shape the tables used."""
+    cfg_path = _driver_config(tmp_path)
+    netlist = tmp_path / "short.v"
+    netlist.write_text(SHORT, encoding="utf-8")
+    out = tmp_path / "out"
+    args = ["paths", str(cfg_path), "--cell", "QINV_P1", "--cell", "QNAND2_P1", "--no-sta"]
+    args += ["--netlist", str(netlist), "--slew", "0.05", "--jobs", "1", "--quiet"]
+    assert main([*args, "--out", str(out)]) == 0
+    assert "input waveform: driver-shaped: output of QINV_P1 > QINV_P1" in capsys.readouterr().out
+    doc = json.loads((out / "small_l1.paths.json").read_text(encoding="utf-8"))
+    assert doc["settings"]["input_shape"].startswith("driver-shaped: output of QINV_P1")
+    assert len(doc["paths"]) == 2  # both input edges
+    for run in doc["paths"]:
+        assert run["failure"] is None
+        first = run["per_stage"][0]
+        assert first["slew_in_s"]["simulated"] == pytest.approx(0.05e-9, rel=SLEW_RTOL, abs=0)
+        delays = first["delay_s"]
+        assert delays["ramp_lumped_load"] == pytest.approx(
+            delays["replica_lumped_load"], rel=LADDER_RTOL, abs=0
+        )

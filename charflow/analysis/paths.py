@@ -11,10 +11,15 @@ the real next gates, in workers like any sweep point (``measurement.paths``).
 
 To say where a difference comes from, every stage is also simulated twice more: its replica
 (``simulation.pathdeck.Replica``: the real input waveform, a lumped load of the pins'
-capacitance) and a table point (a linear ramp of the stage's simulated input slew, the same
-lumped load). Real against replica is the load a real gate presents beyond its pin
-capacitance; replica against ramp is the input's shape; the tables against the ramp point is
+capacitance) and a table point (the library's input edge at the stage's simulated input
+slew, the same lumped load). Real against replica is the load a real gate presents beyond its
+pin capacitance; replica against ramp is the input's shape (the tables' edge, linear or a
+driver's, against the real previous gate's); the tables against the ramp point is
 interpolation.
+
+The circuit's input port is driven by the library's input shape (``config.input_shape``, a
+driver's edges measured: ``flow.characterize.with_shape``), as a table point's input is, so the
+first stage sees the edge its tables were measured with.
 """
 
 from __future__ import annotations
@@ -28,7 +33,7 @@ import numpy as np
 from charflow.analysis.opensta import StaStage
 from charflow.config.library import LibraryConfig
 from charflow.execution import sweep
-from charflow.records.errors import NetlistError, TableError
+from charflow.records.errors import ConfigError, NetlistError, TableError
 from charflow.records.outcomes import Failure, Measurement, Outcome, PathMeasurement
 from charflow.records.paths import CONSTANTS, Circuit, Path, Stage
 from charflow.records.points import PathPoint, State, TimingPoint, Work
@@ -297,7 +302,7 @@ class StageResult:
     sim_slew_out: float
     sim_arrival: float
     replica_delay: float  # real input waveform, lumped load
-    ramp_delay: float | None  # linear ramp, lumped load (None: the point failed)
+    ramp_delay: float | None  # the tables' input edge, lumped load (None: the point failed)
     table_delay: float  # the tables at the simulated input slew and the lumped load
     sta_delay: float | None = None
     sta_slew: float | None = None
@@ -413,6 +418,12 @@ def correlate(
 ) -> Correlation:
     """Every path of ``circuits`` at every input slew and edge of ``setup``: simulated whole,
     timed from ``cells``' tables, each stage's experiments run (see the module's text)."""
+    shape = config.input_shape
+    if not shape.linear and not (shape.rise and shape.fall):
+        raise ConfigError(
+            f"[input_shape] kind = {shape.kind!r}: its edges are not measured yet; time the "
+            "paths with the config the tables were measured with (flow.characterize.with_shape)"
+        )
     begin = time.perf_counter()
     prepared, decks = {}, {}
     for circuit in circuits:
@@ -552,6 +563,7 @@ def to_json(config: LibraryConfig, corr: Correlation) -> dict:
             "input_edges": list(st.edges),
             "wire_capacitance_F": st.wire,
             "port_load_F": st.port,
+            "input_shape": config.input_shape.describe(config.cap_unit, config.cap_scale),
             "error": "(value - simulated) / simulated; negative: too fast",
         },
         "summary": summary(corr),
@@ -589,8 +601,10 @@ def _pct(x: float | None) -> str:
 def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     """The terminal table: one line per path run, then the spread and the stage effects."""
     t, tu = config.time_scale, config.time_unit
+    shape = config.input_shape.describe(config.cap_unit, config.cap_scale)
     lines = [
         f"paths of {config.name}: {len(corr.results)} path runs in {corr.wall_seconds:.1f} s",
+        f"tables' and paths' input waveform: {shape}",
         f"  {'path':<14} {'st':>2} {'slew':>7} {'edge':<4} {'simulated':>10} {'predicted':>10} "
         f"{'OpenSTA':>10} {'err pred':>9} {'err sta':>9}  ({tu})",
     ]

@@ -508,6 +508,7 @@ def _stage_rows(config: LibraryConfig, r: paths.PathResult) -> str:
 def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
     """The path check as one self-contained page: the plot, the paths, every stage."""
     tu, cu = config.time_unit, config.cap_unit
+    shape = config.input_shape.describe(cu, config.cap_scale)
     spread = "".join(
         f"<li>{name}: median |error| {s['median_abs_error'] * 100:.2f} %, worst "
         f"{s['worst_abs_error'] * 100:.2f} %, mean {s['mean_error'] * 100:+.2f} %</li>"
@@ -535,10 +536,12 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
         f"<!doctype html><html><head><meta charset=utf-8><title>{html.escape(config.name)} "
         f"paths</title><style>{_STYLE}</style></head><body><h1>{html.escape(config.name)}: "
         f"paths simulated against the tables</h1><p class=note>charflow {__version__}; times in "
-        f"{tu}. Error = (value - simulated) / simulated: negative where the value is too fast. "
+        f"{tu}. Tables' and paths' input waveform: {html.escape(shape)}. "
+        "Error = (value - simulated) / simulated: negative where the value is too fast. "
         "Stage effects: mean per-stage delay difference, as a fraction of the simulated "
-        "delay: load = lumped pin capacitance against the real gates, shape = linear ramp "
-        "against the real waveform, interpolation = tables against the ramp point.</p>"
+        "delay: load = lumped pin capacitance against the real gates, shape = the tables' "
+        "input edge against the real waveform, interpolation = tables against the ramp "
+        "point.</p>"
         f"<ul>{spread}</ul><ul>{effects}</ul>{_img(paths_png(config, corr), 'paths')}"
         f"<h2>Paths</h2><table class=summary><thead>{head}</thead><tbody>"
         f"{''.join(_path_rows(config, corr))}</tbody></table><h2>Stages</h2>{stages}"

@@ -130,6 +130,8 @@ def command(args: argparse.Namespace) -> int:
                 file=sys.stderr,
             )
             return EXIT_FAILED_POINTS
+        # The paths' input port gets the edge the tables were measured with (a driver's).
+        cfg = flow.with_shape(cfg, result)
         cells = {
             c.cell.name: c for c in result.cells if args.cell is None or c.cell.name in args.cell
         }

@@ -1,7 +1,8 @@
 """Simulating a whole circuit of cells (``records.paths``) at transistor level, and measuring
 when every node of interest crossed its thresholds.
 
-The circuit's input port gets the same input ramp a table point gets (``stimulus.ramp``); every
+The circuit's input port gets the same input edge a table point gets (``stimulus.ramp``: the
+library's input shape, a driver's measured edge or the linear ramp, at the path's slew); every
 other node is driven by the cells themselves, so each stage sees the waveform and the load a
 real gate makes. The run is as long as the driver asks (``PathPoint.stop``, from the tables'
 prediction with a margin); a node that has not settled by then is an error, never a number.
@@ -23,10 +24,11 @@ from charflow.simulation.netlist import Deck
 
 
 def measure_path(config: LibraryConfig, deck: Deck, point: PathPoint) -> PathMeasurement:
-    """Run the circuit once with its input port ramped; measure every node of ``point``."""
+    """Run the circuit once with its input port driven by the library's input edge (the
+    shape the tables were measured with); measure every node of ``point``."""
     vdd = config.process.vdd
-    ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, vdd)
-    commands = (f"alter @{deck.input_source(point.start)}[pulse] = {ramp.pulse()}",)
+    ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, vdd, config.input_shape)
+    commands = stimulus.set_source(deck.input_source(point.start), ramp.pulse())
     nodes = tuple(dict.fromkeys(node for node, _ in point.nodes))
     analysis = f"tran {point.step:.6g} {max(point.stop, ramp.end):.6g} 0 {point.step:.6g}"
     result, runs = simulate(backend_for(config), Request(deck, commands, analysis, nodes))
