@@ -283,7 +283,7 @@ def _spread_groups(
     ):
         if group:
             each = per_cost * sum(p.cost for p in group) / len(group)
-            measured = len(picks) if kind == SIGMA_TABLES and not sampled else 0
+            measured = len(picks) if kind == SIGMA_TABLES else 0  # the picks, counted once
             groups.append(GroupCost(kind, len(group), each * per_run, each, measured))
     return tuple(groups)
 
