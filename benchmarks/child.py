@@ -18,7 +18,14 @@ from pathlib import Path
 
 from charflow.config import library as config
 from charflow.flow import characterize as flow
-from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint, TogglePoint, Work
+from charflow.records.points import (
+    ConstraintPoint,
+    PulsePoint,
+    SpreadPoint,
+    TimingPoint,
+    TogglePoint,
+    Work,
+)
 
 
 def kind_of(point: Work) -> str:
@@ -31,17 +38,36 @@ def kind_of(point: Work) -> str:
         return "pulse-width searches"
     if isinstance(point, TogglePoint):
         return "hidden-power toggles"
+    if isinstance(point, SpreadPoint):
+        return "Monte Carlo spread points" if point.samples else "sensitivity spread points"
     return "leakage"
 
 
 def by_kind(result: flow.RunResult) -> dict[str, list[int]]:
     """Points and simulations of each kind of work the run simulated."""
     counts: dict[str, list[int]] = {}
-    for m in (*result.measurements, *result.toggles, *result.leakage):
+    for m in (*result.measurements, *result.toggles, *result.leakage, *result.spreads):
         entry = counts.setdefault(kind_of(m.point), [0, 0])
         entry[0] += 1
         entry[1] += m.runs
     return counts
+
+
+def spread(result: flow.RunResult) -> dict[str, int]:
+    """What the sigma tables cost beside the nominal points, from the run's own counts."""
+    tables, checks, nominal = result.spread_cost()
+    sampled = all(m.point.samples for m in result.spreads)
+    return {
+        "points": sum(1 for m in result.spreads if bool(m.point.samples) == sampled),
+        "simulations": tables,
+        "checks": checks,
+        "nominal_points": sum(
+            1
+            for m in result.measurements
+            if isinstance(m.point, TimingPoint) and m.point.kind == "combinational"
+        ),
+        "nominal_simulations": nominal,
+    }
 
 
 def main(argv: list[str]) -> int:
@@ -78,6 +104,7 @@ def main(argv: list[str]) -> int:
         "read_seconds": result.read_seconds,
         "cell_reads": dict(result.cell_reads),
         "kinds": by_kind(result),
+        "spread": spread(result),
     }
     timings.write_text(json.dumps({"stages": stages, **totals}), encoding="utf-8")
     return 1 if result.failures else 0

@@ -73,6 +73,31 @@ FLOOR_LIBRARIES = ("combinational demo", "BSIM demo")
 TARGET_SCALING = 1.8  # 1 -> 2 cores
 TARGET_DEMO_SECONDS = 35.0  # BSIM demo, 2 workers
 TARGET_PEAK_BYTES = 300e6
+# Issue 16: the sigma tables (linear method, no Monte Carlo checks) within 5x the simulations
+# of the nominal run they are added to.
+TARGET_SPREAD_RATIO = 5.0
+
+
+@dataclass(frozen=True, slots=True)
+class SpreadCost:
+    """The sigma tables' simulations beside the nominal run's, counted by the run itself."""
+
+    points: int  # spread points of the sigma tables
+    simulations: int  # their simulations
+    checks: int  # simulations of the Monte Carlo checks beside them
+    nominal_points: int  # the nominal combinational points
+    nominal_simulations: int  # their simulations
+    run_simulations: int  # the whole run's, spread points included
+
+    @property
+    def nominal_run(self) -> int:
+        """Simulations of the run without its spread points."""
+        return self.run_simulations - self.simulations - self.checks
+
+    @property
+    def ratio(self) -> float:
+        """The sigma tables' simulations over the nominal run's."""
+        return self.simulations / self.nominal_run
 
 
 @dataclass(frozen=True, slots=True)
@@ -92,6 +117,7 @@ class RunStats:
     read_seconds: float = 0.0  # s those reads took, summed over the workers
     most_reads: int = 0  # the most reads of any one cell
     kinds: tuple[tuple[str, int, int], ...] = ()  # (kind of work, points, simulations)
+    spread: SpreadCost | None = None  # with [mismatch] on: what the sigma tables cost
 
     @property
     def sweep(self) -> float:
@@ -183,6 +209,19 @@ def combinational_demo(folder: Path) -> Path:
     return path
 
 
+def mismatch_demo(folder: Path) -> Path:
+    """The combinational demo with its sigma tables on (linear method, no Monte Carlo
+    checks), in ``folder``."""
+    text = combinational_demo(folder).read_text(encoding="utf-8")
+    text = text.replace('name = "vellum90_comb_tt"', 'name = "vellum90_mismatch_tt"')
+    text = re.sub(
+        r'^(\[mismatch\]\s*)method = "off"', r'\1method = "linear"\nchecks = 0', text, flags=re.M
+    )
+    path = folder / "vellum90_mismatch.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
 def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dict]:
     """charflow on ``config_path`` in a fresh process, as ``charflow run`` does it (child.py:
     load, characterize, write), timed stage by stage; its statistics and the JSON it wrote."""
@@ -220,6 +259,9 @@ def charflow_run(config_path: Path, jobs: int, out: Path) -> tuple[RunStats, dic
         read_seconds=timed["read_seconds"],
         most_reads=max(timed["cell_reads"].values(), default=0),
         kinds=tuple((k, n, sims) for k, (n, sims) in timed["kinds"].items()),
+        spread=SpreadCost(**timed["spread"], run_simulations=timed["simulations"])
+        if timed["spread"]["points"]
+        else None,
     )
     return stats, doc
 
@@ -392,7 +434,13 @@ def kit_load_seconds(config_path: Path) -> float:
     return time.perf_counter() - start
 
 
-LIBRARIES = ("combinational demo", "level-1 demo", "BSIM demo", "foundry-style kit")
+LIBRARIES = (
+    "combinational demo",
+    "mismatch demo",
+    "level-1 demo",
+    "BSIM demo",
+    "foundry-style kit",
+)
 
 
 SPIN = 3_000_000  # iterations of the busy loop that gauges the cores free for the benchmark
@@ -447,6 +495,8 @@ def run(
                 path = level1_demo(work)
             elif name == "combinational demo":
                 path = combinational_demo(work)
+            elif name == "mismatch demo":
+                path = mismatch_demo(work)
             elif name == "BSIM demo":
                 path = DEMO
             else:
@@ -500,6 +550,8 @@ def render(results: list[LibraryBench]) -> str:
             )
         kinds = "; ".join(f"{k} {n} points, {sims} simulations" for k, n, sims in r.full.kinds)
         lines.append(f"  simulated ({r.full.label}): {kinds}")
+        if r.full.spread is not None:
+            lines.append(_spread_line(r.full.spread))
         naive_all = r.full.points / r.naive.points_per_second
         lines += [
             f"  the naive way on all {r.full.points} points: about {naive_all:.0f} s "
@@ -526,11 +578,33 @@ def render(results: list[LibraryBench]) -> str:
                 lines.append(
                     _target(f"scaling 1 -> 2{what}, {r.name}", value, TARGET_SCALING, ">=")
                 )
+        if r.full.spread is not None:
+            lines.append(
+                _target(
+                    f"sigma tables / nominal run sims, {r.name}",
+                    r.full.spread.ratio,
+                    TARGET_SPREAD_RATIO,
+                    "<=",
+                )
+            )
         peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
         lines.append(
             _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
         )
     return "\n".join(lines)
+
+
+def _spread_line(c: SpreadCost) -> str:
+    """The sigma tables' extra simulations per spread point, per nominal combinational point
+    and against the nominal run's."""
+    return (
+        f"  sigma tables: {c.simulations} simulations on {c.points} spread points "
+        f"({c.simulations / c.points:.1f} a spread point, "
+        f"{c.simulations / c.nominal_points:.2f} a nominal combinational point); "
+        f"{c.simulations / c.nominal_simulations:.2f}x the {c.nominal_simulations} of the "
+        f"{c.nominal_points} nominal combinational points, {c.ratio:.2f}x the {c.nominal_run} "
+        f"of the nominal run; Monte Carlo checks {c.checks} simulations"
+    )
 
 
 def _target(what: str, value: float, target: float, sense: str) -> str:

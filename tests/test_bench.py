@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import ast
+import re
 import shutil
 import subprocess
 import sys
@@ -17,6 +18,7 @@ from charflow.plan import arcs as planning
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
+SPREAD_L1 = ROOT / "tests" / "data" / "spread_l1.toml"
 TINY_GRID = "slew = [0.02, 0.2]\nload = [0.002, 0.02]"
 # The naive way runs one transient per point with charflow's estimated first step, and
 # ngspice's `meas` interpolates linearly between samples as charflow does; charflow may have
@@ -66,6 +68,36 @@ def test_bench_library_on_a_tiny_grid(tmp_path):
     report = speed.render([result])
     assert "tiny" in report and "targets" in report
     assert "testbench reads" in report and "simulated (charflow, 2 workers)" in report
+
+
+def test_bench_reports_the_sigma_tables_cost_on_a_tiny_grid(tmp_path):
+    text = SPREAD_L1.read_text(encoding="utf-8").replace("../../", ROOT.as_posix() + "/")
+    text = re.sub(r"^slew = .*\nload = .*$", TINY_GRID, text, count=1, flags=re.M)
+    path = tmp_path / "tiny_mismatch.toml"
+    path.write_text(text.replace("checks = 1", "checks = 0"), encoding="utf-8")
+    result = speed.bench_library("tiny mismatch", path, jobs=2, naive_points=2, folder=tmp_path)
+    cfg = config.load(path)
+    points = len(planning.plan(cfg).points)
+    for stats in (result.one, result.full):
+        cost = stats.spread
+        assert cost is not None
+        # Every point of a 2 x 2 grid is on the sparse sub-grid; no Monte Carlo checks.
+        assert cost.points == cost.nominal_points == points and cost.checks == 0
+        # A sensitivity point: the point itself and each transistor at +sigma and -sigma
+        # (QINV_P1 2 transistors, QNAND2_P1 4), refinements on top.
+        assert cost.simulations >= 8 * 5 + 16 * 9
+        assert cost.nominal_run + cost.simulations == stats.simulations
+        assert sum(sims for _, _, sims in stats.kinds) == stats.simulations
+    report = speed.render([result])
+    assert "sigma tables: " in report and "sigma tables / nominal run sims" in report
+
+
+def test_mismatch_demo_is_the_combinational_demo_with_linear_sigma(tmp_path):
+    cfg = config.load(speed.mismatch_demo(tmp_path))
+    comb = config.load(speed.combinational_demo(tmp_path))
+    assert [c.name for c in cfg.cells] == [c.name for c in comb.cells]
+    assert (cfg.mismatch.method, cfg.mismatch.checks) == ("linear", 0)
+    assert cfg.mismatch.devices == comb.mismatch.devices
 
 
 def test_level1_demo_is_the_demo_on_level1_models(tmp_path):

@@ -14,7 +14,11 @@ step, retries and the length of a search are counted as the run will meet them:
 - searches: one of each kind (setup, hold, recovery, removal, pulse width), since a search's
   runs are set by its tolerance and by how far its answer lies from where its bracketing walk
   starts (``sequential._bracket``), alike enough for every search of a kind in a cell;
-- toggles: the first of the cell's.
+- toggles: the first of the cell's;
+- spread points (``[mismatch]``): a few sensitivity points (``SAMPLES``) give the runs and the
+  time of one simulation against a point's ``cost``; every spread point, Monte Carlo ones
+  included, is charged its ``cost`` at that rate (a Monte Carlo point's samples are runs of
+  the same point, at the same step, as the sensitivities are), so the plan never runs one.
 
 Each group of points is charged the mean of its samples. The simulations counted are those the
 run's summary counts, leakage included; the functional check, which runs before the sweep, is
@@ -35,15 +39,17 @@ from charflow.measurement import combinational, registry, sequential
 from charflow.measurement.combinational import backend_for, explain, measure_point
 from charflow.plan import arcs as planning
 from charflow.plan.cellwork import function_point, leakage_point, tight_points
+from charflow.plan.spread import spread_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records.errors import CharflowError, MeasurementError
 from charflow.records.outcomes import Failure
-from charflow.records.points import ConstraintPoint, Plan, PulsePoint, TimingPoint
+from charflow.records.points import ConstraintPoint, Plan, PulsePoint, SpreadPoint, TimingPoint
 from charflow.simulation import plausible
 from charflow.simulation.backends import SharedBackend
 from charflow.simulation.netlist import Deck, build_deck
 
 SAMPLES = 3  # sample points per group of many (combinational and clock points)
+TIMING, PROBES = "timing points", "step probes"  # a combinational cell's nominal points
 
 
 @dataclass(frozen=True, slots=True)
@@ -121,6 +127,10 @@ class Estimate:
     def outside(self) -> int:
         return sum(c.outside for c in self.cells)
 
+    def simulations_of(self, kind: str) -> float:
+        """Simulations of one kind of group (``SIGMA_TABLES``, ...) over every cell."""
+        return sum(g.points * g.simulations for c in self.cells for g in c.groups if g.kind == kind)
+
     @property
     def seconds(self) -> float:
         """Estimated wall time of the sweep on ``jobs`` workers."""
@@ -170,6 +180,9 @@ def _cell_costs(config: LibraryConfig, names: list[str], plan: Plan) -> list[Cel
         tight = tight_points(config, points)
         if tight:
             groups += (_sampled(config, deck, "error bars", tight, SAMPLES),)
+        groups += _spread_groups(
+            config, deck, spread_points(config, Plan(plan.arcs, points), {name: len(deck.devices)})
+        )
         costs.append(
             CellCost(name, groups, load, function_point(cell).cost, leakage_point(cell).cost)
         )
@@ -235,14 +248,44 @@ def _combinational_groups(config: LibraryConfig, deck: Deck, points) -> tuple[Gr
             raise explain(config, p, exc) from exc
     per_point = (time.perf_counter() - start) / len(picks)
     probed = series * len(probes)
-    samples = GroupCost(
-        "timing points", len(points) - probed, per_point, runs / len(picks), len(picks)
-    )
+    samples = GroupCost(TIMING, len(points) - probed, per_point, runs / len(picks), len(picks))
     if not probes:
         return (samples,)
     per_probe = sum(m.runs for m in probes) / len(probes)
-    cost = GroupCost("step probes", probed, per_series / len(probes), per_probe, len(probes))
+    cost = GroupCost(PROBES, probed, per_series / len(probes), per_probe, len(probes))
     return (samples, cost)
+
+
+SIGMA_TABLES = "sigma tables"  # the spread points the sigma tables are made of
+MONTE_CARLO_CHECKS = "Monte Carlo checks"  # the linear method's reference points
+
+
+def _spread_groups(
+    config: LibraryConfig, deck: Deck, spread: tuple[SpreadPoint, ...]
+) -> tuple[GroupCost, ...]:
+    """The sigma tables' spread points and the Monte Carlo checks beside them, each charged
+    its points' ``cost`` at the runs per cost and seconds per run of a few sensitivity points
+    (``SAMPLES``) measured here: a Monte Carlo sample is one run of the same point."""
+    if not spread:
+        return ()
+    picks = [SpreadPoint(p.timing, p.devices) for p in _picks(spread, SAMPLES)]
+    start = time.perf_counter()
+    outcomes = _measured(config, deck, picks)
+    seconds = time.perf_counter() - start
+    runs = sum(o.runs for o in outcomes)
+    per_cost = runs / sum(p.cost for p in picks)  # refinements and retries of the step
+    per_run = seconds / runs
+    sampled = all(p.samples for p in spread)  # the sampled method: Monte Carlo tables
+    groups = []
+    for kind, group in (
+        (SIGMA_TABLES, [p for p in spread if bool(p.samples) == sampled]),
+        (MONTE_CARLO_CHECKS, [p for p in spread if bool(p.samples) != sampled]),
+    ):
+        if group:
+            each = per_cost * sum(p.cost for p in group) / len(group)
+            measured = len(picks) if kind == SIGMA_TABLES else 0  # the picks, counted once
+            groups.append(GroupCost(kind, len(group), each * per_run, each, measured))
+    return tuple(groups)
 
 
 _SEARCHES = ("setup", "hold", "recovery", "removal")
@@ -308,6 +351,14 @@ def render(est: Estimate) -> str:
         f"{_duration(est.seconds)} on {est.jobs} worker{'s' * (est.jobs > 1)} (start-up and "
         f"the functional check come on top); measured on {est.samples} sample points"
     )
+    tables, checks = est.simulations_of(SIGMA_TABLES), est.simulations_of(MONTE_CARLO_CHECKS)
+    if tables or checks:
+        nominal = est.simulations_of(TIMING) + est.simulations_of(PROBES)
+        lines.append(
+            f"of them, about {tables:,.0f} for the sigma tables ({tables / nominal:.2f}x the "
+            f"nominal combinational points' {nominal:,.0f}) and {checks:,.0f} for the Monte "
+            "Carlo checks"
+        )
     return "\n".join(lines)
 
 
