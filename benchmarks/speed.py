@@ -281,9 +281,11 @@ def naive_netlist(
         src, node = deck.input_source(pin), deck.input_node(pin)
         pulse = waves[pin].strip("[] ")
         text = re.sub(rf"^{src} .*$", f"{src} {node} 0 pulse({pulse})", text, flags=re.M)
+    # The point's own load and, on a two-output cell's 3D tables, the other output's.
+    loads = combinational.point_loads(cell, point)
     for out in cell.outputs:
         cap, node = deck.load_cap(out.pin), deck.output_node(out.pin)
-        load = point.load if out.pin == point.output else netlist.PARKED_LOAD
+        load = loads.get(out.pin, netlist.PARKED_LOAD)
         text = re.sub(rf"^{cap} .*$", f"{cap} {node} 0 {load:.12g}", text, flags=re.M)
     out_node = deck.output_node(point.output)
     in_node = deck.input_node(point.related)
@@ -386,8 +388,10 @@ def naive_run(
 
 
 def _key(p: TimingPoint) -> tuple:
+    # The other output's load too: without it a two-output cell's points at every other
+    # load would meet one record.
     when = State(p.side, "").when
-    return (p.cell, p.related, p.output, when, p.input_edge, p.slew, p.load)
+    return (p.cell, p.related, p.output, when, p.input_edge, p.slew, p.load, p.other_load)
 
 
 def _records(doc: dict) -> dict[tuple, dict]:
@@ -400,6 +404,7 @@ def _records(doc: dict) -> dict[tuple, dict]:
             r["input_edge"],
             r["slew_s"],
             r["load_F"],
+            r["other_load_F"],
         ): r
         for cell, records in doc["points"].items()
         for r in records

@@ -20,6 +20,17 @@ ROOT = Path(__file__).resolve().parents[1]
 SMALL_L1 = ROOT / "tests" / "data" / "small_l1.toml"
 SPREAD_L1 = ROOT / "tests" / "data" / "spread_l1.toml"
 TINY_GRID = "slew = [0.02, 0.2]\nload = [0.002, 0.02]"
+# A two-output cell (complementary buffer) on 3D tables: its other output's load is an axis.
+TWO_OUTPUTS = f"""
+[[cell]]
+name = "QBUFC_P1"
+template = "{ROOT.as_posix()}/charflow/bundled/templates/cells/bufc.sp.j2"
+params = {{ wn = 0.4e-6, wp = 0.8e-6, l = 0.1e-6 }}
+inputs = ["A"]
+outputs = {{ Y = "A", YB = "!A" }}
+area = 2.0
+grid = {{ related_load = [0.0005, 0.04] }}
+"""
 # The naive way runs one transient per point with charflow's estimated first step, and
 # ngspice's `meas` interpolates linearly between samples as charflow does; charflow may have
 # refined a point's step, or measured a grid corner with its probe's step. Both put at least
@@ -40,18 +51,20 @@ def _tiny(tmp_path: Path) -> Path:
     text = text.replace("../../", ROOT.as_posix() + "/")
     head, _, rest = text.partition("[grid]")
     path = tmp_path / "tiny.toml"
-    path.write_text(f"{head}[grid]\n{TINY_GRID}\n\n[[cell]]{rest.split('[[cell]]', 1)[1]}")
+    cells = rest.split("[[cell]]", 1)[1]
+    path.write_text(f"{head}[grid]\n{TINY_GRID}\n\n[[cell]]{cells}{TWO_OUTPUTS}")
     return path
 
 
 def test_bench_library_on_a_tiny_grid(tmp_path):
     path = _tiny(tmp_path)
-    result = speed.bench_library("tiny", path, jobs=2, naive_points=3, folder=tmp_path)
     cfg = config.load(path)
     points = len(planning.plan(cfg).points)
+    # The naive way on every point: the two-output cell's at each of the other output's loads.
+    result = speed.bench_library("tiny", path, jobs=2, naive_points=points, folder=tmp_path)
     cells = len(cfg.cells)
     assert result.one.points == result.full.points == points
-    assert result.naive.points == 3
+    assert result.naive.points == points
     assert result.agreement < AGREE_RTOL
     for stats in (result.one, result.full):
         assert stats.simulations >= stats.points
