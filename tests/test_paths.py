@@ -173,6 +173,28 @@ def test_replica_of_the_last_stage_is_the_stage(small, tmp_path: Path) -> None:
     assert first.ramp_delay == pytest.approx(first.replica_delay, rel=LADDER_RTOL, abs=0)
 
 
+def test_pin_load_to_the_threshold_times_paths_faster(small, tmp_path: Path) -> None:
+    """``--pin-load threshold`` sums each pin's capacitance up to its delay threshold, a part
+    of the whole edge's (tests/test_timing.py): every net's load is smaller, so every stage's
+    predicted delay is (a table's delay grows with its load, common practice)."""
+    cfg, _, cells = small
+    circuit = _circuit(tmp_path, CHAIN, cfg)
+    setup = paths.Setup((0.05e-9,), ("rise", "fall"), 0.0, 4e-15, paths.TO_THRESHOLD)
+    corr = paths.correlate(cfg, [circuit], cells, setup, jobs=1)
+    assert paths.to_json(cfg, corr)["settings"]["pin_load"] == "threshold"
+    net_loads = paths.loads(circuit, cells, setup.wire, setup.port)
+    assert len(corr.results) == 2
+    for run in corr.results:
+        assert run.failure is None
+        whole = paths.predict(run.path, cells, net_loads, run.slew, run.edge)
+        for s, w in zip(run.stages, whole, strict=True):
+            assert s.predicted.load <= w.load, s.stage.gate
+            assert s.predicted.delay <= w.delay, s.stage.gate
+        assert run.predicted < whole[-1].arrival
+    with pytest.raises(ConfigError, match="unknown pin load"):
+        paths.with_pin_load(cells, "half-edge")
+
+
 BAD_NETLISTS = [
     ("module m (a, y); input a; output y; QXOR u1 (.A(a), .Y(y)); endmodule", "cell QXOR is not"),
     ("module m (a, y); input a; output y; QINV_P1 u1 (.Q(a), .Y(y)); endmodule", "no signal pin Q"),

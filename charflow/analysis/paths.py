@@ -40,13 +40,18 @@ from charflow.records.points import PathPoint, State, TimingPoint, Work
 from charflow.simulation.netlist import Deck
 from charflow.simulation.pathdeck import Replica, build_path_deck, node, replica_node
 from charflow.tables.table import Table, interpolate
-from charflow.tables.tabulate import ArcTables, CellTables
+from charflow.tables.tabulate import ArcTables, CellTables, PinCap
 
 # The transient's cap, in multiples of the tables' prediction of the latest arrival (plus the
 # input ramp): a path the tables get wrong by this much is worth an error, not a number.
 STOP_MARGIN = 4.0
 SAMPLES_PER_EDGE = 40  # the maximum step: the sharpest predicted edge over this
 SINGLE, PER_EDGE = "one number", "per edge"  # how a pin's capacitance is taken
+# Which charge a pin's capacitance is taken from (``Setup.pin_load``): the whole input edge's
+# (the Liberty file's), or the charge up to the input's delay threshold, what a driver has
+# delivered when its delay is measured (``PinCap.rise_to_threshold``).
+WHOLE_EDGE, TO_THRESHOLD = "whole-edge", "threshold"
+PIN_LOADS = (WHOLE_EDGE, TO_THRESHOLD)
 
 
 # --- the circuit: its paths and its loads -----------------------------------------------
@@ -143,6 +148,32 @@ def loads(circuit: Circuit, cells: Mapping[str, CellTables], wire: float, port: 
     )
 
 
+def with_pin_load(cells: Mapping[str, CellTables], which: str) -> Mapping[str, CellTables]:
+    """``cells`` with each pin's capacitance the one ``which`` names (``PIN_LOADS``): the
+    tables' prediction and the replicas' lumped loads then use it."""
+    if which not in PIN_LOADS:
+        raise ConfigError(f"unknown pin load {which!r}; choose one of {', '.join(PIN_LOADS)}")
+    if which == WHOLE_EDGE:
+        return cells
+    return {
+        name: replace(c, pins=tuple(_to_threshold(c, p) for p in c.pins))
+        for name, c in cells.items()
+    }
+
+
+def _to_threshold(cell: CellTables, p: PinCap) -> PinCap:
+    for edge in ("rise", "fall"):
+        if getattr(p, edge) is not None and getattr(p, f"{edge}_to_threshold") is None:
+            raise TableError(
+                f"pin {p.pin} has no {edge} capacitance up to its delay threshold (a "
+                f"flip-flop's pins are not measured that way); time the paths with "
+                f"--pin-load {WHOLE_EDGE}",
+                cell=cell.cell.name,
+                pin=p.pin,
+            )
+    return replace(p, rise=p.rise_to_threshold, fall=p.fall_to_threshold)
+
+
 def pin_cap(cell: CellTables, pin: str, edge: str, mode: str) -> float:
     cap = next(p for p in cell.pins if p.pin == pin)
     value = cap.capacitance if mode == SINGLE else getattr(cap, edge)
@@ -227,6 +258,7 @@ class Setup:
     edges: tuple[str, ...]  # the input port's edges
     wire: float  # F on every net a gate drives
     port: float  # F on every output port
+    pin_load: str = WHOLE_EDGE  # which pin capacitance the loads sum (``PIN_LOADS``)
 
 
 @dataclass(frozen=True, slots=True)
@@ -424,6 +456,7 @@ def correlate(
             f"[input_shape] kind = {shape.kind!r}: its edges are not measured yet; time the "
             "paths with the config the tables were measured with (flow.characterize.with_shape)"
         )
+    cells = with_pin_load(cells, setup.pin_load)
     begin = time.perf_counter()
     prepared, decks = {}, {}
     for circuit in circuits:
@@ -563,6 +596,7 @@ def to_json(config: LibraryConfig, corr: Correlation) -> dict:
             "input_edges": list(st.edges),
             "wire_capacitance_F": st.wire,
             "port_load_F": st.port,
+            "pin_load": st.pin_load,
             "input_shape": config.input_shape.describe(config.cap_unit, config.cap_scale),
             "error": "(value - simulated) / simulated; negative: too fast",
         },
@@ -605,6 +639,14 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     lines = [
         f"paths of {config.name}: {len(corr.results)} path runs in {corr.wall_seconds:.1f} s",
         f"tables' and paths' input waveform: {shape}",
+        *(
+            []
+            if corr.setup.pin_load == WHOLE_EDGE
+            else [
+                "pins' capacitance (predicted, replicas): charge up to the input's delay "
+                "threshold; OpenSTA's: the Liberty file's (whole edge)"
+            ]
+        ),
         f"  {'path':<14} {'st':>2} {'slew':>7} {'edge':<4} {'simulated':>10} {'predicted':>10} "
         f"{'OpenSTA':>10} {'err pred':>9} {'err sta':>9}  ({tu})",
     ]

@@ -78,6 +78,15 @@ def options(p: argparse.ArgumentParser) -> None:
         metavar="C",
         help="load on every output port, in the library's unit (default: the grid's smallest load)",
     )
+    p.add_argument(
+        "--pin-load",
+        choices=("whole-edge", "threshold"),
+        default="whole-edge",
+        help="the pin capacitance the tables' prediction sums on each net: from the charge of "
+        "the whole input edge (the Liberty file's, default) or up to the input's delay "
+        "threshold (the JSON's *_capacitance_to_threshold_F); OpenSTA always reads the "
+        "Liberty file",
+    )
     p.add_argument("--no-sta", action="store_true", help="leave OpenSTA out even if installed")
 
 
@@ -99,7 +108,7 @@ def _setup(cfg: LibraryConfig, args: argparse.Namespace) -> Setup:
     port = grid.load[0] if args.port_load is None else args.port_load * cfg.cap_scale
     if min(slews) <= 0 or port < 0 or args.wire_cap < 0:
         raise ConfigError("--slew must be positive, --port-load and --wire-cap not negative")
-    return paths.Setup(slews, ("rise", "fall"), args.wire_cap * cfg.cap_scale, port)
+    return paths.Setup(slews, ("rise", "fall"), args.wire_cap * cfg.cap_scale, port, args.pin_load)
 
 
 def command(args: argparse.Namespace) -> int:

@@ -74,7 +74,7 @@ from charflow.tables import gaps
 from charflow.tables import power as power_tables
 from charflow.tables import spread as spread_tables
 from charflow.tables.table import Table
-from charflow.tables.tabulate import ArcTables, CellTables, tabulate
+from charflow.tables.tabulate import ArcTables, CellTables, PinCap, tabulate
 
 
 @dataclass(frozen=True, slots=True)
@@ -520,6 +520,7 @@ FILLED_VALUES = (
     "delay_s",
     "transition_s",
     "input_charge_C",
+    "input_charge_to_threshold_C",
     "supply_energy_J",
     "internal_energy_J",
     "value_s",
@@ -673,6 +674,7 @@ def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) ->
                 **_bars(
                     rise_capacitance_error_F=p.rise_error, fall_capacitance_error_F=p.fall_error
                 ),
+                **_to_threshold(p),
             }
             for p in cell.pins
         ],
@@ -774,6 +776,12 @@ def _error_tables(errors: tuple[Table, ...]) -> dict:
     return {"error_tables": [t.to_dict() for t in errors]} if errors else {}
 
 
+def _to_threshold(p: PinCap) -> dict[str, float]:
+    """A pin's capacitance up to its delay threshold, on each edge it was measured on."""
+    values = {"rise": p.rise_to_threshold, "fall": p.fall_to_threshold}
+    return {f"{e}_capacitance_to_threshold_F": v for e, v in values.items() if v is not None}
+
+
 def _bars(**errors: float | None) -> dict[str, float]:
     """The error bars measured (``[error_bars]``), by their JSON keys."""
     return {k: v for k, v in errors.items() if v is not None}
@@ -828,6 +836,7 @@ def _point_record(
         "delay_s": m.delay,
         "transition_s": m.transition,
         "input_charge_C": m.input_charge,
+        "input_charge_to_threshold_C": m.input_charge_to_threshold,
         "supply_energy_J": m.supply_energy,
         "internal_energy_J": m.internal_energy,
         "simulations": m.runs,

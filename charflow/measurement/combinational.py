@@ -255,6 +255,7 @@ def measure_point(
         t_in = single_crossing(t, vin, level, point.input_edge, f"input {point.related}")
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
+    to_threshold = -integral(t, result.vectors[in_branch], ramp.start, t_in)
     current = -result.vectors[supply]
     static = (float(current[0]), static_current(config, deck, after))
     energy = supply_energy(t, current, vdd, t_in, static)
@@ -271,6 +272,7 @@ def measure_point(
         sim_seconds=edge.seconds,
         stopped=float(t[-1]),
         stop_cap=stop,
+        input_charge_to_threshold=to_threshold,
     )
 
 
@@ -420,11 +422,35 @@ def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[s
         entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
         for pin, edge, charge in entries:
             groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
+    return {key: _smallest_load_mean(group) / vdd for key, group in groups.items()}
+
+
+def pin_capacitance_to_threshold(
+    measurements: list[Measurement], thresholds: Thresholds, vdd: float
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the charge the pin drew from the edge's start to its delay-threshold
+    crossing over the swing to that crossing, at the smallest load, averaged as in
+    ``pin_capacitance``: the capacitance a driver has charged when its own delay is measured
+    (a plain capacitor's is its C). Only points that measured the charge count (a flip-flop's
+    do not): a pin and edge with none is left out."""
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
+    for m in measurements:
+        if m.input_charge_to_threshold is None:
+            continue
+        key = (m.point.related, m.point.input_edge)
+        groups.setdefault(key, []).append((m.point.load, abs(m.input_charge_to_threshold)))
     caps = {}
-    for key, group in groups.items():
-        smallest = min(load for load, _ in group)
-        caps[key] = float(np.mean([q for load, q in group if load == smallest])) / vdd
+    for (pin, edge), group in groups.items():
+        level = thresholds.delay_input(edge)
+        swing = (level if edge == "rise" else 1.0 - level) * vdd
+        caps[(pin, edge)] = _smallest_load_mean(group) / swing
     return caps
+
+
+def _smallest_load_mean(group: list[tuple[float, float]]) -> float:
+    """The mean charge of the (load, charge) pairs at the smallest load."""
+    smallest = min(load for load, _ in group)
+    return float(np.mean([q for load, q in group if load == smallest]))
 
 
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),

@@ -71,6 +71,10 @@ class Measurement:
     # (pin, edge, C) drawn by other inputs that moved in the run: a flip-flop's data pins
     side_charges: tuple[tuple[str, str, float], ...] = ()
     stop_cap: float | None = None  # s, the time the last run could not go past; None: not run
+    # C drawn from the input source from the edge's start to the input's delay-threshold
+    # crossing: the charge a driver has delivered when its delay is measured. None: not
+    # measured (a flip-flop's point, a record stored before it was)
+    input_charge_to_threshold: float | None = None
 
 
 @dataclass(frozen=True, slots=True)

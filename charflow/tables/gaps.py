@@ -176,6 +176,9 @@ def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
         supply_energy=_mix_known([s.supply_energy for s in measured], weights),
         internal_energy=_mix_known([s.internal_energy for s in measured], weights),
         side_charges=tuple(side),
+        input_charge_to_threshold=_mix_known(
+            [s.input_charge_to_threshold for s in measured], weights
+        ),
     )
 
 

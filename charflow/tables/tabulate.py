@@ -14,7 +14,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.measurement.combinational import pin_capacitance
+from charflow.measurement.combinational import pin_capacitance, pin_capacitance_to_threshold
 from charflow.records.errors import TableError, place
 from charflow.records.names import delay_quantity, transition_quantity
 from charflow.records.outcomes import Measurement, Outcome, SearchResult, TightMeasurement
@@ -61,6 +61,10 @@ class PinCap:
     fall: float | None  # F
     rise_error: float | None = None  # F, error bars (``[error_bars]``); None: not measured
     fall_error: float | None = None
+    # F, the capacitance up to the input's delay threshold (``pin_capacitance_to_threshold``);
+    # None: not measured. JSON only: the Liberty file keeps the whole edge's.
+    rise_to_threshold: float | None = None
+    fall_to_threshold: float | None = None
 
     @property
     def capacitance(self) -> float | None:
@@ -255,7 +259,15 @@ def _pin_caps(
     comes from was measured at tightened settings too."""
     vdd = config.process.vdd
     caps = pin_capacitance(measured, vdd)
-    pins = tuple(_pin_cap(cell.name, p, caps) for p in cell.inputs)
+    to_thr = pin_capacitance_to_threshold(measured, config.thresholds, vdd)
+    pins = tuple(
+        replace(
+            _pin_cap(cell.name, p, caps),
+            rise_to_threshold=to_thr.get((p, "rise")),
+            fall_to_threshold=to_thr.get((p, "fall")),
+        )
+        for p in cell.inputs
+    )
     if not measured or not all(m.point in bars for m in measured):
         return pins
     tight = [replace(m, input_charge=bars[m.point].input_charge) for m in measured]
