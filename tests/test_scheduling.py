@@ -139,3 +139,41 @@ def test_a_worker_steals_only_where_the_read_costs_less_than_the_help_saves():
     _done(queue, 1, queue.take(1), reads=0, seconds=1.0)
     assert queue.take(2) is None
     assert queue.take(2, force=True)[0].cell == "A"
+
+
+# A pool the driver knows from earlier sweeps, whose worker has since been replaced (loky stops
+# a worker after its idle timeout): every testbench is held by a process that is gone, and
+# reading one is not worth the help. The sweep must still end (it once offered the last chunk
+# to the gone worker for ever, filling the pool's wake-up pipe until the driver blocked).
+STALE = """\
+import sys
+from joblib.executor import get_memmapping_executor
+from charflow.config import library as config
+from charflow.execution import workers
+from charflow.execution.store import Store
+from charflow.flow import characterize as flow
+from charflow.simulation.netlist import build_deck
+cfg = config.load(sys.argv[1])
+keys = {build_deck(cfg, c).key for c in cfg.cells}
+executor = get_memmapping_executor(1)
+gone = 2**22 + 12345  # a process id no worker has
+workers._POOL = workers._Pool(
+    id(executor), {gone: set(keys)}, {k: 100.0 for k in keys}, {k: 1e-9 for k in keys}
+)
+with Store(sys.argv[2]) as store:
+    result = flow.characterize(cfg, jobs=1, store=store)
+print(len(result.failures), len(result.measurements))
+"""
+
+
+def test_a_sweep_ends_when_the_known_worker_is_gone(tmp_path: Path) -> None:
+    done = subprocess.run(
+        [sys.executable, "-c", STALE, str(SMALL), str(tmp_path / "store.sqlite")],
+        capture_output=True,
+        text=True,
+        timeout=RUN_TIMEOUT,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr
+    failures, measured = map(int, done.stdout.split())
+    assert failures == 0 and measured > 0

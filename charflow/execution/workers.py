@@ -101,16 +101,25 @@ Offer = tuple[int | None, Deck, tuple[Work, ...]]
 
 
 def _offered(
-    config: LibraryConfig, offers: tuple[Offer, ...], journals: list[str], known: frozenset[int]
+    config: LibraryConfig,
+    offers: tuple[Offer, ...],
+    journals: list[str],
+    known: frozenset[int] | None,
 ) -> Done:
     """A worker's task: the chunk offered to this process, else, to a process the driver does
     not know yet, the one offered to any (journalled in that offer's file). A known worker
-    offered nothing (no chunk worth its read) returns at once (``Done.chosen`` None)."""
+    offered nothing (no chunk worth its read) returns at once (``Done.chosen`` None), unless
+    ``known`` is None (a forced task): then it takes the first chunk, whoever it was meant for
+    (the driver's knowledge may name a worker the pool has since replaced, e.g. one that
+    stopped after its idle timeout; offering the last chunk to it for ever would spin)."""
     pid = os.getpid()
-    for want in (pid, None) if pid not in known else (pid,):
+    wants = (pid, None) if known is None or pid not in known else (pid,)
+    for want in wants:
         for i, (to, deck, points) in enumerate(offers):
             if to == want:
                 return replace(_work(config, deck, points, journals[i]), chosen=i)
+    if known is None and offers:
+        return replace(_work(config, offers[0][1], offers[0][2], journals[0]), chosen=0)
     return Done([], pid, 0, 0.0, 0.0, None)
 
 
@@ -374,7 +383,7 @@ def _run_round(
                 os.path.join(scratch, f"{round_}-{len(futures)}-{i}-{time.monotonic_ns()}")
                 for i in range(len(offers))
             ]
-            known = frozenset(queue.held)
+            known = None if force else frozenset(queue.held)
             futures[executor.submit(_offered, config, offers, paths, known)] = (offers, paths)
 
     for _ in range(AHEAD * jobs):
