@@ -379,7 +379,23 @@ def test_json_has_the_same_tables_and_points(run: Characterized) -> None:
     for cell, jcell in zip(result.cells, doc["cells"], strict=True):
         assert jcell["outputs"] == {o.pin: o.function.to_liberty() for o in cell.cell.outputs}
         assert jcell["inputs"] == [
-            {"pin": p.pin, "rise_capacitance_F": p.rise, "fall_capacitance_F": p.fall}
+            {
+                "pin": p.pin,
+                "rise_capacitance_F": p.rise,
+                "fall_capacitance_F": p.fall,
+                # A combinational pin's capacitance up to its delay threshold, beside the
+                # whole edge's (the JSON only; ``charflow paths --pin-load threshold``).
+                **(
+                    {}
+                    if p.rise_to_threshold is None
+                    else {"rise_capacitance_to_threshold_F": p.rise_to_threshold}
+                ),
+                **(
+                    {}
+                    if p.fall_to_threshold is None
+                    else {"fall_capacitance_to_threshold_F": p.fall_to_threshold}
+                ),
+            }
             for p in cell.pins
         ]
         for arc, jarc in zip(cell.arcs, jcell["arcs"], strict=True):
