@@ -395,6 +395,17 @@ def test_json_has_the_same_tables_and_points(run: Characterized) -> None:
                     if p.fall_to_threshold is None
                     else {"fall_capacitance_to_threshold_F": p.fall_to_threshold}
                 ),
+                # And between its input's slew thresholds (``--pin-load split``).
+                **(
+                    {}
+                    if p.rise_slew_window is None
+                    else {"rise_capacitance_slew_window_F": p.rise_slew_window}
+                ),
+                **(
+                    {}
+                    if p.fall_slew_window is None
+                    else {"fall_capacitance_slew_window_F": p.fall_slew_window}
+                ),
             }
             for p in cell.pins
         ]

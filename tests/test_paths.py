@@ -14,6 +14,7 @@ from __future__ import annotations
 import json
 import re
 import shutil
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -27,7 +28,7 @@ from charflow.config import library as config
 from charflow.config.resources import DEMO_CONFIG, MODEL_DIR
 from charflow.flow import characterize as flow
 from charflow.io import liberty, verilog
-from charflow.records.errors import ConfigError, NetlistError
+from charflow.records.errors import ConfigError, NetlistError, TableError
 from charflow.simulation import stimulus
 
 DATA = Path(__file__).resolve().parent / "data"
@@ -193,6 +194,77 @@ def test_pin_load_to_the_threshold_times_paths_faster(small, tmp_path: Path) -> 
         assert run.predicted < whole[-1].arrival
     with pytest.raises(ConfigError, match="unknown pin load"):
         paths.with_pin_load(cells, "half-edge")
+
+
+def test_pin_load_split_looks_delay_and_slew_up_at_their_own_loads(small, tmp_path: Path) -> None:
+    """``--pin-load split``: each stage's delay is looked up at the pins' capacitance up to
+    their delay threshold, its output slew at their capacitance between the slew thresholds
+    (a receiver's capacitance before and after its threshold, the two-capacitance receiver idea
+    of the Liberty CCS receiver model; Synopsys, Liberty User Guides and Reference Manual,
+    "receiver_capacitance1_rise/2_rise", open standard), each bilinearly interpolated in its
+    table (common practice); the path stays within PATH_RTOL of the whole path simulated."""
+    cfg, _, cells = small
+    circuit = _circuit(tmp_path, CHAIN, cfg)
+    setup = paths.Setup((0.05e-9,), ("rise", "fall"), 0.0, 4e-15, paths.SPLIT)
+    corr = paths.correlate(cfg, [circuit], cells, setup, jobs=1)
+    doc = paths.to_json(cfg, corr)
+    assert doc["settings"]["pin_load"] == "split"
+    pins = {(c, p.pin): p for c, t in cells.items() for p in t.pins}
+    net_loads = paths.loads(circuit, cells, setup.wire, setup.port)
+    assert len(corr.results) == 2
+    for run, jrun in zip(corr.results, doc["paths"], strict=True):
+        assert run.failure is None
+        assert abs(run.error(run.predicted)) < PATH_RTOL
+        for s, record in zip(run.stages, jrun["per_stage"], strict=True):
+            t = s.predicted
+            on_net = net_loads.pins.get(s.stage.net_out, ())
+            port = net_loads.port.get(s.stage.net_out, 0.0)
+            edge = t.output_edge
+            first = sum(getattr(pins[c, p], f"{edge}_to_threshold") for _, c, p in on_net)
+            second = sum(getattr(pins[c, p], f"{edge}_slew_window") for _, c, p in on_net)
+            assert t.load == pytest.approx(port + first, rel=1e-12), s.stage.gate
+            assert t.slew_load == pytest.approx(port + second, rel=1e-12), s.stage.gate
+            delay_t, slew_t = paths.stage_tables(cells[s.stage.cell], s.stage, edge)
+            assert t.delay == pytest.approx(_bilinear(delay_t, t.slew_in, t.load), rel=1e-9)
+            assert t.slew_out == pytest.approx(_bilinear(slew_t, t.slew_in, t.slew_load), rel=1e-9)
+            assert record["slew_load_F"] == t.slew_load
+
+
+def _bilinear(table, x: float, y: float) -> float:
+    """The table's value at (x, y) by bilinear interpolation in the cell around it, written
+    out (Press et al., *Numerical Recipes*, 3rd ed., 2007, section 3.6)."""
+    xs, ys = (np.asarray(a.values) for a in table.axes)
+    values = np.asarray(table.values)
+    i = int(np.clip(np.searchsorted(xs, x) - 1, 0, len(xs) - 2))
+    j = int(np.clip(np.searchsorted(ys, y) - 1, 0, len(ys) - 2))
+    u = (x - xs[i]) / (xs[i + 1] - xs[i])
+    v = (y - ys[j]) / (ys[j + 1] - ys[j])
+    return float(
+        (1 - u) * (1 - v) * values[i, j]
+        + u * (1 - v) * values[i + 1, j]
+        + (1 - u) * v * values[i, j + 1]
+        + u * v * values[i + 1, j + 1]
+    )
+
+
+def test_pin_load_errors_name_the_mode_cell_and_pin(small) -> None:
+    """An unknown pin load, and a pin without the capacitance a mode needs (a flip-flop's are
+    not measured in windows), are errors that say what to change."""
+    _, _, cells = small
+    with pytest.raises(ConfigError, match="unknown pin load 'half-edge'; choose one of"):
+        paths.with_pin_load(cells, "half-edge", paths.SLEW)
+    name = next(iter(cells))
+    bare = replace(
+        cells[name], pins=tuple(replace(p, rise_slew_window=None) for p in cells[name].pins)
+    )
+    with pytest.raises(TableError, match="between its slew thresholds") as info:
+        paths.with_pin_load({name: bare}, paths.SPLIT, paths.SLEW)
+    assert info.value.context["cell"] == name
+    # The delay's capacitance (up to the threshold) is there: only the slew's lookup fails.
+    delay_pins = paths.with_pin_load({name: bare}, paths.SPLIT)[name].pins
+    assert [(p.rise, p.fall) for p in delay_pins] == [
+        (p.rise_to_threshold, p.fall_to_threshold) for p in bare.pins
+    ]
 
 
 BAD_NETLISTS = [

@@ -48,10 +48,26 @@ STOP_MARGIN = 4.0
 SAMPLES_PER_EDGE = 40  # the maximum step: the sharpest predicted edge over this
 SINGLE, PER_EDGE = "one number", "per edge"  # how a pin's capacitance is taken
 # Which charge a pin's capacitance is taken from (``Setup.pin_load``): the whole input edge's
-# (the Liberty file's), or the charge up to the input's delay threshold, what a driver has
-# delivered when its delay is measured (``PinCap.rise_to_threshold``).
-WHOLE_EDGE, TO_THRESHOLD = "whole-edge", "threshold"
-PIN_LOADS = (WHOLE_EDGE, TO_THRESHOLD)
+# (the Liberty file's); the charge up to the input's delay threshold, what a driver has
+# delivered when its delay is measured (``PinCap.rise_to_threshold``); the charge between the
+# input's slew thresholds, what it delivers while its output slew is measured
+# (``PinCap.rise_slew_window``); or ``split``: a stage's delay looked up at the first, its
+# output slew at the second (a receiver's capacitance before and after the delay threshold).
+WHOLE_EDGE, TO_THRESHOLD, SLEW_WINDOW, SPLIT = "whole-edge", "threshold", "slew-window", "split"
+DELAY, SLEW = 0, 1  # which lookup a capacitance serves
+# pin load -> the PinCap fields' suffix (of ``rise``/``fall``) for the delay and for the slew
+PIN_LOADS = {
+    WHOLE_EDGE: ("", ""),
+    TO_THRESHOLD: ("_to_threshold", "_to_threshold"),
+    SLEW_WINDOW: ("_slew_window", "_slew_window"),
+    SPLIT: ("_to_threshold", "_slew_window"),
+}
+_WINDOW_NAMES = {
+    "": "over the whole edge",
+    "_to_threshold": "up to its delay threshold",
+    "_slew_window": "between its slew thresholds",
+}
+_Cells = Mapping[str, CellTables]
 
 
 # --- the circuit: its paths and its loads -----------------------------------------------
@@ -148,30 +164,34 @@ def loads(circuit: Circuit, cells: Mapping[str, CellTables], wire: float, port: 
     )
 
 
-def with_pin_load(cells: Mapping[str, CellTables], which: str) -> Mapping[str, CellTables]:
-    """``cells`` with each pin's capacitance the one ``which`` names (``PIN_LOADS``): the
-    tables' prediction and the replicas' lumped loads then use it."""
+def with_pin_load(
+    cells: Mapping[str, CellTables], which: str, use: int = DELAY
+) -> Mapping[str, CellTables]:
+    """``cells`` with each pin's capacitance the one ``which`` names (``PIN_LOADS``) for the
+    lookup ``use`` (``DELAY``: the tables' delay and the replicas' lumped loads; ``SLEW``: the
+    output slew handed to the next stage)."""
     if which not in PIN_LOADS:
         raise ConfigError(f"unknown pin load {which!r}; choose one of {', '.join(PIN_LOADS)}")
-    if which == WHOLE_EDGE:
+    suffix = PIN_LOADS[which][use]
+    if not suffix:
         return cells
     return {
-        name: replace(c, pins=tuple(_to_threshold(c, p) for p in c.pins))
+        name: replace(c, pins=tuple(_windowed(c, p, suffix) for p in c.pins))
         for name, c in cells.items()
     }
 
 
-def _to_threshold(cell: CellTables, p: PinCap) -> PinCap:
+def _windowed(cell: CellTables, p: PinCap, suffix: str) -> PinCap:
     for edge in ("rise", "fall"):
-        if getattr(p, edge) is not None and getattr(p, f"{edge}_to_threshold") is None:
+        if getattr(p, edge) is not None and getattr(p, f"{edge}{suffix}") is None:
             raise TableError(
-                f"pin {p.pin} has no {edge} capacitance up to its delay threshold (a "
+                f"pin {p.pin} has no {edge} capacitance {_WINDOW_NAMES[suffix]} (a "
                 f"flip-flop's pins are not measured that way); time the paths with "
                 f"--pin-load {WHOLE_EDGE}",
                 cell=cell.cell.name,
                 pin=p.pin,
             )
-    return replace(p, rise=p.rise_to_threshold, fall=p.fall_to_threshold)
+    return replace(p, rise=getattr(p, f"rise{suffix}"), fall=getattr(p, f"fall{suffix}"))
 
 
 def pin_cap(cell: CellTables, pin: str, edge: str, mode: str) -> float:
@@ -191,12 +211,13 @@ class StageTiming:
 
     input_edge: str
     output_edge: str
-    load: float
+    load: float  # the delay's
     slew_in: float
     delay: float
     slew_out: float
     arrival: float
     inside: bool  # slew and load within the table's grid (no extrapolation)
+    slew_load: float  # the output slew's (``load`` but with ``--pin-load split``)
 
 
 def stage_tables(cell: CellTables, stage: Stage, output_edge: str) -> tuple[Table, Table]:
@@ -230,21 +251,26 @@ def predict(
     slew: float,
     edge: str,
     mode: str = PER_EDGE,
+    slew_cells: Mapping[str, CellTables] | None = None,
 ) -> tuple[StageTiming, ...]:
-    """The path timed from the tables, slew propagated stage by stage."""
+    """The path timed from the tables, slew propagated stage by stage; each output slew
+    looked up at the load of ``slew_cells``' pin capacitances (default ``cells``')."""
     out, arrival = [], 0.0
     for stage, (edge_in, edge_out) in zip(path.stages, walk(path, cells, edge), strict=True):
         cell = cells[stage.cell]
         delay_t, slew_t = stage_tables(cell, stage, edge_out)
         load = net_loads.total(stage.net_out, edge_out, cells, mode)
+        slew_load = net_loads.total(stage.net_out, edge_out, slew_cells or cells, mode)
         at = [(slew, load)]
         d = float(interpolate(delay_t, at)[0])
-        s = float(interpolate(slew_t, at)[0])
+        s = float(interpolate(slew_t, [(slew, slew_load)])[0])
         inside = all(
-            a.values[0] <= x <= a.values[-1] for a, x in zip(delay_t.axes, at[0], strict=True)
+            a.values[0] <= x <= a.values[-1]
+            for at_load in (load, slew_load)
+            for a, x in zip(delay_t.axes, (slew, at_load), strict=True)
         )
         arrival += d
-        out.append(StageTiming(edge_in, edge_out, load, slew, d, s, arrival, inside))
+        out.append(StageTiming(edge_in, edge_out, load, slew, d, s, arrival, inside, slew_load))
         slew = s
     return tuple(out)
 
@@ -299,12 +325,14 @@ def _prepare(
     return _Circuit(circuit, paths, net_loads, replicas), deck
 
 
-def _point(c: _Circuit, cells: Mapping[str, CellTables], slew: float, edge: str) -> PathPoint:
+def _point(
+    c: _Circuit, cells: Mapping[str, CellTables], slew: float, edge: str, slew_cells: _Cells
+) -> PathPoint:
     """The circuit's run for one input slew and edge: every path's nets and replicas."""
     nodes = {node(c.circuit.start): edge}
     latest, sharpest = slew, slew
     for path in c.paths:
-        timed = predict(path, cells, c.loads, slew, edge)
+        timed = predict(path, cells, c.loads, slew, edge, slew_cells=slew_cells)
         for stage, t in zip(path.stages, timed, strict=True):
             nodes[node(stage.net_out)] = t.output_edge
             nodes[replica_node(c.replicas[(stage.gate, t.input_edge)].name)] = t.output_edge
@@ -412,9 +440,10 @@ def _result(
     p: PathPoint,
     sims: Sequence[tuple[float, ...]],
     ramps: Mapping[Work, Outcome],
+    slew_cells: _Cells,
 ) -> PathResult:
-    pred = predict(path, cells, c.loads, p.slew, p.input_edge)
-    single = predict(path, cells, c.loads, p.slew, p.input_edge, SINGLE)
+    pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
+    single = predict(path, cells, c.loads, p.slew, p.input_edge, SINGLE, slew_cells)
     stages = []
     for stage, t, one, sim in zip(path.stages, pred, single, sims, strict=True):
         delay, slew_in, slew_out, arrival, replica = sim
@@ -456,13 +485,17 @@ def correlate(
             f"[input_shape] kind = {shape.kind!r}: its edges are not measured yet; time the "
             "paths with the config the tables were measured with (flow.characterize.with_shape)"
         )
+    slew_cells = with_pin_load(cells, setup.pin_load, SLEW)
     cells = with_pin_load(cells, setup.pin_load)
     begin = time.perf_counter()
     prepared, decks = {}, {}
     for circuit in circuits:
         prepared[circuit.name], decks[circuit.name] = _prepare(config, circuit, cells, setup)
     points = [
-        _point(c, cells, s, e) for c in prepared.values() for s in setup.slews for e in setup.edges
+        _point(c, cells, s, e, slew_cells)
+        for c in prepared.values()
+        for s in setup.slews
+        for e in setup.edges
     ]
     if on_start is not None:
         on_start(sweep.work(points))
@@ -478,14 +511,14 @@ def correlate(
                 failed.append(PathResult(path, p.slew, p.input_edge, (), reason))
                 continue
             sims = _stage_sims(o, c, path)
-            pred = predict(path, cells, c.loads, p.slew, p.input_edge)
+            pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
             ramp_points += [
                 _ramp_point(st, t, s[1]) for st, t, s in zip(path.stages, pred, sims, strict=True)
             ]
             measured.append((path, c, p, sims))
     unique = list(dict.fromkeys(ramp_points))
     ramps = {o.point: o for o in sweep.run(config, unique, jobs=jobs)}
-    results = [_result(path, c, cells, p, sims, ramps) for path, c, p, sims in measured]
+    results = [_result(path, c, cells, p, sims, ramps, slew_cells) for path, c, p, sims in measured]
     simulations = sum(
         o.runs for o in (*runs.values(), *ramps.values()) if not isinstance(o, Failure)
     )
@@ -567,6 +600,7 @@ def _stage_record(s: StageResult) -> dict:
         "input_edge": p.input_edge,
         "output_edge": p.output_edge,
         "load_F": p.load,
+        "slew_load_F": p.slew_load,
         "inside_grid": p.inside,
         "delay_s": {
             "simulated": s.sim_delay,
@@ -632,6 +666,12 @@ def _pct(x: float | None) -> str:
     return "-" if x is None else f"{x * 100:+.2f} %"
 
 
+def _pin_load_line(which: str) -> str:
+    delay, slew = (_WINDOW_NAMES[s].replace("its", "the input's") for s in PIN_LOADS[which])
+    charge = delay if delay == slew else f"{delay} (delay, replicas), {slew} (output slew)"
+    return f"pins' capacitance: charge {charge}; OpenSTA's: the Liberty file's"
+
+
 def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     """The terminal table: one line per path run, then the spread and the stage effects."""
     t, tu = config.time_scale, config.time_unit
@@ -639,14 +679,7 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     lines = [
         f"paths of {config.name}: {len(corr.results)} path runs in {corr.wall_seconds:.1f} s",
         f"tables' and paths' input waveform: {shape}",
-        *(
-            []
-            if corr.setup.pin_load == WHOLE_EDGE
-            else [
-                "pins' capacitance (predicted, replicas): charge up to the input's delay "
-                "threshold; OpenSTA's: the Liberty file's (whole edge)"
-            ]
-        ),
+        *([] if corr.setup.pin_load == WHOLE_EDGE else [_pin_load_line(corr.setup.pin_load)]),
         f"  {'path':<14} {'st':>2} {'slew':>7} {'edge':<4} {'simulated':>10} {'predicted':>10} "
         f"{'OpenSTA':>10} {'err pred':>9} {'err sta':>9}  ({tu})",
     ]

@@ -80,12 +80,13 @@ def options(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--pin-load",
-        choices=("whole-edge", "threshold"),
+        choices=("whole-edge", "threshold", "slew-window", "split"),
         default="whole-edge",
         help="the pin capacitance the tables' prediction sums on each net: from the charge of "
-        "the whole input edge (the Liberty file's, default) or up to the input's delay "
-        "threshold (the JSON's *_capacitance_to_threshold_F); OpenSTA always reads the "
-        "Liberty file",
+        "the whole input edge (the Liberty file's, default), up to the input's delay "
+        "threshold (the JSON's *_capacitance_to_threshold_F), between its slew thresholds "
+        "(*_capacitance_slew_window_F), or split: delays at the first, output slews at the "
+        "second; OpenSTA always reads the Liberty file",
     )
     p.add_argument("--no-sta", action="store_true", help="leave OpenSTA out even if installed")
 

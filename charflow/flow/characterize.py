@@ -521,6 +521,7 @@ FILLED_VALUES = (
     "transition_s",
     "input_charge_C",
     "input_charge_to_threshold_C",
+    "input_charge_slew_window_C",
     "supply_energy_J",
     "internal_energy_J",
     "value_s",
@@ -675,6 +676,7 @@ def _cell_record(cell: CellTables, cell_power: power_tables.CellPower | None) ->
                     rise_capacitance_error_F=p.rise_error, fall_capacitance_error_F=p.fall_error
                 ),
                 **_to_threshold(p),
+                **_slew_window(p),
             }
             for p in cell.pins
         ],
@@ -782,6 +784,12 @@ def _to_threshold(p: PinCap) -> dict[str, float]:
     return {f"{e}_capacitance_to_threshold_F": v for e, v in values.items() if v is not None}
 
 
+def _slew_window(p: PinCap) -> dict[str, float]:
+    """A pin's capacitance between its input's slew thresholds, on each edge measured."""
+    values = {"rise": p.rise_slew_window, "fall": p.fall_slew_window}
+    return {f"{e}_capacitance_slew_window_F": v for e, v in values.items() if v is not None}
+
+
 def _bars(**errors: float | None) -> dict[str, float]:
     """The error bars measured (``[error_bars]``), by their JSON keys."""
     return {k: v for k, v in errors.items() if v is not None}
@@ -837,6 +845,7 @@ def _point_record(
         "transition_s": m.transition,
         "input_charge_C": m.input_charge,
         "input_charge_to_threshold_C": m.input_charge_to_threshold,
+        "input_charge_slew_window_C": m.input_charge_slew_window,
         "supply_energy_J": m.supply_energy,
         "internal_energy_J": m.internal_energy,
         "simulations": m.runs,

@@ -253,9 +253,14 @@ def measure_point(
     with edge.saved:
         level = thr.delay_input(point.input_edge) * vdd
         t_in = single_crossing(t, vin, level, point.input_edge, f"input {point.related}")
+        t_band = [
+            single_crossing(t, vin, f * vdd, point.input_edge, f"input {point.related}")
+            for f in thr.slew_band(point.input_edge)
+        ]
     # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
     charge = -integral(t, result.vectors[in_branch], ramp.start)
     to_threshold = -integral(t, result.vectors[in_branch], ramp.start, t_in)
+    slew_window = -integral(t, result.vectors[in_branch], min(t_band), max(t_band))
     current = -result.vectors[supply]
     static = (float(current[0]), static_current(config, deck, after))
     energy = supply_energy(t, current, vdd, t_in, static)
@@ -273,6 +278,7 @@ def measure_point(
         stopped=float(t[-1]),
         stop_cap=stop,
         input_charge_to_threshold=to_threshold,
+        input_charge_slew_window=slew_window,
     )
 
 
@@ -433,18 +439,39 @@ def pin_capacitance_to_threshold(
     ``pin_capacitance``: the capacitance a driver has charged when its own delay is measured
     (a plain capacitor's is its C). Only points that measured the charge count (a flip-flop's
     do not): a pin and edge with none is left out."""
-    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
-    for m in measurements:
-        if m.input_charge_to_threshold is None:
-            continue
-        key = (m.point.related, m.point.input_edge)
-        groups.setdefault(key, []).append((m.point.load, abs(m.input_charge_to_threshold)))
-    caps = {}
-    for (pin, edge), group in groups.items():
+
+    def swing(edge: str) -> float:
         level = thresholds.delay_input(edge)
-        swing = (level if edge == "rise" else 1.0 - level) * vdd
-        caps[(pin, edge)] = _smallest_load_mean(group) / swing
-    return caps
+        return (level if edge == "rise" else 1.0 - level) * vdd
+
+    return _windowed([(m, m.input_charge_to_threshold) for m in measurements], swing)
+
+
+def pin_capacitance_slew_window(
+    measurements: list[Measurement], thresholds: Thresholds, vdd: float
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the charge the pin drew between its input's two slew-threshold
+    crossings over the voltage between them, at the smallest load, averaged as in
+    ``pin_capacitance``: the capacitance a driver charges while its own output slew is measured
+    (a plain capacitor's is its C). Pins and edges without the charge are left out."""
+
+    def swing(edge: str) -> float:
+        lower, upper = thresholds.slew_band(edge)
+        return (upper - lower) * vdd
+
+    return _windowed([(m, m.input_charge_slew_window) for m in measurements], swing)
+
+
+def _windowed(
+    charges: list[tuple[Measurement, float | None]], swing: Callable[[str], float]
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the mean charge at the smallest load over ``swing(edge)`` (V)."""
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
+    for m, charge in charges:
+        if charge is not None:
+            key = (m.point.related, m.point.input_edge)
+            groups.setdefault(key, []).append((m.point.load, abs(charge)))
+    return {(pin, e): _smallest_load_mean(g) / swing(e) for (pin, e), g in groups.items()}
 
 
 def _smallest_load_mean(group: list[tuple[float, float]]) -> float:

@@ -75,6 +75,9 @@ class Measurement:
     # crossing: the charge a driver has delivered when its delay is measured. None: not
     # measured (a flip-flop's point, a record stored before it was)
     input_charge_to_threshold: float | None = None
+    # C drawn between the input's two slew-threshold crossings: the charge a driver delivers
+    # while its own output slew is measured. None: not measured (as above)
+    input_charge_slew_window: float | None = None
 
 
 @dataclass(frozen=True, slots=True)

@@ -179,6 +179,9 @@ def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
         input_charge_to_threshold=_mix_known(
             [s.input_charge_to_threshold for s in measured], weights
         ),
+        input_charge_slew_window=_mix_known(
+            [s.input_charge_slew_window for s in measured], weights
+        ),
     )
 
 

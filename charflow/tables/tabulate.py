@@ -14,7 +14,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
-from charflow.measurement.combinational import pin_capacitance, pin_capacitance_to_threshold
+from charflow.measurement.combinational import (
+    pin_capacitance,
+    pin_capacitance_slew_window,
+    pin_capacitance_to_threshold,
+)
 from charflow.records.errors import TableError, place
 from charflow.records.names import delay_quantity, transition_quantity
 from charflow.records.outcomes import Measurement, Outcome, SearchResult, TightMeasurement
@@ -65,6 +69,10 @@ class PinCap:
     # None: not measured. JSON only: the Liberty file keeps the whole edge's.
     rise_to_threshold: float | None = None
     fall_to_threshold: float | None = None
+    # F, the capacitance between the input's slew thresholds (``pin_capacitance_slew_window``);
+    # None: not measured. JSON only, unless ``[library] pin_capacitance`` picks it.
+    rise_slew_window: float | None = None
+    fall_slew_window: float | None = None
 
     @property
     def capacitance(self) -> float | None:
@@ -260,11 +268,14 @@ def _pin_caps(
     vdd = config.process.vdd
     caps = pin_capacitance(measured, vdd)
     to_thr = pin_capacitance_to_threshold(measured, config.thresholds, vdd)
+    window = pin_capacitance_slew_window(measured, config.thresholds, vdd)
     pins = tuple(
         replace(
             _pin_cap(cell.name, p, caps),
             rise_to_threshold=to_thr.get((p, "rise")),
             fall_to_threshold=to_thr.get((p, "fall")),
+            rise_slew_window=window.get((p, "rise")),
+            fall_slew_window=window.get((p, "fall")),
         )
         for p in cell.inputs
     )
