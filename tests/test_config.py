@@ -493,6 +493,15 @@ def test_liberty_other_load_outside_a_cells_related_load(cfg_path: Path) -> None
     assert "0.02 pf is outside the cell's related_load [0.001, 0.01] pf" in err.reason
 
 
+def test_liberty_pin_capacitance_rule(cfg_path: Path) -> None:
+    doc = _doc()
+    doc["liberty"] = {"pin_capacitance": "threshold"}
+    assert config.parse(doc, cfg_path).liberty.pin_capacitance == "threshold"
+    doc["liberty"] = {"pin_capacitance": "half-edge"}
+    err = _one_problem(doc, cfg_path, "liberty.pin_capacitance")
+    assert "must be 'whole-edge' or 'threshold', got 'half-edge'" in err.reason
+
+
 def test_liberty_limit_factor_not_positive(cfg_path: Path) -> None:
     doc = _doc()
     doc["liberty"] = {"slew_limit_factor": 0}

@@ -24,6 +24,8 @@ from charflow.config import library as config
 from charflow.config.library import LibraryConfig
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
 from charflow.flow import characterize as flow
+from charflow.io import liberty as liberty_writer
+from charflow.records.errors import TableError
 from charflow.tables import power as power_tables
 from charflow.tables.table import Table
 from charflow.tables.tabulate import LOAD_AXIS, SLEW_AXIS
@@ -206,6 +208,39 @@ def test_pin_capacitances_read_back(run: Characterized) -> None:
             ):
                 assert farads > 0
                 assert pin[attr] == pytest.approx(farads / cfg.cap_scale, rel=RTOL, abs=0)
+
+
+def test_pin_capacitance_up_to_the_threshold_reads_back(small: Characterized) -> None:
+    """``[liberty] pin_capacitance = "threshold"``: every input's capacitance attributes are
+    its charge up to the delay threshold (the JSON's *_capacitance_to_threshold_F), as the
+    independent liberty-parser reads them; ``capacitance`` is the larger edge's (Liberty:
+    the pin's one number, common practice); the header says so."""
+    cfg = replace(small.config, liberty=replace(small.config.liberty, pin_capacitance="threshold"))
+    result = small.result
+    text = liberty_writer.render(cfg, result.cells, result.cell_power)
+    assert "the charge up to the input's delay threshold" in text
+    lib = parse_liberty(text)
+    for cell in result.cells:
+        group = lib.get_group("cell", cell.cell.name)
+        for cap in cell.pins:
+            pin = group.get_group("pin", cap.pin)
+            assert cap.rise_to_threshold is not None and cap.fall_to_threshold is not None
+            for attr, farads in (
+                ("capacitance", max(cap.rise_to_threshold, cap.fall_to_threshold)),
+                ("rise_capacitance", cap.rise_to_threshold),
+                ("fall_capacitance", cap.fall_to_threshold),
+            ):
+                assert pin[attr] == pytest.approx(farads / cfg.cap_scale, rel=RTOL, abs=0)
+    # A pin without the value (a flip-flop's pins are measured over the whole edge only).
+    bare = replace(result.cells[0].pins[0], fall_to_threshold=None)
+    with pytest.raises(TableError, match="no fall capacitance up to its delay threshold") as info:
+        liberty_writer.liberty_pin_cap(cfg, "QFLOP", bare)
+    assert info.value.context == {
+        "file": cfg.path,
+        "key": "liberty.pin_capacitance",
+        "cell": "QFLOP",
+        "pin": bare.pin,
+    }
 
 
 def test_header(small: Characterized) -> None:

@@ -81,12 +81,11 @@ def options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--pin-load",
         choices=("whole-edge", "threshold", "slew-window", "split"),
-        default="whole-edge",
         help="the pin capacitance the tables' prediction sums on each net: from the charge of "
-        "the whole input edge (the Liberty file's, default), up to the input's delay "
-        "threshold (the JSON's *_capacitance_to_threshold_F), between its slew thresholds "
-        "(*_capacitance_slew_window_F), or split: delays at the first, output slews at the "
-        "second; OpenSTA always reads the Liberty file",
+        "the whole input edge, up to the input's delay threshold (the JSON's "
+        "*_capacitance_to_threshold_F), between its slew thresholds "
+        "(*_capacitance_slew_window_F), or split: delays at the second, output slews at the "
+        "third; default: the Liberty file's ([liberty] pin_capacitance), which OpenSTA reads",
     )
     p.add_argument("--no-sta", action="store_true", help="leave OpenSTA out even if installed")
 
@@ -109,7 +108,8 @@ def _setup(cfg: LibraryConfig, args: argparse.Namespace) -> Setup:
     port = grid.load[0] if args.port_load is None else args.port_load * cfg.cap_scale
     if min(slews) <= 0 or port < 0 or args.wire_cap < 0:
         raise ConfigError("--slew must be positive, --port-load and --wire-cap not negative")
-    return paths.Setup(slews, ("rise", "fall"), args.wire_cap * cfg.cap_scale, port, args.pin_load)
+    pin_load = args.pin_load or cfg.liberty.pin_capacitance
+    return paths.Setup(slews, ("rise", "fall"), args.wire_cap * cfg.cap_scale, port, pin_load)
 
 
 def command(args: argparse.Namespace) -> int:

@@ -210,6 +210,10 @@ class ErrorBars:
 # How the default Liberty file reduces a two-output cell's tables to the two axes every
 # consumer reads: the largest or smallest value over the other output's loads, point by point.
 OTHER_LOAD_RULES = ("largest", "smallest")
+# Which charge an input pin's Liberty capacitance is (``[liberty] pin_capacitance``): the whole
+# input edge's over Vdd, or the charge up to the input's delay threshold over the swing to it
+# (the load a driver has charged when its delay is measured; docs/history/2026-12-pathfit.md).
+PIN_CAPACITANCE_RULES = ("whole-edge", "threshold")
 
 
 @dataclass(frozen=True, slots=True)
@@ -221,6 +225,7 @@ class LibertyOptions:
     # max_capacitance and max_transition: this factor times the characterized range.
     load_limit_factor: float = 1.0
     slew_limit_factor: float = 1.0
+    pin_capacitance: str = "whole-edge"  # one of PIN_CAPACITANCE_RULES
 
 
 @dataclass(frozen=True, slots=True)
@@ -833,10 +838,18 @@ def _liberty(r: _Reader, doc: dict[str, Any], cscale: float) -> LibertyOptions:
         key: r.number(doc, key, "liberty", getattr(d, key), low=0.0)
         for key in ("load_limit_factor", "slew_limit_factor")
     }
+    pin_cap = r.get(doc, "pin_capacitance", str, "liberty", d.pin_capacitance)
+    if pin_cap is not None and pin_cap not in PIN_CAPACITANCE_RULES:
+        r.problem(
+            "liberty.pin_capacitance",
+            f"must be {' or '.join(map(repr, PIN_CAPACITANCE_RULES))}, got {pin_cap!r}",
+        )
+        pin_cap = None
     return LibertyOptions(
         other_load=d.other_load if rule is None else rule,
         load_limit_factor=factors["load_limit_factor"] or d.load_limit_factor,
         slew_limit_factor=factors["slew_limit_factor"] or d.slew_limit_factor,
+        pin_capacitance=pin_cap or d.pin_capacitance,
     )
 
 

@@ -28,7 +28,7 @@ import numpy as np
 
 from charflow.config.library import CellSpec, LibraryConfig
 from charflow.records import logic
-from charflow.records.errors import ConfigError
+from charflow.records.errors import ConfigError, TableError
 from charflow.records.names import pin_name, table_name
 from charflow.records.points import State
 from charflow.records.units import energy_unit, power_unit
@@ -456,6 +456,25 @@ def _leakage(w: _Writer, cell: CellPower, scale: float) -> None:
         w.close()
 
 
+def liberty_pin_cap(config: LibraryConfig, cell: str, pin: tabulate.PinCap) -> tabulate.PinCap:
+    """``pin`` with the rise and fall capacitance ``[liberty] pin_capacitance`` picks: the
+    whole edge's (the default) or the charge up to the input's delay threshold."""
+    if config.liberty.pin_capacitance == "whole-edge":
+        return pin
+    for edge in ("rise", "fall"):
+        if getattr(pin, edge) is not None and getattr(pin, f"{edge}_to_threshold") is None:
+            raise TableError(
+                f"pin {pin.pin} has no {edge} capacitance up to its delay threshold (a "
+                "flip-flop's pins are measured over the whole edge only): set "
+                '[liberty] pin_capacitance = "whole-edge", or leave the cell out (--cell)',
+                file=config.path,
+                key="liberty.pin_capacitance",
+                cell=cell,
+                pin=pin.pin,
+            )
+    return replace(pin, rise=pin.rise_to_threshold, fall=pin.fall_to_threshold)
+
+
 def _header(
     w: _Writer, config: LibraryConfig, header: Sequence[str], three_axes: bool | None
 ) -> None:
@@ -475,6 +494,11 @@ def _header(
             f"{file_names(config)[0]} holds them reduced to two axes for tools that need that */"
         )
     w.lines.append(f"/* {_comment(limit_rule(config))} */")
+    if config.liberty.pin_capacitance != "whole-edge":
+        w.lines.append(
+            "/* input pins' capacitance: the charge up to the input's delay threshold over the "
+            "swing to it ([liberty] pin_capacitance); the whole edge's is in the JSON */"
+        )
 
 
 def _library_attributes(w: _Writer, config: LibraryConfig, limit: Limits) -> None:
@@ -562,6 +586,7 @@ def _input_pin(
     if spec.flop is not None and pin.pin == spec.flip_flop.clock:
         w.attr("clock", "true")
     w.note(pin_name(spec.name, pin.pin, "capacitance"))
+    pin = liberty_pin_cap(config, spec.name, pin)
     # An edge no run made is left out (``tabulate`` warns), never copied.
     for name, cap in (("", pin.capacitance), ("rise_", pin.rise), ("fall_", pin.fall)):
         if cap is not None:
