@@ -41,6 +41,11 @@ LADDER_RTOL = 5e-3
 # -3.1 % to -4.4 % on CHAIN with the test's loads (December 2026; coarse-grid interpolation, the
 # input shape and the pins' load, see docs/history/2026-12-paths.md), so a tolerance of 6 %.
 PATH_RTOL = 0.06
+# The same with --pin-load split: measured -8.5 % and -8.7 % on CHAIN at 0.05 ns (December
+# 2026; whole-edge -3.0 / -2.3 %, threshold -10.1 / -10.5 %): these linear-ramp tables make
+# every stage faster than a real gate's edge does, which the whole edge's larger load hides
+# (docs/history/2026-12-pathfit.md), so a tolerance of 10 %.
+SPLIT_PATH_RTOL = 0.10
 # OpenSTA prints -digits 6 in ns: half a unit of the last digit, 0.5 fs, per printed value.
 PRINTED_S = 0.5e-15 * 1.01
 
@@ -202,7 +207,8 @@ def test_pin_load_split_looks_delay_and_slew_up_at_their_own_loads(small, tmp_pa
     (a receiver's capacitance before and after its threshold, the two-capacitance receiver idea
     of the Liberty CCS receiver model; Synopsys, Liberty User Guides and Reference Manual,
     "receiver_capacitance1_rise/2_rise", open standard), each bilinearly interpolated in its
-    table (common practice); the path stays within PATH_RTOL of the whole path simulated."""
+    table (common practice); the path stays within SPLIT_PATH_RTOL of the whole path
+    simulated."""
     cfg, _, cells = small
     circuit = _circuit(tmp_path, CHAIN, cfg)
     setup = paths.Setup((0.05e-9,), ("rise", "fall"), 0.0, 4e-15, paths.SPLIT)
@@ -214,7 +220,7 @@ def test_pin_load_split_looks_delay_and_slew_up_at_their_own_loads(small, tmp_pa
     assert len(corr.results) == 2
     for run, jrun in zip(corr.results, doc["paths"], strict=True):
         assert run.failure is None
-        assert abs(run.error(run.predicted)) < PATH_RTOL
+        assert abs(run.error(run.predicted)) < SPLIT_PATH_RTOL
         for s, record in zip(run.stages, jrun["per_stage"], strict=True):
             t = s.predicted
             on_net = net_loads.pins.get(s.stage.net_out, ())
