@@ -409,6 +409,34 @@ def _driver_config(tmp: Path) -> Path:
     return path
 
 
+def test_a_threshold_liberty_is_read_by_opensta_and_the_prediction(tmp_path: Path) -> None:
+    """``[liberty] pin_capacitance = "threshold"``: the Liberty file holds each pin's
+    capacitance up to its delay threshold, ``paths`` defaults to the same pin load, so OpenSTA
+    (reading that file) and charflow's prediction agree stage by stage to OpenSTA's printed
+    digits."""
+    if shutil.which(opensta.PROGRAM) is None:
+        pytest.fail("OpenSTA (sta) is not on PATH; this test needs it")
+    text = (DATA / "small_l1.toml").read_text(encoding="utf-8")
+    text = text.replace('"../../', f'"{DATA.parents[1].as_posix()}/')
+    cfg_path = tmp_path / "small_l1.toml"
+    cfg_path.write_text(text + '\n[liberty]\npin_capacitance = "threshold"\n', encoding="utf-8")
+    netlist = tmp_path / "short.v"
+    netlist.write_text(SHORT, encoding="utf-8")
+    out = tmp_path / "out"
+    args = ["paths", str(cfg_path), "--cell", "QINV_P1", "--cell", "QNAND2_P1", "--quiet"]
+    args += ["--netlist", str(netlist), "--slew", "0.05", "--jobs", "1", "--out", str(out)]
+    assert main(args) == 0
+    doc = json.loads((out / "small_l1.paths.json").read_text(encoding="utf-8"))
+    assert doc["settings"]["pin_load"] == "threshold"
+    assert len(doc["paths"]) == 2
+    for run in doc["paths"]:
+        for stage in run["per_stage"]:
+            delay = stage["delay_s"]
+            assert delay["opensta"] == pytest.approx(delay["predicted"], abs=PRINTED_S)
+    lib = (out / "small_l1.paths" / "small_l1.lib").read_text(encoding="utf-8")
+    assert "the charge up to the input's delay threshold" in lib
+
+
 def test_a_driver_shape_not_yet_measured_is_refused(tmp_path: Path) -> None:
     """Timing paths with a driver-shaped config whose edges were never measured would drive
     the paths with no edge at all: a clear error, not a failed point per path."""
