@@ -435,6 +435,8 @@ def test_a_threshold_liberty_is_read_by_opensta_and_the_prediction(tmp_path: Pat
             assert delay["opensta"] == pytest.approx(delay["predicted"], abs=PRINTED_S)
     lib = (out / "small_l1.paths" / "small_l1.lib").read_text(encoding="utf-8")
     assert "the charge up to the input's delay threshold" in lib
+    page = (out / "small_l1.paths.html").read_text(encoding="utf-8")
+    assert "charge up to the input&#x27;s delay threshold" in page
 
 
 def test_a_driver_shape_not_yet_measured_is_refused(tmp_path: Path) -> None:

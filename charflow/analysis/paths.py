@@ -666,7 +666,8 @@ def _pct(x: float | None) -> str:
     return "-" if x is None else f"{x * 100:+.2f} %"
 
 
-def _pin_load_line(which: str) -> str:
+def pin_load_note(which: str) -> str:
+    """One line saying which charge the pins' capacitance came from, for each lookup."""
     delay, slew = (_WINDOW_NAMES[s].replace("its", "the input's") for s in PIN_LOADS[which])
     charge = delay if delay == slew else f"{delay} (delay, replicas), {slew} (output slew)"
     return f"pins' capacitance: charge {charge}; OpenSTA's: the Liberty file's"
@@ -679,7 +680,7 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     lines = [
         f"paths of {config.name}: {len(corr.results)} path runs in {corr.wall_seconds:.1f} s",
         f"tables' and paths' input waveform: {shape}",
-        *([] if corr.setup.pin_load == WHOLE_EDGE else [_pin_load_line(corr.setup.pin_load)]),
+        *([] if corr.setup.pin_load == WHOLE_EDGE else [pin_load_note(corr.setup.pin_load)]),
         f"  {'path':<14} {'st':>2} {'slew':>7} {'edge':<4} {'simulated':>10} {'predicted':>10} "
         f"{'OpenSTA':>10} {'err pred':>9} {'err sta':>9}  ({tu})",
     ]

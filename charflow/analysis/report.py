@@ -537,6 +537,7 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
         f"paths</title><style>{_STYLE}</style></head><body><h1>{html.escape(config.name)}: "
         f"paths simulated against the tables</h1><p class=note>charflow {__version__}; times in "
         f"{tu}. Tables' and paths' input waveform: {html.escape(shape)}. "
+        f"{html.escape(paths.pin_load_note(corr.setup.pin_load))}. "
         "Error = (value - simulated) / simulated: negative where the value is too fast. "
         "Stage effects: mean per-stage delay difference, as a fraction of the simulated "
         "delay: load = lumped pin capacitance against the real gates, shape = the tables' "
