@@ -34,15 +34,22 @@ from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
-from typing import TypeVar
+from typing import TYPE_CHECKING, TypeVar
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import registry
 from charflow.records.errors import OutputError, SimulatorError, SimulatorHungError
+from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Outcome
 from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION
+
+# The measurers load in the process that measures (a worker; the driver only when it measures
+# a point itself), not in the one that plans, schedules and writes.
+if TYPE_CHECKING:
+    from charflow.measurement import registry
+else:
+    registry = deferred("charflow.measurement.registry")
 
 log = logging.getLogger("charflow")
 T = TypeVar("T")
