@@ -24,7 +24,7 @@ import json
 import os
 import re
 import shutil
-from concurrent.futures.process import BrokenProcessPool
+from concurrent.futures import BrokenExecutor  # a dead worker (see workers.py)
 from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -148,7 +148,7 @@ def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
 
     try:
         banner, library = get_memmapping_executor(jobs).submit(_banner_here, config).result()
-    except BrokenProcessPool as exc:
+    except BrokenExecutor as exc:
         raise SimulatorError(
             f"a worker process died while loading the ngspice shared library ({exc}); "
             "try backend 'subprocess' in [simulation]"

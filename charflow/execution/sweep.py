@@ -99,6 +99,8 @@ def run(
                 on_result(m)
             yield m
         points = [p for p in points if p not in found]
+    if not points:
+        return  # all from the store: no worker pool started, no joblib loaded
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if scheduler is not None:
