@@ -43,10 +43,10 @@ from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION
 
-# A dead worker breaks the pool: caught as BrokenExecutor, the base of concurrent.futures.process's
-# BrokenProcessPool and loky's errors, so that module (and multiprocessing) loads with joblib in a
-# run that starts a pool, not in one the store serves whole.
-
+# A dead worker's broken pool is caught as BrokenExecutor, the base of BrokenProcessPool and of
+# loky's errors: concurrent.futures.process (and multiprocessing) then load with joblib, only in a
+# run that starts a pool.
+#
 # The measurers load in the process that measures (a worker; the driver only when it measures
 # a point itself), not in the one that plans, schedules and writes.
 if TYPE_CHECKING:
