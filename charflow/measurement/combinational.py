@@ -407,52 +407,6 @@ def _load_energy(
     return taken, switched
 
 
-def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
-    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
-    smallest load: each edge's value from its own edge's charge.
-
-    At each pin and edge the points at the smallest load are averaged over slews and states:
-    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
-    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
-    data pins as they move before the clock edge, the clock's inactive edge, a clear or
-    preset's release (``sequential.measure_clocked``).
-    """
-    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
-    for m in measurements:
-        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
-        for pin, edge, charge in entries:
-            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
-    return {key: _smallest_load_mean(group) / vdd for key, group in groups.items()}
-
-
-def pin_capacitance_to_threshold(
-    measurements: list[Measurement], thresholds: Thresholds, vdd: float
-) -> dict[tuple[str, str], float]:
-    """(pin, input edge) → the charge the pin drew from the edge's start to its delay-threshold
-    crossing over the swing to that crossing, at the smallest load, averaged as in
-    ``pin_capacitance``: the capacitance a driver has charged when its own delay is measured
-    (a plain capacitor's is its C). Only points that measured the charge count (a flip-flop's
-    do not): a pin and edge with none is left out."""
-    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
-    for m in measurements:
-        if m.input_charge_to_threshold is None:
-            continue
-        key = (m.point.related, m.point.input_edge)
-        groups.setdefault(key, []).append((m.point.load, abs(m.input_charge_to_threshold)))
-    caps = {}
-    for (pin, edge), group in groups.items():
-        level = thresholds.delay_input(edge)
-        swing = (level if edge == "rise" else 1.0 - level) * vdd
-        caps[(pin, edge)] = _smallest_load_mean(group) / swing
-    return caps
-
-
-def _smallest_load_mean(group: list[tuple[float, float]]) -> float:
-    """The mean charge of the (load, charge) pairs at the smallest load."""
-    smallest = min(load for load, _ in group)
-    return float(np.mean([q for load, q in group if load == smallest]))
-
-
 # Per series: its model (None when a probe failed) and its probes' measurements by (slew, load),
 # calibrated once per process (``stepsize``).
 _Calibrated = tuple[stepsize.EdgeModel | None, dict[tuple[float, float], Measurement]]
