@@ -395,6 +395,7 @@ def _key(p: TimingPoint) -> tuple:
 
 
 def _records(doc: dict) -> dict[tuple, dict]:
+    """The JSON's timing-point records by point; searches (no related pin) are left out."""
     return {
         (
             cell,
@@ -408,6 +409,7 @@ def _records(doc: dict) -> dict[tuple, dict]:
         ): r
         for cell, records in doc["points"].items()
         for r in records
+        if "related_pin" in r
     }
 
 

@@ -161,3 +161,20 @@ def test_the_package_imports_neither_the_benchmark_nor_the_tests():
                 continue
             found += [f"{path.name}: {n}" for n in names if n.split(".")[0] in NOT_FOR_THE_PACKAGE]
     assert not found, found
+
+
+def test_the_naive_way_skips_a_flip_flops_search_records():
+    """A library with a flip-flop has search records (no related pin) beside its timing
+    points in the JSON; the naive way compares timing points only."""
+    point = {
+        "related_pin": "A",
+        "output": "Y",
+        "when": "",
+        "input_edge": "rise",
+        "slew_s": 1e-11,
+        "load_F": 1e-15,
+        "other_load_F": None,
+    }
+    search = {"search": "setup D rise", "value_s": 1e-11, "simulations": 9}
+    records = speed._records({"points": {"QDFF": [search], "QINV": [point]}})
+    assert list(records.values()) == [point]

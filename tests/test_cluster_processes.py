@@ -182,7 +182,7 @@ def test_keys_hold_no_path_and_follow_a_changed_model_file(cluster, tmp_path, mo
         return (batch for batch in ())
 
     monkeypatch.setattr(sweep, "run_chunks", no_simulation)
-    monkeypatch.setattr(sweep, "map_chunks", no_simulation)
+    monkeypatch.setattr(cluster_module, "map_chunks", no_simulation)
     with Store(tmp_path / FILE_NAME) as store:
         again = flow.characterize(second, cells=["TINV"], store=store, jobs=1)
         assert store.count() == rows

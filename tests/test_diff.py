@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import copy
 import json
+import os
 import shutil
 import subprocess
 from pathlib import Path
@@ -127,3 +128,25 @@ def test_the_command_reports_and_exits_for_scripts(library: Path, constructed: P
     garbage.write_text("library (x) { oops", encoding="utf-8")
     bad = _charflow("diff", garbage, constructed)
     assert bad.returncode == 2 and "not a Liberty file" in bad.stderr
+
+
+def test_a_reader_that_went_away_gets_no_traceback(library: Path, constructed: Path) -> None:
+    """``charflow diff ... | head``: the output's reader is gone before charflow writes. The
+    exit status a shell reports for a command stopped by SIGPIPE, 128 + 13 (common practice),
+    and no traceback on stderr."""
+    exe = shutil.which("charflow")
+    if exe is None:
+        pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
+    read, write = os.pipe()
+    os.close(read)  # closed before the command starts: its first write fails, no race
+    try:
+        done = subprocess.run(
+            [exe, "diff", str(library / "small_l1.json"), str(constructed)],
+            stdout=write,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+    finally:
+        os.close(write)
+    assert done.returncode == 141
+    assert "Traceback" not in done.stderr and "Exception" not in done.stderr, done.stderr

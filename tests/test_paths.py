@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from fixtures.shapes import DRIVER
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 
@@ -387,14 +388,6 @@ module short (a, y);
   QNAND2_P1 u2 (.IA(n1), .IB(1'b1), .Y(n2));
   QINV_P1 u3 (.A(n2), .Y(y));
 endmodule
-"""
-DRIVER = """
-[input_shape]
-kind = "driver"
-driver = ["QINV_P1", "QINV_P1"]
-fanout_pin = "QINV_P1.A"
-fanout = 2
-load = 0.001
 """
 # The input port's simulated transition against the path's slew: the shaped edge's corners sit
 # on the slew thresholds (tests/test_shapes.py), the crossings are interpolated between samples.

@@ -25,6 +25,7 @@ from charflow.plan import arcs as planning
 from charflow.records.outcomes import Measurement
 from charflow.records.points import TimingPoint
 from charflow.simulation import netlist
+from charflow.tables import tabulate
 
 ROOT = Path(__file__).resolve().parents[1]
 VALUES = json.loads(reference.VALUES.read_text(encoding="utf-8"))
@@ -90,7 +91,7 @@ def _where(row: dict) -> str:
 
 def _pin_caps(pairs, factor: float = 1.0) -> list[tuple[str, float, float]]:
     """(where, charflow's, the reference's) capacitance of each pin and edge of each cell,
-    from the points at the smallest load: charflow's ``timing.pin_capacitance`` against the
+    from the points at the smallest load: charflow's ``tabulate.pin_capacitance`` against the
     reference's mean |charge| / vdd over the same points (common practice)."""
     groups: dict[tuple[str, str], list] = {}
     for row, m in pairs:
@@ -100,7 +101,7 @@ def _pin_caps(pairs, factor: float = 1.0) -> list[tuple[str, float, float]]:
         vdd = plain.read_library(ROOT / path).vdd
         smallest = min(row["load_F"] for row, _ in group)
         low = [(row, m) for row, m in group if row["load_F"] == smallest]
-        caps = timing.pin_capacitance([m for _, m in low], vdd)
+        caps = tabulate.pin_capacitance([m for _, m in low], vdd)
         for (pin, edge), cap in caps.items():
             want = [
                 abs(r["input_charge_C"])

@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 import pytest
+from fixtures.driver_modules import NOT_IN_A_STORED_RUN, NOT_IN_DRIVER
 
 from charflow.execution import workers
 from charflow.records.points import LeakagePoint
@@ -36,7 +37,8 @@ with contextlib.redirect_stdout(out):
     code = cli.main(sys.argv[1:])
 maps = open("/proc/self/maps").read()
 print(json.dumps({"code": code, "stdout": out.getvalue(), "libngspice": "libngspice" in maps,
-                  "reads": SESSION.reads()[0], "pysp": "PySpice" in sys.modules}))
+                  "reads": SESSION.reads()[0], "pysp": "PySpice" in sys.modules,
+                  "modules": sorted(sys.modules)}))
 """
 
 
@@ -65,6 +67,7 @@ def test_the_driver_parses_no_model_and_the_summary_counts_the_reads(tmp_path):
     assert first["code"] == 0
     # The workers read every cell's testbench (function check and sweep); this process none.
     assert not first["libngspice"] and not first["pysp"] and first["reads"] == 0
+    assert not set(first["modules"]) & set(NOT_IN_DRIVER)
     reads = [line for line in first["stdout"].splitlines() if "testbench reads" in line]
     assert len(reads) == 1, first["stdout"]
     count = int(reads[0].split(": ")[1].split()[0])
@@ -72,6 +75,7 @@ def test_the_driver_parses_no_model_and_the_summary_counts_the_reads(tmp_path):
     # Served wholly from the store: nothing read anywhere, no worker asked for the version.
     again = _driver("run", SMALL, "--jobs", str(JOBS), "--out", out, "--quiet")
     assert not again["libngspice"] and again["reads"] == 0
+    assert not set(again["modules"]) & {*NOT_IN_DRIVER, *NOT_IN_A_STORED_RUN}
     assert "small_l1: 0 testbench reads" in again["stdout"]
     # --plan times sample points: in a worker too.
     plan = _driver("run", SMALL, "--jobs", str(JOBS), "--plan")

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from fixtures.shapes import DRIVER
 from liberty.parser import parse_liberty
 
 from charflow.config import library as config
@@ -35,14 +36,6 @@ slew_upper_rise = 90
 slew_lower_fall = 30
 slew_upper_fall = 70
 slew_derate = 0.6
-"""
-DRIVER = """
-[input_shape]
-kind = "driver"
-driver = ["QINV_P1", "QINV_P1"]
-fanout_pin = "QINV_P1.A"
-fanout = 2
-load = 0.001
 """
 # The simulated source's time between the slew thresholds against table slew × derate: its
 # corners sit on the thresholds, rounded to stimulus.TIME_QUANTUM (1 fs, 1e-4 of 10 ps).

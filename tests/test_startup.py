@@ -1,4 +1,5 @@
-"""Start-up: the command-line module and its help load none of the heavy modules.
+"""Start-up: the command-line module and its help load none of the heavy modules, and the
+driver's fixed part (config, plan, testbenches) neither the measurers nor scipy.
 
 numpy, scipy, matplotlib, jinja2, joblib and PySpice cost seconds to import; charflow/cli
 loads them only when a command uses them. Each check runs in a fresh interpreter, since this
@@ -14,8 +15,12 @@ import sys
 from pathlib import Path
 
 import pytest
+from fixtures.driver_modules import NOT_IN_A_STORED_RUN, NOT_IN_DRIVER
 
-CLI = Path(__file__).resolve().parents[1] / "charflow" / "cli"
+ROOT = Path(__file__).resolve().parents[1]
+CLI = ROOT / "charflow" / "cli"
+SMALL = ROOT / "tests" / "data" / "small_l1.toml"
+CELLS = 3  # small_l1's cells
 HEAVY = ("matplotlib", "scipy", "scipy.stats", "numpy", "jinja2", "joblib", "PySpice")
 
 PROBE = """\
@@ -60,3 +65,39 @@ def test_help_version_and_usage_errors_load_no_heavy_module(argv: list[str]) -> 
 def test_a_command_loads_what_it_uses() -> None:
     # The deferred modules do load when a command needs them: the check of the test itself.
     assert {"numpy", "charflow.tables.gaps"} <= _loaded(["demo", "--help"])
+
+
+# The driver's fixed part in a fresh interpreter: the command's modules (``flow.characterize``
+# executed, so every import it makes at its top), the config, the plan and the testbenches;
+# then each lazy binding used once, which must load what it defers.
+FIXED = """\
+import json, sys
+from pathlib import Path
+from charflow.cli import run
+from charflow.execution import workers
+from charflow.flow import characterize as flow
+config = flow.shaped(run.config.load(Path(sys.argv[1])), store=None, jobs=1, scheduler=None)
+plan = flow.planning.plan(config)
+decks = [flow.build_deck(config, config.cell(c)) for c in {p.cell for p in plan.points}]
+before = sorted(sys.modules)
+assert callable(flow.spread_tables.tabulate) and callable(workers.registry.measure_chunk)
+print(json.dumps({"before": before, "after": sorted(sys.modules), "decks": len(decks)}))
+"""
+
+
+def test_the_drivers_fixed_part_loads_neither_the_measurers_nor_scipy() -> None:
+    done = subprocess.run(
+        [sys.executable, "-c", FIXED, str(SMALL)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+        stdin=subprocess.DEVNULL,
+    )
+    assert done.returncode == 0, done.stderr
+    found = json.loads(done.stdout.splitlines()[-1])
+    assert found["decks"] == CELLS
+    before, after = set(found["before"]), set(found["after"])
+    assert not before & {*NOT_IN_DRIVER, *NOT_IN_A_STORED_RUN}
+    # The check sees a module when it loads: the lazy bindings, used, bring in what they defer.
+    assert {"scipy", "charflow.measurement.combinational"} <= after

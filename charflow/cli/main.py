@@ -9,6 +9,7 @@ turned into exit codes.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import types
 
@@ -39,7 +40,8 @@ exit status:
   1  the run finished but some points failed (no Liberty file written unless --allow-gaps
      filled them), a fidelity check found failures, or diff found differences
   2  bad input: config, netlist, cell function, or a library diff cannot read
-  3  trouble with the simulator, the result store, the cluster or the output folder"""
+  3  trouble with the simulator, the result store, the cluster or the output folder
+  141  the reader of charflow's output closed it (e.g. "| head"); what was written stays"""
 
 
 # Each command: a module with SUMMARY (its line in charflow --help), DESCRIPTION (the first
@@ -78,10 +80,19 @@ def _parser(command: str | None = None) -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
-    # Only the chosen command's options are built (see _parser): --help executes no deferred module.
-    args = _parser(argv[0] if argv and argv[0] in COMMANDS else "").parse_args(argv)
-    shared.show_warnings()
-    return shared.guarded(COMMANDS[args.command].command, args)
+    try:
+        # Only the chosen command's options are built (see _parser): --help executes no
+        # deferred module.
+        args = _parser(argv[0] if argv and argv[0] in COMMANDS else "").parse_args(argv)
+        shared.show_warnings()
+        code = shared.guarded(COMMANDS[args.command].command, args)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # The reader went away: no traceback, and none again when Python flushes stdout at
+        # exit (the recipe of Python's documentation, module signal, "Note on SIGPIPE").
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return shared.EXIT_PIPE_CLOSED
+    return code
 
 
 if __name__ == "__main__":

@@ -36,6 +36,7 @@ tqdm = deferred("tqdm")
 EXIT_OK, EXIT_FAILED_POINTS, EXIT_BAD_INPUT, EXIT_TROUBLE = 0, 1, 2, 3
 EXIT_DIFFERENT = 1  # charflow diff: the libraries differ
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, as shells report a command stopped by Ctrl-C
+EXIT_PIPE_CLOSED = 141  # 128 + SIGPIPE: the reader of the output went away (`| head`)
 RUNS = Path("runs")  # default outputs: runs/<library name> under the current folder
 BAD_INPUT = (ConfigError, NetlistError, FunctionalMismatchError, DiffError)
 

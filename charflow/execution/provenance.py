@@ -24,19 +24,26 @@ import json
 import os
 import re
 import shutil
-from concurrent.futures.process import BrokenProcessPool
+from concurrent.futures import BrokenExecutor  # a dead worker (see workers.py)
 from dataclasses import dataclass, fields
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow import __version__
 from charflow.config.library import LibraryConfig, Simulation, Thresholds
-from charflow.execution.cluster import simulator_banner
 from charflow.execution.workers import default_jobs
-from charflow.measurement.combinational import backend_for
 from charflow.records.errors import SimulatorError
+from charflow.records.lazy import deferred
 from charflow.records.units import energy_unit, power_unit, time_scale
 from charflow.simulation.backends import loaded_library, make_backend
 from charflow.simulation.netlist import model_files
+from charflow.simulation.session import SESSION
+
+# A Dask cluster's side (and the measurers it imports) loads only for a run on one.
+if TYPE_CHECKING:
+    from charflow.execution import cluster
+else:
+    cluster = deferred("charflow.execution.cluster")
 
 # ngspice's banner: "ngspice-39, Creation Date: Sun Feb  5 13:44:35 UTC 2023" (``_version_of``).
 _RELEASE = re.compile(r"(?P<program>[A-Za-z]+)-(?P<version>[^\s,]+)")
@@ -127,7 +134,7 @@ def simulator(
     program = (sim.backend, scheduler or where)
     if program not in _ASKED:
         if scheduler is not None:
-            _ASKED[program] = simulator_banner(scheduler, config)
+            _ASKED[program] = cluster.simulator_banner(scheduler, config)
         elif sim.backend == "subprocess":
             _ASKED[program] = make_backend(sim.backend, sim.timeout).version()
         else:
@@ -141,7 +148,7 @@ def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
 
     try:
         banner, library = get_memmapping_executor(jobs).submit(_banner_here, config).result()
-    except BrokenProcessPool as exc:
+    except BrokenExecutor as exc:
         raise SimulatorError(
             f"a worker process died while loading the ngspice shared library ({exc}); "
             "try backend 'subprocess' in [simulation]"
@@ -154,7 +161,7 @@ def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
 def _banner_here(config: LibraryConfig) -> tuple[str, str | None]:
     """In a worker: this process's simulator (kept for its runs), its version and the file of
     the shared library it loaded."""
-    return backend_for(config).version(), loaded_library()
+    return SESSION.backend(config.simulation).version(), loaded_library()
 
 
 # What decides which libngspice a worker loads besides the file itself: PySpice's variable

@@ -34,46 +34,13 @@ from charflow.config.library import LibraryConfig
 from charflow.execution import provenance
 from charflow.execution.provenance import file_digest
 from charflow.records.errors import StoreError
-from charflow.records.outcomes import (
-    FunctionChecked,
-    LeakageResult,
-    Measurement,
-    Outcome,
-    SearchResult,
-    ShapeResult,
-    SpreadMeasurement,
-    TightMeasurement,
-    ToggleMeasurement,
-)
+from charflow.records.outcomes import Outcome, Result
 from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, Work
 from charflow.simulation.netlist import Deck, model_files, repoint_reads
 
 FILE_NAME = "store.sqlite"
-# What a row holds: any outcome but a Failure.
-Result = (
-    Measurement
-    | SearchResult
-    | ToggleMeasurement
-    | LeakageResult
-    | FunctionChecked
-    | TightMeasurement
-    | ShapeResult
-    | SpreadMeasurement
-)
 # The result records a row may hold, by name; any point type and any of these records work.
-RECORDS: dict[str, type] = {
-    cls.__name__: cls
-    for cls in (
-        Measurement,
-        SearchResult,
-        ToggleMeasurement,
-        LeakageResult,
-        FunctionChecked,
-        TightMeasurement,
-        ShapeResult,
-        SpreadMeasurement,
-    )
-}
+RECORDS: dict[str, type] = {cls.__name__: cls for cls in typing.get_args(Result)}
 SCHEMA = 1  # PRAGMA user_version of a database this module writes
 BATCH = 500  # keys per SELECT ... IN (...): below SQLite's limit on bound parameters
 # Seconds a write waits for another connection's write to the same store to end (SQLite's

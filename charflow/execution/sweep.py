@@ -12,15 +12,22 @@ from __future__ import annotations
 
 import contextlib
 from collections.abc import Callable, Generator, Iterable, Iterator, Mapping
+from typing import TYPE_CHECKING
 
 from charflow.config.library import LibraryConfig
-from charflow.execution.cluster import map_chunks
 from charflow.execution.store import Store, keyring
 from charflow.execution.workers import Reads, default_jobs, measured, run_chunks
+from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Outcome, PathMeasurement
 from charflow.records.points import TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
+
+# A Dask cluster's side (and the measurers it imports) loads only for a run on one.
+if TYPE_CHECKING:
+    from charflow.execution import cluster
+else:
+    cluster = deferred("charflow.execution.cluster")
 
 CHUNK = 25  # points per worker task: large enough to amortise the deck load
 
@@ -92,10 +99,14 @@ def run(
                 on_result(m)
             yield m
         points = [p for p in points if p not in found]
+    if not points:
+        return  # all from the store: no worker pool started, no joblib loaded
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if scheduler is not None:
-        results: Generator[list[Outcome], None, None] = map_chunks(scheduler, config, built, tasks)
+        results: Generator[list[Outcome], None, None] = cluster.map_chunks(
+            scheduler, config, built, tasks
+        )
     elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
         # Each run is its own ngspice process already: a crash cannot take this one down.
         results = _here(config, built, tasks, reads)

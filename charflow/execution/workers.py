@@ -31,18 +31,28 @@ import tempfile
 import time
 from collections import deque
 from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
-from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
-from concurrent.futures.process import BrokenProcessPool
+from concurrent.futures import FIRST_COMPLETED, BrokenExecutor, Executor, Future, wait
 from dataclasses import dataclass, field, replace
-from typing import TypeVar
+from typing import TYPE_CHECKING, TypeVar
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import registry
 from charflow.records.errors import OutputError, SimulatorError, SimulatorHungError
+from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Outcome
 from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION
+
+# A dead worker's broken pool is caught as BrokenExecutor, the base of BrokenProcessPool and of
+# loky's errors: concurrent.futures.process (and multiprocessing) then load with joblib, only in a
+# run that starts a pool.
+#
+# The measurers load in the process that measures (a worker; the driver only when it measures
+# a point itself), not in the one that plans, schedules and writes.
+if TYPE_CHECKING:
+    from charflow.measurement import registry
+else:
+    registry = deferred("charflow.measurement.registry")
 
 log = logging.getLogger("charflow")
 T = TypeVar("T")
@@ -158,7 +168,7 @@ def in_worker(function: Callable[..., T], *args: object) -> T:
 
     try:
         return get_memmapping_executor(1).submit(function, *args).result()
-    except BrokenProcessPool as exc:
+    except BrokenExecutor as exc:
         raise SimulatorError(f"the worker process died ({_why(exc)})") from exc
 
 
@@ -368,7 +378,7 @@ def _run_round(
     jobs: int,
     journals: tuple[str, int],
     reads: Reads,
-) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenProcessPool | None]]:
+) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenExecutor | None]]:
     """Yield the outcomes of each chunk of ``queue`` that finished, ``AHEAD`` tasks in flight
     per worker; return the chunks lost to a dead worker (each with its journal) and the pool's
     account of the death. Chunks never started stay in ``queue``."""
@@ -397,7 +407,7 @@ def _run_round(
                 offers, paths = futures.pop(future)
                 try:
                     done = future.result()
-                except BrokenProcessPool as exc:
+                except BrokenExecutor as exc:
                     lost += [(task, path) for (_, _, task), path in zip(offers, paths, strict=True)]
                     death = exc
                     continue

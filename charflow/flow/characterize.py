@@ -16,7 +16,7 @@ import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from charflow import __version__
 from charflow.config.library import FlopSpec, LibraryConfig
@@ -32,6 +32,7 @@ from charflow.plan.spread import spread_points
 from charflow.plan.toggles import plan_toggles
 from charflow.records import errors
 from charflow.records.errors import ConfigError, OutputError
+from charflow.records.lazy import deferred
 from charflow.records.names import (
     delay_quantity,
     pin_name,
@@ -72,9 +73,14 @@ from charflow.records.points import (
 from charflow.simulation.netlist import Deck, build_chain_deck, build_deck
 from charflow.tables import gaps
 from charflow.tables import power as power_tables
-from charflow.tables import spread as spread_tables
 from charflow.tables.table import Table
 from charflow.tables.tabulate import ArcTables, CellTables, PinCap, tabulate
+
+# The sigma tables need scipy: it loads only in a run with spread points ([mismatch]).
+if TYPE_CHECKING:
+    from charflow.tables import spread as spread_tables
+else:
+    spread_tables = deferred("charflow.tables.spread")
 
 
 @dataclass(frozen=True, slots=True)
@@ -401,7 +407,9 @@ def characterize(
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
     tables, cell_power = _tabulate(config, the_plan, got, report)
-    sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
+    sigma: tuple[spread_tables.ArcSpread, ...] = ()
+    if got.spreads:  # the sigma tables' module (scipy) loads only when there are some
+        sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
     return RunResult(
         plan=the_plan,
         measurements=tuple(got.measurements),

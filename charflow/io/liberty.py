@@ -22,7 +22,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -35,9 +35,12 @@ from charflow.records.units import energy_unit, power_unit
 from charflow.tables import power as power_tables
 from charflow.tables import tabulate
 from charflow.tables.power import ArcPower, CellPower
-from charflow.tables.spread import ArcSpread, SigmaTable
 from charflow.tables.table import Axis, Table, drop_axis
 from charflow.tables.tabulate import ArcTables, CellTables
+
+# Types only: the sigma tables' module needs scipy, which a library without them never loads.
+if TYPE_CHECKING:
+    from charflow.tables.spread import ArcSpread, SigmaTable
 
 VALUE_FORMAT = "{:.7g}"
 # Liberty's order of the four NLDM tables inside a timing group (common practice).

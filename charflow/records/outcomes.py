@@ -232,8 +232,9 @@ class SpreadMeasurement:
     failed_samples: int = 0  # samples whose run gave no measurement (left out, counted)
 
 
-# One outcome of a sweep point: what ``execution.sweep.run`` yields.
-Outcome = (
+# What a store row may hold: every outcome of a sweep point but a path run's (not stored) and
+# a failure.
+Result = (
     Measurement
     | SearchResult
     | ToggleMeasurement
@@ -241,7 +242,7 @@ Outcome = (
     | FunctionChecked
     | TightMeasurement
     | ShapeResult
-    | PathMeasurement
     | SpreadMeasurement
-    | Failure
 )
+# One outcome of a sweep point: what ``execution.sweep.run`` yields.
+Outcome = Result | PathMeasurement | Failure

@@ -8,17 +8,12 @@ by point, the largest value over its sensitizing states.
 from __future__ import annotations
 
 import logging
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
 
-from charflow.config.library import CellSpec, LibraryConfig
-from charflow.measurement.combinational import (
-    pin_capacitance,
-    pin_capacitance_slew_window,
-    pin_capacitance_to_threshold,
-)
+from charflow.config.library import CellSpec, LibraryConfig, Thresholds
 from charflow.records.errors import TableError, place
 from charflow.records.names import delay_quantity, transition_quantity
 from charflow.records.outcomes import Measurement, Outcome, SearchResult, TightMeasurement
@@ -66,11 +61,11 @@ class PinCap:
     rise_error: float | None = None  # F, error bars (``[error_bars]``); None: not measured
     fall_error: float | None = None
     # F, the capacitance up to the input's delay threshold (``pin_capacitance_to_threshold``);
-    # None: not measured. JSON only: the Liberty file keeps the whole edge's.
+    # None: not measured. In the Liberty file only with ``[liberty] pin_capacitance``.
     rise_to_threshold: float | None = None
     fall_to_threshold: float | None = None
     # F, the capacitance between the input's slew thresholds (``pin_capacitance_slew_window``);
-    # None: not measured. JSON only, unless ``[library] pin_capacitance`` picks it.
+    # None: not measured. JSON only (``charflow paths --pin-load split``).
     rise_slew_window: float | None = None
     fall_slew_window: float | None = None
 
@@ -289,6 +284,73 @@ def _pin_caps(
         replace(p, rise_error=errors.get((p.pin, "rise")), fall_error=errors.get((p.pin, "fall")))
         for p in pins
     )
+
+
+def pin_capacitance(measurements: list[Measurement], vdd: float) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → capacitance, from the charge the pin drew on that edge at the
+    smallest load: each edge's value from its own edge's charge.
+
+    At each pin and edge the points at the smallest load are averaged over slews and states:
+    the effective (Miller-inclusive) capacitance a driver sees (common practice). Besides each
+    point's related pin on its edge, the charges in its ``side_charges`` count: a flip-flop's
+    data pins as they move before the clock edge, the clock's inactive edge, a clear or
+    preset's release (``sequential.measure_clocked``).
+    """
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
+    for m in measurements:
+        entries = [(m.point.related, m.point.input_edge, m.input_charge), *m.side_charges]
+        for pin, edge, charge in entries:
+            groups.setdefault((pin, edge), []).append((m.point.load, abs(charge)))
+    return {key: _smallest_load_mean(group) / vdd for key, group in groups.items()}
+
+
+def pin_capacitance_to_threshold(
+    measurements: list[Measurement], thresholds: Thresholds, vdd: float
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the charge the pin drew from the edge's start to its delay-threshold
+    crossing over the swing to that crossing, at the smallest load, averaged as in
+    ``pin_capacitance``: the capacitance a driver has charged when its own delay is measured
+    (a plain capacitor's is its C). Only points that measured the charge count (a flip-flop's
+    do not): a pin and edge with none is left out."""
+
+    def swing(edge: str) -> float:
+        level = thresholds.delay_input(edge)
+        return (level if edge == "rise" else 1.0 - level) * vdd
+
+    return _windowed([(m, m.input_charge_to_threshold) for m in measurements], swing)
+
+
+def pin_capacitance_slew_window(
+    measurements: list[Measurement], thresholds: Thresholds, vdd: float
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the charge the pin drew between its input's two slew-threshold
+    crossings over the voltage between them, at the smallest load, averaged as in
+    ``pin_capacitance``: the capacitance a driver charges while its own output slew is measured
+    (a plain capacitor's is its C). Pins and edges without the charge are left out."""
+
+    def swing(edge: str) -> float:
+        lower, upper = thresholds.slew_band(edge)
+        return (upper - lower) * vdd
+
+    return _windowed([(m, m.input_charge_slew_window) for m in measurements], swing)
+
+
+def _windowed(
+    charges: list[tuple[Measurement, float | None]], swing: Callable[[str], float]
+) -> dict[tuple[str, str], float]:
+    """(pin, input edge) → the mean charge at the smallest load over ``swing(edge)`` (V)."""
+    groups: dict[tuple[str, str], list[tuple[float, float]]] = {}
+    for m, charge in charges:
+        if charge is not None:
+            key = (m.point.related, m.point.input_edge)
+            groups.setdefault(key, []).append((m.point.load, abs(charge)))
+    return {(pin, e): _smallest_load_mean(g) / swing(e) for (pin, e), g in groups.items()}
+
+
+def _smallest_load_mean(group: list[tuple[float, float]]) -> float:
+    """The mean charge of the (load, charge) pairs at the smallest load."""
+    smallest = min(load for load, _ in group)
+    return float(np.mean([q for load, q in group if load == smallest]))
 
 
 def _pin_cap(cell: str, pin: str, caps: dict[tuple[str, str], float]) -> PinCap:
