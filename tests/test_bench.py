@@ -178,3 +178,13 @@ def test_the_naive_way_skips_a_flip_flops_search_records():
     search = {"search": "setup D rise", "value_s": 1e-11, "simulations": 9}
     records = speed._records({"points": {"QDFF": [search], "QINV": [point]}})
     assert list(records.values()) == [point]
+
+
+def test_the_naive_way_draws_combinational_points_only():
+    """A flip-flop's clock point needs its state set before the edge; the naive way (one plain
+    run per point) times gates' arcs only. seq_l1 holds flip-flops beside gates."""
+    cfg = config.load(ROOT / "tests" / "data" / "seq_l1.toml")
+    kinds = {getattr(p, "kind", None) for p in planning.plan(cfg).points}
+    assert "clock" in kinds and "combinational" in kinds
+    points = speed.naive_points(cfg, 1000)
+    assert points and {p.kind for p in points} == {"combinational"}
