@@ -9,8 +9,8 @@ each point, runs each once and on as many processes as charflow has workers, so 
 more simulator work and the speed-up it shows is charflow's overhead against its own.
 
 Every charflow run is a fresh process doing what ``charflow run`` does (``child.py``), as a
-user starts it: its wall time includes Python's start, the functional check, worker start-up
-and writing, each stage timed.
+user starts it: its wall time includes Python's start, worker start-up, the function checks (in
+the sweep) and writing, each stage timed.
 
 The libraries: the demo on its level-1 and its BSIM models (7 × 7 grid), and a model file of
 the kind foundries ship, generated with invented values by the tests' fixture
@@ -139,7 +139,7 @@ class RunStats:
 
     @property
     def sweep_floor_ratio(self) -> float:
-        """The same for the sweep alone, without start-up, checks and writing."""
+        """The same for the sweep alone, without start-up and writing."""
         return self.sweep / (self.analysis / self.workers)
 
     @property
@@ -175,7 +175,7 @@ class LibraryBench:
 
     @property
     def sweep_scaling(self) -> float:
-        """The same for the sweep alone: start-up, checks and writing do not parallelise."""
+        """The same for the sweep alone: start-up and writing do not parallelise."""
         return self.one.sweep / self.full.sweep
 
     @property
@@ -540,8 +540,8 @@ def render(results: list[LibraryBench]) -> str:
         f"{'wall/floor':>11}{'sweep/floor':>12}{'CPU s':>7}{'peak MB':>8}"
     )
     lines = [
-        "floor = simulator time / workers; sweep = first point to last, without start-up, "
-        "checks and writing",
+        "floor = simulator time / workers; sweep = its start to its last point (function checks "
+        "included), without start-up and writing",
         "",
     ]
     for r in results:

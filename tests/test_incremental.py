@@ -30,7 +30,7 @@ POINTS = 90  # small_l1: (1 + 2 + 2) arcs x 2 edges x 3 slews x 3 loads
 # small_l1's hidden-power toggles, stored beside the points: NAND2 and NOR2, 2 pins x 1 state
 # (the other input at its controlling value) x 2 edges x 3 slews each.
 TOGGLES = 24
-CELLS = 3  # each with a leakage point (in the sweep) and a function check (before it), stored
+CELLS = 3  # each with a leakage point and a function check (its first in the sweep), stored
 REUSED = POINTS + TOGGLES + CELLS  # what a run served from the store reports reused
 ROWS = REUSED + CELLS
 KILL_POINTS = 250  # the same cells on a 5 x 5 grid
@@ -145,7 +145,7 @@ def test_a_killed_run_resumes_and_ends_as_a_clean_run(tmp_path: Path) -> None:
     assert KILL_AFTER <= stored < KILL_POINTS
     assert not (out / "small_l1.lib").exists()
 
-    # The function checks, stored before the sweep, are not among the points the run reports.
+    # The function checks stored are not among the points the run reports.
     grid = _rows(db, "Measurement")
     checks = _rows(db, "FunctionChecked")
     resumed = _charflow("run", cfg, "--out", out, "--quiet", cwd=tmp_path)

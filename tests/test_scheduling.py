@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 from fixtures.driver_modules import NOT_IN_A_STORED_RUN, NOT_IN_DRIVER
 
-from charflow.execution import workers
-from charflow.records.points import LeakagePoint
+from charflow.execution import sweep, workers
+from charflow.records.points import FunctionPoint, LeakagePoint
 from charflow.simulation.netlist import Deck
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -130,6 +130,19 @@ def test_each_known_worker_is_offered_a_chunk_of_its_own_cell():
     # Worker 1 took its chunk; worker 2's goes back to the front of B's queue.
     queue.give_back(offers[1][2])
     assert queue.take(2) is offers[1][2]
+
+
+def test_each_cell_starts_with_its_function_check():
+    # The checks share the run's sweep: cheap, and a failed one stops the run, so each comes
+    # before the rest of its cell's work whichever worker starts the cell.
+    work = [LeakagePoint(c, states=30) for c in "AABB"] + [FunctionPoint(c, 4) for c in "AB"]
+    tasks = sweep.chunks(work)
+    assert [type(t[0]) for t in tasks[:2]] == [FunctionPoint, FunctionPoint]
+    queue = workers._Queue(tasks, {c: _deck(c) for c in "AB"}, workers._Pool())
+    a, b = queue.take(None), queue.take(None)
+    assert [(t[0].cell, type(t[0])) for t in (a, b)] == [("A", FunctionPoint), ("B", FunctionPoint)]
+    _done(queue, 1, a)
+    assert isinstance(queue.take(1)[0], LeakagePoint)
 
 
 def test_a_worker_steals_only_where_the_read_costs_less_than_the_help_saves():

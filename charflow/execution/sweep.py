@@ -16,10 +16,10 @@ from typing import TYPE_CHECKING
 
 from charflow.config.library import LibraryConfig
 from charflow.execution.store import Store, keyring
-from charflow.execution.workers import Reads, default_jobs, measured, run_chunks
+from charflow.execution.workers import Reads, Stop, default_jobs, measured, run_chunks
 from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Outcome, PathMeasurement
-from charflow.records.points import TimingPoint, TogglePoint, Work
+from charflow.records.points import FunctionPoint, TimingPoint, TogglePoint, Work
 from charflow.simulation import plausible
 from charflow.simulation.netlist import Deck, build_deck
 
@@ -46,8 +46,10 @@ def _weight(p: Work) -> float:
 
 
 def chunks(points: Iterable[Work], size: int = CHUNK) -> list[tuple[Work, ...]]:
-    """Consecutive points of one cell and kind, about ``size`` simulations each; the costliest
-    first so the longest tasks start early and the short ones fill in at the end."""
+    """Consecutive points of one cell and kind, about ``size`` simulations each. Function
+    checks first: they are cheap, and a cell that fails its check stops the run (``run``'s
+    ``until``) before its other work is spent. Then the costliest first, so the longest tasks
+    start early and the short ones fill in at the end."""
     groups: dict[tuple[str, type], list[Work]] = {}
     for p in points:
         groups.setdefault((p.cell, type(p)), []).append(p)
@@ -56,7 +58,7 @@ def chunks(points: Iterable[Work], size: int = CHUNK) -> list[tuple[Work, ...]]:
         step = max(1, size // group[0].cost)
         for i in range(0, len(group), step):
             out.append(tuple(group[i : i + step]))
-    out.sort(key=lambda c: -sum(_weight(p) for p in c))
+    out.sort(key=lambda c: (not isinstance(c[0], FunctionPoint), -sum(_weight(p) for p in c)))
     return out
 
 
@@ -71,8 +73,12 @@ def run(
     scheduler: str | None = None,
     decks: Mapping[str, Deck] | None = None,
     reads: Reads | None = None,
+    until: Callable[[Outcome], bool] | None = None,
 ) -> Iterator[Outcome]:
-    """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point.
+    """Simulate and measure ``points``; yield one outcome (a measurement or a Failure) per point,
+    or, once ``until`` is true of an outcome, of the points started by then (local workers:
+    the chunks in flight finish and are stored, no other starts; a cluster, which holds every
+    chunk from the start, stops at once).
 
     Outcomes come in completion order; ``on_result`` is a hook for progress display. With a
     ``store``, the points whose key is stored come from it first, unsimulated (``on_stored``
@@ -88,6 +94,7 @@ def run(
         c: given.get(c) or build_deck(config, config.cell(c)) for c in {p.cell for p in points}
     }
     plausible.announce(config, built)
+    stop = Stop()
     ring = None
     if store is not None:
         ring = keyring(config, built, scheduler)
@@ -98,9 +105,10 @@ def run(
             if on_result is not None:
                 on_result(m)
             yield m
+            stop.asked = stop.asked or (until is not None and until(m))
         points = [p for p in points if p not in found]
-    if not points:
-        return  # all from the store: no worker pool started, no joblib loaded
+    if not points or stop.asked:
+        return  # all from the store (no worker pool started, no joblib loaded), or stopped
     tasks = chunks(points)
     jobs = jobs or default_jobs()
     if scheduler is not None:
@@ -109,11 +117,11 @@ def run(
         )
     elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
         # Each run is its own ngspice process already: a crash cannot take this one down.
-        results = _here(config, built, tasks, reads)
+        results = _here(config, built, tasks, reads, stop)
     else:
         # Worker processes, not this one, run the simulator: a crash of the shared library
         # then costs only the points in flight, which are re-run alone.
-        results = run_chunks(config, built, tasks, jobs, reads)
+        results = run_chunks(config, built, tasks, jobs, reads, stop)
     # Closed as soon as the loop ends early (a store that cannot take a row, an interrupt): the
     # workers stop and their journals go now, not when the garbage collector gets to them.
     with contextlib.closing(results):
@@ -129,6 +137,9 @@ def run(
                 if on_result is not None:
                     on_result(outcome)
                 yield outcome
+                stop.asked = stop.asked or (until is not None and until(outcome))
+            if stop.asked and scheduler is not None:
+                return
 
 
 def _here(
@@ -136,9 +147,13 @@ def _here(
     decks: Mapping[str, Deck],
     tasks: Iterable[tuple[Work, ...]],
     reads: Reads | None,
+    stop: Stop,
 ) -> Generator[list[Outcome], None, None]:
-    """The chunks measured in this process (the subprocess backend: ngspice runs apart)."""
+    """The chunks measured in this process (the subprocess backend: ngspice runs apart), until
+    ``stop`` is asked."""
     for task in tasks:
+        if stop.asked:
+            return
         done = measured(config, decks[task[0].cell], task)
         if reads is not None:
             reads.add(task[0].cell, done.reads, done.read_seconds)

@@ -83,6 +83,18 @@ class Reads:
             self.cells[cell] = self.cells.get(cell, 0) + count
 
 
+@dataclass
+class Stop:
+    """Set by a sweep's caller that wants no further chunk started (``sweep.run``'s ``until``):
+    the chunks running finish and their outcomes come as usual; the others never start (a task
+    already in a worker's queue finds the ``STOPPED`` file in the journal folder and returns)."""
+
+    asked: bool = False
+
+
+STOPPED = "stopped"  # in the journal folder once a sweep's caller stopped it (``Stop``)
+
+
 @dataclass(frozen=True, slots=True)
 class Done:
     """A chunk measured by a worker: its outcomes, which process measured it and the
@@ -115,14 +127,18 @@ def _offered(
     offers: tuple[Offer, ...],
     journals: list[str],
     known: frozenset[int] | None,
+    stopped: str,
 ) -> Done:
     """A worker's task: the chunk offered to this process, else, to a process the driver does
     not know yet, the one offered to any (journalled in that offer's file). A known worker
     offered nothing (no chunk worth its read) returns at once (``Done.chosen`` None), unless
     ``known`` is None (a forced task): then it takes the first chunk, whoever it was meant for
     (the driver's knowledge may name a worker the pool has since replaced, e.g. one that
-    stopped after its idle timeout; offering the last chunk to it for ever would spin)."""
+    stopped after its idle timeout; offering the last chunk to it for ever would spin). Once
+    the file ``stopped`` exists it takes none."""
     pid = os.getpid()
+    if os.path.exists(stopped):
+        return Done([], pid, 0, 0.0, 0.0, None)
     wants = (pid, None) if known is None or pid not in known else (pid,)
     for want in wants:
         for i, (to, deck, points) in enumerate(offers):
@@ -214,10 +230,12 @@ def run_chunks(
     tasks: Sequence[tuple[Work, ...]],
     jobs: int,
     reads: Reads | None = None,
+    stop: Stop | None = None,
 ) -> Generator[list[Outcome], None, None]:
     """Outcomes of every chunk on ``jobs`` worker processes, in completion order; every point
-    gets one outcome even when workers die (see the module's description). ``reads`` tallies
-    the testbenches the workers read."""
+    gets one outcome even when workers die (see the module's description), unless ``stop`` is
+    asked: then the chunks started finish and no other starts. ``reads`` tallies the
+    testbenches the workers read."""
     # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the
     # process (the report's plots) shares the pool rather than finding one it cannot use.
     from joblib.executor import get_memmapping_executor
@@ -225,6 +243,7 @@ def run_chunks(
     pending = list(tasks)
     fruitless = 0
     tally = reads if reads is not None else Reads()
+    stop = stop if stop is not None else Stop()
     with _journal_folder() as scratch:
         round_ = 0
         while pending:
@@ -232,11 +251,13 @@ def run_chunks(
             executor = get_memmapping_executor(jobs)
             queue = _Queue(pending, decks, _pool(executor))
             lost, death = yield from _run_round(
-                executor, config, queue, jobs, (scratch, round_), tally
+                executor, config, queue, jobs, (scratch, round_), tally, stop
             )
             if death is None:
                 return
             salvaged, in_flight, kept = yield from _salvage(lost)
+            if stop.asked:
+                return  # what the journals held is kept; nothing more starts
             pending = [*salvaged, *queue.rest()]
             fruitless = fruitless + 1 if not (kept or in_flight) else 0
             if fruitless >= FRUITLESS_ROUNDS:
@@ -258,8 +279,8 @@ def run_chunks(
 
 @dataclass
 class _Pool:
-    """What the driver knows of its pool's workers, which outlive a sweep (the function
-    check's, then the run's): the testbenches (``Deck.key``) each process has read, by process
+    """What the driver knows of its pool's workers, which outlive a sweep (the driver
+    stage's, then the run's): the testbenches (``Deck.key``) each process has read, by process
     id, and per testbench the seconds of a read and of work per unit of cost, measured."""
 
     ident: int = 0  # id() of the pool described; a new pool starts afresh
@@ -279,8 +300,9 @@ def _pool(executor: Executor) -> _Pool:
 
 
 class _Queue:
-    """The chunks not yet started, by cell, each cell's in the order given (costliest first),
-    and which worker to offer which (see the module's description)."""
+    """The chunks not yet started, by cell, each cell's in the order given (its function
+    check, then the costliest first: ``sweep.chunks``), and which worker to offer which (see
+    the module's description)."""
 
     def __init__(
         self,
@@ -378,14 +400,19 @@ def _run_round(
     jobs: int,
     journals: tuple[str, int],
     reads: Reads,
+    stop: Stop,
 ) -> Generator[list, None, tuple[list[tuple[tuple, str]], BrokenExecutor | None]]:
     """Yield the outcomes of each chunk of ``queue`` that finished, ``AHEAD`` tasks in flight
-    per worker; return the chunks lost to a dead worker (each with its journal) and the pool's
-    account of the death. Chunks never started stay in ``queue``."""
+    per worker (none submitted once ``stop`` is asked); return the chunks lost to a dead worker
+    (each with its journal) and the pool's account of the death. Chunks never started stay in
+    ``queue``."""
     scratch, round_ = journals
+    stopped = os.path.join(scratch, STOPPED)
     futures: dict[Future[Done], tuple[tuple[Offer, ...], list[str]]] = {}
 
     def submit(force: bool = False) -> None:
+        if stop.asked:
+            return
         offers = queue.offers(force)
         if offers:
             # A journal per offer: the one written names the chunk the worker took.
@@ -394,7 +421,8 @@ def _run_round(
                 for i in range(len(offers))
             ]
             known = None if force else frozenset(queue.held)
-            futures[executor.submit(_offered, config, offers, paths, known)] = (offers, paths)
+            task = executor.submit(_offered, config, offers, paths, known, stopped)
+            futures[task] = (offers, paths)
 
     for _ in range(AHEAD * jobs):
         submit()
@@ -423,6 +451,8 @@ def _run_round(
                 if death is None and done.chosen is not None:
                     submit()  # for the worker that is free now (one that declined stays idle)
                 yield done.outcomes
+                if stop.asked and not os.path.exists(stopped):
+                    _mark(stopped)  # the tasks queued in the workers start nothing now
             if death is None and not futures and queue.rest():
                 submit(force=True)  # no worker would take what is left: the first free does
     finally:
@@ -430,6 +460,12 @@ def _run_round(
         for future in futures:
             future.cancel()
     return lost, death
+
+
+def _mark(path: str) -> None:
+    """An empty file at ``path``; none if it cannot be made (the queued tasks then run)."""
+    with contextlib.suppress(OSError), open(path, "x"):
+        pass
 
 
 def _salvage(

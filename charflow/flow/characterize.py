@@ -1,8 +1,9 @@
 """The characterization flow as public stages a user can call one by one.
 
-    config.load → planning.plan → netlist.build_deck → verify → sweep.run → tabulate → write
+    config.load → planning.plan → netlist.build_deck → sweep.run → tabulate → write
 
-``characterize`` chains them; each stage takes and returns plain records, so any one can
+``characterize`` chains them, with the function checks (``verify`` runs them alone) in the
+run's one sweep, each cell's first; each stage takes and returns plain records, so any one can
 be tested or re-run alone; power rides along (hidden-power toggles in the sweep, leakage per
 deck, ``power_tables.tabulate``). With a result store (``store.Store``) the sweep simulates only
 points it does not hold, and a run of a few cells or one arc fills the rest of the library
@@ -222,9 +223,10 @@ def verify(
     reads: Reads | None = None,
 ) -> tuple[FunctionChecked, ...]:
     """Simulate every input vector of every chosen cell against its declared function, in the
-    sweep's workers; with a store, a cell whose check passed before with the same inputs is
-    not checked again. The first cell that fails stops the run with its error. ``reads``
-    tallies the testbenches read."""
+    sweep's workers, as a sweep of its own (``characterize`` runs the checks in its sweep);
+    with a store, a cell whose check passed before with the same inputs is not checked again.
+    The first cell that fails stops the run with its error. ``reads`` tallies the testbenches
+    read."""
     names = [c.name for c in config.cells if cells is None or c.name in cells]
     points = function_points(config, names)
     outcomes = list(
@@ -234,9 +236,20 @@ def verify(
     )
     failed = [o for o in outcomes if isinstance(o, Failure)]
     if failed:
-        first = min(failed, key=lambda f: names.index(f.point.cell))
-        raise errors.again(first.error, first.reason, dict(first.context))
+        raise _first_failed(failed, names)
     return tuple(o for o in outcomes if isinstance(o, FunctionChecked))
+
+
+def _mismatch(outcome: Outcome) -> bool:
+    """Whether an outcome is a failed function check: ``sweep.run``'s ``until`` in a run."""
+    return isinstance(outcome, Failure) and isinstance(outcome.point, FunctionPoint)
+
+
+def _first_failed(failed: list[Failure], names: list[str]) -> errors.CharflowError:
+    """The error of the first cell in ``names`` (the config's order) among those whose check
+    failed."""
+    first = min(failed, key=lambda f: names.index(f.point.cell))
+    return errors.again(first.error, first.reason, dict(first.context))
 
 
 def shape_point(config: LibraryConfig) -> ShapePoint:
@@ -310,9 +323,12 @@ class _Collected:
     reused: set[Work] = field(default_factory=set)
     spreads: list[SpreadMeasurement] = field(default_factory=list)
     spread_failures: list[Failure] = field(default_factory=list)
+    failed_checks: list[Failure] = field(default_factory=list)  # function checks: stop the run
 
     def keep(self, outcome: Outcome) -> None:
-        if isinstance(outcome, SpreadMeasurement):
+        if isinstance(outcome, Failure) and isinstance(outcome.point, FunctionPoint):
+            self.failed_checks.append(outcome)
+        elif isinstance(outcome, SpreadMeasurement):
             self.spreads.append(outcome)
         elif isinstance(outcome, Failure) and isinstance(outcome.point, SpreadPoint):
             self.spread_failures.append(outcome)
@@ -327,14 +343,15 @@ class _Collected:
         elif isinstance(outcome, Failure):
             toggle = isinstance(outcome.point, TogglePoint)
             (self.unmeasured if toggle else self.failures).append(outcome)
-        elif isinstance(outcome, Measurement | SearchResult):  # function checks: ``verify``
+        elif isinstance(outcome, Measurement | SearchResult):  # not a passed function check
             self.measurements.append(outcome)
 
     def served(self, then: Callable[[tuple], None] | None) -> Callable[[tuple], None]:
-        """A hook for ``sweep.run``'s ``on_stored``: what the store served is reused."""
+        """A hook for ``sweep.run``'s ``on_stored``: what the store served is reused (function
+        checks aside: they are not among the run's results)."""
 
         def hook(found: tuple) -> None:
-            self.reused.update(m.point for m in found)
+            self.reused.update(m.point for m in found if not isinstance(m, FunctionChecked))
             if then is not None:
                 then(found)
 
@@ -362,8 +379,10 @@ def characterize(
     on_result: Callable[[object], None] | None = None,
     allow_gaps: str | None = None,
 ) -> RunResult:
-    """Plan, verify, sweep and tabulate; failed points are collected, never turned into numbers
-    unless ``allow_gaps`` names a method (``gaps.METHODS``) to fill them from measured neighbours.
+    """Plan, sweep (each cell's function check first) and tabulate; failed points are
+    collected, never turned into numbers unless ``allow_gaps`` names a method (``gaps.METHODS``)
+    to fill them from measured neighbours. A cell whose function check fails stops the run
+    with its error (``verify``'s); what the sweep measured before is stored.
 
     Only the chosen ``cells`` (or ``arc``, see ``select``) are simulated. Without a store the
     library holds just those. With one it holds every cell of the config: points not chosen
@@ -383,13 +402,15 @@ def characterize(
     spread = spread_points(config, chosen, {n: len(d.devices) for n, d in decks.items()})
     work = (*work, *spread)
     reads = Reads()
-    verify(config, names, store=store, decks=decks, jobs=jobs, scheduler=scheduler, reads=reads)
+    # One sweep: each cell's function check comes first in it (``sweep.chunks``), with no
+    # barrier before the rest; a failed check stops the sweep once the chunks begun are done.
+    swept = (*function_points(config, names), *work)
     if on_start is not None:
-        on_start(sweep.work(work))
+        on_start(sweep.work(swept))
     got = _Collected()
     for outcome in sweep.run(
         config,
-        work,
+        swept,
         jobs=jobs,
         on_result=on_result,
         store=store,
@@ -397,8 +418,11 @@ def characterize(
         scheduler=scheduler,
         decks=decks,
         reads=reads,
+        until=_mismatch,
     ):
         got.keep(outcome)
+    if got.failed_checks:
+        raise _first_failed(got.failed_checks, [c.name for c in config.cells])
     whole, others = chosen, toggle_points
     stale: dict[Work, Stale] = {}
     if store is not None and cells is not None:
