@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import ast
+import dataclasses
 import re
 import shutil
 import subprocess
@@ -78,9 +79,14 @@ def test_bench_library_on_a_tiny_grid(tmp_path):
         assert 1 <= stats.most_reads <= stats.workers
         assert sum(n for _, n, _ in stats.kinds) >= stats.points
         assert sum(sims for _, _, sims in stats.kinds) == stats.simulations
+    assert result.gates_only
     report = speed.render([result])
     assert "tiny" in report and "targets" in report
     assert "testbench reads" in report and "simulated (charflow, 2 workers)" in report
+    assert "speed-up against the naive way" in report
+    # With flip-flops the naive way's gates are no measure of the library's rate.
+    mixed = speed.render([dataclasses.replace(result, gates_only=False)])
+    assert "speed-up against" not in mixed and "no speed-up" in mixed
 
 
 def test_bench_reports_the_sigma_tables_cost_on_a_tiny_grid(tmp_path):
@@ -186,5 +192,5 @@ def test_the_naive_way_draws_combinational_points_only():
     cfg = config.load(ROOT / "tests" / "data" / "seq_l1.toml")
     kinds = {getattr(p, "kind", None) for p in planning.plan(cfg).points}
     assert "clock" in kinds and "combinational" in kinds
-    points = speed.naive_points(cfg, 1000)
+    points = speed.gate_points(cfg, 1000)
     assert points and {p.kind for p in points} == {"combinational"}
