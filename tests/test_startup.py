@@ -34,10 +34,10 @@ print(json.dumps(sorted(sys.modules)))
 """
 
 
-def _loaded(argv: list[str] | None) -> set[str]:
-    """The modules loaded in a fresh interpreter by importing charflow.cli, then main(argv)."""
+def _fresh(code: str, arg: str) -> str:
+    """What ``code`` prints in a fresh interpreter, given ``arg``; it must succeed."""
     done = subprocess.run(
-        [sys.executable, "-c", PROBE, json.dumps(argv)],
+        [sys.executable, "-c", code, arg],
         capture_output=True,
         text=True,
         timeout=120,
@@ -45,7 +45,12 @@ def _loaded(argv: list[str] | None) -> set[str]:
         stdin=subprocess.DEVNULL,
     )
     assert done.returncode == 0, done.stderr
-    return set(json.loads(done.stdout))
+    return done.stdout
+
+
+def _loaded(argv: list[str] | None) -> set[str]:
+    """The modules loaded in a fresh interpreter by importing charflow.cli, then main(argv)."""
+    return set(json.loads(_fresh(PROBE, json.dumps(argv))))
 
 
 def test_importing_the_command_line_module_loads_no_heavy_module() -> None:
@@ -86,16 +91,7 @@ print(json.dumps({"before": before, "after": sorted(sys.modules), "decks": len(d
 
 
 def test_the_drivers_fixed_part_loads_neither_the_measurers_nor_scipy() -> None:
-    done = subprocess.run(
-        [sys.executable, "-c", FIXED, str(SMALL)],
-        capture_output=True,
-        text=True,
-        timeout=120,
-        check=False,
-        stdin=subprocess.DEVNULL,
-    )
-    assert done.returncode == 0, done.stderr
-    found = json.loads(done.stdout.splitlines()[-1])
+    found = json.loads(_fresh(FIXED, str(SMALL)).splitlines()[-1])
     assert found["decks"] == CELLS
     before, after = set(found["before"]), set(found["after"])
     assert not before & {*NOT_IN_DRIVER, *NOT_IN_A_STORED_RUN}
