@@ -402,27 +402,18 @@ def characterize(
     spread = spread_points(config, chosen, {n: len(d.devices) for n, d in decks.items()})
     work = (*work, *spread)
     reads = Reads()
-    # One sweep: each cell's function check comes first in it (``sweep.chunks``), with no
-    # barrier before the rest; a failed check stops the sweep once the chunks begun are done.
-    swept = (*function_points(config, names), *work)
-    if on_start is not None:
-        on_start(sweep.work(swept))
-    got = _Collected()
-    for outcome in sweep.run(
+    got = _sweep(
         config,
-        swept,
+        (*function_points(config, names), *work),
+        decks,
+        reads,
         jobs=jobs,
-        on_result=on_result,
         store=store,
-        on_stored=got.served(on_stored),
         scheduler=scheduler,
-        decks=decks,
-        reads=reads,
-        until=_mismatch,
-    ):
-        got.keep(outcome)
-    if got.failed_checks:
-        raise _first_failed(got.failed_checks, [c.name for c in config.cells])
+        on_start=on_start,
+        on_stored=on_stored,
+        on_result=on_result,
+    )
     whole, others = chosen, toggle_points
     stale: dict[Work, Stale] = {}
     if store is not None and cells is not None:
@@ -459,6 +450,43 @@ def characterize(
         read_seconds=reads.seconds,
         cell_reads=tuple(reads.cells.items()),
     )
+
+
+def _sweep(
+    config: LibraryConfig,
+    swept: tuple[Work, ...],
+    decks: Mapping[str, Deck],
+    reads: Reads,
+    *,
+    jobs: int | None,
+    store: Store | None,
+    scheduler: str | None,
+    on_start: Callable[[int], None] | None,
+    on_stored: Callable[[tuple], None] | None,
+    on_result: Callable[[object], None] | None,
+) -> _Collected:
+    """The run's one sweep, each cell's function check first in it (``sweep.chunks``) with no
+    barrier before the rest: a failed check stops the sweep once the chunks begun are done,
+    and the first failed cell in the config's order raises its error."""
+    if on_start is not None:
+        on_start(sweep.work(swept))
+    got = _Collected()
+    for outcome in sweep.run(
+        config,
+        swept,
+        jobs=jobs,
+        on_result=on_result,
+        store=store,
+        on_stored=got.served(on_stored),
+        scheduler=scheduler,
+        decks=decks,
+        reads=reads,
+        until=_mismatch,
+    ):
+        got.keep(outcome)
+    if got.failed_checks:
+        raise _first_failed(got.failed_checks, [c.name for c in config.cells])
+    return got
 
 
 def _work(
