@@ -109,19 +109,9 @@ def run(
         points = [p for p in points if p not in found]
     if not points or stop.asked:
         return  # all from the store (no worker pool started, no joblib loaded), or stopped
-    tasks = chunks(points)
-    jobs = jobs or default_jobs()
-    if scheduler is not None:
-        results: Generator[list[Outcome], None, None] = cluster.map_chunks(
-            scheduler, config, built, tasks
-        )
-    elif config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
-        # Each run is its own ngspice process already: a crash cannot take this one down.
-        results = _here(config, built, tasks, reads, stop)
-    else:
-        # Worker processes, not this one, run the simulator: a crash of the shared library
-        # then costs only the points in flight, which are re-run alone.
-        results = run_chunks(config, built, tasks, jobs, reads, stop)
+    results = _executed(
+        config, built, chunks(points), jobs or default_jobs(), reads, stop, scheduler
+    )
     # Closed as soon as the loop ends early (a store that cannot take a row, an interrupt): the
     # workers stop and their journals go now, not when the garbage collector gets to them.
     with contextlib.closing(results):
@@ -140,6 +130,26 @@ def run(
                 stop.asked = stop.asked or (until is not None and until(outcome))
             if stop.asked and scheduler is not None:
                 return
+
+
+def _executed(
+    config: LibraryConfig,
+    built: Mapping[str, Deck],
+    tasks: list[tuple[Work, ...]],
+    jobs: int,
+    reads: Reads | None,
+    stop: Stop,
+    scheduler: str | None,
+) -> Generator[list[Outcome], None, None]:
+    """The chunks' outcomes, batch by batch, from where they run."""
+    if scheduler is not None:
+        return cluster.map_chunks(scheduler, config, built, tasks)
+    if config.simulation.backend == "subprocess" and (jobs == 1 or len(tasks) <= 1):
+        # Each run is its own ngspice process already: a crash cannot take this one down.
+        return _here(config, built, tasks, reads, stop)
+    # Worker processes, not this one, run the simulator: a crash of the shared library then
+    # costs only the points in flight, which are re-run alone.
+    return run_chunks(config, built, tasks, jobs, reads, stop)
 
 
 def _here(
