@@ -3,13 +3,16 @@
 
 from __future__ import annotations
 
+import argparse
 import shutil
 import subprocess
 import tomllib
+import types
 from pathlib import Path
 
 import pytest
 
+from charflow.cli import shared
 from charflow.config import library as config
 from charflow.config.library import Fidelity
 from charflow.records.errors import ConfigError
@@ -157,3 +160,16 @@ def test_grid_study_bad_options(tmp_path: Path, args: tuple[str, ...], message: 
     assert "Traceback" not in done.stderr
     assert done.returncode == EXIT_BAD_INPUT, done.stderr
     assert message in done.stderr
+
+
+def test_failed_grid_points_leave_no_tables_to_check(monkeypatch, capsys) -> None:
+    """fidelity and paths read the tables: a failed grid point means none, listed on stderr
+    (the same ``shared.tables`` serves both commands)."""
+    failure = types.SimpleNamespace(message="cell QINV_P1, arc A->Y: no crossing")
+    result = types.SimpleNamespace(failures=(failure,))
+    fake = types.SimpleNamespace(characterize=lambda cfg, **kw: result)
+    monkeypatch.setattr(shared, "flow", fake)
+    args = argparse.Namespace(quiet=True, cell=None, jobs=1)
+    assert shared.tables(config.load(SMALL), args, None, "to check") is None
+    err = capsys.readouterr().err
+    assert "1 grid point(s) failed; no tables to check:" in err and "QINV_P1" in err

@@ -4,7 +4,6 @@ report how far each table is off."""
 from __future__ import annotations
 
 import argparse
-import sys
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -44,26 +43,8 @@ def command(args: argparse.Namespace) -> int:
         shared.output_folder(cfg.name, args) as out,
         store_mod.Store(out / store_mod.FILE_NAME) as store,
     ):
-        progress = shared.Progress(args.quiet)
-        try:
-            result = flow.characterize(
-                cfg,
-                cells=args.cell,
-                jobs=args.jobs,
-                store=store,
-                on_start=progress.start,
-                on_stored=progress.stored,
-                on_result=progress.result,
-            )
-        finally:
-            progress.close()
-        if result.failures:
-            print(
-                f"{len(result.failures)} grid point(s) failed; no tables to check:",
-                file=sys.stderr,
-            )
-            for f in result.failures[:20]:
-                print(f"  {f.message}", file=sys.stderr)
+        result = shared.tables(cfg, args, store, "to check")
+        if result is None:
             return EXIT_FAILED_POINTS
         # With a store the library holds every stored cell; the check is for the chosen ones.
         cells = [c for c in result.cells if args.cell is None or c.cell.name in args.cell]

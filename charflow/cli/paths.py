@@ -121,24 +121,8 @@ def command(args: argparse.Namespace) -> int:
         shared.output_folder(cfg.name, args) as out,
         store_mod.Store(out / store_mod.FILE_NAME) as store,
     ):
-        progress = shared.Progress(args.quiet)
-        try:
-            result = flow.characterize(
-                cfg,
-                cells=args.cell,
-                jobs=args.jobs,
-                store=store,
-                on_start=progress.start,
-                on_stored=progress.stored,
-                on_result=progress.result,
-            )
-        finally:
-            progress.close()
-        if result.failures:
-            print(
-                f"{len(result.failures)} grid point(s) failed; no tables to time paths with",
-                file=sys.stderr,
-            )
+        result = shared.tables(cfg, args, store, "to time paths with")
+        if result is None:
             return EXIT_FAILED_POINTS
         # The paths' input port gets the edge the tables were measured with (a driver's).
         cfg = flow.with_shape(cfg, result)

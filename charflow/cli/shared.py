@@ -14,6 +14,7 @@ import logging
 import sys
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from charflow.records.errors import (
     CharflowError,
@@ -25,10 +26,16 @@ from charflow.records.errors import (
 )
 from charflow.records.lazy import deferred
 
+if TYPE_CHECKING:
+    from charflow.config.library import LibraryConfig
+    from charflow.execution.store import Store
+    from charflow.flow.characterize import RunResult
+
 # The modules the commands use pull in numpy, scipy, matplotlib, jinja2 and the simulator's
 # bindings: seconds of start-up that --help, --version and a mistyped option should not pay.
 # Each cli module binds those it uses at its top with ``deferred``; they load on first use (not
 # to dodge an import cycle). Only the version and the error types are imported as usual.
+flow = deferred("charflow.flow.characterize")
 lock = deferred("charflow.execution.lock")
 outcomes = deferred("charflow.records.outcomes")
 tqdm = deferred("tqdm")
@@ -134,6 +141,33 @@ class Progress:
     def close(self) -> None:
         if self.bar is not None:
             self.bar.close()
+
+
+def tables(
+    cfg: LibraryConfig, args: argparse.Namespace, store: Store, use: str
+) -> RunResult | None:
+    """The library characterized for a command that reads its tables (``fidelity``, ``paths``):
+    the ``--cell`` chosen, the store reused, a progress bar. None when a grid point failed:
+    the failures are listed on stderr, there are no tables ``use`` says what for."""
+    progress = Progress(args.quiet)
+    try:
+        result = flow.characterize(
+            cfg,
+            cells=args.cell,
+            jobs=args.jobs,
+            store=store,
+            on_start=progress.start,
+            on_stored=progress.stored,
+            on_result=progress.result,
+        )
+    finally:
+        progress.close()
+    if result.failures:
+        print(f"{len(result.failures)} grid point(s) failed; no tables {use}:", file=sys.stderr)
+        for f in result.failures[:20]:
+            print(f"  {f.message}", file=sys.stderr)
+        return None
+    return result
 
 
 class _Stderr(logging.StreamHandler):
