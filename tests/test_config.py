@@ -522,3 +522,24 @@ def test_spice_cards_join_continuations_and_cut_comments():
     assert [c.line for c in cards] == [2, 4, 6]
     assert cards[1].line_at(cards[1].text.index("w=1u")) == 5
     assert netlist.find_subckt(text, "c").ports == ("A", "Y", "VDD", "VSS")
+
+
+@pytest.mark.parametrize(
+    ("section", "value", "key"),
+    [
+        ("corner", {"name": "ss"}, "corner"),
+        ("corner", ["ss"], "corner[0]"),
+        ("mismatch", {"device": {"model": "nmos"}}, "mismatch.device"),
+        ("mismatch", {"wrapped": [{"subckt": "x", "colour": 1}]}, "mismatch.wrapped[0].colour"),
+    ],
+)
+def test_an_array_of_tables_that_is_not_one_names_its_key(
+    cfg_path: Path, section: str, value: Any, key: str
+) -> None:
+    """``[[corner]]``, ``[[mismatch.device]]``, ``[[mismatch.wrapped]]``: not an array, an
+    entry not a table, an unknown key: each a problem at its own key."""
+    doc = _doc()
+    doc[section] = value
+    with pytest.raises(ConfigError) as info:
+        config.parse(doc, cfg_path)
+    assert f"key {key}:" in str(info.value), str(info.value)

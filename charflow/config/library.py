@@ -12,6 +12,7 @@ import hashlib
 import math
 import re
 import tomllib
+from collections.abc import Iterator
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -400,6 +401,21 @@ class _Reader:
                 cell,
             )
 
+    def entries(
+        self, docs: Any, key: str, allowed: set[str]
+    ) -> Iterator[tuple[str, dict[str, Any]]]:
+        """Each table of the array of tables ``[[key]]`` with its key (``key[i]``), checked for
+        unknown keys; what is not an array or not a table is a problem, left out."""
+        if not isinstance(docs, list):
+            self.problem(key, f"must be an array of tables: [[{key}]]")
+            return
+        for i, doc in enumerate(docs):
+            if not isinstance(doc, dict):
+                self.problem(f"{key}[{i}]", "must be a table")
+                continue
+            self.unknown(doc, allowed, f"{key}[{i}]", None)
+            yield f"{key}[{i}]", doc
+
     def get(
         self,
         table: dict[str, Any],
@@ -708,17 +724,9 @@ def _process(r: _Reader, doc: dict[str, Any], base: Path) -> Process:
 
 
 def _corners(r: _Reader, docs: Any, process: Process) -> tuple[Corner, ...]:
-    if not isinstance(docs, list):
-        r.problem("corner", "must be an array of tables: [[corner]]")
-        return ()
     corners: list[Corner] = []
     seen: set[str] = set()
-    for i, doc in enumerate(docs):
-        key = f"corner[{i}]"
-        if not isinstance(doc, dict):
-            r.problem(key, "must be a table")
-            continue
-        r.unknown(doc, _CORNER_KEYS, key, None)
+    for key, doc in r.entries(docs, "corner", _CORNER_KEYS):
         name = r.get(doc, "name", str, key)
         if name is not None and not _is_identifier(name):
             r.problem(f"{key}.name", f"must be a name of letters, digits and _, got {name!r}")
@@ -880,16 +888,8 @@ def _mismatch(r: _Reader, doc: dict[str, Any]) -> Mismatch:
 
 
 def _mismatch_devices(r: _Reader, docs: Any) -> tuple[DeviceMismatch, ...]:
-    if not isinstance(docs, list):
-        r.problem("mismatch.device", "must be an array of tables: [[mismatch.device]]")
-        return ()
     out: list[DeviceMismatch] = []
-    for i, doc in enumerate(docs):
-        key = f"mismatch.device[{i}]"
-        if not isinstance(doc, dict):
-            r.problem(key, "must be a table")
-            continue
-        r.unknown(doc, _DEVICE_KEYS, key, None)
+    for key, doc in r.entries(docs, "mismatch.device", _DEVICE_KEYS):
         model = r.get(doc, "model", str, key)
         polarity = r.get(doc, "polarity", str, key)
         if polarity is not None and polarity not in ("n", "p"):
@@ -907,17 +907,9 @@ def _mismatch_devices(r: _Reader, docs: Any) -> tuple[DeviceMismatch, ...]:
 def _wrapped_devices(
     r: _Reader, docs: Any, devices: tuple[DeviceMismatch, ...]
 ) -> tuple[WrappedDevice, ...]:
-    if not isinstance(docs, list):
-        r.problem("mismatch.wrapped", "must be an array of tables: [[mismatch.wrapped]]")
-        return ()
     out: list[WrappedDevice] = []
     models = {d.model.lower() for d in devices}
-    for i, doc in enumerate(docs):
-        key = f"mismatch.wrapped[{i}]"
-        if not isinstance(doc, dict):
-            r.problem(key, "must be a table")
-            continue
-        r.unknown(doc, _WRAPPED_KEYS, key, None)
+    for key, doc in r.entries(docs, "mismatch.wrapped", _WRAPPED_KEYS):
         subckt = r.get(doc, "subckt", str, key)
         model = r.get(doc, "model", str, key)
         width = r.get(doc, "width", str, key, "w")
