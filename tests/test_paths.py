@@ -164,6 +164,14 @@ def test_prediction_against_simulation_and_opensta(small, tmp_path: Path) -> Non
             assert s.sta_arrival == pytest.approx(s.predicted.arrival, abs=2 * PRINTED_S)
     doc = paths.to_json(cfg, corr)
     assert doc["summary"]["opensta"]["paths"] == 4
+    # Per input slew: two paths each, and together the whole run's spread.
+    rows = doc["summary_by_input_slew"]
+    assert [r["input_slew_s"] for r in rows] == list(setup.slews)
+    assert [r["predicted"]["paths"] for r in rows] == [2, 2]
+    worst = max(r["predicted"]["worst_abs_error"] for r in rows)
+    assert worst == doc["summary"]["predicted"]["worst_abs_error"]
+    lines = paths.summary_lines(cfg, corr)
+    assert sum(line.strip().startswith("predicted at input slew") for line in lines) == 2
 
 
 def test_replica_of_the_last_stage_is_the_stage(small, tmp_path: Path) -> None:

@@ -399,9 +399,16 @@ class Correlation:
     simulations: int
     wall_seconds: float
 
-    def errors(self, which: Callable[[PathResult], float | None]) -> np.ndarray:
-        """The path-delay errors of every measured path, of the value ``which`` picks."""
-        found = [r.error(which(r)) for r in self.results if r.failure is None]
+    def errors(
+        self, which: Callable[[PathResult], float | None], slew: float | None = None
+    ) -> np.ndarray:
+        """The path-delay errors of every measured path (at input slew ``slew`` only, if
+        given), of the value ``which`` picks."""
+        found = [
+            r.error(which(r))
+            for r in self.results
+            if r.failure is None and (slew is None or r.slew == slew)
+        ]
         return np.array([e for e in found if e is not None])
 
 
@@ -552,8 +559,11 @@ def with_sta(
     return replace(corr, results=tuple(out))
 
 
-def summary(corr: Correlation) -> dict[str, dict[str, float | int] | None]:
-    """Median and worst |error| of the path delay, per column and experiment."""
+def summary(
+    corr: Correlation, slew: float | None = None
+) -> dict[str, dict[str, float | int] | None]:
+    """Median and worst |error| of the path delay, per column (at input slew ``slew`` only,
+    if given)."""
     columns: dict[str, Callable[[PathResult], float | None]] = {
         "predicted": lambda r: r.predicted,
         "predicted_one_number_capacitance": lambda r: r.stages[-1].single.arrival,
@@ -561,7 +571,7 @@ def summary(corr: Correlation) -> dict[str, dict[str, float | int] | None]:
     }
     out: dict[str, dict[str, float | int] | None] = {}
     for name, pick in columns.items():
-        e = corr.errors(pick)
+        e = corr.errors(pick, slew)
         out[name] = (
             None
             if e.size == 0
@@ -573,6 +583,12 @@ def summary(corr: Correlation) -> dict[str, dict[str, float | int] | None]:
             }
         )
     return out
+
+
+def by_slew(corr: Correlation) -> list[dict]:
+    """``summary`` at each input slew: the error grows where the port's edge is slower than any
+    edge a gate of the path makes, and a goal may hold at some slews only."""
+    return [{"input_slew_s": s, **summary(corr, s)} for s in corr.setup.slews]
 
 
 def decomposition(corr: Correlation) -> dict[str, float | None]:
@@ -635,6 +651,7 @@ def to_json(config: LibraryConfig, corr: Correlation) -> dict:
             "error": "(value - simulated) / simulated; negative: too fast",
         },
         "summary": summary(corr),
+        "summary_by_input_slew": by_slew(corr),
         "stage_effects": decomposition(corr),
         "simulations": corr.simulations,
         "wall_seconds": round(corr.wall_seconds, 3),
@@ -673,6 +690,19 @@ def pin_load_note(which: str) -> str:
     return f"pins' capacitance: charge {charge}; OpenSTA's: the Liberty file's"
 
 
+def _slew_lines(corr: Correlation, t: float, tu: str) -> list[str]:
+    """The tables' prediction's spread at each input slew (with more than one)."""
+    if len(corr.setup.slews) < 2:
+        return []
+    return [
+        f"  predicted at input slew {row['input_slew_s'] / t:.4g} {tu}: median |error| "
+        f"{s['median_abs_error'] * 100:.2f} %, worst {s['worst_abs_error'] * 100:.2f} % "
+        f"({s['paths']} paths)"
+        for row in by_slew(corr)
+        if (s := row["predicted"]) is not None
+    ]
+
+
 def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     """The terminal table: one line per path run, then the spread and the stage effects."""
     t, tu = config.time_scale, config.time_unit
@@ -702,6 +732,7 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
                 f"{s['worst_abs_error'] * 100:.2f} %, mean {s['mean_error'] * 100:+.2f} % "
                 f"({s['paths']} paths)"
             )
+    lines += _slew_lines(corr, t, tu)
     effects = ", ".join(f"{k} {_pct(v)}" for k, v in decomposition(corr).items())
     lines.append(f"mean per-stage delay effects (tables minus simulation): {effects}")
     return lines

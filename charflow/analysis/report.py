@@ -514,6 +514,12 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
         f"{s['worst_abs_error'] * 100:.2f} %, mean {s['mean_error'] * 100:+.2f} %</li>"
         for name, s in paths.summary(corr).items()
         if s is not None
+    ) + "".join(
+        f"<li>predicted at input slew {row['input_slew_s'] / config.time_scale:.4g} {tu}: "
+        f"median |error| {s['median_abs_error'] * 100:.2f} %, worst "
+        f"{s['worst_abs_error'] * 100:.2f} %</li>"
+        for row in paths.by_slew(corr)
+        if (s := row["predicted"]) is not None and len(corr.setup.slews) > 1
     )
     effects = "".join(
         f"<li>{k}: {'-' if v is None else f'{v * 100:+.2f} %'}</li>"
