@@ -474,6 +474,36 @@ def _result(
     return PathResult(path, p.slew, p.input_edge, tuple(stages))
 
 
+_Measured = tuple[Path, _Circuit, PathPoint, list[tuple[float, ...]]]
+
+
+def _split(
+    points: Sequence[PathPoint],
+    prepared: Mapping[str, _Circuit],
+    runs: Mapping[Work, Outcome],
+    cells: _Cells,
+    slew_cells: _Cells,
+) -> tuple[list[_Measured], list[PathResult], list[TimingPoint]]:
+    """The path runs' paths: measured (with each stage's simulated values), failed (with the
+    reason), and the ramp points of every measured stage (its table edge at its simulated
+    input slew and its lumped load)."""
+    measured, failed, ramp_points = [], [], []
+    for p in points:
+        c, o = prepared[p.cell], runs[p]
+        for path in c.paths:
+            if not isinstance(o, PathMeasurement):
+                reason = o.reason if isinstance(o, Failure) else "no measurement"
+                failed.append(PathResult(path, p.slew, p.input_edge, (), reason))
+                continue
+            sims = _stage_sims(o, c, path)
+            pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
+            ramp_points += [
+                _ramp_point(st, t, s[1]) for st, t, s in zip(path.stages, pred, sims, strict=True)
+            ]
+            measured.append((path, c, p, sims))
+    return measured, failed, ramp_points
+
+
 def correlate(
     config: LibraryConfig,
     circuits: Sequence[Circuit],
@@ -509,20 +539,7 @@ def correlate(
     runs = {
         o.point: o for o in sweep.run(config, points, jobs=jobs, decks=decks, on_result=on_result)
     }
-    measured, failed, ramp_points = [], [], []
-    for p in points:
-        c, o = prepared[p.cell], runs[p]
-        for path in c.paths:
-            if not isinstance(o, PathMeasurement):
-                reason = o.reason if isinstance(o, Failure) else "no measurement"
-                failed.append(PathResult(path, p.slew, p.input_edge, (), reason))
-                continue
-            sims = _stage_sims(o, c, path)
-            pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
-            ramp_points += [
-                _ramp_point(st, t, s[1]) for st, t, s in zip(path.stages, pred, sims, strict=True)
-            ]
-            measured.append((path, c, p, sims))
+    measured, failed, ramp_points = _split(points, prepared, runs, cells, slew_cells)
     unique = list(dict.fromkeys(ramp_points))
     ramps = {o.point: o for o in sweep.run(config, unique, jobs=jobs)}
     results = [_result(path, c, cells, p, sims, ramps, slew_cells) for path, c, p, sims in measured]

@@ -256,19 +256,10 @@ def heat_maps(
     )
 
 
-def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | None = None) -> str:
-    """The fidelity report: settings, a sortable summary of every table, one heat map each."""
-    s = report.settings
-    spread = report.spread()
-    vmax = 0.0 if spread is None else spread[0]
-    head = (
-        "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
-        "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
-        "<th>worst at</th><th>max error bar</th><th>median error bar</th></tr>"
-    )
-    checks = report.checks
-    ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
-    rows = "\n".join(_summary_row(config, n, checks[n]) for n in ranked)
+def _fidelity_figures(
+    config: LibraryConfig, checks: Sequence[TableCheck], vmax: float, jobs: int | None
+) -> list[str]:
+    """One figure per checked table: its heat map (2D and 3D tables), its probes' count."""
     planar = [n for n, c in enumerate(checks) if c.table.ndim in (2, 3)]
     drawn = heat_maps(config, [checks[n] for n in planar], vmax, jobs)
     maps = dict(zip(planar, drawn, strict=True))
@@ -282,19 +273,43 @@ def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | Non
         figures.append(
             f'<figure id="t{n}">{body}<figcaption>{html.escape(caption)}</figcaption></figure>'
         )
-    spread_text = (
+    return figures
+
+
+def _fidelity_spread(config: LibraryConfig, report: FidelityReport) -> str:
+    """The report's one-paragraph spread: tables' errors and, if measured, their error bars."""
+    spread = report.spread()
+    text = (
         "No probe simulated."
         if spread is None
         else f"Largest relative error per table: worst {pct(spread[0])}, median {pct(spread[1])}."
     )
     bar_spread = report.bar_spread()
     if bar_spread is not None:
-        spread_text += (
+        text += (
             " Error bars (the simulator's numerical error of each grid value, re-measured at "
             f"tightened settings): largest {pct(bar_spread[0])}, median of the tables' medians "
             f"{pct(bar_spread[1])}; {bar_spread[2]} value(s) over "
             f"{pct(config.error_bars.warn_above)}."
         )
+    return text
+
+
+def fidelity_html(config: LibraryConfig, report: FidelityReport, jobs: int | None = None) -> str:
+    """The fidelity report: settings, a sortable summary of every table, one heat map each."""
+    s = report.settings
+    spread = report.spread()
+    vmax = 0.0 if spread is None else spread[0]
+    head = (
+        "<tr><th>cell</th><th>arc</th><th>state</th><th>table</th><th>points</th>"
+        "<th>failed</th><th>max rel</th><th>rms rel</th><th>p95 rel</th><th>max abs</th>"
+        "<th>worst at</th><th>max error bar</th><th>median error bar</th></tr>"
+    )
+    checks = report.checks
+    ranked = sorted(range(len(checks)), key=lambda n: severity(checks[n]), reverse=True)
+    rows = "\n".join(_summary_row(config, n, checks[n]) for n in ranked)
+    figures = _fidelity_figures(config, checks, vmax, jobs)
+    spread_text = _fidelity_spread(config, report)
     name = html.escape(config.name)
     floor = html.escape(show_time(s.rel_floor, config.time_unit))
     return f"""<!DOCTYPE html>

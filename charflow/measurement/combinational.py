@@ -249,18 +249,9 @@ def measure_point(
     edge = _measure_edge(config, point, tran, (step, samples), stop, window, out_node, nodes)
     result = edge.result
     t = result.vectors["time"]
-    vin = result.vectors[in_node]
     with edge.saved:
-        level = thr.delay_input(point.input_edge) * vdd
-        t_in = single_crossing(t, vin, level, point.input_edge, f"input {point.related}")
-        t_band = [
-            single_crossing(t, vin, f * vdd, point.input_edge, f"input {point.related}")
-            for f in thr.slew_band(point.input_edge)
-        ]
-    # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
-    charge = -integral(t, result.vectors[in_branch], ramp.start)
-    to_threshold = -integral(t, result.vectors[in_branch], ramp.start, t_in)
-    slew_window = -integral(t, result.vectors[in_branch], min(t_band), max(t_band))
+        t_in, charges = _input_charges(config, point, t, result.vectors, (in_node, in_branch), ramp)
+    charge, to_threshold, slew_window = charges
     current = -result.vectors[supply]
     static = (float(current[0]), static_current(config, deck, after))
     energy = supply_energy(t, current, vdd, t_in, static)
@@ -279,6 +270,33 @@ def measure_point(
         stop_cap=stop,
         input_charge_to_threshold=to_threshold,
         input_charge_slew_window=slew_window,
+    )
+
+
+def _input_charges(
+    config: LibraryConfig,
+    point: TimingPoint,
+    t: np.ndarray,
+    vectors: Mapping[str, np.ndarray],
+    names: tuple[str, str],
+    ramp: stimulus.Ramp,
+) -> tuple[float, tuple[float, float, float]]:
+    """The input's delay-threshold crossing (s) and the charge (C) into the input pin over the
+    whole edge, up to that crossing, and between the slew-threshold crossings; ``names`` are
+    the input node's and its source's branch current's vectors."""
+    thr, vdd = config.thresholds, config.process.vdd
+    vin, branch = vectors[names[0]], vectors[names[1]]
+    what = f"input {point.related}"
+    t_in = single_crossing(t, vin, thr.delay_input(point.input_edge) * vdd, point.input_edge, what)
+    band = [
+        single_crossing(t, vin, f * vdd, point.input_edge, what)
+        for f in thr.slew_band(point.input_edge)
+    ]
+    # The source's branch current flows into its + node from outside: charge into the pin is −∫i.
+    return t_in, (
+        -integral(t, branch, ramp.start),
+        -integral(t, branch, ramp.start, t_in),
+        -integral(t, branch, min(band), max(band)),
     )
 
 
