@@ -561,77 +561,88 @@ def run(
 
 def render(results: list[LibraryBench]) -> str:
     """The benchmark's report: a table per library, then the ratios against their targets."""
-    head = (
-        f"  {'':<34}{'points':>7}{'sims':>6}{'wall s':>8}{'sims/s':>8}{'simulator s':>12}"
-        f"{'wall/floor':>11}{'sweep/floor':>12}{'CPU s':>7}{'peak MB':>8}"
-    )
     lines = [
         "floor = simulator time / workers; sweep = its start to its last point (function checks "
         "included), without start-up and writing",
         "",
     ]
     for r in results:
-        lines += [r.name, head]
-        for s in (r.one, r.full, r.naive):
-            ratios = (
-                f"{s.analysis:>12.2f}{s.floor_ratio:>11.2f}{s.sweep_floor_ratio:>12.2f}"
-                if not math.isnan(s.analysis)
-                else f"{'-':>12}{'-':>11}{'-':>12}"
-            )
-            tail = f"{s.cpu:>7.2f}" + (
-                f"{s.peak_rss / 1e6:>8.0f}" if s.peak_rss is not None else f"{'-':>8}"
-            )
-            lines.append(
-                f"  {s.label:<34}{s.points:>7}{s.simulations:>6}{s.wall:>8.2f}"
-                f"{s.simulations_per_second:>8.0f}{ratios}{tail}"
-            )
-        for s in (r.one, r.full):
-            parts = ", ".join(f"{name} {t:.2f}" for name, t in s.stages)
-            lines.append(f"  {s.label} stages (s): {parts}")
-            lines.append(
-                f"  {s.label}: {s.reads} testbench reads, {s.read_seconds:.2f} s (all workers), "
-                f"at most {s.most_reads} of one cell"
-            )
-        kinds = "; ".join(f"{k} {n} points, {sims} simulations" for k, n, sims in r.full.kinds)
-        lines.append(f"  simulated ({r.full.label}): {kinds}")
-        if r.full.spread is not None:
-            lines.append(_spread_line(r.full.spread))
-        lines += [
-            *_naive_lines(r),
-            f"  scaling 1 -> {r.full.workers} workers {r.scaling:.2f}x (sweep alone "
-            f"{r.sweep_scaling:.2f}x); in the sweep each worker is inside the simulator "
-            f"{r.one.busy:.0%} of the time on 1 worker, {r.full.busy:.0%} on {r.full.workers}",
-            *(f"  {n}" for n in r.notes),
-            "",
-        ]
+        lines += _library_lines(r)
     lines.append("targets")
     for r in results:
-        if r.name in TARGET_SPEEDUP and r.gates_only:
-            lines.append(_target(f"speed-up, {r.name}", r.speedup, TARGET_SPEEDUP[r.name], ">="))
-        if r.name in FLOOR_LIBRARIES:
-            for what, value in (("wall", r.full.floor_ratio), ("sweep", r.full.sweep_floor_ratio)):
-                lines.append(_target(f"{what}/floor, {r.name}", value, TARGET_FLOOR_RATIO, "<="))
-        if r.name == "BSIM demo" and r.full.workers == 2:
-            lines.append(_target("demo wall s, 2 workers", r.full.wall, TARGET_DEMO_SECONDS, "<="))
-        if r.full.workers == 2:
-            for what, value in (("", r.scaling), (" (sweep)", r.sweep_scaling)):
-                lines.append(
-                    _target(f"scaling 1 -> 2{what}, {r.name}", value, TARGET_SCALING, ">=")
-                )
-        if r.full.spread is not None:
-            lines.append(
-                _target(
-                    f"sigma tables / nominal run sims, {r.name}",
-                    r.full.spread.ratio,
-                    TARGET_SPREAD_RATIO,
-                    "<=",
-                )
-            )
-        peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
-        lines.append(
-            _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
-        )
+        lines += _target_lines(r)
     return "\n".join(lines)
+
+
+def _library_lines(r: LibraryBench) -> list[str]:
+    """One library's table: its runs, their stages and reads, the kinds simulated, scaling."""
+    head = (
+        f"  {'':<34}{'points':>7}{'sims':>6}{'wall s':>8}{'sims/s':>8}{'simulator s':>12}"
+        f"{'wall/floor':>11}{'sweep/floor':>12}{'CPU s':>7}{'peak MB':>8}"
+    )
+    lines = [r.name, head]
+    for s in (r.one, r.full, r.naive):
+        ratios = (
+            f"{s.analysis:>12.2f}{s.floor_ratio:>11.2f}{s.sweep_floor_ratio:>12.2f}"
+            if not math.isnan(s.analysis)
+            else f"{'-':>12}{'-':>11}{'-':>12}"
+        )
+        tail = f"{s.cpu:>7.2f}" + (
+            f"{s.peak_rss / 1e6:>8.0f}" if s.peak_rss is not None else f"{'-':>8}"
+        )
+        lines.append(
+            f"  {s.label:<34}{s.points:>7}{s.simulations:>6}{s.wall:>8.2f}"
+            f"{s.simulations_per_second:>8.0f}{ratios}{tail}"
+        )
+    for s in (r.one, r.full):
+        parts = ", ".join(f"{name} {t:.2f}" for name, t in s.stages)
+        lines.append(f"  {s.label} stages (s): {parts}")
+        lines.append(
+            f"  {s.label}: {s.reads} testbench reads, {s.read_seconds:.2f} s (all workers), "
+            f"at most {s.most_reads} of one cell"
+        )
+    kinds = "; ".join(f"{k} {n} points, {sims} simulations" for k, n, sims in r.full.kinds)
+    lines.append(f"  simulated ({r.full.label}): {kinds}")
+    if r.full.spread is not None:
+        lines.append(_spread_line(r.full.spread))
+    return [
+        *lines,
+        *_naive_lines(r),
+        f"  scaling 1 -> {r.full.workers} workers {r.scaling:.2f}x (sweep alone "
+        f"{r.sweep_scaling:.2f}x); in the sweep each worker is inside the simulator "
+        f"{r.one.busy:.0%} of the time on 1 worker, {r.full.busy:.0%} on {r.full.workers}",
+        *(f"  {n}" for n in r.notes),
+        "",
+    ]
+
+
+def _target_lines(r: LibraryBench) -> list[str]:
+    """One library's measured ratios against the targets that apply to it."""
+    lines = []
+    if r.name in TARGET_SPEEDUP and r.gates_only:
+        lines.append(_target(f"speed-up, {r.name}", r.speedup, TARGET_SPEEDUP[r.name], ">="))
+    if r.name in FLOOR_LIBRARIES:
+        for what, value in (("wall", r.full.floor_ratio), ("sweep", r.full.sweep_floor_ratio)):
+            lines.append(_target(f"{what}/floor, {r.name}", value, TARGET_FLOOR_RATIO, "<="))
+    if r.name == "BSIM demo" and r.full.workers == 2:
+        lines.append(_target("demo wall s, 2 workers", r.full.wall, TARGET_DEMO_SECONDS, "<="))
+    if r.full.workers == 2:
+        for what, value in (("", r.scaling), (" (sweep)", r.sweep_scaling)):
+            lines.append(_target(f"scaling 1 -> 2{what}, {r.name}", value, TARGET_SCALING, ">="))
+    if r.full.spread is not None:
+        lines.append(
+            _target(
+                f"sigma tables / nominal run sims, {r.name}",
+                r.full.spread.ratio,
+                TARGET_SPREAD_RATIO,
+                "<=",
+            )
+        )
+    peak = max(s.peak_rss or 0.0 for s in (r.one, r.full))
+    lines.append(
+        _target(f"peak MB per process, {r.name}", peak / 1e6, TARGET_PEAK_BYTES / 1e6, "<=")
+    )
+    return lines
 
 
 def _spread_line(c: SpreadCost) -> str:
