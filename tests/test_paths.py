@@ -38,6 +38,10 @@ LADDER_C = 0.5e-12  # F on every node of the RC ladder
 LADDER_SLEW = 0.1e-9  # s, the input ramp's table slew
 # ngspice's crossings against the integrated ladder: the simulator's step and tolerances.
 LADDER_RTOL = 5e-3
+# The charge a receiving pin drew in the ladder against the integrated node voltages: measured
+# within 1.8e-6 (December 2026; both integrate the same currents, trapezoidal against scipy's
+# dense output), so 1e-4.
+DRAW_RTOL = 1e-4
 # The tables' path delay against the whole path simulated, small_l1 (3 x 3 grid): measured
 # -3.1 % to -4.4 % on CHAIN with the test's loads (December 2026; coarse-grid interpolation, the
 # input shape and the pins' load, see docs/history/2026-12-paths.md), so a tolerance of 6 %.
@@ -87,6 +91,17 @@ def _circuit(tmp: Path, text: str, cfg):
 
 def _ladder(cfg, stages: int, port: float) -> list[float]:
     """Arrival at each ladder node (after the input's 50 % crossing), integrated by scipy."""
+    sol, ramp, end, _ = _ladder_solution(cfg, stages, port)
+    t_in = ramp.time_at(0.5)
+    vdd = cfg.process.vdd
+    return [
+        brentq(lambda t, k=k: sol.sol(t)[k] - vdd / 2, ramp.start, end, xtol=1e-18) - t_in
+        for k in range(stages)
+    ]
+
+
+def _ladder_solution(cfg, stages: int, port: float):
+    """The ladder's node voltages integrated by scipy, its input ramp, end time and node caps."""
     vdd = cfg.process.vdd
     ramp = stimulus.ramp(LADDER_SLEW, "rise", cfg.thresholds, vdd)
     caps = np.full(stages, LADDER_C)
@@ -111,11 +126,7 @@ def _ladder(cfg, stages: int, port: float) -> list[float]:
         dense_output=True,
         max_step=ramp.duration / 20,
     )
-    t_in = ramp.time_at(0.5)
-    return [
-        brentq(lambda t, k=k: sol.sol(t)[k] - vdd / 2, ramp.start, end, xtol=1e-18) - t_in
-        for k in range(stages)
-    ]
+    return sol, ramp, end, caps
 
 
 def test_rc_ladder_against_scipy(tmp_path: Path) -> None:
@@ -137,6 +148,30 @@ def test_rc_ladder_against_scipy(tmp_path: Path) -> None:
     expected = _ladder(cfg, stages, port)
     simulated = [s.sim_arrival for s in run.stages]
     np.testing.assert_allclose(simulated, expected, rtol=LADDER_RTOL)
+    _check_ladder_draws(cfg, run, stages, port)
+
+
+def _check_ladder_draws(cfg, run, stages: int, port: float) -> None:
+    """What each receiving RC cell drew in the path: the charge into its pin is the charge
+    on every capacitor after it (Kirchhoff's current law), so its to-threshold and
+    slew-window capacitances follow from the integrated node voltages."""
+    sol, ramp, end, caps = _ladder_solution(cfg, stages, port)
+    vdd = cfg.process.vdd
+
+    def crossing(k: int, level: float) -> float:
+        return brentq(lambda t: sol.sol(t)[k] - level * vdd, ramp.start, end, xtol=1e-18)
+
+    def charge(k: int, t: float) -> float:  # on the capacitors after net k
+        return float(np.dot(caps[k + 1 :], sol.sol(t)[k + 1 :]))
+
+    for k, stage in enumerate(run.stages[:-1]):  # the last stage drives the port only
+        (draw,) = stage.receivers
+        assert (draw.gate, draw.pin, draw.edge) == (f"u{k + 2}", "A", "rise")
+        to_threshold = charge(k, crossing(k, 0.5)) / (0.5 * vdd)
+        window = (charge(k, crossing(k, 0.8)) - charge(k, crossing(k, 0.2))) / (0.6 * vdd)
+        _, got_threshold, got_window = draw.in_path
+        assert got_threshold == pytest.approx(to_threshold, rel=DRAW_RTOL)
+        assert got_window == pytest.approx(window, rel=DRAW_RTOL)
 
 
 def test_prediction_against_simulation_and_opensta(small, tmp_path: Path) -> None:
@@ -383,6 +418,14 @@ def test_paths_command_on_the_demo(tmp_path: Path, capsys: pytest.CaptureFixture
     for run in doc["paths"]:
         assert run["failure"] is None and len(run["per_stage"]) == 5
         assert run["arrival_s"]["opensta"] is not None
+        # Every stage but the last drives gate pins: what each drew, beside the library's.
+        for stage in run["per_stage"][:-1]:
+            assert stage["receivers"]
+            for pin in stage["receivers"]:
+                assert pin["to_threshold_F"]["in_path"] > 0
+                assert pin["to_threshold_F"]["library"] > 0
+    assert doc["receivers_in_path_over_library"]["all"]["to_threshold"]["pins"] > 0
+    assert "receivers: in-path charge over the library's capacitance" in said
     assert (out / "vellum90_tt.paths.html").read_text(encoding="utf-8").startswith("<!doctype")
 
 

@@ -38,7 +38,13 @@ from charflow.records.outcomes import Failure, Measurement, Outcome, PathMeasure
 from charflow.records.paths import CONSTANTS, Circuit, Path, Stage
 from charflow.records.points import PathPoint, State, TimingPoint, Work
 from charflow.simulation.netlist import Deck
-from charflow.simulation.pathdeck import Replica, build_path_deck, node, replica_node
+from charflow.simulation.pathdeck import (
+    Replica,
+    build_path_deck,
+    node,
+    pin_probe,
+    replica_node,
+)
 from charflow.tables.table import Table, interpolate
 from charflow.tables.tabulate import ArcTables, CellTables, PinCap
 
@@ -338,6 +344,14 @@ def _point(
             nodes[replica_node(c.replicas[(stage.gate, t.input_edge)].name)] = t.output_edge
             sharpest = min(sharpest, t.slew_out)
         latest = max(latest, timed[-1].arrival + 2 * timed[-1].slew_out)
+    nets = dict.fromkeys(
+        [c.circuit.start, *(stage.net_out for path in c.paths for stage in path.stages)]
+    )
+    probes = tuple(
+        (pin_probe(gate, pin), node(net))
+        for net in nets
+        for gate, _, pin in c.loads.pins.get(net, ())
+    )
     return PathPoint(
         cell=c.circuit.name,
         start=c.circuit.start,
@@ -346,7 +360,23 @@ def _point(
         nodes=tuple(nodes.items()),
         step=sharpest / SAMPLES_PER_EDGE,
         stop=STOP_MARGIN * (latest + 2 * slew),
+        probes=probes,
     )
+
+
+@dataclass(frozen=True, slots=True)
+class PinDraw:
+    """What one pin on a stage's output net drew in the path run, as capacitances (F): the
+    charge over the whole run over Vdd, up to its net's input delay threshold over the swing to
+    it, between the net's slew thresholds over the voltage between them; beside the library's
+    values of the same pin and edge (``PinCap``; None where not measured)."""
+
+    gate: str
+    cell: str
+    pin: str
+    edge: str  # the net's
+    in_path: tuple[float, float, float]  # whole edge, to threshold, slew window
+    library: tuple[float | None, float | None, float | None]
 
 
 @dataclass(frozen=True, slots=True)
@@ -367,6 +397,7 @@ class StageResult:
     sta_delay: float | None = None
     sta_slew: float | None = None
     sta_arrival: float | None = None
+    receivers: tuple[PinDraw, ...] = ()  # the gate pins on its output net
 
 
 @dataclass(frozen=True, slots=True)
@@ -440,27 +471,54 @@ def _stage_sims(m: PathMeasurement, c: _Circuit, path: Path) -> list[tuple[float
     return out
 
 
+@dataclass(frozen=True, slots=True)
+class _Timing:
+    """What every path run of a correlation is timed and judged with."""
+
+    config: LibraryConfig
+    cells: _Cells  # pin capacitances of the setup's pin load, for the delay lookups
+    slew_cells: _Cells  # ... for the output slew lookups
+    given: _Cells  # as characterized: the library's pin capacitances
+
+
+def _draws(t: _Timing, m: PathMeasurement, c: _Circuit, net: str) -> tuple[PinDraw, ...]:
+    """Every gate pin on ``net``: what it drew in the path run, beside the library's values."""
+    probe = {source: i for i, (source, _) in enumerate(m.point.probes)}
+    edge = dict(m.point.nodes)[node(net)]
+    vdd, thr = t.config.process.vdd, t.config.thresholds
+    swings = (vdd, thr.to_input_threshold(edge) * vdd, thr.slew_swing(edge) * vdd)
+    out = []
+    for gate, cell, pin in c.loads.pins.get(net, ()):
+        charges = m.pin_charges[probe[pin_probe(gate, pin)]]
+        cap = next(p for p in t.given[cell].pins if p.pin == pin)
+        library = (
+            getattr(cap, edge),
+            getattr(cap, f"{edge}_to_threshold"),
+            getattr(cap, f"{edge}_slew_window"),
+        )
+        whole, to_threshold, window = (abs(q) / v for q, v in zip(charges, swings, strict=True))
+        out.append(PinDraw(gate, cell, pin, edge, (whole, to_threshold, window), library))
+    return tuple(out)
+
+
 def _result(
-    path: Path,
-    c: _Circuit,
-    cells: Mapping[str, CellTables],
-    p: PathPoint,
-    sims: Sequence[tuple[float, ...]],
-    ramps: Mapping[Work, Outcome],
-    slew_cells: _Cells,
+    t: _Timing, path: Path, c: _Circuit, m: PathMeasurement, ramps: Mapping[Work, Outcome]
 ) -> PathResult:
-    pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
-    single = predict(path, cells, c.loads, p.slew, p.input_edge, SINGLE, slew_cells)
+    p = m.point
+    pred = predict(path, t.cells, c.loads, p.slew, p.input_edge, slew_cells=t.slew_cells)
+    single = predict(path, t.cells, c.loads, p.slew, p.input_edge, SINGLE, t.slew_cells)
     stages = []
-    for stage, t, one, sim in zip(path.stages, pred, single, sims, strict=True):
+    for stage, timed, one, sim in zip(
+        path.stages, pred, single, _stage_sims(m, c, path), strict=True
+    ):
         delay, slew_in, slew_out, arrival, replica = sim
-        ramp = ramps.get(_ramp_point(stage, t, slew_in))
-        delay_t, _ = stage_tables(cells[stage.cell], stage, t.output_edge)
-        at_sim = float(interpolate(delay_t, [(slew_in, t.load)])[0])
+        ramp = ramps.get(_ramp_point(stage, timed, slew_in))
+        delay_t, _ = stage_tables(t.cells[stage.cell], stage, timed.output_edge)
+        at_sim = float(interpolate(delay_t, [(slew_in, timed.load)])[0])
         stages.append(
             StageResult(
                 stage=stage,
-                predicted=t,
+                predicted=timed,
                 single=one,
                 sim_delay=delay,
                 sim_slew_in=slew_in,
@@ -469,24 +527,23 @@ def _result(
                 replica_delay=replica,
                 ramp_delay=ramp.delay if isinstance(ramp, Measurement) else None,
                 table_delay=at_sim,
+                receivers=_draws(t, m, c, stage.net_out),
             )
         )
     return PathResult(path, p.slew, p.input_edge, tuple(stages))
 
 
-_Measured = tuple[Path, _Circuit, PathPoint, list[tuple[float, ...]]]
+_Measured = tuple[Path, _Circuit, PathMeasurement]
 
 
 def _split(
+    t: _Timing,
     points: Sequence[PathPoint],
     prepared: Mapping[str, _Circuit],
     runs: Mapping[Work, Outcome],
-    cells: _Cells,
-    slew_cells: _Cells,
 ) -> tuple[list[_Measured], list[PathResult], list[TimingPoint]]:
-    """The path runs' paths: measured (with each stage's simulated values), failed (with the
-    reason), and the ramp points of every measured stage (its table edge at its simulated
-    input slew and its lumped load)."""
+    """The path runs' paths: measured, failed (with the reason), and the ramp points of every
+    measured stage (its table edge at its simulated input slew and its lumped load)."""
     measured, failed, ramp_points = [], [], []
     for p in points:
         c, o = prepared[p.cell], runs[p]
@@ -496,11 +553,11 @@ def _split(
                 failed.append(PathResult(path, p.slew, p.input_edge, (), reason))
                 continue
             sims = _stage_sims(o, c, path)
-            pred = predict(path, cells, c.loads, p.slew, p.input_edge, slew_cells=slew_cells)
+            pred = predict(path, t.cells, c.loads, p.slew, p.input_edge, slew_cells=t.slew_cells)
             ramp_points += [
-                _ramp_point(st, t, s[1]) for st, t, s in zip(path.stages, pred, sims, strict=True)
+                _ramp_point(st, x, s[1]) for st, x, s in zip(path.stages, pred, sims, strict=True)
             ]
-            measured.append((path, c, p, sims))
+            measured.append((path, c, o))
     return measured, failed, ramp_points
 
 
@@ -522,8 +579,13 @@ def correlate(
             f"[input_shape] kind = {shape.kind!r}: its edges are not measured yet; time the "
             "paths with the config the tables were measured with (flow.characterize.with_shape)"
         )
-    slew_cells = with_pin_load(cells, setup.pin_load, SLEW)
-    cells = with_pin_load(cells, setup.pin_load)
+    timing = _Timing(
+        config,
+        with_pin_load(cells, setup.pin_load),
+        with_pin_load(cells, setup.pin_load, SLEW),
+        cells,
+    )
+    cells, slew_cells = timing.cells, timing.slew_cells
     begin = time.perf_counter()
     prepared, decks = {}, {}
     for circuit in circuits:
@@ -539,10 +601,10 @@ def correlate(
     runs = {
         o.point: o for o in sweep.run(config, points, jobs=jobs, decks=decks, on_result=on_result)
     }
-    measured, failed, ramp_points = _split(points, prepared, runs, cells, slew_cells)
+    measured, failed, ramp_points = _split(timing, points, prepared, runs)
     unique = list(dict.fromkeys(ramp_points))
     ramps = {o.point: o for o in sweep.run(config, unique, jobs=jobs)}
-    results = [_result(path, c, cells, p, sims, ramps, slew_cells) for path, c, p, sims in measured]
+    results = [_result(timing, path, c, m, ramps) for path, c, m in measured]
     simulations = sum(
         o.runs for o in (*runs.values(), *ramps.values()) if not isinstance(o, Failure)
     )
@@ -608,6 +670,39 @@ def by_slew(corr: Correlation) -> list[dict]:
     return [{"input_slew_s": s, **summary(corr, s)} for s in corr.setup.slews]
 
 
+DRAWS = ("whole_edge", "to_threshold", "slew_window")  # the charges of ``PinDraw.in_path``
+
+
+def receiver_ratios(corr: Correlation, slew: float | None = None) -> dict[str, dict | None]:
+    """Per charge (``DRAWS``): median, lowest and highest ratio of what the receiving pins drew
+    in the paths to the library's capacitance of the same pin and edge (at input slew
+    ``slew`` only, if given): above 1, a real gate loaded its driver more than the tables
+    assume."""
+    out: dict[str, dict | None] = {}
+    for k, name in enumerate(DRAWS):
+        ratios = np.array(
+            [
+                d.in_path[k] / lib
+                for r in corr.results
+                if r.failure is None and (slew is None or r.slew == slew)
+                for s in r.stages
+                for d in s.receivers
+                if (lib := d.library[k])
+            ]
+        )
+        out[name] = (
+            None
+            if ratios.size == 0
+            else {
+                "pins": int(ratios.size),
+                "median": float(np.median(ratios)),
+                "lowest": float(ratios.min()),
+                "highest": float(ratios.max()),
+            }
+        )
+    return out
+
+
 def decomposition(corr: Correlation) -> dict[str, float | None]:
     """Mean per-stage delay difference of each effect, as a fraction of the simulated stage
     delay (positive: makes the tables slower than the simulation)."""
@@ -649,6 +744,19 @@ def _stage_record(s: StageResult) -> dict:
         "arrival_s": {"simulated": s.sim_arrival, "predicted": p.arrival, "opensta": s.sta_arrival},
         "delay_error": (p.delay - s.sim_delay) / s.sim_delay,
         "slew_error": (p.slew_out - s.sim_slew_out) / s.sim_slew_out,
+        "receivers": [
+            {
+                "gate": r.gate,
+                "cell": r.cell,
+                "pin": r.pin,
+                "edge": r.edge,
+                **{
+                    f"{name}_F": {"in_path": got, "library": lib}
+                    for name, got, lib in zip(DRAWS, r.in_path, r.library, strict=True)
+                },
+            }
+            for r in s.receivers
+        ],
     }
 
 
@@ -669,6 +777,12 @@ def to_json(config: LibraryConfig, corr: Correlation) -> dict:
         },
         "summary": summary(corr),
         "summary_by_input_slew": by_slew(corr),
+        "receivers_in_path_over_library": {
+            "all": receiver_ratios(corr),
+            "by_input_slew": [
+                {"input_slew_s": x, **receiver_ratios(corr, x)} for x in corr.setup.slews
+            ],
+        },
         "stage_effects": decomposition(corr),
         "simulations": corr.simulations,
         "wall_seconds": round(corr.wall_seconds, 3),
@@ -720,6 +834,25 @@ def _slew_lines(corr: Correlation, t: float, tu: str) -> list[str]:
     ]
 
 
+def _receiver_lines(corr: Correlation, t: float, tu: str) -> list[str]:
+    """What the receiving pins drew in the paths over the library's values, per input slew."""
+    lines = []
+    for x in (None, *corr.setup.slews) if len(corr.setup.slews) > 1 else (None,):
+        ratios = receiver_ratios(corr, x)
+        parts = [
+            f"{name.replace('_', '-')} {r['median']:.3f} ({r['lowest']:.3f}-{r['highest']:.3f})"
+            for name, r in ratios.items()
+            if r is not None
+        ]
+        if parts:
+            at = "" if x is None else f" at input slew {x / t:.4g} {tu}"
+            lines.append(
+                f"{'receivers' if x is None else '  receivers'}{at}: in-path charge over the "
+                f"library's capacitance, median (range): {', '.join(parts)}"
+            )
+    return lines
+
+
 def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     """The terminal table: one line per path run, then the spread and the stage effects."""
     t, tu = config.time_scale, config.time_unit
@@ -750,6 +883,7 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
                 f"({s['paths']} paths)"
             )
     lines += _slew_lines(corr, t, tu)
+    lines += _receiver_lines(corr, t, tu)
     effects = ", ".join(f"{k} {_pct(v)}" for k, v in decomposition(corr).items())
     lines.append(f"mean per-stage delay effects (tables minus simulation): {effects}")
     return lines

@@ -49,6 +49,17 @@ class Thresholds:
             return self.slew_lower_rise, self.slew_upper_rise
         return self.slew_lower_fall, self.slew_upper_fall
 
+    def to_input_threshold(self, edge: str) -> float:
+        """The swing from an input edge's start to its delay threshold, as a fraction of the
+        supply: a pin's to-threshold charge over it (and the supply) is a capacitance."""
+        level = self.delay_input(edge)
+        return level if edge == "rise" else 1.0 - level
+
+    def slew_swing(self, edge: str) -> float:
+        """The swing between an edge's slew thresholds, as a fraction of the supply."""
+        lower, upper = self.slew_band(edge)
+        return upper - lower
+
 
 @dataclass(frozen=True, slots=True)
 class ModelFile:

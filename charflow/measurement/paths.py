@@ -14,7 +14,13 @@ import numpy as np
 
 from charflow.config.library import LibraryConfig
 from charflow.measurement.combinational import LOGIC_MARGIN, backend_for, simulate
-from charflow.measurement.waves import KeepWaveform, single_crossing, transition, waveform
+from charflow.measurement.waves import (
+    KeepWaveform,
+    integral,
+    single_crossing,
+    transition,
+    waveform,
+)
 from charflow.records.errors import MeasurementError
 from charflow.records.outcomes import PathMeasurement
 from charflow.records.points import PathPoint
@@ -30,8 +36,10 @@ def measure_path(config: LibraryConfig, deck: Deck, point: PathPoint) -> PathMea
     ramp = stimulus.ramp(point.slew, point.input_edge, config.thresholds, vdd, config.input_shape)
     commands = stimulus.set_source(deck.input_source(point.start), ramp.pulse())
     nodes = tuple(dict.fromkeys(node for node, _ in point.nodes))
+    currents = tuple(f"{source}#branch" for source, _ in point.probes)
     analysis = f"tran {point.step:.6g} {max(point.stop, ramp.end):.6g} 0 {point.step:.6g}"
-    result, runs = simulate(backend_for(config), Request(deck, commands, analysis, nodes))
+    request = Request(deck, commands, analysis, (*nodes, *currents))
+    result, runs = simulate(backend_for(config), request)
     t = result.vectors["time"]
     saved = KeepWaveform(lambda: waveform(result.vectors, {n: n for n in nodes}))
     at_input, at_output, slews = [], [], []
@@ -41,9 +49,26 @@ def measure_path(config: LibraryConfig, deck: Deck, point: PathPoint) -> PathMea
             at_input.append(t_in)
             at_output.append(t_out)
             slews.append(slew)
+        edges = dict(point.nodes)
+        charges = tuple(
+            _pin_charges(config, t, result.vectors[node], result.vectors[i], node, edges[node])
+            for (_, node), i in zip(point.probes, currents, strict=True)
+        )
     return PathMeasurement(
-        point, tuple(at_input), tuple(at_output), tuple(slews), runs, result.seconds
+        point, tuple(at_input), tuple(at_output), tuple(slews), runs, result.seconds, charges
     )
+
+
+def _pin_charges(
+    config: LibraryConfig, t: np.ndarray, v: np.ndarray, i: np.ndarray, node: str, edge: str
+) -> tuple[float, float, float]:
+    """The charge (C) a probe's current carried into its pin over the run, up to its net's
+    input delay-threshold crossing, and between the net's slew-threshold crossings."""
+    vdd, thr = config.process.vdd, config.thresholds
+    what = f"node {node}"
+    t_in = single_crossing(t, v, thr.delay_input(edge) * vdd, edge, what)
+    band = [single_crossing(t, v, f * vdd, edge, what) for f in thr.slew_band(edge)]
+    return integral(t, i), integral(t, i, None, t_in), integral(t, i, min(band), max(band))
 
 
 def _node_edge(

@@ -204,6 +204,9 @@ class PathMeasurement:
     transitions: tuple[float, ...]  # s
     runs: int
     sim_seconds: float
+    # C, per ``PathPoint.probes`` entry: the charge into the pin over the whole run, up to its
+    # net's input delay-threshold crossing, and between its net's slew-threshold crossings
+    pin_charges: tuple[tuple[float, float, float], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)

@@ -440,6 +440,9 @@ class PathPoint:
     nodes: tuple[tuple[str, str], ...]  # (simulator node, the edge expected there)
     step: float  # s, the transient's maximum step
     stop: float  # s, the transient's cap
+    # (0 V source in series with a gate's input, the node of the net it is on; that node is in
+    # ``nodes``): the charge each receiving pin draws in the real circuit
+    probes: tuple[tuple[str, str], ...] = ()
 
     @property
     def label(self) -> str:
@@ -450,7 +453,7 @@ class PathPoint:
 
     @property
     def series(self) -> tuple[object, ...]:
-        return ("path", self.cell, self.start, self.input_edge, self.nodes)
+        return ("path", self.cell, self.start, self.input_edge, self.nodes, self.probes)
 
     @property
     def coordinates(self) -> tuple[float, ...]:

@@ -2,6 +2,9 @@
 rendered template once, one instance per gate, the input port's PULSE source, the constant
 nets, wire and port capacitors, and the replica stages of the input-shape experiment.
 
+Every gate input on a driven net sits behind a 0 V source (``pin_probe``), whose current is the
+charge that pin draws in the real circuit.
+
 A replica (``Replica``) is a copy of one path stage whose input is an ideal voltage copy of the
 real stage's input (a unity-gain VCVS: it loads nothing) and whose output drives a plain
 capacitor instead of the real gates: the stage with the real input waveform and a lumped load.
@@ -44,6 +47,24 @@ def node(net: str) -> str:
 
 def replica_node(name: str) -> str:
     return f"cfr_{name}_out".lower()
+
+
+def pin_probe(gate: str, pin: str) -> str:
+    """The 0 V source in series with a gate's input pin: its branch current is the current
+    into the pin (the charge a receiving gate draws from its net)."""
+    return f"vcfp_{gate}_{pin}".lower()
+
+
+def _probed_nets(cell: CellSpec, name: str, nets: Mapping[str, str]) -> tuple[dict, list[str]]:
+    """``nets`` with each input on a driven net moved behind its probe, and the probes' cards
+    (from the net's node to the pin's node: the probe's current flows into the pin)."""
+    out, cards = dict(nets), []
+    for pin, net_node in nets.items():
+        if pin in cell.inputs and net_node not in _RAIL.values():
+            inner = f"cfp_{name}_{pin}".lower()
+            cards.append(f"{pin_probe(name, pin)} {net_node} {inner} dc 0")
+            out[pin] = inner
+    return out, cards
 
 
 def _instance(cell: CellSpec, ports: Sequence[str], name: str, nets: Mapping[str, str]) -> str:
@@ -98,8 +119,9 @@ def build_path_deck(
         f"{Deck.input_source(circuit.start)} {node(circuit.start)} 0 pulse(0 0 0 1e-12 1e-12 1 2)"
     )
     for g in circuit.gates:
-        nets = {pin: node(net) for pin, net in g.pins}
-        lines.append(_instance(config.cell(g.cell), ports[g.cell], g.name, nets))
+        cell = config.cell(g.cell)
+        nets, probes = _probed_nets(cell, g.name, {pin: node(net) for pin, net in g.pins})
+        lines += [*probes, _instance(cell, ports[g.cell], g.name, nets)]
     caps = {**{n: 0.0 for n in port_loads}, **wire}
     for net, c in port_loads.items():
         caps[net] += c

@@ -314,8 +314,7 @@ def pin_capacitance_to_threshold(
     do not): a pin and edge with none is left out."""
 
     def swing(edge: str) -> float:
-        level = thresholds.delay_input(edge)
-        return (level if edge == "rise" else 1.0 - level) * vdd
+        return thresholds.to_input_threshold(edge) * vdd
 
     return _windowed([(m, m.input_charge_to_threshold) for m in measurements], swing)
 
@@ -329,8 +328,7 @@ def pin_capacitance_slew_window(
     (a plain capacitor's is its C). Pins and edges without the charge are left out."""
 
     def swing(edge: str) -> float:
-        lower, upper = thresholds.slew_band(edge)
-        return (upper - lower) * vdd
+        return thresholds.slew_swing(edge) * vdd
 
     return _windowed([(m, m.input_charge_slew_window) for m in measurements], swing)
 
