@@ -1314,8 +1314,8 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
     result says why (a clock's pulses are full-swing only: one PULSE source shapes both).
-    Searched at the usual settings and confirmed at the tightened ones, as a constraint is
-    (``measure_constraint``); where a verdict differs there, searched again at them."""
+    Searched at the usual settings and settled at the tightened ones, as a constraint is
+    (``measure_constraint``); where the answer's kind changes there, searched again at them."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)
@@ -1362,7 +1362,7 @@ def _pulse_settled(
     lower = shape.narrowest if kind == FULL else min(shape.floor + tol, shape.narrowest)
     try:
         bracket = _settled(measure, noted.estimate(failing, passing), lower, high, tol, what)
-    except MeasurementError:  # the narrowest full-swing pulse passes at these settings
+    except MeasurementError:  # the search's failing end (the narrowest, the floor) passes here
         return None
     if kind != FULL and bracket[1] == shape.narrowest:  # not simulated at these settings
         return None
