@@ -1,8 +1,8 @@
 """Constraint searches on the continuous clock-to-output margin (sequential._search, _falsi)
 against plain bisection on pass/fail: an analytic margin with a capture cliff past its root
 (the root from scipy's brentq), and tests/data/seq_l1.toml's QDFFR_P1 constraint points, each
-searched both ways at the tightened settings the searches run at (needs ngspice: fails
-without it)."""
+searched both ways at the tightened settings the searches' answers are settled at (needs
+ngspice: fails without it)."""
 
 from __future__ import annotations
 
@@ -126,6 +126,30 @@ def test_the_flop_s_constraints_match_bisection_in_fewer_simulations(flop):
     print(f"simulations per search: bisection {old_mean:.1f}, search {new_mean:.1f}")
     assert new_mean < old_mean
     assert new_mean <= SEARCH_GOAL
+
+
+def test_searching_at_the_usual_settings_first_lands_where_the_tightened_search_does(flop):
+    # A search runs at the usual settings and only its last trials at the tightened ones
+    # (sequential._settled); with every trial at the tightened settings (as it ran before) it
+    # must land within the tolerance of that: each final bracket is at most the tolerance
+    # wide and holds the tightened settings' pass/fail boundary (a constraint is that
+    # boundary: common practice), so their passing ends lie within the tolerance. The
+    # bracket found holds there, each end re-simulated from scratch (constraint_probe). A
+    # setup (a margin with a slope) and a removal (pass or fail only).
+    cfg, deck = flop
+    tol = cfg.simulation.bisect_tolerance
+    points = [p for p in plan(cfg, [CELL]).points if isinstance(p, ConstraintPoint)]
+    for kind in ("setup", "removal"):
+        point = next(p for p in points if p.kind == kind)
+        found = sequential.measure_constraint(cfg, deck, point)
+        measure, lo, hi, trials = sequential._constraint_setup(cfg, deck, point, tight=True)
+        plain = sequential._search(measure, lo, hi, tol, point.label)
+        print(f"{point.label}: {found.bracket} in {found.runs}, tightened {plain} in {trials.runs}")
+        assert found.bracket is not None and found.bracket[0] is not None
+        assert found.bracket[1] - found.bracket[0] <= tol
+        assert abs(found.value - plain[1]) <= tol, point.label
+        probe = sequential.constraint_probe(cfg, deck, point)
+        assert probe(found.bracket[1]) and not probe(found.bracket[0]), point.label
 
 
 def test_the_flop_s_clock_pulses_match_bisection(flop):

@@ -5,7 +5,8 @@ applies the event under test (a second clock edge, an asynchronous control, a pu
 each output edge is measured from a properly initialised state. Constraints are found on the
 data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
 passes when the right value is captured and clock-to-output has pushed out by no more than
-``simulation.pushout`` over its relaxed value.
+``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
+narrows again at the tightened ones from the root it found there (``_settled``).
 """
 
 from __future__ import annotations
@@ -78,11 +79,11 @@ GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps a
 LEAD_POINTS = 20
 LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-# Tightened settings (``stepsize.tightened``): every constraint and pulse-width search runs at
-# them from the start; each clock or control event's sample is re-simulated at them, and its
-# delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before the whole
-# event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within 0.02 %,
-# CLK->Q rise's transition 0.52 % and the rest within 0.13 %).
+# Tightened settings (``stepsize.tightened``): every constraint and pulse-width search settles
+# its answer at them (``_settled``); each clock or control event's sample is re-simulated at
+# them, and its delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before
+# the whole event takes those settings (measured on seq_l1's QDFFR_P1 at 0.01 ns: delays within
+# 0.02 %, CLK->Q rise's transition 0.52 % and the rest within 0.13 %).
 SAMPLE_RTOL = 0.002
 SAMPLE_TRANSITION_RTOL = 0.01
 # A constraint search's trials (_falsi) stay this share of the tolerance inside the bracket: a
@@ -92,6 +93,12 @@ FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
 # tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
 BRACKET_STEP = 4.0
+# A search runs at the usual settings to its tolerance, then again at the tightened ones from
+# the root found (``_settled``): its first trials CONFIRM_SPAN of the tolerance either side of
+# that root, a final bracket within the tolerance where the root has not moved past either. On
+# the demo's QDFF_P1 the usual settings' setup and hold answers lay within 0.36 ps of the
+# tightened (tolerance 1 ps); its QDFFR_P1's removal answers within 1.5 ps.
+CONFIRM_SPAN = 0.45
 # A clock or control point's guessed edges (_Guess) are widened by GUESS_SLACK of the guessed
 # delay either side (linear between probes, the guess is off most between them), sampled at
 # GUESS_SPACING of the spacing the guessed transition wants; a guessed transition is taken as
@@ -420,15 +427,18 @@ def _stop(
     window: float,
 ) -> tuple[float, str | None]:
     """A run's stop-time cap and its ngspice stop condition: once the output (at ``node``) has
-    settled after the event and after any late data edge (``quiet_until``). A run that
-    measures energy (``states``: the window ends when the supply current is quiet, some time
-    after the outputs settle) or more than one output goes on to its cap."""
+    settled after the event and after any late data edge (``quiet_until``); an output that
+    must hold (a removal trial), once it has settled at the other rail: it failed to. A run
+    that measures energy (``states``: the window ends when the supply current is quiet, some
+    time after the outputs settle) or more than one output goes on to its cap."""
     tol, vdd = config.simulation.settle * config.process.vdd, config.process.vdd
     arm = max(event.end, quiet_until)
+    if states is not None or len(moves) > 1:
+        return arm + window, None
     _, before, after = moves[0]
-    level = f"v({node}) > {vdd - tol:.6g}" if after else f"v({node}) < {tol:.6g}"
-    timed = before != after and states is None and len(moves) == 1
-    return arm + window, f"time > {arm:.6g} when {level}" if timed else None
+    lands = after if before != after else not after
+    level = f"v({node}) > {vdd - tol:.6g}" if lands else f"v({node}) < {tol:.6g}"
+    return arm + window, f"time > {arm:.6g} when {level}"
 
 
 def _recorded(
@@ -855,11 +865,15 @@ def _bisect(passes, lo: float, hi: float, tol: float) -> tuple[float, float]:
     return lo, hi
 
 
-def _search(measure, lo: float, hi: float, tol: float, what: str) -> tuple[float, float]:
+def _search(
+    measure, lo: float, hi: float, tol: float, what: str, high: float | None = None
+) -> tuple[float, float]:
     """The smallest passing offset between ``lo`` (must fail) and ``hi`` (must pass), found on
     the trials' margin (``_Trials.margin``: passing at or below 0): bracketed near offset 0
-    (``_bracket``), then narrowed (``_falsi``); returns the final (failing, passing) bracket."""
-    high = measure(hi)  # the relaxed trial first: it sets the reference clock-to-output
+    (``_bracket``), then narrowed (``_falsi``); returns the final (failing, passing) bracket.
+    ``high``: the margin at ``hi`` where it is known."""
+    if high is None:
+        high = measure(hi)  # the relaxed trial first: it sets the reference clock-to-output
     if high > 0:
         raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
     # Constraints lie near offset 0 (the data's threshold at the clock's): the walk starts there.
@@ -874,9 +888,10 @@ def _bracket(
     high: tuple[float, float],
     tol: float,
     what: str,
+    step: float = BRACKET_STEP,
 ) -> tuple[tuple[float, float], tuple[float, float]]:
     """A first (failing, passing) bracket, each end an (offset, margin) pair: from ``start``
-    (measured) in steps that double from BRACKET_STEP × ``tol``, down while the trials pass,
+    (measured) in steps that double from ``step`` × ``tol``, down while the trials pass,
     up while they fail, no further than ``lo`` (which must fail) or ``high``'s offset (which
     passed). Where the last two margins are finite and nearing 0, a secant step (Brent 1973,
     ch. 3: the secant through two samples, extrapolated) goes to just past the root it
@@ -884,7 +899,7 @@ def _bracket(
     capture's failure, so the estimate lies past the root and the bracket closes tight."""
     at, g = start
     down = g <= 0  # passing: walk down to a failing offset; failing: up to a passing one
-    step = BRACKET_STEP * tol
+    step *= tol
     last: tuple[float, float] | None = None
     while True:
         nxt = max(at - step, lo) if down else min(at + step, high[0])
@@ -1060,13 +1075,60 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     """Setup: the least data-before-clock offset that still captures in time. Hold: the least
     clock-to-data-change offset that keeps the captured value (either may be negative).
     Recovery and removal: the same for a clear or preset's release (``_release_setup``).
-    Searched at the tightened settings of a convergence check (``run_settings``) from the
-    start: the bracket found holds at them, with no second search to confirm it."""
+    Searched at the usual settings, then narrowed again from the root found there at the
+    tightened settings of a convergence check (``run_settings``, ``_settled``): their
+    relaxed trial sets the reference of both, and the final bracket holds at them."""
     measure, lo, hi, trials = _constraint_setup(config, deck, point, tight=True)
+    usual = _constraint_setup(config, deck, point, trials=trials)[0]
+    tol = config.simulation.bisect_tolerance
+    # Removal's margin has no reference (``_offset_margin``): its relaxed trial only checks.
+    relaxed = usual if point.kind == "removal" else measure
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
-        bracket = _search(measure, lo, hi, config.simulation.bisect_tolerance, point.label)
+        high = relaxed(hi)
+        noted = _Noted(usual, {hi: high})
+        found = _search(noted, lo, hi, tol, point.label, high)
+        bracket = _settled(measure, noted.estimate(*found), lo, (hi, high), tol, point.label)
     return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
+
+
+class _Noted:
+    """A search's margin that keeps every trial's (``seen``), for the root's estimate: at the
+    usual settings, against the relaxed reference of the tightened ones (``_Trials``)."""
+
+    def __init__(self, measure: Callable[[float], float], seen: dict[float, float]) -> None:
+        self.measure, self.seen = measure, seen
+
+    def __call__(self, x: float) -> float:
+        self.seen[x] = self.measure(x)
+        return self.seen[x]
+
+    def estimate(self, failing: float, passing: float) -> float:
+        """Where the margin crosses 0 in a final (failing, passing) bracket: on the secant
+        through its ends where both margins are finite, else (pass or fail only) its middle."""
+        g_f, g_p = self.seen[failing], self.seen[passing]
+        if not (np.isfinite(g_f) and g_f > 0 >= g_p):
+            return 0.5 * (failing + passing)
+        return passing - g_p * (passing - failing) / (g_p - g_f)
+
+
+def _settled(
+    measure: Callable[[float], float],
+    estimate: float,
+    lo: float,
+    high: tuple[float, float],
+    tol: float,
+    what: str,
+) -> tuple[float, float]:
+    """The final (failing, passing) bracket at the tightened settings (``measure``) near
+    ``estimate``, the usual settings' root (``_Noted``): bracketed (``_bracket``) from
+    CONFIRM_SPAN × ``tol`` above it in steps from twice that (the first bracket within ``tol``
+    where the root has not moved past either trial), then narrowed (``_falsi``); ``lo`` and
+    ``high`` as ``_bracket`` takes them (the search's failing end, its relaxed trial)."""
+    start = min(estimate + CONFIRM_SPAN * tol, high[0])
+    first = (start, high[1] if start == high[0] else measure(start))
+    ends = _bracket(measure, lo, first, high, tol, what, step=2 * CONFIRM_SPAN)
+    return _falsi(measure, *ends, tol)
 
 
 def _passing(measure):
@@ -1079,13 +1141,19 @@ def _passing(measure):
 
 
 def _constraint_setup(
-    config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool = False
+    config: LibraryConfig,
+    deck: Deck,
+    point: ConstraintPoint,
+    tight: bool = False,
+    trials: _Trials | None = None,
 ):
     """The margin of a constraint point's trial by its offset (``_Trials.margin``: passing at
-    or below 0), its failing and its relaxed (passing) offset; with
-    ``tight``, at the tightened settings of a convergence check (``run_settings``)."""
+    or below 0), its failing and its relaxed (passing) offset, and the ``trials`` it counts
+    (new ones by default); with ``tight``, at the tightened settings of a convergence check
+    (``run_settings``)."""
+    trials = trials or _Trials(config, deck)
     if point.kind in ("recovery", "removal"):
-        return _release_setup(config, deck, point, tight)
+        return _release_setup(config, deck, point, tight, trials)
     cell = config.cell(point.cell)
     bench, flop = _bench(config, deck, point.data_slew, point.clock_slew), cell.flip_flop
     out, pin = cell.outputs[0].pin, point.constrained
@@ -1097,7 +1165,6 @@ def _constraint_setup(
     levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
     run = _experiment(bench, deck, point, event, levels, tight)
     waves_at = _data_waves(bench, point, {**others, pin: not captured}, clock, event)
-    trials = _Trials(config, deck)
     relaxed = bench.half / 2
     lo = -relaxed / 2
     if point.kind == "setup":
@@ -1133,7 +1200,13 @@ def _data_waves(bench: Timeline, point: ConstraintPoint, old: dict[str, bool], c
     return waves_at
 
 
-def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, tight: bool):
+def _release_setup(
+    config: LibraryConfig,
+    deck: Deck,
+    point: ConstraintPoint,
+    tight: bool,
+    trials: _Trials,
+):
     """Recovery: the least release-before-clock offset of a clear or preset after which the
     clock edge still captures the other value in time. Removal: the least clock-to-release
     offset for which the edge captures nothing, the control still holding the flop (either may
@@ -1168,7 +1241,6 @@ def _release_setup(config: LibraryConfig, deck: Deck, point: ConstraintPoint, ti
     # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
     # edge captures nothing, or captures.
     lo = -(probe[1].duration + event.duration) if recovery else -relaxed
-    trials = _Trials(config, deck)
     return _offset_margin(trials, run, waves_at, judged=recovery), lo, relaxed, trials
 
 
@@ -1242,7 +1314,8 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     slew's edge rate and turn back before the rail (``RUNT``), down to one that only just
     crosses the thresholds. A pulse that works even then has no minimum: no value, and the
     result says why (a clock's pulses are full-swing only: one PULSE source shapes both).
-    Searched at tightened settings from the start, as a constraint is (``measure_constraint``)."""
+    Searched at the usual settings and settled at the tightened ones, as a constraint is
+    (``measure_constraint``); where the answer's kind changes there, searched again at them."""
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew))
     shape = _Pulse.at(point.slew, point.level, bench.thr, bench.vdd, bench.shape)
@@ -1250,12 +1323,50 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     clock = point.pin == cell.flip_flop.clock
     test = _clock_pulse_test if clock else _control_pulse_test
     measure, relaxed = test(bench, point, shape, trials, tight=True)
+    usual = test(bench, point, shape, trials)[0]
+    tol = config.simulation.bisect_tolerance
     with KeepWaveform(lambda: trials.failed):
-        bracket, stimulus_, note = _pulse_search(
-            measure, point, shape, relaxed, clock, config.simulation
-        )
+        # A clock pulse's margins take the relaxed reference of the tightened settings.
+        high = (measure if clock else usual)(relaxed)
+        noted = _Noted(usual, {relaxed: high})
+        found = _pulse_search(noted, point, shape, relaxed, clock, config.simulation, high)
+        settled = _pulse_settled(measure, noted, found, shape, (relaxed, high), tol, point.label)
+        if settled is None:
+            settled = _pulse_search(measure, point, shape, relaxed, clock, config.simulation, high)
+    bracket, stimulus_, note = settled
     value = None if bracket[0] is None else bracket[1]
     return SearchResult(point, value, trials.runs, trials.seconds, bracket, stimulus_, note)
+
+
+_Found = tuple[tuple[float | None, float], str, str]  # a pulse search's (``_pulse_search``)
+
+
+def _pulse_settled(
+    measure: Callable[[float], float],
+    noted: _Noted,
+    found: _Found,
+    shape: _Pulse,
+    high: tuple[float, float],
+    tol: float,
+    what: str,
+) -> _Found | None:
+    """A pulse search's answer at the usual settings (``found``, its trials in ``noted``) as
+    the tightened settings (``measure``) have it (``_settled``; ``high``: their relaxed
+    trial), or None where it changes its kind there: a width that passed with no failing one
+    found fails, a full-swing search's narrowest pulse passes, or a turned-back one's fails."""
+    (failing, passing), kind, note = found
+    if failing is None:
+        return found if measure(passing) <= 0 else None
+    if kind != FULL:  # turned back below the narrowest, which passed: no wider
+        high = (shape.narrowest, noted.seen[shape.narrowest])
+    lower = shape.narrowest if kind == FULL else min(shape.floor + tol, shape.narrowest)
+    try:
+        bracket = _settled(measure, noted.estimate(failing, passing), lower, high, tol, what)
+    except MeasurementError:  # the search's failing end (the narrowest, the floor) passes here
+        return None
+    if kind != FULL and bracket[1] == shape.narrowest:  # not simulated at these settings
+        return None
+    return bracket, kind, note
 
 
 def _pulse_search(
@@ -1265,14 +1376,16 @@ def _pulse_search(
     relaxed: float,
     clock: bool,
     sim: Simulation,
+    high: float | None = None,
 ) -> tuple[tuple[float | None, float], str, str]:
     """The (failing, passing) widths, the pulse shape and a note: full-swing pulses up from the
     narrowest, narrowed on the margin as a constraint search is (``_falsi``); then for a
     control, runt pulses by bisection (pass or fail only); a failing width None when no width
-    the search could shape fails."""
+    the search could shape fails. ``high``: the margin at ``relaxed`` where it is known."""
     tol = sim.bisect_tolerance
     passes = _passing(measure)
-    high = measure(relaxed)
+    if high is None:
+        high = measure(relaxed)
     if high > 0:
         raise MeasurementError(f"{point.label}: fails even with relaxed timing ({relaxed:.4g} s)")
     narrowest = (shape.narrowest, measure(shape.narrowest))
