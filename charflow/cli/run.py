@@ -121,6 +121,11 @@ def characterize(cfg: LibraryConfig, args: argparse.Namespace) -> int:
         shared.output_folder(cfg.name, args) as out,
         store_mod.Store(out / store_mod.FILE_NAME) as store,
     ):
+        if args.scheduler is None and store.count() == 0:
+            # An empty store serves nothing: the pool the sweep needs starts now, while the
+            # run's own modules load and it plans (a store with rows may serve the run whole,
+            # which starts no pool: the sweep decides after its lookup).
+            workers.start(cfg.simulation, args.jobs or workers.default_jobs())
         for lib in cfg.libraries():
             code = max(code, _library(lib, cells, arc, out, store, args))
     return code

@@ -35,7 +35,7 @@ from concurrent.futures import FIRST_COMPLETED, BrokenExecutor, Executor, Future
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, TypeVar
 
-from charflow.config.library import LibraryConfig
+from charflow.config.library import LibraryConfig, Simulation
 from charflow.records.errors import OutputError, SimulatorError, SimulatorHungError
 from charflow.records.lazy import deferred
 from charflow.records.outcomes import Failure, Outcome
@@ -175,6 +175,31 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: 
     finally:
         if fh is not None:
             fh.close()
+
+
+def warm(simulation: Simulation) -> bool:
+    """A worker's first task when its pool starts ahead of the sweep (``start``): the
+    measurers imported and the simulator loaded, while the driver still imports and plans."""
+    SESSION.backend(simulation)
+    return callable(registry.measure_chunk)  # the measurers load here, not in the first chunk
+
+
+def start(simulation: Simulation, jobs: int) -> None:
+    """Start the sweep's pool of ``jobs`` worker processes now and warm them (``warm``),
+    without waiting: their start-up (a Python each, joblib, numpy, the measurers, the shared
+    library) then overlaps the driver's own. For a caller that knows a pool will be needed:
+    never when the store may serve the run wholly, which must start none. Nothing is started
+    where the sweep would start no pool (the subprocess backend on one worker)."""
+    if simulation.backend == "subprocess" and jobs == 1:
+        return
+    from joblib.executor import get_memmapping_executor
+
+    executor = get_memmapping_executor(jobs)
+    # One task per worker, though which worker takes which is the pool's choice: a worker
+    # that takes none warms in its first chunk, as without a start. A warm-up that fails
+    # (no shared library) is not reported here: the sweep's first chunk meets it again.
+    for _ in range(jobs):
+        executor.submit(warm, simulation)
 
 
 def in_worker(function: Callable[..., T], *args: object) -> T:

@@ -135,6 +135,9 @@ class SharedBackend:
         self._ng.exec_command(SINGLE_THREAD)
         self._ng.exec_command(QUIET)
         self._circuits: list[str] = []  # keys of the decks loaded, in ngspice's order
+        # Per loaded deck, the last literal ``alter`` each device got (``_held``): the same
+        # command again changes nothing and is not sent.
+        self._altered: dict[str, dict[str, str]] = {}
         self._runs = 0
         # Testbenches read (their models parsed) by this process, and the wall time it took.
         self.reads = 0
@@ -187,7 +190,7 @@ class SharedBackend:
             # The oldest goes: made current, then removed.
             self._ng.exec_command(f"setcirc {len(self._circuits)}")
             self._ng.exec_command("remcirc")
-            self._circuits.pop()
+            self._altered.pop(self._circuits.pop(), None)
         # The compatibility mode applies to decks read after it is set.
         self._ng.exec_command(
             f"set ngbehavior={deck.compat}" if deck.compat else "unset ngbehavior"
@@ -209,6 +212,7 @@ class SharedBackend:
         if self._listed() > listed:
             if failed is None:
                 self._circuits.insert(0, deck.key)
+                self._altered[deck.key] = {}
                 self._loaded = deck.key
                 return
             self._ng.exec_command("remcirc")
@@ -255,8 +259,7 @@ class SharedBackend:
     def run(self, request: Request) -> Result:
         cell = request.deck.cell
         self.load(request.deck)
-        for command in request.alters:
-            self._command(command, cell)
+        self._alter(request.alters, request.deck.key, cell)
         for option in request.options:
             self._command(f"option {option}", cell)
         if request.stop_when:
@@ -288,6 +291,21 @@ class SharedBackend:
                     cell=cell,
                 )
         return Result(vectors, seconds)
+
+    def _alter(self, commands: tuple[str, ...], key: str, cell: str) -> None:
+        """Send ``commands``, but not an ``alter`` of a device whose last one (on the deck
+        ``key``) was the same literal command: a point sets every value (a series' points
+        share most), and each command costs the simulator tens of microseconds."""
+        held = self._altered.setdefault(key, {})
+        for command in commands:
+            device, literal = _held(command)
+            if device is not None and literal and held.get(device) == command:
+                continue
+            if device is not None:
+                held.pop(device, None)  # unknown if the command fails
+            self._command(command, cell)
+            if device is not None and literal:
+                held[device] = command
 
     def _after(self, request: Request) -> None:
         """Undo what a run set up, so the next run starts from the deck as loaded."""
@@ -464,6 +482,21 @@ def _signal_name(number: int) -> str:
         return signal.Signals(number).name
     except ValueError:
         return f"signal {number}"
+
+
+# ``alter DEVICE = VALUE`` or ``alter @DEVICE[PARAM] = VALUE``; a literal value is a number or a
+# bracketed list, anything else (a vector's name) can hold other values by the next run.
+_ALTER = re.compile(r"^alter\s+@?([^\s\[=]+)(?:\[[^\]]*\])?\s*=\s*(\S)")
+_LITERAL = frozenset("[0123456789+-.")
+
+
+def _held(command: str) -> tuple[str | None, bool]:
+    """The device an ``alter`` command sets (None for any other command) and whether the
+    value it gives is literal."""
+    match = _ALTER.match(command)
+    if match is None:
+        return None, False
+    return match.group(1).lower(), match.group(2) in _LITERAL
 
 
 def _version_of(text: str) -> str:
