@@ -55,7 +55,9 @@ def pin_probe(gate: str, pin: str) -> str:
     return f"vcfp_{gate}_{pin}".lower()
 
 
-def _probed_nets(cell: CellSpec, name: str, nets: Mapping[str, str]) -> tuple[dict, list[str]]:
+def _probed_nets(
+    cell: CellSpec, name: str, nets: Mapping[str, str]
+) -> tuple[dict[str, str], list[str]]:
     """``nets`` with each input on a driven net moved behind its probe, and the probes' cards
     (from the net's node to the pin's node: the probe's current flows into the pin)."""
     out, cards = dict(nets), []
