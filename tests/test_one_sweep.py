@@ -123,7 +123,11 @@ def test_of_the_cells_failed_so_far_the_first_in_the_config_is_named(tmp_path: P
     seen: list[object] = []
     with pytest.raises(FunctionalMismatchError) as caught:
         flow.characterize(wrong, jobs=2, on_result=seen.append)
-    failed = {o.point.cell for o in seen if isinstance(o, Failure)}
+    # Checks only: with no barrier a cell's timing points may run, and fail, beside its check
+    # (a CI run raised QNOR2_P1's check while a QNAND2_P1 point other than its check had failed).
+    failed = {
+        o.point.cell for o in seen if isinstance(o, Failure) and isinstance(o.point, FunctionPoint)
+    }
     assert failed <= {"QNAND2_P1", "QNOR2_P1"} and failed
     first = next(c.name for c in wrong.cells if c.name in failed)
     assert caught.value.context["cell"] == first
