@@ -63,9 +63,7 @@ def check_tables(
             cells,
             jobs=args.jobs,
             store=store,
-            on_start=progress.start,
-            on_stored=progress.stored,
-            on_result=progress.result,
+            **progress.hooks(),
         )
     finally:
         progress.close()

@@ -149,9 +149,7 @@ def _library(
             jobs=args.jobs,
             store=store,
             scheduler=args.scheduler,
-            on_start=progress.start,
-            on_stored=progress.stored,
-            on_result=progress.result,
+            **progress.hooks(),
             allow_gaps=args.allow_gaps,
         )
     finally:

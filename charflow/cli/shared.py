@@ -142,6 +142,11 @@ class Progress:
         if self.bar is not None:
             self.bar.close()
 
+    def hooks(self) -> dict[str, Callable]:
+        """The three callbacks a characterizing stage takes (``flow.characterize``,
+        ``fidelity.check``): the bar's start, the store's share, each result."""
+        return {"on_start": self.start, "on_stored": self.stored, "on_result": self.result}
+
 
 def tables(
     cfg: LibraryConfig, args: argparse.Namespace, store: Store, use: str
@@ -156,9 +161,7 @@ def tables(
             cells=args.cell,
             jobs=args.jobs,
             store=store,
-            on_start=progress.start,
-            on_stored=progress.stored,
-            on_result=progress.result,
+            **progress.hooks(),
         )
     finally:
         progress.close()
