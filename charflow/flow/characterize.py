@@ -421,10 +421,7 @@ def characterize(
     the_plan, left_out = _complete(whole, got)
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
-    tables, cell_power = _tabulate(config, the_plan, got, report)
-    sigma: tuple[spread_tables.ArcSpread, ...] = ()
-    if got.spreads:  # the sigma tables' module (scipy) loads only when there are some
-        sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
+    tables, cell_power, sigma = _tabulate(config, the_plan, got, report)
     return RunResult(
         plan=the_plan,
         measurements=tuple(got.measurements),
@@ -561,14 +558,22 @@ def _complete(whole: Plan, got: _Collected) -> tuple[Plan, tuple[str, ...]]:
 
 def _tabulate(
     config: LibraryConfig, plan: Plan, got: _Collected, report: gaps.GapReport | None
-) -> tuple[tuple[CellTables, ...], tuple[power_tables.CellPower, ...]]:
-    """Timing and power tables of the plan's cells; none while any point failed."""
-    if got.failures:
-        return (), ()
-    done = [*got.measurements, *report.records] if report is not None else got.measurements
-    tables = tabulate(config, plan, [*done, *got.tight])
-    leaked = {c: r.states for c, r in got.leaks.items()}
-    return tables, power_tables.tabulate(config, plan, done, got.toggles, leaked)
+) -> tuple[
+    tuple[CellTables, ...], tuple[power_tables.CellPower, ...], tuple[spread_tables.ArcSpread, ...]
+]:
+    """Timing, power and sigma tables of the plan's cells; no timing or power tables while
+    any point failed."""
+    tables: tuple[CellTables, ...] = ()
+    cell_power: tuple[power_tables.CellPower, ...] = ()
+    if not got.failures:
+        done = [*got.measurements, *report.records] if report is not None else got.measurements
+        tables = tabulate(config, plan, [*done, *got.tight])
+        leaked = {c: r.states for c, r in got.leaks.items()}
+        cell_power = power_tables.tabulate(config, plan, done, got.toggles, leaked)
+    sigma: tuple[spread_tables.ArcSpread, ...] = ()
+    if got.spreads:  # the sigma tables' module (scipy) loads only when there are some
+        sigma = spread_tables.tabulate(tables, got.spreads, config.mismatch.method)
+    return tables, cell_power, sigma
 
 
 # The layout of the JSON document (charflow/bundled/schema/charflow-library.schema.json);
