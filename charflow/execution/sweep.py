@@ -101,11 +101,7 @@ def run(
         found = store.lookup(ring, points)
         if on_stored is not None:
             on_stored(tuple(found.values()))
-        for m in found.values():
-            if on_result is not None:
-                on_result(m)
-            yield m
-            stop.asked = stop.asked or (until is not None and until(m))
+        yield from _told(found.values(), on_result, stop, until)
         points = [p for p in points if p not in found]
     if not points or stop.asked:
         return  # all from the store (no worker pool started, no joblib loaded), or stopped
@@ -116,20 +112,29 @@ def run(
     # workers stop and their journals go now, not when the garbage collector gets to them.
     with contextlib.closing(results):
         for batch in results:
-            for outcome in batch:
-                # A path run (``analysis.paths``) is not a library's result: never stored.
-                if (
-                    store is not None
-                    and ring is not None
-                    and not isinstance(outcome, Failure | PathMeasurement)
-                ):
-                    store.put(ring, outcome)
-                if on_result is not None:
-                    on_result(outcome)
-                yield outcome
-                stop.asked = stop.asked or (until is not None and until(outcome))
+            # A path run (``analysis.paths``) is not a library's result: never stored.
+            if store is not None and ring is not None:
+                for outcome in batch:
+                    if not isinstance(outcome, Failure | PathMeasurement):
+                        store.put(ring, outcome)
+            yield from _told(batch, on_result, stop, until)
             if stop.asked and scheduler is not None:
                 return
+
+
+def _told(
+    outcomes: Iterable[Outcome],
+    on_result: Callable[[Outcome], None] | None,
+    stop: Stop,
+    until: Callable[[Outcome], bool] | None,
+) -> Iterator[Outcome]:
+    """Each of ``outcomes``, handed to ``on_result`` first; ``stop`` asked once ``until`` is
+    true of one (the caller's loop goes on to the end of what it holds)."""
+    for outcome in outcomes:
+        if on_result is not None:
+            on_result(outcome)
+        yield outcome
+        stop.asked = stop.asked or (until is not None and until(outcome))
 
 
 def _executed(
