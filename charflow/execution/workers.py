@@ -464,15 +464,7 @@ def _run_round(
                     lost += [(task, path) for (_, _, task), path in zip(offers, paths, strict=True)]
                     death = exc
                     continue
-                for i, (_, _, task) in enumerate(offers):
-                    if i != done.chosen:
-                        queue.give_back(task)
-                if done.chosen is not None:
-                    with contextlib.suppress(FileNotFoundError):  # a worker without one
-                        os.unlink(paths[done.chosen])
-                    task = offers[done.chosen][2]
-                    queue.done(task[0].cell, task, done)
-                    reads.add(task[0].cell, done.reads, done.read_seconds)
+                _taken(queue, reads, offers, paths, done)
                 if death is None and done.chosen is not None:
                     submit()  # for the worker that is free now (one that declined stays idle)
                 yield done.outcomes
@@ -485,6 +477,22 @@ def _run_round(
         for future in futures:
             future.cancel()
     return lost, death
+
+
+def _taken(
+    queue: _Queue, reads: Reads, offers: tuple[Offer, ...], paths: list[str], done: Done
+) -> None:
+    """A finished task's account: the offers its worker declined go back to ``queue``; the
+    chunk it took is done (its journal, no longer needed, removed; its reads counted)."""
+    for i, (_, _, task) in enumerate(offers):
+        if i != done.chosen:
+            queue.give_back(task)
+    if done.chosen is not None:
+        with contextlib.suppress(FileNotFoundError):  # a worker without one
+            os.unlink(paths[done.chosen])
+        task = offers[done.chosen][2]
+        queue.done(task[0].cell, task, done)
+        reads.add(task[0].cell, done.reads, done.read_seconds)
 
 
 def _mark(path: str) -> None:
