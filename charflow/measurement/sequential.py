@@ -91,8 +91,10 @@ SAMPLE_TRANSITION_RTOL = 0.01
 # way leaves a bracket within the tolerance or moves the end by almost half of it.
 FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
-# tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
-BRACKET_STEP = 4.0
+# tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0, on the demo's two
+# flops most 10-55 ps from it, where a first step of 8 took fewer trials than one of 4
+# (measured December 2026; the steps double).
+BRACKET_STEP = 8.0
 # A search runs at the usual settings, then again at the tightened ones from the root found
 # (``_settled``): where the usual stage's final bracket has a margin at both ends, its first
 # trials CONFIRM_SPAN of the tolerance either side of the secant's root there, a final bracket
@@ -101,14 +103,24 @@ BRACKET_STEP = 4.0
 # its QDFFR_P1's removal answers within 1.5 ps.
 CONFIRM_SPAN = 0.45
 # The usual stage stops once its bracket is within USUAL_SPAN tolerances where both ends have
-# a margin (the secant's root through them is the tightened stage's start), within
-# USUAL_SPAN_FLAT where the failing end's is not finite (the tightened stage starts from the
-# middle and steps to the ends, so that its first two trials cover the whole bracket: at most
-# two tolerances, for a final bracket within one). On the demo's two flops, stopping at 3
-# tolerances left the secant's root within CONFIRM_SPAN of the tightened stage's in all but 5
-# of 95 searches (3 with stopping at 1), from their trials on main (December 2026).
-USUAL_SPAN = 3.0
+# a finite margin (the secant's root through them is where the tightened stage starts), within
+# USUAL_SPAN_FLAT where the failing end's is not (the tightened stage starts from the middle
+# and steps to the ends, so that its first two trials cover the whole bracket: at most two
+# tolerances, for a final bracket within one). From the demo's two flops' trial logs
+# (December 2026, the margin reshaped as below): stopping at 5 tolerances, the secant's root
+# lay within CONFIRM_SPAN tolerances of the tightened stage's in all 84 searches with a
+# margin at both ends (within 0.09 in 9 of 10); stopping at 8, not in 7 of them.
+USUAL_SPAN = 5.0
 USUAL_SPAN_FLAT = 2.0
+# A judged search (a margin with a reference) follows its margin g as g / (g + s), s the slack
+# the pass limit allows (simulation.pushout x the relaxed delay; ``_reshaped``): the delay's
+# pushout over the relaxed one grows about as 1 / (offset - C) towards the capture's failure
+# at C (Weste and Harris, "CMOS VLSI Design", 4th ed., 2011, sec. 10.2.2, from memory), which
+# makes g / (g + s) = 1 - s / pushout about linear in the offset: the secants of ``_bracket``,
+# ``_falsi`` and ``_Noted.start`` land near the root. The same sign and order as g (a monotone
+# map); a failed capture stays infinite (``_falsi`` halves towards it); the pushout is taken as
+# at least PUSHOUT_FLOOR x s (a trial no later than the relaxed one, far on the passing side).
+PUSHOUT_FLOOR = 0.05
 # A clock or control point's guessed edges (_Guess) are widened by GUESS_SLACK of the guessed
 # delay either side (linear between probes, the guess is off most between them), sampled at
 # GUESS_SPACING of the spacing the guessed transition wants; a guessed transition is taken as
@@ -1037,6 +1049,25 @@ class _Trials:
             self.expect = Expect(start, end, wanted, settles=True)
         return outcome.delay - (1.0 + sim.pushout) * self.reference
 
+    def reshape(self, margin: float) -> float:
+        """``margin`` as a search follows it (see PUSHOUT_FLOOR): g / (g + s); unchanged where
+        the capture failed, and before there is a reference (pass or fail only)."""
+        if self.reference is None or self.reference <= 0:
+            return margin
+        slack = self.config.simulation.pushout * self.reference
+        if not np.isfinite(margin):
+            return margin
+        return margin / max(margin + slack, PUSHOUT_FLOOR * slack)
+
+
+def _reshaped(trials: _Trials, *measures: Callable[[float], float]) -> list:
+    """Each margin of ``measures`` as a search follows it (``_Trials.reshape``)."""
+
+    def reshaped(measure: Callable[[float], float]) -> Callable[[float], float]:
+        return lambda x: trials.reshape(measure(x))
+
+    return [reshaped(m) for m in measures]
+
 
 @dataclass(frozen=True, slots=True)
 class _Experiment:
@@ -1108,6 +1139,7 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
         high = relaxed(hi)
+        usual, measure, high = (*_reshaped(trials, usual, measure), trials.reshape(high))
         noted = _Noted(usual, {hi: high})
         found = _search(noted, lo, hi, tol, point.label, high, (USUAL_SPAN, USUAL_SPAN_FLAT))
         bracket = _settled(measure, noted.start(*found, tol), lo, (hi, high), tol, point.label)
@@ -1353,6 +1385,7 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     with KeepWaveform(lambda: trials.failed):
         # A clock pulse's margins take the relaxed reference of the tightened settings.
         high = (measure if clock else usual)(relaxed)
+        usual, measure, high = (*_reshaped(trials, usual, measure), trials.reshape(high))
         noted = _Noted(usual, {relaxed: high})
         spans = (USUAL_SPAN, USUAL_SPAN_FLAT)
         found = _pulse_search(noted, point, shape, relaxed, clock, config.simulation, high, spans)
