@@ -91,14 +91,36 @@ SAMPLE_TRANSITION_RTOL = 0.01
 # way leaves a bracket within the tolerance or moves the end by almost half of it.
 FALSI_EDGE = 0.45
 # The first step of a constraint search's bracketing walk from offset 0 (_bracket), in
-# tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0.
-BRACKET_STEP = 4.0
-# A search runs at the usual settings to its tolerance, then again at the tightened ones from
-# the root found (``_settled``): its first trials CONFIRM_SPAN of the tolerance either side of
-# that root, a final bracket within the tolerance where the root has not moved past either. On
-# the demo's QDFF_P1 the usual settings' setup and hold answers lay within 0.36 ps of the
-# tightened (tolerance 1 ps); its QDFFR_P1's removal answers within 1.5 ps.
+# tolerances: on seq_l1's QDFFR_P1 the constraints lie within 20 ps of 0, on the demo's two
+# flops most 10-55 ps from it, where a first step of 8 took fewer trials than one of 4
+# (measured December 2026; the steps double).
+BRACKET_STEP = 8.0
+# A search runs at the usual settings, then again at the tightened ones from the root found
+# (``_settled``): where the usual stage's final bracket has a margin at both ends, its first
+# trials CONFIRM_SPAN of the tolerance either side of the secant's root there, a final bracket
+# within the tolerance where the root has not moved past either. On the demo's QDFF_P1 the
+# usual settings' setup and hold answers lay within 0.36 ps of the tightened (tolerance 1 ps);
+# its QDFFR_P1's removal answers within 1.5 ps.
 CONFIRM_SPAN = 0.45
+# The usual stage stops once its bracket is within USUAL_SPAN tolerances where both ends have
+# a finite margin (the secant's root through them is where the tightened stage starts), within
+# USUAL_SPAN_FLAT where the failing end's is not (the tightened stage starts from the middle
+# and steps to the ends, so that its first two trials cover the whole bracket: at most two
+# tolerances, for a final bracket within one). From the demo's two flops' trial logs
+# (December 2026, the margin reshaped as below): stopping at 5 tolerances, the secant's root
+# lay within CONFIRM_SPAN tolerances of the tightened stage's in all 84 searches with a
+# margin at both ends (within 0.09 in 9 of 10); stopping at 8, not in 7 of them.
+USUAL_SPAN = 5.0
+USUAL_SPAN_FLAT = 2.0
+# A judged search (a margin with a reference) follows its margin g as g / (g + s), s the slack
+# the pass limit allows (simulation.pushout x the relaxed delay; ``_reshaped``): the delay's
+# pushout over the relaxed one grows about as 1 / (offset - C) towards the capture's failure
+# at C (Weste and Harris, "CMOS VLSI Design", 4th ed., 2011, sec. 10.2.2, from memory), which
+# makes g / (g + s) = 1 - s / pushout about linear in the offset: the secants of ``_bracket``,
+# ``_falsi`` and ``_Noted.start`` land near the root. The same sign and order as g (a monotone
+# map); a failed capture stays infinite (``_falsi`` halves towards it); the pushout is taken as
+# at least PUSHOUT_FLOOR x s (a trial no later than the relaxed one, far on the passing side).
+PUSHOUT_FLOOR = 0.05
 # A clock or control point's guessed edges (_Guess) are widened by GUESS_SLACK of the guessed
 # delay either side (linear between probes, the guess is off most between them), sampled at
 # GUESS_SPACING of the spacing the guessed transition wants; a guessed transition is taken as
@@ -866,19 +888,25 @@ def _bisect(passes, lo: float, hi: float, tol: float) -> tuple[float, float]:
 
 
 def _search(
-    measure, lo: float, hi: float, tol: float, what: str, high: float | None = None
+    measure,
+    lo: float,
+    hi: float,
+    tol: float,
+    what: str,
+    high: float | None = None,
+    span: tuple[float, float] = (1.0, 1.0),
 ) -> tuple[float, float]:
     """The smallest passing offset between ``lo`` (must fail) and ``hi`` (must pass), found on
     the trials' margin (``_Trials.margin``: passing at or below 0): bracketed near offset 0
-    (``_bracket``), then narrowed (``_falsi``); returns the final (failing, passing) bracket.
-    ``high``: the margin at ``hi`` where it is known."""
+    (``_bracket``), then narrowed (``_falsi``, to ``span``); returns the final (failing,
+    passing) bracket. ``high``: the margin at ``hi`` where it is known."""
     if high is None:
         high = measure(hi)  # the relaxed trial first: it sets the reference clock-to-output
     if high > 0:
         raise MeasurementError(f"{what}: fails even with relaxed timing ({hi:.4g} s)")
     # Constraints lie near offset 0 (the data's threshold at the clock's): the walk starts there.
     failing, passing = _bracket(measure, lo, (0.0, measure(0.0)), (hi, high), tol, what)
-    return _falsi(measure, failing, passing, tol)
+    return _falsi(measure, failing, passing, tol, span)
 
 
 def _bracket(
@@ -931,10 +959,16 @@ def _secant_past(
 
 
 def _falsi(
-    measure, failing: tuple[float, float], passing: tuple[float, float], tol: float
+    measure,
+    failing: tuple[float, float],
+    passing: tuple[float, float],
+    tol: float,
+    span: tuple[float, float] = (1.0, 1.0),
 ) -> tuple[float, float]:
     """Narrow the bracket between ``failing`` and ``passing`` (each an (offset, margin) pair,
-    margin > 0 failing, <= 0 passing) to ``tol``; the final (failing, passing) offsets.
+    margin > 0 failing, <= 0 passing) to ``tol`` (``span``: to ``span[0]`` × ``tol`` where
+    the failing end's margin is finite, ``span[1]`` × ``tol`` where not); the final
+    (failing, passing) offsets.
     The Illinois variant of regula falsi (M. Dowell and P. Jarratt, "A modified regula falsi
     method for computing the root of an equation", BIT 11, 1971): the secant through the ends,
     the margin of an end kept twice in a row halved. Safeguarded as Brent's method is (R. P.
@@ -950,7 +984,7 @@ def _falsi(
     widths = [np.inf, np.inf]  # the bracket's width before each step
     kept = 0  # +1: the passing end moved last; -1: the failing end did
     passed: tuple[float, float] | None = None  # the passing end before the last one
-    while hi - lo > tol:
+    while hi - lo > tol * (span[0] if np.isfinite(g_lo) else span[1]):
         x = 0.5 * (lo + hi)
         inside = (lo + FALSI_EDGE * tol, hi - FALSI_EDGE * tol)
         guess = _secant_past(passed, (hi, g_hi), tol)
@@ -1014,6 +1048,25 @@ class _Trials:
             start, end = delay - EXPECT_EDGES * raw, late + EXPECT_EDGES * raw
             self.expect = Expect(start, end, wanted, settles=True)
         return outcome.delay - (1.0 + sim.pushout) * self.reference
+
+    def reshape(self, margin: float) -> float:
+        """``margin`` as a search follows it (see PUSHOUT_FLOOR): g / (g + s); unchanged where
+        the capture failed, and before there is a reference (pass or fail only)."""
+        if self.reference is None or self.reference <= 0:
+            return margin
+        slack = self.config.simulation.pushout * self.reference
+        if not np.isfinite(margin):
+            return margin
+        return margin / max(margin + slack, PUSHOUT_FLOOR * slack)
+
+
+def _reshaped(trials: _Trials, *measures: Callable[[float], float]) -> list:
+    """Each margin of ``measures`` as a search follows it (``_Trials.reshape``)."""
+
+    def reshaped(measure: Callable[[float], float]) -> Callable[[float], float]:
+        return lambda x: trials.reshape(measure(x))
+
+    return [reshaped(m) for m in measures]
 
 
 @dataclass(frozen=True, slots=True)
@@ -1086,9 +1139,10 @@ def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint
     # A search that fails on its relaxed trial is saved with that trial's run.
     with KeepWaveform(lambda: trials.failed):
         high = relaxed(hi)
+        usual, measure, high = (*_reshaped(trials, usual, measure), trials.reshape(high))
         noted = _Noted(usual, {hi: high})
-        found = _search(noted, lo, hi, tol, point.label, high)
-        bracket = _settled(measure, noted.estimate(*found), lo, (hi, high), tol, point.label)
+        found = _search(noted, lo, hi, tol, point.label, high, (USUAL_SPAN, USUAL_SPAN_FLAT))
+        bracket = _settled(measure, noted.start(*found, tol), lo, (hi, high), tol, point.label)
     return SearchResult(point, bracket[1], trials.runs, trials.seconds, bracket)
 
 
@@ -1103,31 +1157,34 @@ class _Noted:
         self.seen[x] = self.measure(x)
         return self.seen[x]
 
-    def estimate(self, failing: float, passing: float) -> float:
-        """Where the margin crosses 0 in a final (failing, passing) bracket: on the secant
-        through its ends where both margins are finite, else (pass or fail only) its middle."""
+    def start(self, failing: float, passing: float, tol: float) -> tuple[float, float]:
+        """Where the tightened stage (``_settled``) starts from the usual stage's final
+        (failing, passing) bracket, and its first step: CONFIRM_SPAN × ``tol`` above the root
+        of the secant through the bracket's ends where both margins are finite, stepping to as
+        far below it; else (no slope to follow) the middle, stepping to either end."""
         g_f, g_p = self.seen[failing], self.seen[passing]
         if not (np.isfinite(g_f) and g_f > 0 >= g_p):
-            return 0.5 * (failing + passing)
-        return passing - g_p * (passing - failing) / (g_p - g_f)
+            return 0.5 * (failing + passing), 0.5 * (passing - failing)
+        root = passing - g_p * (passing - failing) / (g_p - g_f)
+        return root + CONFIRM_SPAN * tol, 2 * CONFIRM_SPAN * tol
 
 
 def _settled(
     measure: Callable[[float], float],
-    estimate: float,
+    begin: tuple[float, float],
     lo: float,
     high: tuple[float, float],
     tol: float,
     what: str,
 ) -> tuple[float, float]:
-    """The final (failing, passing) bracket at the tightened settings (``measure``) near
-    ``estimate``, the usual settings' root (``_Noted``): bracketed (``_bracket``) from
-    CONFIRM_SPAN × ``tol`` above it in steps from twice that (the first bracket within ``tol``
+    """The final (failing, passing) bracket at the tightened settings (``measure``) from
+    ``begin``, the usual stage's (start, first step) (``_Noted.start``): bracketed
+    (``_bracket``) from the start in steps from the first (the first bracket within ``tol``
     where the root has not moved past either trial), then narrowed (``_falsi``); ``lo`` and
     ``high`` as ``_bracket`` takes them (the search's failing end, its relaxed trial)."""
-    start = min(estimate + CONFIRM_SPAN * tol, high[0])
+    start = min(begin[0], high[0])
     first = (start, high[1] if start == high[0] else measure(start))
-    ends = _bracket(measure, lo, first, high, tol, what, step=2 * CONFIRM_SPAN)
+    ends = _bracket(measure, lo, first, high, tol, what, step=begin[1] / tol)
     return _falsi(measure, *ends, tol)
 
 
@@ -1328,8 +1385,10 @@ def measure_pulse(config: LibraryConfig, deck: Deck, point: PulsePoint) -> Searc
     with KeepWaveform(lambda: trials.failed):
         # A clock pulse's margins take the relaxed reference of the tightened settings.
         high = (measure if clock else usual)(relaxed)
+        usual, measure, high = (*_reshaped(trials, usual, measure), trials.reshape(high))
         noted = _Noted(usual, {relaxed: high})
-        found = _pulse_search(noted, point, shape, relaxed, clock, config.simulation, high)
+        spans = (USUAL_SPAN, USUAL_SPAN_FLAT)
+        found = _pulse_search(noted, point, shape, relaxed, clock, config.simulation, high, spans)
         settled = _pulse_settled(measure, noted, found, shape, (relaxed, high), tol, point.label)
         if settled is None:
             settled = _pulse_search(measure, point, shape, relaxed, clock, config.simulation, high)
@@ -1361,7 +1420,7 @@ def _pulse_settled(
         high = (shape.narrowest, noted.seen[shape.narrowest])
     lower = shape.narrowest if kind == FULL else min(shape.floor + tol, shape.narrowest)
     try:
-        bracket = _settled(measure, noted.estimate(failing, passing), lower, high, tol, what)
+        bracket = _settled(measure, noted.start(failing, passing, tol), lower, high, tol, what)
     except MeasurementError:  # the search's failing end (the narrowest, the floor) passes here
         return None
     if kind != FULL and bracket[1] == shape.narrowest:  # not simulated at these settings
@@ -1377,11 +1436,13 @@ def _pulse_search(
     clock: bool,
     sim: Simulation,
     high: float | None = None,
+    span: tuple[float, float] = (1.0, 1.0),
 ) -> tuple[tuple[float | None, float], str, str]:
     """The (failing, passing) widths, the pulse shape and a note: full-swing pulses up from the
-    narrowest, narrowed on the margin as a constraint search is (``_falsi``); then for a
-    control, runt pulses by bisection (pass or fail only); a failing width None when no width
-    the search could shape fails. ``high``: the margin at ``relaxed`` where it is known."""
+    narrowest, narrowed on the margin as a constraint search is (``_falsi``, to ``span``);
+    then for a control, runt pulses by bisection (pass or fail only); a failing width None when
+    no width the search could shape fails. ``high``: the margin at ``relaxed`` where it is
+    known."""
     tol = sim.bisect_tolerance
     passes = _passing(measure)
     if high is None:
@@ -1391,7 +1452,7 @@ def _pulse_search(
     narrowest = (shape.narrowest, measure(shape.narrowest))
     if narrowest[1] > 0:
         ends = _bracket(measure, shape.narrowest, narrowest, (relaxed, high), tol, point.label)
-        return _falsi(measure, *ends, tol), FULL, ""
+        return _falsi(measure, *ends, tol, span), FULL, ""
     if clock:
         note = "the narrowest full-swing pulse works; a clock's pulses are not turned back"
         return (None, shape.narrowest), FULL, note

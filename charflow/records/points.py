@@ -24,9 +24,9 @@ EDGES = ("rise", "fall")
 # other output's point shared its run (0.96 a point over the demo flip-flops' 750, the event
 # probes included); a search walks to a bracket and narrows it (``sequential._search``) at the
 # usual settings, then settles it at tightened ones (``sequential._settled``), a trial a run
-# once the relaxed one has placed the edge (11.6 runs a search over the demo flip-flops' 95
-# searches at 1 ps, a usual run 0.38 of a tightened one in time points; all measured December
-# 2026, --jobs 1).
+# once the relaxed one has placed the edge (9.6 runs a search over the demo flip-flops' 95
+# searches at 1 ps, a usual run 0.40 of a tightened one in time points; all measured December
+# 2026, --jobs 1: docs/history/2026-12-searchcount.md).
 POINT_RUNS = 1
 FLOP_POINT_RUNS = 1
 SEARCH_RUNS = 10
