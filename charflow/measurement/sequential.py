@@ -2,7 +2,8 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state. Constraints are found on the
+each output edge is measured from a properly initialised state; a clock arc's run starts
+from that written state instead, found once per worker (``heldstate``). Constraints are found on the
 data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
 passes when the right value is captured and clock-to-output has pushed out by no more than
 ``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
@@ -521,7 +522,7 @@ def _capture_waves(
 def measure_clocked(
     config: LibraryConfig, deck: Deck, point: TimingPoint, window: float | None = None
 ) -> Measurement:
-    """A clock arc (second active edge after writing the opposite value) or an asynchronous
+    """A clock arc (an active edge from the opposite value held, ``_clock_run``) or an asynchronous
     control arc (after writing the value it changes); ``window`` as in ``run_event`` (a window
     probe: the event's convergence is not checked). Every input that moves in the run is
     asked for its charge on each of its edges (``_clock_run``, ``_control_run``). Where the
