@@ -80,9 +80,6 @@ GRID_SPACING = 3.0  # breakpoint spacing in wanted samples: ngspice adds steps a
 LEAD_POINTS = 20
 LEAD_FROM = 0.45
 CHARGE_SPAN = 0.1  # of the settle window: see _settle_samples
-# s: a control point's event is read this long before the control's release (_control_run):
-# the source's corner lands on TIME_QUANTUM-rounded times, up to a few quanta from the ramp's.
-RELEASE_GUARD = 10 * stimulus.TIME_QUANTUM
 # Tightened settings (``stepsize.tightened``): every constraint and pulse-width search settles
 # its answer at them (``_settled``); each clock or control event's sample is re-simulated at
 # them, and its delays may move by SAMPLE_RTOL and transitions by SAMPLE_TRANSITION_RTOL before
@@ -314,7 +311,6 @@ def run_event(
     expect: Expect | None = None,
     also: tuple[tuple[str, bool, bool], ...] = (),
     start: Deck | None = None,
-    until: float | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment at steps up to ``step`` (``run_step``) and ``options``
     (``run_settings``): the output holds ``before`` until the event and settles at ``after``
@@ -322,9 +318,7 @@ def run_event(
     ``charge_windows`` (pin, its ramp, the end or None): charges asked for; with ``states``
     (stored before, after) the event's energy too; ``expect``: the edges' first breakpoints
     (``_first_grids``); ``start``: the testbench simulated, where it is not ``deck`` (a flop's
-    held state, ``heldstate``); ``until``: where the event's part of the run ends (a control
-    released after it, ``_control_run``): its edges and energy are read before it, charges
-    over their own windows. Returns the outcome (``_outcome``), simulations, seconds."""
+    held state, ``heldstate``). Returns the outcome (``_outcome``), simulations, seconds."""
     cell = config.cell(deck.cell)
     window = window or settle_window(config, deck)
     moves = ((output, before, after), *also)
@@ -343,10 +337,9 @@ def run_event(
         request = Request(start or deck, alter, tran, recorded, options, stop_when=stop_when)
         result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
-        part = _before(result.vectors, until)
-        t = part["time"]
+        t = result.vectors["time"]
         with saved:
-            edges = [_edge(config, part, *m, nodes, event, window) for m in moves]
+            edges = [_edge(config, result.vectors, *m, nodes, event, window) for m in moves]
         if edges[0] is None:  # the output holds: nothing to time
             nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
             return nothing, runs, seconds
@@ -360,8 +353,7 @@ def run_event(
         lead = span[0] if states is not None else event.start + LEAD_FROM * event.duration
         train = edge_train(min(lead, span[0]), span[1], wanted)
     measured = (event, t_ev, stop, charge_windows, states, loads)
-    outcome = _outcome(config, deck, result.vectors, part, moves, edges, *measured)
-    return outcome, runs, seconds
+    return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
 
 
 def _first_grids(
@@ -385,19 +377,10 @@ def _first_grids(
     return grid, edge_train(*span, expect.wanted)
 
 
-def _before(vectors: dict[str, np.ndarray], until: float | None) -> dict[str, np.ndarray]:
-    """A run's vectors up to ``until`` (s; all of them for None)."""
-    if until is None:
-        return vectors
-    keep = vectors["time"] <= until
-    return {name: v[keep] for name, v in vectors.items()}
-
-
 def _outcome(
     config: LibraryConfig,
     deck: Deck,
     vectors: dict[str, np.ndarray],
-    part: dict[str, np.ndarray],
     moves: tuple[tuple[str, bool, bool], ...],
     edges: list[_Edge | None],
     event: Ramp,
@@ -408,7 +391,7 @@ def _outcome(
     loads: dict[str, float],
 ) -> Outcome:
     """What ``run_event`` measured on its final run: every output's edge, each charge window's
-    charge and (with ``states``) the event's energy, read on ``part`` (``_before``)."""
+    charge and (with ``states``) the event's energy."""
     t = vectors["time"]
     # A source's branch current flows into its + node from outside: the pin's charge is −∫i.
     charges = tuple(
@@ -418,7 +401,7 @@ def _outcome(
     energy = None
     if states is not None:
         settle = settle_window(config, deck)
-        energy = ffpower.event_energy(config, deck, part, event, states, loads, settle)
+        energy = ffpower.event_energy(config, deck, vectors, event, states, loads, settle)
     derate = config.thresholds.slew_derate
     others = tuple(
         (o, e.t_out, e.raw / derate) for (o, _, _), e in zip(moves[1:], edges[1:], strict=True) if e
@@ -757,13 +740,13 @@ def _clocked(
     bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
     stored = _stored(cell, point)
     run = _clock_run if point.kind == "clock" else _control_run
-    waves, event, windows, release = run(bench, point, stored)
+    waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
-    old, written = capture_values(cell, not stored), run_step(config, min(cell.grid.slew))
-    clock_active = point.kind == "clock"
-    start, runs, seconds = heldstate.held_deck(
-        config, deck, bench, not stored, old, written, active=clock_active
-    )
+    start, runs, seconds = deck, 0, 0.0
+    if point.kind == "clock":
+        old = capture_values(cell, not stored)
+        written = run_step(config, min(cell.grid.slew))
+        start, runs, seconds = heldstate.held_deck(config, deck, bench, not stored, old, written)
     every = every or _partner(config, point) is not None
     timed = [o.pin for o in cell.outputs] if every else [point.output]
     moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
@@ -788,8 +771,6 @@ def _clocked(
         options=options,
         expect=expect,
         start=start,
-        until=None if release is None else release.start - RELEASE_GUARD,
-        quiet_until=0.0 if release is None else release.end,
     )
     runs, seconds = runs + event_runs, seconds + event_seconds
     return _timed(point, outcome, _measurement(point, outcome, runs, seconds)), outcome
@@ -825,8 +806,7 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
     inactive edge; half-way through the inactive phase the data moves (the latch that captures
     is open: the pins' load as a driver sees it while setting up); then the measured edge.
     Charge windows: each data pin over its edge, the clock over its inactive edge (until the
-    data moves) and over its measured edge. Returns the waves, the event, the windows and
-    None (the event's part lasts to the run's end: ``_control_run``)."""
+    data moves) and over its measured edge."""
     cell, flop = bench.cell, bench.cell.flip_flop
     new, old = dict(point.side), capture_values(cell, not stored)
     clock, event = bench.held_clock(point.slew)
@@ -840,31 +820,34 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
         (flop.clock, back.moved(event.start - bench.half), change),
         (flop.clock, event, None),
     )
-    return waves, event, windows, None
+    return waves, event, windows
 
 
 def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
-    """Waves of a clear or preset arc's run, which starts from the flop holding the other value
-    with the control released and the clock back at its inactive level (``heldstate``, as an
-    active clock edge and its inactive edge left it): the control is asserted at ``lead``, the
-    measured event; once the settle window after it has passed, the control is released (the
-    flop keeps its value), the state it is released from the one it had asserted. Charge
-    windows: the assertion until the release, the release until the run's end. Returns the
-    waves, the event, the windows and when the event's part ends (the release)."""
+    """Waves of a clear or preset arc's run: the control starts asserted and is released at
+    the run's start (the flop takes the control's value and keeps it); half a period later one
+    active clock edge writes the other value; a quarter period after the clock's inactive edge
+    (its currents have died down and stay out of the event's energy window) the control is
+    asserted again: the measured event. Charge windows: the release until the clock edge, the
+    assertion until the run's end."""
     cell, flop = bench.cell, bench.cell.flip_flop
     waves: dict[str, Wave] = {
         p: stimulus.constant(bench.level(v)) for p, v in capture_values(cell, not stored).items()
     }
-    waves[flop.clock] = stimulus.constant(bench.ramp(min(cell.grid.slew), flop.edge).levels[0])
-    event = bench.ramp(point.slew, point.input_edge).moved(bench.lead)
-    back = "fall" if point.input_edge == "rise" else "rise"
-    release = bench.ramp(point.slew, back).moved(event.end + bench.window)
+    clock, first = bench.clock(min(cell.grid.slew), edges=1, start=bench.lead + bench.half)
+    waves[flop.clock] = clock
+    release = "fall" if point.input_edge == "rise" else "rise"
+    up = bench.ramp(point.slew, release)
+    event = bench.ramp(point.slew, point.input_edge).moved(first.end + 1.5 * bench.half)
+    held = event.start - bench.lead - up.duration
     waves[point.related] = bench.pulse(
-        *event.levels, event.start, event.duration, release.duration, bench.window, 1.0
+        *up.levels, bench.lead, up.duration, event.duration, held, 1.0
     )
-    until = release.start - RELEASE_GUARD
-    windows = ((point.related, event, until), (point.related, release, None))
-    return waves, event, windows, release
+    windows = (
+        (point.related, up.moved(bench.lead), first.start),
+        (point.related, event, None),
+    )
+    return waves, event, windows
 
 
 def _sensitized_data(cell: CellSpec, pin: str) -> dict[str, bool]:
