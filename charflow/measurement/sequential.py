@@ -2,7 +2,8 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state. Constraints are found on the
+each output edge is measured from a properly initialised state; a clock arc's run starts
+from that written state instead, found once per worker (``heldstate``). Constraints are found on the
 data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
 passes when the right value is captured and clock-to-output has pushed out by no more than
 ``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
@@ -20,7 +21,7 @@ import numpy as np
 
 from charflow.config.library import CellSpec, Grid, LibraryConfig, Simulation, Thresholds
 from charflow.config.shapes import InputShape
-from charflow.measurement import ffpower, stepsize
+from charflow.measurement import ffpower, heldstate, stepsize
 from charflow.measurement.combinational import (
     EXTRA_POINTS,
     GRID_POINTS,
@@ -331,13 +332,15 @@ def run_event(
     options: tuple[str, ...] = (),
     expect: Expect | None = None,
     also: tuple[tuple[str, bool, bool], ...] = (),
+    start: Deck | None = None,
 ) -> tuple[Outcome, int, float]:
     """Simulate one experiment at steps up to ``step`` (``run_step``) and ``options``
     (``run_settings``): the output holds ``before`` until the event and settles at ``after``
     within ``window`` (``settle_window``); ``also`` (pin, before, after): more outputs timed.
     ``charge_windows`` (pin, its ramp, the end or None): charges asked for; with ``states``
     (stored before, after) the event's energy too; ``expect``: the edges' first breakpoints
-    (``_first_grids``). Returns the outcome (``_outcome``), simulations, simulator seconds."""
+    (``_first_grids``); ``start``: the testbench simulated, where it is not ``deck`` (a flop's
+    held state, ``heldstate``). Returns the outcome (``_outcome``), simulations, seconds."""
     cell = config.cell(deck.cell)
     window = window or settle_window(config, deck)
     moves = ((output, before, after), *also)
@@ -353,7 +356,7 @@ def run_event(
     for refine in range(REFINEMENTS + 1):
         tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
         alter = alters(deck, cell, waves, loads, grid, train=train)
-        request = Request(deck, alter, tran, recorded, options, stop_when=stop_when)
+        request = Request(start or deck, alter, tran, recorded, options, stop_when=stop_when)
         result, attempts = simulate(backend_for(config), request)
         runs, seconds = runs + attempts, seconds + result.seconds
         t = result.vectors["time"]
@@ -541,7 +544,7 @@ def _capture_waves(
 def measure_clocked(
     config: LibraryConfig, deck: Deck, point: TimingPoint, window: float | None = None
 ) -> Measurement:
-    """A clock arc (second active edge after writing the opposite value) or an asynchronous
+    """A clock arc (an active edge from the opposite value held, ``_clock_run``) or an asynchronous
     control arc (after writing the value it changes); ``window`` as in ``run_event`` (a window
     probe: the event's convergence is not checked). Every input that moves in the run is
     asked for its charge on each of its edges (``_clock_run``, ``_control_run``). Where the
@@ -761,6 +764,11 @@ def _clocked(
     run = _clock_run if point.kind == "clock" else _control_run
     waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
+    start, runs, seconds = deck, 0, 0.0
+    if point.kind == "clock":
+        old = capture_values(cell, not stored)
+        written = run_step(config, min(cell.grid.slew))
+        start, runs, seconds = heldstate.held_deck(config, deck, bench, not stored, old, written)
     every = every or _partner(config, point) is not None
     timed = [o.pin for o in cell.outputs] if every else [point.output]
     moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
@@ -768,7 +776,7 @@ def _clocked(
     samples = config.simulation.samples_per_edge
     ramp = event.duration
     expect = None if guess is None else guess.expect(ramp, {o: loads[o] for o in timed}, samples)
-    outcome, runs, seconds = run_event(
+    outcome, event_runs, event_seconds = run_event(
         config,
         deck,
         waves,
@@ -784,7 +792,9 @@ def _clocked(
         window=bench.window,
         options=options,
         expect=expect,
+        start=start,
     )
+    runs, seconds = runs + event_runs, seconds + event_seconds
     return _timed(point, outcome, _measurement(point, outcome, runs, seconds)), outcome
 
 
@@ -813,14 +823,15 @@ def _measurement(point: TimingPoint, outcome: Outcome, runs: int, seconds: float
 
 
 def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
-    """Waves of a clock arc's run: the first active edge writes the opposite value; half a
-    period later the inactive edge, the flop holding; half-way through the inactive phase
-    the data moves (the latch that captures is open: the pins' load as a driver sees it while
-    setting up); then the measured edge. Charge windows: each data pin over its edge, the clock
-    over its inactive edge (until the data moves) and over its measured edge."""
+    """Waves of a clock arc's run, which starts from the flop holding the opposite value with
+    the clock at its active level (``heldstate``, as an earlier active edge left it): the
+    inactive edge; half-way through the inactive phase the data moves (the latch that captures
+    is open: the pins' load as a driver sees it while setting up); then the measured edge.
+    Charge windows: each data pin over its edge, the clock over its inactive edge (until the
+    data moves) and over its measured edge."""
     cell, flop = bench.cell, bench.cell.flip_flop
     new, old = dict(point.side), capture_values(cell, not stored)
-    clock, event = bench.clock(point.slew, edges=2)
+    clock, event = bench.held_clock(point.slew)
     change = event.start - bench.half / 2
     moves = {p: bench.data(p, old[p], new[p], change, min(cell.grid.slew)) for p in new}
     waves = {p: vector for p, (vector, _, _) in moves.items()}

@@ -79,6 +79,9 @@ class Request:
     stop_when: str | None = (
         None  # ngspice condition that ends a transient early, e.g. "v(y) > 1.19"
     )
+    # Every node voltage of the run comes back too (``node_names``), by ngspice's name
+    # (``xdut.n5`` inside the cell): a flop's held state (``measurement.heldstate``).
+    every_node: bool = False
 
 
 @dataclass(frozen=True, slots=True)
@@ -279,7 +282,11 @@ class SharedBackend:
                 raise SimulatorError(
                     f"'{request.analysis}' did not run: {failed or 'no output'}", cell=cell
                 )
-            vectors = self._vectors(plot, request.vectors, cell)
+            names = request.vectors
+            if request.every_node:
+                listed = self._ng._ngspice_shared.ngSpice_AllVecs(plot.encode())
+                names += node_names(self._ng._convert_string_array(listed))
+            vectors = self._vectors(plot, tuple(dict.fromkeys(names)), cell)
         finally:
             self._after(request)
         # A stop condition that was met interrupts the run on purpose.
@@ -390,6 +397,9 @@ class SubprocessBackend:
             self.reads += 1
             _check_batch_run(proc, out, request)
             table = np.loadtxt(out, skiprows=1, ndmin=2)
+            if request.every_node:
+                header = out.read_text(encoding="utf-8").split("\n", 1)[0]
+                return Result(_every_vector(table, header, names, request.analysis), seconds)
         return Result(_batch_vectors(table, names, request.analysis), seconds)
 
     def _execute(self, deck_path: Path, tmp: str, cell: str) -> subprocess.CompletedProcess[str]:
@@ -422,7 +432,7 @@ def _write_batch_deck(tmp: Path, request: Request, out: Path, names: tuple[str, 
         *(f"option {o}" for o in request.options),
         *([f"stop when {request.stop_when}"] if request.stop_when else []),
         request.analysis,
-        f"wrdata {out} {' '.join(_wrdata_name(n) for n in names)}",
+        f"wrdata {out} {'all' if request.every_node else ' '.join(map(_wrdata_name, names))}",
         ".endc",
     ]
     text = re.sub(r"^\.end\s*\Z", "\n".join(control) + "\n.end\n", request.deck.text, flags=re.M)
@@ -467,6 +477,27 @@ def _batch_vectors(
     if not analysis.startswith("tran"):
         vectors = {n: v[-1:] for n, v in vectors.items()}
     return vectors
+
+
+def _every_vector(
+    table: np.ndarray, header: str, names: tuple[str, ...], analysis: str
+) -> dict[str, np.ndarray]:
+    """The vectors asked for and every node voltage, from ``wrdata ... all``'s table: its
+    header (``wr_vecnames``) names the scale's column, then every vector's in order."""
+    listed = [n.lower() for n in header.split()[1:]]
+    column = {n: 1 + i for i, n in reversed(list(enumerate(listed)))}
+    column["time"] = 0
+    wanted = dict.fromkeys((*names, *node_names(listed)))
+    vectors = {n: table[:, column[n.lower()]].copy() for n in wanted}
+    if not analysis.startswith("tran"):
+        vectors = {n: v[-1:] for n, v in vectors.items()}
+    return vectors
+
+
+def node_names(names: list[str] | tuple[str, ...]) -> tuple[str, ...]:
+    """The node voltages among a plot's vector names: not the scale, a branch current
+    (``v1#branch``) or a device's internal node (``m1#dbody``)."""
+    return tuple(n.lower() for n in names if "#" not in n and n.lower() not in ("time", "v-sweep"))
 
 
 def _wrdata_name(name: str) -> str:

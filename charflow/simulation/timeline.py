@@ -78,6 +78,19 @@ class Timeline:
         )
         return vector, active.moved(last)
 
+    def held_clock(self, slew: float) -> tuple[Wave, Ramp]:
+        """A clock that starts at its active level (the flop holding what an earlier active
+        edge wrote: ``measurement.heldstate``), its inactive edge at ``lead``, its active
+        edge half a period later, as ``clock``'s second period; the vector and that edge."""
+        flop = self.cell.flip_flop
+        active = self.ramp(slew, flop.edge)
+        back = self.ramp(slew, "fall" if flop.edge == "rise" else "rise")
+        rest = self.half - back.duration
+        v1, v2 = back.levels
+        # One period only: the clock holds its active level after the edge, beyond the run.
+        vector = self.pulse(v1, v2, self.lead, back.duration, active.duration, rest, 1.0)
+        return vector, active.moved(self.lead + self.half)
+
     def data(
         self, pin: str, old: bool, new: bool, start: float, slew: float, hold: float = 1.0
     ) -> tuple[Wave, Ramp, Ramp]:
