@@ -16,6 +16,7 @@ import pytest
 
 from charflow.config import library as config
 from charflow.config.resources import MODEL_DIR, TEMPLATE_DIR
+from charflow.execution import store as store_module
 from charflow.execution import sweep
 from charflow.execution.store import FILE_NAME, Store, keyring
 from charflow.flow import characterize as flow
@@ -113,6 +114,21 @@ def test_keys_follow_the_inputs_of_a_result_and_nothing_else() -> None:
     same = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, timeout=5.0))
     assert _ring(same).key(point) == key  # a time limit does not change what is measured
     assert _ring(cfg).key(dataclasses.replace(point, load=point.load * 2)) != key
+
+
+def test_a_row_measured_by_another_method_revision_is_not_served(tmp_path, monkeypatch) -> None:
+    # A stored value is only as current as the way it was measured: rows from before a change
+    # that moves measured values are re-simulated, never mixed with new ones (common practice
+    # for result caches: the key holds every input of the result, the method included).
+    cfg = config.load(SMALL)
+    point = _point(cfg)
+    m = Measurement(point, 1e-11, 2e-11, 1e-15, 1, 0.001, 1e-9)
+    with Store(tmp_path / FILE_NAME) as store:
+        store.put(_ring(cfg), m)
+        monkeypatch.setattr(store_module, "METHOD_REVISION", store_module.METHOD_REVISION + 1)
+        assert store.lookup(_ring(cfg), [point]) == {}
+        monkeypatch.undo()
+        assert store.lookup(_ring(cfg), [point]) == {point: m}
 
 
 def test_an_off_grid_point_comes_back_exactly(tmp_path: Path) -> None:

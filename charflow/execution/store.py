@@ -35,7 +35,7 @@ from charflow.execution import provenance
 from charflow.execution.provenance import file_digest
 from charflow.records.errors import StoreError
 from charflow.records.outcomes import Outcome, Result
-from charflow.records.points import TIGHT_RELTOL, TIGHT_STEPS, Work
+from charflow.records.points import METHOD_REVISION, TIGHT_RELTOL, TIGHT_STEPS, Work
 from charflow.simulation.netlist import Deck, model_files, repoint_reads
 
 FILE_NAME = "store.sqlite"
@@ -114,6 +114,7 @@ def keyring(
     del sim["timeout"]  # how long a run may take does not change what it measures
     settings = {
         "charflow": __version__,
+        "method": METHOD_REVISION,
         "thresholds": dataclasses.asdict(config.thresholds),
         "simulation": sim,
         "vdd": config.process.vdd,

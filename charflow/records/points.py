@@ -39,6 +39,11 @@ TIGHT_RUNS = 5
 # the flip-flop convergence checks and the error bars (``measurement.stepsize.tightened``).
 TIGHT_STEPS = 4.0
 TIGHT_RELTOL = 10.0
+# How charflow measures, as a number raised with every change that moves a measured value (a
+# search's trials, a run's layout, a window): a store's rows measured at another revision are
+# not served as current (``execution.store.keyring``). 2: searches' usual stage to a wider
+# bracket on a reshaped margin; clock points from the flop's held state (December 2026).
+METHOD_REVISION = 2
 
 
 @dataclass(frozen=True, slots=True)
