@@ -264,6 +264,8 @@ class SharedBackend:
             self._command(f"option {option}", cell)
         if request.stop_when:
             self._command(f"stop when {request.stop_when}", cell)
+        if request.analysis.startswith("tran"):
+            self._command(f"save {' '.join(saved(request))}", cell)
         before = self._ng.last_plot
         start = time.perf_counter()
         try:
@@ -311,8 +313,8 @@ class SharedBackend:
         """Undo what a run set up, so the next run starts from the deck as loaded."""
         if request.options:
             self._reset_options(request.options, request.deck)
-        if request.stop_when:
-            self._ng.exec_command("delete all")
+        if request.stop_when or request.analysis.startswith("tran"):
+            self._ng.exec_command("delete all")  # the stop condition and the saves
         self._ng.exec_command("destroy all")
         self._runs += 1
         if self._runs % RELEASE_EVERY == 0:
@@ -467,6 +469,19 @@ def _batch_vectors(
     if not analysis.startswith("tran"):
         vectors = {n: v[-1:] for n, v in vectors.items()}
     return vectors
+
+
+# The nodes a stop condition reads (``v(node)``): a run keeps them, or the condition has none.
+_CONDITION_NODE = re.compile(r"\bv\(([^)\s]+)\)", re.IGNORECASE)
+
+
+def saved(request: Request) -> tuple[str, ...]:
+    """What a transient keeps of its time points: the vectors asked for and the nodes its stop
+    condition reads. ngspice keeps every node and branch otherwise, then frees them all at
+    the run's end (``destroy all``): the cell's internal nodes and every gate source's current
+    stored each step only to be thrown away."""
+    condition = _CONDITION_NODE.findall(request.stop_when or "")
+    return tuple(dict.fromkeys(("time", *request.vectors, *(n.lower() for n in condition))))
 
 
 def _wrdata_name(name: str) -> str:
