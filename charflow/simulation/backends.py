@@ -278,9 +278,11 @@ class SharedBackend:
         plot = self._ng.last_plot
         try:
             if plot == before or plot == "const":
-                raise SimulatorError(
-                    f"'{request.analysis}' did not run: {failed or 'no output'}", cell=cell
-                )
+                # A transient saves only what it asked for: none of it there, ngspice runs none.
+                why = failed or "no output"
+                if "no data saved" in why:
+                    why = f"the testbench has none of {', '.join(request.vectors)}; {why}"
+                raise SimulatorError(f"'{request.analysis}' did not run: {why}", cell=cell)
             vectors = self._vectors(plot, request.vectors, cell)
         finally:
             self._after(request)
@@ -471,17 +473,19 @@ def _batch_vectors(
     return vectors
 
 
-# The nodes a stop condition reads (``v(node)``): a run keeps them, or the condition has none.
-_CONDITION_NODE = re.compile(r"\bv\(([^)\s]+)\)", re.IGNORECASE)
+# What a stop condition reads (``v(node)``, ``i(source)``): a run keeps it, or the condition
+# finds nothing to test.
+_CONDITION_VECTOR = re.compile(r"\b([vi])\(([^)\s]+)\)", re.IGNORECASE)
 
 
 def saved(request: Request) -> tuple[str, ...]:
     """What a transient keeps of its time points: the vectors asked for and the nodes its stop
-    condition reads. ngspice keeps every node and branch otherwise, then frees them all at
-    the run's end (``destroy all``): the cell's internal nodes and every gate source's current
-    stored each step only to be thrown away."""
-    condition = _CONDITION_NODE.findall(request.stop_when or "")
-    return tuple(dict.fromkeys(("time", *request.vectors, *(n.lower() for n in condition))))
+    condition reads. ngspice keeps every node and branch otherwise (the cell's internal
+    nodes, each source's current), stored at every time point only to be freed at the run's
+    end (``destroy all``)."""
+    read = _CONDITION_VECTOR.findall(request.stop_when or "")
+    condition = (name.lower() + ("#branch" if kind in "iI" else "") for kind, name in read)
+    return tuple(dict.fromkeys(("time", *request.vectors, *condition)))
 
 
 def _wrdata_name(name: str) -> str:
