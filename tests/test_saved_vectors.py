@@ -180,7 +180,9 @@ def test_a_transient_asking_for_nothing_the_testbench_has_says_so(rc, monkeypatc
 
 def test_a_failed_point_in_a_chunk_names_itself_and_the_others_are_measured(rc, monkeypatch):
     cfg, deck, points = rc
-    alone = [timing.measure_point(cfg, deck, p, step=_step(p)) for p in points]
+    # No series probes (they would run the bad load too): each point at the plain first step.
+    monkeypatch.setattr(timing, "_series", lambda config, deck, point: (None, {}))
+    alone = [timing.measure_point(cfg, deck, p) for p in points]
     backend = backend_for(cfg)
     run = backend.run
     bad = points[1]
@@ -192,9 +194,6 @@ def test_a_failed_point_in_a_chunk_names_itself_and_the_others_are_measured(rc, 
         return run(request)
 
     monkeypatch.setattr(backend, "run", failing)
-    # Each point at the step it had alone (no series probes: they would run the bad load too).
-    monkeypatch.setattr(timing, "probed", lambda config, deck, point: None)
-    monkeypatch.setattr(timing, "first_step", lambda config, deck, point: _step(point))
     outcomes = measure_chunk(cfg, deck, points)
     assert [o.point for o in outcomes] == points
     failed = outcomes[1]
