@@ -82,7 +82,7 @@ def test_the_in_process_simulator_works_on_after_a_halted_run():
     rc_deck = build_deck(cfg, cfg.cell("RCCELL"))
     before = measure_point(cfg, rc_deck, rc)
     crawl_deck = build_deck(cfg, cfg.cell("CRAWL"))
-    request = Request(crawl_deck, (), "tran 1p 20n", ("y",))
+    request = Request(crawl_deck, (), "tran 1p 20n", (crawl_deck.output_node("Y"),))
     shared = backend_for(cfg)
     assert isinstance(shared, SharedBackend)
     with pytest.raises(SimulatorTimeoutError, match=r"cell CRAWL: .*0\.3 s timeout.*halted"):

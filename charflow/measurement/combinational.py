@@ -216,10 +216,12 @@ def measure_point(
     shifts (V) by transistor (``mismatch``), none by default."""
     options: tuple[str, ...] = ()
     if step is None:
-        known = None if tight else probed(config, deck, point)
+        # The series' model and probes, looked up once (the key hashes the grid and settings).
+        model, probes = _series(config, deck, point)
+        known = None if tight else probes.get((point.slew, point.load))
         if known is not None:
             return known
-        step = first_step(config, deck, point)
+        step = stepsize.step_for(config, model, point)
     if tight:
         step, options = stepsize.tightened(deck, step)
     cell = config.cell(point.cell)

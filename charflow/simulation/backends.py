@@ -267,6 +267,9 @@ class SharedBackend:
             self._command(f"option {option}", cell)
         if request.stop_when:
             self._command(f"stop when {request.stop_when}", cell)
+        # A run that reads every node (``Request.every_node``) keeps ngspice's default: all.
+        if request.analysis.startswith("tran") and not request.every_node:
+            self._command(f"save {' '.join(saved(request))}", cell)
         before = self._ng.last_plot
         start = time.perf_counter()
         try:
@@ -279,9 +282,11 @@ class SharedBackend:
         plot = self._ng.last_plot
         try:
             if plot == before or plot == "const":
-                raise SimulatorError(
-                    f"'{request.analysis}' did not run: {failed or 'no output'}", cell=cell
-                )
+                # A transient saves only what it asked for: none of it there, ngspice runs none.
+                why = failed or "no output"
+                if "no data saved" in why:
+                    why = f"the testbench has none of {', '.join(request.vectors)}; {why}"
+                raise SimulatorError(f"'{request.analysis}' did not run: {why}", cell=cell)
             names = request.vectors
             if request.every_node:
                 listed = self._ng._ngspice_shared.ngSpice_AllVecs(plot.encode())
@@ -318,8 +323,8 @@ class SharedBackend:
         """Undo what a run set up, so the next run starts from the deck as loaded."""
         if request.options:
             self._reset_options(request.options, request.deck)
-        if request.stop_when:
-            self._ng.exec_command("delete all")
+        if request.stop_when or request.analysis.startswith("tran"):
+            self._ng.exec_command("delete all")  # the stop condition and the saves
         self._ng.exec_command("destroy all")
         self._runs += 1
         if self._runs % RELEASE_EVERY == 0:
@@ -498,6 +503,21 @@ def node_names(names: list[str] | tuple[str, ...]) -> tuple[str, ...]:
     """The node voltages among a plot's vector names: not the scale, a branch current
     (``v1#branch``) or a device's internal node (``m1#dbody``)."""
     return tuple(n.lower() for n in names if "#" not in n and n.lower() not in ("time", "v-sweep"))
+
+
+# What a stop condition reads (``v(node)``, ``i(source)``): a run keeps it, or the condition
+# finds nothing to test.
+_CONDITION_VECTOR = re.compile(r"\b([vi])\(([^)\s]+)\)", re.IGNORECASE)
+
+
+def saved(request: Request) -> tuple[str, ...]:
+    """What a transient keeps of its time points: the vectors asked for and the nodes its stop
+    condition reads. ngspice keeps every node and branch otherwise (the cell's internal
+    nodes, each source's current), stored at every time point only to be freed at the run's
+    end (``destroy all``)."""
+    read = _CONDITION_VECTOR.findall(request.stop_when or "")
+    condition = (name.lower() + ("#branch" if kind in "iI" else "") for kind, name in read)
+    return tuple(dict.fromkeys(("time", *request.vectors, *condition)))
 
 
 def _wrdata_name(name: str) -> str:
