@@ -55,6 +55,18 @@ def test_crossings_equal_the_loop_twin(case):
     np.testing.assert_allclose(got, want, rtol=TWIN_RTOL, atol=TWIN_ATOL)
 
 
+@settings(max_examples=400)
+@given(waveforms())
+def test_single_crossing_equals_the_vectorised_crossing(case):
+    # A waveform that crosses once: single_crossing's scalar interpolation to the bit.
+    t, v, level, _ = case
+    found = crossings(t, v, level, 0)
+    if len(found) != 1 or v[-1] == v[0]:
+        return
+    edge = "rise" if v[-1] > v[0] else "fall"
+    assert single_crossing(t, v, level, edge, "v") == float(found[0])
+
+
 def integral_by_mask(t, y, lo, hi):
     """The plain way, kept only to check ``integral``: numpy's own trapezoid rule on the
     samples a mask keeps strictly inside (lo, hi), the ends interpolated."""

@@ -8,6 +8,7 @@ so the models and the cell are parsed once per worker and cell, not once per poi
 
 from __future__ import annotations
 
+import functools
 import logging
 import os
 import re
@@ -541,9 +542,10 @@ _ALTER = re.compile(r"^alter\s+@?([^\s\[=]+)(?:\[[^\]]*\])?\s*=\s*(\S)")
 _LITERAL = frozenset("[0123456789+-.")
 
 
+@functools.lru_cache(maxsize=1024)
 def _held(command: str) -> tuple[str | None, bool]:
     """The device an ``alter`` command sets (None for any other command) and whether the
-    value it gives is literal."""
+    value it gives is literal; remembered by command (a series sends most of its own again)."""
     match = _ALTER.match(command)
     if match is None:
         return None, False
