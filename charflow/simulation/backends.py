@@ -508,7 +508,8 @@ def node_names(names: list[str] | tuple[str, ...]) -> tuple[str, ...]:
 
 # What a stop condition reads (``v(node)``, ``i(source)``): a run keeps it, or the condition
 # finds nothing to test.
-_CONDITION_VECTOR = re.compile(r"\b([vi])\(([^)\s]+)\)", re.IGNORECASE)
+# (Either case spelled out: an IGNORECASE pattern folds the case of every character it tries.)
+_CONDITION_VECTOR = re.compile(r"\b([vViI])\(([^)\s]+)\)")
 
 
 def saved(request: Request) -> tuple[str, ...]:
@@ -560,6 +561,11 @@ def _version_of(text: str) -> str:
     return ", ".join(keep) or " ".join(text.split())
 
 
+# Words that make a simulator's line worth quoting (any case): every run's stop condition
+# gives three lines, so a plain search beats a pattern that folds the case of each character.
+_ALARMS = ("error", "fail", "too small", "singular", "unknown", "cannot", "not found")
+
+
 def _messages(lines: list[str] | str) -> str:
     if isinstance(lines, str):
         lines = lines.splitlines()
@@ -569,11 +575,7 @@ def _messages(lines: list[str] | str) -> str:
             ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")
         )
     )
-    interesting = [
-        ln
-        for ln in keep
-        if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)
-    ]
+    interesting = [ln for ln in keep if any(word in ln.lower() for word in _ALARMS)]
     return "; ".join((interesting or keep)[-6:]) or "no message"
 
 
