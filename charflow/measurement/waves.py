@@ -162,5 +162,5 @@ def supply_energy(
 
 def step_at(t: np.ndarray, when: float) -> float:
     """The simulator's sample spacing around time ``when``."""
-    i = min(max(int(np.searchsorted(t, when)), 1), len(t) - 1)
+    i = min(max(int(t.searchsorted(when)), 1), len(t) - 1)
     return float(t[i] - t[i - 1])

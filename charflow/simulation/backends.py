@@ -158,14 +158,22 @@ class SharedBackend:
         return self._version
 
     def _command(self, command: str, cell: str) -> None:
-        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
-
-        try:
-            self._ng.exec_command(command)
-        except NgSpiceCommandError as exc:
+        """Send ``command``; raise if ngspice refuses it or reports an error. Sent as PySpice's
+        ``exec_command`` sends one, without its logging and its output joined into a string:
+        every run sends several, none read their output."""
+        ng = self._ng
+        if len(command) > ng.MAX_COMMAND_LENGTH:
             raise SimulatorError(
-                f"ngspice command '{command}' failed: {_messages(self._ng.stderr)}", cell=cell
-            ) from exc
+                f"ngspice command too long ({len(command)} characters, at most "
+                f"{ng.MAX_COMMAND_LENGTH}): {command[:60]}...",
+                cell=cell,
+            )
+        ng.clear_output()
+        refused = ng._ngspice_shared.ngSpice_Command(command.encode("ascii"))
+        if refused or ng._error_in_stdout or ng._error_in_stderr:
+            raise SimulatorError(
+                f"ngspice command '{command}' failed: {_messages(ng._stderr)}", cell=cell
+            )
 
     def load(self, deck: Deck) -> None:
         """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
@@ -325,8 +333,8 @@ class SharedBackend:
         if request.options:
             self._reset_options(request.options, request.deck)
         if request.stop_when or request.analysis.startswith("tran"):
-            self._ng.exec_command("delete all")  # the stop condition and the saves
-        self._ng.exec_command("destroy all")
+            self._command("delete all", request.deck.cell)  # the stop condition and the saves
+        self._command("destroy all", request.deck.cell)
         self._runs += 1
         if self._runs % RELEASE_EVERY == 0:
             self._release()
