@@ -55,6 +55,42 @@ def test_crossings_equal_the_loop_twin(case):
     np.testing.assert_allclose(got, want, rtol=TWIN_RTOL, atol=TWIN_ATOL)
 
 
+@settings(max_examples=400)
+@given(waveforms())
+def test_single_crossing_equals_the_vectorised_crossing(case):
+    # A waveform that crosses once: single_crossing's scalar interpolation to the bit.
+    t, v, level, _ = case
+    found = crossings(t, v, level, 0)
+    if len(found) != 1 or v[-1] == v[0]:
+        return
+    edge = "rise" if v[-1] > v[0] else "fall"
+    assert single_crossing(t, v, level, edge, "v") == float(found[0])
+
+
+def integral_by_mask(t, y, lo, hi):
+    """The plain way, kept only to check ``integral``: numpy's own trapezoid rule on the
+    samples a mask keeps strictly inside (lo, hi), the ends interpolated."""
+    inside = (t > lo) & (t < hi)
+    ts = np.concatenate(([lo], t[inside], [hi]))
+    ys = np.concatenate(([np.interp(lo, t, y)], y[inside], [np.interp(hi, t, y)]))
+    return float(np.trapezoid(ys, ts))
+
+
+@settings(max_examples=400)
+@given(waveforms(), st.floats(-0.2, 1.2), st.floats(-0.2, 1.2), st.booleans())
+def test_integral_equals_numpys_trapezoid_to_the_bit(case, a, b, on_samples):
+    # Bounds between samples, on them (the mask's strict ends), before the first or past the last.
+    t, v, _, _ = case
+    if on_samples:
+        lo, hi = (t[int(x * (len(t) - 1))] for x in (min(max(a, 0.0), 1.0), min(max(b, 0.0), 1.0)))
+    else:
+        lo, hi = (t[0] + x * (t[-1] - t[0]) for x in (a, b))
+    got = integral(t, v, lo, hi)
+    want = integral_by_mask(t, v, lo, hi)
+    np.testing.assert_allclose(got, want, rtol=TWIN_RTOL, atol=TWIN_ATOL)
+    assert integral(t, v) == integral_by_mask(t, v, t[0], t[-1])
+
+
 @pytest.mark.parametrize(
     ("v", "direction", "want"),
     [

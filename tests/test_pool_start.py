@@ -89,14 +89,18 @@ def rc():
 def _sent(monkeypatch, backend) -> list[str]:
     """Every command the backend sends ngspice from now on."""
     sent: list[str] = []
-    command = backend._ng.exec_command
+    # A run's own commands go through the backend's ``_command``; the rest through PySpice's.
+    for owner, name in ((backend._ng, "exec_command"), (backend, "_command")):
+        monkeypatch.setattr(owner, name, _spying(getattr(owner, name), sent))
+    return sent
 
+
+def _spying(send, sent: list[str]):
     def spy(text, *args, **kwargs):
         sent.append(text)
-        return command(text, *args, **kwargs)
+        return send(text, *args, **kwargs)
 
-    monkeypatch.setattr(backend._ng, "exec_command", spy)
-    return sent
+    return spy
 
 
 def _step(point) -> float:

@@ -158,7 +158,8 @@ def simulate(backend, request: Request) -> tuple[Result, int]:
     timed_out = False
     for attempt, options in enumerate(RETRY_LADDER, 1):
         try:
-            return backend.run(replace(request, options=request.options + options)), attempt
+            sent = replace(request, options=request.options + options) if options else request
+            return backend.run(sent), attempt
         except (DeckReadError, SimulatorHungError):
             raise
         except SimulatorError as exc:

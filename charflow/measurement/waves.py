@@ -69,7 +69,14 @@ def crossings_loop(t, v, level: float, direction: int = 0) -> list[float]:
 
 def single_crossing(t: np.ndarray, v: np.ndarray, level: float, edge: str, what: str) -> float:
     """The one crossing of ``level`` on ``edge``; anything else is a MeasurementError."""
-    found = crossings(t, v, level, 0)
+    above = v >= level
+    changes = (above[1:] != above[:-1]).nonzero()[0]
+    # The usual case, one crossing, interpolated as ``crossings`` does in scalars (a test
+    # holds the two equal): the arrays' overhead is most of the cost on a few hundred samples.
+    if len(changes) == 1:
+        found = [_crossing_at(t, v, level, int(changes[0]))]
+    else:
+        found = list(crossings(t, v, level, 0))
     if len(found) == 0:
         raise MeasurementError(
             f"{what} never crosses {level:.4g} V (from {v[0]:.4g} V to {v[-1]:.4g} V)"
@@ -84,7 +91,13 @@ def single_crossing(t: np.ndarray, v: np.ndarray, level: float, edge: str, what:
     direction = 1 if v[-1] > v[0] else -1
     if direction != want:
         raise MeasurementError(f"{what} moves the wrong way: expected {edge}")
-    return float(found[0])
+    return found[0]
+
+
+def _crossing_at(t: np.ndarray, v: np.ndarray, level: float, i: int) -> float:
+    """Where ``v`` crosses ``level`` between samples ``i`` and ``i + 1``."""
+    t0, t1, v0, v1 = float(t[i]), float(t[i + 1]), float(v[i]), float(v[i + 1])
+    return t0 + (level - v0) * (t1 - t0) / (v1 - v0)
 
 
 def transition(
@@ -115,13 +128,17 @@ def check_settled(
 def integral(
     t: np.ndarray, y: np.ndarray, start: float | None = None, stop: float | None = None
 ) -> float:
-    """Trapezoidal integral of ``y`` over [start, stop], the ends interpolated."""
+    """Trapezoidal integral of ``y`` over [start, stop], the ends interpolated; ``t``
+    increasing, as a simulator's time is."""
     lo = t[0] if start is None else start
     hi = t[-1] if stop is None else stop
-    inside = (t > lo) & (t < hi)
-    ts = np.concatenate(([lo], t[inside], [hi]))
-    ys = np.concatenate(([np.interp(lo, t, y)], y[inside], [np.interp(hi, t, y)]))
-    return float(np.trapezoid(ys, ts))
+    # The samples strictly inside (lo, hi): a slice of an increasing t, found by bisection.
+    inside = slice(int(t.searchsorted(lo, "right")), int(t.searchsorted(hi, "left")))
+    ends = np.interp((lo, hi), t, y)
+    ts = np.concatenate(((lo,), t[inside], (hi,)))
+    ys = np.concatenate((ends[:1], y[inside], ends[1:]))
+    # np.trapezoid's own sum, without its generality's overhead (a test holds the two equal).
+    return float(np.add.reduce((ts[1:] - ts[:-1]) * (ys[1:] + ys[:-1]) / 2.0))
 
 
 def supply_energy(
@@ -145,5 +162,5 @@ def supply_energy(
 
 def step_at(t: np.ndarray, when: float) -> float:
     """The simulator's sample spacing around time ``when``."""
-    i = int(np.clip(np.searchsorted(t, when), 1, len(t) - 1))
+    i = min(max(int(t.searchsorted(when)), 1), len(t) - 1)
     return float(t[i] - t[i - 1])

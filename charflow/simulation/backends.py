@@ -8,6 +8,7 @@ so the models and the cell are parsed once per worker and cell, not once per poi
 
 from __future__ import annotations
 
+import functools
 import logging
 import os
 import re
@@ -157,14 +158,22 @@ class SharedBackend:
         return self._version
 
     def _command(self, command: str, cell: str) -> None:
-        from PySpice.Spice.NgSpice.Shared import NgSpiceCommandError
-
-        try:
-            self._ng.exec_command(command)
-        except NgSpiceCommandError as exc:
+        """Send ``command``; raise if ngspice refuses it or reports an error. Sent as PySpice's
+        ``exec_command`` sends one, without its logging and its output joined into a string:
+        every run sends several, none read their output."""
+        ng = self._ng
+        if len(command) > ng.MAX_COMMAND_LENGTH:
             raise SimulatorError(
-                f"ngspice command '{command}' failed: {_messages(self._ng.stderr)}", cell=cell
-            ) from exc
+                f"ngspice command too long ({len(command)} characters, at most "
+                f"{ng.MAX_COMMAND_LENGTH}): {command[:60]}...",
+                cell=cell,
+            )
+        ng.clear_output()
+        refused = ng._ngspice_shared.ngSpice_Command(command.encode("ascii"))
+        if refused or ng._error_in_stdout or ng._error_in_stderr:
+            raise SimulatorError(
+                f"ngspice command '{command}' failed: {_messages(ng._stderr)}", cell=cell
+            )
 
     def load(self, deck: Deck) -> None:
         """Make ``deck`` the circuit ngspice runs, reading it only if it is not loaded."""
@@ -324,8 +333,8 @@ class SharedBackend:
         if request.options:
             self._reset_options(request.options, request.deck)
         if request.stop_when or request.analysis.startswith("tran"):
-            self._ng.exec_command("delete all")  # the stop condition and the saves
-        self._ng.exec_command("destroy all")
+            self._command("delete all", request.deck.cell)  # the stop condition and the saves
+        self._command("destroy all", request.deck.cell)
         self._runs += 1
         if self._runs % RELEASE_EVERY == 0:
             self._release()
@@ -507,7 +516,8 @@ def node_names(names: list[str] | tuple[str, ...]) -> tuple[str, ...]:
 
 # What a stop condition reads (``v(node)``, ``i(source)``): a run keeps it, or the condition
 # finds nothing to test.
-_CONDITION_VECTOR = re.compile(r"\b([vi])\(([^)\s]+)\)", re.IGNORECASE)
+# (Either case spelled out: an IGNORECASE pattern folds the case of every character it tries.)
+_CONDITION_VECTOR = re.compile(r"\b([vViI])\(([^)\s]+)\)")
 
 
 def saved(request: Request) -> tuple[str, ...]:
@@ -541,9 +551,10 @@ _ALTER = re.compile(r"^alter\s+@?([^\s\[=]+)(?:\[[^\]]*\])?\s*=\s*(\S)")
 _LITERAL = frozenset("[0123456789+-.")
 
 
+@functools.lru_cache(maxsize=1024)
 def _held(command: str) -> tuple[str | None, bool]:
     """The device an ``alter`` command sets (None for any other command) and whether the
-    value it gives is literal."""
+    value it gives is literal; remembered by command (a series sends most of its own again)."""
     match = _ALTER.match(command)
     if match is None:
         return None, False
@@ -558,6 +569,11 @@ def _version_of(text: str) -> str:
     return ", ".join(keep) or " ".join(text.split())
 
 
+# Words that make a simulator's line worth quoting (any case): every run's stop condition
+# gives three lines, so a plain search beats a pattern that folds the case of each character.
+_ALARMS = ("error", "fail", "too small", "singular", "unknown", "cannot", "not found")
+
+
 def _messages(lines: list[str] | str) -> str:
     if isinstance(lines, str):
         lines = lines.splitlines()
@@ -567,11 +583,7 @@ def _messages(lines: list[str] | str) -> str:
             ln.strip() for ln in lines if ln.strip() and not ln.startswith("Note: can't find init")
         )
     )
-    interesting = [
-        ln
-        for ln in keep
-        if re.search(r"error|fail|too small|singular|unknown|cannot|not found", ln, re.I)
-    ]
+    interesting = [ln for ln in keep if any(word in ln.lower() for word in _ALARMS)]
     return "; ".join((interesting or keep)[-6:]) or "no message"
 
 

@@ -100,8 +100,10 @@ def _edge_corners(edge: Ramp, v1: float, v2: float) -> list[tuple[float, float]]
     return [(edge.start + t * edge.duration, v1 + p * (v2 - v1)) for t, p in edge.corners]
 
 
+@functools.lru_cache(maxsize=64)
 def constant(value: float) -> Wave:
-    """A PULSE vector that holds ``value`` (a side input)."""
+    """A PULSE vector that holds ``value`` (a side input); remembered by value (a point's
+    side inputs are at the rails)."""
     return pulse_vector(value, value, 0.0, 1e-12, 1e-12, 1.0, 2.0)
 
 
