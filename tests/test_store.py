@@ -8,6 +8,8 @@ must come back exactly as it went in, off the grid too, and must not be simulate
 from __future__ import annotations
 
 import dataclasses
+import hashlib
+import json
 import shutil
 import sqlite3
 from pathlib import Path
@@ -129,6 +131,35 @@ def test_a_row_measured_by_another_method_revision_is_not_served(tmp_path, monke
         assert store.lookup(_ring(cfg), [point]) == {}
         monkeypatch.undo()
         assert store.lookup(_ring(cfg), [point]) == {point: m}
+
+
+def test_a_key_is_the_hash_of_the_cells_inputs_and_every_field_of_the_point() -> None:
+    # The slow twin of the key's definition, written out: SHA-256 of the JSON (sorted keys) of
+    # [the cell's inputs, [the point's record name, all its fields]]; the store writes the
+    # point's part once per point, and must give the same text (FIPS 180-4 for the hash; the
+    # JSON layout is Python's json.dumps with its default separators).
+    cfg = config.load(SMALL)
+    ring = _ring(cfg)
+    points = planning.plan(cfg).points
+    for point in (*points[:40], _point(cfg)):
+        fields = [type(point).__name__, dataclasses.asdict(point)]
+        for head, got in ((ring.cells[point.cell].digest, ring.key), (ring.library, ring.slot)):
+            text = json.dumps([head, fields], sort_keys=True)
+            assert got(point) == hashlib.sha256(text.encode()).hexdigest()
+
+
+def test_a_batch_is_stored_in_one_write_and_served_whole(tmp_path: Path) -> None:
+    cfg = config.load(SMALL)
+    ring = _ring(cfg)
+    ms = [
+        Measurement(_point(cfg, load=c), 1e-11 * i, 2e-11, 1e-15, 1, 0.001, 1e-9)
+        for i, c in enumerate((1e-15, 2e-15, 3e-15), start=1)
+    ]
+    with Store(tmp_path / FILE_NAME) as store:
+        store.put_all(ring, iter(ms))
+        store.put_all(ring, ())  # nothing to write: no transaction
+        assert store.count() == 3
+        assert store.lookup(ring, [m.point for m in ms]) == {m.point: m for m in ms}
 
 
 def test_an_off_grid_point_comes_back_exactly(tmp_path: Path) -> None:

@@ -80,10 +80,10 @@ class Keyring:
     cells: dict[str, CellInputs]
 
     def key(self, point: Work) -> str:
-        return _hash([self.cells[point.cell].digest, _point_fields(point)])
+        return _hash_with(self.cells[point.cell].digest, point)
 
     def slot(self, point: Work) -> str:
-        return _hash([self.library, _point_fields(point)])
+        return _hash_with(self.library, point)
 
 
 @dataclass(frozen=True, slots=True)
@@ -246,18 +246,34 @@ class Store:
 
     def put(self, ring: Keyring, m: Result) -> None:
         """Store one result (a record of ``RECORDS``), committed at once."""
-        p = m.point
-        row = (
-            ring.key(p),
-            ring.slot(p),
-            ring.library,
-            p.cell,
-            p.label,
-            json.dumps(ring.cells[p.cell].models),
-            type(m).__name__,
-            _encode(m),
-        )
-        self._write("INSERT OR REPLACE INTO point VALUES (?, ?, ?, ?, ?, ?, ?, ?)", row)
+        self.put_all(ring, (m,))
+
+    def put_all(self, ring: Keyring, results: Iterable[Result]) -> None:
+        """Store ``results`` in one transaction, committed at once (one commit a batch of a
+        worker's outcomes, not a row); on a full disk row by row, so that as many of them are
+        kept as there is room for before the error."""
+        rows = [
+            (
+                ring.key(m.point),
+                ring.slot(m.point),
+                ring.library,
+                m.point.cell,
+                m.point.label,
+                json.dumps(ring.cells[m.point.cell].models),
+                type(m).__name__,
+                _encode(m),
+            )
+            for m in results
+        ]
+        sql = "INSERT OR REPLACE INTO point VALUES (?, ?, ?, ?, ?, ?, ?, ?)"
+        try:
+            if rows:
+                self._write(sql, rows)
+        except StoreError as exc:
+            if getattr(exc.__cause__, "sqlite_errorcode", None) != sqlite3.SQLITE_FULL:
+                raise
+            for row in rows:  # a full disk: keep as many of the batch as there is room for
+                self._write(sql, [row])
 
     def verified(self, ring: Keyring, cell: str) -> bool:
         """Whether the cell's function check passed with the current inputs."""
@@ -265,7 +281,7 @@ class Store:
         return self._query(query, (ring.cells[cell].digest,)).fetchone() is not None
 
     def mark_verified(self, ring: Keyring, cell: str) -> None:
-        self._write("INSERT OR IGNORE INTO verified VALUES (?)", (ring.cells[cell].digest,))
+        self._write("INSERT OR IGNORE INTO verified VALUES (?)", [(ring.cells[cell].digest,)])
 
     def _query(self, sql: str, args: tuple = ()) -> sqlite3.Cursor:
         try:
@@ -282,13 +298,13 @@ class Store:
             text = f"{sql} ({', '.join('?' * len(part))})"
             yield from self._query(text + (f" ORDER BY {order}" if order else ""), tuple(part))
 
-    def _write(self, sql: str, args: tuple) -> None:
+    def _write(self, sql: str, rows: list[tuple]) -> None:
         try:
             with self._db:
-                self._db.execute(sql, args)
+                self._db.executemany(sql, rows)
         except sqlite3.Error as exc:
-            # Each row is its own transaction: a failed one is rolled back whole and every row
-            # before it stays (a full disk gives SQLITE_FULL, "database or disk is full").
+            # Each write is its own transaction: a failed one is rolled back whole and every
+            # row before it stays (a full disk gives SQLITE_FULL, "database or disk is full").
             raise StoreError(
                 f"cannot write the result store: {exc}; the points stored before are kept "
                 "and a re-run resumes from them",
@@ -307,13 +323,24 @@ def _hash(value: object) -> str:
     return hashlib.sha256(json.dumps(value, sort_keys=True).encode()).hexdigest()
 
 
-def _point_fields(point: Work) -> list:
+def _hash_with(head: str, point: Work) -> str:
+    """``_hash([head, [the point's record name, its fields]])``, with the point's part
+    written once per point (``_point_text``): a run hashes each point for its key and slot,
+    on lookup and again when its result is stored."""
+    text = f"[{json.dumps(head)}, {_point_text(point)}]"  # json.dumps' own list layout
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+@functools.lru_cache(maxsize=8192)
+def _point_text(point: Work) -> str:
     # json writes floats with repr, which round-trips: the key holds the exact slew and load.
-    return [type(point).__name__, _plain(point)]
+    return json.dumps([type(point).__name__, _plain(point)], sort_keys=True)
 
 
 def _plain(value: object) -> object:
     """A record as JSON-ready lists and dicts."""
+    if value is None or isinstance(value, float | int | str):
+        return value  # most of a record's values: no dataclass test needed
     if dataclasses.is_dataclass(value):
         return {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
     if isinstance(value, (tuple, list)):

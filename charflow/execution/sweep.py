@@ -114,9 +114,8 @@ def run(
         for batch in results:
             # A path run (``analysis.paths``) is not a library's result: never stored.
             if store is not None and ring is not None:
-                for outcome in batch:
-                    if not isinstance(outcome, Failure | PathMeasurement):
-                        store.put(ring, outcome)
+                kept = (o for o in batch if not isinstance(o, Failure | PathMeasurement))
+                store.put_all(ring, kept)
             yield from _told(batch, on_result, stop, until)
             if stop.asked and scheduler is not None:
                 return
