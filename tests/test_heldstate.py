@@ -186,6 +186,11 @@ def test_a_state_that_cannot_be_established_names_cell_pin_and_point(seq):
     assert "held state (stored 1) could not be established" in message
     assert "output Q is at" in message
     assert "next_state" in message and "[simulation] window" in message
+    # The run that wrote the wrong value is kept for inspection: outputs first, then inputs.
+    kept = caught.value.waveform
+    names = [name for name, _ in kept.nodes]
+    assert names[0] == "Q" and {"CLK", "D", "RSTB"} <= set(names)
+    assert all(len(v) == len(kept.time) > 10 for _, v in kept.nodes)
     point = next(
         p for p in plan(seq, [cell.name]).points if isinstance(p, TimingPoint) and p.kind == "clock"
     )

@@ -18,6 +18,7 @@ from dataclasses import replace
 
 from charflow.config.library import LibraryConfig
 from charflow.measurement.combinational import LOGIC_MARGIN, alters, backend_for, simulate
+from charflow.measurement.waves import KeepWaveform, waveform
 from charflow.plan.arcs import stored_output
 from charflow.records.errors import MeasurementError
 from charflow.records.units import show_time
@@ -75,10 +76,11 @@ def _written(
     waves = {p: stimulus.constant(bench.level(v)) for p, v in levels.items()}
     waves[cell.flip_flop.clock], edge = bench.clock(min(cell.grid.slew), edges=1)
     outputs = {o.pin: deck.output_node(o.pin) for o in cell.outputs}
+    nodes = {**outputs, **{p: deck.input_node(p) for p in waves}}  # kept if it fails
     stop = edge.end + bench.window
     tran = f"tran {step:.6g} {stop:.6g} 0 {step:.6g}"
     request = Request(
-        deck, alters(deck, cell, waves, {}), tran, tuple(outputs.values()), every_node=True
+        deck, alters(deck, cell, waves, {}), tran, tuple(nodes.values()), every_node=True
     )
     result, runs = simulate(backend_for(config), request)
     # The cell's own nodes are named through its instance (``xdut.n5``); its outputs are the
@@ -89,7 +91,8 @@ def _written(
         f"after the clock's active edge with {_levels(levels)} and "
         f"{show_time(bench.window, config.time_unit)} of settling"
     )
-    _check_outputs(config, cell.name, state, {o: written[n] for o, n in outputs.items()}, what)
+    with KeepWaveform(lambda: waveform(result.vectors, nodes)):
+        _check_outputs(config, cell.name, state, {o: written[n] for o, n in outputs.items()}, what)
     return written, runs, result.seconds
 
 
