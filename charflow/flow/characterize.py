@@ -421,6 +421,23 @@ def characterize(
     the_plan, left_out = _complete(whole, got)
     got.sort({p: i for i, p in enumerate((*whole.points, *others, *work))})
     report = _fill(the_plan, got, allow_gaps)
+    return _run_result(config, made_by, the_plan, left_out, stale, got, report, reads, start)
+
+
+def _run_result(
+    config: LibraryConfig,
+    made_by: provenance.Provenance,
+    the_plan: Plan,
+    left_out: tuple[str, ...],
+    stale: dict[Work, Stale],
+    got: _Collected,
+    report: gaps.GapReport | None,
+    reads: Reads,
+    start: float,
+) -> RunResult:
+    """The plan's tables and the run's record of what it collected. Stale rows and tightened
+    values of left-out cells are dropped: they are in no table. The wall time runs from
+    ``start`` (``time.perf_counter``) until the tables are made."""
     tables, cell_power, sigma = _tabulate(config, the_plan, got, report)
     return RunResult(
         plan=the_plan,

@@ -225,6 +225,40 @@ def measure_point(
         step = stepsize.step_for(config, model, point)
     if tight:
         step, options = stepsize.tightened(deck, step)
+    bench = _bench(config, deck, point, options, shifts)
+    samples = config.simulation.samples_per_edge * (stepsize.TIGHT_STEPS if tight else 1.0)
+    edge = _measure_edge(config, point, bench, (step, samples))
+    return _measurement(config, deck, point, bench, edge)
+
+
+@dataclass(frozen=True, slots=True)
+class _Bench:
+    """A point's transient before it runs: the request it makes from an analysis line and the
+    nodes and vectors its values are read from."""
+
+    cell: CellSpec
+    ramp: stimulus.Ramp  # the related input's edge
+    tran: Callable[[str], Request]
+    after: dict[str, bool]  # the inputs once the ramp is over
+    out_node: str  # the measured output's
+    out_nodes: tuple[str, ...]  # every output's, in the cell's order
+    nodes: dict[str, str]  # what a failure's waveform shows, by pin
+    in_node: str
+    in_branch: str  # the input source's branch current
+    supply: str  # the supply's branch current
+    stop: float  # s, the run's stop-time cap
+    window: float  # s, from the ramp's end to the cap
+
+
+def _bench(
+    config: LibraryConfig,
+    deck: Deck,
+    point: TimingPoint,
+    options: tuple[str, ...],
+    shifts: Mapping[str, float] | None,
+) -> _Bench:
+    """The point's stimulus, loads, saved vectors, stop condition and stop-time cap, built
+    apart from running it so ``_measure_edge`` can re-run it at finer steps."""
     cell = config.cell(point.cell)
     vdd = config.process.vdd
     thr = config.thresholds
@@ -244,25 +278,46 @@ def measure_point(
     after = {**before, point.related: point.input_edge == "rise"}
     stop_when = _stop_when(config, cell, point, out_node, out_nodes, ramp.end, before, after)
     window = sim.window or WINDOW_CAP * max(ramp.duration, max(cell.grid.slew))
-    stop = ramp.end + window
     nodes = {o.pin: node for o, node in zip(cell.outputs, out_nodes, strict=True)}
     nodes[point.related] = in_node
     tran = partial(Request, deck, commands, vectors=vectors, options=options, stop_when=stop_when)
-    samples = sim.samples_per_edge * (stepsize.TIGHT_STEPS if tight else 1.0)
-    edge = _measure_edge(config, point, tran, (step, samples), stop, window, out_node, nodes)
+    return _Bench(
+        cell=cell,
+        ramp=ramp,
+        tran=tran,
+        after=after,
+        out_node=out_node,
+        out_nodes=out_nodes,
+        nodes=nodes,
+        in_node=in_node,
+        in_branch=in_branch,
+        supply=supply,
+        stop=ramp.end + window,
+        window=window,
+    )
+
+
+def _measurement(
+    config: LibraryConfig, deck: Deck, point: TimingPoint, bench: _Bench, edge: _Edge
+) -> Measurement:
+    """The point's values from the run its output edge was measured on: the input's charges,
+    the supply's energy with its static part taken out, and the share left in the cell."""
+    vdd = config.process.vdd
     result = edge.result
     t = result.vectors["time"]
     with edge.saved:
-        t_in, charges = _input_charges(config, point, t, result.vectors, (in_node, in_branch), ramp)
+        t_in, charges = _input_charges(
+            config, point, t, result.vectors, (bench.in_node, bench.in_branch), bench.ramp
+        )
     charge, to_threshold, slew_window = charges
-    current = -result.vectors[supply]
-    static = (float(current[0]), static_current(config, deck, after))
+    current = -result.vectors[bench.supply]
+    static = (float(current[0]), static_current(config, deck, bench.after))
     energy = supply_energy(t, current, vdd, t_in, static)
-    taken, switched = _load_energy(cell, point, result, out_nodes, vdd)
+    taken, switched = _load_energy(bench.cell, point, result, bench.out_nodes, vdd)
     return Measurement(
         point=point,
         delay=edge.t_out - t_in,
-        transition=edge.raw_transition / thr.slew_derate,
+        transition=edge.raw_transition / config.thresholds.slew_derate,
         input_charge=charge,
         supply_energy=energy,
         internal_energy=(energy - taken) / switched,
@@ -270,7 +325,7 @@ def measure_point(
         runs=edge.runs,
         sim_seconds=edge.seconds,
         stopped=float(t[-1]),
-        stop_cap=stop,
+        stop_cap=bench.stop,
         input_charge_to_threshold=to_threshold,
         input_charge_slew_window=slew_window,
     )
@@ -359,33 +414,25 @@ def _stop_when(
 
 
 def _measure_edge(
-    config: LibraryConfig,
-    point: TimingPoint,
-    tran: Callable[[str], Request],
-    steps: tuple[float, float],
-    stop: float,
-    window: float,
-    out_node: str,
-    nodes: dict[str, str],
+    config: LibraryConfig, point: TimingPoint, bench: _Bench, steps: tuple[float, float]
 ) -> _Edge:
-    """Run the point (``tran`` makes its request from an analysis line) and measure its output
-    edge from the first maximum step, refining the step until the edge has the samples wanted
-    (``steps``: both) or REFINEMENTS are spent; ``nodes`` are the nodes a failure's waveform
-    shows, by pin."""
+    """Run the point on its bench and measure its output edge from the first maximum step,
+    refining the step until the edge has the samples wanted (``steps``: both) or REFINEMENTS
+    are spent."""
     max_step, samples = steps
     runs = 0
     seconds = 0.0
     backend = backend_for(config)
-    saved = KeepWaveform(lambda: waveform(result.vectors, nodes))
+    saved = KeepWaveform(lambda: waveform(result.vectors, bench.nodes))
     for refinement in range(REFINEMENTS + 1):
-        request = tran(f"tran {max_step:.6g} {stop:.6g} 0 {max_step:.6g}")
+        request = bench.tran(f"tran {max_step:.6g} {bench.stop:.6g} 0 {max_step:.6g}")
         result, attempts = simulate(backend, request)
         runs += attempts
         seconds += result.seconds
         t = result.vectors["time"]
-        v = result.vectors[out_node]
+        v = result.vectors[bench.out_node]
         with saved:
-            t_out, raw_transition = _output_edge(config, point, t, v, window)
+            t_out, raw_transition = _output_edge(config, point, t, v, bench.window)
         # Too few samples on the edge make the interpolated crossings coarse: refine the step.
         wanted = raw_transition / samples
         if step_at(t, t_out) <= REFINE_SLACK * wanted or refinement == REFINEMENTS:
