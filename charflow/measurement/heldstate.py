@@ -1,4 +1,5 @@
-"""A flip-flop's held state as the start of a clock point's run (``sequential._clock_run``).
+"""A flip-flop's held state as the start of a clock point's run (``sequential._clock_run``) and
+of a constraint search's trials (``sequential._held_start``).
 
 A clock point's run wrote the old value into the flop with a first active edge and waited
 half a period for it to settle before the parts that are measured. The state it waited for
@@ -127,10 +128,11 @@ def _check_outputs(
         if abs(v - (vdd if want else 0.0)) > LOGIC_MARGIN * vdd:
             raise MeasurementError(
                 f"the flop's held state (stored {int(state)}) could not be established: "
-                f"{what}, output {pin} is at {v:.4g} V, not {int(want)}. Clock points start "
-                "from this state: check that the netlist stores the value next_state "
-                f"({cell.flip_flop.next_state.to_liberty()}) gives and holds it with the "
-                "clock at its active level, or "
+                f"{what}, output {pin} is at {v:.4g} V, not {int(want)}. Clock points and "
+                "setup, hold, recovery and removal searches start from this state: check "
+                "that the netlist stores the value next_state "
+                f"({cell.flip_flop.next_state.to_liberty()}) gives (or an asserted clear or "
+                "preset forces) and holds it with the clock at its active level, or "
                 "lengthen [simulation] window if the flop settles slowly",
                 cell=cell_name,
                 pin=cell.flip_flop.clock,

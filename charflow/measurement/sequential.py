@@ -2,9 +2,9 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state; a clock arc's run starts
-from that written state instead, found once per worker (``heldstate``). Constraints are found on the
-data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
+each output edge is measured from a properly initialised state; a clock arc's run and a setup,
+hold, recovery or removal search's trials start from that written state instead, found once
+per worker (``heldstate``). Constraints are found on the data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
 passes when the right value is captured and clock-to-output has pushed out by no more than
 ``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
 narrows again at the tightened ones from the root it found there (``_settled``).
@@ -1092,6 +1092,7 @@ class _Experiment:
     output: str
     before: bool
     after: bool
+    start: Deck  # the testbench every trial runs: the flop's held state (``heldstate``)
 
 
 def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
@@ -1111,6 +1112,7 @@ def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
             after=run.after,
             quiet_until=quiet,
             options=run.options,
+            start=run.start,
         )
         if judged:
             return trials.margin(outcome)
@@ -1121,18 +1123,30 @@ def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
 
 def _experiment(
     bench: Timeline,
-    deck: Deck,
     point: ConstraintPoint,
     event: Ramp,
     levels: tuple[bool, bool],
     tight: bool,
+    start: Deck,
 ) -> _Experiment:
     """A constraint point's ``_Experiment``: the first output watched at the grid's smallest
-    loads, with the levels (before, after) given."""
+    loads, with the levels (before, after) given, its trials run on ``start``."""
     cell = bench.cell
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
-    step, options = run_settings(bench.config, deck, tight, point.data_slew, point.clock_slew)
-    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels)
+    step, options = run_settings(bench.config, start, tight, point.data_slew, point.clock_slew)
+    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels, start)
+
+
+def _held_start(
+    bench: Timeline, deck: Deck, trials: _Trials, state: bool, levels: dict[str, bool]
+) -> Deck:
+    """The testbench a search's trials run on: the flop holding ``state`` with the clock at its
+    active level and the other inputs at ``levels`` (``heldstate``), as the clock points start;
+    the runs that find it (once per worker) count as the search's."""
+    written = run_step(bench.config, min(bench.cell.grid.slew))
+    held, runs, seconds = heldstate.held_deck(bench.config, deck, bench, state, levels, written)
+    trials.runs, trials.seconds = trials.runs + runs, trials.seconds + seconds
+    return held
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
@@ -1229,10 +1243,12 @@ def _constraint_setup(
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
     captured = final if point.kind == "setup" else not final
     stored = flop.next_state.evaluate({**others, pin: captured})
-    clock, event = bench.clock(point.clock_slew, edges=2)
+    clock, event = bench.held_clock(point.clock_slew)
     levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
-    run = _experiment(bench, deck, point, event, levels, tight)
-    waves_at = _data_waves(bench, point, {**others, pin: not captured}, clock, event)
+    old = {**others, pin: not captured}
+    start = _held_start(bench, deck, trials, not stored, old)
+    run = _experiment(bench, point, event, levels, tight, start)
+    waves_at = _data_waves(bench, point, old, clock, event)
     relaxed = bench.half / 2
     lo = -relaxed / 2
     if point.kind == "setup":
@@ -1285,16 +1301,17 @@ def _release_setup(
     clear = flop.clear is not None and pin in flop.clear.variables()
     forced = not clear  # the state the control holds
     released = point.data_edge == "rise"  # the pin's value once released
-    clock, event = bench.clock(point.clock_slew, edges=2)
+    clock, event = bench.held_clock(point.clock_slew)
     t_clk = event.time_at(config.thresholds.delay_input(event.edge))
     recovery = point.kind == "recovery"
     held = stored_output(cell, out, forced)
     # Recovery is judged like setup (captured, and in time); removal by the flop staying.
     after = stored_output(cell, out, not forced) if recovery else held
-    run = _experiment(bench, deck, point, event, (held, after), tight)
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
+    start = _held_start(bench, deck, trials, forced, {**values, pin: not released})
+    run = _experiment(bench, point, event, (held, after), tight, start)
 
     def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
