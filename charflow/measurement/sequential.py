@@ -2,12 +2,13 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state; a clock arc's run and a setup,
-hold, recovery or removal search's trials start from that written state instead, found once
-per worker (``heldstate``). Constraints are found on the data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
-passes when the right value is captured and clock-to-output has pushed out by no more than
-``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
-narrows again at the tightened ones from the root it found there (``_settled``).
+each output edge is measured from a properly initialised state; a clock arc's run and a
+setup, hold, recovery or removal search's trials start from that written state instead,
+found once per worker (``heldstate``). Constraints are found on the data-to-clock offset by
+a safeguarded regula falsi on clock-to-output (``_falsi``); a point passes when the right
+value is captured and clock-to-output has pushed out by no more than ``simulation.pushout``
+over its relaxed value. A search runs at the usual settings first and narrows again at the
+tightened ones from the root it found there (``_settled``).
 """
 
 from __future__ import annotations
