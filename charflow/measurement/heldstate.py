@@ -44,13 +44,25 @@ def held_deck(
     state: bool,
     levels: dict[str, bool],
     step: float,
+    inactive: dict[str, bool] | None = None,
 ) -> tuple[Deck, int, float]:
     """The testbench whose runs start with the flop holding ``state``, the clock at its
-    active level and the other inputs at ``levels``; with the simulations and simulator
-    seconds spent finding it (none once this worker has it). ``step``: the largest step of
-    the run that writes it (the grid's sharpest ramp's, ``sequential.run_step``)."""
+    active level and the other inputs at ``levels``, or with ``inactive``, the clock at its
+    inactive level and the other inputs at those (the latch that captures open: a unique
+    state, which Newton's method finds from the cards as well; checked once); with the
+    simulations and simulator seconds spent finding it (none once this worker has it).
+    ``step``: the largest step of the run that writes it (the grid's sharpest ramp's,
+    ``sequential.run_step``)."""
     settings = (config.thresholds, config.simulation, config.input_shape)
     key = (deck.key, state, tuple(sorted(levels.items())), bench.window, step, *settings)
+    if inactive is not None:
+        opened = (*key, tuple(sorted(inactive.items())))
+        if opened not in _HELD:
+            held, runs, seconds = held_deck(config, deck, bench, state, levels, step)
+            runs_op, seconds_op = _check_holds(config, held, bench, state, inactive, False)
+            _HELD[opened] = held
+            return held, runs + runs_op, seconds + seconds_op
+        return _HELD[opened], 0, 0.0
     if key in _HELD:
         return _HELD[key], 0, 0.0
     written, runs, seconds = _written(config, deck, bench, state, levels, step)
@@ -98,21 +110,27 @@ def _written(
 
 
 def _check_holds(
-    config: LibraryConfig, held: Deck, bench: Timeline, state: bool, levels: dict[str, bool]
+    config: LibraryConfig,
+    held: Deck,
+    bench: Timeline,
+    state: bool,
+    levels: dict[str, bool],
+    active: bool = True,
 ) -> tuple[int, float]:
-    """Raise unless the held testbench's operating point (clock at its active level, inputs
-    at ``levels``) has every output at its stored value; the simulations and seconds."""
+    """Raise unless the held testbench's operating point (clock at its ``active`` level or
+    the other, inputs at ``levels``) has every output at its stored value; the simulations
+    and seconds."""
     cell, flop = bench.cell, bench.cell.flip_flop
     waves = {p: stimulus.constant(bench.level(v)) for p, v in levels.items()}
-    active = bench.ramp(min(cell.grid.slew), flop.edge).levels[1]
-    waves[flop.clock] = stimulus.constant(active)
+    clock = bench.ramp(min(cell.grid.slew), flop.edge).levels[1 if active else 0]
+    waves[flop.clock] = stimulus.constant(clock)
     outputs = {o.pin: held.output_node(o.pin) for o in cell.outputs}
     request = Request(held, alters(held, cell, waves, {}), "op", tuple(outputs.values()))
     result, runs = simulate(backend_for(config), request)
     found = {o: float(result.vectors[n][-1]) for o, n in outputs.items()}
     what = (
         "at the operating point found from the written state's voltages (.nodeset cards), "
-        f"{flop.clock} at {active:g} V and {_levels(levels)}"
+        f"{flop.clock} at {clock:g} V and {_levels(levels)}"
     )
     _check_outputs(config, cell.name, state, found, what)
     return runs, result.seconds
