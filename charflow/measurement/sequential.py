@@ -798,19 +798,21 @@ def _clocked(
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
     stored = _stored(cell, point)
+    old = capture_values(cell, not stored)
+    # A clock point's data move to its side values; a control point's do not.
+    new = dict(point.side) if point.kind == "clock" else old
     short = _short(config, point)
     if short:
-        waves, event, windows = _edge_run(bench, point)
+        waves, event, windows = _edge_run(bench, point, new)
     else:
         run = _clock_run if point.kind == "clock" else _control_run
         waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
     start, runs, seconds = deck, 0, 0.0
-    if point.kind == "clock":
-        old = capture_values(cell, not stored)
+    if point.kind == "clock" or short:
         written = run_step(config, min(cell.grid.slew))
-        new = dict(point.side) if short else None
-        held = heldstate.held_deck(config, deck, bench, not stored, old, written, new)
+        opened = new if short else None
+        held = heldstate.held_deck(config, deck, bench, not stored, old, written, opened)
         start, runs, seconds = held
     every = every or _partner(config, point) is not None
     timed = [o.pin for o in cell.outputs] if every else [point.output]
@@ -889,28 +891,30 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
 
 
 def _short(config: LibraryConfig, point: TimingPoint) -> bool:
-    """Whether a clock point's run starts just before its measured edge (``_edge_run``): where
-    no output it times is at the grid's smallest load, whose points alone give the charges of
-    the data's move and the clock's inactive edge (``tables.pin_capacitance``)."""
-    if point.kind != "clock":
-        return False
+    """Whether a clock or control point's run starts just before its measured edge
+    (``_edge_run``): where no output it times is at the grid's smallest load, whose points
+    alone give the charges of what comes before (the data's move and the clock's inactive
+    edge, a control's release: ``tables.pin_capacitance``)."""
     smallest = min(config.cell(point.cell).grid.load)
     partner = _partner(config, point)
     return point.load > smallest and (partner is None or partner.load > smallest)
 
 
-def _edge_run(bench: Timeline, point: TimingPoint):
-    """Waves of a clock arc's run that starts with the clock at its inactive level and the
-    data at their new values, the flop still holding the old one (an operating point found
-    from the held state's cards, ``heldstate``), and makes the measured edge only: what
-    ``_clock_run`` makes after the data's move has settled, without the two edges before
-    (the most of such a run's time points before the event: 30-43 % on the demo's QDFF_P1).
-    Charge window: the clock over its edge."""
+def _edge_run(bench: Timeline, point: TimingPoint, levels: dict[str, bool]):
+    """Waves of a clock or control arc's run that starts with the clock at its inactive level
+    and the other inputs at ``levels``, the flop holding the old value (an operating point
+    found from the held state's cards, ``heldstate``), and makes the measured edge only: what
+    ``_clock_run`` makes after the data's move has settled, or ``_control_run`` after the
+    clock's edge has, without the edges before (30-43 % of a clock run's time points on the
+    demo's QDFF_P1). Charge window: the event's pin over its edge."""
     flop = bench.cell.flip_flop
-    event = bench.ramp(point.slew, flop.edge).moved(bench.lead)
-    waves = {p: stimulus.constant(bench.level(v)) for p, v in point.side}
-    waves[flop.clock] = event.pulse()
-    return waves, event, ((flop.clock, event, None),)
+    edge = flop.edge if point.kind == "clock" else point.input_edge
+    event = bench.ramp(point.slew, edge).moved(bench.lead)
+    waves = {p: stimulus.constant(bench.level(v)) for p, v in levels.items()}
+    inactive = bench.ramp(min(bench.cell.grid.slew), flop.edge).levels[0]
+    waves[flop.clock] = stimulus.constant(inactive)
+    waves[point.related] = event.pulse()
+    return waves, event, ((point.related, event, None),)
 
 
 def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
