@@ -811,7 +811,8 @@ def _clocked(
     start, runs, seconds = deck, 0, 0.0
     if point.kind == "clock" or short:
         written = run_step(config, min(cell.grid.slew))
-        opened = new if short else None
+        inactive = {cell.flip_flop.clock: cell.flip_flop.edge != "rise"}
+        opened = {**new, **inactive} if short else None
         held = heldstate.held_deck(config, deck, bench, not stored, old, written, opened)
         start, runs, seconds = held
     every = every or _partner(config, point) is not None
