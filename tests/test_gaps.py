@@ -220,6 +220,26 @@ def test_flop_records_keep_their_missing_energies_and_fill_side_charges():
     assert f.record.supply_energy is None and f.record.internal_energy is None
 
 
+def test_side_charges_come_from_the_sources_that_measured_them():
+    # A flop's clock points above the smallest load measure no side charges (only the
+    # smallest load's give pin capacitance): a filled point mixes those of its sources that
+    # have them, their weights renormalised; with none, it has none.
+    def clocked(load: float, q: float | None) -> Measurement:
+        p = TimingPoint(
+            "DFF", "CLK", "Q", (("D", True),), "rise", "rise", 1e-11, load, None, "clock"
+        )
+        side = () if q is None else (("D", "rise", q),)
+        return Measurement(p, 10e-12, 1e-11, 1e-15, 1, 0.0, 0.0, side_charges=side)
+
+    a, b, c = clocked(LOADS[0], 2e-15), clocked(LOADS[1], 0.0), clocked(LOADS[2], None)
+    points = Plan((), (a.point, b.point, c.point))
+    (f,) = gaps.fill_gaps(points, [a, c], [Failure(b.point, "x")], "linear").filled
+    assert f.record.side_charges == (("D", "rise", pytest.approx(2e-15, rel=1e-12, abs=0)),)
+    d = clocked(LOADS[0], None)
+    (g,) = gaps.fill_gaps(points, [d, c], [Failure(b.point, "x")], "linear").filled
+    assert g.record.side_charges == ()
+
+
 def test_an_unknown_method_is_refused_before_any_sweep():
     with pytest.raises(ConfigError, match="linear, nearest"):
         gaps.fill_gaps(_grid_plan(), [], [], "spline")
@@ -283,7 +303,8 @@ def test_saved_csv_parses_back_and_names_the_point(inverter):
 
 def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
     # Clocked with a half period of barely two edges the flop never stores: Q does not switch,
-    # and the setup and pulse-width searches fail on their relaxed trial.
+    # the setup search fails on the held state its trials start from, the pulse-width search
+    # on its relaxed trial.
     cfg = config.load(DATA / "seq_l1.toml")
     cfg = dataclasses.replace(cfg, simulation=dataclasses.replace(cfg.simulation, window=2e-11))
     deck = build_deck(cfg, cfg.cell("QDFFR_P1"))
@@ -300,8 +321,9 @@ def test_a_flop_that_cannot_capture_saves_clock_data_and_output():
     outcomes = pickle.loads(pickle.dumps(registry.measure_chunk(cfg, deck, [setup, pulse])))
     for point, f in zip((setup, pulse), outcomes, strict=True):
         assert isinstance(f, Failure) and f.point == point
-        assert "fails even with relaxed timing" in f.reason
-        assert {"Q", "CLK", "D", "RSTB"} == {name for name, _ in f.waveform.nodes}
+        why = "could not be established" if point == setup else "fails even with relaxed timing"
+        assert why in f.reason
+        assert {"Q", "CLK", "D", "RSTB"} <= {name for name, _ in f.waveform.nodes}
         assert len(f.waveform.time) == len(f.waveform.nodes[0][1]) > 10
 
 

@@ -25,6 +25,7 @@ from charflow.records import logic
 from charflow.records.errors import FunctionalMismatchError
 from charflow.records.outcomes import RUNT
 from charflow.records.points import ConstraintPoint, PulsePoint, TimingPoint
+from charflow.simulation import stimulus
 from charflow.simulation.netlist import build_deck, render_cell
 from charflow.simulation.session import SESSION
 from charflow.tables.tabulate import tabulate
@@ -42,6 +43,11 @@ SETTLE = 2e-9  # s each event of the reference run is given: twice charflow's se
 # step and the search at tightened settings every boundary is inside.
 BOUNDARY_MARGIN = 0.0
 REFERENCE_STEP = 1e-12  # s, the reference run's largest time step
+# Both outputs of a run with one heavy and one light load, each edge in its own train, against
+# the same run at 4x the samples per edge and tightened settings: measured on the demo's
+# QDFF_P1 (December 2026) within 0.005 % (delay) and 0.022 % (transition).
+TRAINS_DELAY_RTOL = 5e-4
+TRAINS_TRANSITION_RTOL = 1e-3
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -400,3 +406,60 @@ def test_an_edge_train_has_its_corners_evenly_over_the_span():
     assert v1 == v2 == 0.0 and td == pytest.approx(100e-12)
     assert tr == tf == pw == pytest.approx(per / 4) and tr <= 1.2e-12
     assert td + count * per >= 160e-12 > td + (count - 1) * per
+
+
+def test_edge_trains_give_each_edge_its_own_spacing():
+    # Two outputs' edges: the sharp one's corners at its spacing over its own span, the slow
+    # one's at its coarser spacing elsewhere and none of them within that spacing of the sharp
+    # span (a breakpoint a hair from another shrinks ngspice's step: see stimulus
+    # TIME_QUANTUM); one edge alone is still edge_train's PULSE.
+    sharp, slow = (200e-12, 260e-12, 0.5e-12), (100e-12, 700e-12, 10e-12)
+    assert sequential.edge_trains((slow,)) == sequential.edge_train(*slow)
+    wave = sequential.edge_trains((slow, sharp))
+    assert isinstance(wave, stimulus.Pwl)
+    times = np.array([t for t, v in wave.corners[1:]])
+    assert all(v == 0.0 for _, v in wave.corners) and np.all(np.diff(times) > 0)
+    inside = times[(times >= sharp[0]) & (times <= sharp[1])]
+    assert np.allclose(np.diff(inside), sharp[2])
+    outside = times[(times < sharp[0] - slow[2]) | (times > sharp[1] + slow[2])]
+    assert np.allclose(np.diff(outside[outside < sharp[0]]), slow[2])
+    assert np.allclose(np.diff(outside[outside > sharp[1]]), slow[2])
+    near = times[(times < sharp[0]) & (times > sharp[0] - slow[2])]
+    assert near.size == 0
+    assert times[0] == pytest.approx(slow[0]) and times[-1] >= slow[1]
+
+
+def test_a_light_output_held_back_by_a_heavy_one_is_timed_from_its_own_train(cfg):
+    # The guess's train covers only the heavier output's edge (its probes have every output
+    # at one load, and a flop's QB driven through Q moves with Q's load); the first run finds
+    # the lighter output's edge, the second times each edge from a train at the spacing it
+    # wants. Both against the same run sampled 4x as densely at tightened settings (the
+    # sampling converges: more samples per edge than the step needs; Nagel, SPICE2, 1975, on
+    # the local truncation error, from memory).
+    deck = build_deck(cfg, cfg.cell("QDFFR_P1"))
+    cell = cfg.cell("QDFFR_P1")
+    point = next(
+        p
+        for p in plan(cfg, ["QDFFR_P1"]).points
+        if isinstance(p, TimingPoint)
+        and (p.kind, p.output, p.slew) == ("clock", "Q", min(cell.grid.slew))
+        and (p.load, p.other_load) == (max(cell.grid.load), min(cell.grid.related_load))
+    )
+    _, guess, _, _ = sequential._event_check(cfg, deck, point)
+    assert guess is not None
+    expect = guess.expect(guess.ramps[0], sequential.point_loads(cell, point), 20)
+    assert len(expect.trains) == 1  # Q's edge only
+    measured, outcome = sequential._clocked(cfg, deck, point, every=True, guess=guess)
+    assert measured.runs == 2
+    dense = dataclasses.replace(
+        cfg, simulation=dataclasses.replace(cfg.simulation, samples_per_edge=80)
+    )
+    _, reference = sequential._clocked(dense, deck, point, tight=True, every=True)
+    assert outcome.delay == pytest.approx(reference.delay, rel=TRAINS_DELAY_RTOL)
+    assert outcome.transition == pytest.approx(reference.transition, rel=TRAINS_TRANSITION_RTOL)
+    ((pin, t_out, transition),) = outcome.others
+    ((pin_r, t_ref, transition_r),) = reference.others
+    assert pin == pin_r == "QB"
+    delay, delay_r = t_out - outcome.t_event, t_ref - reference.t_event
+    assert delay == pytest.approx(delay_r, rel=TRAINS_DELAY_RTOL)
+    assert transition == pytest.approx(transition_r, rel=TRAINS_TRANSITION_RTOL)

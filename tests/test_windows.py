@@ -69,8 +69,12 @@ def test_the_grid_sized_window_cuts_the_cell_off(monkeypatch, sharp):
     assert sequential.settle_window(cfg, deck) == sequential.WINDOW_SLEWS * SHARP[0]
     failed = _failures(cfg, deck, points)
     assert len(failed) == len(points)
-    # The output or the supply current.
-    assert all("not settled" in reason for reason in failed), failed
+    # The output or the supply current; or, where a point starts just before its edge from
+    # the state that window wrote (not settled: its operating point lands between the
+    # rails), that state, with the window named as what to lengthen.
+    assert all(
+        "not settled" in reason or "lengthen [simulation] window" in reason for reason in failed
+    ), failed
 
 
 def test_the_window_grows_until_the_cell_settles(monkeypatch, sharp):

@@ -120,21 +120,22 @@ def alters(
     values: Mapping[str, stimulus.Wave],
     loads: dict[str, float],
     grid: str = PARKED_GRID,
-    train: str | None = None,
+    train: stimulus.Wave | None = None,
     shifts: Mapping[str, float] | None = None,
 ) -> tuple[str, ...]:
     """``alter`` commands setting every input's wave (a PULSE, or a shaped edge's PWL), every
     output's load (unlisted outputs stay parked at a negligible load), the breakpoint sources
-    (``grid``'s corners, and a ``train`` of evenly spaced ones: a PULSE vector,
-    ``sequential.edge_train``, or none) and every transistor's threshold shift (V, by device
+    (``grid``'s corners, and a ``train`` of evenly spaced ones: a PULSE vector or a PWL,
+    ``sequential.edge_trains``, or none) and every transistor's threshold shift (V, by device
     name; unlisted devices at 0: no run inherits another's)."""
     commands = [
         c for p in cell.inputs for c in stimulus.set_source(deck.input_source(p), values[p])
     ]
     commands.append(f"alter @vgrid[pwl] = {grid}")
-    commands.append(
-        f"alter @vedge[pwl] = {PARKED_GRID}" if train is None else f"alter @vedge[pulse] = {train}"
-    )
+    if train is None:
+        commands.append(f"alter @vedge[pwl] = {PARKED_GRID}")
+    else:
+        commands += stimulus.set_source("vedge", train)
     commands += [
         f"alter {deck.load_cap(o.pin)} = {loads.get(o.pin, PARKED_LOAD):.12g}" for o in cell.outputs
     ]

@@ -1,4 +1,5 @@
-"""A flip-flop's held state as the start of a clock point's run (``sequential._clock_run``).
+"""A flip-flop's held state as the start of a clock point's run (``sequential._clock_run``) and
+of a constraint search's trials (``sequential._held_start``).
 
 A clock point's run wrote the old value into the flop with a first active edge and waited
 half a period for it to settle before the parts that are measured. The state it waited for
@@ -43,13 +44,24 @@ def held_deck(
     state: bool,
     levels: dict[str, bool],
     step: float,
+    then: dict[str, bool] | None = None,
 ) -> tuple[Deck, int, float]:
     """The testbench whose runs start with the flop holding ``state``, the clock at its
-    active level and the other inputs at ``levels``; with the simulations and simulator
+    active level and the other inputs at ``levels``; or with every input (the clock too) at
+    ``then`` (the latch that captures open, or closed on what was written: a state Newton's
+    method finds from the cards as well; checked once); with the simulations and simulator
     seconds spent finding it (none once this worker has it). ``step``: the largest step of
     the run that writes it (the grid's sharpest ramp's, ``sequential.run_step``)."""
     settings = (config.thresholds, config.simulation, config.input_shape)
     key = (deck.key, state, tuple(sorted(levels.items())), bench.window, step, *settings)
+    if then is not None:
+        moved = (*key, tuple(sorted(then.items())))
+        if moved not in _HELD:
+            held, runs, seconds = held_deck(config, deck, bench, state, levels, step)
+            runs_op, seconds_op = _check_holds(config, held, bench, state, then)
+            _HELD[moved] = held
+            return held, runs + runs_op, seconds + seconds_op
+        return _HELD[moved], 0, 0.0
     if key in _HELD:
         return _HELD[key], 0, 0.0
     written, runs, seconds = _written(config, deck, bench, state, levels, step)
@@ -57,7 +69,8 @@ def held_deck(
     text = re.sub(r"^\.end\s*\Z", cards + ".end\n", deck.text, flags=re.M)
     key_text = f"{deck.key}\n{text}"
     held = replace(deck, text=text, key=hashlib.sha256(key_text.encode()).hexdigest())
-    runs_op, seconds_op = _check_holds(config, held, bench, state, levels)
+    active = {bench.cell.flip_flop.clock: bench.cell.flip_flop.edge == "rise"}
+    runs_op, seconds_op = _check_holds(config, held, bench, state, {**levels, **active})
     _HELD[key] = held
     return held, runs + runs_op, seconds + seconds_op
 
@@ -97,21 +110,23 @@ def _written(
 
 
 def _check_holds(
-    config: LibraryConfig, held: Deck, bench: Timeline, state: bool, levels: dict[str, bool]
+    config: LibraryConfig,
+    held: Deck,
+    bench: Timeline,
+    state: bool,
+    inputs: dict[str, bool],
 ) -> tuple[int, float]:
-    """Raise unless the held testbench's operating point (clock at its active level, inputs
-    at ``levels``) has every output at its stored value; the simulations and seconds."""
-    cell, flop = bench.cell, bench.cell.flip_flop
-    waves = {p: stimulus.constant(bench.level(v)) for p, v in levels.items()}
-    active = bench.ramp(min(cell.grid.slew), flop.edge).levels[1]
-    waves[flop.clock] = stimulus.constant(active)
+    """Raise unless the held testbench's operating point (every input, the clock too, at
+    ``inputs``) has every output at its stored value; the simulations and seconds."""
+    cell = bench.cell
+    waves = {p: stimulus.constant(bench.level(v)) for p, v in inputs.items()}
     outputs = {o.pin: held.output_node(o.pin) for o in cell.outputs}
     request = Request(held, alters(held, cell, waves, {}), "op", tuple(outputs.values()))
     result, runs = simulate(backend_for(config), request)
     found = {o: float(result.vectors[n][-1]) for o, n in outputs.items()}
     what = (
-        "at the operating point found from the written state's voltages (.nodeset cards), "
-        f"{flop.clock} at {active:g} V and {_levels(levels)}"
+        "at the operating point found from the written state's voltages (.nodeset cards) "
+        f"with {_levels(inputs)}"
     )
     _check_outputs(config, cell.name, state, found, what)
     return runs, result.seconds
@@ -127,10 +142,11 @@ def _check_outputs(
         if abs(v - (vdd if want else 0.0)) > LOGIC_MARGIN * vdd:
             raise MeasurementError(
                 f"the flop's held state (stored {int(state)}) could not be established: "
-                f"{what}, output {pin} is at {v:.4g} V, not {int(want)}. Clock points start "
-                "from this state: check that the netlist stores the value next_state "
-                f"({cell.flip_flop.next_state.to_liberty()}) gives and holds it with the "
-                "clock at its active level, or "
+                f"{what}, output {pin} is at {v:.4g} V, not {int(want)}. Clock points and "
+                "setup, hold, recovery and removal searches start from this state: check "
+                "that the netlist stores the value next_state "
+                f"({cell.flip_flop.next_state.to_liberty()}) gives (or an asserted clear or "
+                "preset forces) and holds it with the clock at its active level, or "
                 "lengthen [simulation] window if the flop settles slowly",
                 cell=cell_name,
                 pin=cell.flip_flop.clock,

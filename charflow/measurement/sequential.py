@@ -2,12 +2,13 @@
 
 Every experiment writes the opposite value into the flop with a first clock edge, then
 applies the event under test (a second clock edge, an asynchronous control, a pulse), so
-each output edge is measured from a properly initialised state; a clock arc's run starts
-from that written state instead, found once per worker (``heldstate``). Constraints are found on the
-data-to-clock offset by a safeguarded regula falsi on clock-to-output (``_falsi``); a point
-passes when the right value is captured and clock-to-output has pushed out by no more than
-``simulation.pushout`` over its relaxed value. A search runs at the usual settings first and
-narrows again at the tightened ones from the root it found there (``_settled``).
+each output edge is measured from a properly initialised state; a clock arc's run and a
+setup, hold, recovery or removal search's trials start from that written state instead,
+found once per worker (``heldstate``). Constraints are found on the data-to-clock offset by
+a safeguarded regula falsi on clock-to-output (``_falsi``); a point passes when the right
+value is captured and clock-to-output has pushed out by no more than ``simulation.pushout``
+over its relaxed value. A search runs at the usual settings first and narrows again at the
+tightened ones from the root it found there (``_settled``).
 """
 
 from __future__ import annotations
@@ -152,9 +153,32 @@ class Expect:
     # An edge outside [start, end] is judged clearly without refining (a search's trial far
     # from its pass limit, ``_Trials``).
     settles: bool = False
-    # The corners go in an evenly spaced train (``edge_train``) beside the run's own grid
-    # (a clock or control point's guess, ``_Guess``), not in that grid (``_edge_grid``).
-    train: bool = False
+    # Each output's (start, end, spacing) from the event's threshold crossing: its corners go
+    # in a train (``edge_trains``) beside the run's own grid (a clock or control point's
+    # guess, ``_Guess``); with none, the corners go in that grid (``_edge_grid``).
+    trains: tuple[tuple[float, float, float], ...] = ()
+
+
+def edge_trains(spans: tuple[tuple[float, float, float], ...]) -> Wave:
+    """The breakpoint train over a run's output edges, one (start, stop, spacing) each: one
+    edge's is ``edge_train``'s PULSE; several edges' a PWL of each edge's corners at its own
+    spacing, the finest first, a coarser edge's left out within its spacing of a finer one's
+    span. One spacing for all, the finest, over every edge's span cost a demo flop's clock
+    point with one output at the grid's smallest load and the other at its largest about 5x
+    the time points of a point timing one output (December 2026)."""
+    if len(spans) == 1:
+        return edge_train(*spans[0])
+    times: list[float] = []
+    covered: list[tuple[float, float]] = []
+    for start, stop, spacing in sorted(spans, key=lambda span: span[2]):
+        count = max(2, int(np.ceil((stop - start) / spacing)) + 1)
+        times += [
+            float(x)
+            for x in np.linspace(start, start + (count - 1) * spacing, count)
+            if not any(a - spacing < x < b + spacing for a, b in covered)
+        ]
+        covered.append((start, start + (count - 1) * spacing))
+    return stimulus.Pwl(((0.0, 0.0), *((t, 0.0) for t in sorted(times) if t > 0)))
 
 
 def edge_train(start: float, stop: float, spacing: float) -> str:
@@ -366,14 +390,17 @@ def run_event(
             nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
             return nothing, runs, seconds
         timed = [e for e in edges if e is not None]
-        span, wanted, fine = _sampled(t, timed, config.simulation.samples_per_edge)
-        if fine or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
+        spans, fine = _sampled(t, timed, config.simulation.samples_per_edge)
+        # An edge the first run's train did not cover (``_Guess.expect``) is only found by it.
+        found = refine == 0 and expect is not None and 0 < len(expect.trains) < len(timed)
+        if (fine and not found) or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
         # The edges sampled by a train at the spacing they want: the next run is fine. An
-        # energy run's grid samples the event and the settling after it; else the train starts
-        # LEAD_FROM into the event's ramp, where the cell's nodes start to answer it.
-        lead = span[0] if states is not None else event.start + LEAD_FROM * event.duration
-        train = edge_train(min(lead, span[0]), span[1], wanted)
+        # energy run's grid samples the event and the settling after it; else each edge's
+        # train starts LEAD_FROM into the event's ramp, where the cell's nodes answer it.
+        lead = min(a for a, _, _ in spans)
+        lead = lead if states is not None else event.start + LEAD_FROM * event.duration
+        train = edge_trains(tuple((min(lead, a), b, w) for a, b, w in spans))
     measured = (event, t_ev, stop, charge_windows, states, loads)
     return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
 
@@ -385,7 +412,7 @@ def _first_grids(
     inside: tuple[float, ...],
     states: tuple[bool, bool] | None,
     expect: Expect | None,
-) -> tuple[str, str | None]:
+) -> tuple[str, Wave | None]:
     """A run's first breakpoints (``run_event``): the grid (PWL) and the edge train (PULSE,
     or None): where the edges are ``expect``-ed, else (an energy run) over the event and the
     settling after it."""
@@ -393,10 +420,10 @@ def _first_grids(
         grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
         return grid, None
     span = (t_ev + expect.start, t_ev + expect.end)
-    if not expect.train:
+    if not expect.trains:
         return _edge_grid(event, span, expect.wanted, inside), None
     grid = ffpower.event_grid(event, window, inside) if states is not None else PARKED_GRID
-    return grid, edge_train(*span, expect.wanted)
+    return grid, edge_trains(tuple((t_ev + a, t_ev + b, w) for a, b, w in expect.trains))
 
 
 def _outcome(
@@ -520,18 +547,16 @@ def _edge(
 
 def _sampled(
     t: np.ndarray, edges: list[_Edge], samples: int
-) -> tuple[tuple[float, float], float, bool]:
-    """Whether every edge has samples_per_edge samples (with REFINE_SLACK), and where the
-    refinement's breakpoints go otherwise: the span of every edge with its margins (a
-    transition and the simulator's step at it either side) and the spacing the sharpest
-    wants."""
-    fine, starts, ends = True, [], []
+) -> tuple[tuple[tuple[float, float, float], ...], bool]:
+    """Where the refinement's breakpoints go, each edge's (start, end, spacing): its span with
+    its margins (a transition and the simulator's step at it either side) at the spacing it
+    wants; and whether every edge has samples_per_edge samples (with REFINE_SLACK)."""
+    fine, spans = True, []
     for e in edges:
         coarse = max(step_at(t, x) for x in (e.t_out, *e.band))
         fine = fine and coarse <= REFINE_SLACK * e.raw / samples
-        starts.append(e.band[0] - coarse - e.raw)
-        ends.append(e.band[1] + coarse + e.raw)
-    return (min(starts), max(ends)), min(e.raw for e in edges) / samples, fine
+        spans.append((e.band[0] - coarse - e.raw, e.band[1] + coarse + e.raw, e.raw / samples))
+    return tuple(spans), fine
 
 
 def _capture_waves(
@@ -698,21 +723,33 @@ class _Guess:
         return cls((ramps[0], ramps[2]), (probes[0].load, probes[1].load), base, heavy, slow)
 
     def expect(self, ramp: float, loads: dict[str, float], samples: int) -> Expect:
-        """Where a run at the event's ``ramp`` and the outputs' ``loads`` moves them."""
+        """Where a run at the event's ``ramp`` and the outputs' ``loads`` moves them: a train
+        over each edge of the outputs at the largest of the loads. A lighter output's edge is
+        left to the run's refinement (``run_event``): its guess, from probes with every output
+        at one load, misses where a heavier output holds it back (a demo flop's QB at 0.5 fF
+        switched 45 ps after its guess, with Q at 40 fF, and twice as slowly)."""
         (r0, r1), (c0, c1) = self.ramps, self.loads
         x = (ramp - r0) / (r1 - r0) if r1 > r0 else 0.0
+        heaviest = [o for o in loads if loads[o] == max(loads.values())]
         edges = []
-        for o in loads:
+        for o in heaviest:
             y = (loads[o] - c0) / (c1 - c0) if c1 > c0 else 0.0
             b = self.base[o]
             edges.append(b + (self.slow[o] - b) * x + (self.heavy[o] - b) * y)
         delay = np.array([e[0] for e in edges])
-        least = min(self.base[o][1] for o in loads)
+        least = min(self.base[o][1] for o in heaviest)
         raw = np.maximum([e[1] for e in edges], GUESS_FLOOR * least)
-        slack = GUESS_SLACK * float(delay.max())
-        start = float((delay - EXPECT_EDGES * raw).min()) - slack
-        end = float((delay + EXPECT_EDGES * raw).max()) + slack
-        return Expect(start, end, GUESS_SPACING * float(raw.min()) / samples, train=True)
+        # Each output's span widened by the slack of its own guessed delay.
+        trains = tuple(
+            (
+                float(d - EXPECT_EDGES * r - GUESS_SLACK * d),
+                float(d + EXPECT_EDGES * r + GUESS_SLACK * d),
+                GUESS_SPACING * float(r) / samples,
+            )
+            for d, r in zip(delay, raw, strict=True)
+        )
+        start, end = min(a for a, _, _ in trains), max(b for _, b, _ in trains)
+        return Expect(start, end, min(w for _, _, w in trains), trains=trains)
 
 
 def _values(config: LibraryConfig, cell: CellSpec, outcome: Outcome) -> dict[str, np.ndarray]:
@@ -761,14 +798,23 @@ def _clocked(
     cell = config.cell(point.cell)
     bench = _bench(config, deck, point.slew, min(cell.grid.slew), window=window)
     stored = _stored(cell, point)
-    run = _clock_run if point.kind == "clock" else _control_run
-    waves, event, windows = run(bench, point, stored)
+    old = capture_values(cell, not stored)
+    # A clock point's data move to its side values; a control point's do not.
+    new = dict(point.side) if point.kind == "clock" else old
+    short = _short(config, point)
+    if short:
+        waves, event, windows = _edge_run(bench, point, new)
+    else:
+        run = _clock_run if point.kind == "clock" else _control_run
+        waves, event, windows = run(bench, point, stored)
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
     start, runs, seconds = deck, 0, 0.0
-    if point.kind == "clock":
-        old = capture_values(cell, not stored)
+    if point.kind == "clock" or short:
         written = run_step(config, min(cell.grid.slew))
-        start, runs, seconds = heldstate.held_deck(config, deck, bench, not stored, old, written)
+        inactive = {cell.flip_flop.clock: cell.flip_flop.edge != "rise"}
+        opened = {**new, **inactive} if short else None
+        held = heldstate.held_deck(config, deck, bench, not stored, old, written, opened)
+        start, runs, seconds = held
     every = every or _partner(config, point) is not None
     timed = [o.pin for o in cell.outputs] if every else [point.output]
     moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
@@ -843,6 +889,33 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
         (flop.clock, event, None),
     )
     return waves, event, windows
+
+
+def _short(config: LibraryConfig, point: TimingPoint) -> bool:
+    """Whether a clock or control point's run starts just before its measured edge
+    (``_edge_run``): where no output it times is at the grid's smallest load, whose points
+    alone give the charges of what comes before (the data's move and the clock's inactive
+    edge, a control's release: ``tables.pin_capacitance``)."""
+    smallest = min(config.cell(point.cell).grid.load)
+    partner = _partner(config, point)
+    return point.load > smallest and (partner is None or partner.load > smallest)
+
+
+def _edge_run(bench: Timeline, point: TimingPoint, levels: dict[str, bool]):
+    """Waves of a clock or control arc's run that starts with the clock at its inactive level
+    and the other inputs at ``levels``, the flop holding the old value (an operating point
+    found from the held state's cards, ``heldstate``), and makes the measured edge only: what
+    ``_clock_run`` makes after the data's move has settled, or ``_control_run`` after the
+    clock's edge has, without the edges before (30-43 % of a clock run's time points on the
+    demo's QDFF_P1). Charge window: the event's pin over its edge."""
+    flop = bench.cell.flip_flop
+    edge = flop.edge if point.kind == "clock" else point.input_edge
+    event = bench.ramp(point.slew, edge).moved(bench.lead)
+    waves = {p: stimulus.constant(bench.level(v)) for p, v in levels.items()}
+    inactive = bench.ramp(min(bench.cell.grid.slew), flop.edge).levels[0]
+    waves[flop.clock] = stimulus.constant(inactive)
+    waves[point.related] = event.pulse()
+    return waves, event, ((point.related, event, None),)
 
 
 def _control_run(bench: Timeline, point: TimingPoint, stored: bool):
@@ -1092,6 +1165,7 @@ class _Experiment:
     output: str
     before: bool
     after: bool
+    start: Deck  # the testbench every trial runs: the flop's held state (``heldstate``)
 
 
 def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
@@ -1111,6 +1185,7 @@ def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
             after=run.after,
             quiet_until=quiet,
             options=run.options,
+            start=run.start,
         )
         if judged:
             return trials.margin(outcome)
@@ -1121,18 +1196,30 @@ def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
 
 def _experiment(
     bench: Timeline,
-    deck: Deck,
     point: ConstraintPoint,
     event: Ramp,
     levels: tuple[bool, bool],
     tight: bool,
+    start: Deck,
 ) -> _Experiment:
     """A constraint point's ``_Experiment``: the first output watched at the grid's smallest
-    loads, with the levels (before, after) given."""
+    loads, with the levels (before, after) given, its trials run on ``start``."""
     cell = bench.cell
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
-    step, options = run_settings(bench.config, deck, tight, point.data_slew, point.clock_slew)
-    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels)
+    step, options = run_settings(bench.config, start, tight, point.data_slew, point.clock_slew)
+    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels, start)
+
+
+def _held_start(
+    bench: Timeline, deck: Deck, trials: _Trials, state: bool, levels: dict[str, bool]
+) -> Deck:
+    """The testbench a search's trials run on: the flop holding ``state`` with the clock at its
+    active level and the other inputs at ``levels`` (``heldstate``), as the clock points start;
+    the runs that find it (once per worker) count as the search's."""
+    written = run_step(bench.config, min(bench.cell.grid.slew))
+    held, runs, seconds = heldstate.held_deck(bench.config, deck, bench, state, levels, written)
+    trials.runs, trials.seconds = trials.runs + runs, trials.seconds + seconds
+    return held
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
@@ -1229,10 +1316,12 @@ def _constraint_setup(
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
     captured = final if point.kind == "setup" else not final
     stored = flop.next_state.evaluate({**others, pin: captured})
-    clock, event = bench.clock(point.clock_slew, edges=2)
+    clock, event = bench.held_clock(point.clock_slew)
     levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
-    run = _experiment(bench, deck, point, event, levels, tight)
-    waves_at = _data_waves(bench, point, {**others, pin: not captured}, clock, event)
+    old = {**others, pin: not captured}
+    start = _held_start(bench, deck, trials, not stored, old)
+    run = _experiment(bench, point, event, levels, tight, start)
+    waves_at = _data_waves(bench, point, old, clock, event)
     relaxed = bench.half / 2
     lo = -relaxed / 2
     if point.kind == "setup":
@@ -1285,16 +1374,17 @@ def _release_setup(
     clear = flop.clear is not None and pin in flop.clear.variables()
     forced = not clear  # the state the control holds
     released = point.data_edge == "rise"  # the pin's value once released
-    clock, event = bench.clock(point.clock_slew, edges=2)
+    clock, event = bench.held_clock(point.clock_slew)
     t_clk = event.time_at(config.thresholds.delay_input(event.edge))
     recovery = point.kind == "recovery"
     held = stored_output(cell, out, forced)
     # Recovery is judged like setup (captured, and in time); removal by the flop staying.
     after = stored_output(cell, out, not forced) if recovery else held
-    run = _experiment(bench, deck, point, event, (held, after), tight)
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
     values = capture_values(cell, not forced)
+    start = _held_start(bench, deck, trials, forced, {**values, pin: not released})
+    run = _experiment(bench, point, event, (held, after), tight, start)
 
     def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}

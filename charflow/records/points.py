@@ -42,8 +42,11 @@ TIGHT_RELTOL = 10.0
 # How charflow measures, as a number raised with every change that moves a measured value (a
 # search's trials, a run's layout, a window): a store's rows measured at another revision are
 # not served as current (``execution.store.keyring``). 2: searches' usual stage to a wider
-# bracket on a reshaped margin; clock points from the flop's held state (December 2026).
-METHOD_REVISION = 2
+# bracket on a reshaped margin; clock points from the flop's held state (December 2026). 3:
+# setup, hold, recovery and removal searches from the held state too; each output's edge in
+# its own breakpoint train; clock points above the smallest load from just before their edge
+# (December 2026).
+METHOD_REVISION = 3
 
 
 @dataclass(frozen=True, slots=True)

@@ -155,6 +155,27 @@ def _mix_known(values: Sequence[float | None], weights: Sequence[float]) -> floa
     return _mix(known, weights) if len(known) == len(values) else None
 
 
+def _side_charges(
+    measured: list[Measurement], weights: list[float]
+) -> tuple[tuple[str, str, float], ...]:
+    """The side charges of a filled point, mixed from the sources that measured them alike
+    (a flip-flop's clock points above the smallest load measure none: only the smallest
+    load's give pin capacitance, ``sequential._short``); none where no source has them."""
+
+    def pins(m: Measurement) -> tuple[tuple[str, str], ...]:
+        return tuple((p, e) for p, e, _ in m.side_charges)
+
+    most = max((pins(m) for m in measured), key=len)
+    alike = [(m, w) for m, w in zip(measured, weights, strict=True) if most and pins(m) == most]
+    total = sum(w for _, w in alike)
+    if not alike or total == 0:
+        return ()
+    return tuple(
+        (pin, edge, _mix([m.side_charges[k][2] for m, _ in alike], [w / total for _, w in alike]))
+        for k, (pin, edge) in enumerate(most)
+    )
+
+
 def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
     # A grid holds one kind of point (its key starts with the kind): its sources are alike.
     if isinstance(point, ConstraintPoint):
@@ -162,9 +183,6 @@ def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
         return SearchResult(point, _mix_known(values, weights), 0, 0.0)
     assert isinstance(point, TimingPoint)  # the only other FILLABLE kind
     measured = [s for s in sources if isinstance(s, Measurement)]
-    side = []
-    for k, (pin, edge, _) in enumerate(measured[0].side_charges):
-        side.append((pin, edge, _mix([s.side_charges[k][2] for s in measured], weights)))
     return Measurement(
         point=point,
         delay=_mix([s.delay for s in measured], weights),
@@ -175,7 +193,7 @@ def _record(point: Work, sources: list[Record], weights: list[float]) -> Record:
         stopped=0.0,  # never written: a filled record gives its values only
         supply_energy=_mix_known([s.supply_energy for s in measured], weights),
         internal_energy=_mix_known([s.internal_energy for s in measured], weights),
-        side_charges=tuple(side),
+        side_charges=_side_charges(measured, weights),
         input_charge_to_threshold=_mix_known(
             [s.input_charge_to_threshold for s in measured], weights
         ),
