@@ -1155,11 +1155,11 @@ def _reshaped(trials: _Trials, *measures: Callable[[float], float]) -> list:
 
 @dataclass(frozen=True, slots=True)
 class _Experiment:
-    """What every trial of one constraint search shares: the outputs' loads, the measured clock
-    edge, the run's settings, and the output watched with its level before and after."""
+    """What every trial of one constraint search shares: the outputs' loads, the run's
+    settings, and the output watched with its level before and after (each trial places its
+    own clock edge: ``_data_waves``, ``_release_setup``)."""
 
     loads: dict[str, float]
-    event: Ramp
     step: float
     options: tuple[str, ...]
     output: str
@@ -1170,15 +1170,16 @@ class _Experiment:
 
 def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
     """The margin of a constraint search's trial by its offset (``_Trials.margin``), from
-    ``waves_at`` (offset -> the waves and when the last input edge is over); not ``judged``
-    (removal: the flop stays or not, nothing grows towards failing), 0 or +inf."""
+    ``waves_at`` (offset -> the waves, when the last input edge is over, and the measured clock
+    edge); not ``judged`` (removal: the flop stays or not, nothing grows towards failing), 0
+    or +inf."""
 
     def measure(offset: float) -> float:
-        waves, quiet = waves_at(offset)
+        waves, quiet, event = waves_at(offset)
         outcome = trials(
             waves,
             run.loads,
-            event=run.event,
+            event=event,
             step=run.step,
             output=run.output,
             before=run.before,
@@ -1197,7 +1198,6 @@ def _offset_margin(trials: _Trials, run: _Experiment, waves_at, judged: bool):
 def _experiment(
     bench: Timeline,
     point: ConstraintPoint,
-    event: Ramp,
     levels: tuple[bool, bool],
     tight: bool,
     start: Deck,
@@ -1207,17 +1207,26 @@ def _experiment(
     cell = bench.cell
     loads = {o.pin: min(cell.grid.load) for o in cell.outputs}
     step, options = run_settings(bench.config, start, tight, point.data_slew, point.clock_slew)
-    return _Experiment(loads, event, step, options, cell.outputs[0].pin, *levels, start)
+    return _Experiment(loads, step, options, cell.outputs[0].pin, *levels, start)
 
 
 def _held_start(
-    bench: Timeline, deck: Deck, trials: _Trials, state: bool, levels: dict[str, bool]
+    bench: Timeline,
+    deck: Deck,
+    trials: _Trials,
+    state: bool,
+    levels: dict[str, bool],
+    then: dict[str, bool],
 ) -> Deck:
-    """The testbench a search's trials run on: the flop holding ``state`` with the clock at its
-    active level and the other inputs at ``levels`` (``heldstate``), as the clock points start;
-    the runs that find it (once per worker) count as the search's."""
+    """The testbench a search's trials run on: the flop holding ``state`` as an active edge
+    wrote it with the other inputs at ``levels`` (``heldstate``), every input at ``then``
+    with the clock at its inactive level as the trial starts; the runs that find it (once
+    per worker) count as the search's."""
     written = run_step(bench.config, min(bench.cell.grid.slew))
-    held, runs, seconds = heldstate.held_deck(bench.config, deck, bench, state, levels, written)
+    flop = bench.cell.flip_flop
+    start = {**then, flop.clock: flop.edge != "rise"}
+    config = bench.config
+    held, runs, seconds = heldstate.held_deck(config, deck, bench, state, levels, written, start)
     trials.runs, trials.seconds = trials.runs + runs, trials.seconds + seconds
     return held
 
@@ -1316,43 +1325,51 @@ def _constraint_setup(
     final = point.data_edge == "rise"  # the constrained pin's value after its edge
     captured = final if point.kind == "setup" else not final
     stored = flop.next_state.evaluate({**others, pin: captured})
-    clock, event = bench.held_clock(point.clock_slew)
     levels = (stored_output(cell, out, not stored), stored_output(cell, out, stored))
     old = {**others, pin: not captured}
-    start = _held_start(bench, deck, trials, not stored, old)
-    run = _experiment(bench, point, event, levels, tight, start)
-    waves_at = _data_waves(bench, point, old, clock, event)
+    # Hold's trials start with the pin already at the value the edge captures.
+    then = old if point.kind == "setup" else {**others, pin: captured}
+    start = _held_start(bench, deck, trials, not stored, old, then)
+    run = _experiment(bench, point, levels, tight, start)
+    waves_at = _data_waves(bench, point, then)
     relaxed = bench.half / 2
     lo = -relaxed / 2
     if point.kind == "setup":
         data = bench.ramp(point.data_slew, point.data_edge)
-        lo = -(data.duration + event.duration)
+        lo = -(data.duration + bench.ramp(point.clock_slew, flop.edge).duration)
     return _offset_margin(trials, run, waves_at, judged=True), lo, relaxed, trials
 
 
-def _data_waves(bench: Timeline, point: ConstraintPoint, old: dict[str, bool], clock, event):
-    """Setup or hold: the waves of a trial by its offset, and when its last data edge is over.
-    The other data pins hold their ``old`` values; the constrained pin moves to the value
-    captured ``offset`` before the clock's threshold (setup), or has moved to it half a phase
-    before and moves back ``offset`` after (hold)."""
+def _data_waves(bench: Timeline, point: ConstraintPoint, start: dict[str, bool]):
+    """Setup or hold: the waves of a trial by its offset, when its last data edge is over,
+    and its clock edge. Every input starts at ``start`` with the clock at its inactive level
+    (``_held_start``); the constrained pin moves to the value captured ``offset`` before the
+    clock's threshold (setup), or moves back from it ``offset`` after (hold). The first of
+    the two edges comes at the timeline's lead: a trial near its constraint is short."""
     thr, flop, pin = bench.thr, bench.cell.flip_flop, point.constrained
-    captured = not old[pin]
-    t_clk = event.time_at(thr.delay_input(event.edge))
-    probe = bench.data(pin, not captured, captured, 0.0, point.data_slew)
+    edge = bench.ramp(point.clock_slew, flop.edge).moved(0.0)
+    clock_along = edge.time_at(thr.delay_input(edge.edge))
+    moved = not start[pin] if point.kind == "setup" else start[pin]
+    probe = bench.data(pin, not moved, moved, 0.0, point.data_slew)
     go_along = probe[1].time_at(thr.delay_input(probe[1].edge))
-    back_along = probe[2].time_at(thr.delay_input(probe[2].edge)) - probe[2].start
+    back = bench.ramp(point.data_slew, "fall" if moved else "rise").moved(0.0)
+    back_along = back.time_at(thr.delay_input(back.edge))
 
-    def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
-        waves = {p: stimulus.constant(bench.level(v)) for p, v in old.items()}
-        waves[flop.clock] = clock
+    def waves_at(offset: float) -> tuple[dict[str, Wave], float, Ramp]:
+        waves = {p: stimulus.constant(bench.level(v)) for p, v in start.items()}
         if point.kind == "setup":
-            start = t_clk - offset - go_along
-            waves[pin], go, _ = bench.data(pin, not captured, captured, start, point.data_slew)
-            return waves, go.end
-        start = t_clk - bench.half / 2 - go_along
-        hold = t_clk + offset - back_along - start - probe[1].duration
-        waves[pin], _, back = bench.data(pin, not captured, captured, start, point.data_slew, hold)
-        return waves, back.end + bench.window / 4
+            t_clk = bench.lead + max(clock_along, offset + go_along)
+            waves[pin], go, _ = bench.data(
+                pin, not moved, moved, t_clk - offset - go_along, point.data_slew
+            )
+            quiet = go.end
+        else:
+            t_clk = bench.lead + max(clock_along, back_along - offset)
+            leaves = back.moved(t_clk + offset - back_along)
+            waves[pin], quiet = leaves.pulse(), leaves.end + bench.window / 4
+        event = edge.moved(t_clk - clock_along)
+        waves[flop.clock] = event.pulse()
+        return waves, quiet, event
 
     return waves_at
 
@@ -1374,31 +1391,34 @@ def _release_setup(
     clear = flop.clear is not None and pin in flop.clear.variables()
     forced = not clear  # the state the control holds
     released = point.data_edge == "rise"  # the pin's value once released
-    clock, event = bench.held_clock(point.clock_slew)
-    t_clk = event.time_at(config.thresholds.delay_input(event.edge))
+    edge = bench.ramp(point.clock_slew, flop.edge).moved(0.0)
+    clock_along = edge.time_at(config.thresholds.delay_input(edge.edge))
     recovery = point.kind == "recovery"
     held = stored_output(cell, out, forced)
     # Recovery is judged like setup (captured, and in time); removal by the flop staying.
     after = stored_output(cell, out, not forced) if recovery else held
     probe = bench.data(pin, not released, released, 0.0, point.data_slew)
     go_along = probe[1].time_at(config.thresholds.delay_input(probe[1].edge))
-    values = capture_values(cell, not forced)
-    start = _held_start(bench, deck, trials, forced, {**values, pin: not released})
-    run = _experiment(bench, point, event, (held, after), tight, start)
+    values = {**capture_values(cell, not forced), pin: not released}
+    start = _held_start(bench, deck, trials, forced, values, values)
+    run = _experiment(bench, point, (held, after), tight, start)
 
-    def waves_at(offset: float) -> tuple[dict[str, Wave], float]:
+    def waves_at(offset: float) -> tuple[dict[str, Wave], float, Ramp]:
+        # The first of the release and the clock's edge comes at the timeline's lead.
+        ahead = offset if recovery else -offset  # the release before the clock's threshold
+        t_clk = bench.lead + max(clock_along, ahead + go_along)
         waves = {p: stimulus.constant(bench.level(v)) for p, v in values.items()}
-        waves[flop.clock] = clock
-        release_at = t_clk - offset if recovery else t_clk + offset
+        event = edge.moved(t_clk - clock_along)
+        waves[flop.clock] = event.pulse()
         waves[pin], go, _ = bench.data(
-            pin, not released, released, release_at - go_along, point.data_slew
+            pin, not released, released, t_clk - ahead - go_along, point.data_slew
         )
-        return waves, go.end if recovery else go.end + bench.window / 4
+        return waves, go.end if recovery else go.end + bench.window / 4, event
 
     relaxed = bench.half / 2
     # Released after the edge's ramp (recovery) or a quarter period before it (removal): the
     # edge captures nothing, or captures.
-    lo = -(probe[1].duration + event.duration) if recovery else -relaxed
+    lo = -(probe[1].duration + edge.duration) if recovery else -relaxed
     return _offset_margin(trials, run, waves_at, judged=recovery), lo, relaxed, trials
 
 
