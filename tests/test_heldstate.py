@@ -177,6 +177,20 @@ def test_held_start_measures_what_writing_measures():
     assert outcome.stopped < written.stopped
 
 
+def _both_layouts(monkeypatch, cell_name: str, pick):
+    """The demo cell's point ``pick`` chooses (above the smallest load), measured from just
+    before its edge and then making every edge before it: (measurement, outcome) of each."""
+    demo = config.load(resources.DEMO_CONFIG)
+    cell = demo.cell(cell_name)
+    deck = build_deck(demo, cell)
+    points = plan(demo, [cell.name]).points
+    point = next(p for p in points if isinstance(p, TimingPoint) and pick(cell, p))
+    assert sequential._short(demo, point)
+    short = sequential._clocked(demo, deck, point)
+    monkeypatch.setattr(sequential, "_short", lambda config, point: False)
+    return short, sequential._clocked(demo, deck, point)
+
+
 def test_a_clock_point_above_the_smallest_load_starts_just_before_its_edge(monkeypatch):
     """A clock point whose outputs are all above the grid's smallest load starts with the
     clock at its inactive level and the data moved (an operating point: the latch that
@@ -186,21 +200,15 @@ def test_a_clock_point_above_the_smallest_load_starts_just_before_its_edge(monke
     capacitance), in a shorter run. Measured on the demo's QDFF_P1 (December 2026): delays
     within 0.02 %, transitions within 0.067 %, the same at 4x the samples per edge and
     tightened settings within 0.0006 % and 0.0001 %."""
-    demo = config.load(resources.DEMO_CONFIG)
-    cell = demo.cell("QDFF_P1")
-    deck = build_deck(demo, cell)
-    point = next(
-        p
-        for p in plan(demo, [cell.name]).points
-        if isinstance(p, TimingPoint)
-        and p.kind == "clock"
-        and (p.output, p.output_edge, p.load) == ("QB", "fall", sorted(cell.grid.load)[2])
-        and p.slew == pytest.approx(0.05e-9)
+    (short, edge), (full, whole) = _both_layouts(
+        monkeypatch,
+        "QDFF_P1",
+        lambda cell, p: (
+            p.kind == "clock"
+            and (p.output, p.output_edge, p.load) == ("QB", "fall", sorted(cell.grid.load)[2])
+            and p.slew == pytest.approx(0.05e-9)
+        ),
     )
-    assert sequential._short(demo, point)
-    short, edge = sequential._clocked(demo, deck, point)
-    monkeypatch.setattr(sequential, "_short", lambda config, point: False)
-    full, whole = sequential._clocked(demo, deck, point)
     assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL)
     assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL)
     assert short.input_charge == pytest.approx(full.input_charge, rel=CHARGE_RTOL)
@@ -218,22 +226,16 @@ def test_a_clear_point_above_the_smallest_load_starts_just_before_its_edge(monke
     on the demo's QDFFR_P1 (December 2026): delays within 0.015 %, transitions within
     0.0005 %, internal energy within 0.11 % (the run that starts just before its edge the
     nearer of the two to the same run at 4x the samples per edge and tightened settings)."""
-    demo = config.load(resources.DEMO_CONFIG)
-    cell = demo.cell("QDFFR_P1")
-    deck = build_deck(demo, cell)
-    point = next(
-        p
-        for p in plan(demo, [cell.name]).points
-        if isinstance(p, TimingPoint)
-        and p.kind == "clear"
-        and (p.output, p.load) == ("Q", sorted(cell.grid.load)[2])
-        and p.other_load == sorted(cell.grid.related_load)[1]
-        and p.slew == min(cell.grid.slew)
+    (short, edge), (full, whole) = _both_layouts(
+        monkeypatch,
+        "QDFFR_P1",
+        lambda cell, p: (
+            p.kind == "clear"
+            and (p.output, p.load) == ("Q", sorted(cell.grid.load)[2])
+            and p.other_load == sorted(cell.grid.related_load)[1]
+            and p.slew == min(cell.grid.slew)
+        ),
     )
-    assert sequential._short(demo, point)
-    short, edge = sequential._clocked(demo, deck, point)
-    monkeypatch.setattr(sequential, "_short", lambda config, point: False)
-    full, whole = sequential._clocked(demo, deck, point)
     assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL)
     assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL)
     assert edge.energy is not None and whole.energy is not None
