@@ -390,19 +390,34 @@ def run_event(
             nothing = Outcome(np.nan, np.nan, np.nan, stopped=float(t[-1]), stop_cap=stop)
             return nothing, runs, seconds
         timed = [e for e in edges if e is not None]
-        spans, fine = _sampled(t, timed, config.simulation.samples_per_edge)
-        # An edge the first run's train did not cover (``_Guess.expect``) is only found by it.
-        found = refine == 0 and expect is not None and 0 < len(expect.trains) < len(timed)
-        if (fine and not found) or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
+        train = _retrain(config, t, timed, event, states is not None, expect, refine)
+        if train is None or refine == REFINEMENTS or _unexpected(timed[0], t_ev, expect):
             break
-        # The edges sampled by a train at the spacing they want: the next run is fine. An
-        # energy run's grid samples the event and the settling after it; else each edge's
-        # train starts LEAD_FROM into the event's ramp, where the cell's nodes answer it.
-        lead = min(a for a, _, _ in spans)
-        lead = lead if states is not None else event.start + LEAD_FROM * event.duration
-        train = edge_trains(tuple((min(lead, a), b, w) for a, b, w in spans))
     measured = (event, t_ev, stop, charge_windows, states, loads)
     return _outcome(config, deck, result.vectors, moves, edges, *measured), runs, seconds
+
+
+def _retrain(
+    config: LibraryConfig,
+    t: np.ndarray,
+    timed: list[_Edge],
+    event: Ramp,
+    energy: bool,
+    expect: Expect | None,
+    refine: int,
+) -> Wave | None:
+    """The next run's breakpoint train where a run's edges want more samples (``_sampled``),
+    or where its first run's train did not cover every edge (``_Guess.expect``: it found
+    them); None where the run is fine. Each edge's train at the spacing it wants: the next
+    run is fine. An energy run's grid samples the event and the settling after it; else
+    each edge's train starts LEAD_FROM into the event's ramp, where the cell's nodes answer."""
+    spans, fine = _sampled(t, timed, config.simulation.samples_per_edge)
+    found = refine == 0 and expect is not None and 0 < len(expect.trains) < len(timed)
+    if fine and not found:
+        return None
+    lead = min(a for a, _, _ in spans)
+    lead = lead if energy else event.start + LEAD_FROM * event.duration
+    return edge_trains(tuple((min(lead, a), b, w) for a, b, w in spans))
 
 
 def _first_grids(
