@@ -908,12 +908,18 @@ def _clock_run(bench: Timeline, point: TimingPoint, stored: bool):
 
 def _short(config: LibraryConfig, point: TimingPoint) -> bool:
     """Whether a clock or control point's run starts just before its measured edge
-    (``_edge_run``): where no output it times is at the grid's smallest load, whose points
-    alone give the charges of what comes before (the data's move and the clock's inactive
-    edge, a control's release: ``tables.pin_capacitance``)."""
-    smallest = min(config.cell(point.cell).grid.load)
+    (``_edge_run``): all but the points at the smallest load on every output (the grid's and
+    the other output's smallest), which alone give the charges of what comes before (the
+    data's move and the clock's inactive edge, a control's release, none of which depends on
+    a load: ``tables.pin_capacitance``), and their partners (``_partner``)."""
+    grid = config.cell(point.cell).grid
+
+    def first(p: TimingPoint) -> bool:
+        other = None if p.other_load is None else min(grid.related_load)
+        return p.load == min(grid.load) and p.other_load == other
+
     partner = _partner(config, point)
-    return point.load > smallest and (partner is None or partner.load > smallest)
+    return not first(point) and (partner is None or not first(partner))
 
 
 def _edge_run(bench: Timeline, point: TimingPoint, levels: dict[str, bool]):
