@@ -159,8 +159,8 @@ def _side_charges(
     measured: list[Measurement], weights: list[float]
 ) -> tuple[tuple[str, str, float], ...]:
     """The side charges of a filled point, mixed from the sources that measured them alike
-    (a flip-flop's clock points above the smallest load measure none: only the smallest
-    load's give pin capacitance, ``sequential._short``); none where no source has them."""
+    (a flip-flop's clock points but those at the smallest load on every output measure none:
+    only those give pin capacitance, ``sequential._short``); none where no source has them."""
 
     def pins(m: Measurement) -> tuple[tuple[str, str], ...]:
         return tuple((p, e) for p, e, _ in m.side_charges)
