@@ -14,7 +14,8 @@ step, retries and the length of a search are counted as the run will meet them:
 - searches: one of each kind (setup, hold, recovery, removal, pulse width), since a search's
   runs are set by its tolerance and by how far its answer lies from where its bracketing walk
   starts (``sequential._bracket``), alike enough for every search of a kind in a cell;
-- toggles: the first of the cell's;
+- toggles: the first of the cell's; a flip-flop's first, middle and last (each starts from
+  the held state under its own input levels, checked once a worker: ``floptoggle._start``);
 - spread points (``[mismatch]``): a few sensitivity points (``SAMPLES``) give the runs and the
   time of one simulation against a point's ``cost``; every spread point, Monte Carlo ones
   included, is charged its ``cost`` at that rate (a Monte Carlo point's samples are runs of
@@ -49,6 +50,7 @@ from charflow.simulation.backends import SharedBackend
 from charflow.simulation.netlist import Deck, build_deck
 
 SAMPLES = 3  # sample points per group of many (combinational and clock points)
+TOGGLE_SAMPLES = 3  # a flip-flop's toggles sampled (_cell_costs)
 TIMING, PROBES = "timing points", "step probes"  # a combinational cell's nominal points
 
 
@@ -176,7 +178,9 @@ def _cell_costs(config: LibraryConfig, names: list[str], plan: Plan) -> list[Cel
             groups = _combinational_groups(config, deck, points)
         toggles = plan_toggles(config, [name])
         if toggles:
-            groups += (_sampled(config, deck, "hidden-power toggles", toggles, 1),)
+            # A flip-flop's toggle checks the state it starts from once a worker: three samples.
+            count = 1 if cell.flop is None else TOGGLE_SAMPLES
+            groups += (_sampled(config, deck, "hidden-power toggles", toggles, count),)
         tight = tight_points(config, points)
         if tight:
             groups += (_sampled(config, deck, "error bars", tight, SAMPLES),)

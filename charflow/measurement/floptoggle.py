@@ -9,7 +9,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import ffpower, sequential
+from charflow.measurement import ffpower, heldstate, sequential
 from charflow.measurement.combinational import LOGIC_MARGIN, alters, backend_for, simulate
 from charflow.measurement.waves import integral, single_crossing
 from charflow.plan.arcs import capture_values, stored_output
@@ -25,14 +25,18 @@ from charflow.simulation.timeline import Timeline
 
 
 def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> ToggleMeasurement:
-    """One hidden event of a flop: the stored value is written first, the pin's edge then
-    moves no output; its supply energy from the edge until the current is quiet again."""
+    """One hidden event of a flop: from the flop holding the stored value with every input at
+    its level before the edge (``_start``), the pin's edge moves no output; its supply energy
+    from the edge until the current is quiet again."""
     cell = config.cell(point.cell)
     window = sequential.settle_window(config, deck)
     bench = Timeline(config, cell, window, (point.slew, min(cell.grid.slew)))
     state = stored_value(cell, point)
-    waves, event = _waves(bench, point, state)
-    result, runs = _run(config, deck, bench, point, waves, event)
+    start, runs, seconds = _start(config, deck, bench, point, state)
+    event = bench.ramp(point.slew, point.input_edge).moved(bench.lead)
+    waves = {p: stimulus.constant(ffpower.level(config, v)) for p, v in _before(point).items()}
+    waves[point.related] = event.pulse()
+    result, event_runs = _run(config, start, bench, point, waves, event)
     t = result.vectors["time"]
     during = t >= event.start
     _outputs_held(config, deck, result.vectors, during, state)
@@ -56,65 +60,24 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     energy = ffpower.window_energy(bench.vdd, t, current, event.start, switch, static, settled)
     in_branch = result.vectors[f"{deck.input_source(point.related)}#branch"]
     charge = -integral(t, in_branch, event.start, settled)
-    return ToggleMeasurement(point, energy, charge, runs, result.seconds, settled)
+    runs, seconds = runs + event_runs, seconds + result.seconds
+    return ToggleMeasurement(point, energy, charge, runs, seconds, settled)
 
 
-def _waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, Wave], Ramp]:
-    """The inputs' waves of the hidden event and the ramp of the edge under test."""
-    cell, flop = bench.cell, bench.cell.flip_flop
-    side = dict(point.side)
-    inactive = point.input_edge != flop.edge
-    if point.related == flop.clock and inactive and side != capture_values(cell, state):
-        return _inactive_clock_waves(bench, point, state)
-    if point.related == flop.clock:
-        clock, second = bench.clock(point.slew, edges=2)
-        waves = {p: stimulus.constant(ffpower.level(bench.config, v)) for p, v in side.items()}
-        waves[flop.clock] = clock
-        if point.input_edge == flop.edge:
-            return waves, second
-        # The first inactive edge: half a period after the edge that wrote the state.
-        back = bench.ramp(point.slew, point.input_edge)
-        return waves, back.moved(bench.lead + bench.half)
-    return _data_waves(bench, point, state)
+def _before(point: TogglePoint) -> dict[str, bool]:
+    """Every input's value just before the hidden event's edge (the clock's too)."""
+    return {**dict(point.side), point.related: point.input_edge == "fall"}
 
 
-def _inactive_clock_waves(
-    bench: Timeline, point: TogglePoint, state: bool
-) -> tuple[dict[str, Wave], Ramp]:
-    """The data opposite the stored value: it moves there while the clock is still active
-    after writing the state, then the inactive edge under test."""
-    cell, flop = bench.cell, bench.cell.flip_flop
-    active = flop.edge == "rise"
-    waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), flop.clock: active})
-    event = bench.ramp(point.slew, point.input_edge).moved(move + bench.half)
-    first = bench.ramp(min(cell.grid.slew), flop.edge)
-    waves[flop.clock] = bench.pulse(
-        *first.levels,
-        bench.lead,
-        first.duration,
-        event.duration,
-        event.start - bench.lead - first.duration,
-        2.0,
-    )
-    return waves, event
-
-
-def _data_waves(bench: Timeline, point: TogglePoint, state: bool) -> tuple[dict[str, Wave], Ramp]:
-    """A data pin's edge that the clock does not capture."""
+def _start(
+    config: LibraryConfig, deck: Deck, bench: Timeline, point: TogglePoint, state: bool
+) -> tuple[Deck, int, float]:
+    """The testbench the hidden event's run starts on: the flop holding ``state`` (written
+    by an active edge, ``heldstate``) with every input at its level before the edge."""
     cell = bench.cell
-    before = point.input_edge == "fall"
-    waves, move = ffpower.hold_waves(bench, state, {**dict(point.side), point.related: before})
-    event = bench.ramp(point.slew, point.input_edge).moved(move + bench.half)
-    written = capture_values(cell, state)[point.related]
-    if written == before:
-        waves[point.related] = event.pulse()
-    else:  # to ``before`` with the other data, then the edge under test back again
-        first = bench.ramp(min(cell.grid.slew), "rise" if before else "fall")
-        flat = event.start - move - first.duration
-        waves[point.related] = bench.pulse(
-            *event.levels[::-1], move, first.duration, event.duration, flat, 2.0
-        )
-    return waves, event
+    written = sequential.run_step(config, min(cell.grid.slew))
+    levels = capture_values(cell, state)
+    return heldstate.held_deck(config, deck, bench, state, levels, written, _before(point))
 
 
 def _run(
