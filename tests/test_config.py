@@ -472,7 +472,7 @@ def test_liberty_other_load_in_library_units(cfg_path: Path) -> None:
     doc = _two_outputs(_doc())
     doc["liberty"] = {"other_load": 0.005, "load_limit_factor": 1.5, "slew_limit_factor": 2}
     cfg = config.parse(doc, cfg_path)
-    assert cfg.liberty.other_load == pytest.approx(0.005e-12, rel=1e-12)
+    assert cfg.liberty.other_load == pytest.approx(0.005e-12, rel=1e-12, abs=0)
     assert (cfg.liberty.load_limit_factor, cfg.liberty.slew_limit_factor) == (1.5, 2.0)
     doc["liberty"] = {"other_load": "smallest"}
     assert config.parse(doc, cfg_path).liberty.other_load == "smallest"

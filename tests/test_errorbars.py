@@ -122,7 +122,7 @@ def test_the_bar_is_the_tightened_settings_of_the_flip_flop_checks(rc_run):
     cfg, result = rc_run
     deck = netlist.build_deck(cfg, cfg.cell("RCCELL"))
     step, options = stepsize.tightened(deck, 1e-12)
-    assert step == pytest.approx(1e-12 / TIGHT_STEPS, rel=1e-12)
+    assert step == pytest.approx(1e-12 / TIGHT_STEPS, rel=1e-12, abs=0)
     # ngspice's default reltol, 1e-3 (the ngspice manual, .options), over TIGHT_RELTOL
     assert options == (f"reltol={1e-3 / TIGHT_RELTOL:.3g}",)
     assert {t.reltol for t in result.tight} == {1e-3 / TIGHT_RELTOL}

@@ -37,7 +37,7 @@ def test_fidelity_keys_in_library_units() -> None:
     doc = _doc({"random_points": 5, "seed": 9, "rel_floor": 0.002})
     got = config.parse(doc, SMALL).fidelity
     assert (got.random_points, got.seed) == (5, 9)
-    assert got.rel_floor == pytest.approx(0.002e-9, rel=1e-15)
+    assert got.rel_floor == pytest.approx(0.002e-9, rel=1e-15, abs=0)
 
 
 @pytest.mark.parametrize(

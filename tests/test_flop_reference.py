@@ -104,7 +104,12 @@ def _check(cfg, name: str, kinds: tuple[str, ...]) -> int:
             if r["kind"] in TIMING:
                 point = _timing_point(points, r)
                 got = sequential.measure_clocked(cfg, deck, point).delay
-                assert got == pytest.approx(want, rel=DELAY_RTOL), (cell, point.label, got, want)
+                assert got == pytest.approx(want, rel=DELAY_RTOL, abs=0), (
+                    cell,
+                    point.label,
+                    got,
+                    want,
+                )
             else:
                 point = _search_point(points, r)
                 got = sequential.measure_constraint(cfg, deck, point).value

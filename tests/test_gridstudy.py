@@ -89,7 +89,7 @@ def test_rounded_index_values_keep_the_ends() -> None:
     values = np.array([0.005, 0.0123456, 0.0500001, 0.4]) * NS
     out = gridstudy.rounded(values, NS)
     assert out[0] == values[0] and out[-1] == values[-1]
-    assert out[1:3] == pytest.approx((0.01235 * NS, 0.05 * NS), rel=RTOL)
+    assert out[1:3] == pytest.approx((0.01235 * NS, 0.05 * NS), rel=RTOL, abs=0)
     # Neighbours that four digits would merge get more digits.
     close = np.array([1.0, 1.00001, 1.00002, 2.0]) * PF
     assert len(set(gridstudy.rounded(close, PF))) == 4
@@ -113,7 +113,7 @@ def test_optimized_placement_beats_uniform_and_geometric(n: int) -> None:
     assert optimized < 0.9 * uniform
     assert optimized < 0.9 * geometric
     # Its own estimate, from the 41 x 41 reference alone, is close to the truth.
-    assert predicted == pytest.approx(optimized, rel=0.05)
+    assert predicted == pytest.approx(optimized, rel=0.05, abs=0)
     assert all(g.size == n and g[0] == LO and g[-1] == HI for g in nodes)
     assert all(np.all(np.diff(g) > 0) for g in nodes)
 
@@ -269,8 +269,12 @@ def test_outputs_and_the_paste_line(small_study, tmp_path: Path) -> None:
             assert record["paste"] is None
             continue
         grid = tomllib.loads(record["paste"])["grid"]
-        assert [v * NS for v in grid["slew"]] == pytest.approx(r.best.axes[0].values, rel=RTOL)
-        assert [v * PF for v in grid["load"]] == pytest.approx(r.best.axes[1].values, rel=RTOL)
+        assert [v * NS for v in grid["slew"]] == pytest.approx(
+            r.best.axes[0].values, rel=RTOL, abs=0
+        )
+        assert [v * PF for v in grid["load"]] == pytest.approx(
+            r.best.axes[1].values, rel=RTOL, abs=0
+        )
     lines = gridstudy.summary_lines(cfg, study)
     assert lines[0].startswith("grid study of QNAND2_P1 IB->Y: reference 7x7")
 

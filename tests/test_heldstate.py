@@ -30,6 +30,10 @@ DATA = Path(__file__).parent / "data"
 DELAY_RTOL = 5e-4
 CHARGE_RTOL = 1e-3
 TRANSITION_RTOL = 1e-3  # the run that starts just before its edge against the whole run
+# ... the clock's own charge on that edge: 0.18 % apart on this point (measured December
+# 2026); the clock toggles' charge differs by 0.24 % between the two layouts at an 8x finer
+# step too: the history of the clock's own nodes, not the step.
+EDGE_CHARGE_RTOL = 3e-3
 ENERGY_RTOL = 2e-3  # ... a clear point's energies (its stacked nodes start settled)
 WINDOW = 2e-9  # s the written state settles: twice seq_l1's settle window, no window probe
 
@@ -164,15 +168,15 @@ def test_held_start_measures_what_writing_measures():
     )
     held, outcome = sequential._clocked(demo, deck, point)
     written = _written_run(demo, deck, point)
-    assert held.delay == pytest.approx(written.delay, rel=DELAY_RTOL)
-    assert held.transition == pytest.approx(written.transition, rel=DELAY_RTOL)
+    assert held.delay == pytest.approx(written.delay, rel=DELAY_RTOL, abs=0)
+    assert held.transition == pytest.approx(written.transition, rel=DELAY_RTOL, abs=0)
     assert outcome.energy is not None and written.energy is not None
-    assert outcome.energy.supply == pytest.approx(written.energy.supply, rel=CHARGE_RTOL)
-    assert outcome.energy.internal == pytest.approx(written.energy.internal, rel=CHARGE_RTOL)
+    assert outcome.energy.supply == pytest.approx(written.energy.supply, rel=CHARGE_RTOL, abs=0)
+    assert outcome.energy.internal == pytest.approx(written.energy.internal, rel=CHARGE_RTOL, abs=0)
     assert len(outcome.charges) == len(written.charges) == 3  # D, CLK's inactive edge, CLK
     for (p, e, q), (p0, e0, q0) in zip(outcome.charges, written.charges, strict=True):
         assert (p, e) == (p0, e0)
-        assert q == pytest.approx(q0, rel=CHARGE_RTOL)
+        assert q == pytest.approx(q0, rel=CHARGE_RTOL, abs=0)
     # The held run starts half a period later in the written run's time: shorter by that.
     assert outcome.stopped < written.stopped
 
@@ -209,12 +213,12 @@ def test_a_clock_point_above_the_smallest_load_starts_just_before_its_edge(monke
             and p.slew == pytest.approx(0.05e-9)
         ),
     )
-    assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL)
-    assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL)
-    assert short.input_charge == pytest.approx(full.input_charge, rel=CHARGE_RTOL)
+    assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL, abs=0)
+    assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL, abs=0)
+    assert short.input_charge == pytest.approx(full.input_charge, rel=EDGE_CHARGE_RTOL, abs=0)
     assert edge.energy is not None and whole.energy is not None
-    assert edge.energy.supply == pytest.approx(whole.energy.supply, rel=CHARGE_RTOL)
-    assert edge.energy.internal == pytest.approx(whole.energy.internal, rel=CHARGE_RTOL)
+    assert edge.energy.supply == pytest.approx(whole.energy.supply, rel=CHARGE_RTOL, abs=0)
+    assert edge.energy.internal == pytest.approx(whole.energy.internal, rel=CHARGE_RTOL, abs=0)
     assert short.side_charges == () and len(full.side_charges) == 2  # D, CLK's inactive edge
     assert edge.stopped < whole.stopped
 
@@ -236,11 +240,11 @@ def test_a_clear_point_above_the_smallest_load_starts_just_before_its_edge(monke
             and p.slew == min(cell.grid.slew)
         ),
     )
-    assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL)
-    assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL)
+    assert short.delay == pytest.approx(full.delay, rel=DELAY_RTOL, abs=0)
+    assert short.transition == pytest.approx(full.transition, rel=TRANSITION_RTOL, abs=0)
     assert edge.energy is not None and whole.energy is not None
-    assert edge.energy.internal == pytest.approx(whole.energy.internal, rel=ENERGY_RTOL)
-    assert edge.energy.supply == pytest.approx(whole.energy.supply, rel=ENERGY_RTOL)
+    assert edge.energy.internal == pytest.approx(whole.energy.internal, rel=ENERGY_RTOL, abs=0)
+    assert edge.energy.supply == pytest.approx(whole.energy.supply, rel=ENERGY_RTOL, abs=0)
     assert short.side_charges == () and len(full.side_charges) == 1  # the release
     assert edge.stopped < whole.stopped
 

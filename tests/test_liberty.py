@@ -196,7 +196,7 @@ def test_pin_capacitances_read_back(run: Characterized) -> None:
     cfg, lib = run.config, run.lib
     for cell in run.result.cells:
         group = lib.get_group("cell", cell.cell.name)
-        assert group["area"] == pytest.approx(cell.cell.area, rel=RTOL)
+        assert group["area"] == pytest.approx(cell.cell.area, rel=RTOL, abs=0)
         assert [p.pin for p in cell.pins] == list(cell.cell.inputs)
         for cap in cell.pins:
             pin = group.get_group("pin", cap.pin)
@@ -577,7 +577,9 @@ def test_leakage_reads_back(run: Characterized) -> None:
     for cell in run.result.cell_power:
         group = lib.get_group("cell", cell.cell)
         inputs = cfg.cell(cell.cell).inputs
-        assert group["cell_leakage_power"] == pytest.approx(cell.cell_leakage / watts, rel=RTOL)
+        assert group["cell_leakage_power"] == pytest.approx(
+            cell.cell_leakage / watts, rel=RTOL, abs=0
+        )
         states = {_text(g["when"]): g["value"] for g in group.get_groups("leakage_power")}
         assert len(states) == 2 ** len(inputs)
         for state in cell.leakage:

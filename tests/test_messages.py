@@ -99,8 +99,8 @@ def test_units_are_read_in_any_case_and_stored_lower_case(
 
     cfg = config.load(_data_config(tmp_path, "small_l1.toml", edit))
     assert (cfg.time_unit, cfg.cap_unit) == stored
-    assert cfg.grid.slew[0] == pytest.approx(0.01 * slew_s, rel=REL)
-    assert cfg.grid.load[0] == pytest.approx(0.001 * load_f, rel=REL)
+    assert cfg.grid.slew[0] == pytest.approx(0.01 * slew_s, rel=REL, abs=0)
+    assert cfg.grid.load[0] == pytest.approx(0.001 * load_f, rel=REL, abs=0)
 
 
 def test_an_unknown_unit_is_refused_naming_the_key(tmp_path):
@@ -222,7 +222,7 @@ def test_the_plan_of_a_unit_mistake_names_the_point_it_failed_on(unit_mistake):
 )
 def test_spice_numbers_are_read_with_their_suffixes(text, value):
     got = plausible.spice_number(text)
-    assert got == (None if value is None else pytest.approx(value, rel=REL))
+    assert got == (None if value is None else pytest.approx(value, rel=REL, abs=0))
 
 
 def test_input_capacitance_bound_is_the_gate_area_at_the_thinnest_oxide(tmp_path):
@@ -230,12 +230,12 @@ def test_input_capacitance_bound_is_the_gate_area_at_the_thinnest_oxide(tmp_path
     # QINV_P1: W = 0.4 + 0.8 um at L = 0.1 um on pin A (its template's params).
     (bound,) = plausible.input_bounds(small, small.cell("QINV_P1"))
     area, width = (0.4e-6 + 0.8e-6) * 0.1e-6, 0.4e-6 + 0.8e-6
-    assert bound.pin == "A" and bound.gate_area == pytest.approx(area, rel=REL)
-    assert bound.farads == pytest.approx(COX_BOUND * area + 2 * EDGE_BOUND * width, rel=REL)
+    assert bound.pin == "A" and bound.gate_area == pytest.approx(area, rel=REL, abs=0)
+    assert bound.farads == pytest.approx(COX_BOUND * area + 2 * EDGE_BOUND * width, rel=REL, abs=0)
     # The same inverter written as X instances of device wrappers (a foundry kit's style).
     wrapped = config.load(DATA / "wrapped.toml")
     (wbound,) = plausible.input_bounds(wrapped, wrapped.cells[0])
-    assert wbound.farads == pytest.approx(bound.farads, rel=REL)
+    assert wbound.farads == pytest.approx(bound.farads, rel=REL, abs=0)
 
 
 def test_input_capacitance_bound_lies_above_the_simulated_capacitance():

@@ -123,7 +123,7 @@ def test_level1_saturation_current_is_square_law(corner: str, tmp_path: Path) ->
     leff = length - 2 * p.get("ld", 0.0)
     expected = 0.5 * p["kp"] * w / leff * (vgs - p["vto"]) ** 2 * (1 + p["lambda"] * vds)
     simulated = _drain_current("vellum90_l1.lib", corner, "nch", vgs, vds, tmp_path)
-    assert simulated == pytest.approx(expected, rel=0.01)
+    assert simulated == pytest.approx(expected, rel=0.01, abs=0)
 
 
 @pytest.mark.parametrize("model", ["nch", "pch"])

@@ -170,8 +170,8 @@ def _check_ladder_draws(cfg, run, stages: int, port: float) -> None:
         to_threshold = charge(k, crossing(k, 0.5)) / (0.5 * vdd)
         window = (charge(k, crossing(k, 0.8)) - charge(k, crossing(k, 0.2))) / (0.6 * vdd)
         _, got_threshold, got_window = draw.in_path
-        assert got_threshold == pytest.approx(to_threshold, rel=DRAW_RTOL)
-        assert got_window == pytest.approx(window, rel=DRAW_RTOL)
+        assert got_threshold == pytest.approx(to_threshold, rel=DRAW_RTOL, abs=0)
+        assert got_window == pytest.approx(window, rel=DRAW_RTOL, abs=0)
 
 
 def test_prediction_against_simulation_and_opensta(small, tmp_path: Path) -> None:
@@ -272,11 +272,13 @@ def test_pin_load_split_looks_delay_and_slew_up_at_their_own_loads(small, tmp_pa
             edge = t.output_edge
             first = sum(getattr(pins[c, p], f"{edge}_to_threshold") for _, c, p in on_net)
             second = sum(getattr(pins[c, p], f"{edge}_slew_window") for _, c, p in on_net)
-            assert t.load == pytest.approx(port + first, rel=1e-12), s.stage.gate
-            assert t.slew_load == pytest.approx(port + second, rel=1e-12), s.stage.gate
+            assert t.load == pytest.approx(port + first, rel=1e-12, abs=0), s.stage.gate
+            assert t.slew_load == pytest.approx(port + second, rel=1e-12, abs=0), s.stage.gate
             delay_t, slew_t = paths.stage_tables(cells[s.stage.cell], s.stage, edge)
-            assert t.delay == pytest.approx(_bilinear(delay_t, t.slew_in, t.load), rel=1e-9)
-            assert t.slew_out == pytest.approx(_bilinear(slew_t, t.slew_in, t.slew_load), rel=1e-9)
+            assert t.delay == pytest.approx(_bilinear(delay_t, t.slew_in, t.load), rel=1e-9, abs=0)
+            assert t.slew_out == pytest.approx(
+                _bilinear(slew_t, t.slew_in, t.slew_load), rel=1e-9, abs=0
+            )
             assert record["slew_load_F"] == t.slew_load
 
 

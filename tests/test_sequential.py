@@ -173,7 +173,7 @@ def test_liberty_with_3d_and_sequential_groups_reads_back(cfg, run):
     want = (
         _arc(result, "QDFFR_P1", "CLK", "QB").table("cell_rise").values.reshape(-1) / cfg.time_scale
     )
-    assert got == pytest.approx(want, rel=RTOL_READBACK)
+    assert got == pytest.approx(want, rel=RTOL_READBACK, abs=0)
     setups = [t for t in pins["D"].get_groups("timing") if t["timing_type"] == "setup_rising"]
     assert len(setups) == 1 and setups[0].get_groups("rise_constraint")
     # The reset's release (RSTB rising) against the clock: one table each, for that edge only.
@@ -293,7 +293,7 @@ def test_each_pin_edge_capacitance_is_that_edges_charge(cfg, run):
     # The reference's two RSTB edges differ (3.9 % measured), and charflow's the same way.
     rn, ratio = pins["RSTB"], wants["RSTB", "rise"] / wants["RSTB", "fall"]
     assert abs(ratio - 1.0) > EDGES_APART, ratio
-    assert rn.rise / rn.fall == pytest.approx(ratio, rel=PIN_CAP_RTOL), (rn.rise, rn.fall)
+    assert rn.rise / rn.fall == pytest.approx(ratio, rel=PIN_CAP_RTOL, abs=0), (rn.rise, rn.fall)
 
 
 def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
@@ -320,7 +320,7 @@ def test_pulse_width_lies_between_a_failing_and_a_passing_width(cfg, run):
         probe = sequential.pulse_probe(cfg, deck, m.point)
         assert probe(high) and not probe(low), (pin, level)
         written = float(pins[pin][f"min_pulse_width_{level}"]) * cfg.time_scale
-        assert written == pytest.approx(m.value, rel=RTOL_READBACK), (pin, level)
+        assert written == pytest.approx(m.value, rel=RTOL_READBACK, abs=0), (pin, level)
     rn = found["RSTB", "low"]
     narrowest = sequential._Pulse.at(rn.point.slew, "low", cfg.thresholds, cfg.process.vdd)
     assert rn.stimulus == RUNT and rn.value < narrowest.narrowest
@@ -455,11 +455,13 @@ def test_a_light_output_held_back_by_a_heavy_one_is_timed_from_its_own_train(cfg
         cfg, simulation=dataclasses.replace(cfg.simulation, samples_per_edge=80)
     )
     _, reference = sequential._clocked(dense, deck, point, tight=True, every=True)
-    assert outcome.delay == pytest.approx(reference.delay, rel=TRAINS_DELAY_RTOL)
-    assert outcome.transition == pytest.approx(reference.transition, rel=TRAINS_TRANSITION_RTOL)
+    assert outcome.delay == pytest.approx(reference.delay, rel=TRAINS_DELAY_RTOL, abs=0)
+    assert outcome.transition == pytest.approx(
+        reference.transition, rel=TRAINS_TRANSITION_RTOL, abs=0
+    )
     ((pin, t_out, transition),) = outcome.others
     ((pin_r, t_ref, transition_r),) = reference.others
     assert pin == pin_r == "QB"
     delay, delay_r = t_out - outcome.t_event, t_ref - reference.t_event
-    assert delay == pytest.approx(delay_r, rel=TRAINS_DELAY_RTOL)
-    assert transition == pytest.approx(transition_r, rel=TRAINS_TRANSITION_RTOL)
+    assert delay == pytest.approx(delay_r, rel=TRAINS_DELAY_RTOL, abs=0)
+    assert transition == pytest.approx(transition_r, rel=TRAINS_TRANSITION_RTOL, abs=0)

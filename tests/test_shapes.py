@@ -93,7 +93,7 @@ def test_driver_shaped_input_has_the_table_slew_at_the_library_thresholds(driven
         assert isinstance(ramp.pulse(), stimulus.Pwl)
         t, v = _source_edge(cfg, ramp)
         lo, hi = (single_crossing(t, v, f * vdd, edge, "input") for f in thr.slew_band(edge))
-        assert abs(hi - lo) == pytest.approx(slew * thr.slew_derate, rel=SLEW_RTOL)
+        assert abs(hi - lo) == pytest.approx(slew * thr.slew_derate, rel=SLEW_RTOL, abs=0)
         level = thr.delay_input(edge)
         crossed = single_crossing(t, v, level * vdd, edge, "input")
         assert crossed == pytest.approx(ramp.time_at(level), abs=DELAY_ATOL)
@@ -142,9 +142,9 @@ def test_a_file_of_straight_edges_is_the_linear_ramp(tmp_path):
     for edge in ("rise", "fall"):
         shaped = stimulus.ramp(5e-11, edge, thr, 1.2, cfg.input_shape)
         plain = stimulus.ramp(5e-11, edge, thr, 1.2)
-        assert shaped.duration == pytest.approx(plain.duration, rel=LINEAR_RTOL)
+        assert shaped.duration == pytest.approx(plain.duration, rel=LINEAR_RTOL, abs=0)
         for f in (*thr.slew_band(edge), thr.delay_input(edge)):
-            assert shaped.time_at(f) == pytest.approx(plain.time_at(f), rel=LINEAR_RTOL)
+            assert shaped.time_at(f) == pytest.approx(plain.time_at(f), rel=LINEAR_RTOL, abs=0)
 
 
 @pytest.mark.parametrize(
@@ -228,7 +228,7 @@ def test_the_shape_reaches_a_flip_flop_setup_search(tmp_path, monkeypatch):
         single_crossing(t[inside], v[inside], f * vdd, "rise", "clock")
         for f in cfg.thresholds.slew_band("rise")
     )
-    assert hi - lo == pytest.approx(slew * cfg.thresholds.slew_derate, rel=SLEW_RTOL)
+    assert hi - lo == pytest.approx(slew * cfg.thresholds.slew_derate, rel=SLEW_RTOL, abs=0)
 
 
 def test_liberty_and_json_name_the_shape_and_parse(driven):
@@ -282,6 +282,6 @@ def test_a_shaped_point_is_alike_on_both_backends_and_never_the_ramps(driven):
     shaped = combinational.measure_point(cfg, deck, point)
     batch = replace(cfg, simulation=replace(cfg.simulation, backend="subprocess"))
     alone = combinational.measure_point(batch, deck, point)
-    assert alone.delay == pytest.approx(shaped.delay, rel=BACKEND_RTOL)
-    assert alone.transition == pytest.approx(shaped.transition, rel=BACKEND_RTOL)
+    assert alone.delay == pytest.approx(shaped.delay, rel=BACKEND_RTOL, abs=0)
+    assert alone.transition == pytest.approx(shaped.transition, rel=BACKEND_RTOL, abs=0)
     assert abs(shaped.delay / ramp.delay - 1) > BACKEND_RTOL

@@ -49,8 +49,10 @@ def test_estimated_first_step_keeps_results_within_tolerance(small):
         deck = decks[point.cell]
         fast = timing.measure_point(small, deck, point)
         plain = timing.measure_point(small, deck, point, step=stepsize.plain_step(small, point))
-        assert fast.delay == pytest.approx(plain.delay, rel=MEASURE_RTOL), point.label
-        assert fast.transition == pytest.approx(plain.transition, rel=MEASURE_RTOL), point.label
+        assert fast.delay == pytest.approx(plain.delay, rel=MEASURE_RTOL, abs=0), point.label
+        assert fast.transition == pytest.approx(plain.transition, rel=MEASURE_RTOL, abs=0), (
+            point.label
+        )
         fast_runs += fast.runs
         plain_runs += plain.runs
     # The point of the estimate: fewer refinement re-runs than the ramp-sized step.
@@ -68,8 +70,8 @@ def test_rc_transition_model_is_the_step_response():
     model = model_for(cfg, deck, point)
     assert model is not None
     c0 = cell.grid.load[0]
-    assert model.base == pytest.approx(math.log(4.0) * R_OHMS * c0, rel=RC_RTOL)
-    assert model.per_farad == pytest.approx(math.log(4.0) * R_OHMS, rel=RC_RTOL)
+    assert model.base == pytest.approx(math.log(4.0) * R_OHMS * c0, rel=RC_RTOL, abs=0)
+    assert model.per_farad == pytest.approx(math.log(4.0) * R_OHMS, rel=RC_RTOL, abs=0)
 
 
 def test_results_do_not_depend_on_worker_count(small):

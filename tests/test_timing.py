@@ -219,7 +219,7 @@ def test_pin_capacitance_follows_logical_effort(pin_caps, cell, effort):
     # Effort, 1999); the demo cells are sized that way (templates/cells/SIZES.md).
     inv = pin_caps[("QINV_P1", "A")]
     for pin in ("IA", "IB"):
-        assert pin_caps[(cell, pin)] / inv == pytest.approx(effort, rel=EFFORT_RTOL), pin
+        assert pin_caps[(cell, pin)] / inv == pytest.approx(effort, rel=EFFORT_RTOL, abs=0), pin
 
 
 def _model_params(path: Path, section: str) -> dict[str, dict[str, float]]:
@@ -297,7 +297,9 @@ def test_each_edge_of_a_linear_input_capacitor_reads_its_value():
             if m.point.input_edge == edge and m.point.load == min(cfg.cells[0].grid.load)
         ]
         vdd = cfg.process.vdd
-        assert getattr(pin, edge) == pytest.approx(sum(charges) / len(charges) / vdd, rel=1e-12)
+        assert getattr(pin, edge) == pytest.approx(
+            sum(charges) / len(charges) / vdd, rel=1e-12, abs=0
+        )
         assert getattr(pin, edge) == pytest.approx(CA + 2 * CM, rel=LINEAR_CAP_RTOL, abs=0)
 
 

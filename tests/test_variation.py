@@ -146,11 +146,11 @@ def test_step_delay_sensitivity_matches_the_square_law(tmp_path, ngspice):
     slope = (shift.delay[0] - shift.delay[1]) / (2 * shift.sigma)
     h = 1e-6
     expected = (step_delay(VT + h, load * 1e-12) - step_delay(VT - h, load * 1e-12)) / (2 * h)
-    assert m.delay == pytest.approx(step_delay(VT, load * 1e-12), rel=STEP_SLOPE_RTOL)
-    assert slope == pytest.approx(expected, rel=STEP_SLOPE_RTOL)
+    assert m.delay == pytest.approx(step_delay(VT, load * 1e-12), rel=STEP_SLOPE_RTOL, abs=0)
+    assert slope == pytest.approx(expected, rel=STEP_SLOPE_RTOL, abs=0)
     # To first order ∂ln t/∂Vt ≈ 2/(VDD − Vt) (the saturation current's square law; the same
     # sources): 2.5 /V here, the whole expression 2.41 /V.
-    assert slope / m.delay == pytest.approx(2 / (VDD - VT), rel=FIRST_ORDER_RTOL)
+    assert slope / m.delay == pytest.approx(2 / (VDD - VT), rel=FIRST_ORDER_RTOL, abs=0)
 
 
 def test_wrapped_devices_get_the_same_sensitivity(tmp_path, ngspice):
@@ -205,9 +205,9 @@ def test_monte_carlo_sigma_of_a_linear_function():
         for ai, d in zip(a, deck.devices, strict=True)
     ]
     linear = spread.linear(shifts, "delay")
-    assert linear.sigma == pytest.approx(exact, rel=1e-12)
-    assert linear.early == pytest.approx(exact, rel=1e-12)
-    assert linear.late == pytest.approx(exact, rel=1e-12)
+    assert linear.sigma == pytest.approx(exact, rel=1e-12, abs=0)
+    assert linear.early == pytest.approx(exact, rel=1e-12, abs=0)
+    assert linear.late == pytest.approx(exact, rel=1e-12, abs=0)
 
 
 @pytest.fixture(scope="module")
@@ -340,7 +340,7 @@ def test_sampled_method_tabulates_the_monte_carlo_sigma(tmp_path, ngspice):
         and m.point.coordinates == (table.table.axes[0].values[1], table.table.axes[1].values[2])
     )
     expected = spread.sampled(m.sampled_delays).of(table.sigma_type)
-    assert table.table.values[1, 2] == pytest.approx(expected, rel=1e-12)
+    assert table.table.values[1, 2] == pytest.approx(expected, rel=1e-12, abs=0)
 
 
 def test_a_cell_of_unnamed_subcircuits_says_what_to_declare(tmp_path):

@@ -44,8 +44,8 @@ TIGHT_RELTOL = 10.0
 # not served as current (``execution.store.keyring``). 2: searches' usual stage to a wider
 # bracket on a reshaped margin; clock points from the flop's held state (December 2026). 3:
 # setup, hold, recovery and removal searches from the held state too; each output's edge in
-# its own breakpoint train; clock points above the smallest load from just before their edge
-# (December 2026).
+# its own breakpoint train; clock points above the smallest load from just before their edge;
+# flip-flop toggles from the held state (December 2026).
 METHOD_REVISION = 3
 
 
