@@ -48,6 +48,7 @@ from charflow.records.points import ConstraintPoint, Plan, PulsePoint, SpreadPoi
 from charflow.simulation import plausible
 from charflow.simulation.backends import SharedBackend
 from charflow.simulation.netlist import Deck, build_deck
+from charflow.simulation.session import SESSION
 
 SAMPLES = 3  # sample points per group of many (combinational and clock points)
 TOGGLE_SAMPLES = 3  # a flip-flop's toggles sampled (_cell_costs)
@@ -160,7 +161,11 @@ def estimate(config: LibraryConfig, cells: list[str] | None = None, jobs: int = 
 
 
 def _cell_costs(config: LibraryConfig, names: list[str], plan: Plan) -> list[CellCost]:
-    """In a worker: each cell's testbench read and its sample points measured, timed."""
+    """In a worker: each cell's testbench read and its sample points measured, timed. The
+    worker may be one an earlier sweep in this process left running: its caches (held
+    states, event checks, windows) are emptied first, so that the samples pay what a fresh
+    worker of the run pays."""
+    SESSION.forget()
     costs = []
     for name in names:
         cell = config.cell(name)

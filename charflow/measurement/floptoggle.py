@@ -9,7 +9,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from charflow.config.library import LibraryConfig
-from charflow.measurement import ffpower, heldstate, sequential
+from charflow.measurement import ffpower, sequential
 from charflow.measurement.combinational import LOGIC_MARGIN, alters, backend_for, simulate
 from charflow.measurement.waves import integral, single_crossing
 from charflow.plan.arcs import capture_values, stored_output
@@ -32,7 +32,7 @@ def measure_toggle(config: LibraryConfig, deck: Deck, point: TogglePoint) -> Tog
     window = sequential.settle_window(config, deck)
     bench = Timeline(config, cell, window, (point.slew, min(cell.grid.slew)))
     state = stored_value(cell, point)
-    start, runs, seconds = _start(config, deck, bench, point, state)
+    start, runs, seconds = _start(deck, bench, point, state)
     event = bench.ramp(point.slew, point.input_edge).moved(bench.lead)
     waves = {p: stimulus.constant(ffpower.level(config, v)) for p, v in _before(point).items()}
     waves[point.related] = event.pulse()
@@ -69,15 +69,12 @@ def _before(point: TogglePoint) -> dict[str, bool]:
     return {**dict(point.side), point.related: point.input_edge == "fall"}
 
 
-def _start(
-    config: LibraryConfig, deck: Deck, bench: Timeline, point: TogglePoint, state: bool
-) -> tuple[Deck, int, float]:
+def _start(deck: Deck, bench: Timeline, point: TogglePoint, state: bool) -> tuple[Deck, int, float]:
     """The testbench the hidden event's run starts on: the flop holding ``state`` (written
     by an active edge, ``heldstate``) with every input at its level before the edge."""
-    cell = bench.cell
-    written = sequential.run_step(config, min(cell.grid.slew))
-    levels = capture_values(cell, state)
-    return heldstate.held_deck(config, deck, bench, state, levels, written, _before(point))
+    return sequential.held_state(
+        bench, deck, state, capture_values(bench.cell, state), _before(point)
+    )
 
 
 def _run(

@@ -34,6 +34,7 @@ from charflow.simulation.timeline import Timeline
 # the same testbench.
 NODESET_DECIMALS = 4
 
+_CARDS: BoundedCache[tuple, Deck] = SESSION.cache("held states' cards")
 _HELD: BoundedCache[tuple, Deck] = SESSION.cache("held states")
 
 
@@ -49,30 +50,41 @@ def held_deck(
     """The testbench whose runs start with the flop holding ``state``, the clock at its
     active level and the other inputs at ``levels``; or with every input (the clock too) at
     ``then`` (the latch that captures open, or closed on what was written: a state Newton's
-    method finds from the cards as well; checked once); with the simulations and simulator
-    seconds spent finding it (none once this worker has it). ``step``: the largest step of
-    the run that writes it (the grid's sharpest ramp's, ``sequential.run_step``)."""
+    method finds from the cards as well). Each start is checked once (``_check_holds``).
+    With the simulations and simulator seconds spent finding it (none once this worker has
+    it). ``step``: the largest step of the run that writes it (``sequential.held_state``)."""
+    flop = bench.cell.flip_flop
+    start = {**levels, flop.clock: flop.edge == "rise"} if then is None else then
     settings = (config.thresholds, config.simulation, config.input_shape)
     key = (deck.key, state, tuple(sorted(levels.items())), bench.window, step, *settings)
-    if then is not None:
-        moved = (*key, tuple(sorted(then.items())))
-        if moved not in _HELD:
-            held, runs, seconds = held_deck(config, deck, bench, state, levels, step)
-            runs_op, seconds_op = _check_holds(config, held, bench, state, then)
-            _HELD[moved] = held
-            return held, runs + runs_op, seconds + seconds_op
-        return _HELD[moved], 0, 0.0
-    if key in _HELD:
-        return _HELD[key], 0, 0.0
+    checked = (*key, tuple(sorted(start.items())))
+    if checked in _HELD:
+        return _HELD[checked], 0, 0.0
+    runs, seconds = 0, 0.0
+    if key not in _CARDS:
+        _CARDS[key], runs, seconds = _carded(config, deck, bench, state, levels, step)
+    held = _CARDS[key]
+    runs_op, seconds_op = _check_holds(config, held, bench, state, start)
+    _HELD[checked] = held
+    return held, runs + runs_op, seconds + seconds_op
+
+
+def _carded(
+    config: LibraryConfig,
+    deck: Deck,
+    bench: Timeline,
+    state: bool,
+    levels: dict[str, bool],
+    step: float,
+) -> tuple[Deck, int, float]:
+    """A copy of ``deck`` with the written state's voltages as ``.nodeset`` cards, keyed
+    by its text; with the simulations and seconds the writing run took."""
     written, runs, seconds = _written(config, deck, bench, state, levels, step)
     cards = "".join(f".nodeset v({n})={v:.{NODESET_DECIMALS}f}\n" for n, v in written.items())
     text = re.sub(r"^\.end\s*\Z", cards + ".end\n", deck.text, flags=re.M)
     key_text = f"{deck.key}\n{text}"
     held = replace(deck, text=text, key=hashlib.sha256(key_text.encode()).hexdigest())
-    active = {bench.cell.flip_flop.clock: bench.cell.flip_flop.edge == "rise"}
-    runs_op, seconds_op = _check_holds(config, held, bench, state, {**levels, **active})
-    _HELD[key] = held
-    return held, runs + runs_op, seconds + seconds_op
+    return held, runs, seconds
 
 
 def _written(

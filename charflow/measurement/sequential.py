@@ -825,11 +825,9 @@ def _clocked(
     step, options = run_settings(config, deck, tight, point.slew, min(cell.grid.slew))
     start, runs, seconds = deck, 0, 0.0
     if point.kind == "clock" or short:
-        written = run_step(config, min(cell.grid.slew))
         inactive = {cell.flip_flop.clock: cell.flip_flop.edge != "rise"}
         opened = {**new, **inactive} if short else None
-        held = heldstate.held_deck(config, deck, bench, not stored, old, written, opened)
-        start, runs, seconds = held
+        start, runs, seconds = held_state(bench, deck, not stored, old, opened)
     every = every or _partner(config, point) is not None
     timed = [o.pin for o in cell.outputs] if every else [point.output]
     moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
@@ -1231,6 +1229,19 @@ def _experiment(
     return _Experiment(loads, step, options, cell.outputs[0].pin, *levels, start)
 
 
+def held_state(
+    bench: Timeline,
+    deck: Deck,
+    state: bool,
+    levels: dict[str, bool],
+    then: dict[str, bool] | None = None,
+) -> tuple[Deck, int, float]:
+    """``heldstate.held_deck`` with the state written at the step of the grid's sharpest ramp
+    (``run_step``), for every flip-flop run that starts from it."""
+    step = run_step(bench.config, min(bench.cell.grid.slew))
+    return heldstate.held_deck(bench.config, deck, bench, state, levels, step, then)
+
+
 def _held_start(
     bench: Timeline,
     deck: Deck,
@@ -1239,17 +1250,14 @@ def _held_start(
     levels: dict[str, bool],
     then: dict[str, bool],
 ) -> Deck:
-    """The testbench a search's trials run on: the flop holding ``state`` as an active edge
-    wrote it with the other inputs at ``levels`` (``heldstate``), every input at ``then``
-    with the clock at its inactive level as the trial starts; the runs that find it (once
-    per worker) count as the search's."""
-    written = run_step(bench.config, min(bench.cell.grid.slew))
+    """The testbench a search's trials run on (``held_state``): every input at ``then`` with the
+    clock at its inactive level as the trial starts; the runs that find it (once per worker)
+    count as the search's."""
     flop = bench.cell.flip_flop
     start = {**then, flop.clock: flop.edge != "rise"}
-    config = bench.config
-    held, runs, seconds = heldstate.held_deck(config, deck, bench, state, levels, written, start)
+    deck, runs, seconds = held_state(bench, deck, state, levels, start)
     trials.runs, trials.seconds = trials.runs + runs, trials.seconds + seconds
-    return held
+    return deck
 
 
 def measure_constraint(config: LibraryConfig, deck: Deck, point: ConstraintPoint) -> SearchResult:
