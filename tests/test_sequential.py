@@ -48,6 +48,12 @@ REFERENCE_STEP = 1e-12  # s, the reference run's largest time step
 # QDFF_P1 (December 2026) within 0.005 % (delay) and 0.022 % (transition).
 TRAINS_DELAY_RTOL = 5e-4
 TRAINS_TRANSITION_RTOL = 1e-3
+# A clock run stopped once settled against the same run to its window's end: the same
+# breakpoints and steps up to the stop, so the same values (measured on seq_l1's QDFFR_P1,
+# December 2026: equal but for 2e-15 of a charge); it stopped at STOPPED_SHARE of the whole
+# run or less (seq_l1's settle window is short: 0.75 of 0.82 ns; the demo's 1.6 ns).
+STOPPED_RTOL = 1e-9
+STOPPED_SHARE = 0.95
 
 
 @pytest.fixture(scope="module", autouse=True)
@@ -429,6 +435,74 @@ def test_edge_trains_give_each_edge_its_own_spacing():
     assert times[0] == pytest.approx(slow[0]) and times[-1] >= slow[1]
 
 
+def _stopping(cfg, load, other_load):
+    """seq_l1's QDFFR_P1 clock point (Q, sharpest slew) at these loads, its testbench and its
+    event's guess."""
+    cell = cfg.cell("QDFFR_P1")
+    deck = build_deck(cfg, cell)
+    point = next(
+        p
+        for p in plan(cfg, ["QDFFR_P1"]).points
+        if isinstance(p, TimingPoint)
+        and (p.kind, p.output, p.slew) == ("clock", "Q", min(cell.grid.slew))
+        and (p.load, p.other_load) == (load, other_load)
+    )
+    _, guess, _, _ = sequential._event_check(cfg, deck, point)
+    assert guess is not None and sequential._short(cfg, point)
+    return deck, point, guess
+
+
+def _same_values(cut, whole):
+    assert cut.delay == pytest.approx(whole.delay, rel=STOPPED_RTOL, abs=0)
+    assert cut.transition == pytest.approx(whole.transition, rel=STOPPED_RTOL, abs=0)
+    assert cut.input_charge == pytest.approx(whole.input_charge, rel=STOPPED_RTOL, abs=0)
+    assert cut.supply_energy == pytest.approx(whole.supply_energy, rel=STOPPED_RTOL, abs=0)
+    assert cut.internal_energy == pytest.approx(whole.internal_energy, rel=STOPPED_RTOL, abs=0)
+
+
+def test_a_short_run_stops_once_settled_and_measures_what_its_whole_window_does(cfg, monkeypatch):
+    """A clock point with every output above the smallest load stops QUIET_EDGES x its
+    guessed edges' end after the event, not at the cell's settle window (sized for its
+    slowest point): its outputs have settled and its supply current is quiet there
+    (``ffpower.quiet_end``), so it measures what the run to the window's end does."""
+    cell = cfg.cell("QDFFR_P1")
+    deck, point, guess = _stopping(cfg, max(cell.grid.load), max(cell.grid.related_load))
+    cut, cut_run = sequential._clocked(cfg, deck, point, guess=guess)
+    monkeypatch.setattr(sequential, "QUIET_EDGES", 1e6)  # past the window: to its end
+    whole, whole_run = sequential._clocked(cfg, deck, point, guess=guess)
+    assert cut_run.stopped < STOPPED_SHARE * whole_run.stopped
+    assert cut.runs == whole.runs
+    _same_values(cut, whole)
+
+
+def test_a_run_stopped_before_it_settles_goes_on_to_its_window_end(cfg, monkeypatch):
+    """A guessed stop before the output has settled (QUIET_EDGES far too small) costs one run
+    more, again to the window's end, and the values of the run to the window's end."""
+    cell = cfg.cell("QDFFR_P1")
+    deck, point, guess = _stopping(cfg, max(cell.grid.load), max(cell.grid.related_load))
+    monkeypatch.setattr(sequential, "QUIET_EDGES", 1e6)
+    whole, whole_run = sequential._clocked(cfg, deck, point, guess=guess)
+    monkeypatch.setattr(sequential, "QUIET_EDGES", 0.2)
+    cut, cut_run = sequential._clocked(cfg, deck, point, guess=guess)
+    assert cut.runs == whole.runs + 1
+    assert cut_run.stopped == pytest.approx(whole_run.stopped, rel=1e-9, abs=0)
+    _same_values(cut, whole)
+
+
+def test_a_point_whose_charge_gives_pin_capacitance_runs_to_its_window_end(cfg):
+    """An output at the grid's smallest load gives the pin capacitances
+    (``tabulate.pin_capacitance``): its run integrates the pins' charges to the window's end,
+    as every such run does."""
+    cell = cfg.cell("QDFFR_P1")
+    _, point, guess = _stopping(cfg, min(cell.grid.load), max(cell.grid.related_load))
+    loads = sequential.point_loads(cell, point)
+    ramp = guess.ramps[0]
+    assert sequential._expected(cfg, cell.name, guess, True, ramp, loads, ["Q"]).stop is None
+    above = {o: 2 * c for o, c in loads.items()}
+    assert sequential._expected(cfg, cell.name, guess, True, ramp, above, ["Q"]).stop > 0
+    assert sequential._expected(cfg, cell.name, guess, False, ramp, above, ["Q"]).stop is None
+
+
 def test_a_light_output_held_back_by_a_heavy_one_is_timed_from_its_own_train(cfg):
     # The guess's train covers only the heavier output's edge (its probes have every output
     # at one load, and a flop's QB driven through Q moves with Q's load); the first run finds
@@ -447,7 +521,7 @@ def test_a_light_output_held_back_by_a_heavy_one_is_timed_from_its_own_train(cfg
     )
     _, guess, _, _ = sequential._event_check(cfg, deck, point)
     assert guess is not None
-    expect = guess.expect(guess.ramps[0], sequential.point_loads(cell, point), 20)
+    expect = guess.expect(guess.ramps[0], sequential.point_loads(cell, point), 20, None)
     assert len(expect.trains) == 1  # Q's edge only
     measured, outcome = sequential._clocked(cfg, deck, point, every=True, guess=guess)
     assert measured.runs == 2

@@ -45,8 +45,9 @@ TIGHT_RELTOL = 10.0
 # bracket on a reshaped margin; clock points from the flop's held state (December 2026). 3:
 # setup, hold, recovery and removal searches from the held state too; each output's edge in
 # its own breakpoint train; clock points above the smallest load from just before their edge;
-# flip-flop toggles from the held state (December 2026).
-METHOD_REVISION = 3
+# flip-flop toggles from the held state (December 2026). 4: a clock or control point's guessed
+# edges sampled by breakpoints 3x further apart (``sequential.GUESS_SPACING``).
+METHOD_REVISION = 4
 
 
 @dataclass(frozen=True, slots=True)
