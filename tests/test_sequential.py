@@ -497,10 +497,10 @@ def test_a_point_whose_charge_gives_pin_capacitance_runs_to_its_window_end(cfg):
     _, point, guess = _stopping(cfg, min(cell.grid.load), max(cell.grid.related_load))
     loads = sequential.point_loads(cell, point)
     ramp = guess.ramps[0]
-    assert sequential._expected(cfg, cell.name, guess, True, ramp, loads, ["Q"]).stop is None
+    assert sequential._expected(cfg, cell, guess, True, ramp, loads, ["Q"]).stop is None
     above = {o: 2 * c for o, c in loads.items()}
-    assert sequential._expected(cfg, cell.name, guess, True, ramp, above, ["Q"]).stop > 0
-    assert sequential._expected(cfg, cell.name, guess, False, ramp, above, ["Q"]).stop is None
+    assert sequential._expected(cfg, cell, guess, True, ramp, above, ["Q"]).stop > 0
+    assert sequential._expected(cfg, cell, guess, False, ramp, above, ["Q"]).stop is None
 
 
 def test_a_light_output_held_back_by_a_heavy_one_is_timed_from_its_own_train(cfg):

@@ -378,8 +378,9 @@ def run_event(
     within ``window`` (``settle_window``); ``also`` (pin, before, after): more outputs timed.
     ``charge_windows`` (pin, its ramp, the end or None): charges asked for; with ``states``
     (stored before, after) the event's energy too; ``expect``: the edges' first breakpoints
-    (``_first_grids``); ``start``: the testbench simulated, where it is not ``deck`` (a flop's
-    held state, ``heldstate``). Returns the outcome (``_outcome``), simulations, seconds."""
+    (``_first_grids``) and where the run may stop once settled (``Expect.stop``); ``start``:
+    the testbench simulated, where it is not ``deck`` (a flop's held state, ``heldstate``).
+    Returns the outcome (``_outcome``), simulations, seconds."""
     cell = config.cell(deck.cell)
     window = window or settle_window(config, deck)
     moves = ((output, before, after), *also)
@@ -430,12 +431,9 @@ def _settles(
     """Whether a run cut short at its guess's stop (``Expect.stop``) saw every output settle
     at its final value and, with ``states``, the supply current quiet (``ffpower.quiet_end``):
     what the run to the window's end would have measured in it."""
-    tol = config.simulation.settle * config.process.vdd * (1 + 1e-6)
     try:
         for o, _, after in moves:
-            edge = "rise" if after else "fall"
-            rail = config.process.vdd if after else 0.0
-            check_settled(vectors[nodes[o]], rail, tol, edge, f"output {o}")
+            _check_landed(config, vectors[nodes[o]], after, f"output {o}", None)
         if states is not None:
             window = settle_window(config, deck)
             ffpower.event_energy(config, deck, vectors, event, states, {}, window)
@@ -585,7 +583,6 @@ def _edge(
     """The edge of ``output`` in a run: it must hold ``before`` until the event and settle at
     ``after``; None when the two are the same (nothing to time)."""
     vdd, thr = config.process.vdd, config.thresholds
-    tol = config.simulation.settle * vdd
     t, v = vectors["time"], vectors[nodes[output]]
     what = f"output {output}"
     held = v[t <= event.start]
@@ -595,8 +592,7 @@ def _edge(
             "flop was not initialised"
         )
     edge = "rise" if after else "fall"
-    # Overshooting the rail as it arrives is settled; stopping short of it is not.
-    check_settled(v, vdd if after else 0.0, tol * (1 + 1e-6), edge, what, window)
+    _check_landed(config, v, after, what, window)
     if before == after:
         return None
     # The event pin is driven by an ideal source: its ramp crosses where the ramp says.
@@ -605,6 +601,17 @@ def _edge(
         _crossing_after(t, v, x * vdd, edge, event.start, what) for x in thr.slew_band(edge)
     )
     return _Edge(t_out, (low, high))
+
+
+def _check_landed(
+    config: LibraryConfig, v: np.ndarray, after: bool, what: str, window: float | None
+) -> None:
+    """An output's waveform ended within ``simulation.settle`` of its final rail (``after``):
+    overshooting the rail as it arrives is settled, stopping short of it is not (a
+    CutOffError, ``waves.check_settled``)."""
+    tol = config.simulation.settle * config.process.vdd * (1 + 1e-6)
+    rail = config.process.vdd if after else 0.0
+    check_settled(v, rail, tol, "rise" if after else "fall", what, window)
 
 
 def _sampled(
@@ -888,7 +895,7 @@ def _clocked(
     timed = [o.pin for o in cell.outputs] if every else [point.output]
     moves = [(o, stored_output(cell, o, not stored), stored_output(cell, o, stored)) for o in timed]
     loads = point_loads(cell, point)
-    expect = _expected(config, cell.name, guess, short, event.duration, loads, timed)
+    expect = _expected(config, cell, guess, short, event.duration, loads, timed)
     outcome, event_runs, event_seconds = run_event(
         config,
         deck,
@@ -913,7 +920,7 @@ def _clocked(
 
 def _expected(
     config: LibraryConfig,
-    cell: str,
+    cell: CellSpec,
     guess: _Guess | None,
     short: bool,
     ramp: float,
@@ -929,7 +936,7 @@ def _expected(
         return None
     samples = config.simulation.samples_per_edge
     timed_loads = {o: loads[o] for o in timed}
-    stops = short and min(loads.values()) > min(config.cell(cell).grid.load)
+    stops = short and min(loads.values()) > min(cell.grid.load)
     return guess.expect(ramp, timed_loads, samples, loads if stops else None)
 
 
