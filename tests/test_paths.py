@@ -207,6 +207,39 @@ def test_prediction_against_simulation_and_opensta(small, tmp_path: Path) -> Non
     assert worst == doc["summary"]["predicted"]["worst_abs_error"]
     lines = paths.summary_lines(cfg, corr)
     assert sum(line.strip().startswith("predicted at input slew") for line in lines) == 2
+    _check_effect_spread(doc)
+    assert any(line.strip().startswith("per stage, median") for line in lines)
+
+
+def _check_effect_spread(doc: dict) -> None:
+    """The JSON's spread of each stage effect against a plain loop over its own per-stage
+    delays (simulated, replica, ramp, tables)."""
+    got: dict[str, list[float]] = {"load": [], "shape": [], "interpolation": [], "local": []}
+    for run in doc["paths"]:
+        for st in run["per_stage"]:
+            d = st["delay_s"]
+            sim, replica, ramp, table = (
+                d["simulated"],
+                d["replica_lumped_load"],
+                d["ramp_lumped_load"],
+                d["tables_at_simulated_slew"],
+            )
+            got["load"].append((replica - sim) / sim)
+            got["local"].append((table - sim) / sim)
+            if ramp is not None:
+                got["shape"].append((ramp - replica) / sim)
+                got["interpolation"].append((table - ramp) / sim)
+    for name, values in got.items():
+        spread = doc["stage_effects_spread"][name]
+        ordered = sorted(values)
+        n = len(ordered)
+        median = (ordered[(n - 1) // 2] + ordered[n // 2]) / 2
+        assert spread["stages"] == n
+        assert spread["median"] == pytest.approx(median, rel=1e-12, abs=0)
+        assert (spread["lowest"], spread["highest"]) == (ordered[0], ordered[-1])
+        beyond = sum(1 for v in values if abs(v) > paths.EFFECT_FLAG)
+        assert spread["beyond_flag"] == beyond
+        assert doc["stage_effects"][name] == pytest.approx(sum(values) / n, rel=1e-12, abs=0)
 
 
 def test_replica_of_the_last_stage_is_the_stage(small, tmp_path: Path) -> None:

@@ -703,9 +703,14 @@ def receiver_ratios(corr: Correlation, slew: float | None = None) -> dict[str, d
     return out
 
 
-def decomposition(corr: Correlation) -> dict[str, float | None]:
-    """Mean per-stage delay difference of each effect, as a fraction of the simulated stage
-    delay (positive: makes the tables slower than the simulation)."""
+# A stage effect larger than this share of its stage's delay is counted apart: the means hide
+# effects that cancel over a path but not on each stage (docs/history/2026-12-receivereq.md).
+EFFECT_FLAG = 0.02
+
+
+def _effects(corr: Correlation) -> dict[str, list[float]]:
+    """Each stage's delay difference of each effect, as a fraction of its simulated delay
+    (positive: makes the tables slower than the simulation)."""
     parts: dict[str, list[float]] = {"load": [], "shape": [], "interpolation": [], "local": []}
     for r in corr.results:
         for s in r.stages:
@@ -715,7 +720,33 @@ def decomposition(corr: Correlation) -> dict[str, float | None]:
             if s.ramp_delay is not None:
                 parts["shape"].append((s.ramp_delay - s.replica_delay) / d)
                 parts["interpolation"].append((s.table_delay - s.ramp_delay) / d)
-    return {k: float(np.mean(v)) if v else None for k, v in parts.items()}
+    return parts
+
+
+def decomposition(corr: Correlation) -> dict[str, float | None]:
+    """Mean per-stage delay difference of each effect (see ``_effects``)."""
+    return {k: float(np.mean(v)) if v else None for k, v in _effects(corr).items()}
+
+
+def effect_spread(corr: Correlation) -> dict[str, dict | None]:
+    """Per effect over the stages: median, lowest, highest, and how many stages it moves by
+    more than ``EFFECT_FLAG`` of their delay either way."""
+    out: dict[str, dict | None] = {}
+    for k, v in _effects(corr).items():
+        a = np.asarray(v)
+        out[k] = (
+            {
+                "median": float(np.median(a)),
+                "lowest": float(a.min()),
+                "highest": float(a.max()),
+                "stages": int(a.size),
+                "beyond_flag": int(np.count_nonzero(np.abs(a) > EFFECT_FLAG)),
+                "flag": EFFECT_FLAG,
+            }
+            if a.size
+            else None
+        )
+    return out
 
 
 def _stage_record(s: StageResult) -> dict:
@@ -784,6 +815,7 @@ def to_json(config: LibraryConfig, corr: Correlation) -> dict:
             ],
         },
         "stage_effects": decomposition(corr),
+        "stage_effects_spread": effect_spread(corr),
         "simulations": corr.simulations,
         "wall_seconds": round(corr.wall_seconds, 3),
         "circuits": [{"name": c.name, "origin": c.origin} for c in corr.circuits],
@@ -886,4 +918,16 @@ def summary_lines(config: LibraryConfig, corr: Correlation) -> list[str]:
     lines += _receiver_lines(corr, t, tu)
     effects = ", ".join(f"{k} {_pct(v)}" for k, v in decomposition(corr).items())
     lines.append(f"mean per-stage delay effects (tables minus simulation): {effects}")
+    spread = [f"{k} {spread_text(v)}" for k, v in effect_spread(corr).items() if v is not None]
+    if spread:
+        head = f"stages beyond ±{EFFECT_FLAG * 100:g} %"
+        lines.append(f"  per stage, median (lowest to highest; {head}): {', '.join(spread)}")
     return lines
+
+
+def spread_text(v: dict) -> str:
+    """One effect's spread over the stages, in words (``effect_spread``)."""
+    return (
+        f"{_pct(v['median'])} ({_pct(v['lowest'])} to {_pct(v['highest'])}; "
+        f"{v['beyond_flag']} of {v['stages']})"
+    )

@@ -536,8 +536,10 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
         for row in paths.by_slew(corr)
         if (s := row["predicted"]) is not None and len(corr.setup.slews) > 1
     )
+    ranges = paths.effect_spread(corr)
     effects = "".join(
-        f"<li>{k}: {'-' if v is None else f'{v * 100:+.2f} %'}</li>"
+        f"<li>{k}: {'-' if v is None else f'{v * 100:+.2f} %'}"
+        f"{'' if (r := ranges[k]) is None else '; per stage ' + paths.spread_text(r)}</li>"
         for k, v in paths.decomposition(corr).items()
     )
     stages = "".join(
@@ -561,9 +563,10 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
         f"{html.escape(paths.pin_load_note(corr.setup.pin_load))}. "
         "Error = (value - simulated) / simulated: negative where the value is too fast. "
         "Stage effects: mean per-stage delay difference, as a fraction of the simulated "
-        "delay: load = lumped pin capacitance against the real gates, shape = the tables' "
-        "input edge against the real waveform, interpolation = tables against the ramp "
-        "point.</p>"
+        "delay, then per stage its median (lowest to highest; how many stages it moves by "
+        f"more than {paths.EFFECT_FLAG * 100:g} %): load = lumped pin capacitance against the "
+        "real gates, shape = the tables' input edge against the real waveform, interpolation "
+        "= tables against the ramp point.</p>"
         f"<ul>{spread}</ul><ul>{effects}</ul>{_img(paths_png(config, corr), 'paths')}"
         f"<h2>Paths</h2><table class=summary><thead>{head}</thead><tbody>"
         f"{''.join(_path_rows(config, corr))}</tbody></table><h2>Stages</h2>{stages}"
