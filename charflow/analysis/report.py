@@ -539,7 +539,7 @@ def paths_html(config: LibraryConfig, corr: paths.Correlation) -> str:
     ranges = paths.effect_spread(corr)
     effects = "".join(
         f"<li>{k}: {'-' if v is None else f'{v * 100:+.2f} %'}"
-        f"{'' if (r := ranges[k]) is None else '; per stage ' + paths.spread_text(r)}</li>"
+        f"{'' if (r := ranges[k]) is None else '; per stage, median ' + paths.spread_text(r)}</li>"
         for k, v in paths.decomposition(corr).items()
     )
     stages = "".join(
