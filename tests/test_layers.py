@@ -21,7 +21,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "charflow"
 # with its reason.
 IN_FUNCTION = {
     "PySpice": "loads libngspice; only the shared backend needs it (simulation.backends)",
-    "joblib": "its pool, only where workers run (execution.workers, .provenance; analysis.report)",
+    "joblib": "its parallel loop, only where the report draws its maps (analysis.report)",
     "distributed": "the optional [cluster] extra (execution.cluster)",
     "liberty": "the optional [diff] extra's parser (analysis.diff)",
     "matplotlib": "seconds to import; only the plots need it (analysis.diff)",

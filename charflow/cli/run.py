@@ -66,10 +66,11 @@ def cluster_options(p: argparse.ArgumentParser) -> None:
     """Options of run and demo for where the points run."""
     p.add_argument(
         "--backend",
-        choices=("joblib", "dask"),
-        default="joblib",
-        help="where the points run: joblib, worker processes on this machine (default); dask, "
-        "the workers of a running Dask cluster (needs --scheduler)",
+        choices=("local", "dask", "joblib"),
+        default="local",
+        help="where the points run: local, worker processes on this machine (default; "
+        "'joblib' is its former name); dask, the workers of a running Dask cluster (needs "
+        "--scheduler)",
     )
     p.add_argument(
         "--scheduler",

@@ -1,7 +1,7 @@
 """Running sweep chunks on an existing Dask cluster (dask.distributed).
 
 Workers only simulate and measure; they return outcomes, and the driver, which holds the
-result store, writes them. Each worker process keeps its own simulator, as a joblib worker
+result store, writes them. Each worker process keeps its own simulator, as a local worker
 does (``timing.backend_for``). libngspice allows one simulator per process, so tasks in one
 worker process take turns; start workers with one thread each (see README, "Scale-out").
 A worker needs charflow and ngspice, not the library's files: the model files the decks read

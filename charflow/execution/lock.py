@@ -10,7 +10,9 @@ The file records its holder (process, host, command line, start time) so that a 
 run can say who holds the folder. Use ``FolderLock`` as a context manager.
 
 Worker and simulator processes do not hold it: Python opens the file non-inheritable
-(PEP 446) and joblib's workers start through exec with only their own descriptors.
+(PEP 446), so a program started through exec has no copy; a worker forked from the driver
+(``pool``) closes its copy as it starts (``forget_inherited``), and the release unlocks before
+it closes, so a copy no one has closed yet cannot hold the folder either.
 """
 
 from __future__ import annotations
@@ -30,6 +32,7 @@ from pathlib import Path
 from charflow.records.errors import OutputError
 
 LOCK_NAME = ".charflow-lock"
+_HELD: set[int] = set()  # descriptors of the locks this process holds
 
 
 @dataclass(frozen=True, slots=True)
@@ -58,6 +61,15 @@ def read_holder(folder: str | Path) -> Holder | None:
         return Holder(int(data["pid"]), str(data["host"]), str(data["command"]), data["started"])
     except (OSError, ValueError, KeyError, TypeError):
         return None
+
+
+def forget_inherited() -> None:
+    """In a process forked from a holder: close the copies of its lock descriptors, without
+    unlocking (the lock is the holder's)."""
+    for fd in _HELD:
+        with contextlib.suppress(OSError):
+            os.close(fd)
+    _HELD.clear()
 
 
 class FolderLock:
@@ -103,14 +115,19 @@ class FolderLock:
                 f"cannot write the lock file {LOCK_NAME}: {exc.strerror}", file=self.folder
             ) from exc
         self._fd = fd
+        _HELD.add(fd)
 
     def release(self) -> None:
         if self._fd is None:
             return
         fd, self._fd = self._fd, None
-        # An empty lock file names no holder; the lock itself goes with the close.
+        _HELD.discard(fd)
+        # An empty lock file names no holder. Unlocked before the close: a forked process's
+        # copy of the descriptor would keep the lock after the close alone.
         with contextlib.suppress(OSError):
             os.ftruncate(fd, 0)
+        with contextlib.suppress(OSError):
+            fcntl.flock(fd, fcntl.LOCK_UN)
         os.close(fd)
 
     def __enter__(self) -> FolderLock:

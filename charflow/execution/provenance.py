@@ -41,9 +41,10 @@ from charflow.simulation.session import SESSION
 
 # A Dask cluster's side (and the measurers it imports) loads only for a run on one.
 if TYPE_CHECKING:
-    from charflow.execution import cluster
+    from charflow.execution import cluster, pool
 else:
     cluster = deferred("charflow.execution.cluster")
+    pool = deferred("charflow.execution.pool")
 
 # ngspice's banner: "ngspice-39, Creation Date: Sun Feb  5 13:44:35 UTC 2023" (``_version_of``).
 _RELEASE = re.compile(r"(?P<program>[A-Za-z]+)-(?P<version>[^\s,]+)")
@@ -143,12 +144,11 @@ def simulator(
 
 
 def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
-    # joblib takes a noticeable time to import: only commands that run the simulator need it.
-    from joblib.executor import get_memmapping_executor
-
+    executor = pool.executor(jobs)
     try:
-        banner, library = get_memmapping_executor(jobs).submit(_banner_here, config).result()
+        banner, library = executor.submit(_banner_here, config).result()
     except BrokenExecutor as exc:
+        pool.discard(executor)
         raise SimulatorError(
             f"a worker process died while loading the ngspice shared library ({exc}); "
             "try backend 'subprocess' in [simulation]"

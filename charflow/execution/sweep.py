@@ -104,7 +104,7 @@ def run(
         yield from _told(found.values(), on_result, stop, until)
         points = [p for p in points if p not in found]
     if not points or stop.asked:
-        return  # all from the store (no worker pool started, no joblib loaded), or stopped
+        return  # all from the store (no worker pool started), or stopped
     results = _executed(
         config, built, chunks(points), jobs or default_jobs(), reads, stop, scheduler
     )

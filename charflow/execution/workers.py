@@ -8,8 +8,8 @@ hold, re-runs each point that was in flight alone through the subprocess backend
 ``ngspice -b`` per run: a crash or a hang there costs one run and names the point), and sends
 the points not yet started to fresh workers.
 
-joblib's process pool (loky) stops every worker when one dies, so the points in flight on all
-of them are re-run alone: the pool cannot say which worker died first.
+The pool (``pool``: workers forked from the driver) stops every worker when one dies, so the
+points in flight on all of them are re-run alone: the pool cannot say which worker died first.
 
 Reading a cell's testbench parses its models, which takes seconds with a foundry's model file,
 and a worker keeps what it has read (``backends.MAX_CIRCUITS``). So each task offers every
@@ -27,6 +27,7 @@ import contextlib
 import logging
 import os
 import pickle
+import signal
 import tempfile
 import time
 from collections import deque
@@ -43,15 +44,17 @@ from charflow.records.points import Work
 from charflow.simulation.netlist import Deck
 from charflow.simulation.session import SESSION
 
-# A dead worker's broken pool is caught as BrokenExecutor, the base of BrokenProcessPool and of
-# loky's errors: concurrent.futures.process (and multiprocessing) then load with joblib, only in a
-# run that starts a pool.
+# A dead worker's broken pool is caught as BrokenExecutor, the base of BrokenProcessPool:
+# concurrent.futures.process (and multiprocessing) load with the pool, only in a run that
+# starts one.
 #
 # The measurers load in the process that measures (a worker; the driver only when it measures
 # a point itself), not in the one that plans, schedules and writes.
 if TYPE_CHECKING:
+    from charflow.execution import pool
     from charflow.measurement import registry
 else:
+    pool = deferred("charflow.execution.pool")
     registry = deferred("charflow.measurement.registry")
 
 log = logging.getLogger("charflow")
@@ -179,22 +182,21 @@ def _work(config: LibraryConfig, deck: Deck, points: tuple[Work, ...], journal: 
 
 def warm(simulation: Simulation) -> bool:
     """A worker's first task when its pool starts ahead of the sweep (``start``): the
-    measurers imported and the simulator loaded, while the driver still imports and plans."""
+    measurers imported and the simulator loaded, while the driver still imports and plans
+    (a worker forked from the driver has what the driver has loaded, not these)."""
     SESSION.backend(simulation)
     return callable(registry.measure_chunk)  # the measurers load here, not in the first chunk
 
 
 def start(simulation: Simulation, jobs: int) -> None:
     """Start the sweep's pool of ``jobs`` worker processes now and warm them (``warm``),
-    without waiting: their start-up (a Python each, joblib, numpy, the measurers, the shared
-    library) then overlaps the driver's own. For a caller that knows a pool will be needed:
+    without waiting: their start-up (the measurers, PySpice, the shared library) then
+    overlaps the driver's own. For a caller that knows a pool will be needed:
     never when the store may serve the run wholly, which must start none. Nothing is started
     where the sweep would start no pool (the subprocess backend on one worker)."""
     if simulation.backend == "subprocess" and jobs == 1:
         return
-    from joblib.executor import get_memmapping_executor
-
-    executor = get_memmapping_executor(jobs)
+    executor = pool.executor(jobs)
     # One task per worker, though which worker takes which is the pool's choice: a worker
     # that takes none warms in its first chunk, as without a start. A warm-up that fails
     # (no shared library) is not reported here: the sweep's first chunk meets it again.
@@ -205,12 +207,13 @@ def start(simulation: Simulation, jobs: int) -> None:
 def in_worker(function: Callable[..., T], *args: object) -> T:
     """``function(*args)`` in one of the sweep's worker processes: where the simulator may
     run (the driver parses no model). A worker that dies is a SimulatorError."""
-    from joblib.executor import get_memmapping_executor
-
+    executor = pool.executor()
     try:
-        return get_memmapping_executor(1).submit(function, *args).result()
+        return executor.submit(function, *args).result()
     except BrokenExecutor as exc:
-        raise SimulatorError(f"the worker process died ({_why(exc)})") from exc
+        why = _why(executor)
+        pool.discard(executor)
+        raise SimulatorError(f"the worker process died ({why})") from exc
 
 
 def read_journal(path: str) -> list[Outcome] | None:
@@ -261,10 +264,6 @@ def run_chunks(
     gets one outcome even when workers die (see the module's description), unless ``stop`` is
     asked: then the chunks started finish and no other starts. ``reads`` tallies the
     testbenches the workers read."""
-    # joblib's own factory of its process pool, so that joblib.Parallel elsewhere in the
-    # process (the report's plots) shares the pool rather than finding one it cannot use.
-    from joblib.executor import get_memmapping_executor
-
     pending = list(tasks)
     fruitless = 0
     tally = reads if reads is not None else Reads()
@@ -273,13 +272,15 @@ def run_chunks(
         round_ = 0
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
-            executor = get_memmapping_executor(jobs)
+            executor = pool.executor(jobs)
             queue = _Queue(pending, decks, _pool(executor))
             lost, death = yield from _run_round(
                 executor, config, queue, jobs, (scratch, round_), tally, stop
             )
             if death is None:
                 return
+            why = _why(executor)
+            pool.discard(executor)
             salvaged, in_flight, kept = yield from _salvage(lost)
             if stop.asked:
                 return  # what the journals held is kept; nothing more starts
@@ -287,12 +288,12 @@ def run_chunks(
             fruitless = fruitless + 1 if not (kept or in_flight) else 0
             if fruitless >= FRUITLESS_ROUNDS:
                 raise SimulatorError(
-                    f"worker processes keep dying before they measure a point ({death})"
+                    f"worker processes keep dying before they measure a point ({why})"
                 ) from death
             log.warning(
                 "a worker process died (%s); kept %d finished points, re-running the %d in "
                 "flight alone through ngspice -b: %s",
-                _why(death),
+                why,
                 kept,
                 len(in_flight),
                 "; ".join(f"{p.cell} {p.label}" for p in in_flight) or "none",
@@ -523,13 +524,19 @@ def _salvage(
     return pending, in_flight, kept
 
 
-def _why(death: BaseException) -> str:
-    """loky's account of a dead worker, without its advice on memory leaks."""
-    text = str(death)
-    codes = text.find("The exit codes of the workers are")
-    if codes >= 0:
-        return text[codes:].splitlines()[0].strip().rstrip(".")
-    return text.split(".")[0]
+def _why(executor: Executor) -> str:
+    """A broken pool's account of its workers' ends: each one's exit code or signal."""
+    ends = [_end(code) for code in pool.exit_codes(executor)]
+    return "worker exits: " + (", ".join(ends) if ends else "unknown")
+
+
+def _end(code: int | None) -> str:
+    if code is None:
+        return "still running"
+    if code < 0:
+        with contextlib.suppress(ValueError):
+            return signal.Signals(-code).name
+    return f"exit status {code}"
 
 
 def default_jobs() -> int:

@@ -1,0 +1,115 @@
+"""The local worker processes: forked from the driver, kept for the process's later sweeps.
+
+A worker is a copy of the driver made by ``fork``: Python, numpy and charflow's modules are
+already loaded in it, so a pool is ready in milliseconds, where a fresh interpreter per worker
+(joblib's loky pool, used before) spent about 0.3 s of processor time each importing them and
+started two helper processes besides (docs/history/2026-12-forkpool.md). The simulator is never
+loaded in the driver (``workers``), so a worker loads its own, as before.
+
+What a forked worker must not keep of the driver's, it drops as it starts (``_started``):
+- the output folder's lock (``lock.forget_inherited``): a copy of the descriptor would hold the
+  folder after the driver released it;
+- the simulator's caches (``SESSION.forget``), which a driver that measured a point itself
+  would otherwise pass on;
+- Ctrl-C: the terminal sends SIGINT to every process of the command; a worker ends at once and
+  quietly, and the driver reports the interrupt;
+- a dead driver: a worker whose driver was killed ends itself (``_orphan_watch``), so no
+  orphan runs on or holds the folder.
+The driver's result store (SQLite) is not touched by a worker: it ends with ``os._exit``
+(multiprocessing's fork start), which runs no finalizer on what it inherited.
+
+A dead worker breaks the pool (concurrent.futures stops every worker of it, as loky did): the
+caller sees ``BrokenExecutor`` and asks for a new pool (``discard``, then ``executor``).
+"""
+
+from __future__ import annotations
+
+import atexit
+import multiprocessing
+import multiprocessing.connection
+import os
+import signal
+import threading
+from concurrent.futures import Executor, ProcessPoolExecutor
+
+from charflow.execution import lock
+from charflow.simulation.session import SESSION
+
+EXIT_INTERRUPTED = 130  # 128 + SIGINT, as the command itself exits on Ctrl-C
+EXIT_ORPHANED = 71  # a worker whose driver is gone
+
+_POOLS: list[ProcessPoolExecutor] = []  # this process's pool, at most one
+
+
+def executor(jobs: int | None = None) -> Executor:
+    """This process's pool of ``jobs`` workers, made on first use and kept for later sweeps;
+    ``jobs`` None: the pool there is, whatever its size, else one of a single worker. A pool
+    of another size, or one a dead worker broke, is replaced."""
+    if _POOLS:
+        pool = _POOLS[0]
+        if not _is_broken(pool) and jobs in (None, _size(pool)):
+            return pool
+        discard(pool)
+    pool = ProcessPoolExecutor(
+        jobs or 1, mp_context=multiprocessing.get_context("fork"), initializer=_started
+    )
+    _POOLS.append(pool)
+    return pool
+
+
+def discard(pool: Executor) -> None:
+    """Stop ``pool`` without waiting for it (a broken one's workers are already stopped);
+    the next ``executor`` call makes a new one."""
+    if pool in _POOLS:
+        _POOLS.remove(pool)
+    pool.shutdown(wait=False, cancel_futures=True)
+
+
+def worker_ids() -> list[int]:
+    """Process ids of the current pool's workers (none before its first task)."""
+    if not _POOLS:
+        return []
+    return sorted(getattr(_POOLS[0], "_processes", None) or {})
+
+
+def exit_codes(pool: Executor) -> list[int | None]:
+    """The exit codes of ``pool``'s workers (None: still running), for a dead worker's report."""
+    processes = getattr(pool, "_processes", None) or {}
+    return [p.exitcode for p in processes.values()]
+
+
+def _is_broken(pool: ProcessPoolExecutor) -> bool:
+    # concurrent.futures keeps it private; a broken pool refuses every new task.
+    return bool(getattr(pool, "_broken", False))
+
+
+def _size(pool: ProcessPoolExecutor) -> int:
+    return int(getattr(pool, "_max_workers", 0))
+
+
+@atexit.register
+def _stop_all() -> None:
+    # While the interpreter still works: a pool collected during its teardown reports errors.
+    for pool in _POOLS:
+        pool.shutdown(wait=True, cancel_futures=True)
+    _POOLS.clear()
+
+
+def _started() -> None:
+    """A worker's first act: drop what it must not keep of the driver (module description)."""
+    signal.signal(signal.SIGINT, _interrupted)
+    lock.forget_inherited()
+    SESSION.forget()
+    parent = multiprocessing.parent_process()
+    if parent is not None:
+        threading.Thread(target=_orphan_watch, args=(parent.sentinel,), daemon=True).start()
+
+
+def _interrupted(signum: int, frame: object) -> None:
+    os._exit(EXIT_INTERRUPTED)
+
+
+def _orphan_watch(sentinel: int) -> None:
+    """End this worker once its driver has ended (the sentinel is readable then)."""
+    multiprocessing.connection.wait([sentinel])
+    os._exit(EXIT_ORPHANED)

@@ -1,0 +1,128 @@
+"""The local worker pool (``execution.pool``): workers forked from the driver keep nothing of
+it they must not: no simulator caches, no folder lock; they end with a killed driver and end
+quietly on Ctrl-C. A dead worker is reported by its signal (tests/test_faults.py kills one)."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from charflow.execution import pool, workers
+from charflow.execution.lock import FolderLock
+from charflow.simulation.session import SESSION
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL = ROOT / "tests" / "data" / "small_l1.toml"
+EXIT_INTERRUPTED = 130  # 128 + SIGINT: what a shell reports for a command stopped by Ctrl-C
+GONE_WITHIN = 10.0  # s a worker may take to end after its driver
+
+
+def _cached_entries() -> int:
+    return len(SESSION.cache("test_pool"))
+
+
+def test_a_forked_worker_starts_with_empty_caches():
+    SESSION.cache("test_pool")["driver's"] = 1  # what a driver that measured a point may hold
+    try:
+        pool.discard(pool.executor())  # a pool forked after the entry was made
+        assert workers.in_worker(_cached_entries) == 0
+    finally:
+        SESSION.forget()
+
+
+def _ended(pid: int) -> bool:
+    """Whether process ``pid`` has ended (gone, or a zombie its new parent has not reaped)."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return True
+    return stat.rsplit(")", 1)[1].split()[0] == "Z"
+
+
+def _wait_ended(pids: list[int]) -> list[int]:
+    """The pids of ``pids`` still running after ``GONE_WITHIN``."""
+    deadline = time.monotonic() + GONE_WITHIN
+    while time.monotonic() < deadline and not all(map(_ended, pids)):
+        time.sleep(0.05)
+    return [p for p in pids if not _ended(p)]
+
+
+_DRIVER = """
+import sys, time
+from charflow.config import library as config
+from charflow.execution import pool, workers
+workers.start(config.load(sys.argv[1]).simulation, 2)
+print(" ".join(map(str, pool.worker_ids())), flush=True)
+time.sleep(120)
+"""
+
+
+def test_workers_end_with_a_killed_driver():
+    with subprocess.Popen(
+        [sys.executable, "-c", _DRIVER, str(SMALL)], stdout=subprocess.PIPE, text=True
+    ) as driver:
+        try:
+            ids = [int(p) for p in driver.stdout.readline().split()]
+            assert len(ids) == 2
+            driver.send_signal(signal.SIGKILL)
+            driver.wait(timeout=10)
+            assert _wait_ended(ids) == []
+        finally:
+            driver.kill()
+
+
+def _children(pid: int) -> list[int]:
+    try:
+        return [int(c) for c in Path(f"/proc/{pid}/task/{pid}/children").read_text().split()]
+    except OSError:
+        return []
+
+
+def _started_workers(pid: int) -> list[int]:
+    deadline = time.monotonic() + 60
+    while len(_children(pid)) < 2 and time.monotonic() < deadline:
+        time.sleep(0.02)
+    ids = _children(pid)
+    assert len(ids) >= 2, "the run started no workers"
+    return ids
+
+
+def test_ctrl_c_ends_the_run_and_its_workers_quietly(tmp_path):
+    # The small library on a 20 x 20 grid: a sweep of seconds, to interrupt in its middle.
+    slews = ", ".join(f"{0.01 * 1.2**i:.4g}" for i in range(20))
+    loads = ", ".join(f"{0.001 * 1.2**i:.4g}" for i in range(20))
+    doc = SMALL.read_text(encoding="utf-8").replace(
+        "slew = [0.01, 0.05, 0.2]\nload = [0.001, 0.005, 0.02]",
+        f"slew = [{slews}]\nload = [{loads}]",
+    )
+    path = SMALL.with_name("_interrupted.toml")  # beside the original: its relative paths hold
+    path.write_text(doc, encoding="utf-8")
+    out = tmp_path / "out"
+    command = [sys.executable, "-m", "charflow.cli.main", "run", str(path), "--out", str(out)]
+    try:
+        with subprocess.Popen(
+            [*command, "--jobs", "2", "--quiet"],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+            start_new_session=True,  # its own process group, as a terminal's foreground command
+        ) as run:
+            try:
+                ids = _started_workers(run.pid)
+                time.sleep(0.5)  # into the sweep
+                os.killpg(run.pid, signal.SIGINT)  # what Ctrl-C does: every process of the group
+                _, stderr = run.communicate(timeout=30)
+            finally:
+                run.kill()
+    finally:
+        path.unlink()
+    assert run.returncode == EXIT_INTERRUPTED, stderr
+    assert "charflow: interrupted" in stderr
+    assert "Traceback" not in stderr, stderr
+    assert _wait_ended(ids) == []
+    with FolderLock(out):  # the folder is free again
+        pass
