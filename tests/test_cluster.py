@@ -1,5 +1,5 @@
 """The Dask backend on a small LocalCluster this test starts on 127.0.0.1: the same tables as
-joblib, and the driver, not the workers, writes the store."""
+local workers, and the driver, not the workers, writes the store."""
 
 from __future__ import annotations
 
@@ -42,25 +42,25 @@ def cluster():
         yield local
 
 
-def test_dask_gives_the_same_tables_as_joblib(cluster, tmp_path: Path) -> None:
+def test_dask_gives_the_same_tables_as_local_workers(cluster, tmp_path: Path) -> None:
     cfg = config.load(SMALL)
     with Store(tmp_path / FILE_NAME) as store:
         on_dask = flow.characterize(cfg, store=store, scheduler=cluster.scheduler_address)
         assert store.count() == POINTS + TOGGLES + 2 * CELLS  # a leakage and a check each
-    on_joblib = flow.characterize(cfg, jobs=2)
+    on_local = flow.characterize(cfg, jobs=2)
     assert not on_dask.failures and len(on_dask.measurements) == POINTS
-    assert liberty.render(cfg, on_dask.cells) == liberty.render(cfg, on_joblib.cells)
-    for a, b in zip(on_dask.cells, on_joblib.cells, strict=True):
+    assert liberty.render(cfg, on_dask.cells) == liberty.render(cfg, on_local.cells)
+    for a, b in zip(on_dask.cells, on_local.cells, strict=True):
         for x, y in zip(a.arcs, b.arcs, strict=True):
             assert x.default == y.default
 
 
-def test_the_command_on_dask_writes_what_joblib_writes(cluster, tmp_path: Path) -> None:
+def test_the_command_on_dask_writes_what_local_workers_write(cluster, tmp_path: Path) -> None:
     exe = shutil.which("charflow")
     if exe is None:
         pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
     outputs = {}
-    for backend in ("dask", "joblib"):
+    for backend in ("dask", "local"):
         out = tmp_path / backend
         extra = ["--scheduler", cluster.scheduler_address] if backend == "dask" else []
         done = subprocess.run(
@@ -73,7 +73,7 @@ def test_the_command_on_dask_writes_what_joblib_writes(cluster, tmp_path: Path) 
         assert done.returncode == 0, done.stderr
         assert f"{POINTS} simulated" in done.stdout
         outputs[backend] = [(out / f"small_l1{s}").read_bytes() for s in (".lib", ".json")]
-    assert outputs["dask"] == outputs["joblib"]
+    assert outputs["dask"] == outputs["local"]
 
 
 def test_an_unreachable_scheduler_is_a_cluster_error(monkeypatch) -> None:

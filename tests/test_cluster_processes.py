@@ -139,6 +139,7 @@ def test_the_command_on_the_cluster_writes_what_a_local_run_writes(cluster, tmp_
         pytest.fail("the charflow command is not on PATH; install the package (pip install -e .)")
     toml = _library(tmp_path / "lib")
     outputs = {}
+    # "joblib": the former name of --backend local, still accepted.
     for backend, extra in (("dask", ["--scheduler", cluster.address]), ("joblib", ["--jobs", "2"])):
         out = tmp_path / backend
         # From a folder of its own: nothing depends on the working folder.

@@ -12,7 +12,8 @@ What a forked worker must not keep of the driver's, it drops as it starts (``_st
 - the simulator's caches (``SESSION.forget``), which a driver that measured a point itself
   would otherwise pass on;
 - Ctrl-C: the terminal sends SIGINT to every process of the command; a worker ends at once and
-  quietly, and the driver reports the interrupt;
+  quietly, and the driver reports the interrupt (a driver that ignores SIGINT, as a background
+  job of a shell without job control does, has workers that ignore it too);
 - a dead driver: a worker whose driver was killed ends itself (``_orphan_watch``), so no
   orphan runs on or holds the folder.
 The driver's result store (SQLite) is not touched by a worker: it ends with ``os._exit``
@@ -97,7 +98,8 @@ def _stop_all() -> None:
 
 def _started() -> None:
     """A worker's first act: drop what it must not keep of the driver (module description)."""
-    signal.signal(signal.SIGINT, _interrupted)
+    if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:  # as the driver: ignored stays so
+        signal.signal(signal.SIGINT, _interrupted)
     lock.forget_inherited()
     SESSION.forget()
     parent = multiprocessing.parent_process()
