@@ -8,11 +8,13 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
 import pytest
 
+from charflow.cli import shared
 from charflow.execution import pool, workers
 from charflow.execution.lock import FolderLock
 from charflow.simulation.session import SESSION
@@ -36,6 +38,33 @@ def test_a_forked_worker_starts_with_empty_caches():
         SESSION.forget()
 
 
+def test_a_driver_with_threads_spawns_its_workers():
+    # A forked copy of a threaded process holds no thread but every lock one held then.
+    stop = threading.Event()
+    helper = threading.Thread(target=stop.wait)
+    helper.start()
+    try:
+        pool.discard(pool.executor())
+        assert workers.in_worker(os.getpid) in pool.worker_ids()
+        assert pool.method() == "spawn"
+    finally:
+        stop.set()
+        helper.join()
+        pool.discard(pool.executor())
+    assert pool.start_method() == "fork"  # the thread has ended
+
+
+def test_the_progress_bar_starts_no_thread(monkeypatch):
+    progress = shared.Progress(quiet=False)
+    progress.enabled = True  # as on a terminal
+    before = threading.active_count()
+    progress.start(10)
+    try:
+        assert threading.active_count() == before
+    finally:
+        progress.bar.close()
+
+
 def _ended(pid: int) -> bool:
     """Whether process ``pid`` has ended (gone, or a zombie its new parent has not reaped)."""
     try:
@@ -56,6 +85,7 @@ def _wait_ended(pids: list[int]) -> list[int]:
 _DRIVER = """
 import sys, time
 from charflow.config import library as config
+from charflow.cli import shared
 from charflow.execution import pool, workers
 workers.start(config.load(sys.argv[1]).simulation, 2)
 print(" ".join(map(str, pool.worker_ids())), flush=True)

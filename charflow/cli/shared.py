@@ -111,6 +111,9 @@ class Progress:
     def start(self, total: int) -> None:
         """``total``: the work of every point to come (``sweep.work``)."""
         if self.enabled:
+            # No monitor thread: the local pool forks its workers only from a driver running
+            # a single Python thread (execution.pool.start_method).
+            tqdm.tqdm.monitor_interval = 0
             # smoothing 0: the mean rate since the start, steadier than a recent one when
             # results come a worker's chunk at a time.
             self.bar = tqdm.tqdm(

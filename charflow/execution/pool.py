@@ -5,10 +5,12 @@ already loaded in it, so a pool is ready in milliseconds, where a fresh interpre
 (joblib's loky pool, used before) spent about 0.3 s of processor time each importing them and
 started two helper processes besides (docs/history/2026-12-forkpool.md). The simulator is never
 loaded in the driver (``workers``), so a worker loads its own, as before.
+A driver running other Python threads (charflow used as a library in a threaded program)
+spawns fresh interpreters instead (``start_method``); what follows holds for both.
 
 What a forked worker must not keep of the driver's, it drops as it starts (``_started``):
 - the output folder's lock (``lock.forget_inherited``): a copy of the descriptor would hold the
-  folder after the driver released it;
+  folder after the driver released it (a spawned worker has none);
 - the simulator's caches (``SESSION.forget``), which a driver that measured a point itself
   would otherwise pass on;
 - Ctrl-C: the terminal sends SIGINT to every process of the command; a worker ends at once and
@@ -39,7 +41,8 @@ from charflow.simulation.session import SESSION
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, as the command itself exits on Ctrl-C
 EXIT_ORPHANED = 71  # a worker whose driver is gone
 
-_POOLS: list[ProcessPoolExecutor] = []  # this process's pool, at most one
+# This process's pool (at most one) and how its workers started ("fork" or "spawn").
+_POOLS: list[tuple[ProcessPoolExecutor, str]] = []
 
 
 def executor(jobs: int | None = None) -> Executor:
@@ -47,30 +50,45 @@ def executor(jobs: int | None = None) -> Executor:
     ``jobs`` None: the pool there is, whatever its size, else one of a single worker. A pool
     of another size, or one a dead worker broke, is replaced."""
     if _POOLS:
-        pool = _POOLS[0]
+        pool = _POOLS[0][0]
         if not _is_broken(pool) and jobs in (None, _size(pool)):
             return pool
         discard(pool)
+    how = start_method()
     pool = ProcessPoolExecutor(
-        jobs or 1, mp_context=multiprocessing.get_context("fork"), initializer=_started
+        jobs or 1, mp_context=multiprocessing.get_context(how), initializer=_started
     )
-    _POOLS.append(pool)
+    _POOLS.append((pool, how))
     return pool
 
 
+def start_method() -> str:
+    """How a new pool's workers start: forked while this process runs a single Python thread,
+    else spawned (fresh interpreters, a third of a second each): a fork copies no other
+    thread, and a lock one of them held would stay held in the copy for ever (Python 3.12
+    warns of such a fork). A library user's threads, or a broken pool's thread still ending
+    when its replacement starts, make the spawn."""
+    return "fork" if threading.active_count() == 1 else "spawn"
+
+
+def method() -> str | None:
+    """How the current pool's workers started; None without a pool."""
+    return _POOLS[0][1] if _POOLS else None
+
+
 def discard(pool: Executor) -> None:
-    """Stop ``pool`` without waiting for it (a broken one's workers are already stopped);
-    the next ``executor`` call makes a new one."""
-    if pool in _POOLS:
-        _POOLS.remove(pool)
-    pool.shutdown(wait=False, cancel_futures=True)
+    """Stop ``pool`` (a broken one's workers are already stopped, a replaced one's idle) and
+    wait for its thread to end, so that the next pool may fork; the next ``executor`` call
+    makes one."""
+    _POOLS[:] = [entry for entry in _POOLS if entry[0] is not pool]
+    pool.shutdown(wait=True, cancel_futures=True)
 
 
 def worker_ids() -> list[int]:
     """Process ids of the current pool's workers (none before its first task)."""
     if not _POOLS:
         return []
-    return sorted(getattr(_POOLS[0], "_processes", None) or {})
+    return sorted(getattr(_POOLS[0][0], "_processes", None) or {})
 
 
 def exit_codes(pool: Executor) -> list[int | None]:
@@ -91,7 +109,7 @@ def _size(pool: ProcessPoolExecutor) -> int:
 @atexit.register
 def _stop_all() -> None:
     # While the interpreter still works: a pool collected during its teardown reports errors.
-    for pool in _POOLS:
+    for pool, _ in _POOLS:
         pool.shutdown(wait=True, cancel_futures=True)
     _POOLS.clear()
 
