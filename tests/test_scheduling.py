@@ -104,7 +104,7 @@ def _done(
 def test_a_free_worker_takes_its_own_cells_first_then_unread_ones_then_the_largest():
     decks = {c: _deck(c) for c in "ABCD"}
     tasks = [*_chunks("A", 3, 10), *_chunks("B", 2, 5), *_chunks("C", 1, 4), *_chunks("D", 1, 1)]
-    queue = workers._Queue(tasks, decks, workers._Pool())
+    queue = workers._Queue(tasks, decks, workers._Known())
     # Unknown workers start the cells with the most work left, one cell each.
     a, b = queue.take(None), queue.take(None)
     assert (a[0].cell, b[0].cell) == ("A", "B")
@@ -122,7 +122,7 @@ def test_a_free_worker_takes_its_own_cells_first_then_unread_ones_then_the_large
 
 def test_each_known_worker_is_offered_a_chunk_of_its_own_cell():
     decks = {c: _deck(c) for c in "AB"}
-    queue = workers._Queue([*_chunks("A", 3, 10), *_chunks("B", 3, 10)], decks, workers._Pool())
+    queue = workers._Queue([*_chunks("A", 3, 10), *_chunks("B", 3, 10)], decks, workers._Known())
     _done(queue, 1, queue.take(None))
     _done(queue, 2, queue.take(None))
     offers = queue.offers()
@@ -138,7 +138,7 @@ def test_each_cell_starts_with_its_function_check():
     work = [LeakagePoint(c, states=30) for c in "AABB"] + [FunctionPoint(c, 4) for c in "AB"]
     tasks = sweep.chunks(work)
     assert [type(t[0]) for t in tasks[:2]] == [FunctionPoint, FunctionPoint]
-    queue = workers._Queue(tasks, {c: _deck(c) for c in "AB"}, workers._Pool())
+    queue = workers._Queue(tasks, {c: _deck(c) for c in "AB"}, workers._Known())
     a, b = queue.take(None), queue.take(None)
     assert [(t[0].cell, type(t[0])) for t in (a, b)] == [("A", FunctionPoint), ("B", FunctionPoint)]
     _done(queue, 1, a)
@@ -147,7 +147,7 @@ def test_each_cell_starts_with_its_function_check():
 
 def test_a_worker_steals_only_where_the_read_costs_less_than_the_help_saves():
     decks = {c: _deck(c) for c in "AB"}
-    queue = workers._Queue([*_chunks("A", 5, 10), *_chunks("B", 1, 1)], decks, workers._Pool())
+    queue = workers._Queue([*_chunks("A", 5, 10), *_chunks("B", 1, 1)], decks, workers._Known())
     _done(queue, 1, queue.take(None), read_s=1.0, seconds=2.0)  # A: 1 s read, 0.1 s per unit
     _done(queue, 2, queue.take(None), read_s=1.0, seconds=1.1)
     # A has 40 units (4 s) left on worker 1: a second worker would save 2 s for a 1 s read.
@@ -174,7 +174,7 @@ cfg = config.load(sys.argv[1])
 keys = {build_deck(cfg, c).key for c in cfg.cells}
 executor = get_memmapping_executor(1)
 gone = 2**22 + 12345  # a process id no worker has
-workers._POOL = workers._Pool(
+workers._KNOWN = workers._Known(
     id(executor), {gone: set(keys)}, {k: 100.0 for k in keys}, {k: 1e-9 for k in keys}
 )
 with Store(sys.argv[2]) as store:

@@ -66,8 +66,8 @@ def start_method() -> str:
     """How a new pool's workers start: forked while this process runs a single Python thread,
     else spawned (fresh interpreters, a third of a second each): a fork copies no other
     thread, and a lock one of them held would stay held in the copy for ever (Python 3.12
-    warns of such a fork). A library user's threads, or a broken pool's thread still ending
-    when its replacement starts, make the spawn."""
+    warns of such a fork). charflow starts no thread of its own before its pool (``discard``
+    waits for a replaced pool's); a library user's threads make the spawn."""
     return "fork" if threading.active_count() == 1 else "spawn"
 
 
@@ -76,12 +76,17 @@ def method() -> str | None:
     return _POOLS[0][1] if _POOLS else None
 
 
-def discard(pool: Executor) -> None:
+def discard(pool: Executor) -> list[int | None]:
     """Stop ``pool`` (a broken one's workers are already stopped, a replaced one's idle) and
     wait for its thread to end, so that the next pool may fork; the next ``executor`` call
-    makes one."""
+    makes one. Return its workers' exit codes, each a negative signal number for a worker
+    killed by one (None: unknown)."""
     _POOLS[:] = [entry for entry in _POOLS if entry[0] is not pool]
+    # concurrent.futures keeps its processes private and drops them at shutdown; their codes
+    # are read after it, once its thread has reaped every one.
+    processes = list((getattr(pool, "_processes", None) or {}).values())
     pool.shutdown(wait=True, cancel_futures=True)
+    return [p.exitcode for p in processes]
 
 
 def worker_ids() -> list[int]:
@@ -89,12 +94,6 @@ def worker_ids() -> list[int]:
     if not _POOLS:
         return []
     return sorted(getattr(_POOLS[0][0], "_processes", None) or {})
-
-
-def exit_codes(pool: Executor) -> list[int | None]:
-    """The exit codes of ``pool``'s workers (None: still running), for a dead worker's report."""
-    processes = getattr(pool, "_processes", None) or {}
-    return [p.exitcode for p in processes.values()]
 
 
 def _is_broken(pool: ProcessPoolExecutor) -> bool:

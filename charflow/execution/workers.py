@@ -211,9 +211,7 @@ def in_worker(function: Callable[..., T], *args: object) -> T:
     try:
         return executor.submit(function, *args).result()
     except BrokenExecutor as exc:
-        why = _why(executor)
-        pool.discard(executor)
-        raise SimulatorError(f"the worker process died ({why})") from exc
+        raise SimulatorError(f"the worker process died ({_discard_broken(executor)})") from exc
 
 
 def read_journal(path: str) -> list[Outcome] | None:
@@ -273,14 +271,13 @@ def run_chunks(
         while pending:
             # A pool broken by a dead worker is replaced by a fresh one here.
             executor = pool.executor(jobs)
-            queue = _Queue(pending, decks, _pool(executor))
+            queue = _Queue(pending, decks, _known(executor))
             lost, death = yield from _run_round(
                 executor, config, queue, jobs, (scratch, round_), tally, stop
             )
             if death is None:
                 return
-            why = _why(executor)
-            pool.discard(executor)
+            why = _discard_broken(executor)
             salvaged, in_flight, kept = yield from _salvage(lost)
             if stop.asked:
                 return  # what the journals held is kept; nothing more starts
@@ -304,7 +301,7 @@ def run_chunks(
 
 
 @dataclass
-class _Pool:
+class _Known:
     """What the driver knows of its pool's workers, which outlive a sweep (the driver
     stage's, then the run's): the testbenches (``Deck.key``) each process has read, by process
     id, and per testbench the seconds of a read and of work per unit of cost, measured."""
@@ -315,14 +312,14 @@ class _Pool:
     unit_time: dict[str, float] = field(default_factory=dict)
 
 
-_POOL = _Pool()
+_KNOWN = _Known()
 
 
-def _pool(executor: Executor) -> _Pool:
-    global _POOL
-    if _POOL.ident != id(executor):
-        _POOL = _Pool(id(executor))
-    return _POOL
+def _known(executor: Executor) -> _Known:
+    global _KNOWN
+    if _KNOWN.ident != id(executor):
+        _KNOWN = _Known(id(executor))
+    return _KNOWN
 
 
 class _Queue:
@@ -334,7 +331,7 @@ class _Queue:
         self,
         tasks: Iterable[tuple[Work, ...]],
         decks: Mapping[str, Deck],
-        pool: _Pool,
+        known: _Known,
     ) -> None:
         self.cells: dict[str, deque[tuple[Work, ...]]] = {}
         for task in tasks:
@@ -342,8 +339,8 @@ class _Queue:
         self.left = {c: sum(p.cost for t in q for p in t) for c, q in self.cells.items()}
         self.decks = decks
         self.keys = {c: decks[c].key for c in self.cells}
-        self.pool = pool
-        self.held = pool.held
+        self.known = known
+        self.held = known.held
         self.started: set[str] = set()
 
     def take(self, pid: int | None, force: bool = False) -> tuple[Work, ...] | None:
@@ -371,7 +368,7 @@ class _Queue:
         """Whether one more worker on ``cell`` ends it sooner than its holders alone would,
         its read of the testbench counted (unmeasured: yes)."""
         key = self.keys[cell]
-        read, unit = self.pool.read_time.get(key), self.pool.unit_time.get(key)
+        read, unit = self.known.read_time.get(key), self.known.unit_time.get(key)
         if read is None or unit is None:
             return True
         holders = sum(1 for keys in self.held.values() if key in keys)
@@ -400,10 +397,10 @@ class _Queue:
         key = self.keys[cell]
         self.held.setdefault(done.pid, set()).add(key)
         if done.reads:
-            self.pool.read_time[key] = done.read_seconds / done.reads
+            self.known.read_time[key] = done.read_seconds / done.reads
         cost = sum(p.cost for p in chunk)
         if cost:
-            self.pool.unit_time[key] = max(0.0, done.seconds - done.read_seconds) / cost
+            self.known.unit_time[key] = max(0.0, done.seconds - done.read_seconds) / cost
 
     def rest(self) -> list[tuple[Work, ...]]:
         return [t for q in self.cells.values() for t in q]
@@ -524,9 +521,10 @@ def _salvage(
     return pending, in_flight, kept
 
 
-def _why(executor: Executor) -> str:
-    """A broken pool's account of its workers' ends: each one's exit code or signal."""
-    ends = [_end(code) for code in pool.exit_codes(executor)]
+def _discard_broken(executor: Executor) -> str:
+    """A broken pool, discarded; its account of its workers' ends: each one's exit code or
+    signal."""
+    ends = [_end(code) for code in pool.discard(executor)]
     return "worker exits: " + (", ".join(ends) if ends else "unknown")
 
 
