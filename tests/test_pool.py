@@ -1,6 +1,7 @@
 """The local worker pool (``execution.pool``): workers forked from the driver keep nothing of
 it they must not: no simulator caches, no folder lock; they end with a killed driver and end
-quietly on Ctrl-C. A dead worker is reported by its signal (tests/test_faults.py kills one)."""
+quietly on Ctrl-C; a driver running other threads spawns them instead. A dead worker is
+reported by its signal (tests/test_faults.py kills one)."""
 
 from __future__ import annotations
 
@@ -17,7 +18,6 @@ import pytest
 from charflow.cli import shared
 from charflow.execution import pool, workers
 from charflow.execution.lock import FolderLock
-from charflow.simulation.session import SESSION
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -25,17 +25,41 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT: what a shell reports for a command stopp
 GONE_WITHIN = 10.0  # s a worker may take to end after its driver
 
 
-def _cached_entries() -> int:
-    return len(SESSION.cache("test_pool"))
+# A driver of its own (the test process runs other threads, and would spawn its workers):
+# it holds the folder and a cache entry when its pool forks, then asks a worker what it has.
+_FORKED = """
+import os, sys
+from charflow.execution import pool, workers
+from charflow.execution.lock import LOCK_NAME, FolderLock
+from charflow.simulation.session import SESSION
+
+def held():
+    names = []
+    for fd in os.listdir("/proc/self/fd"):
+        try:
+            names.append(os.readlink(f"/proc/self/fd/{fd}"))
+        except OSError:
+            pass  # the listing's own descriptor, gone
+    return len(SESSION.cache("test_pool")), sum(n.endswith(LOCK_NAME) for n in names)
+
+SESSION.cache("test_pool")["driver's"] = 1  # what a driver that measured a point may hold
+with FolderLock(sys.argv[1]):
+    caches, locks = workers.in_worker(held)
+with FolderLock(sys.argv[1]):  # the pool's workers are alive: none holds the folder
+    print(pool.method(), caches, locks)
+"""
 
 
-def test_a_forked_worker_starts_with_empty_caches():
-    SESSION.cache("test_pool")["driver's"] = 1  # what a driver that measured a point may hold
-    try:
-        pool.discard(pool.executor())  # a pool forked after the entry was made
-        assert workers.in_worker(_cached_entries) == 0
-    finally:
-        SESSION.forget()
+def test_a_forked_worker_drops_the_drivers_caches_and_lock(tmp_path):
+    done = subprocess.run(
+        [sys.executable, "-c", _FORKED, str(tmp_path)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["fork", "0", "0"]  # forked; no cache entry, no lock file
 
 
 def test_a_driver_with_threads_spawns_its_workers():
@@ -53,7 +77,7 @@ def test_a_driver_with_threads_spawns_its_workers():
         pool.discard(pool.executor())
 
 
-def test_the_progress_bar_starts_no_thread(monkeypatch):
+def test_the_progress_bar_starts_no_thread():
     progress = shared.Progress(quiet=False)
     progress.enabled = True  # as on a terminal
     before = threading.active_count()
