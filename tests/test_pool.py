@@ -62,6 +62,43 @@ def test_a_forked_worker_drops_the_drivers_caches_and_lock(tmp_path):
     assert done.stdout.split() == ["fork", "0", "0"]  # forked; no cache entry, no lock file
 
 
+# A forked worker killed in the middle of a sweep, in a driver of its own (as above): its
+# points are kept or re-run, and the pool after it forks again.
+_KILLED = """
+import os, signal, sys
+from charflow.config import library as config
+from charflow.execution import pool, sweep
+from charflow.plan import arcs
+
+cfg = config.load(sys.argv[1])
+points = arcs.plan(cfg).points
+killed = []
+
+def kill_one(outcome):
+    if not killed:
+        killed.append(pool.method())
+        os.kill(pool.worker_ids()[0], signal.SIGKILL)
+
+outcomes = list(sweep.run(cfg, points, jobs=2, on_result=kill_one))
+failed = sum(type(o).__name__ == "Failure" for o in outcomes)
+print(killed[0], pool.method(), len(outcomes) == len(points), failed)
+"""
+
+
+def test_a_killed_forked_worker_costs_no_point():
+    done = subprocess.run(
+        [sys.executable, "-c", _KILLED, str(SMALL)],
+        capture_output=True,
+        text=True,
+        timeout=300,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["fork", "fork", "True", "0"], done.stdout
+    died = [line for line in done.stderr.splitlines() if "a worker process died" in line]
+    assert died and "SIGKILL" in died[0], done.stderr
+
+
 def test_a_driver_with_threads_spawns_its_workers():
     # A forked copy of a threaded process holds no thread but every lock one held then.
     stop = threading.Event()
