@@ -27,11 +27,12 @@ import contextlib
 import logging
 import os
 import pickle
+import shutil
 import signal
 import tempfile
 import time
 from collections import deque
-from collections.abc import Callable, Generator, Iterable, Mapping, Sequence
+from collections.abc import Callable, Generator, Iterable, Iterator, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, BrokenExecutor, Executor, Future, wait
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, TypeVar
@@ -406,14 +407,26 @@ class _Queue:
         return [t for q in self.cells.values() for t in q]
 
 
-def _journal_folder() -> tempfile.TemporaryDirectory[str]:
-    """A temporary folder for the workers' journals (removed when the sweep ends)."""
+@contextlib.contextmanager
+def _journal_folder() -> Iterator[str]:
+    """A temporary folder for the workers' journals, removed when the sweep ends. A sweep
+    closed early (an error, Ctrl-C) may leave a worker starting a chunk it had already taken:
+    the folder is renamed before it is emptied, so that worker's journal cannot appear in it
+    midway (it gets no journal, which only a death would need)."""
     try:
-        return tempfile.TemporaryDirectory(prefix="charflow-journal-")
+        folder = tempfile.mkdtemp(prefix="charflow-journal-")
     except OSError as exc:
         raise OutputError(
             f"cannot make the workers' journal folder in {tempfile.gettempdir()}: {exc}"
         ) from exc
+    try:
+        yield folder
+    finally:
+        gone = f"{folder}-ended"
+        with contextlib.suppress(OSError):
+            os.rename(folder, gone)
+            folder = gone
+        shutil.rmtree(folder, ignore_errors=True)  # never in the way of the sweep's own error
 
 
 def _run_round(
@@ -471,9 +484,12 @@ def _run_round(
             if death is None and not futures and queue.rest():
                 submit(force=True)  # no worker would take what is left: the first free does
     finally:
-        # Closed early (the caller stopped): chunks not yet started are not started.
+        # Closed early (the caller stopped, or an error): chunks not yet started are not
+        # started, those already queued in a worker return at once.
         for future in futures:
             future.cancel()
+        if futures:
+            _mark(stopped)
     return lost, death
 
 
