@@ -50,15 +50,21 @@ with FolderLock(sys.argv[1]):  # the pool's workers are alive: none holds the fo
 """
 
 
-def test_a_forked_worker_drops_the_drivers_caches_and_lock(tmp_path):
+def _driver(script: str, *args: str | Path) -> subprocess.CompletedProcess[str]:
+    """``script`` run as a driver of its own with ``args``; it must succeed."""
     done = subprocess.run(
-        [sys.executable, "-c", _FORKED, str(tmp_path)],
+        [sys.executable, "-c", script, *map(str, args)],
         capture_output=True,
         text=True,
-        timeout=120,
+        timeout=300,
         check=False,
     )
     assert done.returncode == 0, done.stderr
+    return done
+
+
+def test_a_forked_worker_drops_the_drivers_caches_and_lock(tmp_path):
+    done = _driver(_FORKED, tmp_path)
     assert done.stdout.split() == ["fork", "0", "0"]  # forked; no cache entry, no lock file
 
 
@@ -86,14 +92,7 @@ print(killed[0], pool.method(), len(outcomes) == len(points), failed)
 
 
 def test_a_killed_forked_worker_costs_no_point():
-    done = subprocess.run(
-        [sys.executable, "-c", _KILLED, str(SMALL)],
-        capture_output=True,
-        text=True,
-        timeout=300,
-        check=False,
-    )
-    assert done.returncode == 0, done.stderr
+    done = _driver(_KILLED, SMALL)
     assert done.stdout.split() == ["fork", "fork", "True", "0"], done.stdout
     died = [line for line in done.stderr.splitlines() if "a worker process died" in line]
     assert died and "SIGKILL" in died[0], done.stderr
