@@ -18,6 +18,7 @@ import pytest
 from charflow.cli import shared
 from charflow.execution import pool, workers
 from charflow.execution.lock import FolderLock
+from charflow.records.errors import SimulatorError
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ROOT / "tests" / "data" / "small_l1.toml"
@@ -111,6 +112,23 @@ def test_a_driver_with_threads_spawns_its_workers():
         stop.set()
         helper.join()
         pool.discard(pool.executor())
+
+
+def test_a_worker_that_dies_in_a_task_is_a_simulator_error_naming_its_end():
+    # The path the simulator's banner and the plan's timing samples take (``in_worker``).
+    died = r"a worker process died \(worker exits: .*exit status 3"
+    with pytest.raises(SimulatorError, match=died):
+        workers.in_worker(os._exit, 3)
+    assert workers.in_worker(os.getpid) in pool.worker_ids()  # a new pool serves the next
+
+
+def test_a_task_queued_as_its_sweep_ends_takes_no_chunk(tmp_path):
+    # A sweep closed early removes its journal folder; a task a worker had queued then
+    # returns without measuring the chunk it was offered.
+    gone = tmp_path / "journals"
+    offers = ((None, None, ("a chunk",)),)
+    done = workers._offered(None, offers, [str(gone / "0")], None, str(gone / workers.STOPPED))
+    assert done.chosen is None and done.outcomes == []
 
 
 def test_the_progress_bar_starts_no_thread():

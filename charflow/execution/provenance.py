@@ -24,15 +24,13 @@ import json
 import os
 import re
 import shutil
-from concurrent.futures import BrokenExecutor  # a dead worker (see workers.py)
 from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 from charflow import __version__
 from charflow.config.library import LibraryConfig, Simulation, Thresholds
-from charflow.execution.workers import default_jobs
-from charflow.records.errors import SimulatorError
+from charflow.execution.workers import default_jobs, in_worker
 from charflow.records.lazy import deferred
 from charflow.records.units import energy_unit, power_unit, time_scale
 from charflow.simulation.backends import loaded_library, make_backend
@@ -41,10 +39,9 @@ from charflow.simulation.session import SESSION
 
 # A Dask cluster's side (and the measurers it imports) loads only for a run on one.
 if TYPE_CHECKING:
-    from charflow.execution import cluster, pool
+    from charflow.execution import cluster
 else:
     cluster = deferred("charflow.execution.cluster")
-    pool = deferred("charflow.execution.pool")
 
 # ngspice's banner: "ngspice-39, Creation Date: Sun Feb  5 13:44:35 UTC 2023" (``_version_of``).
 _RELEASE = re.compile(r"(?P<program>[A-Za-z]+)-(?P<version>[^\s,]+)")
@@ -144,15 +141,7 @@ def simulator(
 
 
 def _ask_a_worker(config: LibraryConfig, jobs: int) -> str:
-    executor = pool.executor(jobs)
-    try:
-        banner, library = executor.submit(_banner_here, config).result()
-    except BrokenExecutor as exc:
-        pool.discard(executor)
-        raise SimulatorError(
-            f"a worker process died while loading the ngspice shared library ({exc}); "
-            "try backend 'subprocess' in [simulation]"
-        ) from exc
+    banner, library = in_worker(_banner_here, config, jobs=jobs)
     if library is not None:
         _keep_banner(library, banner)
     return banner

@@ -139,9 +139,9 @@ def _offered(
     ``known`` is None (a forced task): then it takes the first chunk, whoever it was meant for
     (the driver's knowledge may name a worker the pool has since replaced, e.g. one that
     stopped after its idle timeout; offering the last chunk to it for ever would spin). Once
-    the file ``stopped`` exists it takes none."""
+    the file ``stopped`` exists, or its folder is gone (the sweep has ended), it takes none."""
     pid = os.getpid()
-    if os.path.exists(stopped):
+    if os.path.exists(stopped) or not os.path.isdir(os.path.dirname(stopped)):
         return Done([], pid, 0, 0.0, 0.0, None)
     wants = (pid, None) if known is None or pid not in known else (pid,)
     for want in wants:
@@ -205,14 +205,20 @@ def start(simulation: Simulation, jobs: int) -> None:
         executor.submit(warm, simulation)
 
 
-def in_worker(function: Callable[..., T], *args: object) -> T:
+def in_worker(function: Callable[..., T], *args: object, jobs: int | None = None) -> T:
     """``function(*args)`` in one of the sweep's worker processes: where the simulator may
-    run (the driver parses no model). A worker that dies is a SimulatorError."""
-    executor = pool.executor()
+    run (the driver parses no model). ``jobs``: the pool's size where one is to be made (the
+    sweep's, so that it serves the sweep after); None: the pool there is, else one worker. A
+    worker that dies is a SimulatorError."""
+    executor = pool.executor(jobs)
     try:
         return executor.submit(function, *args).result()
     except BrokenExecutor as exc:
-        raise SimulatorError(f"the worker process died ({_discard_broken(executor)})") from exc
+        raise SimulatorError(
+            f"a worker process died ({_discard_broken(executor)}); if the ngspice shared "
+            "library crashed, backend 'subprocess' in [simulation] runs each simulation in a "
+            "process of its own"
+        ) from exc
 
 
 def read_journal(path: str) -> list[Outcome] | None:
@@ -409,10 +415,11 @@ class _Queue:
 
 @contextlib.contextmanager
 def _journal_folder() -> Iterator[str]:
-    """A temporary folder for the workers' journals, removed when the sweep ends. A sweep
-    closed early (an error, Ctrl-C) may leave a worker starting a chunk it had already taken:
-    the folder is renamed before it is emptied, so that worker's journal cannot appear in it
-    midway (it gets no journal, which only a death would need)."""
+    """A temporary folder for the workers' journals, removed when the sweep ends; a task
+    still queued in a worker then takes no chunk (``_offered``). One already past that check
+    as a sweep closes early (an error) opens its journal by the folder's name: the folder is
+    renamed before it is emptied, so that journal cannot appear in it midway (the task gets
+    none, which only a death would need)."""
     try:
         folder = tempfile.mkdtemp(prefix="charflow-journal-")
     except OSError as exc:
@@ -485,11 +492,9 @@ def _run_round(
                 submit(force=True)  # no worker would take what is left: the first free does
     finally:
         # Closed early (the caller stopped, or an error): chunks not yet started are not
-        # started, those already queued in a worker return at once.
+        # started; those already queued in a worker find the journal folder gone (``_offered``).
         for future in futures:
             future.cancel()
-        if futures:
-            _mark(stopped)
     return lost, death
 
 
